@@ -1,0 +1,1 @@
+"""The ``foresight`` command: one module per subcommand over the library API."""

@@ -1,0 +1,90 @@
+"""Entry point: parse, call the library once, map errors to exit codes.
+
+Exit codes: 0 success, 2 bad input (a message naming file, layer, field, row or key), 1 an
+unexpected error (a bug: the traceback is printed).
+"""
+
+from __future__ import annotations
+
+import argparse
+import logging
+import sys
+import traceback
+from collections.abc import Sequence
+
+from foresight.cli import check as check_cmd
+from foresight.cli import run as run_cmd
+from foresight.errors import InputError
+from foresight.versions import library_versions
+
+EXIT_OK, EXIT_BUG, EXIT_INPUT = 0, 1, 2
+
+
+def _version_text() -> str:
+    v = library_versions()
+    rest = ", ".join(f"{k} {val}" for k, val in v.items() if k != "foresight")
+    return f"foresight {v['foresight']} ({rest})"
+
+
+class _VersionAction(argparse.Action):
+    def __init__(self, option_strings: Sequence[str], dest: str, **kwargs: object) -> None:
+        super().__init__(option_strings, dest, nargs=0, help="show versions and exit")
+
+    def __call__(self, parser, namespace, values, option_string=None):  # noqa: ANN001
+        print(_version_text())
+        parser.exit()
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="foresight",
+        description="Timber supply projection: grow a stand layer forward, schedule harvests "
+        "under an even-flow policy, write GeoPackage layers and wood-flow tables.",
+    )
+    parser.add_argument("--version", action=_VersionAction)
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("-v", "--verbose", action="count", default=0,
+                        help="more progress detail on stderr (-vv for debug)")
+    common.add_argument("-q", "--quiet", action="store_true", help="errors only on stderr")
+    common.add_argument("--set", dest="overrides", action="append", default=[],
+                        metavar="KEY=VALUE",
+                        help="override a scenario key, e.g. --set flow.band=0.1 (repeatable)")
+    common.add_argument("--strict", action="store_true",
+                        help="reject invalid geometries instead of repairing them")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
+    for module in (run_cmd, check_cmd):
+        module.add_parser(sub, common)
+    return parser
+
+
+def _setup_logging(verbose: int, quiet: bool) -> None:
+    level = logging.WARNING if quiet else (logging.DEBUG if verbose > 1 else logging.INFO)
+    handler = logging.StreamHandler(sys.stderr)
+    handler.setFormatter(logging.Formatter("foresight: %(message)s"))
+    logger = logging.getLogger("foresight")
+    logger.handlers[:] = [handler]
+    logger.setLevel(level)
+    logger.propagate = False
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    _setup_logging(args.verbose, args.quiet)
+    try:
+        return int(args.handler(args))
+    except InputError as exc:
+        print(f"foresight: error: {exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except KeyboardInterrupt:
+        print("foresight: interrupted; no output was written", file=sys.stderr)
+        return 130
+    except Exception:  # a bug: show everything so it can be reported
+        traceback.print_exc()
+        print("foresight: unexpected error (a bug); please report it with the traceback above",
+              file=sys.stderr)
+        return EXIT_BUG
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,35 @@
+"""``foresight run SCENARIO --out DIR``: the whole projection, outputs written atomically."""
+
+from __future__ import annotations
+
+import argparse
+
+import foresight
+
+
+def add_parser(sub, common: argparse.ArgumentParser) -> None:  # noqa: ANN001
+    p = sub.add_parser("run", parents=[common], help="project and schedule; write outputs",
+                       description="Project the stands, find the even-flow level, write "
+                       "projection.gpkg, wood_flow.csv and run.json into DIR.")
+    p.add_argument("scenario", help="scenario TOML file")
+    p.add_argument("--out", required=True, metavar="DIR", help="output directory")
+    p.set_defaults(handler=handle)
+
+
+def handle(args: argparse.Namespace) -> int:
+    scenario = foresight.load_scenario(args.scenario, overrides=args.overrides)
+    result = foresight.run(scenario, args.out, strict=args.strict)
+    if not args.quiet:
+        wf = result.wood_flow
+        print(f"scenario {scenario.scenario.name!r}: {len(result.stands)} stands, "
+              f"{result.inventory.report.area_ha:,.0f} ha, {len(wf)} periods of "
+              f"{scenario.scenario.period_years} years")
+        print(f"even-flow level: {result.flow.level_m3_per_year:,.0f} m3/year "
+              f"({result.flow.level_m3_per_period:,.0f} m3 per period)")
+        print(f"limited by: {result.flow.binding}")
+        print(f"growing stock: {wf['growing_stock_start_m3'].iloc[0]:,.0f} m3 at start, "
+              f"{wf['growing_stock_end_m3'].iloc[-1]:,.0f} m3 at the end")
+        print(f"outputs in {args.out}/ (projection.gpkg, wood_flow.csv, run.json)")
+        print("These are planning estimates; defer to local forest-practice law and to "
+              "licensed professionals.")
+    return 0

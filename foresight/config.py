@@ -1,0 +1,464 @@
+"""The scenario file: TOML in, frozen typed config objects out.
+
+One declarative table (:data:`KEYS`) lists every key with its type, unit, default and meaning.
+It drives parsing, the unknown-key errors and the test that checks ``docs/scenario.md`` names
+every key, so a key is described once.
+
+    >>> scn = load_scenario("sample_region/scenario.toml")            # doctest: +SKIP
+    >>> scn = load_scenario(path, overrides=["flow.band=0.1"])          # doctest: +SKIP
+"""
+
+from __future__ import annotations
+
+import csv
+import difflib
+import math
+import tomllib
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Any
+
+from foresight.errors import ScenarioError
+
+CURVES = ("chapman-richards", "table")
+PRIORITIES = ("oldest", "relative_oldest", "highest_volume")
+TIMINGS = ("start", "midpoint", "end")
+FLOW_POLICIES = ("even",)
+
+_REQUIRED = object()
+
+
+@dataclass(frozen=True)
+class KeySpec:
+    """One scenario key: its type, default, unit and a line of documentation."""
+
+    kind: str  # "int", "float", "str", "floats", "choice"
+    default: Any = _REQUIRED
+    unit: str = ""
+    doc: str = ""
+    choices: tuple[str, ...] = ()
+    check: Callable[[Any], str | None] | None = None  # returns a problem, or None
+
+    @property
+    def required(self) -> bool:
+        return self.default is _REQUIRED
+
+
+def _positive(v: float) -> str | None:
+    return None if v > 0 else "must be > 0"
+
+
+def _non_negative(v: float) -> str | None:
+    return None if v >= 0 else "must be >= 0"
+
+
+def _fraction_below_one(v: float) -> str | None:
+    return None if 0 <= v < 1 else "must be >= 0 and < 1"
+
+
+# Section name -> key name -> spec. "species.*" applies to every species table.
+KEYS: dict[str, dict[str, KeySpec]] = {
+    "scenario": {
+        "name": KeySpec("str", doc="Name of the scenario, shown in outputs."),
+        "start_year": KeySpec("int", unit="year", doc="Calendar year at the start of period 1."),
+        "period_years": KeySpec("int", 10, "years", "Length of one period.", check=_positive),
+        "periods": KeySpec("int", 20, "", "Number of periods in the horizon.", check=_positive),
+        "harvest_timing": KeySpec(
+            "choice", "midpoint", "",
+            "Moment within a period at which its harvest is taken and ages are judged.",
+            choices=TIMINGS,
+        ),
+    },
+    "inventory": {
+        "path": KeySpec("str", doc="Stand layer file, relative to the scenario file."),
+        "layer": KeySpec("str", None, doc="Layer name; may be left out if the file has one."),
+        "crs": KeySpec("str", None, doc="CRS of the layer (e.g. 'EPSG:32633'), only if it has none."),
+    },
+    "inventory.fields": {
+        "stand_id": KeySpec("str", doc="Layer field holding a unique stand identifier."),
+        "species": KeySpec("str", doc="Layer field holding the species code."),
+        "site_index": KeySpec("str", doc="Layer field holding the site index [m]."),
+        "age": KeySpec("str", doc="Layer field holding the stand age [years] at start_year."),
+        "zone": KeySpec("str", None, doc="Layer field holding a zone name (optional)."),
+    },
+    "species.*": {
+        "curve": KeySpec("choice", doc="Yield curve family.", choices=CURVES),
+        "a": KeySpec("float", None, "m3/ha", "Chapman-Richards asymptote at the reference site.",
+                     check=_positive),
+        "k": KeySpec("float", None, "1/year", "Chapman-Richards rate.", check=_positive),
+        "c": KeySpec("float", None, "", "Chapman-Richards shape exponent.", check=_positive),
+        "site_index_ref_m": KeySpec(
+            "float", None, "m",
+            "Reference site index for a and k; leave out for no site dependence.",
+            check=_positive,
+        ),
+        "site_exponent_a": KeySpec(
+            "float", 1.0, "", "a scales with (SI / site_index_ref_m) to this power."
+        ),
+        "site_exponent_k": KeySpec(
+            "float", 0.0, "", "k scales with (SI / site_index_ref_m) to this power."
+        ),
+        "ages": KeySpec("floats", None, "years", "Table curve: ages, strictly increasing."),
+        "volumes_m3_ha": KeySpec("floats", None, "m3/ha", "Table curve: volume at each age."),
+        "table_csv": KeySpec(
+            "str", None, "",
+            "Table curve from a CSV file (columns age_years, volume_m3_ha), relative to the "
+            "scenario file; instead of ages and volumes_m3_ha.",
+        ),
+        "min_harvest_age": KeySpec("float", unit="years", doc="Youngest age that may be cut.",
+                                   check=_non_negative),
+        "regen_delay_years": KeySpec(
+            "float", 0.0, "years", "Years from harvest until the new stand starts at age 0.",
+            check=_non_negative,
+        ),
+        "site_index_min_m": KeySpec("float", None, "m", "Lowest site index the curve is valid for."),
+        "site_index_max_m": KeySpec("float", None, "m", "Highest site index the curve is valid for."),
+    },
+    "harvest": {
+        "priority": KeySpec("choice", "oldest", "", "Order in which eligible stands are cut.",
+                            choices=PRIORITIES),
+        "max_area_ha_per_period": KeySpec(
+            "float", None, "ha", "Cap on the area harvested in one period.", check=_positive
+        ),
+    },
+    "flow": {
+        "policy": KeySpec("choice", "even", "", "Flow policy.", choices=FLOW_POLICIES),
+        "band": KeySpec(
+            "float", 0.0, "fraction",
+            "Allowed change of harvest between consecutive periods (0.1 = +/-10%).",
+            check=_fraction_below_one,
+        ),
+        "ending_stock": KeySpec(
+            "float", 1.0, "fraction",
+            "Growing stock at the end of the horizon must be at least this share of the initial.",
+            check=_non_negative,
+        ),
+    },
+}
+
+SECTIONS = ("scenario", "inventory", "species", "harvest", "flow")
+_CR_KEYS = {"a", "k", "c", "site_index_ref_m", "site_exponent_a", "site_exponent_k"}
+_TABLE_KEYS = {"ages", "volumes_m3_ha", "table_csv"}
+
+
+# ----------------------------------------------------------------------------- config objects
+@dataclass(frozen=True)
+class ScenarioInfo:
+    name: str
+    start_year: int
+    period_years: int
+    periods: int
+    harvest_timing: str
+
+
+@dataclass(frozen=True)
+class FieldMap:
+    stand_id: str
+    species: str
+    site_index: str
+    age: str
+    zone: str | None = None
+
+
+@dataclass(frozen=True)
+class InventoryConfig:
+    path: Path
+    layer: str | None
+    crs: str | None
+    fields: FieldMap
+
+
+@dataclass(frozen=True)
+class SpeciesConfig:
+    code: str
+    curve: str
+    min_harvest_age: float
+    regen_delay_years: float = 0.0
+    a: float | None = None
+    k: float | None = None
+    c: float | None = None
+    site_index_ref_m: float | None = None
+    site_exponent_a: float = 1.0
+    site_exponent_k: float = 0.0
+    ages: tuple[float, ...] | None = None
+    volumes_m3_ha: tuple[float, ...] | None = None
+    table_csv: Path | None = None
+    site_index_min_m: float | None = None
+    site_index_max_m: float | None = None
+
+
+@dataclass(frozen=True)
+class HarvestConfig:
+    priority: str = "oldest"
+    max_area_ha_per_period: float | None = None
+
+
+@dataclass(frozen=True)
+class FlowConfig:
+    policy: str = "even"
+    band: float = 0.0
+    ending_stock: float = 1.0
+
+
+@dataclass(frozen=True)
+class Scenario:
+    """A parsed, checked scenario. ``source`` is the scenario file (None if built in code)."""
+
+    scenario: ScenarioInfo
+    inventory: InventoryConfig
+    species: Mapping[str, SpeciesConfig]
+    harvest: HarvestConfig = field(default_factory=HarvestConfig)
+    flow: FlowConfig = field(default_factory=FlowConfig)
+    source: Path | None = None
+    overrides: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict[str, Any]:
+        """The resolved scenario as plain JSON-able data (paths as strings)."""
+
+        def clean(obj: Any) -> Any:
+            if isinstance(obj, dict):
+                return {k: clean(v) for k, v in obj.items()}
+            if isinstance(obj, list | tuple):
+                return [clean(v) for v in obj]
+            if isinstance(obj, Path):
+                return str(obj)
+            return obj
+
+        return clean(asdict(self))
+
+
+# ----------------------------------------------------------------------------- parsing
+def load_scenario(path: str | Path, overrides: Sequence[str] = ()) -> Scenario:
+    """Read a scenario TOML file, apply ``section.key=value`` overrides, and check every key."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise ScenarioError(f"{path}: scenario file not found") from None
+    except OSError as exc:
+        raise ScenarioError(f"{path}: cannot read the scenario file ({exc.strerror})") from None
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ScenarioError(f"{path}: not valid TOML: {exc}") from None
+    for item in overrides:
+        apply_override(raw, item, where=path.name)
+    return parse_scenario(raw, base_dir=path.resolve().parent, where=path.name,
+                          source=path.resolve(), overrides=tuple(overrides))
+
+
+def apply_override(raw: dict[str, Any], item: str, where: str = "--set") -> None:
+    """Set one dotted key in the raw TOML tables: ``flow.band=0.1``, ``species.pine.k=0.03``.
+
+    The value is read as a TOML value (numbers, booleans, quoted strings, arrays); anything
+    that is not valid TOML is taken as a bare string.
+    """
+    key, sep, text = item.partition("=")
+    key = key.strip()
+    if not sep or not key:
+        raise ScenarioError(f"--set {item!r}: expected KEY=VALUE, e.g. flow.band=0.1")
+    try:
+        value = tomllib.loads(f"v = {text.strip()}")["v"]
+    except tomllib.TOMLDecodeError:
+        value = text.strip()
+    parts = key.split(".")
+    if len(parts) < 2 or parts[0] not in SECTIONS:
+        raise ScenarioError(
+            f"--set {item!r}: {key!r} is not a scenario key; keys look like section.key with "
+            f"a section among: {', '.join(SECTIONS)}"
+        )
+    table = raw
+    for depth, part in enumerate(parts[:-1]):
+        nxt = table.setdefault(part, {})
+        if not isinstance(nxt, dict):
+            raise ScenarioError(
+                f"--set {item!r}: {'.'.join(parts[: depth + 1])} is a value, not a table"
+            )
+        table = nxt
+    table[parts[-1]] = value
+
+
+def parse_scenario(
+    raw: Mapping[str, Any],
+    base_dir: Path = Path("."),
+    where: str = "scenario",
+    source: Path | None = None,
+    overrides: tuple[str, ...] = (),
+) -> Scenario:
+    """Check a scenario given as nested dicts (as tomllib returns) and build the config."""
+    _reject_unknown(raw, SECTIONS, where, "")
+    for name in ("scenario", "inventory", "species"):
+        if name not in raw:
+            raise ScenarioError(f"{where}: missing section [{name}]")
+
+    info = ScenarioInfo(**_take(raw["scenario"], "scenario", where))
+
+    inv_raw = _table(raw["inventory"], "inventory", where)
+    inv_vals = _take({k: v for k, v in inv_raw.items() if k != "fields"}, "inventory", where)
+    if "fields" not in inv_raw:
+        raise ScenarioError(f"{where}: missing table [inventory.fields]")
+    fields = FieldMap(**_take(inv_raw["fields"], "inventory.fields", where))
+    inventory = InventoryConfig(
+        path=(base_dir / inv_vals["path"]).resolve(),
+        layer=inv_vals["layer"],
+        crs=inv_vals["crs"],
+        fields=fields,
+    )
+
+    species_raw = _table(raw["species"], "species", where)
+    if not species_raw:
+        raise ScenarioError(f"{where}: [species] lists no species; add a [species.<CODE>] table")
+    species = {
+        str(code): _species(code, tbl, base_dir, where) for code, tbl in species_raw.items()
+    }
+
+    harvest = HarvestConfig(**_take(raw.get("harvest", {}), "harvest", where))
+    flow = FlowConfig(**_take(raw.get("flow", {}), "flow", where))
+    return Scenario(info, inventory, species, harvest, flow, source, overrides)
+
+
+def _species(code: str, raw: Any, base_dir: Path, where: str) -> SpeciesConfig:
+    sect = f"species.{code}"
+    vals = _take(raw, "species.*", where, shown=sect)
+    curve = vals["curve"]
+    given = set(_table(raw, sect, where))
+    foreign = sorted(given & (_TABLE_KEYS if curve == "chapman-richards" else _CR_KEYS))
+    if foreign:
+        raise ScenarioError(
+            f"{where}: [{sect}] key {foreign[0]!r} does not apply to curve {curve!r}"
+        )
+    if curve == "chapman-richards":
+        for key in ("a", "k", "c"):
+            if vals[key] is None:
+                raise ScenarioError(f"{where}: [{sect}] curve 'chapman-richards' needs key {key!r}")
+    else:
+        if vals["table_csv"] is not None:
+            if vals["ages"] is not None or vals["volumes_m3_ha"] is not None:
+                raise ScenarioError(
+                    f"{where}: [{sect}] give either table_csv or ages and volumes_m3_ha, not both"
+                )
+            csv_path = (base_dir / vals["table_csv"]).resolve()
+            vals["table_csv"] = csv_path
+            vals["ages"], vals["volumes_m3_ha"] = _read_table_csv(csv_path)
+            table_where = str(csv_path)
+        else:
+            if vals["ages"] is None or vals["volumes_m3_ha"] is None:
+                raise ScenarioError(
+                    f"{where}: [{sect}] curve 'table' needs ages and volumes_m3_ha "
+                    "(or table_csv)"
+                )
+            table_where = f"{where}: [{sect}]"
+        _check_table(vals["ages"], vals["volumes_m3_ha"], table_where)
+    lo, hi = vals["site_index_min_m"], vals["site_index_max_m"]
+    if lo is not None and hi is not None and lo > hi:
+        raise ScenarioError(
+            f"{where}: [{sect}] site_index_min_m = {lo} is above site_index_max_m = {hi}"
+        )
+    return SpeciesConfig(code=str(code), **vals)
+
+
+def _read_table_csv(path: Path) -> tuple[tuple[float, ...], tuple[float, ...]]:
+    # A yield table is a small text file named by the scenario, so it is read with the scenario.
+    try:
+        with path.open(newline="", encoding="utf-8") as fh:
+            rows = list(csv.DictReader(fh))
+    except FileNotFoundError:
+        raise ScenarioError(f"{path}: yield table file not found") from None
+    need = ("age_years", "volume_m3_ha")
+    if not rows or any(col not in rows[0] for col in need):
+        have = ", ".join(rows[0]) if rows else "no rows"
+        raise ScenarioError(f"{path}: a yield table needs columns {need} (found: {have})")
+    ages, vols = [], []
+    for n, row in enumerate(rows, start=2):
+        try:
+            ages.append(float(row["age_years"]))
+            vols.append(float(row["volume_m3_ha"]))
+        except (TypeError, ValueError):
+            raise ScenarioError(
+                f"{path}, line {n}: age_years={row['age_years']!r}, "
+                f"volume_m3_ha={row['volume_m3_ha']!r} are not both numbers"
+            ) from None
+    return tuple(ages), tuple(vols)
+
+
+def _check_table(ages: Sequence[float], vols: Sequence[float], where: str) -> None:
+    if len(ages) != len(vols):
+        raise ScenarioError(
+            f"{where}: ages has {len(ages)} values but volumes_m3_ha has {len(vols)}"
+        )
+    if len(ages) < 2:
+        raise ScenarioError(f"{where}: a yield table needs at least two ages")
+    for a0, a1 in zip(ages, ages[1:], strict=False):
+        if not a1 > a0:
+            raise ScenarioError(f"{where}: ages must increase strictly ({a0} then {a1})")
+    if ages[0] < 0:
+        raise ScenarioError(f"{where}: age {ages[0]} is negative")
+    bad = [v for v in vols if not (v >= 0 and math.isfinite(v))]
+    if bad:
+        raise ScenarioError(f"{where}: volume {bad[0]} is not a finite value >= 0")
+
+
+def _table(value: Any, sect: str, where: str) -> dict[str, Any]:
+    if not isinstance(value, dict):
+        raise ScenarioError(f"{where}: [{sect}] must be a table, found {value!r}")
+    return value
+
+
+def _reject_unknown(raw: Mapping[str, Any], known: Sequence[str], where: str, sect: str) -> None:
+    for key in raw:
+        if key not in known:
+            near = difflib.get_close_matches(key, known, n=1)
+            hint = f"; did you mean {near[0]!r}?" if near else ""
+            place = f"[{sect}] key" if sect else "section"
+            raise ScenarioError(
+                f"{where}: unknown {place} {key!r}{hint} Known: {', '.join(known)}"
+            )
+
+
+def _take(raw: Any, spec_name: str, where: str, shown: str | None = None) -> dict[str, Any]:
+    """Validate one table against its spec; return every key with defaults filled in."""
+    sect = shown or spec_name
+    raw = _table(raw, sect, where)
+    spec = KEYS[spec_name]
+    extra = {"fields"} if spec_name == "inventory" else set()
+    _reject_unknown({k: v for k, v in raw.items() if k not in extra}, list(spec), where, sect)
+    out: dict[str, Any] = {}
+    for key, ks in spec.items():
+        if key not in raw:
+            if ks.required:
+                raise ScenarioError(f"{where}: [{sect}] missing required key {key!r} ({ks.doc})")
+            out[key] = ks.default
+            continue
+        out[key] = _coerce(raw[key], ks, f"{where}: [{sect}] {key} = {raw[key]!r}")
+    return out
+
+
+def _coerce(value: Any, ks: KeySpec, where: str) -> Any:
+    if ks.kind == "int":
+        if isinstance(value, bool) or not isinstance(value, int):
+            raise ScenarioError(f"{where}: must be a whole number")
+    elif ks.kind == "float":
+        if isinstance(value, bool) or not isinstance(value, int | float):
+            raise ScenarioError(f"{where}: must be a number")
+        value = float(value)
+        if not math.isfinite(value):
+            raise ScenarioError(f"{where}: must be a finite number")
+    elif ks.kind == "str":
+        if not isinstance(value, str) or not value:
+            raise ScenarioError(f"{where}: must be a non-empty string")
+    elif ks.kind == "choice":
+        if value not in ks.choices:
+            raise ScenarioError(f"{where}: choose one of: {', '.join(ks.choices)}")
+    elif ks.kind == "floats":
+        ok = isinstance(value, list) and all(
+            isinstance(v, int | float) and not isinstance(v, bool) for v in value
+        )
+        if not ok:
+            raise ScenarioError(f"{where}: must be an array of numbers")
+        value = tuple(float(v) for v in value)
+    if ks.check is not None:
+        problem = ks.check(value)
+        if problem:
+            raise ScenarioError(f"{where}: {problem}")
+    return value

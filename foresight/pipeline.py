@@ -1,0 +1,149 @@
+"""The whole chain as library calls: :func:`check` and :func:`run`.
+
+    >>> import foresight
+    >>> scn = foresight.load_scenario("sample_region/scenario.toml")   # doctest: +SKIP
+    >>> result = foresight.run(scn, "results/")                        # doctest: +SKIP
+    >>> result.wood_flow.head()                                        # doctest: +SKIP
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from pathlib import Path
+
+import geopandas as gpd
+import pandas as pd
+
+from foresight.config import Scenario
+from foresight.inventory import Inventory, prepare_inventory
+from foresight.io.outputs import check_output_dir, sha256_file, staged_output, write_json
+from foresight.io.vector import read_layer, write_gpkg_layer
+from foresight.projection import CurveSet, Periods, StandArrays
+from foresight.reporting import harvests_layer, stands_layer, wood_flow_table
+from foresight.schedule import FlowResult, find_even_flow
+from foresight.versions import library_versions
+
+log = logging.getLogger("foresight")
+
+GPKG_NAME = "projection.gpkg"
+WOOD_FLOW_CSV = "wood_flow.csv"
+RUN_JSON = "run.json"
+
+
+@dataclass
+class RunResult:
+    """What a run produced: the tables in memory and where the files went."""
+
+    out_dir: Path | None
+    inventory: Inventory
+    flow: FlowResult
+    wood_flow: pd.DataFrame
+    stands: gpd.GeoDataFrame
+    harvests: gpd.GeoDataFrame
+    timings_s: dict[str, float] = field(default_factory=dict)
+
+    @property
+    def level_m3_per_year(self) -> float:
+        return self.flow.level_m3_per_year
+
+
+class _Timer:
+    def __init__(self) -> None:
+        self.timings: dict[str, float] = {}
+
+    @contextmanager
+    def stage(self, name: str) -> Iterator[None]:
+        log.info("%s ...", name)
+        t0 = time.perf_counter()
+        yield
+        self.timings[name] = round(time.perf_counter() - t0, 4)
+        log.info("%s done in %.2f s", name, self.timings[name])
+
+
+def check(scenario: Scenario, strict: bool = False) -> Inventory:
+    """Read the stand layer and run every inventory check; nothing is projected or written."""
+    cfg = scenario.inventory
+    frame, layer = read_layer(cfg.path, cfg.layer)
+    return prepare_inventory(frame, scenario, where=f"{cfg.path}, layer {layer!r}", strict=strict)
+
+
+def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) -> RunResult:
+    """Check, project, schedule and (if ``out_dir`` is given) write every output."""
+    out = Path(out_dir) if out_dir is not None else None
+    if out is not None:
+        check_output_dir(out)  # before the long stages, not after
+    timer = _Timer()
+    with timer.stage("read and check inventory"):
+        inventory = check(scenario, strict=strict)
+    periods = Periods.from_scenario(scenario)
+    curves = CurveSet.from_scenario(scenario)
+    arrays = StandArrays.from_table(inventory.stands, scenario, curves)
+    with timer.stage("project and schedule"):
+        flow = find_even_flow(
+            arrays, curves, periods,
+            band=scenario.flow.band,
+            ending_stock=scenario.flow.ending_stock,
+            priority=scenario.harvest.priority,
+            max_area_ha=scenario.harvest.max_area_ha_per_period,
+        )
+    log.info("flow level %.0f m3/year; limited by %s", flow.level_m3_per_year, flow.binding)
+    with timer.stage("build output tables"):
+        wood_flow = wood_flow_table(flow, periods)
+        stands = stands_layer(flow, inventory.stands, arrays, curves, periods)
+        harvests = harvests_layer(flow, inventory.stands, periods)
+    result = RunResult(out, inventory, flow, wood_flow, stands, harvests, timer.timings)
+    if out is not None:
+        with timer.stage("write outputs"), staged_output(out) as tmp:
+            write_outputs(result, scenario, tmp)
+    return result
+
+
+def write_outputs(result: RunResult, scenario: Scenario, directory: Path) -> None:
+    """Write the GeoPackage, the wood-flow CSV and run.json into ``directory``."""
+    gpkg = directory / GPKG_NAME
+    write_gpkg_layer(gpkg, result.stands, "stands")
+    write_gpkg_layer(gpkg, result.harvests, "harvests")
+    write_gpkg_layer(gpkg, result.wood_flow, "wood_flow", spatial=False)
+    result.wood_flow.to_csv(directory / WOOD_FLOW_CSV, index=False, float_format="%.6g")
+    write_json(directory / RUN_JSON, run_record(result, scenario))
+
+
+def run_record(result: RunResult, scenario: Scenario) -> dict:
+    """The provenance of a run: versions, the resolved scenario, input checksums, timings."""
+    inputs = {}
+    if scenario.source is not None:
+        inputs[str(scenario.source)] = sha256_file(scenario.source)
+    inputs[str(scenario.inventory.path)] = sha256_file(scenario.inventory.path)
+    for sp in scenario.species.values():
+        if sp.table_csv is not None:
+            inputs[str(sp.table_csv)] = sha256_file(sp.table_csv)
+    flow = result.flow
+    return {
+        "foresight_version": library_versions()["foresight"],
+        "created_utc": datetime.now(UTC).isoformat(timespec="seconds"),
+        "versions": library_versions(),
+        "scenario": scenario.to_dict(),
+        "inputs_sha256": inputs,
+        "inventory": {
+            "stands": result.inventory.report.stands,
+            "area_ha": result.inventory.report.area_ha,
+            "crs": result.inventory.report.crs,
+            "area_method": result.inventory.report.area_method,
+            "repaired_geometries": result.inventory.report.repaired_geometries,
+        },
+        "flow": {
+            "policy": scenario.flow.policy,
+            "level_m3_per_period": flow.level_m3_per_period,
+            "level_m3_per_year": flow.level_m3_per_year,
+            "binding": flow.binding,
+            "search_steps": flow.steps,
+            "initial_growing_stock_m3": flow.simulation.initial_stock_m3,
+            "ending_growing_stock_m3": flow.simulation.ending_stock_m3,
+        },
+        "timings_s": result.timings_s,
+    }

@@ -1,0 +1,5 @@
+"""Reporting: turn a simulation into the tables and layers users read."""
+
+from foresight.reporting.tables import harvests_layer, stands_layer, wood_flow_table
+
+__all__ = ["harvests_layer", "stands_layer", "wood_flow_table"]

@@ -1,0 +1,178 @@
+"""The rule-based harvest simulation: period by period, cut eligible stands in priority order.
+
+State is a set of stand *parts*: each starts as a whole stand; cutting part of a stand's area
+(the last stand taken in a period, to hit the volume target exactly) splits it into the uncut
+remainder and a regenerating part. Everything inside a period is a numpy operation over all
+parts; the only Python loop runs over periods.
+
+Each period p has a target T_p and a floor F_p given by the flow level H and band b:
+T_1 = F_1 = H, and for later periods T_p = min(H, (1 + b) h_{p-1}), F_p = (1 - b) h_{p-1},
+where h is the harvest actually taken. The period takes as much of T_p as the eligible stands
+and the area cap allow; a harvest below F_p makes the level H infeasible.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from numpy.typing import NDArray
+
+from foresight.projection import CurveSet, Periods, StandArrays, growing_stock_m3
+from foresight.schedule.priority import cut_order
+
+_REL = 1e-9  # relative tolerance on volume targets
+_MIN_PART_HA = 1e-6  # smaller partial cuts are not worth a split
+
+
+@dataclass
+class Simulation:
+    """Outcome of one simulated horizon at a flow level."""
+
+    level_m3: float
+    feasible: bool
+    fail_period: int | None = None  # 1-based
+    fail_reason: str = ""
+    harvest_m3: NDArray = field(default_factory=lambda: np.zeros(0))
+    harvest_ha: NDArray = field(default_factory=lambda: np.zeros(0))
+    harvest_age_area: NDArray = field(default_factory=lambda: np.zeros(0))  # sum age x area
+    growing_stock_start_m3: NDArray = field(default_factory=lambda: np.zeros(0))
+    growing_stock_end_m3: NDArray = field(default_factory=lambda: np.zeros(0))
+    initial_stock_m3: float = 0.0
+    ending_stock_m3: float = float("nan")
+    # harvest events, one per cut part (record=True only)
+    event_stand: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    event_period: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    event_age_years: NDArray = field(default_factory=lambda: np.zeros(0))
+    event_area_ha: NDArray = field(default_factory=lambda: np.zeros(0))
+    event_volume_m3: NDArray = field(default_factory=lambda: np.zeros(0))
+
+
+def simulate(
+    stands: StandArrays,
+    curves: CurveSet,
+    periods: Periods,
+    level_m3: float,
+    band: float = 0.0,
+    priority: str = "oldest",
+    max_area_ha: float | None = None,
+    ending_stock: float = 0.0,
+    record: bool = False,
+    targets: NDArray | None = None,
+) -> Simulation:
+    """Run the horizon at flow level ``level_m3`` [m3 per period].
+
+    With ``record`` every period's totals, growing stock and harvest events are kept and the
+    run goes on to the end even where a floor is missed; without it the run stops at the
+    first missed floor (the flow search only needs the verdict). ``targets`` [m3 per period]
+    replaces the level and band by fixed per-period targets, each also its period's floor.
+    """
+    P, L, off = periods.count, float(periods.period_years), periods.offset_years
+    cap = np.inf if max_area_ha is None else float(max_area_ha)
+    # parts: start as copies of the stand arrays; partial cuts append
+    stand = np.arange(stands.n, dtype=np.int64)
+    sp, si = stands.species_idx.copy(), stands.site_index.copy()
+    age, area = stands.age_years.copy(), stands.area_ha.copy()
+    min_age, delay = stands.min_harvest_age.copy(), stands.regen_delay_years.copy()
+    rank = stands.id_rank.copy()
+
+    sim = Simulation(level_m3=level_m3, feasible=True)
+    sim.initial_stock_m3 = growing_stock_m3(curves, sp, age, si, area)
+    h = np.zeros(P)
+    ha = np.zeros(P)
+    age_area = np.zeros(P)
+    gs_start = np.full(P, np.nan)
+    gs_end = np.full(P, np.nan)
+    events: list[tuple[NDArray, ...]] = []
+
+    for p in range(P):
+        if record:
+            gs_start[p] = sim.initial_stock_m3 if p == 0 else gs_end[p - 1]
+        if targets is not None:
+            target = floor = float(targets[p])
+        elif p == 0:
+            target = floor = level_m3
+        else:
+            target, floor = min(level_m3, (1 + band) * h[p - 1]), (1 - band) * h[p - 1]
+        age_h = age + off
+        elig = np.flatnonzero((age_h >= min_age - 1e-9) & (area > 0))
+        vol_ha = curves.volume_m3_ha(sp[elig], age_h[elig], si[elig])
+        keep = vol_ha > 0
+        elig, vol_ha = elig[keep], vol_ha[keep]
+
+        cut_full = np.zeros(0, dtype=np.intp)
+        part, frac = -1, 0.0
+        if target > 0 and len(elig):
+            order = cut_order(priority, age_h[elig], min_age[elig], vol_ha, rank[elig])
+            cand = elig[order]
+            v_ha = vol_ha[order]
+            vol = v_ha * area[cand]
+            cum_v = np.cumsum(vol)
+            cum_a = np.cumsum(area[cand])
+            goal = min(target, float(cum_v[-1]))  # an unbounded target asks for everything
+            n = int(min(np.searchsorted(cum_v, goal * (1 + _REL), side="right"),
+                        np.searchsorted(cum_a, cap * (1 + _REL), side="right")))
+            cut_full = cand[:n]
+            got_v = cum_v[n - 1] if n else 0.0
+            got_a = cum_a[n - 1] if n else 0.0
+            if n < len(cand) and goal - got_v > _REL * goal:
+                j = cand[n]
+                frac = min((goal - got_v) / vol[n], (cap - got_a) / area[j], 1.0)
+                if frac * area[j] > _MIN_PART_HA:
+                    part = j
+                else:
+                    frac = 0.0
+            h[p] = got_v + (frac * vol[n] if part >= 0 else 0.0)
+            ha[p] = got_a + (frac * area[part] if part >= 0 else 0.0)
+            age_area[p] = np.dot(age_h[cut_full], area[cut_full]) + (
+                frac * area[part] * age_h[part] if part >= 0 else 0.0
+            )
+            if record:
+                ev_parts = cut_full if part < 0 else np.r_[cut_full, part]
+                ev_area = area[ev_parts].copy()
+                if part >= 0:
+                    ev_area[-1] *= frac
+                ev_vol = v_ha[: len(ev_parts)] * ev_area
+                events.append((stand[ev_parts], np.full(len(ev_parts), p + 1), age_h[ev_parts],
+                               ev_area, ev_vol))
+
+        if h[p] < floor * (1 - _REL) and sim.feasible:
+            sim.feasible = False
+            sim.fail_period = p + 1
+            if len(cut_full) + (part >= 0) == len(elig):
+                sim.fail_reason = "eligible volume exhausted"
+            else:
+                sim.fail_reason = "area cap reached"
+            if not record:
+                break
+
+        # grow: uncut parts age one period; cut parts restart after their delay
+        regrown = L - off - delay
+        new_age = age + L
+        new_age[cut_full] = regrown[cut_full]
+        if part >= 0:
+            stand = np.r_[stand, stand[part]]
+            sp, si = np.r_[sp, sp[part]], np.r_[si, si[part]]
+            min_age, delay = np.r_[min_age, min_age[part]], np.r_[delay, delay[part]]
+            rank = np.r_[rank, rank[part]]
+            new_age = np.r_[new_age, regrown[part]]
+            cut_area = frac * area[part]
+            area = np.r_[area, cut_area]
+            area[part] -= cut_area
+        age = new_age
+        if record or p == P - 1:
+            stock = growing_stock_m3(curves, sp, age, si, area)
+            gs_end[p] = stock
+            if p == P - 1:
+                sim.ending_stock_m3 = stock
+
+    if sim.feasible and sim.ending_stock_m3 < ending_stock * sim.initial_stock_m3 * (1 - _REL):
+        sim.feasible = False
+        sim.fail_reason = "ending growing stock below the requirement"
+    sim.harvest_m3, sim.harvest_ha, sim.harvest_age_area = h, ha, age_area
+    sim.growing_stock_start_m3, sim.growing_stock_end_m3 = gs_start, gs_end
+    if record and events:
+        cols = [np.concatenate(c) for c in zip(*events, strict=True)]
+        (sim.event_stand, sim.event_period, sim.event_age_years, sim.event_area_ha,
+         sim.event_volume_m3) = cols
+    return sim

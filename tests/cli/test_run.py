@@ -1,0 +1,121 @@
+"""`foresight run` and `foresight check` on the committed sample region, as a user runs them."""
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pyogrio
+import pytest
+
+from foresight.cli.main import main
+
+ROOT = Path(__file__).resolve().parents[2]
+SCENARIO = ROOT / "sample_region" / "scenario.toml"
+WOOD_FLOW_COLUMNS = ["period", "start_year", "end_year", "harvest_m3", "harvest_ha",
+                     "growing_stock_start_m3", "growing_stock_end_m3", "mean_harvest_age_years"]
+
+
+@pytest.fixture(scope="module")
+def sample_run(tmp_path_factory):
+    out = tmp_path_factory.mktemp("sample") / "results"
+    proc = subprocess.run([sys.executable, "-m", "foresight.cli.main", "run", str(SCENARIO),
+                           "--out", str(out)], capture_output=True, text=True)
+    assert proc.returncode == 0, proc.stderr
+    return out, proc
+
+
+def test_sample_run_writes_the_three_outputs(sample_run):
+    out, proc = sample_run
+    assert sorted(p.name for p in out.iterdir()) == ["projection.gpkg", "run.json",
+                                                     "wood_flow.csv"]
+    assert "even-flow level" in proc.stdout and "limited by" in proc.stdout
+    assert "planning estimates" in proc.stdout
+    assert "project and schedule" in proc.stderr  # progress per stage on stderr
+
+
+def test_wood_flow_csv_contract_and_policy(sample_run):
+    out, _ = sample_run
+    wf = pd.read_csv(out / "wood_flow.csv")
+    for col in WOOD_FLOW_COLUMNS:
+        assert col in wf.columns
+    scn_periods = 20
+    assert wf["period"].tolist() == list(range(1, scn_periods + 1))
+    h = wf["harvest_m3"].to_numpy()
+    assert h.min() > 0
+    # the band of the sample scenario (flow.band = 0.1) is never broken
+    assert np.all(np.abs(np.diff(h)) <= 0.1 * h[:-1] * (1 + 1e-9))
+    # ending stock requirement of the sample (flow.ending_stock = 1.0)
+    assert wf["growing_stock_end_m3"].iloc[-1] >= wf["growing_stock_start_m3"].iloc[0] * (
+        1 - 1e-9)
+    # consecutive periods chain: end of one is the start of the next
+    np.testing.assert_allclose(wf["growing_stock_end_m3"].iloc[:-1],
+                               wf["growing_stock_start_m3"].iloc[1:], rtol=1e-9)
+
+
+def test_run_json_records_provenance(sample_run):
+    out, _ = sample_run
+    rec = json.loads((out / "run.json").read_text())
+    assert rec["foresight_version"]
+    assert rec["scenario"]["scenario"]["name"] == "Norrowmere base case"
+    assert rec["scenario"]["species"]["aspen"]["curve"] == "table"
+    assert len(rec["inputs_sha256"]) == 3  # scenario, stand layer, the aspen CSV
+    assert all(len(v) == 64 for v in rec["inputs_sha256"].values())
+    assert set(rec["timings_s"]) >= {"read and check inventory", "project and schedule"}
+    assert rec["flow"]["level_m3_per_year"] > 0 and rec["flow"]["binding"]
+
+
+def test_stands_layer_covers_the_sample(sample_run):
+    out, _ = sample_run
+    stands = pyogrio.read_dataframe(out / "projection.gpkg", layer="stands",
+                                    read_geometry=False)
+    src = pyogrio.read_dataframe(SCENARIO.parent / "norrowmere.gpkg", read_geometry=False)
+    assert len(stands) == len(src)
+    assert set(stands["stand_id"]) == set(src["STAND_NO"])
+    # no harvest event takes more than the stand's area
+    limit = stands["area_ha"] * stands["harvest_count"] * (1 + 1e-9)
+    assert (stands["harvested_area_ha"] <= limit).all()
+    assert (stands["harvest_count"] > 0).sum() == stands["first_harvest_period"].notna().sum()
+
+
+def test_rerun_replaces_previous_output_and_set_changes_result(tmp_path, capsys):
+    out = tmp_path / "res"
+    assert main(["run", str(SCENARIO), "--out", str(out), "-q"]) == 0
+    first = json.loads((out / "run.json").read_text())["flow"]["level_m3_per_year"]
+    assert main(["run", str(SCENARIO), "--out", str(out), "-q",
+                 "--set", "flow.ending_stock=0.6"]) == 0
+    second = json.loads((out / "run.json").read_text())
+    assert second["scenario"]["flow"]["ending_stock"] == 0.6
+    assert second["flow"]["level_m3_per_year"] > first  # a looser ending stock allows more
+    assert [p.name for p in tmp_path.iterdir()] == ["res"]  # no temporary leftovers
+
+
+def test_check_prints_summary(capsys):
+    assert main(["check", str(SCENARIO)]) == 0
+    text = capsys.readouterr().out
+    assert "checks passed" in text and "area by species" in text and "area by age class" in text
+
+
+def test_version_names_libraries(capsys):
+    with pytest.raises(SystemExit) as exc:
+        main(["--version"])
+    assert exc.value.code == 0
+    text = capsys.readouterr().out
+    for lib in ("foresight", "GDAL", "GEOS", "PROJ", "highspy"):
+        assert lib in text
+
+
+def test_docs_describe_every_output_column(sample_run):
+    out, _ = sample_run
+    text = (ROOT / "docs" / "outputs.md").read_text(encoding="utf-8")
+    import re
+    for layer in ("stands", "harvests", "wood_flow"):
+        cols = pyogrio.read_info(out / "projection.gpkg", layer=layer)["fields"]
+        for col in cols:
+            assert re.search(rf"^\| `{col}` \|", text, re.M), f"{layer}.{col}"
+    for col in pd.read_csv(out / "wood_flow.csv").columns:
+        assert re.search(rf"^\| `{col}` \|", text, re.M), f"wood_flow.csv {col}"
+    for key in json.loads((out / "run.json").read_text()):
+        assert re.search(rf"^\| `{key}` \|", text, re.M), f"run.json {key}"

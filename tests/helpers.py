@@ -1,0 +1,95 @@
+"""Small inventories and scenarios made in code and written through the real writers."""
+
+from __future__ import annotations
+
+import warnings
+from pathlib import Path
+from typing import Any
+
+import geopandas as gpd
+import numpy as np
+import pyogrio
+import shapely
+
+
+def squares(n: int, side_m: float = 100.0, x0: float = 500_000.0, y0: float = 6_700_000.0,
+            per_row: int = 10) -> np.ndarray:
+    """n edge-sharing squares of side_m metres (100 m -> 1 ha) in rows of per_row."""
+    i = np.arange(n)
+    x = x0 + (i % per_row) * side_m
+    y = y0 + (i // per_row) * side_m
+    return shapely.box(x, y, x + side_m, y + side_m)
+
+
+def write_layer(path: Path, geoms: Any, attrs: dict[str, Any], crs: str | None = "EPSG:32633",
+                layer: str = "stands", driver: str | None = None) -> Path:
+    """Write a stand layer with pyogrio (GDAL), as a user's GIS would have."""
+    frame = gpd.GeoDataFrame(attrs, geometry=list(geoms), crs=crs)
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", "'crs' was not provided", UserWarning)  # on purpose
+        pyogrio.write_dataframe(frame, path, layer=layer, driver=driver)
+    return path
+
+
+def stand_attrs(n: int, ages: Any, species: Any = "pine", site: Any = 18.0) -> dict[str, Any]:
+    return {
+        "ID": np.arange(1, n + 1),
+        "SPP": np.broadcast_to(np.asarray(species, dtype=object), (n,)).copy(),
+        "SI": np.broadcast_to(np.asarray(site, dtype=float), (n,)).copy(),
+        "AGE": np.broadcast_to(np.asarray(ages), (n,)).copy(),
+        "ZONE": np.array(["east"] * n, dtype=object),
+    }
+
+
+def scenario_dict(inventory: Path, **sections: dict[str, Any]) -> dict[str, Any]:
+    """A complete scenario for one pine curve; keyword sections are merged in."""
+    raw: dict[str, Any] = {
+        "scenario": {"name": "test", "start_year": 2030, "period_years": 10, "periods": 10,
+                     "harvest_timing": "midpoint"},
+        "inventory": {"path": str(inventory), "layer": "stands",
+                      "fields": {"stand_id": "ID", "species": "SPP", "site_index": "SI",
+                                 "age": "AGE", "zone": "ZONE"}},
+        "species": {"pine": {"curve": "chapman-richards", "a": 400.0, "k": 0.03, "c": 3.0,
+                             "min_harvest_age": 60, "regen_delay_years": 0,
+                             "site_index_min_m": 10.0, "site_index_max_m": 30.0}},
+        "harvest": {"priority": "oldest"},
+        "flow": {"policy": "even", "band": 0.0, "ending_stock": 0.0},
+    }
+    for name, table in sections.items():
+        if isinstance(table, dict) and isinstance(raw.get(name), dict):
+            raw[name] = {**raw[name], **table}
+        else:
+            raw[name] = table
+    return raw
+
+
+def dump_toml(raw: dict[str, Any]) -> str:
+    """Enough TOML for test scenarios: nested tables of scalars and arrays."""
+
+    def value(v: Any) -> str:
+        if isinstance(v, bool):
+            return "true" if v else "false"
+        if isinstance(v, str):
+            return '"' + v.replace("\\", "\\\\").replace('"', '\\"') + '"'
+        if isinstance(v, list | tuple):
+            return "[" + ", ".join(value(x) for x in v) + "]"
+        return repr(v)
+
+    lines: list[str] = []
+
+    def table(prefix: str, tbl: dict[str, Any]) -> None:
+        scalars = {k: v for k, v in tbl.items() if not isinstance(v, dict)}
+        if prefix:
+            lines.append(f"[{prefix}]")
+        lines.extend(f"{k} = {value(v)}" for k, v in scalars.items())
+        for k, v in tbl.items():
+            if isinstance(v, dict):
+                table(f"{prefix}.{k}" if prefix else k, v)
+
+    table("", raw)
+    return "\n".join(lines) + "\n"
+
+
+def write_scenario(path: Path, raw: dict[str, Any]) -> Path:
+    path.write_text(dump_toml(raw), encoding="utf-8")
+    return path

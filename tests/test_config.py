@@ -1,0 +1,95 @@
+"""The scenario file: typed keys, unknown keys rejected, --set overrides, every key documented."""
+
+import re
+from pathlib import Path
+
+import pytest
+
+from foresight import load_scenario
+from foresight.config import KEYS
+from foresight.errors import ScenarioError
+from helpers import scenario_dict, write_scenario
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def test_sample_scenario_loads():
+    scn = load_scenario(ROOT / "sample_region" / "scenario.toml")
+    assert scn.scenario.periods * scn.scenario.period_years >= 100
+    assert scn.inventory.path.is_file()
+    aspen = scn.species["aspen"]
+    assert aspen.curve == "table" and len(aspen.ages) == len(aspen.volumes_m3_ha) > 2
+
+
+@pytest.mark.parametrize(
+    ("section", "table", "match"),
+    [
+        ("flow", {"bandd": 0.1}, r"\[flow\] key 'bandd'; did you mean 'band'"),
+        ("scenario", {"periods": 2.5}, r"\[scenario\] periods = 2.5: must be a whole number"),
+        ("scenario", {"harvest_timing": "dawn"}, r"choose one of: start, midpoint, end"),
+        ("flow", {"band": 1.5}, r"\[flow\] band = 1.5: must be >= 0 and < 1"),
+        ("harvest", {"priority": "biggest"}, r"priority = 'biggest': choose one of: oldest"),
+        ("harvest", {"max_area_ha_per_period": -1}, r"must be > 0"),
+    ],
+)
+def test_bad_keys_are_named(tmp_path, section, table, match):
+    path = write_scenario(tmp_path / "s.toml", scenario_dict(tmp_path / "x.gpkg",
+                                                              **{section: table}))
+    with pytest.raises(ScenarioError, match=match):
+        load_scenario(path)
+
+
+def test_unknown_section_and_species_key(tmp_path):
+    raw = scenario_dict(tmp_path / "x.gpkg")
+    raw["flows"] = {"band": 0.1}
+    with pytest.raises(ScenarioError, match=r"unknown section 'flows'; did you mean 'flow'"):
+        load_scenario(write_scenario(tmp_path / "a.toml", raw))
+    raw = scenario_dict(tmp_path / "x.gpkg")
+    raw["species"]["pine"]["ages"] = [10, 20]
+    with pytest.raises(ScenarioError, match=r"\[species.pine\] key 'ages' does not apply"):
+        load_scenario(write_scenario(tmp_path / "b.toml", raw))
+
+
+def test_table_curve_checks(tmp_path):
+    raw = scenario_dict(tmp_path / "x.gpkg")
+    raw["species"]["pine"] = {"curve": "table", "ages": [10, 30, 20],
+                              "volumes_m3_ha": [1, 2, 3], "min_harvest_age": 20}
+    with pytest.raises(ScenarioError, match="ages must increase strictly"):
+        load_scenario(write_scenario(tmp_path / "a.toml", raw))
+    raw["species"]["pine"] = {"curve": "table", "table_csv": "missing.csv", "min_harvest_age": 2}
+    with pytest.raises(ScenarioError, match="missing.csv: yield table file not found"):
+        load_scenario(write_scenario(tmp_path / "b.toml", raw))
+    (tmp_path / "t.csv").write_text("age_years,volume_m3_ha\n10,5\n20,x\n")
+    raw["species"]["pine"]["table_csv"] = "t.csv"
+    with pytest.raises(ScenarioError, match=r"t.csv, line 3: .*'x'"):
+        load_scenario(write_scenario(tmp_path / "c.toml", raw))
+
+
+def test_overrides_reach_any_key(tmp_path):
+    path = write_scenario(tmp_path / "s.toml", scenario_dict(tmp_path / "x.gpkg"))
+    scn = load_scenario(path, overrides=["flow.band=0.15", "species.pine.k=0.05",
+                                         "scenario.name=sensitivity one",
+                                         "harvest.max_area_ha_per_period=40"])
+    assert scn.flow.band == 0.15
+    assert scn.species["pine"].k == 0.05
+    assert scn.scenario.name == "sensitivity one"
+    assert scn.harvest.max_area_ha_per_period == 40.0
+    with pytest.raises(ScenarioError, match=r"unknown \[flow\] key 'bnd'"):
+        load_scenario(path, overrides=["flow.bnd=0.1"])
+    with pytest.raises(ScenarioError, match="expected KEY=VALUE"):
+        load_scenario(path, overrides=["flow.band"])
+
+
+def test_inventory_path_is_relative_to_scenario(tmp_path):
+    (tmp_path / "sub").mkdir()
+    raw = scenario_dict(Path("stands.gpkg"))
+    scn = load_scenario(write_scenario(tmp_path / "sub" / "s.toml", raw))
+    assert scn.inventory.path == (tmp_path / "sub" / "stands.gpkg").resolve()
+
+
+def test_docs_describe_every_key():
+    # One table of keys drives the parser; docs/scenario.md must name each one in a table row.
+    text = (ROOT / "docs" / "scenario.md").read_text(encoding="utf-8")
+    for section, keys in KEYS.items():
+        for key in keys:
+            assert re.search(rf"^\|\s*`{re.escape(key)}`", text, re.M), f"{section}.{key}"
