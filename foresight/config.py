@@ -21,7 +21,18 @@ from typing import Any
 
 from foresight.errors import ScenarioError
 
-CURVES = ("chapman-richards", "table")
+# curve family -> the parameter keys it needs (besides the keys every species takes)
+CURVE_PARAMETERS: dict[str, tuple[str, ...]] = {
+    "chapman-richards": ("a", "k", "c"),
+    "schumacher": ("a", "b"),
+    "logistic": ("a", "b", "k"),
+    "gompertz": ("a", "b", "k"),
+    "stock-logistic": ("r", "capacity_m3_ha", "initial_m3_ha"),
+    "stock-threshold": ("r", "capacity_m3_ha", "initial_m3_ha", "min_viable_m3_ha"),
+    "table": (),
+}
+CURVES = tuple(CURVE_PARAMETERS)
+COMPOUNDING = ("continuous", "annual")
 PRIORITIES = ("oldest", "relative_oldest", "highest_volume")
 TIMINGS = ("start", "midpoint", "end")
 FLOW_POLICIES = ("even",)
@@ -33,7 +44,7 @@ _REQUIRED = object()
 class KeySpec:
     """One scenario key: its type, default, unit and a line of documentation."""
 
-    kind: str  # "int", "float", "str", "floats", "choice"
+    kind: str  # "int", "float", "str", "bool", "floats", "volumes", "table", "choice"
     default: Any = _REQUIRED
     unit: str = ""
     doc: str = ""
@@ -84,36 +95,87 @@ KEYS: dict[str, dict[str, KeySpec]] = {
     },
     "species.*": {
         "curve": KeySpec("choice", doc="Yield curve family.", choices=CURVES),
-        "a": KeySpec("float", None, "m3/ha", "Chapman-Richards asymptote at the reference site.",
+        "a": KeySpec("float", None, "m3/ha", "Asymptote (chapman-richards, schumacher, logistic, "
+                     "gompertz) at the reference site.", check=_positive),
+        "k": KeySpec("float", None, "1/year", "Rate (chapman-richards, logistic, gompertz).",
                      check=_positive),
-        "k": KeySpec("float", None, "1/year", "Chapman-Richards rate.", check=_positive),
         "c": KeySpec("float", None, "", "Chapman-Richards shape exponent.", check=_positive),
+        "b": KeySpec("float", None, "", "Schumacher b [years]; logistic / gompertz b [-].",
+                     check=_positive),
+        "r": KeySpec("float", None, "1/year", "Intrinsic growth rate of a stock-growth model.",
+                     check=_positive),
+        "capacity_m3_ha": KeySpec("float", None, "m3/ha", "Carrying capacity K of a stock model.",
+                                  check=_positive),
+        "initial_m3_ha": KeySpec("float", None, "m3/ha", "Stock at age 0 of a stock model.",
+                                 check=_positive),
+        "min_viable_m3_ha": KeySpec("float", None, "m3/ha",
+                                    "Minimum viable stock of stock-threshold (0 < m < K).",
+                                    check=_positive),
         "site_index_ref_m": KeySpec(
             "float", None, "m",
-            "Reference site index for a and k; leave out for no site dependence.",
+            "Reference site index of the parameters; leave out for no site dependence.",
             check=_positive,
         ),
         "site_exponent_a": KeySpec(
-            "float", 1.0, "", "a scales with (SI / site_index_ref_m) to this power."
+            "float", 1.0, "", "Volume scales with (SI / site_index_ref_m) to this power."
         ),
         "site_exponent_k": KeySpec(
-            "float", 0.0, "", "k scales with (SI / site_index_ref_m) to this power."
+            "float", 0.0, "", "Age runs faster by (SI / site_index_ref_m) to this power."
         ),
         "ages": KeySpec("floats", None, "years", "Table curve: ages, strictly increasing."),
-        "volumes_m3_ha": KeySpec("floats", None, "m3/ha", "Table curve: volume at each age."),
+        "volumes_m3_ha": KeySpec("volumes", None, "m3/ha",
+                                 "Table curve: volume at each age (one array per site class)."),
+        "site_classes_m": KeySpec("floats", None, "m",
+                                  "Table curve: site index of each row of volumes_m3_ha."),
         "table_csv": KeySpec(
             "str", None, "",
-            "Table curve from a CSV file (columns age_years, volume_m3_ha), relative to the "
-            "scenario file; instead of ages and volumes_m3_ha.",
+            "Table curve from a CSV file (columns age_years, volume_m3_ha and optionally "
+            "site_index_m), relative to the scenario file.",
         ),
-        "min_harvest_age": KeySpec("float", unit="years", doc="Youngest age that may be cut.",
+        "min_harvest_age": KeySpec("float", None, "years", "Youngest age that may be cut.",
                                    check=_non_negative),
+        "min_harvest_mai_share": KeySpec(
+            "float", None, "fraction",
+            "Youngest age at which MAI reaches this share of its maximum.",
+            check=lambda v: None if 0 < v <= 1 else "must be > 0 and <= 1",
+        ),
+        "min_harvest_volume_m3_ha": KeySpec("float", None, "m3/ha",
+                                            "Youngest age with at least this volume.",
+                                            check=_positive),
+        "min_harvest_economic": KeySpec("bool", False, "",
+                                        "Not before the Faustmann (LEV-maximising) rotation."),
         "regen_delay_years": KeySpec(
             "float", 0.0, "years", "Years from harvest until the new stand starts at age 0.",
             check=_non_negative,
         ),
         "site_index_min_m": KeySpec("float", None, "m", "Lowest site index the curve is valid for."),
         "site_index_max_m": KeySpec("float", None, "m", "Highest site index the curve is valid for."),
+        "price_per_m3": KeySpec("float", None, "currency/m3", "Net price of harvested wood.",
+                                check=_non_negative),
+        "regen_cost_per_ha": KeySpec("float", 0.0, "currency/ha",
+                                     "Regeneration cost at the start of each rotation.",
+                                     check=_non_negative),
+        "annual_cost_per_ha": KeySpec("float", 0.0, "currency/ha/yr", "Annual cost.",
+                                      check=_non_negative),
+        "products": KeySpec("table", None, "",
+                            "Product split by age: ages and one share array per product."),
+    },
+    "economics": {
+        "discount_rate": KeySpec("float", None, "1/year", "Real discount rate.",
+                                 check=_positive),
+        "compounding": KeySpec("choice", "continuous", "", "Discounting convention.",
+                               choices=COMPOUNDING),
+    },
+    "growth": {
+        "max_age_years": KeySpec("float", 400.0, "years",
+                                 "Oldest age searched for culmination and rotations.",
+                                 check=_positive),
+        "yield_class_step": KeySpec("float", 2.0, "m3/ha/yr",
+                                    "Step to which maximum MAI is rounded for the yield class.",
+                                    check=_positive),
+        "rule_site_step_m": KeySpec("float", 0.1, "m",
+                                    "Site index rounding for per-site harvest-age rules.",
+                                    check=_positive),
     },
     "harvest": {
         "priority": KeySpec("choice", "oldest", "", "Order in which eligible stands are cut.",
@@ -137,9 +199,10 @@ KEYS: dict[str, dict[str, KeySpec]] = {
     },
 }
 
-SECTIONS = ("scenario", "inventory", "species", "harvest", "flow")
-_CR_KEYS = {"a", "k", "c", "site_index_ref_m", "site_exponent_a", "site_exponent_k"}
-_TABLE_KEYS = {"ages", "volumes_m3_ha", "table_csv"}
+SECTIONS = ("scenario", "inventory", "species", "harvest", "flow", "economics", "growth")
+_ALL_PARAMETERS = {k for keys in CURVE_PARAMETERS.values() for k in keys}
+_SITE_KEYS = {"site_index_ref_m", "site_exponent_a", "site_exponent_k"}
+_TABLE_KEYS = {"ages", "volumes_m3_ha", "table_csv", "site_classes_m"}
 
 
 # ----------------------------------------------------------------------------- config objects
@@ -170,22 +233,56 @@ class InventoryConfig:
 
 
 @dataclass(frozen=True)
+class ProductSplit:
+    """Shares of harvested volume by product at given ages (linear between, flat outside)."""
+
+    ages: tuple[float, ...]
+    shares: Mapping[str, tuple[float, ...]]
+
+
+@dataclass(frozen=True)
 class SpeciesConfig:
     code: str
     curve: str
-    min_harvest_age: float
+    min_harvest_age: float | None = None
     regen_delay_years: float = 0.0
     a: float | None = None
     k: float | None = None
     c: float | None = None
+    b: float | None = None
+    r: float | None = None
+    capacity_m3_ha: float | None = None
+    initial_m3_ha: float | None = None
+    min_viable_m3_ha: float | None = None
     site_index_ref_m: float | None = None
     site_exponent_a: float = 1.0
     site_exponent_k: float = 0.0
     ages: tuple[float, ...] | None = None
-    volumes_m3_ha: tuple[float, ...] | None = None
+    volumes_m3_ha: tuple[tuple[float, ...], ...] | None = None  # one row per site class
+    site_classes_m: tuple[float, ...] | None = None
     table_csv: Path | None = None
+    min_harvest_mai_share: float | None = None
+    min_harvest_volume_m3_ha: float | None = None
+    min_harvest_economic: bool = False
     site_index_min_m: float | None = None
     site_index_max_m: float | None = None
+    price_per_m3: float | None = None
+    regen_cost_per_ha: float = 0.0
+    annual_cost_per_ha: float = 0.0
+    products: ProductSplit | None = None
+
+
+@dataclass(frozen=True)
+class EconomicsConfig:
+    discount_rate: float | None = None
+    compounding: str = "continuous"
+
+
+@dataclass(frozen=True)
+class GrowthConfig:
+    max_age_years: float = 400.0
+    yield_class_step: float = 2.0
+    rule_site_step_m: float = 0.1
 
 
 @dataclass(frozen=True)
@@ -210,6 +307,8 @@ class Scenario:
     species: Mapping[str, SpeciesConfig]
     harvest: HarvestConfig = field(default_factory=HarvestConfig)
     flow: FlowConfig = field(default_factory=FlowConfig)
+    economics: EconomicsConfig = field(default_factory=EconomicsConfig)
+    growth: GrowthConfig = field(default_factory=GrowthConfig)
     source: Path | None = None
     overrides: tuple[str, ...] = ()
 
@@ -223,6 +322,8 @@ class Scenario:
                 return [clean(v) for v in obj]
             if isinstance(obj, Path):
                 return str(obj)
+            if isinstance(obj, Mapping):
+                return {k: clean(v) for k, v in obj.items()}
             return obj
 
         return clean(asdict(self))
@@ -243,12 +344,24 @@ def load_scenario(path: str | Path, overrides: Sequence[str] = ()) -> Scenario:
     except tomllib.TOMLDecodeError as exc:
         raise ScenarioError(f"{path}: not valid TOML: {exc}") from None
     for item in overrides:
-        apply_override(raw, item, where=path.name)
-    return parse_scenario(raw, base_dir=path.resolve().parent, where=path.name,
+        apply_override(raw, item)
+    where = _Where(str(path))
+    where.overrides = {item.partition("=")[0].strip(): item for item in overrides}
+    return parse_scenario(raw, base_dir=path.resolve().parent, where=where,
                           source=path.resolve(), overrides=tuple(overrides))
 
 
-def apply_override(raw: dict[str, Any], item: str, where: str = "--set") -> None:
+class _Where(str):
+    """The scenario file's name in messages, knowing which keys came from --set."""
+
+    overrides: dict[str, str] = {}
+
+    def at(self, sect: str, key: str) -> str:
+        item = getattr(self, "overrides", {}).get(f"{sect}.{key}")
+        return f"--set {item}" if item else str(self)
+
+
+def apply_override(raw: dict[str, Any], item: str) -> None:
     """Set one dotted key in the raw TOML tables: ``flow.band=0.1``, ``species.pine.k=0.03``.
 
     The value is read as a TOML value (numbers, booleans, quoted strings, arrays); anything
@@ -309,56 +422,141 @@ def parse_scenario(
     species_raw = _table(raw["species"], "species", where)
     if not species_raw:
         raise ScenarioError(f"{where}: [species] lists no species; add a [species.<CODE>] table")
-    species = {
-        str(code): _species(code, tbl, base_dir, where) for code, tbl in species_raw.items()
-    }
-
     harvest = HarvestConfig(**_take(raw.get("harvest", {}), "harvest", where))
     flow = FlowConfig(**_take(raw.get("flow", {}), "flow", where))
-    return Scenario(info, inventory, species, harvest, flow, source, overrides)
+    economics = EconomicsConfig(**_take(raw.get("economics", {}), "economics", where))
+    growth = GrowthConfig(**_take(raw.get("growth", {}), "growth", where))
+    species = {
+        str(code): _species(code, tbl, base_dir, where, economics)
+        for code, tbl in species_raw.items()
+    }
+    return Scenario(info, inventory, species, harvest, flow, economics, growth, source,
+                    overrides)
 
 
-def _species(code: str, raw: Any, base_dir: Path, where: str) -> SpeciesConfig:
+def _species(code: str, raw: Any, base_dir: Path, where: str,
+             economics: EconomicsConfig) -> SpeciesConfig:
     sect = f"species.{code}"
     vals = _take(raw, "species.*", where, shown=sect)
     curve = vals["curve"]
     given = set(_table(raw, sect, where))
-    foreign = sorted(given & (_TABLE_KEYS if curve == "chapman-richards" else _CR_KEYS))
+    allowed = set(CURVE_PARAMETERS[curve]) | (_TABLE_KEYS if curve == "table" else _SITE_KEYS)
+    foreign = sorted(given & ((_ALL_PARAMETERS | _TABLE_KEYS | _SITE_KEYS) - allowed))
     if foreign:
         raise ScenarioError(
             f"{where}: [{sect}] key {foreign[0]!r} does not apply to curve {curve!r}"
+            f" (it takes: {', '.join(CURVE_PARAMETERS[curve]) or 'ages, volumes_m3_ha'})"
         )
-    if curve == "chapman-richards":
-        for key in ("a", "k", "c"):
-            if vals[key] is None:
-                raise ScenarioError(f"{where}: [{sect}] curve 'chapman-richards' needs key {key!r}")
-    else:
-        if vals["table_csv"] is not None:
-            if vals["ages"] is not None or vals["volumes_m3_ha"] is not None:
-                raise ScenarioError(
-                    f"{where}: [{sect}] give either table_csv or ages and volumes_m3_ha, not both"
-                )
-            csv_path = (base_dir / vals["table_csv"]).resolve()
-            vals["table_csv"] = csv_path
-            vals["ages"], vals["volumes_m3_ha"] = _read_table_csv(csv_path)
-            table_where = str(csv_path)
-        else:
-            if vals["ages"] is None or vals["volumes_m3_ha"] is None:
-                raise ScenarioError(
-                    f"{where}: [{sect}] curve 'table' needs ages and volumes_m3_ha "
-                    "(or table_csv)"
-                )
-            table_where = f"{where}: [{sect}]"
-        _check_table(vals["ages"], vals["volumes_m3_ha"], table_where)
+    for key in CURVE_PARAMETERS[curve]:
+        if vals[key] is None:
+            raise ScenarioError(f"{where}: [{sect}] curve {curve!r} needs key {key!r}")
+    if curve == "stock-threshold" and not vals["min_viable_m3_ha"] < vals["capacity_m3_ha"]:
+        raise ScenarioError(
+            f"{where}: [{sect}] min_viable_m3_ha = {vals['min_viable_m3_ha']:g} must be below "
+            f"capacity_m3_ha = {vals['capacity_m3_ha']:g}"
+        )
+    if curve == "table":
+        _table_curve(vals, sect, base_dir, where)
+    rules = ("min_harvest_age", "min_harvest_mai_share", "min_harvest_volume_m3_ha")
+    if all(vals[r] is None for r in rules) and not vals["min_harvest_economic"]:
+        raise ScenarioError(
+            f"{where}: [{sect}] needs a minimum harvest age rule: min_harvest_age, "
+            "min_harvest_mai_share, min_harvest_volume_m3_ha or min_harvest_economic = true"
+        )
+    if vals["min_harvest_economic"]:
+        if economics.discount_rate is None:
+            raise ScenarioError(
+                f"{where}: [{sect}] min_harvest_economic = true needs [economics] discount_rate"
+            )
+        if vals["price_per_m3"] is None:
+            raise ScenarioError(
+                f"{where}: [{sect}] min_harvest_economic = true needs price_per_m3"
+            )
     lo, hi = vals["site_index_min_m"], vals["site_index_max_m"]
     if lo is not None and hi is not None and lo > hi:
         raise ScenarioError(
             f"{where}: [{sect}] site_index_min_m = {lo} is above site_index_max_m = {hi}"
         )
+    if vals["products"] is not None:
+        vals["products"] = _products(vals["products"], f"{where}: [{sect}.products]")
     return SpeciesConfig(code=str(code), **vals)
 
 
-def _read_table_csv(path: Path) -> tuple[tuple[float, ...], tuple[float, ...]]:
+def _table_curve(vals: dict[str, Any], sect: str, base_dir: Path, where: str) -> None:
+    """Resolve a table curve's ages, volumes (one row per class) and classes in place."""
+    if vals["table_csv"] is not None:
+        if any(vals[k] is not None for k in ("ages", "volumes_m3_ha", "site_classes_m")):
+            raise ScenarioError(
+                f"{where}: [{sect}] give either table_csv or ages and volumes_m3_ha, not both"
+            )
+        csv_path = (base_dir / vals["table_csv"]).resolve()
+        vals["table_csv"] = csv_path
+        vals["ages"], vals["volumes_m3_ha"], vals["site_classes_m"] = _read_table_csv(csv_path)
+        table_where = str(csv_path)
+    else:
+        if vals["ages"] is None or vals["volumes_m3_ha"] is None:
+            raise ScenarioError(
+                f"{where}: [{sect}] curve 'table' needs ages and volumes_m3_ha (or table_csv)"
+            )
+        table_where = f"{where}: [{sect}]"
+        rows = vals["volumes_m3_ha"]
+        nested = isinstance(rows[0], tuple)
+        classes = vals["site_classes_m"]
+        if nested and classes is None:
+            raise ScenarioError(
+                f"{table_where}: volumes_m3_ha has one array per site class; "
+                "list the classes in site_classes_m"
+            )
+        if not nested:
+            rows = (rows,)
+        if classes is not None and len(classes) != len(rows):
+            raise ScenarioError(
+                f"{table_where}: site_classes_m has {len(classes)} values but volumes_m3_ha "
+                f"has {len(rows)} rows"
+            )
+        vals["volumes_m3_ha"] = rows
+    classes = vals["site_classes_m"]
+    if classes is not None:
+        for c0, c1 in zip(classes, classes[1:], strict=False):
+            if not c1 > c0:
+                raise ScenarioError(
+                    f"{table_where}: site_classes_m must increase strictly ({c0} then {c1})"
+                )
+        if vals["site_index_min_m"] is None:
+            vals["site_index_min_m"] = classes[0]
+        if vals["site_index_max_m"] is None:
+            vals["site_index_max_m"] = classes[-1]
+    for row in vals["volumes_m3_ha"]:
+        _check_table(vals["ages"], row, table_where)
+
+
+def _products(raw: Any, where: str) -> ProductSplit:
+    if not isinstance(raw, dict) or "ages" not in raw or len(raw) < 2:
+        raise ScenarioError(f"{where}: needs ages and at least one product share array")
+    ages = _coerce(raw["ages"], KeySpec("floats"), f"{where} ages")
+    shares = {}
+    for name, value in raw.items():
+        if name == "ages":
+            continue
+        arr = _coerce(value, KeySpec("floats"), f"{where} {name}")
+        if len(arr) != len(ages):
+            raise ScenarioError(f"{where} {name}: {len(arr)} shares for {len(ages)} ages")
+        if any(not 0 <= v <= 1 for v in arr):
+            raise ScenarioError(f"{where} {name}: shares must lie in [0, 1]")
+        shares[str(name)] = arr
+    for i, age in enumerate(ages):
+        total = sum(v[i] for v in shares.values())
+        if abs(total - 1.0) > 1e-6:
+            raise ScenarioError(f"{where}: shares at age {age:g} add up to {total:g}, not 1")
+    for a0, a1 in zip(ages, ages[1:], strict=False):
+        if not a1 > a0:
+            raise ScenarioError(f"{where}: ages must increase strictly ({a0} then {a1})")
+    return ProductSplit(ages, shares)
+
+
+def _read_table_csv(path: Path) -> tuple[tuple[float, ...], tuple[tuple[float, ...], ...],
+                                         tuple[float, ...] | None]:
+    """Read a yield table CSV: age_years, volume_m3_ha and optionally site_index_m (long form)."""
     # A yield table is a small text file named by the scenario, so it is read with the scenario.
     try:
         with path.open(newline="", encoding="utf-8") as fh:
@@ -369,17 +567,27 @@ def _read_table_csv(path: Path) -> tuple[tuple[float, ...], tuple[float, ...]]:
     if not rows or any(col not in rows[0] for col in need):
         have = ", ".join(rows[0]) if rows else "no rows"
         raise ScenarioError(f"{path}: a yield table needs columns {need} (found: {have})")
-    ages, vols = [], []
+    with_site = "site_index_m" in rows[0]
+    table: dict[float, list[tuple[float, float]]] = {}
     for n, row in enumerate(rows, start=2):
         try:
-            ages.append(float(row["age_years"]))
-            vols.append(float(row["volume_m3_ha"]))
+            site = float(row["site_index_m"]) if with_site else 0.0
+            table.setdefault(site, []).append((float(row["age_years"]),
+                                               float(row["volume_m3_ha"])))
         except (TypeError, ValueError):
             raise ScenarioError(
-                f"{path}, line {n}: age_years={row['age_years']!r}, "
-                f"volume_m3_ha={row['volume_m3_ha']!r} are not both numbers"
+                f"{path}, line {n}: {dict(row)} holds a value that is not a number"
             ) from None
-    return tuple(ages), tuple(vols)
+    classes = sorted(table)
+    ages = tuple(a for a, _ in table[classes[0]])
+    for site in classes:
+        if tuple(a for a, _ in table[site]) != ages:
+            raise ScenarioError(
+                f"{path}: site class {site:g} lists other ages than class {classes[0]:g}; "
+                "every class needs the same ages"
+            )
+    vols = tuple(tuple(v for _, v in table[site]) for site in classes)
+    return ages, vols, (tuple(classes) if with_site else None)
 
 
 def _check_table(ages: Sequence[float], vols: Sequence[float], where: str) -> None:
@@ -411,8 +619,9 @@ def _reject_unknown(raw: Mapping[str, Any], known: Sequence[str], where: str, se
             near = difflib.get_close_matches(key, known, n=1)
             hint = f"; did you mean {near[0]!r}?" if near else ""
             place = f"[{sect}] key" if sect else "section"
+            loc = where.at(sect, key) if isinstance(where, _Where) else where
             raise ScenarioError(
-                f"{where}: unknown {place} {key!r}{hint} Known: {', '.join(known)}"
+                f"{loc}: unknown {place} {key!r}{hint} Known: {', '.join(known)}"
             )
 
 
@@ -430,7 +639,8 @@ def _take(raw: Any, spec_name: str, where: str, shown: str | None = None) -> dic
                 raise ScenarioError(f"{where}: [{sect}] missing required key {key!r} ({ks.doc})")
             out[key] = ks.default
             continue
-        out[key] = _coerce(raw[key], ks, f"{where}: [{sect}] {key} = {raw[key]!r}")
+        loc = where.at(sect, key) if isinstance(where, _Where) else where
+        out[key] = _coerce(raw[key], ks, f"{loc}: [{sect}] {key} = {raw[key]!r}")
     return out
 
 
@@ -450,6 +660,17 @@ def _coerce(value: Any, ks: KeySpec, where: str) -> Any:
     elif ks.kind == "choice":
         if value not in ks.choices:
             raise ScenarioError(f"{where}: choose one of: {', '.join(ks.choices)}")
+    elif ks.kind == "bool":
+        if not isinstance(value, bool):
+            raise ScenarioError(f"{where}: must be true or false")
+    elif ks.kind == "table":
+        if not isinstance(value, dict):
+            raise ScenarioError(f"{where}: must be a table")
+    elif ks.kind == "volumes":
+        if isinstance(value, list) and value and all(isinstance(v, list) for v in value):
+            value = tuple(_coerce(v, KeySpec("floats"), where) for v in value)
+        else:
+            value = _coerce(value, KeySpec("floats"), where)
     elif ks.kind == "floats":
         ok = isinstance(value, list) and all(
             isinstance(v, int | float) and not isinstance(v, bool) for v in value

@@ -33,6 +33,7 @@ log = logging.getLogger("foresight")
 GPKG_NAME = "projection.gpkg"
 WOOD_FLOW_CSV = "wood_flow.csv"
 RUN_JSON = "run.json"
+MANAGED = frozenset({GPKG_NAME, WOOD_FLOW_CSV, RUN_JSON})  # what a run writes into --out
 
 
 @dataclass
@@ -76,7 +77,7 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
     """Check, project, schedule and (if ``out_dir`` is given) write every output."""
     out = Path(out_dir) if out_dir is not None else None
     if out is not None:
-        check_output_dir(out)  # before the long stages, not after
+        check_output_dir(out, MANAGED)  # before the long stages, not after
     timer = _Timer()
     with timer.stage("read and check inventory"):
         inventory = check(scenario, strict=strict)
@@ -98,18 +99,25 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
         harvests = harvests_layer(flow, inventory.stands, periods)
     result = RunResult(out, inventory, flow, wood_flow, stands, harvests, timer.timings)
     if out is not None:
-        with timer.stage("write outputs"), staged_output(out) as tmp:
-            write_outputs(result, scenario, tmp)
+        with staged_output(out, MANAGED) as tmp:
+            with timer.stage("write outputs"):
+                write_tables(result, tmp)
+            write_json(tmp / RUN_JSON, run_record(result, scenario))
     return result
 
 
-def write_outputs(result: RunResult, scenario: Scenario, directory: Path) -> None:
-    """Write the GeoPackage, the wood-flow CSV and run.json into ``directory``."""
+def write_tables(result: RunResult, directory: Path) -> None:
+    """Write the GeoPackage and the wood-flow CSV into ``directory``."""
     gpkg = directory / GPKG_NAME
     write_gpkg_layer(gpkg, result.stands, "stands")
     write_gpkg_layer(gpkg, result.harvests, "harvests")
     write_gpkg_layer(gpkg, result.wood_flow, "wood_flow", spatial=False)
-    result.wood_flow.to_csv(directory / WOOD_FLOW_CSV, index=False, float_format="%.6g")
+    result.wood_flow.to_csv(directory / WOOD_FLOW_CSV, index=False)
+
+
+def write_outputs(result: RunResult, scenario: Scenario, directory: Path) -> None:
+    """Write every output (tables and run.json) into an existing ``directory``."""
+    write_tables(result, directory)
     write_json(directory / RUN_JSON, run_record(result, scenario))
 
 

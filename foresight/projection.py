@@ -12,7 +12,7 @@ runs, and bare: volume 0).
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -21,6 +21,7 @@ from numpy.typing import NDArray
 
 from foresight.config import Scenario
 from foresight.growth import YieldCurve, curve_from_config
+from foresight.growth.rules import min_harvest_ages
 
 TIMING_OFFSET = {"start": 0.0, "midpoint": 0.5, "end": 1.0}  # share of a period
 
@@ -107,20 +108,25 @@ class StandArrays:
                    ) -> StandArrays:
         """Build the arrays from a stand table with the standard columns."""
         idx = curves.index(stands["species"].to_numpy())
-        per_species: Mapping[str, NDArray] = {
-            "min": np.array([scenario.species[c].min_harvest_age for c in curves.codes]),
-            "delay": np.array([scenario.species[c].regen_delay_years for c in curves.codes]),
-        }
+        site = stands["site_index"].to_numpy(dtype=np.float64)
+        delay = np.array([scenario.species[c].regen_delay_years for c in curves.codes])
+        min_age = np.zeros(len(stands))
+        for i, code in enumerate(curves.codes):  # per species; rules run per distinct site
+            mine = idx == i
+            if mine.any():
+                min_age[mine] = min_harvest_ages(scenario.species[code], curves.curves[i],
+                                                 site[mine], scenario.economics,
+                                                 scenario.growth)
         ids = stands["stand_id"].to_numpy()
         rank = np.empty(len(ids), dtype=np.int64)
         rank[np.argsort(ids, kind="stable")] = np.arange(len(ids))
         return cls(
             species_idx=idx,
-            site_index=stands["site_index"].to_numpy(dtype=np.float64),
+            site_index=site,
             age_years=stands["age_years"].to_numpy(dtype=np.float64),
             area_ha=stands["area_ha"].to_numpy(dtype=np.float64),
-            min_harvest_age=per_species["min"][idx].astype(np.float64),
-            regen_delay_years=per_species["delay"][idx].astype(np.float64),
+            min_harvest_age=min_age,
+            regen_delay_years=delay[idx].astype(np.float64),
             id_rank=rank,
         )
 

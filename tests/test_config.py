@@ -18,7 +18,7 @@ def test_sample_scenario_loads():
     assert scn.scenario.periods * scn.scenario.period_years >= 100
     assert scn.inventory.path.is_file()
     aspen = scn.species["aspen"]
-    assert aspen.curve == "table" and len(aspen.ages) == len(aspen.volumes_m3_ha) > 2
+    assert aspen.curve == "table" and len(aspen.ages) == len(aspen.volumes_m3_ha[0]) > 2
 
 
 @pytest.mark.parametrize(

@@ -45,7 +45,8 @@ def build_parser() -> argparse.ArgumentParser:
     common = argparse.ArgumentParser(add_help=False)
     common.add_argument("-v", "--verbose", action="count", default=0,
                         help="more progress detail on stderr (-vv for debug)")
-    common.add_argument("-q", "--quiet", action="store_true", help="errors only on stderr")
+    common.add_argument("-q", "--quiet", action="store_true",
+                        help="print errors only (no progress, no summary)")
     common.add_argument("--set", dest="overrides", action="append", default=[],
                         metavar="KEY=VALUE",
                         help="override a scenario key, e.g. --set flow.band=0.1 (repeatable)")

@@ -29,7 +29,7 @@ def handle(args: argparse.Namespace) -> int:
         print(f"limited by: {result.flow.binding}")
         print(f"growing stock: {wf['growing_stock_start_m3'].iloc[0]:,.0f} m3 at start, "
               f"{wf['growing_stock_end_m3'].iloc[-1]:,.0f} m3 at the end")
-        print(f"outputs in {args.out}/ (projection.gpkg, wood_flow.csv, run.json)")
+        print(f"outputs in {result.out_dir} (projection.gpkg, wood_flow.csv, run.json)")
         print("These are planning estimates; defer to local forest-practice law and to "
               "licensed professionals.")
     return 0

@@ -1,7 +1,12 @@
-"""Growth and yield: curve families and the increments derived from them (pure numpy/scipy)."""
+"""Growth and yield: curve families, increments, rotations and fitting (pure numpy/scipy)."""
 
 from foresight.growth.curves import (
     ChapmanRichards,
+    GompertzYield,
+    LogisticYield,
+    Schumacher,
+    SiteScaling,
+    StockGrowth,
     TableYield,
     YieldCurve,
     chapman_richards,
@@ -10,18 +15,27 @@ from foresight.growth.curves import (
 from foresight.growth.increments import (
     Culmination,
     chapman_richards_culmination_age,
+    culmination,
     mai,
     table_culmination,
+    yield_class,
 )
 
 __all__ = [
     "ChapmanRichards",
     "Culmination",
+    "GompertzYield",
+    "LogisticYield",
+    "Schumacher",
+    "SiteScaling",
+    "StockGrowth",
     "TableYield",
     "YieldCurve",
     "chapman_richards",
     "chapman_richards_culmination_age",
+    "culmination",
     "curve_from_config",
     "mai",
     "table_culmination",
+    "yield_class",
 ]

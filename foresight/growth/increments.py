@@ -1,12 +1,16 @@
-"""Mean and current annual increment, and where MAI culminates."""
+"""Mean and current annual increment, where MAI culminates, and the yield class."""
 
 from __future__ import annotations
 
+import math
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy.optimize import brentq
+
+VolumeFn = Callable[[NDArray], NDArray]  # age [years] -> volume [m3/ha], vectorised
 
 
 def mai(age_years: ArrayLike, volume: ArrayLike) -> NDArray[np.float64]:
@@ -19,7 +23,10 @@ def mai(age_years: ArrayLike, volume: ArrayLike) -> NDArray[np.float64]:
 
 @dataclass(frozen=True)
 class Culmination:
-    """Age and value of maximum MAI; ``culminated`` is False if MAI still rises at the last age."""
+    """Age and value of maximum MAI; ``culminated`` is False if MAI still rises at the last age.
+
+    When not culminated, ``age_years`` and ``mai`` are those of the last age examined.
+    """
 
     age_years: float
     mai: float
@@ -38,6 +45,35 @@ def table_culmination(ages: ArrayLike, volumes: ArrayLike) -> Culmination:
     return Culmination(float(t[i]), float(m[i]), culminated=i < len(t) - 1)
 
 
+def culmination(volume: VolumeFn, cai: VolumeFn, max_age_years: float,
+                step_years: float = 0.5) -> Culmination:
+    """Age of maximum MAI of any curve: the root of CAI(t) - MAI(t) = 0.
+
+    MAI is scanned on a grid up to ``max_age_years``; the first sign change of CAI - MAI from
+    + to - after the grid maximum's neighbourhood is then refined with Brent's method. If MAI is
+    still rising at ``max_age_years``, the result says it has not culminated.
+    """
+    t = np.arange(step_years, max_age_years + step_years / 2, step_years)
+    m = mai(t, volume(t))
+    i = int(np.argmax(m))
+    if i == len(t) - 1:
+        return Culmination(float(t[-1]), float(m[-1]), culminated=False)
+    if m[i] <= 0:
+        return Culmination(float(t[i]), 0.0, culminated=False)
+
+    def f(x: float) -> float:
+        x_arr = np.asarray([x])
+        return float(cai(x_arr)[0] - mai(x_arr, volume(x_arr))[0])
+
+    lo, hi = t[max(i - 1, 0)], t[i + 1]
+    flo, fhi = f(lo), f(hi)
+    if flo > 0 > fhi:
+        x = brentq(f, lo, hi, xtol=1e-10, rtol=1e-12)
+    else:  # a kink or flat top (a table curve): the grid maximum is the answer
+        x = float(t[i])
+    return Culmination(float(x), float(mai(np.asarray([x]), volume(np.asarray([x])))[0]), True)
+
+
 def chapman_richards_culmination_age(k: float, c: float) -> float:
     """Age [years] of maximum MAI of V = a (1 - exp(-k t))^c, for c > 1.
 
@@ -47,9 +83,22 @@ def chapman_richards_culmination_age(k: float, c: float) -> float:
     """
     if c <= 1:
         raise ValueError(f"c = {c}: MAI of a Chapman-Richards curve culminates only for c > 1")
-    # f(x) = e^x - 1 - c x is negative just above 0 and positive for x large enough.
     hi = 1.0
-    while np.expm1(hi) - c * hi <= 0:
+    while np.expm1(hi) - c * hi <= 0:  # f(x) = e^x - 1 - c x is < 0 just above 0
         hi *= 2
     x = brentq(lambda x: np.expm1(x) - c * x, 1e-9, hi, xtol=1e-14, rtol=1e-14)
     return float(x / k)
+
+
+def yield_class(max_mai: float, step: float = 2.0) -> float:
+    """Maximum MAI rounded to the nearest multiple of ``step`` [m3/ha/yr], halves rounded up.
+
+    British usage (Forestry Commission): yield class is the maximum MAI in steps of 2.
+    """
+    return float(step * math.floor(max_mai / step + 0.5))
+
+
+def first_age_reaching(values: NDArray, ages: NDArray, threshold: float) -> float | None:
+    """The first age on the grid at which ``values`` reach ``threshold`` (None if never)."""
+    hit = np.flatnonzero(values >= threshold)
+    return float(ages[hit[0]]) if len(hit) else None

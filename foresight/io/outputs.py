@@ -2,14 +2,16 @@
 
 :func:`staged_output` yields a fresh temporary directory next to the target; when the block
 ends without error the target is replaced by it in two renames, otherwise it is removed and the
-target is left as it was. A target that exists and does not look like an earlier foresight
-output (no ``run.json``) is never replaced.
+target is left as it was. A target that exists is replaced only when it holds nothing but
+what a foresight run writes (``run.json`` among it); anything else in it (a user's notes, a
+project file) makes the run stop before any work, so nothing of the user's is ever deleted.
 """
 
 from __future__ import annotations
 
 import hashlib
 import json
+import os
 import shutil
 import tempfile
 from collections.abc import Iterator
@@ -22,25 +24,42 @@ from foresight.errors import OutputError
 MARKER = "run.json"
 
 
-def check_output_dir(out: Path) -> None:
-    """Refuse early an output path foresight must not replace."""
+def check_output_dir(out: Path, managed: frozenset[str]) -> None:
+    """Refuse early an output path foresight must not replace.
+
+    ``managed`` names the entries a run writes; a non-empty directory is replaced only if it
+    holds ``run.json`` and nothing outside ``managed``.
+    """
     if out.exists():
         if not out.is_dir():
             raise OutputError(f"--out {out}: exists and is not a directory")
-        if any(out.iterdir()) and not (out / MARKER).is_file():
+        entries = sorted(p.name for p in out.iterdir())
+        if not entries:
+            return
+        if MARKER not in entries:
             raise OutputError(
                 f"--out {out}: the directory is not empty and holds no {MARKER}, so it is not "
                 "an earlier foresight output; choose a new or empty directory"
             )
+        foreign = [name for name in entries if name not in managed]
+        if foreign:
+            raise OutputError(
+                f"--out {out}: holds files foresight did not write ({', '.join(foreign[:5])}"
+                f"{' ...' if len(foreign) > 5 else ''}); replacing the directory would delete "
+                "them. Move them out or choose another directory"
+            )
 
 
 @contextmanager
-def staged_output(out: Path) -> Iterator[Path]:
+def staged_output(out: Path, managed: frozenset[str]) -> Iterator[Path]:
     """Write into a temporary sibling of ``out``; move it into place only on success."""
     out = Path(out)
-    check_output_dir(out)
+    check_output_dir(out, managed)
     out.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.", suffix=".partial", dir=out.parent))
+    umask = os.umask(0)
+    os.umask(umask)
+    tmp.chmod(0o777 & ~umask)  # mkdtemp makes it private; results are for sharing
     try:
         yield tmp
     except BaseException:

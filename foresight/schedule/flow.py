@@ -63,7 +63,7 @@ def find_even_flow(
     steps += 1
     if top.feasible:
         final = trial(upper, record=True)
-        return _result(upper, periods, final, _why_top(max_area_ha), steps + 1)
+        return _result(upper, periods, final, _why_top(final, max_area_ha), steps + 1)
 
     lo, hi, hi_sim = 0.0, upper, top
     while hi - lo > REL_TOL * hi and steps < MAX_STEPS:
@@ -78,20 +78,25 @@ def find_even_flow(
     steps += 1
     if not final.feasible:  # a non-monotone case: never report an infeasible level
         raise RuntimeError(f"flow search ended on an infeasible level {lo} ({final.fail_reason})")
-    return _result(lo, periods, final, _why(hi_sim, hi, periods), steps)
+    return _result(lo, periods, final, _why(hi_sim, hi, periods, ending_stock), steps)
 
 
-def _why_top(max_area_ha: float | None) -> str:
-    cap = " or the area cap" if max_area_ha is not None else ""
-    return f"period 1: every stand eligible in period 1{cap} is used at this level"
+def _why_top(sim: Simulation, max_area_ha: float | None) -> str:
+    if max_area_ha is not None and sim.harvest_ha[0] >= max_area_ha * (1 - 1e-9):
+        return (f"period 1: the area cap (harvest.max_area_ha_per_period = {max_area_ha:g} ha) "
+                "is reached at this level")
+    return "period 1: every stand eligible in period 1 is cut at this level"
 
 
-def _why(sim: Simulation, level: float, periods: Periods) -> str:
+def _why(sim: Simulation, level: float, periods: Periods, ending_stock: float) -> str:
+    higher = f"a level of {level:,.0f} m3 per period"
     if sim.fail_period is not None:
         year = periods.start_years[sim.fail_period - 1]
-        return (f"period {sim.fail_period} (from {year}): {sim.fail_reason} at "
-                f"{level:,.0f} m3 per period")
-    return f"{sim.fail_reason} (flow.ending_stock) at {level:,.0f} m3 per period"
+        what = ("runs out of eligible volume" if sim.fail_reason.startswith("eligible")
+                else "reaches the area cap (harvest.max_area_ha_per_period)")
+        return f"{higher} {what} in period {sim.fail_period} (from {year})"
+    return (f"{higher} would leave the ending growing stock below flow.ending_stock = "
+            f"{ending_stock:g} x the initial {sim.initial_stock_m3:,.0f} m3")
 
 
 def _result(level: float, periods: Periods, sim: Simulation, why: str, steps: int) -> FlowResult:

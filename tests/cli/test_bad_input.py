@@ -99,7 +99,9 @@ def test_invalid_geometry_rejected_with_strict(tmp_path, capsys):
 @pytest.mark.parametrize(
     ("args", "pattern"),
     [
-        (["--set", "flow.bandx=0.2"], r"unknown \[flow\] key 'bandx'; did you mean 'band'"),
+        (["--set", "flow.bandx=0.2"],
+         r"--set flow.bandx=0.2: unknown \[flow\] key 'bandx'; did you mean 'band'"),
+        (["--set", "flow.band=1.5"], r"--set flow.band=1.5: \[flow\] band = 1.5: must be >= 0"),
         (["--set", "nonsense"], r"expected KEY=VALUE"),
         (["--set", "scenario.periods=0"], r"\[scenario\] periods = 0: must be > 0"),
         (["--set", "inventory.layer=roads"], r"no layer 'roads' \(inventory.layer\)"),
@@ -122,6 +124,17 @@ def test_missing_scenario_file_via_console_script(tmp_path):
     assert proc.returncode == 2
     assert "none.toml: scenario file not found" in proc.stderr
     assert "Traceback" not in proc.stderr
+
+
+def test_never_deletes_a_users_files_in_an_earlier_output(tmp_path, capsys):
+    scenario = _case(tmp_path)
+    out = tmp_path / "out"
+    assert main(["run", str(scenario), "--out", str(out), "-q"]) == 0
+    (out / "my_notes.txt").write_text("keep me")
+    assert main(["run", str(scenario), "--out", str(out)]) == 2
+    assert "holds files foresight did not write (my_notes.txt)" in capsys.readouterr().err
+    assert (out / "my_notes.txt").read_text() == "keep me"
+    assert (out / "projection.gpkg").is_file()  # the earlier result is untouched
 
 
 def test_refuses_to_replace_a_foreign_directory(tmp_path, capsys):

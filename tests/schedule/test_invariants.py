@@ -8,12 +8,14 @@ import numpy as np
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from foresight.growth import ChapmanRichards, TableYield
+from foresight.growth import ChapmanRichards, SiteScaling, TableYield
 from foresight.projection import CurveSet, Periods, StandArrays
 from foresight.schedule import find_even_flow
 
-CURVES = CurveSet(["a", "b"], [ChapmanRichards(500.0, 0.03, 3.0, site_index_ref_m=20.0),
-                               TableYield((10, 30, 60, 90), (5, 80, 260, 300))])
+CURVES = CurveSet(["a", "b"], [
+    ChapmanRichards(500.0, 0.03, 3.0, SiteScaling(site_index_ref_m=20.0)),
+    TableYield.single((10, 30, 60, 90), (5, 80, 260, 300)),
+])
 
 
 @st.composite
@@ -48,18 +50,23 @@ def reconstruct_stock(stands, periods, sim):
     for i in range(stands.n):
         parts = [(stands.area_ha[i], stands.age_years[i])]  # (area, age at period start)
         for p in range(1, periods.count + 1):
-            cuts = [(a, age) for s, q, age, a in zip(sim.event_stand, sim.event_period,
-                                                      sim.event_age_years, sim.event_area_ha)
-                    if s == i and q == p]
+            # area cut this period at each age at harvest (several parts may share an age)
+            todo: dict[float, float] = {}
+            for s, q, age, a in zip(sim.event_stand, sim.event_period, sim.event_age_years,
+                                    sim.event_area_ha):
+                if s == i and q == p:
+                    todo[round(float(age), 6)] = todo.get(round(float(age), 6), 0.0) + a
             nxt = []
             for area, age in parts:
-                taken = sum(a for a, cut_age in cuts if abs(cut_age - (age + off)) < 1e-6)
-                taken = min(taken, area)
+                key = round(float(age + off), 6)
+                taken = min(todo.get(key, 0.0), area)
+                if taken:
+                    todo[key] -= taken
                 if area - taken > 1e-9:
                     nxt.append((area - taken, age + L))
                 if taken > 0:
                     nxt.append((taken, L - off - stands.regen_delay_years[i]))
-                cuts = [(a, c) for a, c in cuts if abs(c - (age + off)) >= 1e-6]
+            assert all(v < 1e-9 for v in todo.values())  # every event matched a part
             parts = nxt
             # total area is conserved: the parts of a stand always add up to the stand
             assert abs(sum(a for a, _ in parts) - stands.area_ha[i]) < 1e-9 * stands.area_ha[i]
