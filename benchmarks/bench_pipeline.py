@@ -54,7 +54,12 @@ def one_size(n: int) -> dict:
     import foresight
     from foresight.pipeline import RunResult, check, write_outputs
     from foresight.projection import CurveSet, Periods, StandArrays
-    from foresight.reporting import harvests_layer, stands_layer, wood_flow_table
+    from foresight.reporting import (
+        harvests_layer,
+        stands_layer,
+        wood_flow_by_product,
+        wood_flow_table,
+    )
     from foresight.schedule import find_even_flow
 
     with tempfile.TemporaryDirectory(dir=HERE) as tmp:
@@ -80,7 +85,8 @@ def one_size(n: int) -> dict:
         t0 = time.perf_counter()
         result = RunResult(None, inv, flow, wood_flow_table(flow, periods),
                            stands_layer(flow, inv.stands, arrays, curves, periods),
-                           harvests_layer(flow, inv.stands, periods))
+                           harvests_layer(flow, inv.stands, periods),
+                           wood_flow_by_product(flow, arrays, curves, scn))
         t["tables_s"] = time.perf_counter() - t0
         t0 = time.perf_counter()
         out = tmp / "out"

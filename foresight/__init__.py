@@ -6,9 +6,10 @@ The library API a notebook calls; the ``foresight`` command is a thin shell over
 from foresight._version import __version__
 from foresight.config import Scenario, load_scenario
 from foresight.errors import ForesightError, ForesightWarning, InputError
-from foresight.pipeline import RunResult, check, run
+from foresight.pipeline import CurvesResult, RunResult, check, curves, run
 
 __all__ = [
+    "CurvesResult",
     "ForesightError",
     "ForesightWarning",
     "InputError",
@@ -16,6 +17,7 @@ __all__ = [
     "Scenario",
     "__version__",
     "check",
+    "curves",
     "load_scenario",
     "run",
 ]

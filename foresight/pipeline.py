@@ -17,14 +17,31 @@ from datetime import UTC, datetime
 from pathlib import Path
 
 import geopandas as gpd
+import numpy as np
 import pandas as pd
 
 from foresight.config import Scenario
+from foresight.errors import OutputError
+from foresight.growth import curve_from_config
 from foresight.inventory import Inventory, prepare_inventory
-from foresight.io.outputs import check_output_dir, sha256_file, staged_output, write_json
+from foresight.io.outputs import (
+    check_output_dir,
+    replace_file,
+    sha256_file,
+    staged_output,
+    write_json,
+)
 from foresight.io.vector import read_layer, write_gpkg_layer
 from foresight.projection import CurveSet, Periods, StandArrays
-from foresight.reporting import harvests_layer, stands_layer, wood_flow_table
+from foresight.reporting import (
+    harvests_layer,
+    stands_layer,
+    wood_flow_by_product,
+    wood_flow_table,
+)
+from foresight.reporting.curves import curves_table
+from foresight.reporting.curves import notes as curve_notes
+from foresight.reporting.figures import curve_figure
 from foresight.schedule import FlowResult, find_even_flow
 from foresight.versions import library_versions
 
@@ -32,8 +49,12 @@ log = logging.getLogger("foresight")
 
 GPKG_NAME = "projection.gpkg"
 WOOD_FLOW_CSV = "wood_flow.csv"
+PRODUCTS_CSV = "wood_flow_by_product.csv"
 RUN_JSON = "run.json"
-MANAGED = frozenset({GPKG_NAME, WOOD_FLOW_CSV, RUN_JSON})  # what a run writes into --out
+CURVES_CSV = "curves.csv"
+FIGURES_DIR = "figures"
+# every entry foresight writes into an output directory (run, curves)
+MANAGED = frozenset({GPKG_NAME, WOOD_FLOW_CSV, PRODUCTS_CSV, RUN_JSON, CURVES_CSV, FIGURES_DIR})
 
 
 @dataclass
@@ -46,6 +67,7 @@ class RunResult:
     wood_flow: pd.DataFrame
     stands: gpd.GeoDataFrame
     harvests: gpd.GeoDataFrame
+    products: pd.DataFrame
     timings_s: dict[str, float] = field(default_factory=dict)
 
     @property
@@ -83,6 +105,10 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
         inventory = check(scenario, strict=strict)
     periods = Periods.from_scenario(scenario)
     curves = CurveSet.from_scenario(scenario)
+    for code, curve in zip(curves.codes, curves.curves, strict=True):
+        if getattr(curve, "collapses", False):
+            log.warning("species %s: initial_m3_ha is below min_viable_m3_ha, so its stands "
+                        "collapse after harvest instead of regrowing", code)
     arrays = StandArrays.from_table(inventory.stands, scenario, curves)
     with timer.stage("project and schedule"):
         flow = find_even_flow(
@@ -97,7 +123,9 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
         wood_flow = wood_flow_table(flow, periods)
         stands = stands_layer(flow, inventory.stands, arrays, curves, periods)
         harvests = harvests_layer(flow, inventory.stands, periods)
-    result = RunResult(out, inventory, flow, wood_flow, stands, harvests, timer.timings)
+        products = wood_flow_by_product(flow, arrays, curves, scenario)
+    result = RunResult(out, inventory, flow, wood_flow, stands, harvests, products,
+                       timer.timings)
     if out is not None:
         with staged_output(out, MANAGED) as tmp:
             with timer.stage("write outputs"):
@@ -112,7 +140,9 @@ def write_tables(result: RunResult, directory: Path) -> None:
     write_gpkg_layer(gpkg, result.stands, "stands")
     write_gpkg_layer(gpkg, result.harvests, "harvests")
     write_gpkg_layer(gpkg, result.wood_flow, "wood_flow", spatial=False)
+    write_gpkg_layer(gpkg, result.products, "wood_flow_by_product", spatial=False)
     result.wood_flow.to_csv(directory / WOOD_FLOW_CSV, index=False)
+    result.products.to_csv(directory / PRODUCTS_CSV, index=False)
 
 
 def write_outputs(result: RunResult, scenario: Scenario, directory: Path) -> None:
@@ -155,3 +185,51 @@ def run_record(result: RunResult, scenario: Scenario) -> dict:
         },
         "timings_s": result.timings_s,
     }
+
+
+@dataclass
+class CurvesResult:
+    """The curves report: the table, its notes, and the files written (if any)."""
+
+    table: pd.DataFrame
+    notes: list[str]
+    files: list[Path]
+
+
+def curves(scenario: Scenario, out_dir: str | Path | None = None, site_step_m: float = 1.0
+           ) -> CurvesResult:
+    """Per species and site value in use: culmination, rules, rotations; CSV and figures.
+
+    Files go into ``out_dir`` one by one, each written to a temporary name and moved into
+    place, so the report can sit beside a run's outputs without touching them.
+    """
+    inventory = check(scenario)
+    with _Timer().stage("curves report"):
+        table, summaries = curves_table(scenario, inventory.stands, site_step_m)
+    files: list[Path] = []
+    if out_dir is not None:
+        out = Path(out_dir)
+        if out.exists() and not out.is_dir():
+            raise OutputError(f"--out {out}: exists and is not a directory")
+        replace_file(out / CURVES_CSV, lambda p: table.to_csv(p, index=False))
+        files.append(out / CURVES_CSV)
+        for code, sums in summaries.items():
+            # the figure shows the site value holding the most area
+            sites = table[table["species"] == code].reset_index(drop=True)
+            main = sums[int(sites["area_ha"].to_numpy().argmax())]
+            path = out / FIGURES_DIR / f"curves_{code}.png"
+            curve = curve_from_config(scenario.species[code])
+            age = _figure_age(main, scenario.growth.max_age_years)
+            replace_file(path, lambda p, c=code, cv=curve, m=main, a=age:
+                         curve_figure(p, c, cv, m, a))
+            files.append(path)
+    return CurvesResult(table, curve_notes(table), files)
+
+
+def _figure_age(summary, max_age: float) -> float:
+    """Show the curve to about twice its latest marked age, within the search range."""
+    marks = [summary.culmination.age_years, summary.min_harvest_age_years]
+    if summary.fisher is not None:
+        marks.append(summary.fisher.age_years)
+    finite = [m for m in marks if np.isfinite(m)]
+    return float(min(max_age, max(100.0, 2.0 * max(finite)))) if finite else max_age

@@ -20,7 +20,8 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from foresight.config import Scenario
-from foresight.growth import YieldCurve, curve_from_config
+from foresight.growth import TableYield, YieldCurve, curve_from_config
+from foresight.growth.curves import _Parametric
 from foresight.growth.rules import min_harvest_ages
 
 TIMING_OFFSET = {"start": 0.0, "midpoint": 0.5, "end": 1.0}  # share of a period
@@ -59,32 +60,130 @@ class Periods:
         return self.start_years + self.offset_years
 
 
-class CurveSet:
-    """The yield curves of all species, evaluated for arrays of mixed species at once."""
+@dataclass(frozen=True)
+class SiteTerms:
+    """Per-element terms that place a stand on its species' tabulated curve (see CurveSet).
 
-    def __init__(self, codes: Sequence[str], curves: Sequence[YieldCurve]):
+    ``row``: the table row (the species, or its lower site class); ``scale_v``, ``scale_t``:
+    the site scheme's rho_a and rho_k (1 for tables); ``blend``: weight of the next row up
+    (site-class tables; 0 otherwise).
+    """
+
+    row: NDArray[np.intp]
+    scale_v: NDArray[np.float64]
+    scale_t: NDArray[np.float64]
+    blend: NDArray[np.float64]
+
+    def take(self, idx: NDArray) -> SiteTerms:
+        return SiteTerms(self.row[idx], self.scale_v[idx], self.scale_t[idx], self.blend[idx])
+
+    def append(self, idx: int) -> SiteTerms:
+        return SiteTerms(np.r_[self.row, self.row[idx]], np.r_[self.scale_v, self.scale_v[idx]],
+                         np.r_[self.scale_t, self.scale_t[idx]], np.r_[self.blend, self.blend[idx]])
+
+
+class CurveSet:
+    """The yield curves of all species, evaluated for arrays of mixed species at once.
+
+    The projection evaluates the same few curves hundreds of millions of times, so every curve
+    (every site class of a table) is tabulated once, as one row of a single table on a uniform
+    age grid (``step_years``, 1/16 year), and read back by linear interpolation: one gather
+    for all species, no per-species masks. Grid nodes hold the exact curve values, so ages on
+    the grid (whole and half years, wherever site does not speed time up) come out exact;
+    between nodes linear interpolation errs by at most h^2/8 max|V''| (h = step): under
+    5e-4 m3/ha for any curve whose CAI changes by less than 1 m3/ha/yr from one year to the
+    next. Site enters through :class:`SiteTerms` worked out once per stand: the factors
+    (rho_a, rho_k) of the site scheme, or the lower site class and the weight between classes.
+    Ages beyond the grid (``max_age_years``) are evaluated with the exact formula.
+    """
+
+    def __init__(self, codes: Sequence[str], curves: Sequence[YieldCurve],
+                 max_age_years: float = 1000.0, step_years: float = 1 / 16):
         self.codes = tuple(codes)
         self.curves = tuple(curves)
+        self.step = float(step_years)
+        self.grid = np.arange(0.0, max_age_years + step_years / 2, step_years)
+        rows, self._first_row = [], []
+        for curve in self.curves:
+            self._first_row.append(sum(len(r) for r in rows))
+            if isinstance(curve, _Parametric):
+                rows.append(curve.reference(self.grid)[None, :])
+            elif isinstance(curve, TableYield):
+                rows.append(np.stack([curve.volume_m3_ha(self.grid, np.full(self.grid.shape, c))
+                                      for c in curve.site_classes_m]))
+            else:
+                raise TypeError(f"cannot tabulate a curve of type {type(curve).__name__}")
+        table = np.vstack(rows)
+        self._values = np.ascontiguousarray(table[:, :-1]).ravel()
+        self._diffs = np.diff(table, axis=1).ravel()
+        self._cols = table.shape[1] - 1
 
     @classmethod
-    def from_scenario(cls, scenario: Scenario) -> CurveSet:
+    def from_scenario(cls, scenario: Scenario, max_age_years: float = 1000.0) -> CurveSet:
         codes = sorted(scenario.species)
-        return cls(codes, [curve_from_config(scenario.species[c]) for c in codes])
+        return cls(codes, [curve_from_config(scenario.species[c]) for c in codes],
+                   max_age_years=max_age_years)
 
     def index(self, species: Sequence[str] | NDArray) -> NDArray[np.int32]:
         """Species codes -> positions in :attr:`codes`."""
         lookup = {c: i for i, c in enumerate(self.codes)}
         return np.asarray(pd.Series(species).map(lookup).to_numpy(), dtype=np.int32)
 
-    def volume_m3_ha(self, species_idx: NDArray, age_years: NDArray, site_index: NDArray
-                     ) -> NDArray[np.float64]:
-        """Volume [m3/ha] for each element; the loop runs over the few species, not stands."""
-        out = np.zeros(np.shape(age_years), dtype=np.float64)
-        for i, curve in enumerate(self.curves):
+    def site_terms(self, species_idx: NDArray, site_index: NDArray) -> SiteTerms:
+        """The :class:`SiteTerms` of each element, worked out once per stand."""
+        site_index = np.asarray(site_index, dtype=np.float64)
+        n = len(site_index)
+        row = np.zeros(n, dtype=np.intp)
+        scale_v, scale_t, blend = np.ones(n), np.ones(n), np.zeros(n)
+        for i, curve in enumerate(self.curves):  # per species, not per stand
             mask = species_idx == i
-            if mask.any():
-                out[mask] = curve.volume_m3_ha(age_years[mask], site_index[mask])
-        return out
+            if not mask.any():
+                continue
+            si = site_index[mask]
+            if isinstance(curve, _Parametric):
+                row[mask] = self._first_row[i]
+                scale_v[mask], scale_t[mask] = curve.site.factors(si)
+            else:
+                classes = np.asarray(curve.site_classes_m)  # type: ignore[attr-defined]
+                if len(classes) == 1:
+                    row[mask] = self._first_row[i]
+                    continue
+                c = np.clip(si, classes[0], classes[-1])
+                hi = np.clip(np.searchsorted(classes, c, side="right"), 1, len(classes) - 1)
+                row[mask] = self._first_row[i] + hi - 1
+                blend[mask] = (c - classes[hi - 1]) / (classes[hi] - classes[hi - 1])
+        return SiteTerms(row, scale_v, scale_t, blend)
+
+    def volume_m3_ha(self, species_idx: NDArray, age_years: NDArray,
+                     site_index: NDArray | None = None, terms: SiteTerms | None = None
+                     ) -> NDArray[np.float64]:
+        """Volume [m3/ha] for each element, from site index or precomputed site terms."""
+        age_years = np.asarray(age_years, dtype=np.float64)
+        if terms is None:
+            terms = self.site_terms(species_idx, np.broadcast_to(site_index, age_years.shape))
+        scaled = np.maximum(age_years, 0.0) * terms.scale_t
+        pos = scaled * (1.0 / self.step)
+        j = pos.astype(np.intp)
+        np.minimum(j, self._cols - 1, out=j)
+        pos -= j  # now the fraction between grid nodes
+        flat = terms.row * self._cols + j
+        v = self._values[flat] + pos * self._diffs[flat]
+        mixed = np.flatnonzero(terms.blend > 0)
+        if len(mixed):  # site-class tables: blend with the next class up
+            up = flat[mixed] + self._cols
+            v[mixed] += terms.blend[mixed] * (self._values[up] + pos[mixed] * self._diffs[up]
+                                              - v[mixed])
+        v *= terms.scale_v
+        v[age_years < 0] = 0.0
+        if len(scaled) and scaled.max() > self.grid[-1]:  # past the grid: the exact curve
+            beyond = np.flatnonzero(scaled > self.grid[-1])
+            for i, curve in enumerate(self.curves):
+                # tables are flat past their last age, which the grid covers: their grid
+                # value stands; parametric curves go on changing and are evaluated exactly
+                if isinstance(curve, _Parametric):
+                    mine = beyond[species_idx[beyond] == i]
+                    v[mine] = terms.scale_v[mine] * curve.reference(scaled[mine])
+        return v
 
 
 @dataclass(frozen=True)
@@ -132,9 +231,9 @@ class StandArrays:
 
 
 def growing_stock_m3(curves: CurveSet, species_idx: NDArray, age_years: NDArray,
-                     site_index: NDArray, area_ha: NDArray) -> float:
-    """Standing volume [m3] summed over stands (or stand parts)."""
-    return float(np.dot(curves.volume_m3_ha(species_idx, age_years, site_index), area_ha))
+                     terms: SiteTerms, area_ha: NDArray) -> float:
+    """Standing volume [m3] summed over stands (or stand parts), from their site terms."""
+    return float(np.dot(curves.volume_m3_ha(species_idx, age_years, terms=terms), area_ha))
 
 
 def ages_by_period(age_years: NDArray, periods: Periods) -> NDArray[np.float64]:

@@ -12,6 +12,9 @@ import pyogrio
 import shapely
 
 
+ROOT = Path(__file__).resolve().parents[1]
+
+
 def squares(n: int, side_m: float = 100.0, x0: float = 500_000.0, y0: float = 6_700_000.0,
             per_row: int = 10) -> np.ndarray:
     """n edge-sharing squares of side_m metres (100 m -> 1 ha) in rows of per_row."""

@@ -39,6 +39,63 @@ def test_bad_keys_are_named(tmp_path, section, table, match):
         load_scenario(path)
 
 
+@pytest.mark.parametrize(
+    ("species", "match"),
+    [
+        ({"a": -400.0}, r"\[species.pine\] a = -400.0: must be > 0"),
+        ({"k": 0.0}, r"\[species.pine\] k = 0.0: must be > 0"),
+        ({"curve": "stock-threshold", "r": 0.1, "capacity_m3_ha": 300.0, "initial_m3_ha": 5.0,
+          "min_viable_m3_ha": 300.0}, r"min_viable_m3_ha = 300 must be below capacity_m3_ha"),
+        ({"curve": "stock-logistic", "r": -0.1, "capacity_m3_ha": 300.0,
+          "initial_m3_ha": 5.0}, r"r = -0.1: must be > 0"),
+        ({"curve": "schumacher", "a": 500.0}, r"curve 'schumacher' needs key 'b'"),
+        ({"min_harvest_age": None, "min_harvest_economic": True},
+         r"min_harvest_economic = true needs \[economics\] discount_rate"),
+        ({"min_harvest_mai_share": 1.5}, r"min_harvest_mai_share = 1.5: must be > 0 and <= 1"),
+        ({"products": {"ages": [40, 80], "saw": [0.2, 0.5], "pulp": [0.8, 0.6]}},
+         r"shares at age 80 add up to 1.1, not 1"),
+    ],
+)
+def test_curve_parameters_out_of_domain(tmp_path, species, match):
+    # Bad input of the growth issue: each named with its key and value.
+    raw = scenario_dict(tmp_path / "x.gpkg")
+    pine = raw["species"]["pine"]
+    if species.get("curve", "chapman-richards") != "chapman-richards":
+        for key in ("a", "k", "c"):
+            pine.pop(key)
+    pine.update({k: v for k, v in species.items() if v is not None})
+    for k, v in species.items():
+        if v is None:
+            pine.pop(k)
+    with pytest.raises(ScenarioError, match=match):
+        load_scenario(write_scenario(tmp_path / "s.toml", raw))
+
+
+def test_discount_rate_must_be_positive(tmp_path):
+    raw = scenario_dict(tmp_path / "x.gpkg", economics={"discount_rate": 0.0})
+    with pytest.raises(ScenarioError, match=r"\[economics\] discount_rate = 0.0: must be > 0"):
+        load_scenario(write_scenario(tmp_path / "s.toml", raw))
+
+
+def test_site_class_table_from_toml_and_csv(tmp_path):
+    raw = scenario_dict(tmp_path / "x.gpkg")
+    raw["species"]["pine"] = {"curve": "table", "ages": [20, 40, 60],
+                              "site_classes_m": [16.0, 22.0],
+                              "volumes_m3_ha": [[10, 60, 140], [30, 120, 240]],
+                              "min_harvest_age": 40}
+    scn = load_scenario(write_scenario(tmp_path / "a.toml", raw))
+    pine = scn.species["pine"]
+    assert pine.volumes_m3_ha == ((10, 60, 140), (30, 120, 240))
+    assert (pine.site_index_min_m, pine.site_index_max_m) == (16.0, 22.0)
+    (tmp_path / "t.csv").write_text("site_index_m,age_years,volume_m3_ha\n"
+                                    "16,20,10\n16,40,60\n16,60,140\n"
+                                    "22,20,30\n22,40,120\n22,60,240\n")
+    raw["species"]["pine"] = {"curve": "table", "table_csv": "t.csv", "min_harvest_age": 40}
+    from_csv = load_scenario(write_scenario(tmp_path / "b.toml", raw)).species["pine"]
+    assert from_csv.volumes_m3_ha == pine.volumes_m3_ha
+    assert from_csv.site_classes_m == (16.0, 22.0)
+
+
 def test_unknown_section_and_species_key(tmp_path):
     raw = scenario_dict(tmp_path / "x.gpkg")
     raw["flows"] = {"band": 0.1}

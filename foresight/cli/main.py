@@ -13,6 +13,8 @@ import traceback
 from collections.abc import Sequence
 
 from foresight.cli import check as check_cmd
+from foresight.cli import curves as curves_cmd
+from foresight.cli import fit as fit_cmd
 from foresight.cli import run as run_cmd
 from foresight.errors import InputError
 from foresight.versions import library_versions
@@ -53,7 +55,7 @@ def build_parser() -> argparse.ArgumentParser:
     common.add_argument("--strict", action="store_true",
                         help="reject invalid geometries instead of repairing them")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
-    for module in (run_cmd, check_cmd):
+    for module in (run_cmd, check_cmd, curves_cmd, fit_cmd):
         module.add_parser(sub, common)
     return parser
 

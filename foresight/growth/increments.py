@@ -47,31 +47,36 @@ def table_culmination(ages: ArrayLike, volumes: ArrayLike) -> Culmination:
 
 def culmination(volume: VolumeFn, cai: VolumeFn, max_age_years: float,
                 step_years: float = 0.5) -> Culmination:
-    """Age of maximum MAI of any curve: the root of CAI(t) - MAI(t) = 0.
+    """Age of maximum MAI of any curve: a root of CAI(t) - MAI(t) = 0 where it turns negative.
 
-    MAI is scanned on a grid up to ``max_age_years``; the first sign change of CAI - MAI from
-    + to - after the grid maximum's neighbourhood is then refined with Brent's method. If MAI is
-    still rising at ``max_age_years``, the result says it has not culminated.
+    CAI - MAI is scanned on a grid up to ``max_age_years``; every crossing from + to - is an
+    MAI maximum, refined with Brent's method, and the one with the largest MAI wins. Curves
+    with volume at age 0 (a logistic yield) have MAI falling from age 0 before their interior
+    maximum; that early fall is not a culmination. If MAI still rises at ``max_age_years``, or
+    never has an interior maximum, the result says it has not culminated.
     """
     t = np.arange(step_years, max_age_years + step_years / 2, step_years)
     m = mai(t, volume(t))
-    i = int(np.argmax(m))
-    if i == len(t) - 1:
+    d = cai(t) - m
+    crossings = np.flatnonzero((d[:-1] > 0) & (d[1:] <= 0))
+    if not len(crossings):
         return Culmination(float(t[-1]), float(m[-1]), culminated=False)
-    if m[i] <= 0:
-        return Culmination(float(t[i]), 0.0, culminated=False)
 
     def f(x: float) -> float:
         x_arr = np.asarray([x])
         return float(cai(x_arr)[0] - mai(x_arr, volume(x_arr))[0])
 
-    lo, hi = t[max(i - 1, 0)], t[i + 1]
-    flo, fhi = f(lo), f(hi)
-    if flo > 0 > fhi:
-        x = brentq(f, lo, hi, xtol=1e-10, rtol=1e-12)
-    else:  # a kink or flat top (a table curve): the grid maximum is the answer
-        x = float(t[i])
-    return Culmination(float(x), float(mai(np.asarray([x]), volume(np.asarray([x])))[0]), True)
+    best: tuple[float, float] | None = None
+    for j in crossings[:8]:  # a handful at most for any sensible curve
+        lo, hi = float(t[j]), float(t[j + 1])
+        x = brentq(f, lo, hi, xtol=1e-10, rtol=1e-12) if f(hi) < 0 else hi
+        value = float(mai(np.asarray([x]), volume(np.asarray([x])))[0])
+        if best is None or value > best[1]:
+            best = (x, value)
+    assert best is not None
+    if best[1] < m[-1] and d[-1] > 0:  # rising again at the end and higher there
+        return Culmination(float(t[-1]), float(m[-1]), culminated=False)
+    return Culmination(best[0], best[1], culminated=True)
 
 
 def chapman_richards_culmination_age(k: float, c: float) -> float:

@@ -64,7 +64,8 @@ class Trajectory:
         k, m = capacity, min_viable
         limit = k if initial > m else 0.0
         # fractions of the distance still to go, from 1 (start) to 1e-12 (at the limit)
-        u = np.geomspace(1.0, 1e-12, points)
+        u = np.unique(np.r_[np.linspace(1.0, 1e-2, points), np.geomspace(1e-2, 1e-12, points // 4)]
+                      )[::-1]
         s = limit + (initial - limit) * u
 
         def big_f(x: NDArray) -> NDArray:

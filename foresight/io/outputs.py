@@ -14,7 +14,7 @@ import json
 import os
 import shutil
 import tempfile
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
@@ -84,3 +84,14 @@ def sha256_file(path: Path) -> str:
         for block in iter(lambda: fh.read(1 << 20), b""):
             digest.update(block)
     return digest.hexdigest()
+
+
+def replace_file(path: Path, write: Callable[[Path], None]) -> None:
+    """Write one file through ``write(tmp_path)`` and move it over ``path`` only when done."""
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(f".partial.{path.name}")  # same suffix: writers pick formats by it
+    try:
+        write(tmp)
+        os.replace(tmp, path)
+    finally:
+        tmp.unlink(missing_ok=True)

@@ -9,6 +9,8 @@ import geopandas as gpd
 import numpy as np
 import pandas as pd
 
+from foresight.config import Scenario
+from foresight.growth.products import product_shares
 from foresight.projection import CurveSet, Periods, StandArrays
 from foresight.schedule import FlowResult
 
@@ -108,3 +110,29 @@ def stands_layer(flow: FlowResult, stands: gpd.GeoDataFrame, arrays: StandArrays
     geom_col = out.geometry.name
     cols = [c for c in out.columns if c != geom_col] + [geom_col]
     return out[cols]
+
+
+def wood_flow_by_product(flow: FlowResult, arrays: StandArrays, curves: CurveSet,
+                         scenario: Scenario) -> pd.DataFrame:
+    """Harvested volume per period, species and product (long form).
+
+    Each harvest event's volume is split by its species' product shares at the age it was
+    cut (:mod:`foresight.growth.products`); the products of a period add up to its harvest.
+    """
+    sim = flow.simulation
+    sp = arrays.species_idx[sim.event_stand] if len(sim.event_stand) else np.zeros(0, int)
+    parts = []
+    for i, code in enumerate(curves.codes):  # per species and product: a handful
+        mine = sp == i
+        shares = product_shares(scenario.species[code].products, sim.event_age_years[mine])
+        for product, share in shares.items():
+            parts.append(pd.DataFrame({
+                "period": sim.event_period[mine].astype(np.int64),
+                "species": code,
+                "product": product,
+                "volume_m3": sim.event_volume_m3[mine] * share,
+            }))
+    frame = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(
+        columns=["period", "species", "product", "volume_m3"])
+    out = frame.groupby(["period", "species", "product"], as_index=False)["volume_m3"].sum()
+    return out.sort_values(["period", "species", "product"], ignore_index=True)

@@ -22,7 +22,7 @@ from foresight.projection import CurveSet, Periods, StandArrays, growing_stock_m
 from foresight.schedule.priority import cut_order
 
 _REL = 1e-9  # relative tolerance on volume targets
-_MIN_PART_HA = 1e-6  # smaller partial cuts are not worth a split
+_MIN_PART_HA = 1e-9  # a smaller partial cut (<= ~1e-6 m3) is not worth a split
 
 
 @dataclass
@@ -71,7 +71,8 @@ def simulate(
     cap = np.inf if max_area_ha is None else float(max_area_ha)
     # parts: start as copies of the stand arrays; partial cuts append
     stand = np.arange(stands.n, dtype=np.int64)
-    sp, si = stands.species_idx.copy(), stands.site_index.copy()
+    sp = stands.species_idx.copy()
+    si = curves.site_terms(sp, stands.site_index)  # site terms, worked out once
     age, area = stands.age_years.copy(), stands.area_ha.copy()
     min_age, delay = stands.min_harvest_age.copy(), stands.regen_delay_years.copy()
     rank = stands.id_rank.copy()
@@ -96,7 +97,7 @@ def simulate(
             target, floor = min(level_m3, (1 + band) * h[p - 1]), (1 - band) * h[p - 1]
         age_h = age + off
         elig = np.flatnonzero((age_h >= min_age - 1e-9) & (area > 0))
-        vol_ha = curves.volume_m3_ha(sp[elig], age_h[elig], si[elig])
+        vol_ha = curves.volume_m3_ha(sp[elig], age_h[elig], terms=si.take(elig))
         keep = vol_ha > 0
         elig, vol_ha = elig[keep], vol_ha[keep]
 
@@ -152,7 +153,7 @@ def simulate(
         new_age[cut_full] = regrown[cut_full]
         if part >= 0:
             stand = np.r_[stand, stand[part]]
-            sp, si = np.r_[sp, sp[part]], np.r_[si, si[part]]
+            sp, si = np.r_[sp, sp[part]], si.append(part)
             min_age, delay = np.r_[min_age, min_age[part]], np.r_[delay, delay[part]]
             rank = np.r_[rank, rank[part]]
             new_age = np.r_[new_age, regrown[part]]

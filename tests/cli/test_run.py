@@ -30,7 +30,7 @@ def sample_run(tmp_path_factory):
 def test_sample_run_writes_the_three_outputs(sample_run):
     out, proc = sample_run
     assert sorted(p.name for p in out.iterdir()) == ["projection.gpkg", "run.json",
-                                                     "wood_flow.csv"]
+                                                     "wood_flow.csv", "wood_flow_by_product.csv"]
     assert "even-flow level" in proc.stdout and "limited by" in proc.stdout
     assert "planning estimates" in proc.stdout
     assert "project and schedule" in proc.stderr  # progress per stage on stderr
@@ -111,11 +111,27 @@ def test_docs_describe_every_output_column(sample_run):
     out, _ = sample_run
     text = (ROOT / "docs" / "outputs.md").read_text(encoding="utf-8")
     import re
-    for layer in ("stands", "harvests", "wood_flow"):
+    for layer in ("stands", "harvests", "wood_flow", "wood_flow_by_product"):
         cols = pyogrio.read_info(out / "projection.gpkg", layer=layer)["fields"]
         for col in cols:
             assert re.search(rf"^\| `{col}` \|", text, re.M), f"{layer}.{col}"
-    for col in pd.read_csv(out / "wood_flow.csv").columns:
-        assert re.search(rf"^\| `{col}` \|", text, re.M), f"wood_flow.csv {col}"
+    for name in ("wood_flow.csv", "wood_flow_by_product.csv"):
+        for col in pd.read_csv(out / name).columns:
+            assert re.search(rf"^\| `{col}` \|", text, re.M), f"{name} {col}"
     for key in json.loads((out / "run.json").read_text()):
         assert re.search(rf"^\| `{key}` \|", text, re.M), f"run.json {key}"
+
+
+def test_products_add_up_to_the_harvest(sample_run):
+    # The product split moves volume between products, never makes or loses it.
+    out, _ = sample_run
+    wf = pd.read_csv(out / "wood_flow.csv").set_index("period")
+    prod = pd.read_csv(out / "wood_flow_by_product.csv")
+    np.testing.assert_allclose(prod.groupby("period")["volume_m3"].sum(), wf["harvest_m3"],
+                               rtol=1e-9)
+    assert {"sawlog", "pulp", "unsplit"} <= set(prod["product"])
+    # spruce shares from the sample scenario: sawlog 0.45 at 70 years ... 0.70 at 140
+    spruce = prod[prod["species"] == "spruce"].pivot(index="period", columns="product",
+                                                     values="volume_m3")
+    share = spruce["sawlog"] / spruce.sum(axis=1)
+    assert ((share >= 0.10 - 1e-9) & (share <= 0.70 + 1e-9)).all()
