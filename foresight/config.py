@@ -85,6 +85,34 @@ KEYS: dict[str, dict[str, KeySpec]] = {
         "path": KeySpec("str", doc="Stand layer file, relative to the scenario file."),
         "layer": KeySpec("str", None, doc="Layer name; may be left out if the file has one."),
         "crs": KeySpec("str", None, doc="CRS of the layer (e.g. 'EPSG:32633'), only if it has none."),
+        "raster_wins": KeySpec("bool", False, "",
+                               "Raster values replace layer values (else they fill gaps)."),
+    },
+    "inventory.from_raster": {
+        "site_index": KeySpec("str", None, "m",
+                              "Raster of site index to fill stand values by zonal mean."),
+        "band": KeySpec("int", 1, "", "Band of the raster to read.", check=_positive),
+    },
+    "landbase": {
+        "steps": KeySpec("steps", (), "", "Netdown steps, applied in order."),
+        "write_harvestable_layer": KeySpec("bool", False, "",
+                                           "Also write the netted geometry as a layer."),
+    },
+    "landbase.steps": {
+        "label": KeySpec("str", doc="Name of the step in the netdown table."),
+        "where": KeySpec("str", None, doc="Attribute rule: stands matching it are removed."),
+        "layer": KeySpec("str", None, doc="Overlay vector file (polygons, or lines/points "
+                         "with a buffer)."),
+        "layer_name": KeySpec("str", None, doc="Layer inside the overlay file."),
+        "buffer_m": KeySpec("float", None, "m", "Buffer around every overlay feature.",
+                            check=_non_negative),
+        "buffer_by": KeySpec("table", None, "", "Buffer width by class: field and widths_m."),
+        "raster": KeySpec("str", None, doc="Raster mask file."),
+        "band": KeySpec("int", 1, "", "Band of the raster mask.", check=_positive),
+        "above": KeySpec("float", None, "raster units",
+                         "Remove the part of the stand where the raster exceeds this."),
+        "percent": KeySpec("float", None, "%", "Flat deduction of the remaining area.",
+                           check=lambda v: None if 0 <= v <= 100 else "must be in [0, 100]"),
     },
     "inventory.fields": {
         "stand_id": KeySpec("str", doc="Layer field holding a unique stand identifier."),
@@ -199,7 +227,9 @@ KEYS: dict[str, dict[str, KeySpec]] = {
     },
 }
 
-SECTIONS = ("scenario", "inventory", "species", "harvest", "flow", "economics", "growth")
+SECTIONS = ("scenario", "inventory", "species", "harvest", "flow", "economics", "growth",
+            "landbase")
+STEP_KINDS = ("where", "layer", "raster", "percent")
 _ALL_PARAMETERS = {k for keys in CURVE_PARAMETERS.values() for k in keys}
 _SITE_KEYS = {"site_index_ref_m", "site_exponent_a", "site_exponent_k"}
 _TABLE_KEYS = {"ages", "volumes_m3_ha", "table_csv", "site_classes_m"}
@@ -230,6 +260,34 @@ class InventoryConfig:
     layer: str | None
     crs: str | None
     fields: FieldMap
+    site_index_raster: Path | None = None
+    site_index_raster_band: int = 1
+    raster_wins: bool = False
+
+
+@dataclass(frozen=True)
+class NetdownStep:
+    """One land-base netdown step; ``kind`` is one of STEP_KINDS."""
+
+    number: int
+    label: str
+    kind: str
+    where: str | None = None
+    layer: Path | None = None
+    layer_name: str | None = None
+    buffer_m: float | None = None
+    buffer_field: str | None = None
+    buffer_widths_m: Mapping[str, float] | None = None
+    raster: Path | None = None
+    band: int = 1
+    above: float | None = None
+    percent: float | None = None
+
+
+@dataclass(frozen=True)
+class LandbaseConfig:
+    steps: tuple[NetdownStep, ...] = ()
+    write_harvestable_layer: bool = False
 
 
 @dataclass(frozen=True)
@@ -309,6 +367,7 @@ class Scenario:
     flow: FlowConfig = field(default_factory=FlowConfig)
     economics: EconomicsConfig = field(default_factory=EconomicsConfig)
     growth: GrowthConfig = field(default_factory=GrowthConfig)
+    landbase: LandbaseConfig = field(default_factory=LandbaseConfig)
     source: Path | None = None
     overrides: tuple[str, ...] = ()
 
@@ -408,15 +467,21 @@ def parse_scenario(
     info = ScenarioInfo(**_take(raw["scenario"], "scenario", where))
 
     inv_raw = _table(raw["inventory"], "inventory", where)
-    inv_vals = _take({k: v for k, v in inv_raw.items() if k != "fields"}, "inventory", where)
+    inv_vals = _take({k: v for k, v in inv_raw.items() if k not in ("fields", "from_raster")},
+                     "inventory", where)
     if "fields" not in inv_raw:
         raise ScenarioError(f"{where}: missing table [inventory.fields]")
     fields = FieldMap(**_take(inv_raw["fields"], "inventory.fields", where))
+    rasters = _take(inv_raw.get("from_raster", {}), "inventory.from_raster", where)
     inventory = InventoryConfig(
         path=(base_dir / inv_vals["path"]).resolve(),
         layer=inv_vals["layer"],
         crs=inv_vals["crs"],
         fields=fields,
+        site_index_raster=(base_dir / rasters["site_index"]).resolve()
+        if rasters["site_index"] else None,
+        site_index_raster_band=rasters["band"],
+        raster_wins=inv_vals["raster_wins"],
     )
 
     species_raw = _table(raw["species"], "species", where)
@@ -430,8 +495,71 @@ def parse_scenario(
         str(code): _species(code, tbl, base_dir, where, economics)
         for code, tbl in species_raw.items()
     }
-    return Scenario(info, inventory, species, harvest, flow, economics, growth, source,
-                    overrides)
+    landbase = _landbase(raw.get("landbase", {}), base_dir, where)
+    return Scenario(info, inventory, species, harvest, flow, economics, growth, landbase,
+                    source, overrides)
+
+
+def _landbase(raw: Any, base_dir: Path, where: str) -> LandbaseConfig:
+    vals = _take(raw, "landbase", where)
+    steps = []
+    for n, step_raw in enumerate(vals["steps"], start=1):
+        sect = f"landbase.steps #{n}"
+        if not isinstance(step_raw, dict):
+            raise ScenarioError(f"{where}: [[landbase.steps]] #{n} must be a table")
+        label = step_raw.get("label", f"#{n}")
+        sect = f"landbase.steps #{n} {label!r}"
+        v = _take(step_raw, "landbase.steps", where, shown=sect)
+        kinds = [k for k in STEP_KINDS if v[k] is not None]
+        if len(kinds) != 1:
+            raise ScenarioError(
+                f"{where}: [{sect}] needs exactly one of {', '.join(STEP_KINDS)}"
+                f" (found {', '.join(kinds) or 'none'})"
+            )
+        kind = kinds[0]
+        extra = {
+            "where": ("layer_name", "buffer_m", "buffer_by", "above"),
+            "layer": ("above",),
+            "raster": ("layer_name", "buffer_m", "buffer_by"),
+            "percent": ("layer_name", "buffer_m", "buffer_by", "above"),
+        }[kind]
+        stray = [k for k in extra if k in step_raw]
+        if stray:
+            raise ScenarioError(f"{where}: [{sect}] key {stray[0]!r} does not apply to a "
+                                f"{kind!r} step")
+        field_name = widths = None
+        if v["buffer_by"] is not None:
+            if v["buffer_m"] is not None:
+                raise ScenarioError(f"{where}: [{sect}] give buffer_m or buffer_by, not both")
+            field_name, widths = _buffer_by(v["buffer_by"], f"{where}: [{sect}] buffer_by")
+        if kind == "raster" and v["above"] is None:
+            raise ScenarioError(f"{where}: [{sect}] a raster step needs 'above'")
+        steps.append(NetdownStep(
+            number=n, label=str(v["label"]), kind=kind, where=v["where"],
+            layer=(base_dir / v["layer"]).resolve() if v["layer"] else None,
+            layer_name=v["layer_name"], buffer_m=v["buffer_m"], buffer_field=field_name,
+            buffer_widths_m=widths,
+            raster=(base_dir / v["raster"]).resolve() if v["raster"] else None,
+            band=v["band"], above=v["above"], percent=v["percent"],
+        ))
+    return LandbaseConfig(tuple(steps), vals["write_harvestable_layer"])
+
+
+def _buffer_by(raw: dict[str, Any], where: str) -> tuple[str, dict[str, float]]:
+    unknown = set(raw) - {"field", "widths_m"}
+    if unknown:
+        raise ScenarioError(f"{where}: unknown key {sorted(unknown)[0]!r}; it takes field and "
+                            "widths_m")
+    if not isinstance(raw.get("field"), str) or not isinstance(raw.get("widths_m"), dict):
+        raise ScenarioError(f"{where}: needs field = \"<name>\" and widths_m = {{ <class> = "
+                            "<metres>, ... }")
+    widths = {}
+    for cls, width in raw["widths_m"].items():
+        if isinstance(width, bool) or not isinstance(width, int | float) or width < 0:
+            raise ScenarioError(f"{where}: width for class {cls!r} = {width!r}: must be a "
+                                "number >= 0")
+        widths[str(cls)] = float(width)
+    return raw["field"], widths
 
 
 def _species(code: str, raw: Any, base_dir: Path, where: str,
@@ -630,7 +758,7 @@ def _take(raw: Any, spec_name: str, where: str, shown: str | None = None) -> dic
     sect = shown or spec_name
     raw = _table(raw, sect, where)
     spec = KEYS[spec_name]
-    extra = {"fields"} if spec_name == "inventory" else set()
+    extra = {"fields", "from_raster"} if spec_name == "inventory" else set()
     _reject_unknown({k: v for k, v in raw.items() if k not in extra}, list(spec), where, sect)
     out: dict[str, Any] = {}
     for key, ks in spec.items():
@@ -663,6 +791,10 @@ def _coerce(value: Any, ks: KeySpec, where: str) -> Any:
     elif ks.kind == "bool":
         if not isinstance(value, bool):
             raise ScenarioError(f"{where}: must be true or false")
+    elif ks.kind == "steps":
+        if not isinstance(value, list):
+            raise ScenarioError(f"{where}: must be an array of tables ([[landbase.steps]])")
+        value = tuple(value)
     elif ks.kind == "table":
         if not isinstance(value, dict):
             raise ScenarioError(f"{where}: must be a table")

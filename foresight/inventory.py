@@ -8,6 +8,7 @@ by the layer's other attributes. Nothing here opens a file.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import geopandas as gpd
@@ -61,13 +62,19 @@ class Inventory:
     report: CheckReport
 
 
+SiteFill = Callable[[np.ndarray, pyproj.CRS], np.ndarray]
+
+
 def prepare_inventory(
-    frame: gpd.GeoDataFrame, scenario: Scenario, where: str, strict: bool = False
+    frame: gpd.GeoDataFrame, scenario: Scenario, where: str, strict: bool = False,
+    site_fill: SiteFill | None = None,
 ) -> Inventory:
     """Check a stand layer against the scenario and build the standard stand table.
 
     ``where`` names the file and layer in messages. With ``strict`` an invalid geometry is an
     error; otherwise it is repaired with ``shapely.make_valid`` and counted in the report.
+    ``site_fill(geoms, crs)`` gives a raster site index per stand (NaN where it has none); it
+    fills missing values, or replaces all with ``inventory.raster_wins``.
     """
     fields = scenario.inventory.fields
     if len(frame) == 0:
@@ -140,7 +147,20 @@ def prepare_inventory(
         )
 
     si = _numeric(frame[fields.site_index], fields.site_index, row, ids, where)
-    _fail_rows(np.isnan(si), row, ids, where, f"field {fields.site_index!r}: null site index")
+    source = np.full(len(si), "layer", dtype=object)
+    hint = ""
+    if site_fill is not None:
+        raster_si = site_fill(geoms, crs)
+        use = np.isfinite(raster_si) & (scenario.inventory.raster_wins | np.isnan(si))
+        si = np.where(use, raster_si, si)
+        source[use] = "raster"
+        source[np.isnan(si)] = "none"
+        hint = " and no site index raster value"
+        how = "raster wins" if scenario.inventory.raster_wins else "gaps filled"
+        notes.append(f"site index from {scenario.inventory.site_index_raster}: "
+                     f"{int(use.sum())} stands ({how})")
+    _fail_rows(np.isnan(si), row, ids, where,
+               f"field {fields.site_index!r}: null site index{hint}")
     _fail_rows(si <= 0, row, ids, where, f"field {fields.site_index!r}: site index must be > 0",
                values=si)
     for code, cfg in scenario.species.items():
@@ -166,6 +186,7 @@ def prepare_inventory(
         "age_years": age,
         "zone": zone.to_numpy(dtype=object),
         "area_ha": area_ha,
+        "site_index_source": source,
     })
     others = [c for c in have if c not in mapping.values()]
     for col in others:

@@ -19,11 +19,15 @@ from pathlib import Path
 import geopandas as gpd
 import numpy as np
 import pandas as pd
+import pyproj
+import shapely
 
-from foresight.config import Scenario
-from foresight.errors import OutputError
+from foresight.config import NetdownStep, Scenario
+from foresight.errors import InputError, OutputError
 from foresight.growth import curve_from_config
-from foresight.inventory import Inventory, prepare_inventory
+from foresight.inventory import CheckReport, prepare_inventory
+from foresight.io.rasters import RasterData, raster_crs, read_window
+from foresight.landbase import Netdown, NetdownError, apply_netdown
 from foresight.io.outputs import (
     check_output_dir,
     replace_file,
@@ -44,17 +48,20 @@ from foresight.reporting.curves import notes as curve_notes
 from foresight.reporting.figures import curve_figure
 from foresight.schedule import FlowResult, find_even_flow
 from foresight.versions import library_versions
+from foresight.zonal import zonal
 
 log = logging.getLogger("foresight")
 
 GPKG_NAME = "projection.gpkg"
 WOOD_FLOW_CSV = "wood_flow.csv"
 PRODUCTS_CSV = "wood_flow_by_product.csv"
+NETDOWN_CSV = "netdown.csv"
 RUN_JSON = "run.json"
 CURVES_CSV = "curves.csv"
 FIGURES_DIR = "figures"
 # every entry foresight writes into an output directory (run, curves)
-MANAGED = frozenset({GPKG_NAME, WOOD_FLOW_CSV, PRODUCTS_CSV, RUN_JSON, CURVES_CSV, FIGURES_DIR})
+MANAGED = frozenset({GPKG_NAME, WOOD_FLOW_CSV, PRODUCTS_CSV, NETDOWN_CSV, RUN_JSON, CURVES_CSV,
+                     FIGURES_DIR})
 
 
 @dataclass
@@ -62,13 +69,14 @@ class RunResult:
     """What a run produced: the tables in memory and where the files went."""
 
     out_dir: Path | None
-    inventory: Inventory
+    inventory: CheckResult
     flow: FlowResult
     wood_flow: pd.DataFrame
     stands: gpd.GeoDataFrame
     harvests: gpd.GeoDataFrame
     products: pd.DataFrame
     timings_s: dict[str, float] = field(default_factory=dict)
+    write_harvestable_layer: bool = False
 
     @property
     def level_m3_per_year(self) -> float:
@@ -88,11 +96,113 @@ class _Timer:
         log.info("%s done in %.2f s", name, self.timings[name])
 
 
-def check(scenario: Scenario, strict: bool = False) -> Inventory:
-    """Read the stand layer and run every inventory check; nothing is projected or written."""
+@dataclass(frozen=True)
+class CheckResult:
+    """A checked inventory with its land base: stands (with netdown columns), report, netdown."""
+
+    stands: gpd.GeoDataFrame
+    report: CheckReport
+    netdown: Netdown
+
+    def summary(self) -> str:
+        lines = [self.report.summary(), "land base netdown (ha):"]
+        for row in self.netdown.table.itertuples(index=False):
+            step = "" if pd.isna(row.step) else f"{row.step:>2}"
+            removed = "" if pd.isna(row.removed_ha) else f"{row.removed_ha:>12,.1f}"
+            lines.append(f"  {step:>2} {row.label:<30} {removed:>12} {row.percent_of_gross:>6.1f}%"
+                         f" {row.remaining_ha:>12,.1f}")
+        lines += [f"note: {n}" for n in self.netdown.notes]
+        return "\n".join(lines)
+
+
+def check(scenario: Scenario, strict: bool = False) -> CheckResult:
+    """Read the stand layer, run every inventory check and the land base netdown.
+
+    Nothing is projected or written.
+    """
     cfg = scenario.inventory
     frame, layer = read_layer(cfg.path, cfg.layer)
-    return prepare_inventory(frame, scenario, where=f"{cfg.path}, layer {layer!r}", strict=strict)
+    fill = None
+    if cfg.site_index_raster is not None:
+        def fill(geoms: np.ndarray, crs: pyproj.CRS) -> np.ndarray:
+            return _raster_site_index(cfg.site_index_raster, cfg.site_index_raster_band,
+                                      geoms, crs)
+    inventory = prepare_inventory(frame, scenario, where=f"{cfg.path}, layer {layer!r}",
+                                  strict=strict, site_fill=fill)
+    stands = inventory.stands
+    netdown = apply_netdown(stands, scenario.landbase.steps, _where_fields(stands, scenario),
+                            _read_overlay, _read_raster)
+    for note in netdown.notes:
+        log.warning("%s", note)
+    stands = stands.copy()
+    geom = stands.geometry.name
+    extra = {"gross_ha": netdown.gross_ha}
+    for step, removed in zip(scenario.landbase.steps, netdown.removed_ha, strict=True):
+        extra[f"removed_step{step.number}_ha"] = removed
+    extra["harvestable_ha"] = netdown.harvestable_ha
+    at = list(stands.columns).index("area_ha") + 1
+    for offset, (name, values) in enumerate(extra.items()):
+        stands.insert(at + offset, name, values)
+    stands = stands[[c for c in stands.columns if c != geom] + [geom]]
+    return CheckResult(stands, inventory.report, netdown)
+
+
+def _where_fields(stands: gpd.GeoDataFrame, scenario: Scenario) -> dict[str, pd.Series]:
+    """Fields a netdown rule may name: ours, the layer's names for them, and the others."""
+    fields = {c: stands[c] for c in stands.columns if c != stands.geometry.name}
+    f = scenario.inventory.fields
+    for ours, theirs in (("stand_id", f.stand_id), ("species", f.species),
+                         ("site_index", f.site_index), ("age_years", f.age), ("zone", f.zone)):
+        if theirs is not None and theirs not in fields:
+            fields[theirs] = stands[ours]
+    return fields
+
+
+def _read_overlay(step: NetdownStep, crs: pyproj.CRS) -> gpd.GeoDataFrame:
+    assert step.layer is not None
+    where = f"[[landbase.steps]] #{step.number} {step.label!r}"
+    try:
+        frame, layer = read_layer(step.layer, step.layer_name)
+    except InputError as exc:
+        raise NetdownError(f"{where}: {exc}") from None
+    if frame.crs is None:
+        raise NetdownError(f"{where}: {step.layer}, layer {layer!r}: the layer has no CRS")
+    frame = frame[~(frame.geometry.is_empty | frame.geometry.isna())]
+    return frame.to_crs(crs)
+
+
+def _read_raster(step: NetdownStep, geoms: np.ndarray, crs: pyproj.CRS
+                 ) -> tuple[RasterData | None, np.ndarray]:
+    assert step.raster is not None
+    where = f"[[landbase.steps]] #{step.number} {step.label!r}"
+    return _raster_over(step.raster, step.band, geoms, crs, where)
+
+
+def _raster_over(path: Path, band: int, geoms: np.ndarray, crs: pyproj.CRS, what: str
+                 ) -> tuple[RasterData | None, np.ndarray]:
+    """The raster window over the geometries, and the geometries in the raster's CRS."""
+    rcrs = raster_crs(path, what)
+    in_r = geoms if rcrs == crs else gpd.GeoSeries(geoms, crs=crs).to_crs(rcrs).to_numpy()
+    live = in_r[~(shapely.is_empty(in_r) | shapely.is_missing(in_r))]
+    if not len(live):
+        return None, in_r
+    return read_window(path, tuple(shapely.total_bounds(live)), band, what), in_r
+
+
+def _raster_site_index(path: Path, band: int, geoms: np.ndarray, crs: pyproj.CRS
+                       ) -> np.ndarray:
+    what = "inventory.from_raster.site_index"
+    raster, in_r = _raster_over(path, band, geoms, crs, what)
+    if raster is None:
+        raise InputError(f"{path}: {what}: the raster does not overlap the stands")
+    z = zonal(in_r, raster)
+    if not z.covered.any():
+        raise InputError(f"{path}: {what}: the raster holds no data over the stands")
+    missing = int((~z.covered).sum())
+    if missing:
+        log.warning("%s: %s: %d stands are not covered (outside it or nodata)", path, what,
+                    missing)
+    return z.mean
 
 
 def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) -> RunResult:
@@ -125,7 +235,7 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
         harvests = harvests_layer(flow, inventory.stands, periods)
         products = wood_flow_by_product(flow, arrays, curves, scenario)
     result = RunResult(out, inventory, flow, wood_flow, stands, harvests, products,
-                       timer.timings)
+                       timer.timings, scenario.landbase.write_harvestable_layer)
     if out is not None:
         with staged_output(out, MANAGED) as tmp:
             with timer.stage("write outputs"):
@@ -141,8 +251,12 @@ def write_tables(result: RunResult, directory: Path) -> None:
     write_gpkg_layer(gpkg, result.harvests, "harvests")
     write_gpkg_layer(gpkg, result.wood_flow, "wood_flow", spatial=False)
     write_gpkg_layer(gpkg, result.products, "wood_flow_by_product", spatial=False)
+    write_gpkg_layer(gpkg, result.inventory.netdown.table, "netdown", spatial=False)
+    if result.write_harvestable_layer:
+        write_gpkg_layer(gpkg, harvestable_layer(result.inventory), "harvestable")
     result.wood_flow.to_csv(directory / WOOD_FLOW_CSV, index=False)
     result.products.to_csv(directory / PRODUCTS_CSV, index=False)
+    result.inventory.netdown.table.to_csv(directory / NETDOWN_CSV, index=False)
 
 
 def write_outputs(result: RunResult, scenario: Scenario, directory: Path) -> None:
@@ -160,6 +274,10 @@ def run_record(result: RunResult, scenario: Scenario) -> dict:
     for sp in scenario.species.values():
         if sp.table_csv is not None:
             inputs[str(sp.table_csv)] = sha256_file(sp.table_csv)
+    for path in [scenario.inventory.site_index_raster] + [
+            p for st in scenario.landbase.steps for p in (st.layer, st.raster)]:
+        if path is not None:
+            inputs[str(path)] = sha256_file(path)
     flow = result.flow
     return {
         "foresight_version": library_versions()["foresight"],
@@ -173,6 +291,7 @@ def run_record(result: RunResult, scenario: Scenario) -> dict:
             "crs": result.inventory.report.crs,
             "area_method": result.inventory.report.area_method,
             "repaired_geometries": result.inventory.report.repaired_geometries,
+            "harvestable_ha": float(result.inventory.netdown.harvestable_ha.sum()),
         },
         "flow": {
             "policy": scenario.flow.policy,
@@ -233,3 +352,16 @@ def _figure_age(summary, max_age: float) -> float:
         marks.append(summary.fisher.age_years)
     finite = [m for m in marks if np.isfinite(m)]
     return float(min(max_age, max(100.0, 2.0 * max(finite)))) if finite else max_age
+
+
+def harvestable_layer(checked: CheckResult) -> gpd.GeoDataFrame:
+    """The netted geometry of each stand's harvestable part (vector steps cut it; raster and
+    percent steps only reduce ``harvestable_ha``)."""
+    s = checked.stands
+    keep = checked.netdown.harvestable_ha > 0
+    frame = pd.DataFrame({"stand_id": s["stand_id"].to_numpy()[keep],
+                          "species": s["species"].to_numpy()[keep],
+                          "gross_ha": checked.netdown.gross_ha[keep],
+                          "harvestable_ha": checked.netdown.harvestable_ha[keep]})
+    geom = checked.netdown.remaining_geometry[keep]
+    return gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geom, crs=s.crs).values, crs=s.crs)

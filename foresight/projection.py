@@ -197,6 +197,7 @@ class StandArrays:
     min_harvest_age: NDArray[np.float64]
     regen_delay_years: NDArray[np.float64]
     id_rank: NDArray[np.int64]  # rank of the stand id, the tie-breaker of every priority rule
+    harvestable_ha: NDArray[np.float64] | None = None  # None: all of area_ha may be cut
 
     @property
     def n(self) -> int:
@@ -227,6 +228,8 @@ class StandArrays:
             min_harvest_age=min_age,
             regen_delay_years=delay[idx].astype(np.float64),
             id_rank=rank,
+            harvestable_ha=(stands["harvestable_ha"].to_numpy(dtype=np.float64)
+                            if "harvestable_ha" in stands else None),
         )
 
 

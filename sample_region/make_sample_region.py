@@ -284,6 +284,26 @@ def make_stands(rng: np.random.Generator, outline: shapely.Polygon) -> gpd.GeoDa
 # ---------------------------------------------------------------------------
 
 
+def zone_relief(rng: np.random.Generator):
+    """The broad shape of the land, in units of about 1 per 10 km of tilt.
+
+    A tilt in a random direction plus hills; returns ``f(x, y)``. These are
+    the first draws of the attribute stream: ``assign_attributes`` cuts the
+    zones from it, and ``make_terrain`` replays them (from a fresh generator
+    of the same stream) so the terrain's low ground is the lakeshore zone and
+    its high ground the highland.
+    """
+    tilt = rng.uniform(0.0, 2.0 * np.pi)
+    hills = smooth_field(rng, (8_000.0, 25_000.0))
+
+    def relief(x, y):
+        return (
+            (x - CENTRE[0]) * np.cos(tilt) + (y - CENTRE[1]) * np.sin(tilt)
+        ) / 10_000.0 + 0.8 * hills(x, y)
+
+    return relief
+
+
 def assign_attributes(rng: np.random.Generator, stands: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
     """Add STAND_NO, SPP, SI_M, AGE and ZONE from smooth random fields
     evaluated at the stand centroids, plus a little per-stand noise."""
@@ -299,10 +319,7 @@ def assign_attributes(rng: np.random.Generator, stands: gpd.GeoDataFrame) -> gpd
     x, y, area = x[order], y[order], area[order]
 
     # Zones by a smooth "elevation": a broad tilt plus hills.
-    tilt = rng.uniform(0.0, 2.0 * np.pi)
-    elevation = (
-        (x - CENTRE[0]) * np.cos(tilt) + (y - CENTRE[1]) * np.sin(tilt)
-    ) / 10_000.0 + 0.8 * smooth_field(rng, (8_000.0, 25_000.0))(x, y)
+    elevation = zone_relief(rng)(x, y)
     zone_labels = [z for z, _ in ZONE_SHARES]
     zone = classes_by_area(elevation, area, zone_labels, [s for _, s in ZONE_SHARES])
 

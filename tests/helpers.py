@@ -67,7 +67,10 @@ def scenario_dict(inventory: Path, **sections: dict[str, Any]) -> dict[str, Any]
 
 
 def dump_toml(raw: dict[str, Any]) -> str:
-    """Enough TOML for test scenarios: nested tables of scalars and arrays."""
+    """Enough TOML for test scenarios: tables, arrays, arrays of tables, inline tables."""
+
+    def key(k: str) -> str:
+        return k if k.replace("_", "").replace("-", "").isalnum() else value(k)
 
     def value(v: Any) -> str:
         if isinstance(v, bool):
@@ -76,18 +79,29 @@ def dump_toml(raw: dict[str, Any]) -> str:
             return '"' + v.replace("\\", "\\\\").replace('"', '\\"') + '"'
         if isinstance(v, list | tuple):
             return "[" + ", ".join(value(x) for x in v) + "]"
+        if isinstance(v, dict):
+            return "{ " + ", ".join(f"{key(k)} = {value(x)}" for k, x in v.items()) + " }"
         return repr(v)
+
+    def is_table_array(v: Any) -> bool:
+        return isinstance(v, list) and bool(v) and all(isinstance(x, dict) for x in v)
 
     lines: list[str] = []
 
     def table(prefix: str, tbl: dict[str, Any]) -> None:
-        scalars = {k: v for k, v in tbl.items() if not isinstance(v, dict)}
         if prefix:
             lines.append(f"[{prefix}]")
-        lines.extend(f"{k} = {value(v)}" for k, v in scalars.items())
         for k, v in tbl.items():
+            if not isinstance(v, dict) and not is_table_array(v):
+                lines.append(f"{key(k)} = {value(v)}")
+        for k, v in tbl.items():
+            path = f"{prefix}.{k}" if prefix else k
             if isinstance(v, dict):
-                table(f"{prefix}.{k}" if prefix else k, v)
+                table(path, v)
+            elif is_table_array(v):
+                for item in v:
+                    lines.append(f"[[{path}]]")
+                    lines.extend(f"{key(a)} = {value(b)}" for a, b in item.items())
 
     table("", raw)
     return "\n".join(lines) + "\n"

@@ -17,7 +17,7 @@ def add_parser(sub, common: argparse.ArgumentParser) -> None:  # noqa: ANN001
 
 def handle(args: argparse.Namespace) -> int:
     scenario = foresight.load_scenario(args.scenario, overrides=args.overrides)
-    inventory = foresight.check(scenario, strict=args.strict)
+    checked = foresight.check(scenario, strict=args.strict)
     print(f"scenario {scenario.scenario.name!r}: checks passed")
-    print(inventory.report.summary())
+    print(checked.summary())
     return 0

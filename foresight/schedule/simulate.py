@@ -2,8 +2,9 @@
 
 State is a set of stand *parts*: each starts as a whole stand; cutting part of a stand's area
 (the last stand taken in a period, to hit the volume target exactly) splits it into the uncut
-remainder and a regenerating part. Everything inside a period is a numpy operation over all
-parts; the only Python loop runs over periods.
+remainder and a regenerating part. Area outside the harvestable land base starts as a part of
+its own that grows but is never eligible. Everything inside a period is a numpy operation over
+all parts; the only Python loop runs over periods.
 
 Each period p has a target T_p and a floor F_p given by the flow level H and band b:
 T_1 = F_1 = H, and for later periods T_p = min(H, (1 + b) h_{p-1}), F_p = (1 - b) h_{p-1},
@@ -71,11 +72,20 @@ def simulate(
     cap = np.inf if max_area_ha is None else float(max_area_ha)
     # parts: start as copies of the stand arrays; partial cuts append
     stand = np.arange(stands.n, dtype=np.int64)
-    sp = stands.species_idx.copy()
-    si = curves.site_terms(sp, stands.site_index)  # site terms, worked out once
-    age, area = stands.age_years.copy(), stands.area_ha.copy()
-    min_age, delay = stands.min_harvest_age.copy(), stands.regen_delay_years.copy()
-    rank = stands.id_rank.copy()
+    area = stands.area_ha.copy()
+    min_age = stands.min_harvest_age.copy()
+    if stands.harvestable_ha is not None:
+        # area outside the harvestable land base is its own part that grows and is never cut
+        reserved = np.flatnonzero(stands.area_ha - stands.harvestable_ha > 1e-9)
+        area = np.minimum(stands.harvestable_ha, stands.area_ha)
+        stand = np.r_[stand, reserved]
+        area = np.r_[area, stands.area_ha[reserved] - area[reserved]]
+        min_age = np.r_[min_age, np.full(len(reserved), np.inf)]
+    sp = stands.species_idx[stand]
+    si = curves.site_terms(sp, stands.site_index[stand])  # site terms, worked out once
+    age = stands.age_years[stand]
+    delay = stands.regen_delay_years[stand]
+    rank = stands.id_rank[stand]
 
     sim = Simulation(level_m3=level_m3, feasible=True)
     sim.initial_stock_m3 = growing_stock_m3(curves, sp, age, si, area)

@@ -27,10 +27,11 @@ def sample_run(tmp_path_factory):
     return out, proc
 
 
-def test_sample_run_writes_the_three_outputs(sample_run):
+def test_sample_run_writes_its_outputs(sample_run):
     out, proc = sample_run
-    assert sorted(p.name for p in out.iterdir()) == ["projection.gpkg", "run.json",
-                                                     "wood_flow.csv", "wood_flow_by_product.csv"]
+    assert sorted(p.name for p in out.iterdir()) == ["netdown.csv", "projection.gpkg",
+                                                     "run.json", "wood_flow.csv",
+                                                     "wood_flow_by_product.csv"]
     assert "even-flow level" in proc.stdout and "limited by" in proc.stdout
     assert "planning estimates" in proc.stdout
     assert "project and schedule" in proc.stderr  # progress per stage on stderr
@@ -111,11 +112,12 @@ def test_docs_describe_every_output_column(sample_run):
     out, _ = sample_run
     text = (ROOT / "docs" / "outputs.md").read_text(encoding="utf-8")
     import re
-    for layer in ("stands", "harvests", "wood_flow", "wood_flow_by_product"):
+    for layer in ("stands", "harvests", "wood_flow", "wood_flow_by_product", "netdown"):
         cols = pyogrio.read_info(out / "projection.gpkg", layer=layer)["fields"]
         for col in cols:
-            assert re.search(rf"^\| `{col}` \|", text, re.M), f"{layer}.{col}"
-    for name in ("wood_flow.csv", "wood_flow_by_product.csv"):
+            col = re.sub(r"^removed_step\d+_ha$", "removed_step<N>_ha", col)
+            assert re.search(rf"^\| `{re.escape(col)}` \|", text, re.M), f"{layer}.{col}"
+    for name in ("wood_flow.csv", "wood_flow_by_product.csv", "netdown.csv"):
         for col in pd.read_csv(out / name).columns:
             assert re.search(rf"^\| `{col}` \|", text, re.M), f"{name} {col}"
     for key in json.loads((out / "run.json").read_text()):

@@ -62,7 +62,7 @@ def test_geopackage_core_requirements(run_dir):
 def test_layers_read_back_with_pyogrio(run_dir):
     gpkg = run_dir / "projection.gpkg"
     layers = dict(pyogrio.list_layers(gpkg))
-    assert set(layers) == {"stands", "harvests", "wood_flow", "wood_flow_by_product"}
+    assert set(layers) == {"stands", "harvests", "wood_flow", "wood_flow_by_product", "netdown"}
     stands = pyogrio.read_dataframe(gpkg, layer="stands")
     assert CRS.from_user_input(stands.crs).to_epsg() == 32633
     for col in ("stand_id", "species", "site_index", "age_years", "zone", "area_ha",

@@ -1,0 +1,64 @@
+"""Raster input through rasterio: read the window of a band that covers given bounds."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pyproj
+import rasterio
+import rasterio.windows
+from affine import Affine
+from rasterio.errors import RasterioIOError
+
+from foresight.errors import InputError
+
+
+@dataclass(frozen=True)
+class RasterData:
+    """One band over a window: values as float64 with nodata as NaN, its grid and CRS."""
+
+    path: Path
+    values: np.ndarray
+    transform: Affine
+    crs: pyproj.CRS
+    full_bounds: tuple[float, float, float, float]  # of the whole file, in its CRS
+
+    @property
+    def cell_area(self) -> float:
+        return abs(self.transform.a * self.transform.e - self.transform.b * self.transform.d)
+
+
+def raster_crs(path: Path, what: str) -> pyproj.CRS:
+    """The CRS of a raster file; a raster without one is an input error."""
+    try:
+        with rasterio.open(path) as src:
+            crs = src.crs
+    except RasterioIOError:
+        raise InputError(f"{path}: {what}: raster not found or not readable") from None
+    if crs is None:
+        raise InputError(f"{path}: {what}: the raster has no CRS; assign one (e.g. with "
+                         "gdal_edit.py -a_srs) so it can be placed over the stands")
+    return pyproj.CRS.from_user_input(crs.to_wkt())
+
+
+def read_window(path: Path, bounds: tuple[float, float, float, float], band: int,
+                what: str) -> RasterData | None:
+    """Read ``band`` over ``bounds`` (in the raster's CRS); None if they do not overlap."""
+    crs = raster_crs(path, what)
+    with rasterio.open(path) as src:
+        if not 1 <= band <= src.count:
+            raise InputError(f"{path}: {what}: band {band} asked for, the raster has "
+                             f"{src.count}")
+        full = tuple(src.bounds)
+        x0, y0, x1, y1 = bounds
+        if x1 <= full[0] or x0 >= full[2] or y1 <= full[1] or y0 >= full[3]:
+            return None
+        win = rasterio.windows.from_bounds(max(x0, full[0]), max(y0, full[1]),
+                                           min(x1, full[2]), min(y1, full[3]), src.transform)
+        win = win.round_offsets(op="floor").round_lengths(op="ceil")
+        win = win.intersection(rasterio.windows.Window(0, 0, src.width, src.height))
+        data = src.read(band, window=win, masked=True)
+        values = np.ma.filled(data.astype(np.float64), np.nan)
+        return RasterData(path, values, src.window_transform(win), crs, full)  # type: ignore
