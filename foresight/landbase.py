@@ -296,6 +296,8 @@ def apply_netdown(stands: gpd.GeoDataFrame, steps: tuple[NetdownStep, ...],
             state.area_ha[hit] *= 1.0 - share
             state.geom = left
             state.geom_area = shapely.area(left)
+            gone = hit[state.geom_area[hit] <= 1e-12 * np.maximum(cut_area, 1e-300)]
+            state.area_ha[gone] = 0.0  # wholly inside the overlay: no rounding residue
             if not len(hit):
                 notes.append(f"{where}: the layer touches no stand; nothing removed")
         elif step.kind == "raster":

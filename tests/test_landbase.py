@@ -264,3 +264,17 @@ def test_site_index_raster_fills_gaps_or_wins(tmp_path):
     raw["inventory"]["raster_wins"] = True
     scn = foresight.load_scenario(write_scenario(tmp_path / "b.toml", raw))
     assert foresight.check(scn).stands["site_index"].tolist() == [25.0] * 4
+
+
+def test_stand_wholly_inside_a_reserve_leaves_nothing(tmp_path, caplog):
+    stands = list(squares(2, side_m=100.0))
+    write_raster(tmp_path / "slope.tif", np.zeros((20, 40)), x0=X0 - 50, y0=Y0 + 150)
+    reserve = shapely.box(X0 - 10, Y0 - 10, X0 + 100, Y0 + 110)  # covers stand 1 entirely
+    scn = layer_case(tmp_path, stands, [
+        {"label": "reserves", "layer": "stands.gpkg", "layer_name": "reserves"},
+        {"label": "steep", "raster": "slope.tif", "above": 40},
+    ], extra_layers=[("reserves", lines([reserve], RID=[1]))])
+    with caplog.at_level("WARNING", logger="foresight"):
+        res = foresight.check(scn)
+    assert res.netdown.harvestable_ha.tolist() == [0.0, 1.0]
+    assert "not covered" not in caplog.text

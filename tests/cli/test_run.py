@@ -62,7 +62,8 @@ def test_run_json_records_provenance(sample_run):
     assert rec["foresight_version"]
     assert rec["scenario"]["scenario"]["name"] == "Norrowmere base case"
     assert rec["scenario"]["species"]["aspen"]["curve"] == "table"
-    assert len(rec["inputs_sha256"]) == 3  # scenario, stand layer, the aspen CSV
+    # scenario, stand layer (also the overlay layers' file), the aspen CSV, two rasters
+    assert len(rec["inputs_sha256"]) == 5
     assert all(len(v) == 64 for v in rec["inputs_sha256"].values())
     assert set(rec["timings_s"]) >= {"read and check inventory", "project and schedule"}
     assert rec["flow"]["level_m3_per_year"] > 0 and rec["flow"]["binding"]
@@ -72,7 +73,8 @@ def test_stands_layer_covers_the_sample(sample_run):
     out, _ = sample_run
     stands = pyogrio.read_dataframe(out / "projection.gpkg", layer="stands",
                                     read_geometry=False)
-    src = pyogrio.read_dataframe(SCENARIO.parent / "norrowmere.gpkg", read_geometry=False)
+    src = pyogrio.read_dataframe(SCENARIO.parent / "norrowmere.gpkg", layer="stands",
+                                 read_geometry=False)
     assert len(stands) == len(src)
     assert set(stands["stand_id"]) == set(src["STAND_NO"])
     # no harvest event takes more than the stand's area
@@ -112,8 +114,10 @@ def test_docs_describe_every_output_column(sample_run):
     out, _ = sample_run
     text = (ROOT / "docs" / "outputs.md").read_text(encoding="utf-8")
     import re
+    inputs = set(pyogrio.read_info(SCENARIO.parent / "norrowmere.gpkg", layer="stands")["fields"])
     for layer in ("stands", "harvests", "wood_flow", "wood_flow_by_product", "netdown"):
         cols = pyogrio.read_info(out / "projection.gpkg", layer=layer)["fields"]
+        cols = [c for c in cols if c not in inputs]  # the layer's own attributes, carried
         for col in cols:
             col = re.sub(r"^removed_step\d+_ha$", "removed_step<N>_ha", col)
             assert re.search(rf"^\| `{re.escape(col)}` \|", text, re.M), f"{layer}.{col}"
@@ -137,3 +141,26 @@ def test_products_add_up_to_the_harvest(sample_run):
                                                      values="volume_m3")
     share = spruce["sawlog"] / spruce.sum(axis=1)
     assert ((share >= 0.10 - 1e-9) & (share <= 0.70 + 1e-9)).all()
+
+
+def test_sample_netdown_is_consistent_with_the_stands(sample_run):
+    # Netdown arithmetic read back from the written files: the table's removals are the sums
+    # of the stands' removal columns, gross = removals + harvestable for every stand, and no
+    # stand is cut beyond its harvestable area in any period.
+    out, _ = sample_run
+    nd = pd.read_csv(out / "netdown.csv")
+    stands = pyogrio.read_dataframe(out / "projection.gpkg", layer="stands", read_geometry=False)
+    steps = nd[nd["kind"] != "harvestable"]
+    for row in steps.itertuples():
+        assert stands[f"removed_step{int(row.step)}_ha"].sum() == pytest.approx(row.removed_ha)
+    removed = stands[[f"removed_step{int(s)}_ha" for s in steps["step"]]].sum(axis=1)
+    np.testing.assert_allclose(stands["gross_ha"], removed + stands["harvestable_ha"],
+                               rtol=1e-9)
+    share = nd["remaining_ha"].iloc[-1] / stands["gross_ha"].sum()
+    assert 0.6 < share < 0.85  # a realistic netdown for the sample (common practice: 10-80%)
+    harvests = pyogrio.read_dataframe(out / "projection.gpkg", layer="harvests",
+                                      read_geometry=False)
+    cut = harvests.groupby(["stand_id", "period"])["area_ha"].sum().reset_index()
+    limit = stands.set_index("stand_id")["harvestable_ha"].loc[cut["stand_id"]].to_numpy()
+    assert (cut["area_ha"].to_numpy() <= limit * (1 + 1e-9)).all()
+    assert (stands["site_index_source"] == "raster").sum() > 0  # gaps filled from the raster
