@@ -66,7 +66,10 @@ def build(tmp: Path, n: int, segments: int, cells: int) -> tuple[Path, Path, Pat
 
 
 def main() -> None:
+    import tomllib
+
     import foresight
+    from foresight.config import apply_override, parse_scenario
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--stands", type=int, default=100_000)
@@ -89,8 +92,14 @@ def main() -> None:
         toml_steps = "[" + ", ".join(
             "{" + ", ".join(f"{k} = {json.dumps(v) if not isinstance(v, dict) else _inline(v)}"
                             for k, v in s.items()) + "}" for s in steps) + "]"
-        scn0 = foresight.load_scenario(SCENARIO, overrides=[*base, "landbase.steps=[]"])
-        scn1 = foresight.load_scenario(SCENARIO, overrides=[*base, f"landbase.steps={toml_steps}"])
+        raw = tomllib.loads(SCENARIO.read_text())
+        raw["inventory"].pop("from_raster", None)  # the sample's rasters cover the sample only
+        raw["landbase"] = {"steps": []}
+        for item in base:
+            apply_override(raw, item)
+        scn0 = parse_scenario(raw, base_dir=SCENARIO.parent)
+        apply_override(raw, f"landbase.steps={toml_steps}")
+        scn1 = parse_scenario(raw, base_dir=SCENARIO.parent)
         t0 = time.perf_counter()
         foresight.check(scn0)
         t_plain = time.perf_counter() - t0

@@ -35,7 +35,7 @@ CURVES = tuple(CURVE_PARAMETERS)
 COMPOUNDING = ("continuous", "annual")
 PRIORITIES = ("oldest", "relative_oldest", "highest_volume")
 TIMINGS = ("start", "midpoint", "end")
-FLOW_POLICIES = ("even",)
+FLOW_POLICIES = ("even", "nondeclining", "stepdown", "targets")
 
 _REQUIRED = object()
 
@@ -224,6 +224,18 @@ KEYS: dict[str, dict[str, KeySpec]] = {
             "Growing stock at the end of the horizon must be at least this share of the initial.",
             check=_non_negative,
         ),
+        "step_down_max": KeySpec(
+            "float", 0.1, "fraction",
+            "stepdown: largest drop from one period to the next.",
+            check=lambda v: None if 0 < v < 1 else "must be > 0 and < 1",
+        ),
+        "targets_m3": KeySpec("floats", None, "m3/period",
+                              "targets: the harvest target of each period."),
+        "long_term_periods": KeySpec(
+            "int", None, "", "stepdown: periods over which the long-term level must hold the "
+            "harvestable growing stock (default: a quarter of the horizon, at least 2).",
+            check=_positive,
+        ),
     },
 }
 
@@ -354,6 +366,9 @@ class FlowConfig:
     policy: str = "even"
     band: float = 0.0
     ending_stock: float = 1.0
+    step_down_max: float = 0.1
+    targets_m3: tuple[float, ...] | None = None
+    long_term_periods: int | None = None
 
 
 @dataclass(frozen=True)
@@ -489,6 +504,20 @@ def parse_scenario(
         raise ScenarioError(f"{where}: [species] lists no species; add a [species.<CODE>] table")
     harvest = HarvestConfig(**_take(raw.get("harvest", {}), "harvest", where))
     flow = FlowConfig(**_take(raw.get("flow", {}), "flow", where))
+    if flow.policy == "targets":
+        if flow.targets_m3 is None:
+            raise ScenarioError(f"{where}: [flow] policy = 'targets' needs targets_m3 (one "
+                                "value per period)")
+        if len(flow.targets_m3) != info.periods:
+            raise ScenarioError(f"{where}: [flow] targets_m3 has {len(flow.targets_m3)} values "
+                                f"for scenario.periods = {info.periods}")
+        if any(v < 0 for v in flow.targets_m3):
+            raise ScenarioError(f"{where}: [flow] targets_m3 values must be >= 0")
+    elif flow.targets_m3 is not None:
+        raise ScenarioError(f"{where}: [flow] targets_m3 applies to policy = 'targets' only")
+    if flow.long_term_periods is not None and flow.long_term_periods > info.periods:
+        raise ScenarioError(f"{where}: [flow] long_term_periods = {flow.long_term_periods} is "
+                            f"longer than the horizon ({info.periods} periods)")
     economics = EconomicsConfig(**_take(raw.get("economics", {}), "economics", where))
     growth = GrowthConfig(**_take(raw.get("growth", {}), "growth", where))
     species = {

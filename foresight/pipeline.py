@@ -46,7 +46,7 @@ from foresight.reporting import (
 from foresight.reporting.curves import curves_table
 from foresight.reporting.curves import notes as curve_notes
 from foresight.reporting.figures import curve_figure
-from foresight.schedule import FlowResult, find_even_flow
+from foresight.schedule import FlowResult, schedule
 from foresight.versions import library_versions
 from foresight.zonal import zonal
 
@@ -221,13 +221,7 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
                         "collapse after harvest instead of regrowing", code)
     arrays = StandArrays.from_table(inventory.stands, scenario, curves)
     with timer.stage("project and schedule"):
-        flow = find_even_flow(
-            arrays, curves, periods,
-            band=scenario.flow.band,
-            ending_stock=scenario.flow.ending_stock,
-            priority=scenario.harvest.priority,
-            max_area_ha=scenario.harvest.max_area_ha_per_period,
-        )
+        flow = schedule(arrays, curves, periods, scenario.flow, scenario.harvest)
     log.info("flow level %.0f m3/year; limited by %s", flow.level_m3_per_year, flow.binding)
     with timer.stage("build output tables"):
         wood_flow = wood_flow_table(flow, periods)

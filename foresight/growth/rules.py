@@ -95,6 +95,17 @@ def summarise_site(cfg: SpeciesConfig, curve: YieldCurve, site: float,
     )
 
 
+def site_summaries(cfg: SpeciesConfig, curve: YieldCurve, site_index: NDArray,
+                   economics: EconomicsConfig, growth: GrowthConfig
+                   ) -> tuple[list[SiteSummary], NDArray[np.intp]]:
+    """Summaries for each distinct site index (rounded to ``growth.rule_site_step_m``) and the
+    index that maps every stand onto its summary. The loop runs over distinct sites."""
+    step = growth.rule_site_step_m
+    rounded = np.round(np.asarray(site_index, dtype=np.float64) / step) * step
+    unique, inverse = np.unique(rounded, return_inverse=True)
+    return [summarise_site(cfg, curve, s, economics, growth) for s in unique], inverse
+
+
 def min_harvest_ages(cfg: SpeciesConfig, curve: YieldCurve, site_index: NDArray,
                      economics: EconomicsConfig, growth: GrowthConfig) -> NDArray[np.float64]:
     """Minimum harvest age [years] for each stand's site index (one species).
@@ -107,12 +118,15 @@ def min_harvest_ages(cfg: SpeciesConfig, curve: YieldCurve, site_index: NDArray,
                   or cfg.min_harvest_volume_m3_ha is not None or cfg.min_harvest_economic)
     if not site_rules:
         return np.full(site_index.shape, float(cfg.min_harvest_age or 0.0))
-    step = growth.rule_site_step_m
-    rounded = np.round(site_index / step) * step
-    unique, inverse = np.unique(rounded, return_inverse=True)
-    per_site = np.array([summarise_site(cfg, curve, s, economics, growth).min_harvest_age_years
-                         for s in unique])  # loop over distinct sites, not stands
-    return per_site[inverse]
+    sums, inverse = site_summaries(cfg, curve, site_index, economics, growth)
+    return np.array([s.min_harvest_age_years for s in sums])[inverse]
+
+
+def max_mai(cfg: SpeciesConfig, curve: YieldCurve, site_index: NDArray,
+            economics: EconomicsConfig, growth: GrowthConfig) -> NDArray[np.float64]:
+    """Maximum MAI [m3/ha/yr] for each stand's site index (one species)."""
+    sums, inverse = site_summaries(cfg, curve, site_index, economics, growth)
+    return np.array([s.culmination.mai for s in sums])[inverse]
 
 
 def _first_mai_share(vol, cul: Culmination, share: float) -> float:

@@ -1,7 +1,43 @@
 """Harvest scheduling: eligibility, priority rules, the period-by-period cut and the flow search."""
 
-from foresight.schedule.flow import FlowResult, find_even_flow
+from foresight.schedule.flow import (
+    FlowResult,
+    find_even_flow,
+    find_nondeclining,
+    find_step_down,
+    run_targets,
+    stable_periods_for,
+)
 from foresight.schedule.priority import PRIORITY_RULES
 from foresight.schedule.simulate import Simulation, simulate
 
-__all__ = ["PRIORITY_RULES", "FlowResult", "Simulation", "find_even_flow", "simulate"]
+__all__ = [
+    "PRIORITY_RULES",
+    "FlowResult",
+    "Simulation",
+    "find_even_flow",
+    "find_nondeclining",
+    "find_step_down",
+    "run_targets",
+    "schedule",
+    "simulate",
+    "stable_periods_for",
+]
+
+
+def schedule(stands, curves, periods, flow_cfg, harvest_cfg) -> FlowResult:  # noqa: ANN001
+    """Run the flow policy of the scenario (``[flow]``, ``[harvest]``) over the stands."""
+    common = {"priority": harvest_cfg.priority, "max_area_ha": harvest_cfg.max_area_ha_per_period}
+    if flow_cfg.policy == "targets":
+        return run_targets(stands, curves, periods, flow_cfg.targets_m3,
+                           ending_stock=flow_cfg.ending_stock, **common)
+    if flow_cfg.policy == "stepdown":
+        return find_step_down(stands, curves, periods, flow_cfg.step_down_max,
+                              flow_cfg.ending_stock,
+                              stable_periods=stable_periods_for(periods,
+                                                                flow_cfg.long_term_periods),
+                              **common)
+    if flow_cfg.policy == "nondeclining":
+        return find_nondeclining(stands, curves, periods, flow_cfg.ending_stock, **common)
+    return find_even_flow(stands, curves, periods, flow_cfg.band, flow_cfg.ending_stock,
+                          **common)

@@ -20,7 +20,18 @@ import numpy as np
 from numpy.typing import NDArray
 
 from foresight.projection import CurveSet, Periods, StandArrays, growing_stock_m3
+from foresight.schedule.policies import EvenFlow, Targets
 from foresight.schedule.priority import cut_order
+
+TargetRule = EvenFlow | Targets | object  # anything with bounds(p, h_prev) -> (target, floor)
+
+
+class _FixedTargets(Targets):
+    """Fixed targets that are also floors (for tests and explicit schedules)."""
+
+    def bounds(self, p: int, h_prev: float) -> tuple[float, float]:
+        v = float(self.values[p])
+        return v, v
 
 _REL = 1e-9  # relative tolerance on volume targets
 _MIN_PART_HA = 1e-9  # a smaller partial cut (<= ~1e-6 m3) is not worth a split
@@ -41,6 +52,8 @@ class Simulation:
     growing_stock_end_m3: NDArray = field(default_factory=lambda: np.zeros(0))
     initial_stock_m3: float = 0.0
     ending_stock_m3: float = float("nan")
+    ending_hlb_stock_m3: float = float("nan")  # on the harvestable land base
+    hlb_stock_start_m3: NDArray = field(default_factory=lambda: np.zeros(0))
     # harvest events, one per cut part (record=True only)
     event_stand: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
     event_period: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
@@ -60,14 +73,21 @@ def simulate(
     ending_stock: float = 0.0,
     record: bool = False,
     targets: NDArray | None = None,
+    rule: TargetRule | None = None,
+    stable_periods: int = 0,
 ) -> Simulation:
     """Run the horizon at flow level ``level_m3`` [m3 per period].
 
     With ``record`` every period's totals, growing stock and harvest events are kept and the
     run goes on to the end even where a floor is missed; without it the run stops at the
     first missed floor (the flow search only needs the verdict). ``targets`` [m3 per period]
-    replaces the level and band by fixed per-period targets, each also its period's floor.
+    replaces the level and band by fixed per-period targets, each also its period's floor;
+    ``rule`` (a :mod:`foresight.schedule.policies` rule) replaces both. With
+    ``stable_periods`` = K > 0 the run also fails unless the growing stock on the harvestable
+    land base at the end is at least its value K periods before the end.
     """
+    if rule is None:
+        rule = _FixedTargets(tuple(targets)) if targets is not None else EvenFlow(level_m3, band)
     P, L, off = periods.count, float(periods.period_years), periods.offset_years
     cap = np.inf if max_area_ha is None else float(max_area_ha)
     # parts: start as copies of the stand arrays; partial cuts append
@@ -81,6 +101,9 @@ def simulate(
         stand = np.r_[stand, reserved]
         area = np.r_[area, stands.area_ha[reserved] - area[reserved]]
         min_age = np.r_[min_age, np.full(len(reserved), np.inf)]
+    in_hlb = np.ones(len(stand), dtype=bool)  # parts on the harvestable land base
+    if stands.harvestable_ha is not None:
+        in_hlb[stands.n:] = False
     sp = stands.species_idx[stand]
     si = curves.site_terms(sp, stands.site_index[stand])  # site terms, worked out once
     age = stands.age_years[stand]
@@ -94,17 +117,16 @@ def simulate(
     age_area = np.zeros(P)
     gs_start = np.full(P, np.nan)
     gs_end = np.full(P, np.nan)
+    hlb_start = np.full(P, np.nan)
     events: list[tuple[NDArray, ...]] = []
 
     for p in range(P):
         if record:
             gs_start[p] = sim.initial_stock_m3 if p == 0 else gs_end[p - 1]
-        if targets is not None:
-            target = floor = float(targets[p])
-        elif p == 0:
-            target = floor = level_m3
-        else:
-            target, floor = min(level_m3, (1 + band) * h[p - 1]), (1 - band) * h[p - 1]
+        target, floor = rule.bounds(p, h[p - 1] if p else 0.0)
+        if record or p == P - stable_periods:
+            hlb_start[p] = growing_stock_m3(curves, sp[in_hlb], age[in_hlb], si.take(in_hlb),
+                                            area[in_hlb])
         age_h = age + off
         elig = np.flatnonzero((age_h >= min_age - 1e-9) & (area > 0))
         vol_ha = curves.volume_m3_ha(sp[elig], age_h[elig], terms=si.take(elig))
@@ -166,6 +188,7 @@ def simulate(
             sp, si = np.r_[sp, sp[part]], si.append(part)
             min_age, delay = np.r_[min_age, min_age[part]], np.r_[delay, delay[part]]
             rank = np.r_[rank, rank[part]]
+            in_hlb = np.r_[in_hlb, in_hlb[part]]
             new_age = np.r_[new_age, regrown[part]]
             cut_area = frac * area[part]
             area = np.r_[area, cut_area]
@@ -176,10 +199,19 @@ def simulate(
             gs_end[p] = stock
             if p == P - 1:
                 sim.ending_stock_m3 = stock
+                sim.ending_hlb_stock_m3 = growing_stock_m3(curves, sp[in_hlb], age[in_hlb],
+                                                           si.take(in_hlb), area[in_hlb])
 
     if sim.feasible and sim.ending_stock_m3 < ending_stock * sim.initial_stock_m3 * (1 - _REL):
         sim.feasible = False
         sim.fail_reason = "ending growing stock below the requirement"
+    if sim.feasible and stable_periods > 0:
+        ref = hlb_start[P - stable_periods]
+        if sim.ending_hlb_stock_m3 < ref * (1 - 1e-6):
+            sim.feasible = False
+            sim.fail_reason = (f"growing stock on the harvestable land base still falls over "
+                               f"the last {stable_periods} periods")
+    sim.hlb_stock_start_m3 = hlb_start
     sim.harvest_m3, sim.harvest_ha, sim.harvest_age_area = h, ha, age_area
     sim.growing_stock_start_m3, sim.growing_stock_end_m3 = gs_start, gs_end
     if record and events:
