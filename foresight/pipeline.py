@@ -25,6 +25,7 @@ import shapely
 from foresight.config import NetdownStep, Scenario
 from foresight.errors import InputError, OutputError
 from foresight.growth import curve_from_config
+from foresight.growth.rules import max_mai
 from foresight.inventory import CheckReport, prepare_inventory
 from foresight.io.rasters import RasterData, raster_crs, read_window
 from foresight.landbase import Netdown, NetdownError, apply_netdown
@@ -77,6 +78,7 @@ class RunResult:
     products: pd.DataFrame
     timings_s: dict[str, float] = field(default_factory=dict)
     write_harvestable_layer: bool = False
+    long_term_sustained_yield: dict[str, float] = field(default_factory=dict)  # m3/year
 
     @property
     def level_m3_per_year(self) -> float:
@@ -223,19 +225,41 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
     with timer.stage("project and schedule"):
         flow = schedule(arrays, curves, periods, scenario.flow, scenario.harvest)
     log.info("flow level %.0f m3/year; limited by %s", flow.level_m3_per_year, flow.binding)
+    ltsy = long_term_sustained_yield(scenario, curves, arrays)
     with timer.stage("build output tables"):
         wood_flow = wood_flow_table(flow, periods)
         stands = stands_layer(flow, inventory.stands, arrays, curves, periods)
         harvests = harvests_layer(flow, inventory.stands, periods)
         products = wood_flow_by_product(flow, arrays, curves, scenario)
     result = RunResult(out, inventory, flow, wood_flow, stands, harvests, products,
-                       timer.timings, scenario.landbase.write_harvestable_layer)
+                       timer.timings, scenario.landbase.write_harvestable_layer, ltsy)
     if out is not None:
         with staged_output(out, MANAGED) as tmp:
             with timer.stage("write outputs"):
                 write_tables(result, tmp)
             write_json(tmp / RUN_JSON, run_record(result, scenario))
     return result
+
+
+def long_term_sustained_yield(scenario: Scenario, curves: CurveSet, arrays: StandArrays
+                              ) -> dict[str, float]:
+    """Harvestable area times MAI, summed over stands [m3/year]: at each stand's MAI
+    culmination, and at its minimum harvest age (the rotation the rules use)."""
+    area = arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
+    at_cul = np.zeros(arrays.n)
+    for i, code in enumerate(curves.codes):  # per species; per distinct site inside
+        mine = arrays.species_idx == i
+        if mine.any():
+            at_cul[mine] = max_mai(scenario.species[code], curves.curves[i],
+                                   arrays.site_index[mine], scenario.economics,
+                                   scenario.growth)
+    r = arrays.min_harvest_age
+    ok = np.isfinite(r) & (r > 0)
+    at_rot = np.zeros(arrays.n)
+    at_rot[ok] = curves.volume_m3_ha(arrays.species_idx[ok], r[ok],
+                                     arrays.site_index[ok]) / r[ok]
+    return {"at_culmination": float(np.dot(area, at_cul)),
+            "at_min_harvest_age": float(np.dot(area, at_rot))}
 
 
 def write_tables(result: RunResult, directory: Path) -> None:
@@ -293,6 +317,8 @@ def run_record(result: RunResult, scenario: Scenario) -> dict:
             "level_m3_per_year": flow.level_m3_per_year,
             "binding": flow.binding,
             "search_steps": flow.steps,
+            **{k: v for k, v in flow.details.items()},
+            "long_term_sustained_yield_m3_per_year": result.long_term_sustained_yield,
             "initial_growing_stock_m3": flow.simulation.initial_stock_m3,
             "ending_growing_stock_m3": flow.simulation.ending_stock_m3,
         },

@@ -24,9 +24,16 @@ def handle(args: argparse.Namespace) -> int:
         print(f"scenario {scenario.scenario.name!r}: {len(result.stands)} stands, "
               f"{result.inventory.report.area_ha:,.0f} ha, {len(wf)} periods of "
               f"{scenario.scenario.period_years} years")
-        print(f"even-flow level: {result.flow.level_m3_per_year:,.0f} m3/year "
+        what = {"even": "even-flow level", "nondeclining": "non-declining flow, period 1",
+                "stepdown": "step-down flow, initial level",
+                "targets": "targets, mean harvest"}[result.flow.policy]
+        print(f"{what}: {result.flow.level_m3_per_year:,.0f} m3/year "
               f"({result.flow.level_m3_per_period:,.0f} m3 per period)")
         print(f"limited by: {result.flow.binding}")
+        ltsy = result.long_term_sustained_yield
+        print(f"long-term sustained yield for comparison: {ltsy['at_culmination']:,.0f} m3/year "
+              f"at MAI culmination, {ltsy['at_min_harvest_age']:,.0f} m3/year at the minimum "
+              "harvest ages (harvestable area x MAI)")
         print(f"growing stock: {wf['growing_stock_start_m3'].iloc[0]:,.0f} m3 at start, "
               f"{wf['growing_stock_end_m3'].iloc[-1]:,.0f} m3 at the end")
         print(f"outputs in {result.out_dir} (projection.gpkg, wood_flow.csv, run.json)")

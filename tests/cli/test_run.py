@@ -67,6 +67,11 @@ def test_run_json_records_provenance(sample_run):
     assert all(len(v) == 64 for v in rec["inputs_sha256"].values())
     assert set(rec["timings_s"]) >= {"read and check inventory", "project and schedule"}
     assert rec["flow"]["level_m3_per_year"] > 0 and rec["flow"]["binding"]
+    ltsy = rec["flow"]["long_term_sustained_yield_m3_per_year"]
+    # maximum MAI bounds MAI at any age, so the culmination figure is the larger one
+    assert ltsy["at_culmination"] >= ltsy["at_min_harvest_age"] > 0
+    # the long-run harvest stays below harvestable area x maximum MAI (practice notes)
+    assert rec["flow"]["level_m3_per_year"] <= ltsy["at_culmination"]
 
 
 def test_stands_layer_covers_the_sample(sample_run):
