@@ -36,6 +36,7 @@ COMPOUNDING = ("continuous", "annual")
 PRIORITIES = ("oldest", "relative_oldest", "highest_volume")
 TIMINGS = ("start", "midpoint", "end")
 FLOW_POLICIES = ("even", "nondeclining", "stepdown", "targets")
+ADJACENCY_MODES = ("edge", "edge-or-corner")
 
 _REQUIRED = object()
 
@@ -211,6 +212,21 @@ KEYS: dict[str, dict[str, KeySpec]] = {
         "max_area_ha_per_period": KeySpec(
             "float", None, "ha", "Cap on the area harvested in one period.", check=_positive
         ),
+        "greenup_years": KeySpec(
+            "float", 0.0, "years",
+            "A stand cut less than this long ago blocks its neighbours (0: no spatial rules).",
+            check=_non_negative,
+        ),
+        "max_opening_ha": KeySpec(
+            "float", None, "ha",
+            "Largest opening (contiguous area cut within the green-up window); 0 = unit "
+            "restriction (no two neighbours).", check=_non_negative,
+        ),
+        "adjacency": KeySpec("choice", "edge", "", "Which stands are neighbours.",
+                             choices=ADJACENCY_MODES),
+        "separation_m": KeySpec("float", 0.0, "m",
+                                "Stands within this distance are neighbours too.",
+                                check=_non_negative),
     },
     "flow": {
         "policy": KeySpec("choice", "even", "", "Flow policy.", choices=FLOW_POLICIES),
@@ -359,6 +375,14 @@ class GrowthConfig:
 class HarvestConfig:
     priority: str = "oldest"
     max_area_ha_per_period: float | None = None
+    greenup_years: float = 0.0
+    max_opening_ha: float | None = None
+    adjacency: str = "edge"
+    separation_m: float = 0.0
+
+    @property
+    def spatial(self) -> bool:
+        return self.greenup_years > 0
 
 
 @dataclass(frozen=True)
@@ -503,6 +527,13 @@ def parse_scenario(
     if not species_raw:
         raise ScenarioError(f"{where}: [species] lists no species; add a [species.<CODE>] table")
     harvest = HarvestConfig(**_take(raw.get("harvest", {}), "harvest", where))
+    if harvest.max_opening_ha is not None and harvest.greenup_years <= 0:
+        raise ScenarioError(f"{where}: [harvest] max_opening_ha needs greenup_years > 0 (the "
+                            "window in which cut area counts as open)")
+    horizon = info.periods * info.period_years
+    if harvest.greenup_years > horizon:
+        raise ScenarioError(f"{where}: [harvest] greenup_years = {harvest.greenup_years:g} is "
+                            f"longer than the horizon ({horizon} years)")
     flow = FlowConfig(**_take(raw.get("flow", {}), "flow", where))
     if flow.policy == "targets":
         if flow.targets_m3 is None:

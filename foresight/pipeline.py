@@ -12,7 +12,7 @@ import logging
 import time
 from collections.abc import Iterator
 from contextlib import contextmanager
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 from pathlib import Path
 
@@ -22,13 +22,15 @@ import pandas as pd
 import pyproj
 import shapely
 
-from foresight.config import NetdownStep, Scenario
+from foresight.adjacency import Adjacency, build_adjacency
+from foresight.config import HarvestConfig, NetdownStep, Scenario
 from foresight.errors import InputError, OutputError
 from foresight.growth import curve_from_config
 from foresight.growth.rules import max_mai
 from foresight.inventory import CheckReport, prepare_inventory
 from foresight.io.rasters import RasterData, raster_crs, read_window
-from foresight.landbase import Netdown, NetdownError, apply_netdown
+from foresight.io.cache import cached_arrays
+from foresight.landbase import Netdown, NetdownError, apply_netdown, metres_per_unit, work_crs
 from foresight.io.outputs import (
     check_output_dir,
     replace_file,
@@ -57,12 +59,13 @@ GPKG_NAME = "projection.gpkg"
 WOOD_FLOW_CSV = "wood_flow.csv"
 PRODUCTS_CSV = "wood_flow_by_product.csv"
 NETDOWN_CSV = "netdown.csv"
+OPENINGS_CSV = "openings.csv"
 RUN_JSON = "run.json"
 CURVES_CSV = "curves.csv"
 FIGURES_DIR = "figures"
 # every entry foresight writes into an output directory (run, curves)
-MANAGED = frozenset({GPKG_NAME, WOOD_FLOW_CSV, PRODUCTS_CSV, NETDOWN_CSV, RUN_JSON, CURVES_CSV,
-                     FIGURES_DIR})
+MANAGED = frozenset({GPKG_NAME, WOOD_FLOW_CSV, PRODUCTS_CSV, NETDOWN_CSV, OPENINGS_CSV,
+                     RUN_JSON, CURVES_CSV, FIGURES_DIR})
 
 
 @dataclass
@@ -79,6 +82,7 @@ class RunResult:
     timings_s: dict[str, float] = field(default_factory=dict)
     write_harvestable_layer: bool = False
     long_term_sustained_yield: dict[str, float] = field(default_factory=dict)  # m3/year
+    openings: pd.DataFrame | None = None  # with spatial rules
 
     @property
     def level_m3_per_year(self) -> float:
@@ -223,7 +227,20 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
                         "collapse after harvest instead of regrowing", code)
     arrays = StandArrays.from_table(inventory.stands, scenario, curves)
     with timer.stage("project and schedule"):
-        flow = schedule(arrays, curves, periods, scenario.flow, scenario.harvest)
+        adjacency = None
+        if scenario.harvest.spatial:
+            adjacency = stand_adjacency(scenario, inventory)
+        flow = schedule(arrays, curves, periods, scenario.flow, scenario.harvest, adjacency)
+        openings = None
+        if adjacency is not None:
+            aspatial = schedule(arrays, curves, periods, scenario.flow,
+                                replace(scenario.harvest, greenup_years=0.0,
+                                        max_opening_ha=None))
+            flow.details["aspatial_level_m3_per_period"] = aspatial.level_m3_per_period
+            flow.details["spatial_cost_m3_per_period"] = (aspatial.level_m3_per_period
+                                                          - flow.level_m3_per_period)
+            openings = openings_table(flow, adjacency, periods, scenario.harvest)
+            check_openings(openings, scenario.harvest)
     log.info("flow level %.0f m3/year; limited by %s", flow.level_m3_per_year, flow.binding)
     ltsy = long_term_sustained_yield(scenario, curves, arrays)
     with timer.stage("build output tables"):
@@ -232,7 +249,7 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
         harvests = harvests_layer(flow, inventory.stands, periods)
         products = wood_flow_by_product(flow, arrays, curves, scenario)
     result = RunResult(out, inventory, flow, wood_flow, stands, harvests, products,
-                       timer.timings, scenario.landbase.write_harvestable_layer, ltsy)
+                       timer.timings, scenario.landbase.write_harvestable_layer, ltsy, openings)
     if out is not None:
         with staged_output(out, MANAGED) as tmp:
             with timer.stage("write outputs"):
@@ -262,6 +279,62 @@ def long_term_sustained_yield(scenario: Scenario, curves: CurveSet, arrays: Stan
             "at_min_harvest_age": float(np.dot(area, at_rot))}
 
 
+def stand_adjacency(scenario: Scenario, checked: CheckResult) -> Adjacency:
+    """The adjacency graph of the stands, from the cache when the stand layer is unchanged."""
+    h = scenario.harvest
+    stands = checked.stands
+    geoms = stands.geometry.to_numpy()
+    crs = pyproj.CRS.from_user_input(stands.crs)
+    wcrs = work_crs(crs, geoms)
+    if wcrs != crs:
+        geoms = stands.geometry.to_crs(wcrs).to_numpy()
+    separation = h.separation_m / metres_per_unit(wcrs)
+
+    def build() -> dict[str, np.ndarray]:
+        adj = build_adjacency(geoms, h.adjacency, separation)
+        return {"indptr": adj.indptr, "indices": adj.indices}
+
+    options = f"adjacency|{scenario.inventory.layer}|{h.adjacency}|{h.separation_m}|{len(geoms)}"
+    with _Timer().stage("adjacency graph"):
+        arrays, hit = cached_arrays("adjacency", scenario.inventory.path, options, build)
+    adj = Adjacency(arrays["indptr"], arrays["indices"])
+    log.info("adjacency: %d neighbour pairs (%s)", adj.pairs, "cached" if hit else "built")
+    return adj
+
+
+def openings_table(flow: FlowResult, adjacency: Adjacency, periods: Periods,
+                   harvest: HarvestConfig) -> pd.DataFrame:
+    """Openings at each period's harvest, rebuilt from the harvest events: stands cut within
+    the green-up window, grouped by adjacency; area is the area cut in the window."""
+    sim = flow.simulation
+    times = periods.harvest_years - periods.start_year
+    ev_t = times[sim.event_period - 1] if len(sim.event_period) else np.zeros(0)
+    rows = []
+    for p in range(periods.count):  # per period, a handful of vectorised calls
+        t = times[p]
+        window = (ev_t <= t + 1e-9) & (t - ev_t < harvest.greenup_years - 1e-9)
+        area = np.bincount(sim.event_stand[window], sim.event_area_ha[window], adjacency.n)
+        labels = adjacency.components(area > 0)
+        if (labels >= 0).any():
+            lab = labels[labels >= 0]
+            sizes = np.bincount(lab, area[labels >= 0])
+            counts = np.bincount(lab)
+            rows.append(pd.DataFrame({"period": p + 1, "opening_id": np.arange(1, len(sizes) + 1),
+                                      "area_ha": sizes, "n_stands": counts}))
+    cols = ["period", "opening_id", "area_ha", "n_stands"]
+    return pd.concat(rows, ignore_index=True) if rows else pd.DataFrame(columns=cols)
+
+
+def check_openings(openings: pd.DataFrame, harvest: HarvestConfig) -> None:
+    """The rules hold in the output: a breach here is a bug, never a user's error."""
+    if harvest.max_opening_ha:
+        bad = openings[openings["area_ha"] > harvest.max_opening_ha * (1 + 1e-9)]
+    else:
+        bad = openings[openings["n_stands"] > 1]
+    if len(bad):
+        raise RuntimeError(f"spatial rules broken in the schedule: {bad.head().to_dict('records')}")
+
+
 def write_tables(result: RunResult, directory: Path) -> None:
     """Write the GeoPackage and the wood-flow CSV into ``directory``."""
     gpkg = directory / GPKG_NAME
@@ -275,6 +348,9 @@ def write_tables(result: RunResult, directory: Path) -> None:
     result.wood_flow.to_csv(directory / WOOD_FLOW_CSV, index=False)
     result.products.to_csv(directory / PRODUCTS_CSV, index=False)
     result.inventory.netdown.table.to_csv(directory / NETDOWN_CSV, index=False)
+    if result.openings is not None:
+        write_gpkg_layer(gpkg, result.openings, "openings", spatial=False)
+        result.openings.to_csv(directory / OPENINGS_CSV, index=False)
 
 
 def write_outputs(result: RunResult, scenario: Scenario, directory: Path) -> None:

@@ -30,3 +30,9 @@ def small_case(tmp_path):
 settings.register_profile("ci", derandomize=True, print_blob=True)
 if os.environ.get("CI"):
     settings.load_profile("ci")
+
+
+@pytest.fixture(autouse=True, scope="session")
+def _private_cache(tmp_path_factory):
+    """Keep the tests' adjacency cache out of the user's cache directory."""
+    os.environ["FORESIGHT_CACHE_DIR"] = str(tmp_path_factory.mktemp("cache"))

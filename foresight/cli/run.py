@@ -30,6 +30,11 @@ def handle(args: argparse.Namespace) -> int:
         print(f"{what}: {result.flow.level_m3_per_year:,.0f} m3/year "
               f"({result.flow.level_m3_per_period:,.0f} m3 per period)")
         print(f"limited by: {result.flow.binding}")
+        if "spatial_cost_m3_per_period" in result.flow.details:
+            cost = result.flow.details["spatial_cost_m3_per_period"] / scenario.scenario.period_years
+            big = result.openings["area_ha"].max() if len(result.openings) else 0.0
+            print(f"spatial rules cost {cost:,.0f} m3/year against the same policy without "
+                  f"them; largest opening {big:,.1f} ha; no rule is broken")
         ltsy = result.long_term_sustained_yield
         print(f"long-term sustained yield for comparison: {ltsy['at_culmination']:,.0f} m3/year "
               f"at MAI culmination, {ltsy['at_min_harvest_age']:,.0f} m3/year at the minimum "

@@ -10,6 +10,7 @@ from foresight.schedule.flow import (
 )
 from foresight.schedule.priority import PRIORITY_RULES
 from foresight.schedule.simulate import Simulation, simulate
+from foresight.schedule.spatial import SpatialRules
 
 __all__ = [
     "PRIORITY_RULES",
@@ -25,9 +26,20 @@ __all__ = [
 ]
 
 
-def schedule(stands, curves, periods, flow_cfg, harvest_cfg) -> FlowResult:  # noqa: ANN001
-    """Run the flow policy of the scenario (``[flow]``, ``[harvest]``) over the stands."""
-    common = {"priority": harvest_cfg.priority, "max_area_ha": harvest_cfg.max_area_ha_per_period}
+def schedule(stands, curves, periods, flow_cfg, harvest_cfg, adjacency=None  # noqa: ANN001
+             ) -> FlowResult:
+    """Run the flow policy of the scenario (``[flow]``, ``[harvest]``) over the stands.
+
+    With ``harvest.greenup_years`` > 0 the ``adjacency`` graph carries the spatial rules.
+    """
+    spatial = None
+    if harvest_cfg.spatial:
+        if adjacency is None:
+            raise ValueError("spatial rules need the adjacency graph")
+        spatial = SpatialRules(adjacency, harvest_cfg.greenup_years,
+                               harvest_cfg.max_opening_ha or 0.0)
+    common = {"priority": harvest_cfg.priority, "max_area_ha": harvest_cfg.max_area_ha_per_period,
+              "spatial": spatial}
     if flow_cfg.policy == "targets":
         return run_targets(stands, curves, periods, flow_cfg.targets_m3,
                            ending_stock=flow_cfg.ending_stock, **common)

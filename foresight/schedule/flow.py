@@ -17,6 +17,7 @@ import numpy as np
 from foresight.projection import CurveSet, Periods, StandArrays
 from foresight.schedule.policies import EvenFlow, Sequence, StepDown, Targets
 from foresight.schedule.simulate import Simulation, simulate
+from foresight.schedule.spatial import SpatialRules
 
 REL_TOL = 1e-7
 MAX_STEPS = 80
@@ -45,6 +46,7 @@ def find_even_flow(
     max_area_ha: float | None = None,
     stable_periods: int = 0,
     fixed: tuple[float, ...] = (),
+    spatial: SpatialRules | None = None,
 ) -> FlowResult:
     """Bisection for the highest feasible even-flow level (see the module docstring).
 
@@ -57,7 +59,7 @@ def find_even_flow(
         rule = Sequence(fixed, level) if fixed else EvenFlow(level, band)
         return simulate(stands, curves, periods, level, priority=priority,
                         max_area_ha=max_area_ha, ending_stock=ending_stock, record=record,
-                        rule=rule, stable_periods=stable_periods)
+                        rule=rule, stable_periods=stable_periods, spatial=spatial)
 
     # U: what the first free period could yield if every eligible stand were cut, within the
     # area cap (later periods cannot hold more than that).
@@ -129,7 +131,7 @@ def stable_periods_for(periods: Periods, configured: int | None) -> int:
 def find_step_down(
     stands: StandArrays, curves: CurveSet, periods: Periods, step: float,
     ending_stock: float = 1.0, priority: str = "oldest", max_area_ha: float | None = None,
-    stable_periods: int = 2,
+    stable_periods: int = 2, spatial: SpatialRules | None = None,
 ) -> FlowResult:
     """The highest initial level held as long as possible, then stepped down by at most
     ``step`` a period to the long-term level.
@@ -141,7 +143,7 @@ def find_step_down(
     (holding longer is never easier).
     """
     base = find_even_flow(stands, curves, periods, 0.0, ending_stock, priority, max_area_ha,
-                          stable_periods=stable_periods)
+                          stable_periods=stable_periods, spatial=spatial)
     lt = base.level_m3_per_period
     steps = base.steps
 
@@ -150,7 +152,8 @@ def find_step_down(
         steps += 1
         return simulate(stands, curves, periods, h0, priority=priority,
                         max_area_ha=max_area_ha, ending_stock=ending_stock, record=record,
-                        rule=StepDown(h0, hold, step, lt), stable_periods=stable_periods)
+                        rule=StepDown(h0, hold, step, lt), stable_periods=stable_periods,
+                        spatial=spatial)
 
     def longest_hold(h0: float) -> int:
         if not run(h0, 1).feasible:
@@ -164,7 +167,8 @@ def find_step_down(
         return lo
 
     upper = float(simulate(stands, curves, periods, float("inf"), priority=priority,
-                           max_area_ha=max_area_ha, record=True).harvest_m3[0])
+                           max_area_ha=max_area_ha, record=True,
+                           spatial=spatial).harvest_m3[0])
     lo, hi = lt, max(upper, lt)
     best_hold = periods.count
     while hi - lo > 1e-6 * max(hi, 1.0):
@@ -188,10 +192,11 @@ def find_step_down(
 
 def run_targets(stands: StandArrays, curves: CurveSet, periods: Periods,
                 targets: tuple[float, ...], priority: str = "oldest",
-                max_area_ha: float | None = None, ending_stock: float = 1.0) -> FlowResult:
+                max_area_ha: float | None = None, ending_stock: float = 1.0,
+                spatial: SpatialRules | None = None) -> FlowResult:
     """Explicit per-period targets: one run; shortfalls and the ending stock are reported."""
     sim = simulate(stands, curves, periods, 0.0, priority=priority, max_area_ha=max_area_ha,
-                   record=True, rule=Targets(tuple(targets)))
+                   record=True, rule=Targets(tuple(targets)), spatial=spatial)
     short = np.maximum(np.asarray(targets) - sim.harvest_m3, 0.0)
     missed = np.flatnonzero(short > 1e-6 * np.maximum(np.asarray(targets), 1.0))
     parts = []
@@ -213,6 +218,7 @@ Search = Callable[..., FlowResult]
 def find_nondeclining(
     stands: StandArrays, curves: CurveSet, periods: Periods, ending_stock: float = 1.0,
     priority: str = "oldest", max_area_ha: float | None = None,
+    spatial: SpatialRules | None = None,
 ) -> FlowResult:
     """A non-declining flow built one period at a time (lexicographic max-min).
 
@@ -220,19 +226,20 @@ def find_nondeclining(
     takes the highest level periods 2..P can hold (never below period 1), and so on. Each
     period's harvest is thus the most that can be held from then on without a decline.
     """
-    first = find_even_flow(stands, curves, periods, 0.0, ending_stock, priority, max_area_ha)
+    first = find_even_flow(stands, curves, periods, 0.0, ending_stock, priority, max_area_ha,
+                           spatial=spatial)
     fixed = [first.level_m3_per_period]
     steps = first.steps
     last = first
     for _ in range(1, periods.count):
         nxt = find_even_flow(stands, curves, periods, 0.0, ending_stock, priority,
-                             max_area_ha, fixed=tuple(fixed))
+                             max_area_ha, fixed=tuple(fixed), spatial=spatial)
         steps += nxt.steps
         fixed.append(max(nxt.level_m3_per_period, fixed[-1]))
         last = nxt
     final = simulate(stands, curves, periods, fixed[0], priority=priority,
                      max_area_ha=max_area_ha, ending_stock=ending_stock, record=True,
-                     rule=Sequence(tuple(fixed), fixed[-1]))
+                     rule=Sequence(tuple(fixed), fixed[-1]), spatial=spatial)
     if not final.feasible:
         raise RuntimeError(f"non-declining search ended infeasible ({final.fail_reason})")
     why = (f"period 1: {first.binding}; the last period's level is limited by: {last.binding}")

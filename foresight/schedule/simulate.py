@@ -22,6 +22,7 @@ from numpy.typing import NDArray
 from foresight.projection import CurveSet, Periods, StandArrays, growing_stock_m3
 from foresight.schedule.policies import EvenFlow, Targets
 from foresight.schedule.priority import cut_order
+from foresight.schedule.spatial import SpatialRules
 
 TargetRule = EvenFlow | Targets | object  # anything with bounds(p, h_prev) -> (target, floor)
 
@@ -62,6 +63,26 @@ class Simulation:
     event_volume_m3: NDArray = field(default_factory=lambda: np.zeros(0))
 
 
+def _pick_prefix(vol: NDArray, area: NDArray, target: float, cap: float
+                 ) -> tuple[NDArray, int, float]:
+    """Aspatial pick: candidates in order until the target or the cap; the last one partly.
+
+    Returns the positions cut whole, the position cut partly (-1: none) and its fraction.
+    """
+    cum_v = np.cumsum(vol)
+    cum_a = np.cumsum(area)
+    goal = min(target, float(cum_v[-1]))  # an unbounded target asks for everything
+    n = int(min(np.searchsorted(cum_v, goal * (1 + _REL), side="right"),
+                np.searchsorted(cum_a, cap * (1 + _REL), side="right")))
+    got_v = cum_v[n - 1] if n else 0.0
+    got_a = cum_a[n - 1] if n else 0.0
+    if n < len(vol) and goal - got_v > _REL * goal:
+        frac = min((goal - got_v) / vol[n], (cap - got_a) / area[n], 1.0)
+        if frac * area[n] > _MIN_PART_HA:
+            return np.arange(n), n, frac
+    return np.arange(n), -1, 0.0
+
+
 def simulate(
     stands: StandArrays,
     curves: CurveSet,
@@ -75,6 +96,7 @@ def simulate(
     targets: NDArray | None = None,
     rule: TargetRule | None = None,
     stable_periods: int = 0,
+    spatial: SpatialRules | None = None,
 ) -> Simulation:
     """Run the horizon at flow level ``level_m3`` [m3 per period].
 
@@ -84,8 +106,11 @@ def simulate(
     replaces the level and band by fixed per-period targets, each also its period's floor;
     ``rule`` (a :mod:`foresight.schedule.policies` rule) replaces both. With
     ``stable_periods`` = K > 0 the run also fails unless the growing stock on the harvestable
-    land base at the end is at least its value K periods before the end.
+    land base at the end is at least its value K periods before the end. ``spatial``
+    (:class:`SpatialRules`) adds green-up and opening-size rules over the adjacency graph.
     """
+    if spatial is not None:
+        spatial = spatial.fresh()
     if rule is None:
         rule = _FixedTargets(tuple(targets)) if targets is not None else EvenFlow(level_m3, band)
     P, L, off = periods.count, float(periods.period_years), periods.offset_years
@@ -134,29 +159,21 @@ def simulate(
         elig, vol_ha = elig[keep], vol_ha[keep]
 
         cut_full = np.zeros(0, dtype=np.intp)
-        part, frac = -1, 0.0
+        part, frac, blocked = -1, 0.0, 0
         if target > 0 and len(elig):
             order = cut_order(priority, age_h[elig], min_age[elig], vol_ha, rank[elig])
             cand = elig[order]
             v_ha = vol_ha[order]
             vol = v_ha * area[cand]
-            cum_v = np.cumsum(vol)
-            cum_a = np.cumsum(area[cand])
-            goal = min(target, float(cum_v[-1]))  # an unbounded target asks for everything
-            n = int(min(np.searchsorted(cum_v, goal * (1 + _REL), side="right"),
-                        np.searchsorted(cum_a, cap * (1 + _REL), side="right")))
-            cut_full = cand[:n]
-            got_v = cum_v[n - 1] if n else 0.0
-            got_a = cum_a[n - 1] if n else 0.0
-            if n < len(cand) and goal - got_v > _REL * goal:
-                j = cand[n]
-                frac = min((goal - got_v) / vol[n], (cap - got_a) / area[j], 1.0)
-                if frac * area[j] > _MIN_PART_HA:
-                    part = j
-                else:
-                    frac = 0.0
-            h[p] = got_v + (frac * vol[n] if part >= 0 else 0.0)
-            ha[p] = got_a + (frac * area[part] if part >= 0 else 0.0)
+            if spatial is None:
+                full_pos, part_pos, frac = _pick_prefix(vol, area[cand], target, cap)
+            else:
+                full_pos, part_pos, frac, blocked = spatial.pick(
+                    p * L + off, stand[cand], vol, area[cand], target, cap)
+            cut_full = cand[full_pos]
+            part = int(cand[part_pos]) if part_pos >= 0 else -1
+            h[p] = vol[full_pos].sum() + (frac * vol[part_pos] if part >= 0 else 0.0)
+            ha[p] = area[cut_full].sum() + (frac * area[part] if part >= 0 else 0.0)
             age_area[p] = np.dot(age_h[cut_full], area[cut_full]) + (
                 frac * area[part] * age_h[part] if part >= 0 else 0.0
             )
@@ -165,14 +182,17 @@ def simulate(
                 ev_area = area[ev_parts].copy()
                 if part >= 0:
                     ev_area[-1] *= frac
-                ev_vol = v_ha[: len(ev_parts)] * ev_area
+                ev_pos = full_pos if part < 0 else np.r_[full_pos, part_pos]
+                ev_vol = v_ha[ev_pos] * ev_area
                 events.append((stand[ev_parts], np.full(len(ev_parts), p + 1), age_h[ev_parts],
                                ev_area, ev_vol))
 
         if h[p] < floor * (1 - _REL) and sim.feasible:
             sim.feasible = False
             sim.fail_period = p + 1
-            if len(cut_full) + (part >= 0) == len(elig):
+            if blocked:
+                sim.fail_reason = "eligible volume the spatial rules allow exhausted"
+            elif len(cut_full) + (part >= 0) == len(elig):
                 sim.fail_reason = "eligible volume exhausted"
             else:
                 sim.fail_reason = "area cap reached"
