@@ -247,6 +247,15 @@ KEYS: dict[str, dict[str, KeySpec]] = {
         ),
         "targets_m3": KeySpec("floats", None, "m3/period",
                               "targets: the harvest target of each period."),
+        "method": KeySpec("choice", "rules", "", "rules: the rule-based scheduler; optimize: "
+                          "the harvest LP, mapped to stands.", choices=("rules", "optimize")),
+        "objective": KeySpec("choice", "max-even-flow", "", "LP objective.",
+                             choices=("max-even-flow", "max-volume")),
+        "lp_bound": KeySpec("bool", True, "", "rules: also solve the LP as an upper bound."),
+        "lp_site_class_m": KeySpec("float", 1.0, "m", "LP strata: site index class width.",
+                                   check=_positive),
+        "lp_age_class_years": KeySpec("float", 5.0, "years", "LP strata: age class width.",
+                                      check=_positive),
         "long_term_periods": KeySpec(
             "int", None, "", "stepdown: periods over which the long-term level must hold the "
             "harvestable growing stock (default: a quarter of the horizon, at least 2).",
@@ -393,6 +402,11 @@ class FlowConfig:
     step_down_max: float = 0.1
     targets_m3: tuple[float, ...] | None = None
     long_term_periods: int | None = None
+    method: str = "rules"
+    objective: str = "max-even-flow"
+    lp_bound: bool = True
+    lp_site_class_m: float = 1.0
+    lp_age_class_years: float = 5.0
 
 
 @dataclass(frozen=True)
@@ -546,6 +560,12 @@ def parse_scenario(
             raise ScenarioError(f"{where}: [flow] targets_m3 values must be >= 0")
     elif flow.targets_m3 is not None:
         raise ScenarioError(f"{where}: [flow] targets_m3 applies to policy = 'targets' only")
+    if flow.method == "optimize" and flow.policy not in ("even", "nondeclining"):
+        raise ScenarioError(f"{where}: [flow] method = 'optimize' takes policy 'even' or "
+                            f"'nondeclining', not {flow.policy!r}")
+    if flow.method == "optimize" and harvest.spatial:
+        raise ScenarioError(f"{where}: [flow] method = 'optimize' is aspatial; set "
+                            "harvest.greenup_years = 0 or use method = 'rules'")
     if flow.long_term_periods is not None and flow.long_term_periods > info.periods:
         raise ScenarioError(f"{where}: [flow] long_term_periods = {flow.long_term_periods} is "
                             f"longer than the horizon ({info.periods} periods)")

@@ -49,7 +49,9 @@ from foresight.reporting import (
 from foresight.reporting.curves import curves_table
 from foresight.reporting.curves import notes as curve_notes
 from foresight.reporting.figures import curve_figure
-from foresight.schedule import FlowResult, schedule
+from foresight.schedule import FlowResult, schedule, simulate
+from foresight.schedule.lp import LPResult, Strata, make_strata, solve_lp
+from foresight.schedule.policies import Targets
 from foresight.versions import library_versions
 from foresight.zonal import zonal
 
@@ -83,6 +85,7 @@ class RunResult:
     write_harvestable_layer: bool = False
     long_term_sustained_yield: dict[str, float] = field(default_factory=dict)  # m3/year
     openings: pd.DataFrame | None = None  # with spatial rules
+    lp: dict | None = None  # the harvest LP: solver, status, objective, gap
 
     @property
     def level_m3_per_year(self) -> float:
@@ -230,7 +233,18 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
         adjacency = None
         if scenario.harvest.spatial:
             adjacency = stand_adjacency(scenario, inventory)
-        flow = schedule(arrays, curves, periods, scenario.flow, scenario.harvest, adjacency)
+        lp = None
+        fcfg = scenario.flow
+        if fcfg.method == "optimize" or (fcfg.lp_bound and fcfg.policy in ("even",
+                                                                           "nondeclining")):
+            with timer.stage("harvest LP"):
+                lp, strata = harvest_lp(scenario, arrays, curves, periods, inventory)
+        if fcfg.method == "optimize":
+            assert lp is not None
+            flow = lp_schedule(lp, strata, arrays, curves, periods, scenario)
+        else:
+            flow = schedule(arrays, curves, periods, scenario.flow, scenario.harvest,
+                            adjacency)
         openings = None
         if adjacency is not None:
             aspatial = schedule(arrays, curves, periods, scenario.flow,
@@ -244,12 +258,13 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
     log.info("flow level %.0f m3/year; limited by %s", flow.level_m3_per_year, flow.binding)
     ltsy = long_term_sustained_yield(scenario, curves, arrays)
     with timer.stage("build output tables"):
-        wood_flow = wood_flow_table(flow, periods)
+        wood_flow = wood_flow_table(flow, periods, None if lp is None else lp.harvest_m3)
         stands = stands_layer(flow, inventory.stands, arrays, curves, periods)
         harvests = harvests_layer(flow, inventory.stands, periods)
         products = wood_flow_by_product(flow, arrays, curves, scenario)
     result = RunResult(out, inventory, flow, wood_flow, stands, harvests, products,
-                       timer.timings, scenario.landbase.write_harvestable_layer, ltsy, openings)
+                       timer.timings, scenario.landbase.write_harvestable_layer, ltsy, openings,
+                       lp_record(lp, flow))
     if out is not None:
         with staged_output(out, MANAGED) as tmp:
             with timer.stage("write outputs"):
@@ -277,6 +292,67 @@ def long_term_sustained_yield(scenario: Scenario, curves: CurveSet, arrays: Stan
                                      arrays.site_index[ok]) / r[ok]
     return {"at_culmination": float(np.dot(area, at_cul)),
             "at_min_harvest_age": float(np.dot(area, at_rot))}
+
+
+def harvest_lp(scenario: Scenario, arrays: StandArrays, curves: CurveSet, periods: Periods,
+               checked: CheckResult) -> tuple[LPResult, Strata]:
+    """The Model II harvest LP of the scenario (aspatial), solved with HiGHS."""
+    f = scenario.flow
+    zones = pd.factorize(checked.stands["zone"].fillna("").to_numpy())[0]
+    strata = make_strata(arrays, zones, f.lp_site_class_m, f.lp_age_class_years)
+    policy = "nondeclining" if f.policy == "nondeclining" else "even"
+    lp = solve_lp(arrays, curves, periods, strata, f.objective, policy, f.band,
+                  f.ending_stock, scenario.harvest.max_area_ha_per_period)
+    log.info("harvest LP: %s, %d strata, %d columns, %d rows, %.1f s", lp.status, lp.strata,
+             lp.columns, lp.rows, lp.seconds)
+    return lp, strata
+
+
+def lp_schedule(lp: LPResult, strata: Strata, arrays: StandArrays, curves: CurveSet,
+                periods: Periods, scenario: Scenario) -> FlowResult:
+    """Map the LP onto stands: each stratum's stands (in id order) are planned for the periods
+    in which the LP cuts the stratum's area, and the scheduler then takes the LP's harvest of
+    each period as its target, planned stands first."""
+    P = periods.count
+    planned = np.full(arrays.n, P + 1, dtype=np.int64)
+    area = arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
+    cum_cut = np.cumsum(lp.cut_area, axis=1)
+    for s in range(strata.n):  # per stratum, not per stand
+        members = np.flatnonzero(strata.of_stand == s)
+        members = members[np.argsort(arrays.id_rank[members], kind="stable")]
+        mid = np.cumsum(area[members]) - area[members] / 2
+        p = np.searchsorted(cum_cut[s], mid * (1 - 1e-9))  # first period covering the stand
+        planned[members] = np.where(p < P, p + 1, P + 1)
+    sim = simulate(arrays, curves, periods, 0.0, priority=scenario.harvest.priority,
+                   max_area_ha=scenario.harvest.max_area_ha_per_period, record=True,
+                   rule=Targets(tuple(lp.harvest_m3)), planned=planned)
+    got, want = float(sim.harvest_m3.sum()), float(lp.harvest_m3.sum())
+    gap = (want - got) / want if want > 0 else 0.0
+    why = (f"the LP ({lp.status.lower()}, objective {scenario.flow.objective}) on {lp.strata} "
+           f"strata; mapped onto stands the schedule takes {100 * (1 - gap):.2f}% of the LP's "
+           "volume")
+    need = scenario.flow.ending_stock * sim.initial_stock_m3
+    if sim.ending_stock_m3 < need * (1 - 1e-6):
+        why += (f"; on the stands the ending growing stock is {sim.ending_stock_m3:,.0f} m3, "
+                f"{100 * (1 - sim.ending_stock_m3 / need):.2f}% short of flow.ending_stock")
+    level = float(sim.harvest_m3[0])
+    return FlowResult(level, level / periods.period_years, sim, why, 1, "optimize",
+                      {"disaggregation_gap": gap})
+
+
+def lp_record(lp: LPResult | None, flow: FlowResult) -> dict | None:
+    """What run.json says of the LP: solver, status, size, objective, duals, gap."""
+    if lp is None:
+        return None
+    total = float(lp.harvest_m3.sum())
+    got = float(flow.simulation.harvest_m3.sum())
+    return {
+        "solver": f"HiGHS {library_versions().get('highspy', '')}",
+        "status": lp.status, "objective_m3": lp.objective, "seconds": round(lp.seconds, 3),
+        "strata": lp.strata, "columns": lp.columns, "rows": lp.rows,
+        "duals": lp.duals, "total_harvest_m3": total,
+        "gap_of_schedule_to_lp": (total - got) / total if total > 0 else 0.0,
+    }
 
 
 def stand_adjacency(scenario: Scenario, checked: CheckResult) -> Adjacency:
@@ -388,7 +464,8 @@ def run_record(result: RunResult, scenario: Scenario) -> dict:
             "harvestable_ha": float(result.inventory.netdown.harvestable_ha.sum()),
         },
         "flow": {
-            "policy": scenario.flow.policy,
+            "policy": flow.policy,
+            "method": scenario.flow.method,
             "level_m3_per_period": flow.level_m3_per_period,
             "level_m3_per_year": flow.level_m3_per_year,
             "binding": flow.binding,
@@ -398,6 +475,7 @@ def run_record(result: RunResult, scenario: Scenario) -> dict:
             "initial_growing_stock_m3": flow.simulation.initial_stock_m3,
             "ending_growing_stock_m3": flow.simulation.ending_stock_m3,
         },
+        "lp": result.lp,
         "timings_s": result.timings_s,
     }
 

@@ -26,7 +26,8 @@ def handle(args: argparse.Namespace) -> int:
               f"{scenario.scenario.period_years} years")
         what = {"even": "even-flow level", "nondeclining": "non-declining flow, period 1",
                 "stepdown": "step-down flow, initial level",
-                "targets": "targets, mean harvest"}[result.flow.policy]
+                "targets": "targets, mean harvest",
+                "optimize": "optimised (LP) flow, period 1"}[result.flow.policy]
         print(f"{what}: {result.flow.level_m3_per_year:,.0f} m3/year "
               f"({result.flow.level_m3_per_period:,.0f} m3 per period)")
         print(f"limited by: {result.flow.binding}")
@@ -35,6 +36,11 @@ def handle(args: argparse.Namespace) -> int:
             big = result.openings["area_ha"].max() if len(result.openings) else 0.0
             print(f"spatial rules cost {cost:,.0f} m3/year against the same policy without "
                   f"them; largest opening {big:,.1f} ha; no rule is broken")
+        if result.lp is not None:
+            gap = result.lp["gap_of_schedule_to_lp"]
+            print(f"harvest LP ({result.lp['status'].lower()}, {result.lp['strata']} strata): "
+                  f"{result.lp['total_harvest_m3'] / (len(wf) * scenario.scenario.period_years):,.0f}"
+                  f" m3/year over the horizon; the schedule is {100 * gap:.2f}% below it")
         ltsy = result.long_term_sustained_yield
         print(f"long-term sustained yield for comparison: {ltsy['at_culmination']:,.0f} m3/year "
               f"at MAI culmination, {ltsy['at_min_harvest_age']:,.0f} m3/year at the minimum "

@@ -15,8 +15,10 @@ from foresight.projection import CurveSet, Periods, StandArrays
 from foresight.schedule import FlowResult
 
 
-def wood_flow_table(flow: FlowResult, periods: Periods) -> pd.DataFrame:
-    """One row per period: harvest, area, mean harvest age, growing stock and growth."""
+def wood_flow_table(flow: FlowResult, periods: Periods, lp_bound: np.ndarray | None = None
+                    ) -> pd.DataFrame:
+    """One row per period: harvest, area, mean harvest age, growing stock and growth, and the
+    LP's harvest of the period when an LP was solved."""
     sim = flow.simulation
     h, ha = sim.harvest_m3, sim.harvest_ha
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -38,6 +40,7 @@ def wood_flow_table(flow: FlowResult, periods: Periods) -> pd.DataFrame:
         "net_growth_m3": gs1 - gs0 + h,
         "change_from_previous": change,
         "flow_level_m3": np.full(periods.count, flow.level_m3_per_period),
+        "lp_bound_m3": lp_bound if lp_bound is not None else np.full(periods.count, np.nan),
     })
 
 

@@ -23,8 +23,13 @@ PRIORITY_RULES: dict[str, tuple[PriorityKey, str]] = {
 }
 
 
-def cut_order(rule: str, age: NDArray, min_age: NDArray, vol: NDArray, id_rank: NDArray
-              ) -> NDArray[np.intp]:
-    """Positions sorted by the rule's key, descending, ties broken by ascending stand id."""
+def cut_order(rule: str, age: NDArray, min_age: NDArray, vol: NDArray, id_rank: NDArray,
+              first: NDArray | None = None) -> NDArray[np.intp]:
+    """Positions sorted by the rule's key, descending, ties broken by ascending stand id.
+
+    ``first`` (0 or 1 per position) puts the 0s ahead of the 1s, the rule ordering each group.
+    """
     key = PRIORITY_RULES[rule][0](age, min_age, vol)
-    return np.lexsort((id_rank, -key))
+    if first is None:
+        return np.lexsort((id_rank, -key))
+    return np.lexsort((id_rank, -key, first))

@@ -97,6 +97,7 @@ def simulate(
     rule: TargetRule | None = None,
     stable_periods: int = 0,
     spatial: SpatialRules | None = None,
+    planned: NDArray | None = None,
 ) -> Simulation:
     """Run the horizon at flow level ``level_m3`` [m3 per period].
 
@@ -108,6 +109,8 @@ def simulate(
     ``stable_periods`` = K > 0 the run also fails unless the growing stock on the harvestable
     land base at the end is at least its value K periods before the end. ``spatial``
     (:class:`SpatialRules`) adds green-up and opening-size rules over the adjacency graph.
+    ``planned`` (per stand, a period) puts stands planned for the period or earlier ahead of
+    the others in the queue (the mapping of an LP schedule onto stands).
     """
     if spatial is not None:
         spatial = spatial.fresh()
@@ -161,7 +164,8 @@ def simulate(
         cut_full = np.zeros(0, dtype=np.intp)
         part, frac, blocked = -1, 0.0, 0
         if target > 0 and len(elig):
-            order = cut_order(priority, age_h[elig], min_age[elig], vol_ha, rank[elig])
+            first = None if planned is None else (planned[stand[elig]] > p + 1).astype(np.int8)
+            order = cut_order(priority, age_h[elig], min_age[elig], vol_ha, rank[elig], first)
             cand = elig[order]
             v_ha = vol_ha[order]
             vol = v_ha * area[cand]

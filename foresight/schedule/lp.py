@@ -1,0 +1,318 @@
+"""Harvest scheduling as a linear programme (Model II; Johnson & Scheurman 1977), solved by HiGHS.
+
+Strata group the harvestable area of the stands by species, site class, age class and zone
+(area-weighted mean age and site). Variables, all areas [ha]:
+
+- ``x[s, p]``: area of existing stratum s first cut in period p (only where its age at the
+  harvest moment reaches the minimum harvest age), and ``x[s, 0]``: never cut;
+- ``y[g, i, j]``: area of regeneration group g (species x site class) that was cut in period i
+  and is cut again in period j > i (where its new age reaches the minimum), ``y[g, i, 0]``:
+  not cut again.
+
+Rows: each stratum's area is conserved; the area cut from group g in period i is the area that
+regenerates in i and is cut again later or never; harvest H_p is the volume of every cut in
+period p; flow rows tie consecutive H_p (even: equal, or within a band; non-declining:
+H_p >= H_{p-1}; none: no flow rows); the ending growing stock (including the area outside the harvestable land
+base, which is never cut) is at least ``ending_stock`` x the initial; an optional area cap.
+Objectives: ``max-even-flow`` maximises H_1 under the flow rows; ``max-volume`` the sum of H_p.
+
+The solution is mapped back to stands by cutting, within each stratum, stands in stand-id order
+until each period's stratum area is used (the last stand partly), and the volume of that
+stand schedule, read from the stands' own curves, is compared with the LP's: the gap is what
+aggregation into strata costs or adds.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+
+import highspy
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+from scipy.sparse import coo_matrix
+
+from foresight.errors import InputError
+from foresight.projection import CurveSet, Periods, StandArrays
+
+INF = highspy.kHighsInf
+
+
+@dataclass
+class Strata:
+    """Strata of the harvestable area: per stratum species, site, mean age, area, min age."""
+
+    species_idx: NDArray
+    site_index: NDArray
+    age_years: NDArray
+    area_ha: NDArray
+    min_age: NDArray
+    regen_delay: NDArray
+    group: NDArray  # regeneration group (species x site class)
+    of_stand: NDArray  # stratum of each stand (-1: no harvestable area)
+    group_species: NDArray
+    group_site: NDArray
+    group_min_age: NDArray
+    group_delay: NDArray
+
+    @property
+    def n(self) -> int:
+        return len(self.area_ha)
+
+
+def make_strata(stands: StandArrays, zone_codes: NDArray, site_step: float,
+                age_step: float) -> Strata:
+    """Group stands with harvestable area by species, site class, age class and zone."""
+    area = stands.harvestable_ha if stands.harvestable_ha is not None else stands.area_ha
+    live = area > 0
+    site_cls = np.round(stands.site_index / site_step).astype(np.int64)
+    age_cls = np.floor(stands.age_years / age_step).astype(np.int64)
+    key = pd.DataFrame({"sp": stands.species_idx, "si": site_cls, "age": age_cls,
+                        "zone": zone_codes, "min": stands.min_harvest_age})
+    codes = key[live].groupby(list(key.columns), sort=True).ngroup().to_numpy()
+    of_stand = np.full(stands.n, -1, dtype=np.int64)
+    of_stand[live] = codes
+    n = int(codes.max()) + 1 if len(codes) else 0
+    w = area[live]
+
+    def mean(v: NDArray) -> NDArray:
+        return np.bincount(codes, v[live] * w, n) / np.bincount(codes, w, n)
+
+    first = np.zeros(n, dtype=np.int64)
+    first[codes[::-1]] = np.flatnonzero(live)[::-1]  # a representative stand per stratum
+    site = mean(stands.site_index)
+    gkey = pd.DataFrame({"sp": stands.species_idx[first], "si": site_cls[first],
+                         "min": stands.min_harvest_age[first]})
+    group = gkey.groupby(list(gkey.columns), sort=True).ngroup().to_numpy()
+    ng = int(group.max()) + 1 if n else 0
+    gfirst = np.zeros(ng, dtype=np.int64)
+    gfirst[group[::-1]] = np.arange(n)[::-1]
+    return Strata(
+        species_idx=stands.species_idx[first], site_index=site, age_years=mean(stands.age_years),
+        area_ha=np.bincount(codes, w, n), min_age=stands.min_harvest_age[first],
+        regen_delay=stands.regen_delay_years[first], group=group, of_stand=of_stand,
+        group_species=stands.species_idx[first][gfirst], group_site=site[gfirst],
+        group_min_age=stands.min_harvest_age[first][gfirst],
+        group_delay=stands.regen_delay_years[first][gfirst],
+    )
+
+
+@dataclass
+class LPModel:
+    """min cost.x subject to row_lo <= A x <= row_hi, x >= 0 (A in CSC form)."""
+
+    cost: NDArray
+    matrix: object  # scipy.sparse.csc_matrix
+    row_lo: NDArray
+    row_hi: NDArray
+    h_col: NDArray
+    ending_row: int
+    flow_rows: list[int]
+    x_stratum: NDArray  # per column: stratum of an x column, -1 otherwise
+    x_period: NDArray  # per column: first-cut period of an x column, 0 otherwise
+    strata: int
+
+
+@dataclass
+class LPResult:
+    status: str
+    objective: float
+    harvest_m3: NDArray  # LP harvest per period
+    seconds: float
+    columns: int
+    rows: int
+    strata: int
+    duals: dict[str, float] = field(default_factory=dict)
+    cut_area: NDArray = field(default_factory=lambda: np.zeros(0))  # (strata, periods)
+
+
+def solve_lp(stands: StandArrays, curves: CurveSet, periods: Periods, strata: Strata,
+             objective: str = "max-even-flow", policy: str = "even", band: float = 0.0,
+             ending_stock: float = 1.0, max_area_ha: float | None = None) -> LPResult:
+    """Build the Model II LP of the module docstring and solve it with HiGHS."""
+    t0 = time.perf_counter()
+    model = build_lp(stands, curves, periods, strata, objective, policy, band, ending_stock,
+                     max_area_ha)
+    return solve_highs(model, periods, t0, ending_stock, max_area_ha, policy)
+
+
+def build_lp(stands: StandArrays, curves: CurveSet, periods: Periods, strata: Strata,
+             objective: str = "max-even-flow", policy: str = "even", band: float = 0.0,
+             ending_stock: float = 1.0, max_area_ha: float | None = None) -> LPModel:
+    """The Model II LP of the module docstring as a matrix model."""
+    P, L, off = periods.count, float(periods.period_years), periods.offset_years
+    S, G = strata.n, int(strata.group.max()) + 1 if strata.n else 0
+    # columns, built per period as arrays: kind (0 x, 1 y), a (stratum or group), b (period
+    # cut: x first cut / y established), c (y period cut again; 0 never), volume, end volume
+    parts = []
+    for p in range(1, P + 1):
+        age_h = strata.age_years + (p - 1) * L + off
+        ok = np.flatnonzero(age_h >= strata.min_age - 1e-9)
+        v = curves.volume_m3_ha(strata.species_idx[ok], age_h[ok], strata.site_index[ok])
+        parts.append((np.zeros(len(ok)), ok, np.full(len(ok), p), np.zeros(len(ok)), v,
+                      np.zeros(len(ok))))
+    v_end = curves.volume_m3_ha(strata.species_idx, strata.age_years + P * L,
+                                strata.site_index)
+    parts.append((np.zeros(S), np.arange(S), np.zeros(S), np.zeros(S), np.zeros(S), v_end))
+    for i in range(1, P + 1):
+        for j in range(i + 1, P + 1):
+            age = (j - i) * L - strata.group_delay
+            ok = np.flatnonzero(age >= strata.group_min_age - 1e-9)
+            v = curves.volume_m3_ha(strata.group_species[ok], age[ok], strata.group_site[ok])
+            parts.append((np.ones(len(ok)), ok, np.full(len(ok), i), np.full(len(ok), j), v,
+                          np.zeros(len(ok))))
+        age = (P - i) * L + (L - off) - strata.group_delay
+        v = curves.volume_m3_ha(strata.group_species, age, strata.group_site)
+        parts.append((np.ones(G), np.arange(G), np.full(G, i), np.zeros(G), np.zeros(G), v))
+    kind, a_, b_, c_, vol_a, end_a = (np.concatenate(col) for col in zip(*parts, strict=True))
+    vol_a[vol_a < 1e-6] = 0.0  # below a millilitre per hectare: nothing to a solver
+    end_a[end_a < 1e-6] = 0.0
+    a_, b_, c_ = a_.astype(np.int64), b_.astype(np.int64), c_.astype(np.int64)
+    xs, ys = kind == 0, kind == 1
+    nvar = len(kind)
+    h_col = nvar + np.arange(P)  # H_p variables
+    cols_idx = np.arange(nvar)
+
+    # rows: [0, S) stratum areas; then G*P regeneration balances; then P harvest definitions
+    reg0 = S
+    harv0 = S + G * P
+    ri, cj, vv = [], [], []
+    ri.append(a_[xs]); cj.append(cols_idx[xs]); vv.append(np.ones(int(xs.sum())))
+    yo = ys  # y established in period b_: leaves the balance of (g, b_)
+    ri.append(reg0 + a_[yo] * P + (b_[yo] - 1)); cj.append(cols_idx[yo])
+    vv.append(np.ones(int(yo.sum())))
+    yi = ys & (c_ > 0)  # y cut again in c_: enters the balance of (g, c_)
+    ri.append(reg0 + a_[yi] * P + (c_[yi] - 1)); cj.append(cols_idx[yi])
+    vv.append(-np.ones(int(yi.sum())))
+    xi = xs & (b_ > 0)  # existing area cut in b_: enters the balance of (group, b_)
+    ri.append(reg0 + strata.group[a_[xi]] * P + (b_[xi] - 1)); cj.append(cols_idx[xi])
+    vv.append(-np.ones(int(xi.sum())))
+    period_cut = np.where(xs, b_, c_)  # period in which a column cuts (0: none)
+    hv = (period_cut > 0) & (vol_a > 0)
+    ri.append(harv0 + period_cut[hv] - 1); cj.append(cols_idx[hv]); vv.append(vol_a[hv])
+    ri.append(harv0 + np.arange(P)); cj.append(h_col); vv.append(-np.ones(P))
+    lo = [*strata.area_ha, *np.zeros(G * P), *np.zeros(P)]
+    hi = [*strata.area_ha, *np.zeros(G * P), *np.zeros(P)]
+    nrow = harv0 + P
+
+    def add_row(cidx: NDArray, cval: NDArray, rlo: float, rhi: float) -> int:
+        nonlocal nrow
+        ri.append(np.full(len(cidx), nrow)); cj.append(np.asarray(cidx))
+        vv.append(np.asarray(cval, dtype=np.float64))
+        lo.append(rlo)
+        hi.append(rhi)
+        nrow += 1
+        return nrow - 1
+
+    flow_rows = []
+    for p in range(2, P + 1 if policy != "none" else 2):  # flow rows on consecutive H_p
+        pair = np.array([h_col[p - 1], h_col[p - 2]])
+        if policy == "nondeclining":
+            flow_rows.append(add_row(pair, np.array([1.0, -1.0]), 0.0, INF))
+        else:
+            flow_rows.append(add_row(pair, np.array([1.0, -(1 - band)]), 0.0, INF))
+            flow_rows.append(add_row(pair, np.array([1.0, -(1 + band)]), -INF, 0.0))
+    reserved_end = reserved_stock(stands, curves, periods)
+    initial = float(np.dot(curves.volume_m3_ha(stands.species_idx, stands.age_years,
+                                               stands.site_index), stands.area_ha))
+    idx = np.flatnonzero(end_a > 0)
+    ending_row = add_row(idx, end_a[idx], ending_stock * initial - reserved_end, INF)
+    if max_area_ha is not None:
+        for p in range(1, P + 1):
+            idx = np.flatnonzero(period_cut == p)
+            add_row(idx, np.ones(len(idx)), -INF, max_area_ha)
+    rows_i, rows_j, vals = ri, cj, vv
+    ncol = nvar + P
+    cost = np.zeros(ncol)
+    if objective == "max-volume":
+        cost[h_col] = -1.0
+    else:
+        cost[h_col[0]] = -1.0
+    A = coo_matrix((np.concatenate(vals), (np.concatenate(rows_i), np.concatenate(rows_j))),
+                   shape=(nrow, ncol)).tocsc()
+    xcol = xs & (b_ > 0)
+    x_stratum = np.where(xcol, a_, -1)
+    x_period = np.where(xcol, b_, 0)
+    return LPModel(cost, A, np.array(lo, dtype=np.float64), np.array(hi, dtype=np.float64),
+                   h_col, ending_row, flow_rows, np.r_[x_stratum, np.full(P, -1)],
+                   np.r_[x_period, np.zeros(P, dtype=np.int64)], S)
+
+
+def _new_highs() -> highspy.Highs:
+    """A silent HiGHS instance (its banner, printed once per process, kept off stdout)."""
+    import os
+    import sys
+
+    sys.stdout.flush()
+    saved = os.dup(1)
+    try:
+        with open(os.devnull, "w") as null:
+            os.dup2(null.fileno(), 1)
+            h = highspy.Highs()
+    finally:
+        os.dup2(saved, 1)
+        os.close(saved)
+    h.setOptionValue("output_flag", False)
+    return h
+
+
+def solve_highs(model: LPModel, periods: Periods, t0: float, ending_stock: float,
+                max_area_ha: float | None, policy: str) -> LPResult:
+    """Solve with HiGHS (interior point for large models); explain an infeasible model."""
+    A = model.matrix
+    ncol, nrow = A.shape[1], A.shape[0]
+    P = periods.count
+    h = _new_highs()
+    if model.strata * P > 20_000:
+        h.setOptionValue("solver", "ipm")  # far faster than simplex on large harvest LPs
+    lp = highspy.HighsLp()
+    lp.num_col_, lp.num_row_ = ncol, nrow
+    lp.col_cost_ = model.cost
+    lp.col_lower_ = np.zeros(ncol)
+    lp.col_upper_ = np.full(ncol, INF)
+    lp.row_lower_ = model.row_lo
+    lp.row_upper_ = model.row_hi
+    lp.a_matrix_.format_ = highspy.MatrixFormat.kColwise
+    lp.a_matrix_.start_ = A.indptr.astype(np.int32)
+    lp.a_matrix_.index_ = A.indices.astype(np.int32)
+    lp.a_matrix_.value_ = A.data
+    if h.passModel(lp) not in (highspy.HighsStatus.kOk, highspy.HighsStatus.kWarning):
+        raise RuntimeError("HiGHS did not accept the harvest LP")
+    h.run()
+    status = h.modelStatusToString(h.getModelStatus())
+    if h.getModelStatus() != highspy.HighsModelStatus.kOptimal:
+        raise InputError(explain_infeasible(status, ending_stock, max_area_ha, policy))
+    sol = h.getSolution()
+    x = np.asarray(sol.col_value)
+    dual = np.asarray(sol.row_dual)
+    cut = np.zeros((model.strata, P))
+    m = model.x_stratum >= 0
+    np.add.at(cut, (model.x_stratum[m], model.x_period[m] - 1), x[m])
+    # HiGHS reports duals of a minimisation; the objective here is maximised (cost = -volume)
+    duals = {"ending_stock_m3_per_m3": float(-dual[model.ending_row])}
+    if model.flow_rows:
+        duals["flow_rows_m3_per_m3"] = float(-dual[model.flow_rows].sum())
+    return LPResult(status, float(-h.getInfo().objective_function_value), x[model.h_col],
+                    time.perf_counter() - t0, ncol, nrow, model.strata, duals, cut)
+
+
+def reserved_stock(stands: StandArrays, curves: CurveSet, periods: Periods) -> float:
+    """Volume at the horizon's end on the area outside the harvestable land base."""
+    if stands.harvestable_ha is None:
+        return 0.0
+    area = stands.area_ha - stands.harvestable_ha
+    age = stands.age_years + periods.count * periods.period_years
+    return float(np.dot(curves.volume_m3_ha(stands.species_idx, age, stands.site_index), area))
+
+
+def explain_infeasible(status: str, ending_stock: float, max_area_ha: float | None,
+                       policy: str) -> str:
+    """Which constraint families can make the harvest LP infeasible, and what to relax."""
+    hints = [f"flow.ending_stock = {ending_stock:g} (try a lower share)"]
+    if max_area_ha is not None:
+        hints.append(f"harvest.max_area_ha_per_period = {max_area_ha:g}")
+    if policy in ("even", "nondeclining"):
+        hints.append(f"the {policy} flow rows (try flow.band > 0)")
+    return (f"the harvest LP is {status.lower()}: no schedule meets every constraint; the "
+            f"families that can bind are {', '.join(hints)}")

@@ -1,0 +1,102 @@
+"""The harvest LP (Model II, HiGHS) against an independent solver and known optima."""
+
+import warnings
+
+import numpy as np
+import pulp
+import pytest
+
+from foresight.errors import InputError
+from foresight.growth import ChapmanRichards, chapman_richards_culmination_age
+from foresight.projection import CurveSet, Periods, StandArrays
+from foresight.schedule import find_even_flow
+from foresight.schedule.lp import build_lp, make_strata, solve_lp
+
+CURVE = ChapmanRichards(450.0, 0.035, 3.0)
+CURVES = CurveSet(["pine"], [CURVE])
+PERIODS = Periods(2030, 10, 10, "midpoint")
+
+
+def forest(n=60, seed=4):
+    rng = np.random.default_rng(seed)
+    ages = np.where(rng.random(n) < 0.6, rng.uniform(90, 160, n), rng.uniform(0, 30, n))
+    return StandArrays(np.zeros(n, np.int32), np.full(n, 20.0), ages, rng.uniform(5, 30, n),
+                       np.full(n, 60.0), np.zeros(n), np.arange(n))
+
+
+def stand_strata(st):
+    # one stratum per stand: no aggregation, so every stand schedule is an LP solution
+    return make_strata(st, np.zeros(st.n, int), 1e-6, 1e-6)
+
+
+@pytest.mark.parametrize(("objective", "band", "cap"), [("max-even-flow", 0.0, None),
+                                                         ("max-volume", 0.1, 400.0)])
+def test_highs_matches_cbc_on_the_same_model(objective, band, cap):
+    # Independent solver: the same matrix model solved by CBC through PuLP.
+    st = forest()
+    model = build_lp(st, CURVES, PERIODS, stand_strata(st), objective, "even", band, 0.8, cap)
+    ours = solve_lp(st, CURVES, PERIODS, stand_strata(st), objective, "even", band, 0.8, cap)
+    A = model.matrix.tocsr()
+    prob = pulp.LpProblem("harvest", pulp.LpMinimize)
+    x = [prob.add_variable(f"x{i}", lowBound=0) for i in range(A.shape[1])]
+    prob += pulp.lpSum(float(c) * x[i] for i, c in enumerate(model.cost) if c)
+    for r in range(A.shape[0]):
+        cols = A.indices[A.indptr[r]:A.indptr[r + 1]]
+        vals = A.data[A.indptr[r]:A.indptr[r + 1]]
+        expr = pulp.lpSum(float(v) * x[c] for c, v in zip(cols, vals, strict=True))
+        lo, hi = model.row_lo[r], model.row_hi[r]
+        if lo == hi:
+            prob += expr == float(lo)
+        else:
+            if np.isfinite(lo) and lo > -1e29:
+                prob += expr >= float(lo)
+            if np.isfinite(hi) and hi < 1e29:
+                prob += expr <= float(hi)
+    with warnings.catch_warnings():
+        # PuLP 3 still ships CBC but announces its move to a separate package in PuLP 4
+        warnings.simplefilter("ignore", DeprecationWarning)
+        prob.solve(pulp.PULP_CBC_CMD(msg=False))
+    assert pulp.LpStatus[prob.status] == "Optimal"
+    assert -pulp.value(prob.objective) == pytest.approx(ours.objective, rel=1e-6)
+
+
+def test_lp_optimum_bounds_the_rule_based_forecast():
+    # Same aspatial constraints (strict even flow, ending stock): the LP's level is at least
+    # the rule-based scheduler's, since the rule-based schedule is one of the LP's solutions.
+    st = forest()
+    rules = find_even_flow(st, CURVES, PERIODS, band=0.0, ending_stock=1.0, max_area_ha=300.0)
+    lp = solve_lp(st, CURVES, PERIODS, stand_strata(st), "max-even-flow", "even", 0.0, 1.0,
+                  300.0)
+    assert lp.objective >= rules.level_m3_per_period * (1 - 1e-6)
+    np.testing.assert_allclose(lp.harvest_m3, lp.objective, rtol=1e-6)
+
+
+def test_regulated_forest_lp_gives_area_control_yield():
+    # (A/R) V(R) per year (Davis & Johnson; Bettinger et al. 2009, Ch. 11)
+    R, L = 60, 10
+    ages = np.arange(6, dtype=float) * 10 + 5
+    st = StandArrays(np.zeros(6, np.int32), np.full(6, 20.0), ages, np.full(6, 25.0),
+                     np.full(6, float(R)), np.zeros(6), np.arange(6))
+    lp = solve_lp(st, CURVES, Periods(2030, L, 12), stand_strata(st), ending_stock=1.0)
+    assert lp.objective == pytest.approx(150.0 / R * float(CURVE.volume_m3_ha(R, 20.0)) * L,
+                                         rel=1e-6)
+
+
+def test_long_horizon_max_volume_approaches_area_times_max_mai():
+    # Undiscounted maximum volume over a long horizon (Model II steady state, standard result):
+    # the mean harvest approaches area x maximum MAI, at rotations near the MAI culmination.
+    area, L, P = 100.0, 5, 80  # 400 years
+    st = StandArrays(np.zeros(1, np.int32), np.full(1, 20.0), np.zeros(1), np.full(1, area),
+                     np.zeros(1), np.zeros(1), np.zeros(1, int))
+    periods = Periods(2030, L, P, "start")
+    lp = solve_lp(st, CURVES, periods, stand_strata(st), "max-volume", "none", 0.0, 0.0)
+    t_star = chapman_richards_culmination_age(CURVE.k, CURVE.c)
+    best = area * float(CURVE.volume_m3_ha(t_star, 20.0)) / t_star
+    mean = lp.harvest_m3.sum() / (P * L)
+    assert best * 0.97 <= mean <= best * (1 + float(CURVE.a) / (P * L * best / area))
+
+
+def test_infeasible_lp_names_the_constraint_families():
+    st = forest(n=10)
+    with pytest.raises(InputError, match=r"harvest LP is infeasible.*flow.ending_stock = 50"):
+        solve_lp(st, CURVES, PERIODS, stand_strata(st), ending_stock=50.0)
