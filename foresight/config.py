@@ -99,6 +99,19 @@ KEYS: dict[str, dict[str, KeySpec]] = {
         "write_harvestable_layer": KeySpec("bool", False, "",
                                            "Also write the netted geometry as a layer."),
     },
+    "cover": {
+        "zone": KeySpec("str", "*", "", "Zone the target applies to; '*' for all together."),
+        "older_than_years": KeySpec("float", None, "years",
+                                    "Old-forest target: area at least this old ...",
+                                    check=_non_negative),
+        "min_share": KeySpec("float", None, "fraction", "... is at least this share.",
+                             check=lambda v: None if 0 <= v <= 1 else "must be in [0, 1]"),
+        "younger_than_years": KeySpec("float", None, "years",
+                                      "Young-forest limit: area younger than this ...",
+                                      check=_positive),
+        "max_share": KeySpec("float", None, "fraction", "... is at most this share.",
+                             check=lambda v: None if 0 <= v <= 1 else "must be in [0, 1]"),
+    },
     "landbase.steps": {
         "label": KeySpec("str", doc="Name of the step in the netdown table."),
         "where": KeySpec("str", None, doc="Attribute rule: stands matching it are removed."),
@@ -265,7 +278,7 @@ KEYS: dict[str, dict[str, KeySpec]] = {
 }
 
 SECTIONS = ("scenario", "inventory", "species", "harvest", "flow", "economics", "growth",
-            "landbase")
+            "landbase", "cover")
 STEP_KINDS = ("where", "layer", "raster", "percent")
 _ALL_PARAMETERS = {k for keys in CURVE_PARAMETERS.values() for k in keys}
 _SITE_KEYS = {"site_index_ref_m", "site_exponent_a", "site_exponent_k"}
@@ -319,6 +332,16 @@ class NetdownStep:
     band: int = 1
     above: float | None = None
     percent: float | None = None
+
+
+@dataclass(frozen=True)
+class CoverTarget:
+    """One cover target: ``kind`` "old" (min_share of area older than) or "young"."""
+
+    zone: str
+    kind: str
+    age_years: float
+    share: float
 
 
 @dataclass(frozen=True)
@@ -421,6 +444,7 @@ class Scenario:
     economics: EconomicsConfig = field(default_factory=EconomicsConfig)
     growth: GrowthConfig = field(default_factory=GrowthConfig)
     landbase: LandbaseConfig = field(default_factory=LandbaseConfig)
+    cover: tuple[CoverTarget, ...] = ()
     source: Path | None = None
     overrides: tuple[str, ...] = ()
 
@@ -488,6 +512,9 @@ def apply_override(raw: dict[str, Any], item: str) -> None:
     except tomllib.TOMLDecodeError:
         value = text.strip()
     parts = key.split(".")
+    if parts == ["cover"] and isinstance(value, list):  # an array of tables as a whole
+        raw["cover"] = value
+        return
     if len(parts) < 2 or parts[0] not in SECTIONS:
         raise ScenarioError(
             f"--set {item!r}: {key!r} is not a scenario key; keys look like section.key with "
@@ -576,8 +603,37 @@ def parse_scenario(
         for code, tbl in species_raw.items()
     }
     landbase = _landbase(raw.get("landbase", {}), base_dir, where)
+    cover = _cover(raw.get("cover", []), where)
+    if cover and flow.method == "optimize":
+        raise ScenarioError(f"{where}: [[cover]] targets are kept by the rule-based scheduler; "
+                            "use flow.method = 'rules' with them")
     return Scenario(info, inventory, species, harvest, flow, economics, growth, landbase,
-                    source, overrides)
+                    cover, source, overrides)
+
+
+def _cover(raw: Any, where: str) -> tuple[CoverTarget, ...]:
+    if not isinstance(raw, list):
+        raise ScenarioError(f"{where}: cover targets are an array of tables: [[cover]]")
+    out = []
+    for n, tbl in enumerate(raw, start=1):
+        sect = f"cover #{n}"
+        v = _take(tbl, "cover", where, shown=sect)
+        old = v["older_than_years"] is not None or v["min_share"] is not None
+        young = v["younger_than_years"] is not None or v["max_share"] is not None
+        if old == young:
+            raise ScenarioError(f"{where}: [[cover]] #{n} needs either older_than_years with "
+                                "min_share, or younger_than_years with max_share")
+        if old:
+            if v["older_than_years"] is None or v["min_share"] is None:
+                raise ScenarioError(f"{where}: [[cover]] #{n} needs both older_than_years and "
+                                    "min_share")
+            out.append(CoverTarget(v["zone"], "old", v["older_than_years"], v["min_share"]))
+        else:
+            if v["younger_than_years"] is None or v["max_share"] is None:
+                raise ScenarioError(f"{where}: [[cover]] #{n} needs both younger_than_years "
+                                    "and max_share")
+            out.append(CoverTarget(v["zone"], "young", v["younger_than_years"], v["max_share"]))
+    return tuple(out)
 
 
 def _landbase(raw: Any, base_dir: Path, where: str) -> LandbaseConfig:

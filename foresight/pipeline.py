@@ -39,7 +39,7 @@ from foresight.io.outputs import (
     write_json,
 )
 from foresight.io.vector import read_layer, write_gpkg_layer
-from foresight.projection import CurveSet, Periods, StandArrays
+from foresight.projection import CurveSet, Periods, StandArrays, zone_codes, zone_names
 from foresight.reporting import (
     harvests_layer,
     stands_layer,
@@ -50,6 +50,7 @@ from foresight.reporting.curves import curves_table
 from foresight.reporting.curves import notes as curve_notes
 from foresight.reporting.figures import curve_figure
 from foresight.schedule import FlowResult, schedule, simulate
+from foresight.schedule.cover import CoverRule, CoverRules
 from foresight.schedule.lp import LPResult, Strata, make_strata, solve_lp
 from foresight.schedule.policies import Targets
 from foresight.versions import library_versions
@@ -62,11 +63,12 @@ WOOD_FLOW_CSV = "wood_flow.csv"
 PRODUCTS_CSV = "wood_flow_by_product.csv"
 NETDOWN_CSV = "netdown.csv"
 OPENINGS_CSV = "openings.csv"
+COVER_CSV = "cover.csv"
 RUN_JSON = "run.json"
 CURVES_CSV = "curves.csv"
 FIGURES_DIR = "figures"
 # every entry foresight writes into an output directory (run, curves)
-MANAGED = frozenset({GPKG_NAME, WOOD_FLOW_CSV, PRODUCTS_CSV, NETDOWN_CSV, OPENINGS_CSV,
+MANAGED = frozenset({GPKG_NAME, WOOD_FLOW_CSV, PRODUCTS_CSV, NETDOWN_CSV, OPENINGS_CSV, COVER_CSV,
                      RUN_JSON, CURVES_CSV, FIGURES_DIR})
 
 
@@ -86,6 +88,7 @@ class RunResult:
     long_term_sustained_yield: dict[str, float] = field(default_factory=dict)  # m3/year
     openings: pd.DataFrame | None = None  # with spatial rules
     lp: dict | None = None  # the harvest LP: solver, status, objective, gap
+    cover: pd.DataFrame | None = None  # cover targets per period
 
     @property
     def level_m3_per_year(self) -> float:
@@ -243,13 +246,14 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
             assert lp is not None
             flow = lp_schedule(lp, strata, arrays, curves, periods, scenario)
         else:
+            cover = cover_rules(scenario, inventory)
             flow = schedule(arrays, curves, periods, scenario.flow, scenario.harvest,
-                            adjacency)
+                            adjacency, cover)
         openings = None
         if adjacency is not None:
             aspatial = schedule(arrays, curves, periods, scenario.flow,
                                 replace(scenario.harvest, greenup_years=0.0,
-                                        max_opening_ha=None))
+                                        max_opening_ha=None), None, cover)
             flow.details["aspatial_level_m3_per_period"] = aspatial.level_m3_per_period
             flow.details["spatial_cost_m3_per_period"] = (aspatial.level_m3_per_period
                                                           - flow.level_m3_per_period)
@@ -262,9 +266,12 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
         stands = stands_layer(flow, inventory.stands, arrays, curves, periods)
         harvests = harvests_layer(flow, inventory.stands, periods)
         products = wood_flow_by_product(flow, arrays, curves, scenario)
+    cover_table = None
+    if scenario.flow.method == "rules" and scenario.cover:
+        cover_table = cover_report(cover, flow, periods)
     result = RunResult(out, inventory, flow, wood_flow, stands, harvests, products,
                        timer.timings, scenario.landbase.write_harvestable_layer, ltsy, openings,
-                       lp_record(lp, flow))
+                       lp_record(lp, flow), cover_table)
     if out is not None:
         with staged_output(out, MANAGED) as tmp:
             with timer.stage("write outputs"):
@@ -292,6 +299,37 @@ def long_term_sustained_yield(scenario: Scenario, curves: CurveSet, arrays: Stan
                                      arrays.site_index[ok]) / r[ok]
     return {"at_culmination": float(np.dot(area, at_cul)),
             "at_min_harvest_age": float(np.dot(area, at_rot))}
+
+
+def cover_rules(scenario: Scenario, checked: CheckResult) -> CoverRules | None:
+    """The scenario's [[cover]] targets over the stands' zones (unknown zones are errors)."""
+    if not scenario.cover:
+        return None
+    names = zone_names(checked.stands)
+    codes = zone_codes(checked.stands)
+    area = np.bincount(codes, checked.stands["area_ha"].to_numpy(), len(names))
+    rules = []
+    for n, t in enumerate(scenario.cover, start=1):
+        if t.zone != "*" and t.zone not in names:
+            raise InputError(f"[[cover]] #{n}: zone {t.zone!r} is not a zone of the stands; "
+                             f"their zones: {', '.join(n for n in names if n) or '(none)'}")
+        code = -1 if t.zone == "*" else names.index(t.zone)
+        rules.append(CoverRule(code, t.zone, t.kind, t.age_years, t.share))
+    return CoverRules(tuple(rules), area)
+
+
+def cover_report(cover: CoverRules | None, flow: FlowResult, periods: Periods) -> pd.DataFrame:
+    """Per period and target: the share reached after the period's cut, and whether it holds."""
+    assert cover is not None
+    areas = flow.simulation.cover_area_ha
+    rows = []
+    for i, r in enumerate(cover.rules):
+        share = areas[:, i] / cover.area_of(r)
+        met = share >= r.share - 1e-9 if r.kind == "old" else share <= r.share + 1e-9
+        rows.append(pd.DataFrame({"period": np.arange(1, periods.count + 1), "zone": r.zone_name,
+                                  "rule": r.label, "target": r.share, "share": share,
+                                  "met": met}))
+    return pd.concat(rows, ignore_index=True)
 
 
 def harvest_lp(scenario: Scenario, arrays: StandArrays, curves: CurveSet, periods: Periods,
@@ -424,6 +462,9 @@ def write_tables(result: RunResult, directory: Path) -> None:
     result.wood_flow.to_csv(directory / WOOD_FLOW_CSV, index=False)
     result.products.to_csv(directory / PRODUCTS_CSV, index=False)
     result.inventory.netdown.table.to_csv(directory / NETDOWN_CSV, index=False)
+    if result.cover is not None:
+        write_gpkg_layer(gpkg, result.cover, "cover", spatial=False)
+        result.cover.to_csv(directory / COVER_CSV, index=False)
     if result.openings is not None:
         write_gpkg_layer(gpkg, result.openings, "openings", spatial=False)
         result.openings.to_csv(directory / OPENINGS_CSV, index=False)

@@ -198,6 +198,7 @@ class StandArrays:
     regen_delay_years: NDArray[np.float64]
     id_rank: NDArray[np.int64]  # rank of the stand id, the tie-breaker of every priority rule
     harvestable_ha: NDArray[np.float64] | None = None  # None: all of area_ha may be cut
+    zone_idx: NDArray[np.int64] | None = None  # zone code per stand (cover targets)
 
     @property
     def n(self) -> int:
@@ -230,6 +231,7 @@ class StandArrays:
             id_rank=rank,
             harvestable_ha=(stands["harvestable_ha"].to_numpy(dtype=np.float64)
                             if "harvestable_ha" in stands else None),
+            zone_idx=zone_codes(stands),
         )
 
 
@@ -242,3 +244,14 @@ def growing_stock_m3(curves: CurveSet, species_idx: NDArray, age_years: NDArray,
 def ages_by_period(age_years: NDArray, periods: Periods) -> NDArray[np.float64]:
     """Ages of unharvested stands at each period start and at the horizon end, shape (n, P+1)."""
     return age_years[:, None] + periods.period_years * np.arange(periods.count + 1)[None, :]
+
+
+def zone_codes(stands: pd.DataFrame) -> NDArray[np.int64]:
+    """Integer code of each stand's zone, in sorted order of the zone names ('' for none)."""
+    names = stands["zone"].fillna("").astype(str).to_numpy()
+    _, codes = np.unique(names, return_inverse=True)
+    return codes.astype(np.int64)
+
+
+def zone_names(stands: pd.DataFrame) -> list[str]:
+    return sorted(set(stands["zone"].fillna("").astype(str)))

@@ -22,6 +22,8 @@ from numpy.typing import NDArray
 from foresight.projection import CurveSet, Periods, StandArrays, growing_stock_m3
 from foresight.schedule.policies import EvenFlow, Targets
 from foresight.schedule.priority import cut_order
+from foresight.schedule.cover import CoverRules
+from foresight.schedule.picker import sequential_pick
 from foresight.schedule.spatial import SpatialRules
 
 TargetRule = EvenFlow | Targets | object  # anything with bounds(p, h_prev) -> (target, floor)
@@ -55,6 +57,7 @@ class Simulation:
     ending_stock_m3: float = float("nan")
     ending_hlb_stock_m3: float = float("nan")  # on the harvestable land base
     hlb_stock_start_m3: NDArray = field(default_factory=lambda: np.zeros(0))
+    cover_area_ha: NDArray = field(default_factory=lambda: np.zeros((0, 0)))  # periods x rules
     # harvest events, one per cut part (record=True only)
     event_stand: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
     event_period: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
@@ -98,6 +101,7 @@ def simulate(
     stable_periods: int = 0,
     spatial: SpatialRules | None = None,
     planned: NDArray | None = None,
+    cover: CoverRules | None = None,
 ) -> Simulation:
     """Run the horizon at flow level ``level_m3`` [m3 per period].
 
@@ -110,7 +114,9 @@ def simulate(
     land base at the end is at least its value K periods before the end. ``spatial``
     (:class:`SpatialRules`) adds green-up and opening-size rules over the adjacency graph.
     ``planned`` (per stand, a period) puts stands planned for the period or earlier ahead of
-    the others in the queue (the mapping of an LP schedule onto stands).
+    the others in the queue (the mapping of an LP schedule onto stands). ``cover``
+    (:class:`CoverRules`) keeps old- and young-forest shares per zone; it needs
+    ``stands.zone_idx``.
     """
     if spatial is not None:
         spatial = spatial.fresh()
@@ -137,6 +143,8 @@ def simulate(
     age = stands.age_years[stand]
     delay = stands.regen_delay_years[stand]
     rank = stands.id_rank[stand]
+    zone = (stands.zone_idx[stand] if stands.zone_idx is not None
+            else np.zeros(len(stand), dtype=np.int64))
 
     sim = Simulation(level_m3=level_m3, feasible=True)
     sim.initial_stock_m3 = growing_stock_m3(curves, sp, age, si, area)
@@ -147,6 +155,7 @@ def simulate(
     gs_end = np.full(P, np.nan)
     hlb_start = np.full(P, np.nan)
     events: list[tuple[NDArray, ...]] = []
+    cover_rows: list[NDArray] = []
 
     for p in range(P):
         if record:
@@ -169,11 +178,14 @@ def simulate(
             cand = elig[order]
             v_ha = vol_ha[order]
             vol = v_ha * area[cand]
-            if spatial is None:
+            rules: list = [spatial] if spatial is not None else []
+            if cover is not None:
+                rules.append(cover.budgets(zone[cand], age_h[cand], zone, age_h, area))
+            if not rules:
                 full_pos, part_pos, frac = _pick_prefix(vol, area[cand], target, cap)
             else:
-                full_pos, part_pos, frac, blocked = spatial.pick(
-                    p * L + off, stand[cand], vol, area[cand], target, cap)
+                full_pos, part_pos, frac, blocked = sequential_pick(
+                    p * L + off, stand[cand], vol, area[cand], target, cap, rules)
             cut_full = cand[full_pos]
             part = int(cand[part_pos]) if part_pos >= 0 else -1
             h[p] = vol[full_pos].sum() + (frac * vol[part_pos] if part >= 0 else 0.0)
@@ -191,6 +203,16 @@ def simulate(
                 events.append((stand[ev_parts], np.full(len(ev_parts), p + 1), age_h[ev_parts],
                                ev_area, ev_vol))
 
+        if record and cover is not None:
+            after_age = age_h.copy()
+            after_area = area.copy()
+            after_age[cut_full] = 0.0
+            if part >= 0:  # the cut share of the last stand restarts; the rest stays
+                after_age = np.r_[after_age, 0.0]
+                after_area = np.r_[after_area, frac * area[part]]
+                after_area[part] -= frac * area[part]
+            zones_after = zone if part < 0 else np.r_[zone, zone[part]]
+            cover_rows.append(cover.measure(zones_after, after_age, after_area))
         if h[p] < floor * (1 - _REL) and sim.feasible:
             sim.feasible = False
             sim.fail_period = p + 1
@@ -212,6 +234,7 @@ def simulate(
             sp, si = np.r_[sp, sp[part]], si.append(part)
             min_age, delay = np.r_[min_age, min_age[part]], np.r_[delay, delay[part]]
             rank = np.r_[rank, rank[part]]
+            zone = np.r_[zone, zone[part]]
             in_hlb = np.r_[in_hlb, in_hlb[part]]
             new_age = np.r_[new_age, regrown[part]]
             cut_area = frac * area[part]
@@ -236,6 +259,8 @@ def simulate(
             sim.fail_reason = (f"growing stock on the harvestable land base still falls over "
                                f"the last {stable_periods} periods")
     sim.hlb_stock_start_m3 = hlb_start
+    if cover_rows:
+        sim.cover_area_ha = np.vstack(cover_rows)
     sim.harvest_m3, sim.harvest_ha, sim.harvest_age_area = h, ha, age_area
     sim.growing_stock_start_m3, sim.growing_stock_end_m3 = gs_start, gs_end
     if record and events:

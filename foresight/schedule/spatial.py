@@ -8,9 +8,9 @@ neighbours may be open at once. Candidates are taken in priority order; a stand 
 a rule is skipped and the next one taken. A stand whose harvestable area alone exceeds the
 maximum opening is never cut (foresight does not split stands into several cut blocks).
 
-The pick is sequential by nature (each cut changes what its neighbours may do), so it runs as a
-Python loop over the candidates of a period until its target is met; openings at the start of a
-period come from one vectorised connected-components call.
+The pick is sequential by nature (each cut changes what its neighbours may do): see
+:mod:`foresight.schedule.picker`; openings at the start of a period come from one vectorised
+connected-components call and grow through a union-find as stands are cut.
 """
 
 from __future__ import annotations
@@ -43,74 +43,60 @@ class SpatialRules:
     def is_open(self, t: float) -> NDArray[np.bool_]:
         return (t - self.last_cut) < self.greenup_years - 1e-9
 
-    def pick(self, t: float, stands: NDArray, vol: NDArray, area: NDArray, target: float,
-             cap: float) -> tuple[NDArray, int, float, int]:
-        """Positions cut whole, position cut partly (-1), its fraction, candidates skipped."""
+    def begin(self, t: float) -> None:
+        """Openings at the start of a period's pick (one connected-components call)."""
+        self._t = t
         open_now = self.is_open(t)
         self.open_area[~open_now] = 0.0
-        urm = self.max_opening_ha <= 0
         labels = self.adjacency.components(open_now)
         n_labels = int(labels.max()) + 1 if (labels >= 0).any() else 0
-        comp_area = list(np.bincount(labels[open_now], self.open_area[open_now],
-                                     minlength=n_labels)) if n_labels else []
-        parent = list(range(n_labels))
+        self._comp_area = list(np.bincount(labels[open_now], self.open_area[open_now],
+                                           minlength=n_labels)) if n_labels else []
+        self._parent = list(range(n_labels))
+        self._label = labels.tolist()
+        self._open = open_now.tolist()
+        self._cut: dict[int, float] = {}
+        self._pending: tuple[set[int], float] = (set(), 0.0)
 
-        def find(x: int) -> int:
-            while parent[x] != x:
-                parent[x] = parent[parent[x]]
-                x = parent[x]
-            return x
+    def _find(self, x: int) -> int:
+        parent = self._parent
+        while parent[x] != x:
+            parent[x] = parent[parent[x]]
+            x = parent[x]
+        return x
 
-        indptr, indices = self.adjacency.indptr, self.adjacency.indices
-        label_list = labels.tolist()
-        is_open = open_now.tolist()
-        full: list[int] = []
-        part, frac, skipped = -1, 0.0, 0
-        got_v = got_a = 0.0
-        goal = min(target, float(vol.sum()))
-        cut_area: dict[int, float] = {}
-        for k in range(len(stands)):  # sequential: each cut changes its neighbours' options
-            if got_v >= goal * (1 - _REL) or got_a >= cap * (1 - _REL):
-                break
-            s = int(stands[k])
-            f = min(1.0, (goal - got_v) / vol[k], (cap - got_a) / area[k])
-            a = f * area[k]
-            if a <= _MIN_PART_HA:
-                break
-            nb = indices[indptr[s]:indptr[s + 1]]
-            if urm:
-                if any(is_open[j] for j in nb.tolist() if j != s):
-                    skipped += 1
-                    continue
-                roots: set[int] = set()
-                total = a
-            else:
-                if area[k] > self.max_opening_ha * (1 + _REL):
-                    skipped += 1  # larger than an opening: never cut
-                    continue
-                roots = {find(label_list[j]) for j in nb.tolist() if is_open[j]}
-                if is_open[s]:
-                    roots.add(find(label_list[s]))
-                total = a + sum(comp_area[r] for r in roots)
-                if total > self.max_opening_ha * (1 + _REL):
-                    skipped += 1
-                    continue
-            # cut it: it opens (or grows) one opening that absorbs its open neighbours'
-            new = len(parent)
-            parent.append(new)
-            comp_area.append(total)
-            for r in roots:
-                parent[r] = new
-            label_list[s] = new
-            is_open[s] = True
-            cut_area[s] = cut_area.get(s, 0.0) + a
-            got_v += f * vol[k]
-            got_a += a
-            if f < 1.0:
-                part, frac = k, f
-                break
-            full.append(k)
-        for s, a in cut_area.items():
-            self.last_cut[s] = t
+    def allows(self, k: int, s: int, full_area: float, a: float) -> bool:
+        """May stand s have area a cut now? (Remembers the openings it would join.)"""
+        nb = self.adjacency.indices[self.adjacency.indptr[s]:self.adjacency.indptr[s + 1]]
+        if self.max_opening_ha <= 0:
+            if any(self._open[j] for j in nb.tolist() if j != s):
+                return False
+            self._pending = (set(), a)
+            return True
+        if full_area > self.max_opening_ha * (1 + _REL):
+            return False  # larger than an opening: never cut
+        roots = {self._find(self._label[j]) for j in nb.tolist() if self._open[j]}
+        if self._open[s]:
+            roots.add(self._find(self._label[s]))
+        total = a + sum(self._comp_area[r] for r in roots)
+        if total > self.max_opening_ha * (1 + _REL):
+            return False
+        self._pending = (roots, total)
+        return True
+
+    def commit(self, k: int, s: int, a: float) -> None:
+        """Cut stand s (after :meth:`allows`): it opens, or grows, one opening."""
+        roots, total = self._pending
+        new = len(self._parent)
+        self._parent.append(new)
+        self._comp_area.append(total)
+        for r in roots:
+            self._parent[r] = new
+        self._label[s] = new
+        self._open[s] = True
+        self._cut[s] = self._cut.get(s, 0.0) + a
+
+    def end(self) -> None:
+        for s, a in self._cut.items():
+            self.last_cut[s] = self._t
             self.open_area[s] += a
-        return np.asarray(full, dtype=np.intp), part, frac, skipped

@@ -1,0 +1,99 @@
+"""Cover targets per zone: old-forest retention and young-forest limits, as per-period budgets.
+
+A rule applies to one zone or to all (``"*"``) and is judged on all forested area of the zone
+(harvestable or not) at each period's harvest moment, after the period's cut:
+
+- ``older_than_years`` + ``min_share``: area at least that old >= min_share x zone area;
+- ``younger_than_years`` + ``max_share``: area younger than that <= max_share x zone area
+  (a cut stand restarts at age 0, so every cut of a stand that is not already young adds).
+
+At the start of a period's pick each rule has a budget: the old area above its floor, or the
+young area left below its ceiling. A cut that would overdraw a budget is skipped and the next
+stand taken. A budget already overdrawn by growth alone (too little old forest to begin with)
+forbids every cut that draws on it, and the shortfall shows in the ``cover`` table.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+_REL = 1e-9
+
+
+@dataclass(frozen=True)
+class CoverRule:
+    zone: int  # zone code; -1: every zone together
+    zone_name: str
+    kind: str  # "old" | "young"
+    age_years: float
+    share: float
+
+    @property
+    def label(self) -> str:
+        if self.kind == "old":
+            return f"older than {self.age_years:g} y >= {self.share:.0%}"
+        return f"younger than {self.age_years:g} y <= {self.share:.0%}"
+
+
+@dataclass(frozen=True)
+class CoverRules:
+    rules: tuple[CoverRule, ...]
+    zone_area: NDArray  # gross area per zone code [ha]
+
+    def area_of(self, rule: CoverRule) -> float:
+        return float(self.zone_area.sum() if rule.zone < 0 else self.zone_area[rule.zone])
+
+    def measure(self, zone: NDArray, age: NDArray, area: NDArray) -> NDArray:
+        """Old or young area of each rule, for parts with these zones, ages, areas."""
+        out = np.zeros(len(self.rules))
+        for i, r in enumerate(self.rules):  # a handful of rules
+            inz = np.ones(len(zone), bool) if r.zone < 0 else zone == r.zone
+            hit = age >= r.age_years - 1e-9 if r.kind == "old" else age < r.age_years - 1e-9
+            out[i] = float(area[inz & hit].sum())
+        return out
+
+    def budgets(self, cand_zone: NDArray, cand_age: NDArray, zone: NDArray, age: NDArray,
+                area: NDArray) -> PeriodBudgets:
+        now = self.measure(zone, age, area)
+        budget = np.array([
+            now[i] - r.share * self.area_of(r) if r.kind == "old"
+            else r.share * self.area_of(r) - now[i]
+            for i, r in enumerate(self.rules)])
+        return PeriodBudgets(self, budget, cand_zone, cand_age)
+
+
+class PeriodBudgets:
+    """The budgets of one period's pick (the rule interface of the sequential picker)."""
+
+    def __init__(self, rules: CoverRules, budget: NDArray, cand_zone: NDArray,
+                 cand_age: NDArray):
+        self.rules, self.budget = rules, budget
+        self.cand_zone, self.cand_age = cand_zone, cand_age
+        self._draw: list[tuple[int, float]] = []
+
+    def begin(self, t: float) -> None:
+        pass
+
+    def allows(self, k: int, s: int, full_area: float, a: float) -> bool:
+        draws = []
+        for i, r in enumerate(self.rules.rules):
+            if r.zone >= 0 and self.cand_zone[k] != r.zone:
+                continue
+            old = self.cand_age[k] >= r.age_years - 1e-9
+            young = self.cand_age[k] < r.age_years - 1e-9
+            if (r.kind == "old" and old) or (r.kind == "young" and not young):
+                if a > self.budget[i] + _REL * max(1.0, self.rules.area_of(r)):
+                    return False
+                draws.append((i, a))
+        self._draw = draws
+        return True
+
+    def commit(self, k: int, s: int, a: float) -> None:
+        for i, used in self._draw:
+            self.budget[i] -= used
+
+    def end(self) -> None:
+        pass
