@@ -112,6 +112,14 @@ KEYS: dict[str, dict[str, KeySpec]] = {
         "max_share": KeySpec("float", None, "fraction", "... is at most this share.",
                              check=lambda v: None if 0 <= v <= 1 else "must be in [0, 1]"),
     },
+    "disturbance": {
+        "annual_rate": KeySpec("float", 0.0, "1/year",
+                               "Stand-replacing disturbance rate on unharvested area.",
+                               check=_fraction_below_one),
+        "replicates": KeySpec("int", 0, "", "Monte Carlo replicates (0: expected values only).",
+                              check=_non_negative),
+        "seed": KeySpec("int", 1, "", "Seed of the Monte Carlo draws."),
+    },
     "landbase.steps": {
         "label": KeySpec("str", doc="Name of the step in the netdown table."),
         "where": KeySpec("str", None, doc="Attribute rule: stands matching it are removed."),
@@ -278,7 +286,7 @@ KEYS: dict[str, dict[str, KeySpec]] = {
 }
 
 SECTIONS = ("scenario", "inventory", "species", "harvest", "flow", "economics", "growth",
-            "landbase", "cover")
+            "landbase", "cover", "disturbance")
 STEP_KINDS = ("where", "layer", "raster", "percent")
 _ALL_PARAMETERS = {k for keys in CURVE_PARAMETERS.values() for k in keys}
 _SITE_KEYS = {"site_index_ref_m", "site_exponent_a", "site_exponent_k"}
@@ -342,6 +350,13 @@ class CoverTarget:
     kind: str
     age_years: float
     share: float
+
+
+@dataclass(frozen=True)
+class DisturbanceConfig:
+    annual_rate: float = 0.0
+    replicates: int = 0
+    seed: int = 1
 
 
 @dataclass(frozen=True)
@@ -445,6 +460,7 @@ class Scenario:
     growth: GrowthConfig = field(default_factory=GrowthConfig)
     landbase: LandbaseConfig = field(default_factory=LandbaseConfig)
     cover: tuple[CoverTarget, ...] = ()
+    disturbance: DisturbanceConfig = field(default_factory=DisturbanceConfig)
     source: Path | None = None
     overrides: tuple[str, ...] = ()
 
@@ -607,8 +623,15 @@ def parse_scenario(
     if cover and flow.method == "optimize":
         raise ScenarioError(f"{where}: [[cover]] targets are kept by the rule-based scheduler; "
                             "use flow.method = 'rules' with them")
+    disturbance = DisturbanceConfig(**_take(raw.get("disturbance", {}), "disturbance", where))
+    if disturbance.annual_rate > 0 and flow.method == "optimize":
+        raise ScenarioError(f"{where}: [disturbance] is simulated by the rule-based scheduler; "
+                            "use flow.method = 'rules' with it")
+    if disturbance.replicates and disturbance.annual_rate <= 0:
+        raise ScenarioError(f"{where}: [disturbance] replicates = {disturbance.replicates} "
+                            "needs annual_rate > 0")
     return Scenario(info, inventory, species, harvest, flow, economics, growth, landbase,
-                    cover, source, overrides)
+                    cover, disturbance, source, overrides)
 
 
 def _cover(raw: Any, where: str) -> tuple[CoverTarget, ...]:

@@ -53,6 +53,7 @@ from foresight.schedule import FlowResult, schedule, simulate
 from foresight.schedule.cover import CoverRule, CoverRules
 from foresight.schedule.lp import LPResult, Strata, make_strata, solve_lp
 from foresight.schedule.policies import Targets
+from foresight.schedule.spatial import SpatialRules
 from foresight.versions import library_versions
 from foresight.zonal import zonal
 
@@ -64,11 +65,13 @@ PRODUCTS_CSV = "wood_flow_by_product.csv"
 NETDOWN_CSV = "netdown.csv"
 OPENINGS_CSV = "openings.csv"
 COVER_CSV = "cover.csv"
+MONTE_CARLO_CSV = "monte_carlo.csv"
 RUN_JSON = "run.json"
 CURVES_CSV = "curves.csv"
 FIGURES_DIR = "figures"
 # every entry foresight writes into an output directory (run, curves)
 MANAGED = frozenset({GPKG_NAME, WOOD_FLOW_CSV, PRODUCTS_CSV, NETDOWN_CSV, OPENINGS_CSV, COVER_CSV,
+                     MONTE_CARLO_CSV,
                      RUN_JSON, CURVES_CSV, FIGURES_DIR})
 
 
@@ -89,6 +92,7 @@ class RunResult:
     openings: pd.DataFrame | None = None  # with spatial rules
     lp: dict | None = None  # the harvest LP: solver, status, objective, gap
     cover: pd.DataFrame | None = None  # cover targets per period
+    monte_carlo: pd.DataFrame | None = None  # percentiles over disturbance replicates
 
     @property
     def level_m3_per_year(self) -> float:
@@ -247,13 +251,14 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
             flow = lp_schedule(lp, strata, arrays, curves, periods, scenario)
         else:
             cover = cover_rules(scenario, inventory)
+            rate = scenario.disturbance.annual_rate
             flow = schedule(arrays, curves, periods, scenario.flow, scenario.harvest,
-                            adjacency, cover)
+                            adjacency, cover, rate)
         openings = None
         if adjacency is not None:
             aspatial = schedule(arrays, curves, periods, scenario.flow,
                                 replace(scenario.harvest, greenup_years=0.0,
-                                        max_opening_ha=None), None, cover)
+                                        max_opening_ha=None), None, cover, rate)
             flow.details["aspatial_level_m3_per_period"] = aspatial.level_m3_per_period
             flow.details["spatial_cost_m3_per_period"] = (aspatial.level_m3_per_period
                                                           - flow.level_m3_per_period)
@@ -266,12 +271,17 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
         stands = stands_layer(flow, inventory.stands, arrays, curves, periods)
         harvests = harvests_layer(flow, inventory.stands, periods)
         products = wood_flow_by_product(flow, arrays, curves, scenario)
+    monte_carlo = None
+    if scenario.disturbance.replicates:
+        with timer.stage("Monte Carlo disturbance"):
+            monte_carlo = monte_carlo_table(flow, arrays, curves, periods, scenario,
+                                            adjacency, cover)
     cover_table = None
     if scenario.flow.method == "rules" and scenario.cover:
         cover_table = cover_report(cover, flow, periods)
     result = RunResult(out, inventory, flow, wood_flow, stands, harvests, products,
                        timer.timings, scenario.landbase.write_harvestable_layer, ltsy, openings,
-                       lp_record(lp, flow), cover_table)
+                       lp_record(lp, flow), cover_table, monte_carlo)
     if out is not None:
         with staged_output(out, MANAGED) as tmp:
             with timer.stage("write outputs"):
@@ -299,6 +309,43 @@ def long_term_sustained_yield(scenario: Scenario, curves: CurveSet, arrays: Stan
                                      arrays.site_index[ok]) / r[ok]
     return {"at_culmination": float(np.dot(area, at_cul)),
             "at_min_harvest_age": float(np.dot(area, at_rot))}
+
+
+def monte_carlo_table(flow: FlowResult, arrays: StandArrays, curves: CurveSet,
+                      periods: Periods, scenario: Scenario, adjacency: Adjacency | None,
+                      cover: CoverRules | None) -> pd.DataFrame:
+    """Replicates of the schedule's targets under random whole-stand disturbance.
+
+    Each replicate aims at the harvest the expected-value schedule takes in each period;
+    P10 / P50 / P90 of harvest and growing stock and the share of replicates that fall short
+    of the target are reported per period. The seed is ``disturbance.seed``.
+    """
+    d = scenario.disturbance
+    spatial = None
+    if adjacency is not None:
+        spatial = SpatialRules(adjacency, scenario.harvest.greenup_years,
+                               scenario.harvest.max_opening_ha or 0.0)
+    targets = tuple(flow.simulation.harvest_m3)
+    rng = np.random.default_rng(d.seed)
+    h, gs = [], []
+    for _ in range(d.replicates):  # replicates, each a vectorised horizon
+        sim = simulate(arrays, curves, periods, 0.0, priority=scenario.harvest.priority,
+                       max_area_ha=scenario.harvest.max_area_ha_per_period, record=True,
+                       rule=Targets(targets), spatial=spatial, cover=cover,
+                       disturbance=d.annual_rate, rng=rng)
+        h.append(sim.harvest_m3)
+        gs.append(sim.growing_stock_end_m3)
+    h_arr, gs_arr = np.array(h), np.array(gs)
+    short = h_arr < np.asarray(targets)[None, :] * (1 - 1e-6)
+    q = [10, 50, 90]
+    hp, gp = np.percentile(h_arr, q, axis=0), np.percentile(gs_arr, q, axis=0)
+    return pd.DataFrame({
+        "period": np.arange(1, periods.count + 1), "target_m3": targets,
+        "p10_m3": hp[0], "p50_m3": hp[1], "p90_m3": hp[2],
+        "shortfall_probability": short.mean(axis=0),
+        "growing_stock_p10_m3": gp[0], "growing_stock_p50_m3": gp[1],
+        "growing_stock_p90_m3": gp[2],
+    })
 
 
 def cover_rules(scenario: Scenario, checked: CheckResult) -> CoverRules | None:
@@ -462,6 +509,9 @@ def write_tables(result: RunResult, directory: Path) -> None:
     result.wood_flow.to_csv(directory / WOOD_FLOW_CSV, index=False)
     result.products.to_csv(directory / PRODUCTS_CSV, index=False)
     result.inventory.netdown.table.to_csv(directory / NETDOWN_CSV, index=False)
+    if result.monte_carlo is not None:
+        write_gpkg_layer(gpkg, result.monte_carlo, "monte_carlo", spatial=False)
+        result.monte_carlo.to_csv(directory / MONTE_CARLO_CSV, index=False)
     if result.cover is not None:
         write_gpkg_layer(gpkg, result.cover, "cover", spatial=False)
         result.cover.to_csv(directory / COVER_CSV, index=False)

@@ -41,6 +41,8 @@ def wood_flow_table(flow: FlowResult, periods: Periods, lp_bound: np.ndarray | N
         "change_from_previous": change,
         "flow_level_m3": np.full(periods.count, flow.level_m3_per_period),
         "lp_bound_m3": lp_bound if lp_bound is not None else np.full(periods.count, np.nan),
+        "disturbed_ha": sim.disturbed_ha if len(sim.disturbed_ha) else np.zeros(periods.count),
+        "disturbed_m3": sim.disturbed_m3 if len(sim.disturbed_m3) else np.zeros(periods.count),
     })
 
 

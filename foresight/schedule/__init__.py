@@ -27,7 +27,7 @@ __all__ = [
 
 
 def schedule(stands, curves, periods, flow_cfg, harvest_cfg, adjacency=None,  # noqa: ANN001
-             cover=None) -> FlowResult:
+             cover=None, disturbance=0.0) -> FlowResult:
     """Run the flow policy of the scenario (``[flow]``, ``[harvest]``) over the stands.
 
     With ``harvest.greenup_years`` > 0 the ``adjacency`` graph carries the spatial rules.
@@ -39,7 +39,7 @@ def schedule(stands, curves, periods, flow_cfg, harvest_cfg, adjacency=None,  # 
         spatial = SpatialRules(adjacency, harvest_cfg.greenup_years,
                                harvest_cfg.max_opening_ha or 0.0)
     common = {"priority": harvest_cfg.priority, "max_area_ha": harvest_cfg.max_area_ha_per_period,
-              "spatial": spatial, "cover": cover}
+              "spatial": spatial, "cover": cover, "disturbance": disturbance}
     if flow_cfg.policy == "targets":
         return run_targets(stands, curves, periods, flow_cfg.targets_m3,
                            ending_stock=flow_cfg.ending_stock, **common)

@@ -49,6 +49,7 @@ def find_even_flow(
     fixed: tuple[float, ...] = (),
     spatial: SpatialRules | None = None,
     cover: CoverRules | None = None,
+    disturbance: float = 0.0,
 ) -> FlowResult:
     """Bisection for the highest feasible even-flow level (see the module docstring).
 
@@ -61,7 +62,7 @@ def find_even_flow(
         rule = Sequence(fixed, level) if fixed else EvenFlow(level, band)
         return simulate(stands, curves, periods, level, priority=priority,
                         max_area_ha=max_area_ha, ending_stock=ending_stock, record=record,
-                        rule=rule, stable_periods=stable_periods, spatial=spatial, cover=cover)
+                        rule=rule, stable_periods=stable_periods, spatial=spatial, cover=cover, disturbance=disturbance)
 
     # U: what the first free period could yield if every eligible stand were cut, within the
     # area cap (later periods cannot hold more than that).
@@ -135,6 +136,7 @@ def find_step_down(
     ending_stock: float = 1.0, priority: str = "oldest", max_area_ha: float | None = None,
     stable_periods: int = 2, spatial: SpatialRules | None = None,
     cover: CoverRules | None = None,
+    disturbance: float = 0.0,
 ) -> FlowResult:
     """The highest initial level held as long as possible, then stepped down by at most
     ``step`` a period to the long-term level.
@@ -146,7 +148,7 @@ def find_step_down(
     (holding longer is never easier).
     """
     base = find_even_flow(stands, curves, periods, 0.0, ending_stock, priority, max_area_ha,
-                          stable_periods=stable_periods, spatial=spatial, cover=cover)
+                          stable_periods=stable_periods, spatial=spatial, cover=cover, disturbance=disturbance)
     lt = base.level_m3_per_period
     steps = base.steps
 
@@ -156,7 +158,7 @@ def find_step_down(
         return simulate(stands, curves, periods, h0, priority=priority,
                         max_area_ha=max_area_ha, ending_stock=ending_stock, record=record,
                         rule=StepDown(h0, hold, step, lt), stable_periods=stable_periods,
-                        spatial=spatial, cover=cover)
+                        spatial=spatial, cover=cover, disturbance=disturbance)
 
     def longest_hold(h0: float) -> int:
         if not run(h0, 1).feasible:
@@ -171,7 +173,7 @@ def find_step_down(
 
     upper = float(simulate(stands, curves, periods, float("inf"), priority=priority,
                            max_area_ha=max_area_ha, record=True,
-                           spatial=spatial, cover=cover).harvest_m3[0])
+                           spatial=spatial, cover=cover, disturbance=disturbance).harvest_m3[0])
     lo, hi = lt, max(upper, lt)
     best_hold = periods.count
     while hi - lo > 1e-6 * max(hi, 1.0):
@@ -197,10 +199,10 @@ def run_targets(stands: StandArrays, curves: CurveSet, periods: Periods,
                 targets: tuple[float, ...], priority: str = "oldest",
                 max_area_ha: float | None = None, ending_stock: float = 1.0,
                 spatial: SpatialRules | None = None,
-                cover: CoverRules | None = None) -> FlowResult:
+                cover: CoverRules | None = None, disturbance: float = 0.0) -> FlowResult:
     """Explicit per-period targets: one run; shortfalls and the ending stock are reported."""
     sim = simulate(stands, curves, periods, 0.0, priority=priority, max_area_ha=max_area_ha,
-                   record=True, rule=Targets(tuple(targets)), spatial=spatial, cover=cover)
+                   record=True, rule=Targets(tuple(targets)), spatial=spatial, cover=cover, disturbance=disturbance)
     short = np.maximum(np.asarray(targets) - sim.harvest_m3, 0.0)
     missed = np.flatnonzero(short > 1e-6 * np.maximum(np.asarray(targets), 1.0))
     parts = []
@@ -224,6 +226,7 @@ def find_nondeclining(
     priority: str = "oldest", max_area_ha: float | None = None,
     spatial: SpatialRules | None = None,
     cover: CoverRules | None = None,
+    disturbance: float = 0.0,
 ) -> FlowResult:
     """A non-declining flow built one period at a time (lexicographic max-min).
 
@@ -232,19 +235,19 @@ def find_nondeclining(
     period's harvest is thus the most that can be held from then on without a decline.
     """
     first = find_even_flow(stands, curves, periods, 0.0, ending_stock, priority, max_area_ha,
-                           spatial=spatial, cover=cover)
+                           spatial=spatial, cover=cover, disturbance=disturbance)
     fixed = [first.level_m3_per_period]
     steps = first.steps
     last = first
     for _ in range(1, periods.count):
         nxt = find_even_flow(stands, curves, periods, 0.0, ending_stock, priority,
-                             max_area_ha, fixed=tuple(fixed), spatial=spatial, cover=cover)
+                             max_area_ha, fixed=tuple(fixed), spatial=spatial, cover=cover, disturbance=disturbance)
         steps += nxt.steps
         fixed.append(max(nxt.level_m3_per_period, fixed[-1]))
         last = nxt
     final = simulate(stands, curves, periods, fixed[0], priority=priority,
                      max_area_ha=max_area_ha, ending_stock=ending_stock, record=True,
-                     rule=Sequence(tuple(fixed), fixed[-1]), spatial=spatial, cover=cover)
+                     rule=Sequence(tuple(fixed), fixed[-1]), spatial=spatial, cover=cover, disturbance=disturbance)
     if not final.feasible:
         raise RuntimeError(f"non-declining search ended infeasible ({final.fail_reason})")
     why = (f"period 1: {first.binding}; the last period's level is limited by: {last.binding}")

@@ -58,6 +58,10 @@ class Simulation:
     ending_hlb_stock_m3: float = float("nan")  # on the harvestable land base
     hlb_stock_start_m3: NDArray = field(default_factory=lambda: np.zeros(0))
     cover_area_ha: NDArray = field(default_factory=lambda: np.zeros((0, 0)))  # periods x rules
+    disturbed_ha: NDArray = field(default_factory=lambda: np.zeros(0))
+    disturbed_m3: NDArray = field(default_factory=lambda: np.zeros(0))
+    final_age_years: NDArray = field(default_factory=lambda: np.zeros(0))  # parts at the end
+    final_area_ha: NDArray = field(default_factory=lambda: np.zeros(0))
     # harvest events, one per cut part (record=True only)
     event_stand: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
     event_period: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
@@ -102,6 +106,8 @@ def simulate(
     spatial: SpatialRules | None = None,
     planned: NDArray | None = None,
     cover: CoverRules | None = None,
+    disturbance: float = 0.0,
+    rng: np.random.Generator | None = None,
 ) -> Simulation:
     """Run the horizon at flow level ``level_m3`` [m3 per period].
 
@@ -116,7 +122,9 @@ def simulate(
     ``planned`` (per stand, a period) puts stands planned for the period or earlier ahead of
     the others in the queue (the mapping of an LP schedule onto stands). ``cover``
     (:class:`CoverRules`) keeps old- and young-forest shares per zone; it needs
-    ``stands.zone_idx``.
+    ``stands.zone_idx``. ``disturbance`` is a stand-replacing rate per year applied at each
+    period's midpoint to area not cut in the period: as expected area fractions, or, with
+    ``rng``, as whole stands drawn at random (Monte Carlo).
     """
     if spatial is not None:
         spatial = spatial.fresh()
@@ -156,6 +164,8 @@ def simulate(
     hlb_start = np.full(P, np.nan)
     events: list[tuple[NDArray, ...]] = []
     cover_rows: list[NDArray] = []
+    dist_ha = np.zeros(P)
+    dist_m3 = np.zeros(P)
 
     for p in range(P):
         if record:
@@ -240,7 +250,37 @@ def simulate(
             cut_area = frac * area[part]
             area = np.r_[area, cut_area]
             area[part] -= cut_area
+        n_before = len(age)
         age = new_age
+        if disturbance > 0:
+            # stand-replacing disturbance at the period's midpoint on area not cut this period
+            exposed = np.zeros(len(age), dtype=bool)
+            exposed[:n_before] = True
+            exposed[cut_full] = False
+            exposed &= area > 0
+            share = 1.0 - (1.0 - disturbance) ** L
+            if rng is None:  # expected fractions: the burnt share of each stand regrows as one
+                idx = np.flatnonzero(exposed)
+                lost = share * area[idx]
+                vol = curves.volume_m3_ha(sp[idx], age[idx] - L / 2, terms=si.take(idx))
+                dist_ha[p], dist_m3[p] = lost.sum(), float(np.dot(vol, lost))
+                key = stand[idx] * 2 + in_hlb[idx]
+                _, first, inv = np.unique(key, return_index=True, return_inverse=True)
+                rep = idx[first]
+                area[idx] -= lost
+                stand = np.r_[stand, stand[rep]]
+                sp, si = np.r_[sp, sp[rep]], si.append(rep)
+                min_age, delay = np.r_[min_age, min_age[rep]], np.r_[delay, delay[rep]]
+                rank, zone = np.r_[rank, rank[rep]], np.r_[zone, zone[rep]]
+                in_hlb = np.r_[in_hlb, in_hlb[rep]]
+                age = np.r_[age, L / 2 - delay[rep]]
+                area = np.r_[area, np.bincount(inv, lost)]
+            else:  # Monte Carlo: whole stands burn with that probability
+                burn = rng.random(stands.n) < share
+                hit = np.flatnonzero(exposed & burn[stand])
+                vol = curves.volume_m3_ha(sp[hit], age[hit] - L / 2, terms=si.take(hit))
+                dist_ha[p], dist_m3[p] = area[hit].sum(), float(np.dot(vol, area[hit]))
+                age[hit] = L / 2 - delay[hit]
         if record or p == P - 1:
             stock = growing_stock_m3(curves, sp, age, si, area)
             gs_end[p] = stock
@@ -259,6 +299,9 @@ def simulate(
             sim.fail_reason = (f"growing stock on the harvestable land base still falls over "
                                f"the last {stable_periods} periods")
     sim.hlb_stock_start_m3 = hlb_start
+    sim.disturbed_ha, sim.disturbed_m3 = dist_ha, dist_m3
+    if record:
+        sim.final_age_years, sim.final_area_ha = age, area
     if cover_rows:
         sim.cover_area_ha = np.vstack(cover_rows)
     sim.harvest_m3, sim.harvest_ha, sim.harvest_age_area = h, ha, age_area
