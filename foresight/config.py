@@ -271,7 +271,9 @@ KEYS: dict[str, dict[str, KeySpec]] = {
         "method": KeySpec("choice", "rules", "", "rules: the rule-based scheduler; optimize: "
                           "the harvest LP, mapped to stands.", choices=("rules", "optimize")),
         "objective": KeySpec("choice", "max-even-flow", "", "LP objective.",
-                             choices=("max-even-flow", "max-volume")),
+                             choices=("max-even-flow", "max-volume", "max-npv")),
+        "terminal_value": KeySpec("choice", "none", "", "max-npv: value of the standing forest "
+                                  "at the horizon's end.", choices=("none", "standing")),
         "lp_bound": KeySpec("bool", True, "", "rules: also solve the LP as an upper bound."),
         "lp_site_class_m": KeySpec("float", 1.0, "m", "LP strata: site index class width.",
                                    check=_positive),
@@ -442,6 +444,7 @@ class FlowConfig:
     long_term_periods: int | None = None
     method: str = "rules"
     objective: str = "max-even-flow"
+    terminal_value: str = "none"
     lp_bound: bool = True
     lp_site_class_m: float = 1.0
     lp_age_class_years: float = 5.0
@@ -620,6 +623,14 @@ def parse_scenario(
     }
     landbase = _landbase(raw.get("landbase", {}), base_dir, where)
     cover = _cover(raw.get("cover", []), where)
+    if flow.objective == "max-npv":
+        if economics.discount_rate is None:
+            raise ScenarioError(f"{where}: [flow] objective = 'max-npv' needs [economics] "
+                                "discount_rate")
+        unpriced = sorted(c for c, sp in species.items() if sp.price_per_m3 is None)
+        if unpriced:
+            raise ScenarioError(f"{where}: [flow] objective = 'max-npv' needs price_per_m3 for "
+                                f"every species; missing for: {', '.join(unpriced)}")
     if cover and flow.method == "optimize":
         raise ScenarioError(f"{where}: [[cover]] targets are kept by the rule-based scheduler; "
                             "use flow.method = 'rules' with them")

@@ -51,7 +51,7 @@ from foresight.reporting.curves import notes as curve_notes
 from foresight.reporting.figures import curve_figure
 from foresight.schedule import FlowResult, schedule, simulate
 from foresight.schedule.cover import CoverRule, CoverRules
-from foresight.schedule.lp import LPResult, Strata, make_strata, solve_lp
+from foresight.schedule.lp import Economics, LPResult, Strata, make_strata, solve_lp
 from foresight.schedule.policies import Targets
 from foresight.schedule.spatial import SpatialRules
 from foresight.versions import library_versions
@@ -281,7 +281,7 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
         cover_table = cover_report(cover, flow, periods)
     result = RunResult(out, inventory, flow, wood_flow, stands, harvests, products,
                        timer.timings, scenario.landbase.write_harvestable_layer, ltsy, openings,
-                       lp_record(lp, flow), cover_table, monte_carlo)
+                       lp_record(lp, flow, scenario.flow.objective), cover_table, monte_carlo)
     if out is not None:
         with staged_output(out, MANAGED) as tmp:
             with timer.stage("write outputs"):
@@ -386,8 +386,15 @@ def harvest_lp(scenario: Scenario, arrays: StandArrays, curves: CurveSet, period
     zones = pd.factorize(checked.stands["zone"].fillna("").to_numpy())[0]
     strata = make_strata(arrays, zones, f.lp_site_class_m, f.lp_age_class_years)
     policy = "nondeclining" if f.policy == "nondeclining" else "even"
+    econ = None
+    if f.objective == "max-npv":
+        sp = [scenario.species[c] for c in curves.codes]
+        econ = Economics(np.array([s.price_per_m3 for s in sp], dtype=np.float64),
+                         np.array([s.regen_cost_per_ha for s in sp], dtype=np.float64),
+                         float(scenario.economics.discount_rate), scenario.economics.compounding,
+                         f.terminal_value)
     lp = solve_lp(arrays, curves, periods, strata, f.objective, policy, f.band,
-                  f.ending_stock, scenario.harvest.max_area_ha_per_period)
+                  f.ending_stock, scenario.harvest.max_area_ha_per_period, econ)
     log.info("harvest LP: %s, %d strata, %d columns, %d rows, %.1f s", lp.status, lp.strata,
              lp.columns, lp.rows, lp.seconds)
     return lp, strata
@@ -425,7 +432,7 @@ def lp_schedule(lp: LPResult, strata: Strata, arrays: StandArrays, curves: Curve
                       {"disaggregation_gap": gap})
 
 
-def lp_record(lp: LPResult | None, flow: FlowResult) -> dict | None:
+def lp_record(lp: LPResult | None, flow: FlowResult, objective: str) -> dict | None:
     """What run.json says of the LP: solver, status, size, objective, duals, gap."""
     if lp is None:
         return None
@@ -433,7 +440,9 @@ def lp_record(lp: LPResult | None, flow: FlowResult) -> dict | None:
     got = float(flow.simulation.harvest_m3.sum())
     return {
         "solver": f"HiGHS {library_versions().get('highspy', '')}",
-        "status": lp.status, "objective_m3": lp.objective, "seconds": round(lp.seconds, 3),
+        "status": lp.status, "objective": lp.objective,
+        "objective_unit": "currency (net present value)" if objective == "max-npv" else "m3",
+        "seconds": round(lp.seconds, 3),
         "strata": lp.strata, "columns": lp.columns, "rows": lp.rows,
         "duals": lp.duals, "total_harvest_m3": total,
         "gap_of_schedule_to_lp": (total - got) / total if total > 0 else 0.0,

@@ -150,3 +150,13 @@ def test_docs_describe_every_key():
     for section, keys in KEYS.items():
         for key in keys:
             assert re.search(rf"^\|\s*`{re.escape(key)}`", text, re.M), f"{section}.{key}"
+
+
+def test_max_npv_needs_prices_and_a_rate(tmp_path):
+    raw = scenario_dict(tmp_path / "x.gpkg", flow={"objective": "max-npv"})
+    with pytest.raises(ScenarioError, match=r"max-npv' needs \[economics\] discount_rate"):
+        load_scenario(write_scenario(tmp_path / "a.toml", raw))
+    raw["economics"] = {"discount_rate": 0.03}
+    with pytest.raises(ScenarioError, match=r"needs price_per_m3 for every species; missing "
+                                            r"for: pine"):
+        load_scenario(write_scenario(tmp_path / "b.toml", raw))

@@ -34,6 +34,7 @@ from numpy.typing import NDArray
 from scipy.sparse import coo_matrix
 
 from foresight.errors import InputError
+from foresight.growth.economics import growth_factor
 from foresight.projection import CurveSet, Periods, StandArrays
 
 INF = highspy.kHighsInf
@@ -127,19 +128,34 @@ class LPResult:
     cut_area: NDArray = field(default_factory=lambda: np.zeros(0))  # (strata, periods)
 
 
+@dataclass(frozen=True)
+class Economics:
+    """For ``max-npv``: net price [per m3] and regeneration cost [per ha] by species index,
+    the real discount rate and compounding, and how the standing forest at the horizon's end
+    is valued (``"none"``, or ``"standing"``: its volume at the net price)."""
+
+    price: NDArray
+    regen_cost: NDArray
+    rate: float
+    compounding: str = "continuous"
+    terminal_value: str = "none"
+
+
 def solve_lp(stands: StandArrays, curves: CurveSet, periods: Periods, strata: Strata,
              objective: str = "max-even-flow", policy: str = "even", band: float = 0.0,
-             ending_stock: float = 1.0, max_area_ha: float | None = None) -> LPResult:
+             ending_stock: float = 1.0, max_area_ha: float | None = None,
+             economics: Economics | None = None) -> LPResult:
     """Build the Model II LP of the module docstring and solve it with HiGHS."""
     t0 = time.perf_counter()
     model = build_lp(stands, curves, periods, strata, objective, policy, band, ending_stock,
-                     max_area_ha)
+                     max_area_ha, economics)
     return solve_highs(model, periods, t0, ending_stock, max_area_ha, policy)
 
 
 def build_lp(stands: StandArrays, curves: CurveSet, periods: Periods, strata: Strata,
              objective: str = "max-even-flow", policy: str = "even", band: float = 0.0,
-             ending_stock: float = 1.0, max_area_ha: float | None = None) -> LPModel:
+             ending_stock: float = 1.0, max_area_ha: float | None = None,
+             economics: Economics | None = None) -> LPModel:
     """The Model II LP of the module docstring as a matrix model."""
     P, L, off = periods.count, float(periods.period_years), periods.offset_years
     S, G = strata.n, int(strata.group.max()) + 1 if strata.n else 0
@@ -227,6 +243,19 @@ def build_lp(stands: StandArrays, curves: CurveSet, periods: Periods, strata: St
     cost = np.zeros(ncol)
     if objective == "max-volume":
         cost[h_col] = -1.0
+    elif objective == "max-npv":
+        if economics is None:
+            raise InputError("flow.objective = 'max-npv' needs prices and a discount rate")
+        sp = np.where(xs, strata.species_idx[np.clip(a_, 0, max(S - 1, 0))],
+                      strata.group_species[np.clip(a_, 0, max(G - 1, 0))])
+        t_cut = (period_cut - 1) * L + off
+        disc = 1.0 / growth_factor(t_cut, economics.rate, economics.compounding)
+        npv = np.where(period_cut > 0, (economics.price[sp] * vol_a - economics.regen_cost[sp])
+                       * disc, 0.0)
+        if economics.terminal_value == "standing":
+            npv = npv + economics.price[sp] * end_a / growth_factor(
+                np.full(nvar, P * L), economics.rate, economics.compounding)
+        cost[:nvar] = -npv
     else:
         cost[h_col[0]] = -1.0
     A = coo_matrix((np.concatenate(vals), (np.concatenate(rows_i), np.concatenate(rows_j))),

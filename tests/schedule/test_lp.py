@@ -100,3 +100,21 @@ def test_infeasible_lp_names_the_constraint_families():
     st = forest(n=10)
     with pytest.raises(InputError, match=r"harvest LP is infeasible.*flow.ending_stock = 50"):
         solve_lp(st, CURVES, PERIODS, stand_strata(st), ending_stock=50.0)
+
+
+def test_max_npv_on_bare_land_is_the_faustmann_value():
+    # Faustmann (1849): bare land cut every T years, regeneration cost c after each cut,
+    # continuous discounting at r: NPV = (p V(T) - c) / (e^(rT) - 1) (the land expectation
+    # value plus the first regeneration, which the LP does not charge). Over a long horizon the
+    # LP's optimum is that value at the best T on its 10-year grid.
+    from foresight.schedule.lp import Economics
+
+    p, c, r, L, P = 25.0, 600.0, 0.03, 10, 40
+    st = StandArrays(np.zeros(1, np.int32), np.full(1, 20.0), np.zeros(1), np.ones(1),
+                     np.zeros(1), np.zeros(1), np.zeros(1, int))
+    econ = Economics(np.array([p]), np.array([c]), r, "continuous", "none")
+    lp = solve_lp(st, CURVES, Periods(2030, L, P, "start"), stand_strata(st), "max-npv", "none",
+                  0.0, 0.0, None, econ)
+    T = np.arange(1, 30) * L
+    faustmann = ((p * CURVE.volume_m3_ha(T, 20.0) - c) / np.expm1(r * T)).max()
+    assert lp.objective == pytest.approx(faustmann, rel=1e-4)
