@@ -609,9 +609,6 @@ def parse_scenario(
     if flow.method == "optimize" and flow.policy not in ("even", "nondeclining"):
         raise ScenarioError(f"{where}: [flow] method = 'optimize' takes policy 'even' or "
                             f"'nondeclining', not {flow.policy!r}")
-    if flow.method == "optimize" and harvest.spatial:
-        raise ScenarioError(f"{where}: [flow] method = 'optimize' is aspatial; set "
-                            "harvest.greenup_years = 0 or use method = 'rules'")
     if flow.long_term_periods is not None and flow.long_term_periods > info.periods:
         raise ScenarioError(f"{where}: [flow] long_term_periods = {flow.long_term_periods} is "
                             f"longer than the horizon ({info.periods} periods)")
@@ -631,13 +628,7 @@ def parse_scenario(
         if unpriced:
             raise ScenarioError(f"{where}: [flow] objective = 'max-npv' needs price_per_m3 for "
                                 f"every species; missing for: {', '.join(unpriced)}")
-    if cover and flow.method == "optimize":
-        raise ScenarioError(f"{where}: [[cover]] targets are kept by the rule-based scheduler; "
-                            "use flow.method = 'rules' with them")
     disturbance = DisturbanceConfig(**_take(raw.get("disturbance", {}), "disturbance", where))
-    if disturbance.annual_rate > 0 and flow.method == "optimize":
-        raise ScenarioError(f"{where}: [disturbance] is simulated by the rule-based scheduler; "
-                            "use flow.method = 'rules' with it")
     if disturbance.replicates and disturbance.annual_rate <= 0:
         raise ScenarioError(f"{where}: [disturbance] replicates = {disturbance.replicates} "
                             "needs annual_rate > 0")

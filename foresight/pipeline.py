@@ -240,28 +240,35 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
         adjacency = None
         if scenario.harvest.spatial:
             adjacency = stand_adjacency(scenario, inventory)
+            big = (arrays.harvestable_ha if arrays.harvestable_ha is not None
+                   else arrays.area_ha) > (scenario.harvest.max_opening_ha or np.inf)
+            if big.any():
+                log.warning("%d stands (%.0f ha) are larger than harvest.max_opening_ha = %g "
+                            "and will never be cut", big.sum(), arrays.area_ha[big].sum(),
+                            scenario.harvest.max_opening_ha)
         lp = None
         fcfg = scenario.flow
         if fcfg.method == "optimize" or (fcfg.lp_bound and fcfg.policy in ("even",
                                                                            "nondeclining")):
             with timer.stage("harvest LP"):
                 lp, strata = harvest_lp(scenario, arrays, curves, periods, inventory)
+        cover = cover_rules(scenario, inventory)
+        rate = scenario.disturbance.annual_rate
         if fcfg.method == "optimize":
             assert lp is not None
-            flow = lp_schedule(lp, strata, arrays, curves, periods, scenario)
+            flow = lp_schedule(lp, strata, arrays, curves, periods, scenario, adjacency, cover)
         else:
-            cover = cover_rules(scenario, inventory)
-            rate = scenario.disturbance.annual_rate
             flow = schedule(arrays, curves, periods, scenario.flow, scenario.harvest,
                             adjacency, cover, rate)
         openings = None
         if adjacency is not None:
-            aspatial = schedule(arrays, curves, periods, scenario.flow,
-                                replace(scenario.harvest, greenup_years=0.0,
-                                        max_opening_ha=None), None, cover, rate)
-            flow.details["aspatial_level_m3_per_period"] = aspatial.level_m3_per_period
-            flow.details["spatial_cost_m3_per_period"] = (aspatial.level_m3_per_period
-                                                          - flow.level_m3_per_period)
+            if fcfg.method == "rules":
+                aspatial = schedule(arrays, curves, periods, scenario.flow,
+                                    replace(scenario.harvest, greenup_years=0.0,
+                                            max_opening_ha=None), None, cover, rate)
+                flow.details["aspatial_level_m3_per_period"] = aspatial.level_m3_per_period
+                flow.details["spatial_cost_m3_per_period"] = (aspatial.level_m3_per_period
+                                                              - flow.level_m3_per_period)
             openings = openings_table(flow, adjacency, periods, scenario.harvest)
             check_openings(openings, scenario.harvest)
     log.info("flow level %.0f m3/year; limited by %s", flow.level_m3_per_year, flow.binding)
@@ -277,7 +284,7 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
             monte_carlo = monte_carlo_table(flow, arrays, curves, periods, scenario,
                                             adjacency, cover)
     cover_table = None
-    if scenario.flow.method == "rules" and scenario.cover:
+    if scenario.cover:
         cover_table = cover_report(cover, flow, periods)
     result = RunResult(out, inventory, flow, wood_flow, stands, harvests, products,
                        timer.timings, scenario.landbase.write_harvestable_layer, ltsy, openings,
@@ -401,10 +408,16 @@ def harvest_lp(scenario: Scenario, arrays: StandArrays, curves: CurveSet, period
 
 
 def lp_schedule(lp: LPResult, strata: Strata, arrays: StandArrays, curves: CurveSet,
-                periods: Periods, scenario: Scenario) -> FlowResult:
+                periods: Periods, scenario: Scenario, adjacency: Adjacency | None = None,
+                cover: CoverRules | None = None) -> FlowResult:
     """Map the LP onto stands: each stratum's stands (in id order) are planned for the periods
     in which the LP cuts the stratum's area, and the scheduler then takes the LP's harvest of
-    each period as its target, planned stands first."""
+    each period as its target, planned stands first. The rules the LP does not model (spatial
+    rules, cover targets, disturbance) are applied here, so the gap shows what they cost."""
+    spatial = None
+    if adjacency is not None:
+        spatial = SpatialRules(adjacency, scenario.harvest.greenup_years,
+                               scenario.harvest.max_opening_ha or 0.0)
     P = periods.count
     planned = np.full(arrays.n, P + 1, dtype=np.int64)
     area = arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
@@ -417,7 +430,8 @@ def lp_schedule(lp: LPResult, strata: Strata, arrays: StandArrays, curves: Curve
         planned[members] = np.where(p < P, p + 1, P + 1)
     sim = simulate(arrays, curves, periods, 0.0, priority=scenario.harvest.priority,
                    max_area_ha=scenario.harvest.max_area_ha_per_period, record=True,
-                   rule=Targets(tuple(lp.harvest_m3)), planned=planned)
+                   rule=Targets(tuple(lp.harvest_m3)), planned=planned, spatial=spatial,
+                   cover=cover, disturbance=scenario.disturbance.annual_rate)
     got, want = float(sim.harvest_m3.sum()), float(lp.harvest_m3.sum())
     gap = (want - got) / want if want > 0 else 0.0
     why = (f"the LP ({lp.status.lower()}, objective {scenario.flow.objective}) on {lp.strata} "

@@ -29,9 +29,10 @@ def sample_run(tmp_path_factory):
 
 def test_sample_run_writes_its_outputs(sample_run):
     out, proc = sample_run
-    assert sorted(p.name for p in out.iterdir()) == ["netdown.csv", "projection.gpkg",
-                                                     "run.json", "wood_flow.csv",
-                                                     "wood_flow_by_product.csv"]
+    # the sample has spatial rules and cover targets, so openings and cover come too
+    assert sorted(p.name for p in out.iterdir()) == ["cover.csv", "netdown.csv", "openings.csv",
+                                                     "projection.gpkg", "run.json",
+                                                     "wood_flow.csv", "wood_flow_by_product.csv"]
     assert "even-flow level" in proc.stdout and "limited by" in proc.stdout
     assert "planning estimates" in proc.stdout
     assert "project and schedule" in proc.stderr  # progress per stage on stderr
@@ -120,13 +121,15 @@ def test_docs_describe_every_output_column(sample_run):
     text = (ROOT / "docs" / "outputs.md").read_text(encoding="utf-8")
     import re
     inputs = set(pyogrio.read_info(SCENARIO.parent / "norrowmere.gpkg", layer="stands")["fields"])
-    for layer in ("stands", "harvests", "wood_flow", "wood_flow_by_product", "netdown"):
+    for layer in ("stands", "harvests", "wood_flow", "wood_flow_by_product", "netdown",
+                  "openings", "cover"):
         cols = pyogrio.read_info(out / "projection.gpkg", layer=layer)["fields"]
         cols = [c for c in cols if c not in inputs]  # the layer's own attributes, carried
         for col in cols:
             col = re.sub(r"^removed_step\d+_ha$", "removed_step<N>_ha", col)
             assert re.search(rf"^\| `{re.escape(col)}` \|", text, re.M), f"{layer}.{col}"
-    for name in ("wood_flow.csv", "wood_flow_by_product.csv", "netdown.csv"):
+    for name in ("wood_flow.csv", "wood_flow_by_product.csv", "netdown.csv", "openings.csv",
+                 "cover.csv"):
         for col in pd.read_csv(out / name).columns:
             assert re.search(rf"^\| `{col}` \|", text, re.M), f"{name} {col}"
     for key in json.loads((out / "run.json").read_text()):
@@ -214,3 +217,16 @@ def test_optimised_mode_maps_the_lp_onto_stands(tmp_path):
     assert -1e-9 <= gap < 0.05
     assert wf["harvest_m3"].sum() == pytest.approx(wf["lp_bound_m3"].sum() * (1 - gap))
     assert (wf["harvest_m3"] <= wf["lp_bound_m3"] * (1 + 1e-9)).all()
+
+
+def test_sample_keeps_its_spatial_rules_and_cover_targets(sample_run):
+    out, proc = sample_run
+    assert "no rule is broken" in proc.stdout and "the schedule is" in proc.stdout
+    openings = pd.read_csv(out / "openings.csv")
+    assert openings["area_ha"].max() <= 60 + 1e-6  # harvest.max_opening_ha of the sample
+    cover = pd.read_csv(out / "cover.csv")
+    assert cover["met"].all() and set(cover["zone"]) == {"*", "valley"}
+    rec = json.loads((out / "run.json").read_text())
+    assert rec["lp"]["status"] == "Optimal"
+    assert rec["lp"]["total_harvest_m3"] >= pd.read_csv(out / "wood_flow.csv")[
+        "harvest_m3"].sum() * (1 - 1e-9)  # the LP bounds the rule-based schedule
