@@ -1,7 +1,7 @@
 """Time the adjacency graph and a spatial rule-based run.
 
-    python benchmarks/bench_adjacency.py                  # graph at 100k and 1M Voronoi stands
-    python benchmarks/bench_adjacency.py --spatial 100000 # also a spatial run of that many stands
+python benchmarks/bench_adjacency.py                  # graph at 100k and 1M Voronoi stands
+python benchmarks/bench_adjacency.py --spatial 100000 # also a spatial run of that many stands
 """
 
 from __future__ import annotations
@@ -41,26 +41,47 @@ def main() -> None:
         adj = build_adjacency(geoms, "edge")
         t = time.perf_counter() - t0
         peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024**2
-        print(f"adjacency of {len(geoms):,} stands: {adj.pairs:,} edge pairs in {t:.1f} s "
-              f"(peak RSS so far {peak:.1f} GB)", flush=True)
+        print(
+            f"adjacency of {len(geoms):,} stands: {adj.pairs:,} edge pairs in {t:.1f} s "
+            f"(peak RSS so far {peak:.1f} GB)",
+            flush=True,
+        )
     if args.spatial:
         n = args.spatial
         geoms = voronoi_stands(n)
         adj = build_adjacency(geoms, "edge")
         rng = np.random.default_rng(5)
-        ages = np.where(rng.random(len(geoms)) < 0.57, rng.uniform(91, 220, len(geoms)),
-                        rng.uniform(1, 40, len(geoms)))
+        ages = np.where(
+            rng.random(len(geoms)) < 0.57,
+            rng.uniform(91, 220, len(geoms)),
+            rng.uniform(1, 40, len(geoms)),
+        )
         m = len(geoms)
-        stands = StandArrays(np.zeros(m, np.int32), np.full(m, 20.0), ages,
-                             shapely.area(geoms) / 1e4, np.full(m, 60.0), np.zeros(m),
-                             np.arange(m))
+        stands = StandArrays(
+            np.zeros(m, np.int32),
+            np.full(m, 20.0),
+            ages,
+            shapely.area(geoms) / 1e4,
+            np.full(m, 60.0),
+            np.zeros(m),
+            np.arange(m),
+        )
         curves = CurveSet(["spruce"], [ChapmanRichards(620.0, 0.028, 3.0)])
         t0 = time.perf_counter()
-        flow = find_even_flow(stands, curves, Periods(2027, 10, 20), band=0.1,
-                              ending_stock=1.0, spatial=SpatialRules(adj, 20.0, 40.0))
-        print(f"spatial run (green-up 20 y, openings <= 40 ha) of {m:,} stands x 20 periods: "
-              f"{time.perf_counter() - t0:.1f} s, {flow.steps} trials, level "
-              f"{flow.level_m3_per_year:,.0f} m3/year", flush=True)
+        flow = find_even_flow(
+            stands,
+            curves,
+            Periods(2027, 10, 20),
+            band=0.1,
+            ending_stock=1.0,
+            spatial=SpatialRules(adj, 20.0, 40.0),
+        )
+        print(
+            f"spatial run (green-up 20 y, openings <= 40 ha) of {m:,} stands x 20 periods: "
+            f"{time.perf_counter() - t0:.1f} s, {flow.steps} trials, level "
+            f"{flow.level_m3_per_year:,.0f} m3/year",
+            flush=True,
+        )
 
 
 if __name__ == "__main__":

@@ -33,9 +33,15 @@ FAMILIES = {
     "logistic": LogisticYield(500.0, 30.0, 0.07, SITE),
     "gompertz": GompertzYield(500.0, 6.0, 0.04, SITE),
     "stock-threshold": StockGrowth(0.08, 600.0, 60.0, 40.0, SITE),
-    "table (3 classes)": TableYield((20.0, 40.0, 60.0, 80.0, 100.0, 120.0),
-                                    ((10, 60, 140, 220, 280, 310), (20, 110, 230, 330, 400, 440),
-                                     (35, 170, 320, 440, 520, 560)), (16.0, 20.0, 24.0)),
+    "table (3 classes)": TableYield(
+        (20.0, 40.0, 60.0, 80.0, 100.0, 120.0),
+        (
+            (10, 60, 140, 220, 280, 310),
+            (20, 110, 230, 330, 400, 440),
+            (35, 170, 320, 440, 520, 560),
+        ),
+        (16.0, 20.0, 24.0),
+    ),
 }
 
 
@@ -43,8 +49,10 @@ def main() -> None:
     rng = np.random.default_rng(1)
     age0 = rng.integers(0, 200, N).astype(float)
     site = rng.uniform(16, 24, N)
-    print(f"{N:,} stands x {P} ages = {N * P:,} evaluations, as the projection makes them: "
-          "site terms once per stand, then one call per period")
+    print(
+        f"{N:,} stands x {P} ages = {N * P:,} evaluations, as the projection makes them: "
+        "site terms once per stand, then one call per period"
+    )
     print(f"  {'family':<18} {'exact formula':>14} {'projection':>11}")
     for name, curve in FAMILIES.items():
         sp = np.zeros(N, dtype=np.int32)
@@ -70,10 +78,23 @@ def main() -> None:
     scenario = Path(__file__).resolve().parents[1] / "sample_region" / "scenario.toml"
     with tempfile.TemporaryDirectory() as tmp:
         t0 = time.perf_counter()
-        subprocess.run([sys.executable, "-m", "foresight.cli.main", "curves", str(scenario),
-                        "--out", tmp, "-q"], check=True)
-        print(f"foresight curves on the sample region: {time.perf_counter() - t0:.2f} s "
-              "(whole command, with start-up)")
+        subprocess.run(
+            [
+                sys.executable,
+                "-m",
+                "foresight.cli.main",
+                "curves",
+                str(scenario),
+                "--out",
+                tmp,
+                "-q",
+            ],
+            check=True,
+        )
+        print(
+            f"foresight curves on the sample region: {time.perf_counter() - t0:.2f} s "
+            "(whole command, with start-up)"
+        )
 
 
 if __name__ == "__main__":

@@ -38,10 +38,17 @@ def build(tmp: Path, n: int, segments: int, cells: int) -> tuple[Path, Path, Pat
     y = y0 + (i // per_row) * side
     species = rng.choice(["spruce", "pine", "fir", "aspen"], n, p=[0.4, 0.3, 0.2, 0.1])
     stands = gpd.GeoDataFrame(
-        {"STAND_NO": i + 1, "SPP": species, "SI_M": np.round(rng.uniform(15, 25, n), 1),
-         "AGE": rng.integers(1, 200, n), "ZONE": "valley",
-         "COVER": rng.choice(["forest", "rock"], n, p=[0.97, 0.03])},
-        geometry=shapely.box(x, y, x + side, y + side), crs="EPSG:32633")
+        {
+            "STAND_NO": i + 1,
+            "SPP": species,
+            "SI_M": np.round(rng.uniform(15, 25, n), 1),
+            "AGE": rng.integers(1, 200, n),
+            "ZONE": "valley",
+            "COVER": rng.choice(["forest", "rock"], n, p=[0.97, 0.03]),
+        },
+        geometry=shapely.box(x, y, x + side, y + side),
+        crs="EPSG:32633",
+    )
     gpkg = tmp / "region.gpkg"
     pyogrio.write_dataframe(stands, gpkg, layer="stands", use_arrow=True)
     extent = per_row * side
@@ -50,17 +57,28 @@ def build(tmp: Path, n: int, segments: int, cells: int) -> tuple[Path, Path, Pat
     steps = rng.normal(0, 60, (segments, 7, 2)) + np.array([70.0, 20.0])
     coords = np.concatenate([start[:, None, :], start[:, None, :] + np.cumsum(steps, 1)], 1)
     lines = shapely.linestrings(coords)
-    streams = gpd.GeoDataFrame({"STREAM_CLASS": rng.choice([1, 2, 3], segments,
-                                                            p=[0.1, 0.3, 0.6])},
-                               geometry=lines, crs="EPSG:32633")
+    streams = gpd.GeoDataFrame(
+        {"STREAM_CLASS": rng.choice([1, 2, 3], segments, p=[0.1, 0.3, 0.6])},
+        geometry=lines,
+        crs="EPSG:32633",
+    )
     pyogrio.write_dataframe(streams, gpkg, layer="streams", append=True, use_arrow=True)
     cell = extent / cells
     yy = np.linspace(0, 6 * np.pi, cells, dtype=np.float32)
     slope = (25 + 20 * np.sin(yy)[:, None] * np.cos(yy)[None, :]).astype(np.float32)
     tif = tmp / "slope.tif"
-    with rasterio.open(tif, "w", driver="GTiff", width=cells, height=cells, count=1,
-                       dtype="float32", crs="EPSG:32633", tiled=True,
-                       transform=from_origin(x0, y0 + extent, cell, cell)) as dst:
+    with rasterio.open(
+        tif,
+        "w",
+        driver="GTiff",
+        width=cells,
+        height=cells,
+        count=1,
+        dtype="float32",
+        crs="EPSG:32633",
+        tiled=True,
+        transform=from_origin(x0, y0 + extent, cell, cell),
+    ) as dst:
         dst.write(slope, 1)
     return gpkg, tif, tmp
 
@@ -80,18 +98,35 @@ def main() -> None:
         t0 = time.perf_counter()
         gpkg, tif, _ = build(Path(tmp), args.stands, args.segments, args.cells)
         print(f"built inputs in {time.perf_counter() - t0:.1f} s")
-        base = [f"inventory.path={json.dumps(str(gpkg))}", "inventory.layer=stands",
-                "inventory.fields.site_index=SI_M"]
+        base = [
+            f"inventory.path={json.dumps(str(gpkg))}",
+            "inventory.layer=stands",
+            "inventory.fields.site_index=SI_M",
+        ]
         steps = [
             {"label": "rock", "where": "COVER == 'rock'"},
-            {"label": "riparian", "layer": str(gpkg), "layer_name": "streams",
-             "buffer_by": {"field": "STREAM_CLASS", "widths_m": {"1": 30, "2": 20, "3": 10}}},
+            {
+                "label": "riparian",
+                "layer": str(gpkg),
+                "layer_name": "streams",
+                "buffer_by": {"field": "STREAM_CLASS", "widths_m": {"1": 30, "2": 20, "3": 10}},
+            },
             {"label": "steep", "raster": str(tif), "above": 40},
             {"label": "roads", "percent": 3},
         ]
-        toml_steps = "[" + ", ".join(
-            "{" + ", ".join(f"{k} = {json.dumps(v) if not isinstance(v, dict) else _inline(v)}"
-                            for k, v in s.items()) + "}" for s in steps) + "]"
+        toml_steps = (
+            "["
+            + ", ".join(
+                "{"
+                + ", ".join(
+                    f"{k} = {json.dumps(v) if not isinstance(v, dict) else _inline(v)}"
+                    for k, v in s.items()
+                )
+                + "}"
+                for s in steps
+            )
+            + "]"
+        )
         raw = tomllib.loads(SCENARIO.read_text())
         raw["inventory"].pop("from_raster", None)  # the sample's rasters cover the sample only
         raw["landbase"] = {"steps": []}
@@ -108,16 +143,25 @@ def main() -> None:
         t_net = time.perf_counter() - t0
         peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024**2
         print(res.netdown.table.to_string(index=False))
-        print(f"{args.stands:,} stands, {args.segments:,} stream segments, "
-              f"{args.cells:,} x {args.cells:,} raster: check without netdown {t_plain:.1f} s, "
-              f"with netdown {t_net:.1f} s (netdown {t_net - t_plain:.1f} s), "
-              f"peak RSS {peak:.1f} GB")
+        print(
+            f"{args.stands:,} stands, {args.segments:,} stream segments, "
+            f"{args.cells:,} x {args.cells:,} raster: check without netdown {t_plain:.1f} s, "
+            f"with netdown {t_net:.1f} s (netdown {t_net - t_plain:.1f} s), "
+            f"peak RSS {peak:.1f} GB"
+        )
 
 
 def _inline(d: dict) -> str:
-    return "{" + ", ".join(f"{k} = {_inline(v) if isinstance(v, dict) else json.dumps(v)}"
-                           if k.isidentifier() else f'"{k}" = {json.dumps(v)}'
-                           for k, v in d.items()) + "}"
+    return (
+        "{"
+        + ", ".join(
+            f"{k} = {_inline(v) if isinstance(v, dict) else json.dumps(v)}"
+            if k.isidentifier()
+            else f'"{k}" = {json.dumps(v)}'
+            for k, v in d.items()
+        )
+        + "}"
+    )
 
 
 if __name__ == "__main__":

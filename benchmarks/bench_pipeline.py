@@ -44,9 +44,16 @@ def build_region(n: int, path: Path) -> None:
     age = np.where(old, rng.integers(91, 220, n), rng.integers(1, 40, n))
     age = np.where(species == "aspen", np.minimum(age, 140), age)
     frame = gpd.GeoDataFrame(
-        {"STAND_NO": i + 1, "SPP": species, "SI_M": np.round(rng.uniform(15, 25, n), 1),
-         "AGE": age, "ZONE": rng.choice(["highland", "valley", "lakeshore"], n)},
-        geometry=shapely.box(x, y, x + side, y + side), crs="EPSG:32633")
+        {
+            "STAND_NO": i + 1,
+            "SPP": species,
+            "SI_M": np.round(rng.uniform(15, 25, n), 1),
+            "AGE": age,
+            "ZONE": rng.choice(["highland", "valley", "lakeshore"], n),
+        },
+        geometry=shapely.box(x, y, x + side, y + side),
+        crs="EPSG:32633",
+    )
     pyogrio.write_dataframe(frame, path, layer="stands", driver="GPKG", use_arrow=True)
 
 
@@ -65,7 +72,6 @@ def synthetic_scenario(gpkg: Path, n: int):
 
 
 def one_size(n: int) -> dict:
-    import foresight
     from foresight.pipeline import RunResult, check, write_outputs
     from foresight.projection import CurveSet, Periods, StandArrays
     from foresight.reporting import (
@@ -88,16 +94,26 @@ def one_size(n: int) -> dict:
         t0 = time.perf_counter()
         periods, curves = Periods.from_scenario(scn), CurveSet.from_scenario(scn)
         arrays = StandArrays.from_table(inv.stands, scn, curves)
-        flow = find_even_flow(arrays, curves, periods, band=scn.flow.band,
-                              ending_stock=scn.flow.ending_stock,
-                              priority=scn.harvest.priority,
-                              max_area_ha=scn.harvest.max_area_ha_per_period)
+        flow = find_even_flow(
+            arrays,
+            curves,
+            periods,
+            band=scn.flow.band,
+            ending_stock=scn.flow.ending_stock,
+            priority=scn.harvest.priority,
+            max_area_ha=scn.harvest.max_area_ha_per_period,
+        )
         t["project_schedule_s"] = time.perf_counter() - t0
         t0 = time.perf_counter()
-        result = RunResult(None, inv, flow, wood_flow_table(flow, periods),
-                           stands_layer(flow, inv.stands, arrays, curves, periods),
-                           harvests_layer(flow, inv.stands, periods),
-                           wood_flow_by_product(flow, arrays, curves, scn))
+        result = RunResult(
+            None,
+            inv,
+            flow,
+            wood_flow_table(flow, periods),
+            stands_layer(flow, inv.stands, arrays, curves, periods),
+            harvests_layer(flow, inv.stands, periods),
+            wood_flow_by_product(flow, arrays, curves, scn),
+        )
         t["tables_s"] = time.perf_counter() - t0
         t0 = time.perf_counter()
         out = tmp / "out"
@@ -124,23 +140,31 @@ def main() -> None:
         return
     rows = []
     for n in args.sizes:
-        proc = subprocess.run([sys.executable, __file__, "--one", str(n)], capture_output=True,
-                              text=True, check=True)
+        proc = subprocess.run(
+            [sys.executable, __file__, "--one", str(n)], capture_output=True, text=True, check=True
+        )
         row = json.loads(proc.stdout.strip().splitlines()[-1])
         rows.append(row)
-        print(f"{n:>9,} stands x {row['periods']} periods: read+check {row['read_check_s']:.2f} s, "
-              f"project+schedule {row['project_schedule_s']:.2f} s ({row['search_steps']} "
-              f"search steps), tables {row['tables_s']:.2f} s, write {row['write_s']:.2f} s "
-              f"({row['harvest_rows']:,} harvest rows), total {row['total_s']:.1f} s, "
-              f"peak RSS {row['peak_rss_gb']:.2f} GB", flush=True)
+        print(
+            f"{n:>9,} stands x {row['periods']} periods: read+check {row['read_check_s']:.2f} s, "
+            f"project+schedule {row['project_schedule_s']:.2f} s ({row['search_steps']} "
+            f"search steps), tables {row['tables_s']:.2f} s, write {row['write_s']:.2f} s "
+            f"({row['harvest_rows']:,} harvest rows), total {row['total_s']:.1f} s, "
+            f"peak RSS {row['peak_rss_gb']:.2f} GB",
+            flush=True,
+        )
     if args.markdown:
-        print("\n| stands | read + check s | project + schedule s | tables s | write s | "
-              "total s | peak RSS GB |")
+        print(
+            "\n| stands | read + check s | project + schedule s | tables s | write s | "
+            "total s | peak RSS GB |"
+        )
         print("|---:|---:|---:|---:|---:|---:|---:|")
         for r in rows:
-            print(f"| {r['stands']:,} | {r['read_check_s']:.2f} | {r['project_schedule_s']:.2f} |"
-                  f" {r['tables_s']:.2f} | {r['write_s']:.2f} | {r['total_s']:.1f} |"
-                  f" {r['peak_rss_gb']:.2f} |")
+            print(
+                f"| {r['stands']:,} | {r['read_check_s']:.2f} | {r['project_schedule_s']:.2f} |"
+                f" {r['tables_s']:.2f} | {r['write_s']:.2f} | {r['total_s']:.1f} |"
+                f" {r['peak_rss_gb']:.2f} |"
+            )
 
 
 if __name__ == "__main__":

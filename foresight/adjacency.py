@@ -39,7 +39,7 @@ class Adjacency:
         return len(self.indices) // 2
 
     def neighbours(self, i: int) -> NDArray[np.int64]:
-        return self.indices[self.indptr[i]:self.indptr[i + 1]]
+        return self.indices[self.indptr[i] : self.indptr[i + 1]]
 
     @classmethod
     def from_pairs(cls, n: int, i: NDArray, j: NDArray) -> Adjacency:
@@ -60,16 +60,16 @@ class Adjacency:
         pos[idx] = np.arange(len(idx))
         rows = np.repeat(np.arange(self.n), np.diff(self.indptr))
         keep = members[rows] & members[self.indices]
-        sub = coo_matrix((np.ones(int(keep.sum()), dtype=np.int8),
-                          (pos[rows[keep]], pos[self.indices[keep]])),
-                         shape=(len(idx), len(idx)))
+        sub = coo_matrix(
+            (np.ones(int(keep.sum()), dtype=np.int8), (pos[rows[keep]], pos[self.indices[keep]])),
+            shape=(len(idx), len(idx)),
+        )
         _, labels = connected_components(sub, directed=False)
         out[idx] = labels
         return out
 
 
-def build_adjacency(geoms: NDArray, mode: str = "edge", separation: float = 0.0
-                    ) -> Adjacency:
+def build_adjacency(geoms: NDArray, mode: str = "edge", separation: float = 0.0) -> Adjacency:
     """Neighbours of every stand; ``separation`` in the geometries' CRS units (0: touching)."""
     if mode not in MODES:
         raise ValueError(f"adjacency mode {mode!r}: choose one of {', '.join(MODES)}")

@@ -77,7 +77,9 @@ KEYS: dict[str, dict[str, KeySpec]] = {
         "period_years": KeySpec("int", 10, "years", "Length of one period.", check=_positive),
         "periods": KeySpec("int", 20, "", "Number of periods in the horizon.", check=_positive),
         "harvest_timing": KeySpec(
-            "choice", "midpoint", "",
+            "choice",
+            "midpoint",
+            "",
             "Moment within a period at which its harvest is taken and ages are judged.",
             choices=TIMINGS,
         ),
@@ -85,56 +87,95 @@ KEYS: dict[str, dict[str, KeySpec]] = {
     "inventory": {
         "path": KeySpec("str", doc="Stand layer file, relative to the scenario file."),
         "layer": KeySpec("str", None, doc="Layer name; may be left out if the file has one."),
-        "crs": KeySpec("str", None, doc="CRS of the layer (e.g. 'EPSG:32633'), only if it has none."),
-        "raster_wins": KeySpec("bool", False, "",
-                               "Raster values replace layer values (else they fill gaps)."),
+        "crs": KeySpec(
+            "str", None, doc="CRS of the layer (e.g. 'EPSG:32633'), only if it has none."
+        ),
+        "raster_wins": KeySpec(
+            "bool", False, "", "Raster values replace layer values (else they fill gaps)."
+        ),
     },
     "inventory.from_raster": {
-        "site_index": KeySpec("str", None, "m",
-                              "Raster of site index to fill stand values by zonal mean."),
+        "site_index": KeySpec(
+            "str", None, "m", "Raster of site index to fill stand values by zonal mean."
+        ),
         "band": KeySpec("int", 1, "", "Band of the raster to read.", check=_positive),
     },
     "landbase": {
         "steps": KeySpec("steps", (), "", "Netdown steps, applied in order."),
-        "write_harvestable_layer": KeySpec("bool", False, "",
-                                           "Also write the netted geometry as a layer."),
+        "write_harvestable_layer": KeySpec(
+            "bool", False, "", "Also write the netted geometry as a layer."
+        ),
     },
     "cover": {
         "zone": KeySpec("str", "*", "", "Zone the target applies to; '*' for all together."),
-        "older_than_years": KeySpec("float", None, "years",
-                                    "Old-forest target: area at least this old ...",
-                                    check=_non_negative),
-        "min_share": KeySpec("float", None, "fraction", "... is at least this share.",
-                             check=lambda v: None if 0 <= v <= 1 else "must be in [0, 1]"),
-        "younger_than_years": KeySpec("float", None, "years",
-                                      "Young-forest limit: area younger than this ...",
-                                      check=_positive),
-        "max_share": KeySpec("float", None, "fraction", "... is at most this share.",
-                             check=lambda v: None if 0 <= v <= 1 else "must be in [0, 1]"),
+        "older_than_years": KeySpec(
+            "float",
+            None,
+            "years",
+            "Old-forest target: area at least this old ...",
+            check=_non_negative,
+        ),
+        "min_share": KeySpec(
+            "float",
+            None,
+            "fraction",
+            "... is at least this share.",
+            check=lambda v: None if 0 <= v <= 1 else "must be in [0, 1]",
+        ),
+        "younger_than_years": KeySpec(
+            "float",
+            None,
+            "years",
+            "Young-forest limit: area younger than this ...",
+            check=_positive,
+        ),
+        "max_share": KeySpec(
+            "float",
+            None,
+            "fraction",
+            "... is at most this share.",
+            check=lambda v: None if 0 <= v <= 1 else "must be in [0, 1]",
+        ),
     },
     "disturbance": {
-        "annual_rate": KeySpec("float", 0.0, "1/year",
-                               "Stand-replacing disturbance rate on unharvested area.",
-                               check=_fraction_below_one),
-        "replicates": KeySpec("int", 0, "", "Monte Carlo replicates (0: expected values only).",
-                              check=_non_negative),
+        "annual_rate": KeySpec(
+            "float",
+            0.0,
+            "1/year",
+            "Stand-replacing disturbance rate on unharvested area.",
+            check=_fraction_below_one,
+        ),
+        "replicates": KeySpec(
+            "int", 0, "", "Monte Carlo replicates (0: expected values only).", check=_non_negative
+        ),
         "seed": KeySpec("int", 1, "", "Seed of the Monte Carlo draws."),
     },
     "landbase.steps": {
         "label": KeySpec("str", doc="Name of the step in the netdown table."),
         "where": KeySpec("str", None, doc="Attribute rule: stands matching it are removed."),
-        "layer": KeySpec("str", None, doc="Overlay vector file (polygons, or lines/points "
-                         "with a buffer)."),
+        "layer": KeySpec(
+            "str", None, doc="Overlay vector file (polygons, or lines/points with a buffer)."
+        ),
         "layer_name": KeySpec("str", None, doc="Layer inside the overlay file."),
-        "buffer_m": KeySpec("float", None, "m", "Buffer around every overlay feature.",
-                            check=_non_negative),
+        "buffer_m": KeySpec(
+            "float", None, "m", "Buffer around every overlay feature.", check=_non_negative
+        ),
         "buffer_by": KeySpec("table", None, "", "Buffer width by class: field and widths_m."),
         "raster": KeySpec("str", None, doc="Raster mask file."),
         "band": KeySpec("int", 1, "", "Band of the raster mask.", check=_positive),
-        "above": KeySpec("float", None, "raster units",
-                         "Remove the part of the stand where the raster exceeds this."),
-        "percent": KeySpec("float", None, "%", "Flat deduction of the remaining area.",
-                           check=lambda v: None if 0 <= v <= 100 else "must be in [0, 100]"),
+        "above": KeySpec(
+            "float",
+            None,
+            "raster units",
+            "Remove the part of the stand where the raster exceeds this.",
+        ),
+        "percent": KeySpec(
+            "float",
+            None,
+            "%",
+            "Flat deduction of the remaining area.",
+            check=lambda v: None if 0 <= v <= 100 else "must be in [0, 100]",
+        ),
     },
     "inventory.fields": {
         "stand_id": KeySpec("str", doc="Layer field holding a unique stand identifier."),
@@ -145,24 +186,44 @@ KEYS: dict[str, dict[str, KeySpec]] = {
     },
     "species.*": {
         "curve": KeySpec("choice", doc="Yield curve family.", choices=CURVES),
-        "a": KeySpec("float", None, "m3/ha", "Asymptote (chapman-richards, schumacher, logistic, "
-                     "gompertz) at the reference site.", check=_positive),
-        "k": KeySpec("float", None, "1/year", "Rate (chapman-richards, logistic, gompertz).",
-                     check=_positive),
+        "a": KeySpec(
+            "float",
+            None,
+            "m3/ha",
+            "Asymptote (chapman-richards, schumacher, logistic, gompertz) at the reference site.",
+            check=_positive,
+        ),
+        "k": KeySpec(
+            "float", None, "1/year", "Rate (chapman-richards, logistic, gompertz).", check=_positive
+        ),
         "c": KeySpec("float", None, "", "Chapman-Richards shape exponent.", check=_positive),
-        "b": KeySpec("float", None, "", "Schumacher b [years]; logistic / gompertz b [-].",
-                     check=_positive),
-        "r": KeySpec("float", None, "1/year", "Intrinsic growth rate of a stock-growth model.",
-                     check=_positive),
-        "capacity_m3_ha": KeySpec("float", None, "m3/ha", "Carrying capacity K of a stock model.",
-                                  check=_positive),
-        "initial_m3_ha": KeySpec("float", None, "m3/ha", "Stock at age 0 of a stock model.",
-                                 check=_positive),
-        "min_viable_m3_ha": KeySpec("float", None, "m3/ha",
-                                    "Minimum viable stock of stock-threshold (0 < m < K).",
-                                    check=_positive),
+        "b": KeySpec(
+            "float", None, "", "Schumacher b [years]; logistic / gompertz b [-].", check=_positive
+        ),
+        "r": KeySpec(
+            "float",
+            None,
+            "1/year",
+            "Intrinsic growth rate of a stock-growth model.",
+            check=_positive,
+        ),
+        "capacity_m3_ha": KeySpec(
+            "float", None, "m3/ha", "Carrying capacity K of a stock model.", check=_positive
+        ),
+        "initial_m3_ha": KeySpec(
+            "float", None, "m3/ha", "Stock at age 0 of a stock model.", check=_positive
+        ),
+        "min_viable_m3_ha": KeySpec(
+            "float",
+            None,
+            "m3/ha",
+            "Minimum viable stock of stock-threshold (0 < m < K).",
+            check=_positive,
+        ),
         "site_index_ref_m": KeySpec(
-            "float", None, "m",
+            "float",
+            None,
+            "m",
             "Reference site index of the parameters; leave out for no site dependence.",
             check=_positive,
         ),
@@ -173,122 +234,204 @@ KEYS: dict[str, dict[str, KeySpec]] = {
             "float", 0.0, "", "Age runs faster by (SI / site_index_ref_m) to this power."
         ),
         "ages": KeySpec("floats", None, "years", "Table curve: ages, strictly increasing."),
-        "volumes_m3_ha": KeySpec("volumes", None, "m3/ha",
-                                 "Table curve: volume at each age (one array per site class)."),
-        "site_classes_m": KeySpec("floats", None, "m",
-                                  "Table curve: site index of each row of volumes_m3_ha."),
+        "volumes_m3_ha": KeySpec(
+            "volumes", None, "m3/ha", "Table curve: volume at each age (one array per site class)."
+        ),
+        "site_classes_m": KeySpec(
+            "floats", None, "m", "Table curve: site index of each row of volumes_m3_ha."
+        ),
         "table_csv": KeySpec(
-            "str", None, "",
+            "str",
+            None,
+            "",
             "Table curve from a CSV file (columns age_years, volume_m3_ha and optionally "
             "site_index_m), relative to the scenario file.",
         ),
-        "min_harvest_age": KeySpec("float", None, "years", "Youngest age that may be cut.",
-                                   check=_non_negative),
+        "min_harvest_age": KeySpec(
+            "float", None, "years", "Youngest age that may be cut.", check=_non_negative
+        ),
         "min_harvest_mai_share": KeySpec(
-            "float", None, "fraction",
+            "float",
+            None,
+            "fraction",
             "Youngest age at which MAI reaches this share of its maximum.",
             check=lambda v: None if 0 < v <= 1 else "must be > 0 and <= 1",
         ),
-        "min_harvest_volume_m3_ha": KeySpec("float", None, "m3/ha",
-                                            "Youngest age with at least this volume.",
-                                            check=_positive),
-        "min_harvest_economic": KeySpec("bool", False, "",
-                                        "Not before the Faustmann (LEV-maximising) rotation."),
+        "min_harvest_volume_m3_ha": KeySpec(
+            "float", None, "m3/ha", "Youngest age with at least this volume.", check=_positive
+        ),
+        "min_harvest_economic": KeySpec(
+            "bool", False, "", "Not before the Faustmann (LEV-maximising) rotation."
+        ),
         "regen_delay_years": KeySpec(
-            "float", 0.0, "years", "Years from harvest until the new stand starts at age 0.",
+            "float",
+            0.0,
+            "years",
+            "Years from harvest until the new stand starts at age 0.",
             check=_non_negative,
         ),
-        "site_index_min_m": KeySpec("float", None, "m", "Lowest site index the curve is valid for."),
-        "site_index_max_m": KeySpec("float", None, "m", "Highest site index the curve is valid for."),
-        "price_per_m3": KeySpec("float", None, "currency/m3", "Net price of harvested wood.",
-                                check=_non_negative),
-        "regen_cost_per_ha": KeySpec("float", 0.0, "currency/ha",
-                                     "Regeneration cost at the start of each rotation.",
-                                     check=_non_negative),
-        "annual_cost_per_ha": KeySpec("float", 0.0, "currency/ha/yr", "Annual cost.",
-                                      check=_non_negative),
-        "products": KeySpec("table", None, "",
-                            "Product split by age: ages and one share array per product."),
+        "site_index_min_m": KeySpec(
+            "float", None, "m", "Lowest site index the curve is valid for."
+        ),
+        "site_index_max_m": KeySpec(
+            "float", None, "m", "Highest site index the curve is valid for."
+        ),
+        "price_per_m3": KeySpec(
+            "float", None, "currency/m3", "Net price of harvested wood.", check=_non_negative
+        ),
+        "regen_cost_per_ha": KeySpec(
+            "float",
+            0.0,
+            "currency/ha",
+            "Regeneration cost at the start of each rotation.",
+            check=_non_negative,
+        ),
+        "annual_cost_per_ha": KeySpec(
+            "float", 0.0, "currency/ha/yr", "Annual cost.", check=_non_negative
+        ),
+        "products": KeySpec(
+            "table", None, "", "Product split by age: ages and one share array per product."
+        ),
     },
     "economics": {
-        "discount_rate": KeySpec("float", None, "1/year", "Real discount rate.",
-                                 check=_positive),
-        "compounding": KeySpec("choice", "continuous", "", "Discounting convention.",
-                               choices=COMPOUNDING),
+        "discount_rate": KeySpec("float", None, "1/year", "Real discount rate.", check=_positive),
+        "compounding": KeySpec(
+            "choice", "continuous", "", "Discounting convention.", choices=COMPOUNDING
+        ),
     },
     "growth": {
-        "max_age_years": KeySpec("float", 400.0, "years",
-                                 "Oldest age searched for culmination and rotations.",
-                                 check=_positive),
-        "yield_class_step": KeySpec("float", 2.0, "m3/ha/yr",
-                                    "Step to which maximum MAI is rounded for the yield class.",
-                                    check=_positive),
-        "rule_site_step_m": KeySpec("float", 0.1, "m",
-                                    "Site index rounding for per-site harvest-age rules.",
-                                    check=_positive),
+        "max_age_years": KeySpec(
+            "float",
+            400.0,
+            "years",
+            "Oldest age searched for culmination and rotations.",
+            check=_positive,
+        ),
+        "yield_class_step": KeySpec(
+            "float",
+            2.0,
+            "m3/ha/yr",
+            "Step to which maximum MAI is rounded for the yield class.",
+            check=_positive,
+        ),
+        "rule_site_step_m": KeySpec(
+            "float",
+            0.1,
+            "m",
+            "Site index rounding for per-site harvest-age rules.",
+            check=_positive,
+        ),
     },
     "harvest": {
-        "priority": KeySpec("choice", "oldest", "", "Order in which eligible stands are cut.",
-                            choices=PRIORITIES),
+        "priority": KeySpec(
+            "choice", "oldest", "", "Order in which eligible stands are cut.", choices=PRIORITIES
+        ),
         "max_area_ha_per_period": KeySpec(
             "float", None, "ha", "Cap on the area harvested in one period.", check=_positive
         ),
         "greenup_years": KeySpec(
-            "float", 0.0, "years",
+            "float",
+            0.0,
+            "years",
             "A stand cut less than this long ago blocks its neighbours (0: no spatial rules).",
             check=_non_negative,
         ),
         "max_opening_ha": KeySpec(
-            "float", None, "ha",
+            "float",
+            None,
+            "ha",
             "Largest opening (contiguous area cut within the green-up window); 0 = unit "
-            "restriction (no two neighbours).", check=_non_negative,
+            "restriction (no two neighbours).",
+            check=_non_negative,
         ),
-        "adjacency": KeySpec("choice", "edge", "", "Which stands are neighbours.",
-                             choices=ADJACENCY_MODES),
-        "separation_m": KeySpec("float", 0.0, "m",
-                                "Stands within this distance are neighbours too.",
-                                check=_non_negative),
+        "adjacency": KeySpec(
+            "choice", "edge", "", "Which stands are neighbours.", choices=ADJACENCY_MODES
+        ),
+        "separation_m": KeySpec(
+            "float",
+            0.0,
+            "m",
+            "Stands within this distance are neighbours too.",
+            check=_non_negative,
+        ),
     },
     "flow": {
         "policy": KeySpec("choice", "even", "", "Flow policy.", choices=FLOW_POLICIES),
         "band": KeySpec(
-            "float", 0.0, "fraction",
+            "float",
+            0.0,
+            "fraction",
             "Allowed change of harvest between consecutive periods (0.1 = +/-10%).",
             check=_fraction_below_one,
         ),
         "ending_stock": KeySpec(
-            "float", 1.0, "fraction",
+            "float",
+            1.0,
+            "fraction",
             "Growing stock at the end of the horizon must be at least this share of the initial.",
             check=_non_negative,
         ),
         "step_down_max": KeySpec(
-            "float", 0.1, "fraction",
+            "float",
+            0.1,
+            "fraction",
             "stepdown: largest drop from one period to the next.",
             check=lambda v: None if 0 < v < 1 else "must be > 0 and < 1",
         ),
-        "targets_m3": KeySpec("floats", None, "m3/period",
-                              "targets: the harvest target of each period."),
-        "method": KeySpec("choice", "rules", "", "rules: the rule-based scheduler; optimize: "
-                          "the harvest LP, mapped to stands.", choices=("rules", "optimize")),
-        "objective": KeySpec("choice", "max-even-flow", "", "LP objective.",
-                             choices=("max-even-flow", "max-volume", "max-npv")),
-        "terminal_value": KeySpec("choice", "none", "", "max-npv: value of the standing forest "
-                                  "at the horizon's end.", choices=("none", "standing")),
+        "targets_m3": KeySpec(
+            "floats", None, "m3/period", "targets: the harvest target of each period."
+        ),
+        "method": KeySpec(
+            "choice",
+            "rules",
+            "",
+            "rules: the rule-based scheduler; optimize: the harvest LP, mapped to stands.",
+            choices=("rules", "optimize"),
+        ),
+        "objective": KeySpec(
+            "choice",
+            "max-even-flow",
+            "",
+            "LP objective.",
+            choices=("max-even-flow", "max-volume", "max-npv"),
+        ),
+        "terminal_value": KeySpec(
+            "choice",
+            "none",
+            "",
+            "max-npv: value of the standing forest at the horizon's end.",
+            choices=("none", "standing"),
+        ),
         "lp_bound": KeySpec("bool", True, "", "rules: also solve the LP as an upper bound."),
-        "lp_site_class_m": KeySpec("float", 1.0, "m", "LP strata: site index class width.",
-                                   check=_positive),
-        "lp_age_class_years": KeySpec("float", 5.0, "years", "LP strata: age class width.",
-                                      check=_positive),
+        "lp_site_class_m": KeySpec(
+            "float", 1.0, "m", "LP strata: site index class width.", check=_positive
+        ),
+        "lp_age_class_years": KeySpec(
+            "float", 5.0, "years", "LP strata: age class width.", check=_positive
+        ),
         "long_term_periods": KeySpec(
-            "int", None, "", "stepdown: periods over which the long-term level must hold the "
+            "int",
+            None,
+            "",
+            "stepdown: periods over which the long-term level must hold the "
             "harvestable growing stock (default: a quarter of the horizon, at least 2).",
             check=_positive,
         ),
     },
 }
 
-SECTIONS = ("scenario", "inventory", "species", "harvest", "flow", "economics", "growth",
-            "landbase", "cover", "disturbance")
+SECTIONS = (
+    "scenario",
+    "inventory",
+    "species",
+    "harvest",
+    "flow",
+    "economics",
+    "growth",
+    "landbase",
+    "cover",
+    "disturbance",
+)
 STEP_KINDS = ("where", "layer", "raster", "percent")
 _ALL_PARAMETERS = {k for keys in CURVE_PARAMETERS.values() for k in keys}
 _SITE_KEYS = {"site_index_ref_m", "site_exponent_a", "site_exponent_k"}
@@ -502,8 +645,13 @@ def load_scenario(path: str | Path, overrides: Sequence[str] = ()) -> Scenario:
         apply_override(raw, item)
     where = _Where(str(path))
     where.overrides = {item.partition("=")[0].strip(): item for item in overrides}
-    return parse_scenario(raw, base_dir=path.resolve().parent, where=where,
-                          source=path.resolve(), overrides=tuple(overrides))
+    return parse_scenario(
+        raw,
+        base_dir=path.resolve().parent,
+        where=where,
+        source=path.resolve(),
+        overrides=tuple(overrides),
+    )
 
 
 class _Where(str):
@@ -566,8 +714,9 @@ def parse_scenario(
     info = ScenarioInfo(**_take(raw["scenario"], "scenario", where))
 
     inv_raw = _table(raw["inventory"], "inventory", where)
-    inv_vals = _take({k: v for k, v in inv_raw.items() if k not in ("fields", "from_raster")},
-                     "inventory", where)
+    inv_vals = _take(
+        {k: v for k, v in inv_raw.items() if k not in ("fields", "from_raster")}, "inventory", where
+    )
     if "fields" not in inv_raw:
         raise ScenarioError(f"{where}: missing table [inventory.fields]")
     fields = FieldMap(**_take(inv_raw["fields"], "inventory.fields", where))
@@ -578,7 +727,8 @@ def parse_scenario(
         crs=inv_vals["crs"],
         fields=fields,
         site_index_raster=(base_dir / rasters["site_index"]).resolve()
-        if rasters["site_index"] else None,
+        if rasters["site_index"]
+        else None,
         site_index_raster_band=rasters["band"],
         raster_wins=inv_vals["raster_wins"],
     )
@@ -588,30 +738,41 @@ def parse_scenario(
         raise ScenarioError(f"{where}: [species] lists no species; add a [species.<CODE>] table")
     harvest = HarvestConfig(**_take(raw.get("harvest", {}), "harvest", where))
     if harvest.max_opening_ha is not None and harvest.greenup_years <= 0:
-        raise ScenarioError(f"{where}: [harvest] max_opening_ha needs greenup_years > 0 (the "
-                            "window in which cut area counts as open)")
+        raise ScenarioError(
+            f"{where}: [harvest] max_opening_ha needs greenup_years > 0 (the "
+            "window in which cut area counts as open)"
+        )
     horizon = info.periods * info.period_years
     if harvest.greenup_years > horizon:
-        raise ScenarioError(f"{where}: [harvest] greenup_years = {harvest.greenup_years:g} is "
-                            f"longer than the horizon ({horizon} years)")
+        raise ScenarioError(
+            f"{where}: [harvest] greenup_years = {harvest.greenup_years:g} is "
+            f"longer than the horizon ({horizon} years)"
+        )
     flow = FlowConfig(**_take(raw.get("flow", {}), "flow", where))
     if flow.policy == "targets":
         if flow.targets_m3 is None:
-            raise ScenarioError(f"{where}: [flow] policy = 'targets' needs targets_m3 (one "
-                                "value per period)")
+            raise ScenarioError(
+                f"{where}: [flow] policy = 'targets' needs targets_m3 (one value per period)"
+            )
         if len(flow.targets_m3) != info.periods:
-            raise ScenarioError(f"{where}: [flow] targets_m3 has {len(flow.targets_m3)} values "
-                                f"for scenario.periods = {info.periods}")
+            raise ScenarioError(
+                f"{where}: [flow] targets_m3 has {len(flow.targets_m3)} values "
+                f"for scenario.periods = {info.periods}"
+            )
         if any(v < 0 for v in flow.targets_m3):
             raise ScenarioError(f"{where}: [flow] targets_m3 values must be >= 0")
     elif flow.targets_m3 is not None:
         raise ScenarioError(f"{where}: [flow] targets_m3 applies to policy = 'targets' only")
     if flow.method == "optimize" and flow.policy not in ("even", "nondeclining"):
-        raise ScenarioError(f"{where}: [flow] method = 'optimize' takes policy 'even' or "
-                            f"'nondeclining', not {flow.policy!r}")
+        raise ScenarioError(
+            f"{where}: [flow] method = 'optimize' takes policy 'even' or "
+            f"'nondeclining', not {flow.policy!r}"
+        )
     if flow.long_term_periods is not None and flow.long_term_periods > info.periods:
-        raise ScenarioError(f"{where}: [flow] long_term_periods = {flow.long_term_periods} is "
-                            f"longer than the horizon ({info.periods} periods)")
+        raise ScenarioError(
+            f"{where}: [flow] long_term_periods = {flow.long_term_periods} is "
+            f"longer than the horizon ({info.periods} periods)"
+        )
     economics = EconomicsConfig(**_take(raw.get("economics", {}), "economics", where))
     growth = GrowthConfig(**_take(raw.get("growth", {}), "growth", where))
     species = {
@@ -622,18 +783,34 @@ def parse_scenario(
     cover = _cover(raw.get("cover", []), where)
     if flow.objective == "max-npv":
         if economics.discount_rate is None:
-            raise ScenarioError(f"{where}: [flow] objective = 'max-npv' needs [economics] "
-                                "discount_rate")
+            raise ScenarioError(
+                f"{where}: [flow] objective = 'max-npv' needs [economics] discount_rate"
+            )
         unpriced = sorted(c for c, sp in species.items() if sp.price_per_m3 is None)
         if unpriced:
-            raise ScenarioError(f"{where}: [flow] objective = 'max-npv' needs price_per_m3 for "
-                                f"every species; missing for: {', '.join(unpriced)}")
+            raise ScenarioError(
+                f"{where}: [flow] objective = 'max-npv' needs price_per_m3 for "
+                f"every species; missing for: {', '.join(unpriced)}"
+            )
     disturbance = DisturbanceConfig(**_take(raw.get("disturbance", {}), "disturbance", where))
     if disturbance.replicates and disturbance.annual_rate <= 0:
-        raise ScenarioError(f"{where}: [disturbance] replicates = {disturbance.replicates} "
-                            "needs annual_rate > 0")
-    return Scenario(info, inventory, species, harvest, flow, economics, growth, landbase,
-                    cover, disturbance, source, overrides)
+        raise ScenarioError(
+            f"{where}: [disturbance] replicates = {disturbance.replicates} needs annual_rate > 0"
+        )
+    return Scenario(
+        info,
+        inventory,
+        species,
+        harvest,
+        flow,
+        economics,
+        growth,
+        landbase,
+        cover,
+        disturbance,
+        source,
+        overrides,
+    )
 
 
 def _cover(raw: Any, where: str) -> tuple[CoverTarget, ...]:
@@ -646,17 +823,21 @@ def _cover(raw: Any, where: str) -> tuple[CoverTarget, ...]:
         old = v["older_than_years"] is not None or v["min_share"] is not None
         young = v["younger_than_years"] is not None or v["max_share"] is not None
         if old == young:
-            raise ScenarioError(f"{where}: [[cover]] #{n} needs either older_than_years with "
-                                "min_share, or younger_than_years with max_share")
+            raise ScenarioError(
+                f"{where}: [[cover]] #{n} needs either older_than_years with "
+                "min_share, or younger_than_years with max_share"
+            )
         if old:
             if v["older_than_years"] is None or v["min_share"] is None:
-                raise ScenarioError(f"{where}: [[cover]] #{n} needs both older_than_years and "
-                                    "min_share")
+                raise ScenarioError(
+                    f"{where}: [[cover]] #{n} needs both older_than_years and min_share"
+                )
             out.append(CoverTarget(v["zone"], "old", v["older_than_years"], v["min_share"]))
         else:
             if v["younger_than_years"] is None or v["max_share"] is None:
-                raise ScenarioError(f"{where}: [[cover]] #{n} needs both younger_than_years "
-                                    "and max_share")
+                raise ScenarioError(
+                    f"{where}: [[cover]] #{n} needs both younger_than_years and max_share"
+                )
             out.append(CoverTarget(v["zone"], "young", v["younger_than_years"], v["max_share"]))
     return tuple(out)
 
@@ -686,8 +867,9 @@ def _landbase(raw: Any, base_dir: Path, where: str) -> LandbaseConfig:
         }[kind]
         stray = [k for k in extra if k in step_raw]
         if stray:
-            raise ScenarioError(f"{where}: [{sect}] key {stray[0]!r} does not apply to a "
-                                f"{kind!r} step")
+            raise ScenarioError(
+                f"{where}: [{sect}] key {stray[0]!r} does not apply to a {kind!r} step"
+            )
         field_name = widths = None
         if v["buffer_by"] is not None:
             if v["buffer_m"] is not None:
@@ -695,36 +877,49 @@ def _landbase(raw: Any, base_dir: Path, where: str) -> LandbaseConfig:
             field_name, widths = _buffer_by(v["buffer_by"], f"{where}: [{sect}] buffer_by")
         if kind == "raster" and v["above"] is None:
             raise ScenarioError(f"{where}: [{sect}] a raster step needs 'above'")
-        steps.append(NetdownStep(
-            number=n, label=str(v["label"]), kind=kind, where=v["where"],
-            layer=(base_dir / v["layer"]).resolve() if v["layer"] else None,
-            layer_name=v["layer_name"], buffer_m=v["buffer_m"], buffer_field=field_name,
-            buffer_widths_m=widths,
-            raster=(base_dir / v["raster"]).resolve() if v["raster"] else None,
-            band=v["band"], above=v["above"], percent=v["percent"],
-        ))
+        steps.append(
+            NetdownStep(
+                number=n,
+                label=str(v["label"]),
+                kind=kind,
+                where=v["where"],
+                layer=(base_dir / v["layer"]).resolve() if v["layer"] else None,
+                layer_name=v["layer_name"],
+                buffer_m=v["buffer_m"],
+                buffer_field=field_name,
+                buffer_widths_m=widths,
+                raster=(base_dir / v["raster"]).resolve() if v["raster"] else None,
+                band=v["band"],
+                above=v["above"],
+                percent=v["percent"],
+            )
+        )
     return LandbaseConfig(tuple(steps), vals["write_harvestable_layer"])
 
 
 def _buffer_by(raw: dict[str, Any], where: str) -> tuple[str, dict[str, float]]:
     unknown = set(raw) - {"field", "widths_m"}
     if unknown:
-        raise ScenarioError(f"{where}: unknown key {sorted(unknown)[0]!r}; it takes field and "
-                            "widths_m")
+        raise ScenarioError(
+            f"{where}: unknown key {sorted(unknown)[0]!r}; it takes field and widths_m"
+        )
     if not isinstance(raw.get("field"), str) or not isinstance(raw.get("widths_m"), dict):
-        raise ScenarioError(f"{where}: needs field = \"<name>\" and widths_m = {{ <class> = "
-                            "<metres>, ... }")
+        raise ScenarioError(
+            f'{where}: needs field = "<name>" and widths_m = {{ <class> = <metres>, ... }}'
+        )
     widths = {}
     for cls, width in raw["widths_m"].items():
         if isinstance(width, bool) or not isinstance(width, int | float) or width < 0:
-            raise ScenarioError(f"{where}: width for class {cls!r} = {width!r}: must be a "
-                                "number >= 0")
+            raise ScenarioError(
+                f"{where}: width for class {cls!r} = {width!r}: must be a number >= 0"
+            )
         widths[str(cls)] = float(width)
     return raw["field"], widths
 
 
-def _species(code: str, raw: Any, base_dir: Path, where: str,
-             economics: EconomicsConfig) -> SpeciesConfig:
+def _species(
+    code: str, raw: Any, base_dir: Path, where: str, economics: EconomicsConfig
+) -> SpeciesConfig:
     sect = f"species.{code}"
     vals = _take(raw, "species.*", where, shown=sect)
     curve = vals["curve"]
@@ -758,9 +953,7 @@ def _species(code: str, raw: Any, base_dir: Path, where: str,
                 f"{where}: [{sect}] min_harvest_economic = true needs [economics] discount_rate"
             )
         if vals["price_per_m3"] is None:
-            raise ScenarioError(
-                f"{where}: [{sect}] min_harvest_economic = true needs price_per_m3"
-            )
+            raise ScenarioError(f"{where}: [{sect}] min_harvest_economic = true needs price_per_m3")
     lo, hi = vals["site_index_min_m"], vals["site_index_max_m"]
     if lo is not None and hi is not None and lo > hi:
         raise ScenarioError(
@@ -843,8 +1036,9 @@ def _products(raw: Any, where: str) -> ProductSplit:
     return ProductSplit(ages, shares)
 
 
-def _read_table_csv(path: Path) -> tuple[tuple[float, ...], tuple[tuple[float, ...], ...],
-                                         tuple[float, ...] | None]:
+def _read_table_csv(
+    path: Path,
+) -> tuple[tuple[float, ...], tuple[tuple[float, ...], ...], tuple[float, ...] | None]:
     """Read a yield table CSV: age_years, volume_m3_ha and optionally site_index_m (long form)."""
     # A yield table is a small text file named by the scenario, so it is read with the scenario.
     try:
@@ -861,8 +1055,7 @@ def _read_table_csv(path: Path) -> tuple[tuple[float, ...], tuple[tuple[float, .
     for n, row in enumerate(rows, start=2):
         try:
             site = float(row["site_index_m"]) if with_site else 0.0
-            table.setdefault(site, []).append((float(row["age_years"]),
-                                               float(row["volume_m3_ha"])))
+            table.setdefault(site, []).append((float(row["age_years"]), float(row["volume_m3_ha"])))
         except (TypeError, ValueError):
             raise ScenarioError(
                 f"{path}, line {n}: {dict(row)} holds a value that is not a number"
@@ -909,9 +1102,7 @@ def _reject_unknown(raw: Mapping[str, Any], known: Sequence[str], where: str, se
             hint = f"; did you mean {near[0]!r}?" if near else ""
             place = f"[{sect}] key" if sect else "section"
             loc = where.at(sect, key) if isinstance(where, _Where) else where
-            raise ScenarioError(
-                f"{loc}: unknown {place} {key!r}{hint} Known: {', '.join(known)}"
-            )
+            raise ScenarioError(f"{loc}: unknown {place} {key!r}{hint} Known: {', '.join(known)}")
 
 
 def _take(raw: Any, spec_name: str, where: str, shown: str | None = None) -> dict[str, Any]:

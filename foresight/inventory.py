@@ -66,7 +66,10 @@ SiteFill = Callable[[np.ndarray, pyproj.CRS], np.ndarray]
 
 
 def prepare_inventory(
-    frame: gpd.GeoDataFrame, scenario: Scenario, where: str, strict: bool = False,
+    frame: gpd.GeoDataFrame,
+    scenario: Scenario,
+    where: str,
+    strict: bool = False,
     site_fill: SiteFill | None = None,
 ) -> Inventory:
     """Check a stand layer against the scenario and build the standard stand table.
@@ -107,15 +110,29 @@ def prepare_inventory(
     _fail_rows(empty, row, ids, where, "empty or missing geometry")
     gtype = shapely.get_type_id(geoms)
     polygonal = (gtype == 3) | (gtype == 6)  # Polygon, MultiPolygon
-    _fail_rows(~polygonal, row, ids, where, "geometry is not a polygon",
-               values=shapely.get_type_id(geoms), fmt=_type_name)
+    _fail_rows(
+        ~polygonal,
+        row,
+        ids,
+        where,
+        "geometry is not a polygon",
+        values=shapely.get_type_id(geoms),
+        fmt=_type_name,
+    )
     invalid = ~shapely.is_valid(geoms)
     repaired = int(invalid.sum())
     notes: list[str] = []
     if repaired:
         if strict:
-            _fail_rows(invalid, row, ids, where, "invalid geometry (--strict)",
-                       values=shapely.is_valid_reason(geoms), fmt=str)
+            _fail_rows(
+                invalid,
+                row,
+                ids,
+                where,
+                "invalid geometry (--strict)",
+                values=shapely.is_valid_reason(geoms),
+                fmt=str,
+            )
         geoms = geoms.copy()
         geoms[invalid] = _polygonal_part(shapely.make_valid(geoms[invalid]))
         lost = shapely.is_empty(geoms) | (shapely.area(geoms) <= 0)
@@ -128,11 +145,19 @@ def prepare_inventory(
 
     age = _numeric(frame[fields.age], fields.age, row, ids, where)
     _fail_rows(np.isnan(age), row, ids, where, f"field {fields.age!r}: null age")
-    _fail_rows(age < 0, row, ids, where, f"field {fields.age!r}: negative age; ages must be >= 0",
-               values=age)
+    _fail_rows(
+        age < 0,
+        row,
+        ids,
+        where,
+        f"field {fields.age!r}: negative age; ages must be >= 0",
+        values=age,
+    )
 
     species = frame[fields.species]
-    _fail_rows(species.isna().to_numpy(), row, ids, where, f"field {fields.species!r}: null species")
+    _fail_rows(
+        species.isna().to_numpy(), row, ids, where, f"field {fields.species!r}: null species"
+    )
     species = species.astype(str)
     known = set(scenario.species)
     unknown = ~species.isin(known).to_numpy()
@@ -157,21 +182,29 @@ def prepare_inventory(
         source[np.isnan(si)] = "none"
         hint = " and no site index raster value"
         how = "raster wins" if scenario.inventory.raster_wins else "gaps filled"
-        notes.append(f"site index from {scenario.inventory.site_index_raster}: "
-                     f"{int(use.sum())} stands ({how})")
-    _fail_rows(np.isnan(si), row, ids, where,
-               f"field {fields.site_index!r}: null site index{hint}")
-    _fail_rows(si <= 0, row, ids, where, f"field {fields.site_index!r}: site index must be > 0",
-               values=si)
+        notes.append(
+            f"site index from {scenario.inventory.site_index_raster}: "
+            f"{int(use.sum())} stands ({how})"
+        )
+    _fail_rows(np.isnan(si), row, ids, where, f"field {fields.site_index!r}: null site index{hint}")
+    _fail_rows(
+        si <= 0, row, ids, where, f"field {fields.site_index!r}: site index must be > 0", values=si
+    )
     for code, cfg in scenario.species.items():
         mine = (species == code).to_numpy()
         lo = -np.inf if cfg.site_index_min_m is None else cfg.site_index_min_m
         hi = np.inf if cfg.site_index_max_m is None else cfg.site_index_max_m
         out = mine & ((si < lo) | (si > hi))
-        _fail_rows(out, row, ids, where,
-                   f"field {fields.site_index!r}: site index outside the range of the "
-                   f"{code!r} curve [{cfg.site_index_min_m}, {cfg.site_index_max_m}] m "
-                   f"(species.{code}.site_index_min_m / site_index_max_m)", values=si)
+        _fail_rows(
+            out,
+            row,
+            ids,
+            where,
+            f"field {fields.site_index!r}: site index outside the range of the "
+            f"{code!r} curve [{cfg.site_index_min_m}, {cfg.site_index_max_m}] m "
+            f"(species.{code}.site_index_min_m / site_index_max_m)",
+            values=si,
+        )
 
     if fields.zone is not None:
         zone = frame[fields.zone].astype(object).where(frame[fields.zone].notna(), None)
@@ -179,15 +212,17 @@ def prepare_inventory(
     else:
         zone = pd.Series([None] * len(frame), dtype=object)
 
-    table = pd.DataFrame({
-        "stand_id": ids.to_numpy(),
-        "species": species.to_numpy(dtype=object),
-        "site_index": si,
-        "age_years": age,
-        "zone": zone.to_numpy(dtype=object),
-        "area_ha": area_ha,
-        "site_index_source": source,
-    })
+    table = pd.DataFrame(
+        {
+            "stand_id": ids.to_numpy(),
+            "species": species.to_numpy(dtype=object),
+            "site_index": si,
+            "age_years": age,
+            "zone": zone.to_numpy(dtype=object),
+            "area_ha": area_ha,
+            "site_index_source": source,
+        }
+    )
     others = [c for c in have if c not in mapping.values()]
     for col in others:
         name = col if col not in table.columns else f"input_{col}"
@@ -272,13 +307,26 @@ def _plain(value: object) -> object:
 
 
 def _type_name(type_id: object) -> str:
-    names = {0: "Point", 1: "LineString", 2: "LinearRing", 4: "MultiPoint",
-             5: "MultiLineString", 7: "GeometryCollection"}
+    names = {
+        0: "Point",
+        1: "LineString",
+        2: "LinearRing",
+        4: "MultiPoint",
+        5: "MultiLineString",
+        7: "GeometryCollection",
+    }
     return names.get(int(type_id), str(type_id))  # type: ignore[call-overload]
 
 
-def _fail_rows(bad: np.ndarray, row: np.ndarray, ids: pd.Series | None, where: str, what: str,
-               values: object = None, fmt=lambda v: f"{v:g}") -> None:
+def _fail_rows(
+    bad: np.ndarray,
+    row: np.ndarray,
+    ids: pd.Series | None,
+    where: str,
+    what: str,
+    values: object = None,
+    fmt=lambda v: f"{v:g}",
+) -> None:
     """Raise an InventoryError quoting the first offending rows, if any row is bad."""
     bad = np.asarray(bad, dtype=bool)
     if not bad.any():

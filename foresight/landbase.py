@@ -59,12 +59,28 @@ class Netdown:
 
 
 # ----------------------------------------------------------------------------- expressions
-_CMP = {ast.Eq: operator.eq, ast.NotEq: operator.ne, ast.Lt: operator.lt,
-        ast.LtE: operator.le, ast.Gt: operator.gt, ast.GtE: operator.ge}
-_FLIP = {ast.Lt: ast.Gt, ast.LtE: ast.GtE, ast.Gt: ast.Lt, ast.GtE: ast.LtE,
-         ast.Eq: ast.Eq, ast.NotEq: ast.NotEq}
-_ARITH = {ast.Add: operator.add, ast.Sub: operator.sub, ast.Mult: operator.mul,
-          ast.Div: operator.truediv}
+_CMP = {
+    ast.Eq: operator.eq,
+    ast.NotEq: operator.ne,
+    ast.Lt: operator.lt,
+    ast.LtE: operator.le,
+    ast.Gt: operator.gt,
+    ast.GtE: operator.ge,
+}
+_FLIP = {
+    ast.Lt: ast.Gt,
+    ast.LtE: ast.GtE,
+    ast.Gt: ast.Lt,
+    ast.GtE: ast.LtE,
+    ast.Eq: ast.Eq,
+    ast.NotEq: ast.NotEq,
+}
+_ARITH = {
+    ast.Add: operator.add,
+    ast.Sub: operator.sub,
+    ast.Mult: operator.mul,
+    ast.Div: operator.truediv,
+}
 _FUNCS = {"isnull": lambda s: s.isna(), "notnull": lambda s: s.notna()}
 
 
@@ -79,8 +95,9 @@ def evaluate_where(expr: str, fields: Mapping[str, pd.Series], where: str) -> np
     try:
         tree = ast.parse(expr, mode="eval")
     except SyntaxError as exc:
-        raise NetdownError(f"{where}: where = {expr!r} does not parse ({exc.msg} at "
-                           f"column {exc.offset})") from None
+        raise NetdownError(
+            f"{where}: where = {expr!r} does not parse ({exc.msg} at column {exc.offset})"
+        ) from None
 
     def ev(node: ast.AST):  # noqa: ANN202 - returns Series, scalar or list
         if isinstance(node, ast.Expression):
@@ -105,8 +122,10 @@ def evaluate_where(expr: str, fields: Mapping[str, pd.Series], where: str) -> np
                 right = ev(comp)
                 if isinstance(op, ast.In | ast.NotIn):
                     if not isinstance(right, list):
-                        raise NetdownError(f"{where}: where = {expr!r}: 'in' needs a list, "
-                                           "e.g. SPP in ['fir', 'pine']")
+                        raise NetdownError(
+                            f"{where}: where = {expr!r}: 'in' needs a list, "
+                            "e.g. SPP in ['fir', 'pine']"
+                        )
                     res = pd.Series(left).isin(right).to_numpy()
                     res = ~res if isinstance(op, ast.NotIn) else res
                     res = res & pd.Series(left).notna().to_numpy()
@@ -117,11 +136,13 @@ def evaluate_where(expr: str, fields: Mapping[str, pd.Series], where: str) -> np
                         elif isinstance(right, pd.Series):
                             res = _CMP[_FLIP[type(op)]](right, left)
                         else:
-                            raise NetdownError(f"{where}: where = {expr!r} compares two "
-                                               "constants; name a field")
+                            raise NetdownError(
+                                f"{where}: where = {expr!r} compares two constants; name a field"
+                            )
                     except TypeError:
-                        raise NetdownError(f"{where}: where = {expr!r}: cannot compare text "
-                                           "with a number") from None
+                        raise NetdownError(
+                            f"{where}: where = {expr!r}: cannot compare text with a number"
+                        ) from None
                     res = pd.Series(res).fillna(False).to_numpy(dtype=bool)
                 else:
                     break
@@ -133,24 +154,33 @@ def evaluate_where(expr: str, fields: Mapping[str, pd.Series], where: str) -> np
             return _ARITH[type(node.op)](ev(node.left), ev(node.right))
         if isinstance(node, ast.Name):
             if node.id not in fields:
-                raise NetdownError(f"{where}: where = {expr!r} names field {node.id!r}, which "
-                                   f"the stands do not have; fields: {', '.join(fields)}")
+                raise NetdownError(
+                    f"{where}: where = {expr!r} names field {node.id!r}, which "
+                    f"the stands do not have; fields: {', '.join(fields)}"
+                )
             return fields[node.id]
         if isinstance(node, ast.Constant) and isinstance(node.value, int | float | str):
             return node.value
         if isinstance(node, ast.List | ast.Tuple):
             return [ev(e) for e in node.elts]
-        if (isinstance(node, ast.Call) and isinstance(node.func, ast.Name)
-                and node.func.id in _FUNCS and len(node.args) == 1):
+        if (
+            isinstance(node, ast.Call)
+            and isinstance(node.func, ast.Name)
+            and node.func.id in _FUNCS
+            and len(node.args) == 1
+        ):
             return _FUNCS[node.func.id](pd.Series(ev(node.args[0]))).to_numpy()
-        raise NetdownError(f"{where}: where = {expr!r}: {ast.unparse(node)!r} is not allowed "
-                           "(see docs/scenario.md for the expression syntax)")
+        raise NetdownError(
+            f"{where}: where = {expr!r}: {ast.unparse(node)!r} is not allowed "
+            "(see docs/scenario.md for the expression syntax)"
+        )
 
     result = np.asarray(_truth(ev(tree)), dtype=bool)
     n = len(next(iter(fields.values())))
     if result.shape != (n,):
-        raise NetdownError(f"{where}: where = {expr!r} must compare fields (it gives a "
-                           "single value)")
+        raise NetdownError(
+            f"{where}: where = {expr!r} must compare fields (it gives a single value)"
+        )
     return result
 
 
@@ -168,8 +198,9 @@ def work_crs(crs: pyproj.CRS, geoms: np.ndarray) -> pyproj.CRS:
     if not crs.is_geographic:
         return crs
     x0, y0, x1, y1 = shapely.total_bounds(geoms)
-    return pyproj.CRS.from_proj4(f"+proj=laea +lat_0={(y0 + y1) / 2} +lon_0={(x0 + x1) / 2} "
-                                 "+ellps=WGS84 +units=m")
+    return pyproj.CRS.from_proj4(
+        f"+proj=laea +lat_0={(y0 + y1) / 2} +lon_0={(x0 + x1) / 2} +ellps=WGS84 +units=m"
+    )
 
 
 def metres_per_unit(crs: pyproj.CRS) -> float:
@@ -199,43 +230,52 @@ def overlay_cut(remaining: np.ndarray, overlay: np.ndarray) -> tuple[np.ndarray,
         width = int(counts[small].max())
         grid = np.full((int(small.sum()), width), None, dtype=object)
         rows = np.repeat(np.arange(small.sum()), counts[small])
-        cols = np.arange(len(rows)) - np.repeat(np.cumsum(counts[small]) - counts[small],
-                                                counts[small])
-        take = np.concatenate([np.arange(s, s + c) for s, c in
-                               zip(start[small], counts[small], strict=True)])
+        cols = np.arange(len(rows)) - np.repeat(
+            np.cumsum(counts[small]) - counts[small], counts[small]
+        )
+        take = np.concatenate(
+            [np.arange(s, s + c) for s, c in zip(start[small], counts[small], strict=True)]
+        )
         grid[rows, cols] = pieces[take]
         cut[stands[small]] = shapely.union_all(grid, axis=1)
     for stand, s, c in zip(stands[~small], start[~small], counts[~small], strict=True):
-        cut[stand] = shapely.union_all(pieces[s:s + c])  # rare: stands with many pieces
+        cut[stand] = shapely.union_all(pieces[s : s + c])  # rare: stands with many pieces
     left = remaining.copy()
     hit = np.flatnonzero(cut != None)  # noqa: E711 - element-wise test on an object array
     left[hit] = shapely.difference(remaining[hit], cut[hit])
     return cut, left
 
 
-def buffer_overlay(frame: gpd.GeoDataFrame, step: NetdownStep, unit_m: float, where: str
-                   ) -> np.ndarray:
+def buffer_overlay(
+    frame: gpd.GeoDataFrame, step: NetdownStep, unit_m: float, where: str
+) -> np.ndarray:
     """Overlay geometries with the step's buffer (metres, converted to CRS units)."""
     geoms = frame.geometry.to_numpy()
     if step.buffer_field is not None:
         assert step.buffer_widths_m is not None
         if step.buffer_field not in frame.columns:
-            raise NetdownError(f"{where}: buffer_by field {step.buffer_field!r} is not in the "
-                               f"layer; its fields: {', '.join(map(str, frame.columns))}")
+            raise NetdownError(
+                f"{where}: buffer_by field {step.buffer_field!r} is not in the "
+                f"layer; its fields: {', '.join(map(str, frame.columns))}"
+            )
         classes = frame[step.buffer_field].astype(str).to_numpy()
         missing = sorted(set(classes) - set(step.buffer_widths_m))
         if missing:
-            raise NetdownError(f"{where}: buffer_by has no width for class "
-                               f"{missing[0]!r} of field {step.buffer_field!r}; "
-                               f"widths given for: {', '.join(step.buffer_widths_m)}")
+            raise NetdownError(
+                f"{where}: buffer_by has no width for class "
+                f"{missing[0]!r} of field {step.buffer_field!r}; "
+                f"widths given for: {', '.join(step.buffer_widths_m)}"
+            )
         width = np.array([step.buffer_widths_m[c] for c in classes])
     else:
         width = np.full(len(geoms), step.buffer_m or 0.0)
     gtype = shapely.get_type_id(geoms)
     lines = ~np.isin(gtype, (3, 6))
     if (lines & (width <= 0)).any():
-        raise NetdownError(f"{where}: the layer has lines or points; give a buffer_m or "
-                           "buffer_by width > 0 so they cover area")
+        raise NetdownError(
+            f"{where}: the layer has lines or points; give a buffer_m or "
+            "buffer_by width > 0 so they cover area"
+        )
     out = geoms.copy()
     grow = width > 0
     out[grow] = shapely.buffer(geoms[grow], width[grow] / unit_m, quad_segs=8)
@@ -251,13 +291,16 @@ class _State:
 
 
 OverlayReader = Callable[[NetdownStep, pyproj.CRS], gpd.GeoDataFrame]
-RasterReader = Callable[[NetdownStep, np.ndarray, pyproj.CRS], tuple[RasterData | None,
-                                                                      np.ndarray]]
+RasterReader = Callable[[NetdownStep, np.ndarray, pyproj.CRS], tuple[RasterData | None, np.ndarray]]
 
 
-def apply_netdown(stands: gpd.GeoDataFrame, steps: tuple[NetdownStep, ...],
-                  fields: Mapping[str, pd.Series], read_overlay: OverlayReader,
-                  read_raster: RasterReader) -> Netdown:
+def apply_netdown(
+    stands: gpd.GeoDataFrame,
+    steps: tuple[NetdownStep, ...],
+    fields: Mapping[str, pd.Series],
+    read_overlay: OverlayReader,
+    read_raster: RasterReader,
+) -> Netdown:
     """Run the steps over the stands (see the module docstring).
 
     ``read_overlay(step, crs)`` returns the step's layer in ``crs``; ``read_raster(step,
@@ -268,8 +311,7 @@ def apply_netdown(stands: gpd.GeoDataFrame, steps: tuple[NetdownStep, ...],
     gross = stands["area_ha"].to_numpy(dtype=np.float64)
     crs = pyproj.CRS.from_user_input(stands.crs)
     wcrs = work_crs(crs, stands.geometry.to_numpy())
-    geoms = stands.geometry.to_numpy() if wcrs == crs else stands.geometry.to_crs(
-        wcrs).to_numpy()
+    geoms = stands.geometry.to_numpy() if wcrs == crs else stands.geometry.to_crs(wcrs).to_numpy()
     state = _State(geoms.copy(), shapely.area(geoms), gross.copy())
     removed = np.zeros((len(steps), len(gross)))
     notes: list[str] = []
@@ -291,8 +333,9 @@ def apply_netdown(stands: gpd.GeoDataFrame, steps: tuple[NetdownStep, ...],
             hit = np.flatnonzero(cut != None)  # noqa: E711
             cut_area = shapely.area(cut[hit])
             with np.errstate(invalid="ignore", divide="ignore"):
-                share = np.where(state.geom_area[hit] > 0,
-                                 np.minimum(cut_area / state.geom_area[hit], 1.0), 0.0)
+                share = np.where(
+                    state.geom_area[hit] > 0, np.minimum(cut_area / state.geom_area[hit], 1.0), 0.0
+                )
             state.area_ha[hit] *= 1.0 - share
             state.geom = left
             state.geom_area = shapely.area(left)
@@ -303,43 +346,63 @@ def apply_netdown(stands: gpd.GeoDataFrame, steps: tuple[NetdownStep, ...],
         elif step.kind == "raster":
             raster, in_raster_crs = read_raster(step, state.geom, wcrs)
             if raster is None:
-                raise NetdownError(f"{where}: {step.raster}: the raster does not overlap the "
-                                   "stands")
+                raise NetdownError(
+                    f"{where}: {step.raster}: the raster does not overlap the stands"
+                )
             z = zonal(in_raster_crs, raster, threshold=step.above)
             live = state.area_ha > 0
             if not z.covered[live].any():
-                raise NetdownError(f"{where}: {step.raster}: the raster holds no data over "
-                                   "the stands")
+                raise NetdownError(
+                    f"{where}: {step.raster}: the raster holds no data over the stands"
+                )
             missing = int((live & ~z.covered).sum())
             if missing:
-                notes.append(f"{where}: {missing} stands are not covered by {step.raster.name}"
-                             " (outside it or nodata); nothing removed from them")
+                notes.append(
+                    f"{where}: {missing} stands are not covered by {step.raster.name}"
+                    " (outside it or nodata); nothing removed from them"
+                )
             state.area_ha *= 1.0 - z.fraction_above()
         removed[k] = before - state.area_ha
-    remaining_geom = state.geom if wcrs == crs else gpd.GeoSeries(
-        state.geom, crs=wcrs).to_crs(crs).to_numpy()
-    return Netdown(gross, removed, state.area_ha.copy(), remaining_geom,
-                   netdown_table(gross, removed, steps), tuple(notes))
+    remaining_geom = (
+        state.geom if wcrs == crs else gpd.GeoSeries(state.geom, crs=wcrs).to_crs(crs).to_numpy()
+    )
+    return Netdown(
+        gross,
+        removed,
+        state.area_ha.copy(),
+        remaining_geom,
+        netdown_table(gross, removed, steps),
+        tuple(notes),
+    )
 
 
-def netdown_table(gross: np.ndarray, removed: np.ndarray, steps: tuple[NetdownStep, ...]
-                  ) -> pd.DataFrame:
+def netdown_table(
+    gross: np.ndarray, removed: np.ndarray, steps: tuple[NetdownStep, ...]
+) -> pd.DataFrame:
     """step, label, removed_ha, percent_of_gross, remaining_ha; then the harvestable row."""
     total = float(gross.sum())
     rem = removed.sum(axis=1)
     remaining = total - np.cumsum(rem)
     pct = (lambda a: a / total * 100.0) if total > 0 else (lambda a: a * 0.0)
-    rows = pd.DataFrame({
-        "step": pd.array([s.number for s in steps], dtype="Int64"),
-        "label": [s.label for s in steps],
-        "removed_ha": rem,
-        "percent_of_gross": pct(rem),
-        "remaining_ha": remaining,
-        "kind": [s.kind for s in steps],
-    })
+    rows = pd.DataFrame(
+        {
+            "step": pd.array([s.number for s in steps], dtype="Int64"),
+            "label": [s.label for s in steps],
+            "removed_ha": rem,
+            "percent_of_gross": pct(rem),
+            "remaining_ha": remaining,
+            "kind": [s.kind for s in steps],
+        }
+    )
     harvestable = total - float(rem.sum())
-    last = pd.DataFrame({"step": pd.array([pd.NA], dtype="Int64"),
-                         "label": ["harvestable land base"], "removed_ha": [np.nan],
-                         "percent_of_gross": [pct(np.array([harvestable]))[0]],
-                         "remaining_ha": [harvestable], "kind": ["harvestable"]})
+    last = pd.DataFrame(
+        {
+            "step": pd.array([pd.NA], dtype="Int64"),
+            "label": ["harvestable land base"],
+            "removed_ha": [np.nan],
+            "percent_of_gross": [pct(np.array([harvestable]))[0]],
+            "remaining_ha": [harvestable],
+            "kind": ["harvestable"],
+        }
+    )
     return pd.concat([rows, last], ignore_index=True)

@@ -1,9 +1,9 @@
 """The whole chain as library calls: :func:`check` and :func:`run`.
 
-    >>> import foresight
-    >>> scn = foresight.load_scenario("sample_region/scenario.toml")   # doctest: +SKIP
-    >>> result = foresight.run(scn, "results/")                        # doctest: +SKIP
-    >>> result.wood_flow.head()                                        # doctest: +SKIP
+>>> import foresight
+>>> scn = foresight.load_scenario("sample_region/scenario.toml")   # doctest: +SKIP
+>>> result = foresight.run(scn, "results/")                        # doctest: +SKIP
+>>> result.wood_flow.head()                                        # doctest: +SKIP
 """
 
 from __future__ import annotations
@@ -28,9 +28,7 @@ from foresight.errors import InputError, OutputError
 from foresight.growth import curve_from_config
 from foresight.growth.rules import max_mai
 from foresight.inventory import CheckReport, prepare_inventory
-from foresight.io.rasters import RasterData, raster_crs, read_window
 from foresight.io.cache import cached_arrays
-from foresight.landbase import Netdown, NetdownError, apply_netdown, metres_per_unit, work_crs
 from foresight.io.outputs import (
     check_output_dir,
     replace_file,
@@ -38,7 +36,9 @@ from foresight.io.outputs import (
     staged_output,
     write_json,
 )
+from foresight.io.rasters import RasterData, raster_crs, read_window
 from foresight.io.vector import read_layer, write_gpkg_layer
+from foresight.landbase import Netdown, NetdownError, apply_netdown, metres_per_unit, work_crs
 from foresight.projection import CurveSet, Periods, StandArrays, zone_codes, zone_names
 from foresight.reporting import (
     harvests_layer,
@@ -70,9 +70,20 @@ RUN_JSON = "run.json"
 CURVES_CSV = "curves.csv"
 FIGURES_DIR = "figures"
 # every entry foresight writes into an output directory (run, curves)
-MANAGED = frozenset({GPKG_NAME, WOOD_FLOW_CSV, PRODUCTS_CSV, NETDOWN_CSV, OPENINGS_CSV, COVER_CSV,
-                     MONTE_CARLO_CSV,
-                     RUN_JSON, CURVES_CSV, FIGURES_DIR})
+MANAGED = frozenset(
+    {
+        GPKG_NAME,
+        WOOD_FLOW_CSV,
+        PRODUCTS_CSV,
+        NETDOWN_CSV,
+        OPENINGS_CSV,
+        COVER_CSV,
+        MONTE_CARLO_CSV,
+        RUN_JSON,
+        CURVES_CSV,
+        FIGURES_DIR,
+    }
+)
 
 
 @dataclass
@@ -125,8 +136,10 @@ class CheckResult:
         for row in self.netdown.table.itertuples(index=False):
             step = "" if pd.isna(row.step) else f"{row.step:>2}"
             removed = "" if pd.isna(row.removed_ha) else f"{row.removed_ha:>12,.1f}"
-            lines.append(f"  {step:>2} {row.label:<30} {removed:>12} {row.percent_of_gross:>6.1f}%"
-                         f" {row.remaining_ha:>12,.1f}")
+            lines.append(
+                f"  {step:>2} {row.label:<30} {removed:>12} {row.percent_of_gross:>6.1f}%"
+                f" {row.remaining_ha:>12,.1f}"
+            )
         lines += [f"note: {n}" for n in self.netdown.notes]
         return "\n".join(lines)
 
@@ -140,14 +153,21 @@ def check(scenario: Scenario, strict: bool = False) -> CheckResult:
     frame, layer = read_layer(cfg.path, cfg.layer)
     fill = None
     if cfg.site_index_raster is not None:
+
         def fill(geoms: np.ndarray, crs: pyproj.CRS) -> np.ndarray:
-            return _raster_site_index(cfg.site_index_raster, cfg.site_index_raster_band,
-                                      geoms, crs)
-    inventory = prepare_inventory(frame, scenario, where=f"{cfg.path}, layer {layer!r}",
-                                  strict=strict, site_fill=fill)
+            return _raster_site_index(cfg.site_index_raster, cfg.site_index_raster_band, geoms, crs)
+
+    inventory = prepare_inventory(
+        frame, scenario, where=f"{cfg.path}, layer {layer!r}", strict=strict, site_fill=fill
+    )
     stands = inventory.stands
-    netdown = apply_netdown(stands, scenario.landbase.steps, _where_fields(stands, scenario),
-                            _read_overlay, _read_raster)
+    netdown = apply_netdown(
+        stands,
+        scenario.landbase.steps,
+        _where_fields(stands, scenario),
+        _read_overlay,
+        _read_raster,
+    )
     for note in netdown.notes:
         log.warning("%s", note)
     stands = stands.copy()
@@ -167,8 +187,13 @@ def _where_fields(stands: gpd.GeoDataFrame, scenario: Scenario) -> dict[str, pd.
     """Fields a netdown rule may name: ours, the layer's names for them, and the others."""
     fields = {c: stands[c] for c in stands.columns if c != stands.geometry.name}
     f = scenario.inventory.fields
-    for ours, theirs in (("stand_id", f.stand_id), ("species", f.species),
-                         ("site_index", f.site_index), ("age_years", f.age), ("zone", f.zone)):
+    for ours, theirs in (
+        ("stand_id", f.stand_id),
+        ("species", f.species),
+        ("site_index", f.site_index),
+        ("age_years", f.age),
+        ("zone", f.zone),
+    ):
         if theirs is not None and theirs not in fields:
             fields[theirs] = stands[ours]
     return fields
@@ -187,15 +212,17 @@ def _read_overlay(step: NetdownStep, crs: pyproj.CRS) -> gpd.GeoDataFrame:
     return frame.to_crs(crs)
 
 
-def _read_raster(step: NetdownStep, geoms: np.ndarray, crs: pyproj.CRS
-                 ) -> tuple[RasterData | None, np.ndarray]:
+def _read_raster(
+    step: NetdownStep, geoms: np.ndarray, crs: pyproj.CRS
+) -> tuple[RasterData | None, np.ndarray]:
     assert step.raster is not None
     where = f"[[landbase.steps]] #{step.number} {step.label!r}"
     return _raster_over(step.raster, step.band, geoms, crs, where)
 
 
-def _raster_over(path: Path, band: int, geoms: np.ndarray, crs: pyproj.CRS, what: str
-                 ) -> tuple[RasterData | None, np.ndarray]:
+def _raster_over(
+    path: Path, band: int, geoms: np.ndarray, crs: pyproj.CRS, what: str
+) -> tuple[RasterData | None, np.ndarray]:
     """The raster window over the geometries, and the geometries in the raster's CRS."""
     rcrs = raster_crs(path, what)
     in_r = geoms if rcrs == crs else gpd.GeoSeries(geoms, crs=crs).to_crs(rcrs).to_numpy()
@@ -205,8 +232,7 @@ def _raster_over(path: Path, band: int, geoms: np.ndarray, crs: pyproj.CRS, what
     return read_window(path, tuple(shapely.total_bounds(live)), band, what), in_r
 
 
-def _raster_site_index(path: Path, band: int, geoms: np.ndarray, crs: pyproj.CRS
-                       ) -> np.ndarray:
+def _raster_site_index(path: Path, band: int, geoms: np.ndarray, crs: pyproj.CRS) -> np.ndarray:
     what = "inventory.from_raster.site_index"
     raster, in_r = _raster_over(path, band, geoms, crs, what)
     if raster is None:
@@ -216,8 +242,7 @@ def _raster_site_index(path: Path, band: int, geoms: np.ndarray, crs: pyproj.CRS
         raise InputError(f"{path}: {what}: the raster holds no data over the stands")
     missing = int((~z.covered).sum())
     if missing:
-        log.warning("%s: %s: %d stands are not covered (outside it or nodata)", path, what,
-                    missing)
+        log.warning("%s: %s: %d stands are not covered (outside it or nodata)", path, what, missing)
     return z.mean
 
 
@@ -233,23 +258,30 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
     curves = CurveSet.from_scenario(scenario)
     for code, curve in zip(curves.codes, curves.curves, strict=True):
         if getattr(curve, "collapses", False):
-            log.warning("species %s: initial_m3_ha is below min_viable_m3_ha, so its stands "
-                        "collapse after harvest instead of regrowing", code)
+            log.warning(
+                "species %s: initial_m3_ha is below min_viable_m3_ha, so its stands "
+                "collapse after harvest instead of regrowing",
+                code,
+            )
     arrays = StandArrays.from_table(inventory.stands, scenario, curves)
     with timer.stage("project and schedule"):
         adjacency = None
         if scenario.harvest.spatial:
             adjacency = stand_adjacency(scenario, inventory)
-            big = (arrays.harvestable_ha if arrays.harvestable_ha is not None
-                   else arrays.area_ha) > (scenario.harvest.max_opening_ha or np.inf)
+            big = (
+                arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
+            ) > (scenario.harvest.max_opening_ha or np.inf)
             if big.any():
-                log.warning("%d stands (%.0f ha) are larger than harvest.max_opening_ha = %g "
-                            "and will never be cut", big.sum(), arrays.area_ha[big].sum(),
-                            scenario.harvest.max_opening_ha)
+                log.warning(
+                    "%d stands (%.0f ha) are larger than harvest.max_opening_ha = %g "
+                    "and will never be cut",
+                    big.sum(),
+                    arrays.area_ha[big].sum(),
+                    scenario.harvest.max_opening_ha,
+                )
         lp = None
         fcfg = scenario.flow
-        if fcfg.method == "optimize" or (fcfg.lp_bound and fcfg.policy in ("even",
-                                                                           "nondeclining")):
+        if fcfg.method == "optimize" or (fcfg.lp_bound and fcfg.policy in ("even", "nondeclining")):
             with timer.stage("harvest LP"):
                 lp, strata = harvest_lp(scenario, arrays, curves, periods, inventory)
         cover = cover_rules(scenario, inventory)
@@ -258,17 +290,26 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
             assert lp is not None
             flow = lp_schedule(lp, strata, arrays, curves, periods, scenario, adjacency, cover)
         else:
-            flow = schedule(arrays, curves, periods, scenario.flow, scenario.harvest,
-                            adjacency, cover, rate)
+            flow = schedule(
+                arrays, curves, periods, scenario.flow, scenario.harvest, adjacency, cover, rate
+            )
         openings = None
         if adjacency is not None:
             if fcfg.method == "rules":
-                aspatial = schedule(arrays, curves, periods, scenario.flow,
-                                    replace(scenario.harvest, greenup_years=0.0,
-                                            max_opening_ha=None), None, cover, rate)
+                aspatial = schedule(
+                    arrays,
+                    curves,
+                    periods,
+                    scenario.flow,
+                    replace(scenario.harvest, greenup_years=0.0, max_opening_ha=None),
+                    None,
+                    cover,
+                    rate,
+                )
                 flow.details["aspatial_level_m3_per_period"] = aspatial.level_m3_per_period
-                flow.details["spatial_cost_m3_per_period"] = (aspatial.level_m3_per_period
-                                                              - flow.level_m3_per_period)
+                flow.details["spatial_cost_m3_per_period"] = (
+                    aspatial.level_m3_per_period - flow.level_m3_per_period
+                )
             openings = openings_table(flow, adjacency, periods, scenario.harvest)
             check_openings(openings, scenario.harvest)
     log.info("flow level %.0f m3/year; limited by %s", flow.level_m3_per_year, flow.binding)
@@ -281,14 +322,28 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
     monte_carlo = None
     if scenario.disturbance.replicates:
         with timer.stage("Monte Carlo disturbance"):
-            monte_carlo = monte_carlo_table(flow, arrays, curves, periods, scenario,
-                                            adjacency, cover)
+            monte_carlo = monte_carlo_table(
+                flow, arrays, curves, periods, scenario, adjacency, cover
+            )
     cover_table = None
     if scenario.cover:
         cover_table = cover_report(cover, flow, periods)
-    result = RunResult(out, inventory, flow, wood_flow, stands, harvests, products,
-                       timer.timings, scenario.landbase.write_harvestable_layer, ltsy, openings,
-                       lp_record(lp, flow, scenario.flow.objective), cover_table, monte_carlo)
+    result = RunResult(
+        out,
+        inventory,
+        flow,
+        wood_flow,
+        stands,
+        harvests,
+        products,
+        timer.timings,
+        scenario.landbase.write_harvestable_layer,
+        ltsy,
+        openings,
+        lp_record(lp, flow, scenario.flow.objective),
+        cover_table,
+        monte_carlo,
+    )
     if out is not None:
         with staged_output(out, MANAGED) as tmp:
             with timer.stage("write outputs"):
@@ -297,8 +352,9 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
     return result
 
 
-def long_term_sustained_yield(scenario: Scenario, curves: CurveSet, arrays: StandArrays
-                              ) -> dict[str, float]:
+def long_term_sustained_yield(
+    scenario: Scenario, curves: CurveSet, arrays: StandArrays
+) -> dict[str, float]:
     """Harvestable area times MAI, summed over stands [m3/year]: at each stand's MAI
     culmination, and at its minimum harvest age (the rotation the rules use)."""
     area = arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
@@ -306,21 +362,32 @@ def long_term_sustained_yield(scenario: Scenario, curves: CurveSet, arrays: Stan
     for i, code in enumerate(curves.codes):  # per species; per distinct site inside
         mine = arrays.species_idx == i
         if mine.any():
-            at_cul[mine] = max_mai(scenario.species[code], curves.curves[i],
-                                   arrays.site_index[mine], scenario.economics,
-                                   scenario.growth)
+            at_cul[mine] = max_mai(
+                scenario.species[code],
+                curves.curves[i],
+                arrays.site_index[mine],
+                scenario.economics,
+                scenario.growth,
+            )
     r = arrays.min_harvest_age
     ok = np.isfinite(r) & (r > 0)
     at_rot = np.zeros(arrays.n)
-    at_rot[ok] = curves.volume_m3_ha(arrays.species_idx[ok], r[ok],
-                                     arrays.site_index[ok]) / r[ok]
-    return {"at_culmination": float(np.dot(area, at_cul)),
-            "at_min_harvest_age": float(np.dot(area, at_rot))}
+    at_rot[ok] = curves.volume_m3_ha(arrays.species_idx[ok], r[ok], arrays.site_index[ok]) / r[ok]
+    return {
+        "at_culmination": float(np.dot(area, at_cul)),
+        "at_min_harvest_age": float(np.dot(area, at_rot)),
+    }
 
 
-def monte_carlo_table(flow: FlowResult, arrays: StandArrays, curves: CurveSet,
-                      periods: Periods, scenario: Scenario, adjacency: Adjacency | None,
-                      cover: CoverRules | None) -> pd.DataFrame:
+def monte_carlo_table(
+    flow: FlowResult,
+    arrays: StandArrays,
+    curves: CurveSet,
+    periods: Periods,
+    scenario: Scenario,
+    adjacency: Adjacency | None,
+    cover: CoverRules | None,
+) -> pd.DataFrame:
     """Replicates of the schedule's targets under random whole-stand disturbance.
 
     Each replicate aims at the harvest the expected-value schedule takes in each period;
@@ -330,29 +397,46 @@ def monte_carlo_table(flow: FlowResult, arrays: StandArrays, curves: CurveSet,
     d = scenario.disturbance
     spatial = None
     if adjacency is not None:
-        spatial = SpatialRules(adjacency, scenario.harvest.greenup_years,
-                               scenario.harvest.max_opening_ha or 0.0)
+        spatial = SpatialRules(
+            adjacency, scenario.harvest.greenup_years, scenario.harvest.max_opening_ha or 0.0
+        )
     targets = tuple(flow.simulation.harvest_m3)
     rng = np.random.default_rng(d.seed)
     h, gs = [], []
     for _ in range(d.replicates):  # replicates, each a vectorised horizon
-        sim = simulate(arrays, curves, periods, 0.0, priority=scenario.harvest.priority,
-                       max_area_ha=scenario.harvest.max_area_ha_per_period, record=True,
-                       rule=Targets(targets), spatial=spatial, cover=cover,
-                       disturbance=d.annual_rate, rng=rng)
+        sim = simulate(
+            arrays,
+            curves,
+            periods,
+            0.0,
+            priority=scenario.harvest.priority,
+            max_area_ha=scenario.harvest.max_area_ha_per_period,
+            record=True,
+            rule=Targets(targets),
+            spatial=spatial,
+            cover=cover,
+            disturbance=d.annual_rate,
+            rng=rng,
+        )
         h.append(sim.harvest_m3)
         gs.append(sim.growing_stock_end_m3)
     h_arr, gs_arr = np.array(h), np.array(gs)
     short = h_arr < np.asarray(targets)[None, :] * (1 - 1e-6)
     q = [10, 50, 90]
     hp, gp = np.percentile(h_arr, q, axis=0), np.percentile(gs_arr, q, axis=0)
-    return pd.DataFrame({
-        "period": np.arange(1, periods.count + 1), "target_m3": targets,
-        "p10_m3": hp[0], "p50_m3": hp[1], "p90_m3": hp[2],
-        "shortfall_probability": short.mean(axis=0),
-        "growing_stock_p10_m3": gp[0], "growing_stock_p50_m3": gp[1],
-        "growing_stock_p90_m3": gp[2],
-    })
+    return pd.DataFrame(
+        {
+            "period": np.arange(1, periods.count + 1),
+            "target_m3": targets,
+            "p10_m3": hp[0],
+            "p50_m3": hp[1],
+            "p90_m3": hp[2],
+            "shortfall_probability": short.mean(axis=0),
+            "growing_stock_p10_m3": gp[0],
+            "growing_stock_p50_m3": gp[1],
+            "growing_stock_p90_m3": gp[2],
+        }
+    )
 
 
 def cover_rules(scenario: Scenario, checked: CheckResult) -> CoverRules | None:
@@ -365,8 +449,10 @@ def cover_rules(scenario: Scenario, checked: CheckResult) -> CoverRules | None:
     rules = []
     for n, t in enumerate(scenario.cover, start=1):
         if t.zone != "*" and t.zone not in names:
-            raise InputError(f"[[cover]] #{n}: zone {t.zone!r} is not a zone of the stands; "
-                             f"their zones: {', '.join(n for n in names if n) or '(none)'}")
+            raise InputError(
+                f"[[cover]] #{n}: zone {t.zone!r} is not a zone of the stands; "
+                f"their zones: {', '.join(n for n in names if n) or '(none)'}"
+            )
         code = -1 if t.zone == "*" else names.index(t.zone)
         rules.append(CoverRule(code, t.zone, t.kind, t.age_years, t.share))
     return CoverRules(tuple(rules), area)
@@ -380,14 +466,28 @@ def cover_report(cover: CoverRules | None, flow: FlowResult, periods: Periods) -
     for i, r in enumerate(cover.rules):
         share = areas[:, i] / cover.area_of(r)
         met = share >= r.share - 1e-9 if r.kind == "old" else share <= r.share + 1e-9
-        rows.append(pd.DataFrame({"period": np.arange(1, periods.count + 1), "zone": r.zone_name,
-                                  "rule": r.label, "target": r.share, "share": share,
-                                  "met": met}))
+        rows.append(
+            pd.DataFrame(
+                {
+                    "period": np.arange(1, periods.count + 1),
+                    "zone": r.zone_name,
+                    "rule": r.label,
+                    "target": r.share,
+                    "share": share,
+                    "met": met,
+                }
+            )
+        )
     return pd.concat(rows, ignore_index=True)
 
 
-def harvest_lp(scenario: Scenario, arrays: StandArrays, curves: CurveSet, periods: Periods,
-               checked: CheckResult) -> tuple[LPResult, Strata]:
+def harvest_lp(
+    scenario: Scenario,
+    arrays: StandArrays,
+    curves: CurveSet,
+    periods: Periods,
+    checked: CheckResult,
+) -> tuple[LPResult, Strata]:
     """The Model II harvest LP of the scenario (aspatial), solved with HiGHS."""
     f = scenario.flow
     zones = pd.factorize(checked.stands["zone"].fillna("").to_numpy())[0]
@@ -396,28 +496,55 @@ def harvest_lp(scenario: Scenario, arrays: StandArrays, curves: CurveSet, period
     econ = None
     if f.objective == "max-npv":
         sp = [scenario.species[c] for c in curves.codes]
-        econ = Economics(np.array([s.price_per_m3 for s in sp], dtype=np.float64),
-                         np.array([s.regen_cost_per_ha for s in sp], dtype=np.float64),
-                         float(scenario.economics.discount_rate), scenario.economics.compounding,
-                         f.terminal_value)
-    lp = solve_lp(arrays, curves, periods, strata, f.objective, policy, f.band,
-                  f.ending_stock, scenario.harvest.max_area_ha_per_period, econ)
-    log.info("harvest LP: %s, %d strata, %d columns, %d rows, %.1f s", lp.status, lp.strata,
-             lp.columns, lp.rows, lp.seconds)
+        econ = Economics(
+            np.array([s.price_per_m3 for s in sp], dtype=np.float64),
+            np.array([s.regen_cost_per_ha for s in sp], dtype=np.float64),
+            float(scenario.economics.discount_rate),
+            scenario.economics.compounding,
+            f.terminal_value,
+        )
+    lp = solve_lp(
+        arrays,
+        curves,
+        periods,
+        strata,
+        f.objective,
+        policy,
+        f.band,
+        f.ending_stock,
+        scenario.harvest.max_area_ha_per_period,
+        econ,
+    )
+    log.info(
+        "harvest LP: %s, %d strata, %d columns, %d rows, %.1f s",
+        lp.status,
+        lp.strata,
+        lp.columns,
+        lp.rows,
+        lp.seconds,
+    )
     return lp, strata
 
 
-def lp_schedule(lp: LPResult, strata: Strata, arrays: StandArrays, curves: CurveSet,
-                periods: Periods, scenario: Scenario, adjacency: Adjacency | None = None,
-                cover: CoverRules | None = None) -> FlowResult:
+def lp_schedule(
+    lp: LPResult,
+    strata: Strata,
+    arrays: StandArrays,
+    curves: CurveSet,
+    periods: Periods,
+    scenario: Scenario,
+    adjacency: Adjacency | None = None,
+    cover: CoverRules | None = None,
+) -> FlowResult:
     """Map the LP onto stands: each stratum's stands (in id order) are planned for the periods
     in which the LP cuts the stratum's area, and the scheduler then takes the LP's harvest of
     each period as its target, planned stands first. The rules the LP does not model (spatial
     rules, cover targets, disturbance) are applied here, so the gap shows what they cost."""
     spatial = None
     if adjacency is not None:
-        spatial = SpatialRules(adjacency, scenario.harvest.greenup_years,
-                               scenario.harvest.max_opening_ha or 0.0)
+        spatial = SpatialRules(
+            adjacency, scenario.harvest.greenup_years, scenario.harvest.max_opening_ha or 0.0
+        )
     P = periods.count
     planned = np.full(arrays.n, P + 1, dtype=np.int64)
     area = arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
@@ -428,22 +555,37 @@ def lp_schedule(lp: LPResult, strata: Strata, arrays: StandArrays, curves: Curve
         mid = np.cumsum(area[members]) - area[members] / 2
         p = np.searchsorted(cum_cut[s], mid * (1 - 1e-9))  # first period covering the stand
         planned[members] = np.where(p < P, p + 1, P + 1)
-    sim = simulate(arrays, curves, periods, 0.0, priority=scenario.harvest.priority,
-                   max_area_ha=scenario.harvest.max_area_ha_per_period, record=True,
-                   rule=Targets(tuple(lp.harvest_m3)), planned=planned, spatial=spatial,
-                   cover=cover, disturbance=scenario.disturbance.annual_rate)
+    sim = simulate(
+        arrays,
+        curves,
+        periods,
+        0.0,
+        priority=scenario.harvest.priority,
+        max_area_ha=scenario.harvest.max_area_ha_per_period,
+        record=True,
+        rule=Targets(tuple(lp.harvest_m3)),
+        planned=planned,
+        spatial=spatial,
+        cover=cover,
+        disturbance=scenario.disturbance.annual_rate,
+    )
     got, want = float(sim.harvest_m3.sum()), float(lp.harvest_m3.sum())
     gap = (want - got) / want if want > 0 else 0.0
-    why = (f"the LP ({lp.status.lower()}, objective {scenario.flow.objective}) on {lp.strata} "
-           f"strata; mapped onto stands the schedule takes {100 * (1 - gap):.2f}% of the LP's "
-           "volume")
+    why = (
+        f"the LP ({lp.status.lower()}, objective {scenario.flow.objective}) on {lp.strata} "
+        f"strata; mapped onto stands the schedule takes {100 * (1 - gap):.2f}% of the LP's "
+        "volume"
+    )
     need = scenario.flow.ending_stock * sim.initial_stock_m3
     if sim.ending_stock_m3 < need * (1 - 1e-6):
-        why += (f"; on the stands the ending growing stock is {sim.ending_stock_m3:,.0f} m3, "
-                f"{100 * (1 - sim.ending_stock_m3 / need):.2f}% short of flow.ending_stock")
+        why += (
+            f"; on the stands the ending growing stock is {sim.ending_stock_m3:,.0f} m3, "
+            f"{100 * (1 - sim.ending_stock_m3 / need):.2f}% short of flow.ending_stock"
+        )
     level = float(sim.harvest_m3[0])
-    return FlowResult(level, level / periods.period_years, sim, why, 1, "optimize",
-                      {"disaggregation_gap": gap})
+    return FlowResult(
+        level, level / periods.period_years, sim, why, 1, "optimize", {"disaggregation_gap": gap}
+    )
 
 
 def lp_record(lp: LPResult | None, flow: FlowResult, objective: str) -> dict | None:
@@ -454,11 +596,15 @@ def lp_record(lp: LPResult | None, flow: FlowResult, objective: str) -> dict | N
     got = float(flow.simulation.harvest_m3.sum())
     return {
         "solver": f"HiGHS {library_versions().get('highspy', '')}",
-        "status": lp.status, "objective": lp.objective,
+        "status": lp.status,
+        "objective": lp.objective,
         "objective_unit": "currency (net present value)" if objective == "max-npv" else "m3",
         "seconds": round(lp.seconds, 3),
-        "strata": lp.strata, "columns": lp.columns, "rows": lp.rows,
-        "duals": lp.duals, "total_harvest_m3": total,
+        "strata": lp.strata,
+        "columns": lp.columns,
+        "rows": lp.rows,
+        "duals": lp.duals,
+        "total_harvest_m3": total,
         "gap_of_schedule_to_lp": (total - got) / total if total > 0 else 0.0,
     }
 
@@ -486,8 +632,9 @@ def stand_adjacency(scenario: Scenario, checked: CheckResult) -> Adjacency:
     return adj
 
 
-def openings_table(flow: FlowResult, adjacency: Adjacency, periods: Periods,
-                   harvest: HarvestConfig) -> pd.DataFrame:
+def openings_table(
+    flow: FlowResult, adjacency: Adjacency, periods: Periods, harvest: HarvestConfig
+) -> pd.DataFrame:
     """Openings at each period's harvest, rebuilt from the harvest events: stands cut within
     the green-up window, grouped by adjacency; area is the area cut in the window."""
     sim = flow.simulation
@@ -503,8 +650,16 @@ def openings_table(flow: FlowResult, adjacency: Adjacency, periods: Periods,
             lab = labels[labels >= 0]
             sizes = np.bincount(lab, area[labels >= 0])
             counts = np.bincount(lab)
-            rows.append(pd.DataFrame({"period": p + 1, "opening_id": np.arange(1, len(sizes) + 1),
-                                      "area_ha": sizes, "n_stands": counts}))
+            rows.append(
+                pd.DataFrame(
+                    {
+                        "period": p + 1,
+                        "opening_id": np.arange(1, len(sizes) + 1),
+                        "area_ha": sizes,
+                        "n_stands": counts,
+                    }
+                )
+            )
     cols = ["period", "opening_id", "area_ha", "n_stands"]
     return pd.concat(rows, ignore_index=True) if rows else pd.DataFrame(columns=cols)
 
@@ -559,7 +714,8 @@ def run_record(result: RunResult, scenario: Scenario) -> dict:
         if sp.table_csv is not None:
             inputs[str(sp.table_csv)] = sha256_file(sp.table_csv)
     for path in [scenario.inventory.site_index_raster] + [
-            p for st in scenario.landbase.steps for p in (st.layer, st.raster)]:
+        p for st in scenario.landbase.steps for p in (st.layer, st.raster)
+    ]:
         if path is not None:
             inputs[str(path)] = sha256_file(path)
     flow = result.flow
@@ -603,8 +759,9 @@ class CurvesResult:
     files: list[Path]
 
 
-def curves(scenario: Scenario, out_dir: str | Path | None = None, site_step_m: float = 1.0
-           ) -> CurvesResult:
+def curves(
+    scenario: Scenario, out_dir: str | Path | None = None, site_step_m: float = 1.0
+) -> CurvesResult:
     """Per species and site value in use: culmination, rules, rotations; CSV and figures.
 
     Files go into ``out_dir`` one by one, each written to a temporary name and moved into
@@ -627,8 +784,9 @@ def curves(scenario: Scenario, out_dir: str | Path | None = None, site_step_m: f
             path = out / FIGURES_DIR / f"curves_{code}.png"
             curve = curve_from_config(scenario.species[code])
             age = _figure_age(main, scenario.growth.max_age_years)
-            replace_file(path, lambda p, c=code, cv=curve, m=main, a=age:
-                         curve_figure(p, c, cv, m, a))
+            replace_file(
+                path, lambda p, c=code, cv=curve, m=main, a=age: curve_figure(p, c, cv, m, a)
+            )
             files.append(path)
     return CurvesResult(table, curve_notes(table), files)
 
@@ -647,9 +805,13 @@ def harvestable_layer(checked: CheckResult) -> gpd.GeoDataFrame:
     percent steps only reduce ``harvestable_ha``)."""
     s = checked.stands
     keep = checked.netdown.harvestable_ha > 0
-    frame = pd.DataFrame({"stand_id": s["stand_id"].to_numpy()[keep],
-                          "species": s["species"].to_numpy()[keep],
-                          "gross_ha": checked.netdown.gross_ha[keep],
-                          "harvestable_ha": checked.netdown.harvestable_ha[keep]})
+    frame = pd.DataFrame(
+        {
+            "stand_id": s["stand_id"].to_numpy()[keep],
+            "species": s["species"].to_numpy()[keep],
+            "gross_ha": checked.netdown.gross_ha[keep],
+            "harvestable_ha": checked.netdown.harvestable_ha[keep],
+        }
+    )
     geom = checked.netdown.remaining_geometry[keep]
     return gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geom, crs=s.crs).values, crs=s.crs)

@@ -78,8 +78,12 @@ class SiteTerms:
         return SiteTerms(self.row[idx], self.scale_v[idx], self.scale_t[idx], self.blend[idx])
 
     def append(self, idx: int) -> SiteTerms:
-        return SiteTerms(np.r_[self.row, self.row[idx]], np.r_[self.scale_v, self.scale_v[idx]],
-                         np.r_[self.scale_t, self.scale_t[idx]], np.r_[self.blend, self.blend[idx]])
+        return SiteTerms(
+            np.r_[self.row, self.row[idx]],
+            np.r_[self.scale_v, self.scale_v[idx]],
+            np.r_[self.scale_t, self.scale_t[idx]],
+            np.r_[self.blend, self.blend[idx]],
+        )
 
 
 class CurveSet:
@@ -97,8 +101,13 @@ class CurveSet:
     Ages beyond the grid (``max_age_years``) are evaluated with the exact formula.
     """
 
-    def __init__(self, codes: Sequence[str], curves: Sequence[YieldCurve],
-                 max_age_years: float = 1000.0, step_years: float = 1 / 16):
+    def __init__(
+        self,
+        codes: Sequence[str],
+        curves: Sequence[YieldCurve],
+        max_age_years: float = 1000.0,
+        step_years: float = 1 / 16,
+    ):
         self.codes = tuple(codes)
         self.curves = tuple(curves)
         self.step = float(step_years)
@@ -109,8 +118,14 @@ class CurveSet:
             if isinstance(curve, _Parametric):
                 rows.append(curve.reference(self.grid)[None, :])
             elif isinstance(curve, TableYield):
-                rows.append(np.stack([curve.volume_m3_ha(self.grid, np.full(self.grid.shape, c))
-                                      for c in curve.site_classes_m]))
+                rows.append(
+                    np.stack(
+                        [
+                            curve.volume_m3_ha(self.grid, np.full(self.grid.shape, c))
+                            for c in curve.site_classes_m
+                        ]
+                    )
+                )
             else:
                 raise TypeError(f"cannot tabulate a curve of type {type(curve).__name__}")
         table = np.vstack(rows)
@@ -121,8 +136,11 @@ class CurveSet:
     @classmethod
     def from_scenario(cls, scenario: Scenario, max_age_years: float = 1000.0) -> CurveSet:
         codes = sorted(scenario.species)
-        return cls(codes, [curve_from_config(scenario.species[c]) for c in codes],
-                   max_age_years=max_age_years)
+        return cls(
+            codes,
+            [curve_from_config(scenario.species[c]) for c in codes],
+            max_age_years=max_age_years,
+        )
 
     def index(self, species: Sequence[str] | NDArray) -> NDArray[np.int32]:
         """Species codes -> positions in :attr:`codes`."""
@@ -154,9 +172,13 @@ class CurveSet:
                 blend[mask] = (c - classes[hi - 1]) / (classes[hi] - classes[hi - 1])
         return SiteTerms(row, scale_v, scale_t, blend)
 
-    def volume_m3_ha(self, species_idx: NDArray, age_years: NDArray,
-                     site_index: NDArray | None = None, terms: SiteTerms | None = None
-                     ) -> NDArray[np.float64]:
+    def volume_m3_ha(
+        self,
+        species_idx: NDArray,
+        age_years: NDArray,
+        site_index: NDArray | None = None,
+        terms: SiteTerms | None = None,
+    ) -> NDArray[np.float64]:
         """Volume [m3/ha] for each element, from site index or precomputed site terms."""
         age_years = np.asarray(age_years, dtype=np.float64)
         if terms is None:
@@ -171,8 +193,9 @@ class CurveSet:
         mixed = np.flatnonzero(terms.blend > 0)
         if len(mixed):  # site-class tables: blend with the next class up
             up = flat[mixed] + self._cols
-            v[mixed] += terms.blend[mixed] * (self._values[up] + pos[mixed] * self._diffs[up]
-                                              - v[mixed])
+            v[mixed] += terms.blend[mixed] * (
+                self._values[up] + pos[mixed] * self._diffs[up] - v[mixed]
+            )
         v *= terms.scale_v
         v[age_years < 0] = 0.0
         if len(scaled) and scaled.max() > self.grid[-1]:  # past the grid: the exact curve
@@ -205,8 +228,7 @@ class StandArrays:
         return len(self.area_ha)
 
     @classmethod
-    def from_table(cls, stands: pd.DataFrame, scenario: Scenario, curves: CurveSet
-                   ) -> StandArrays:
+    def from_table(cls, stands: pd.DataFrame, scenario: Scenario, curves: CurveSet) -> StandArrays:
         """Build the arrays from a stand table with the standard columns."""
         idx = curves.index(stands["species"].to_numpy())
         site = stands["site_index"].to_numpy(dtype=np.float64)
@@ -215,9 +237,13 @@ class StandArrays:
         for i, code in enumerate(curves.codes):  # per species; rules run per distinct site
             mine = idx == i
             if mine.any():
-                min_age[mine] = min_harvest_ages(scenario.species[code], curves.curves[i],
-                                                 site[mine], scenario.economics,
-                                                 scenario.growth)
+                min_age[mine] = min_harvest_ages(
+                    scenario.species[code],
+                    curves.curves[i],
+                    site[mine],
+                    scenario.economics,
+                    scenario.growth,
+                )
         ids = stands["stand_id"].to_numpy()
         rank = np.empty(len(ids), dtype=np.int64)
         rank[np.argsort(ids, kind="stable")] = np.arange(len(ids))
@@ -229,14 +255,18 @@ class StandArrays:
             min_harvest_age=min_age,
             regen_delay_years=delay[idx].astype(np.float64),
             id_rank=rank,
-            harvestable_ha=(stands["harvestable_ha"].to_numpy(dtype=np.float64)
-                            if "harvestable_ha" in stands else None),
+            harvestable_ha=(
+                stands["harvestable_ha"].to_numpy(dtype=np.float64)
+                if "harvestable_ha" in stands
+                else None
+            ),
             zone_idx=zone_codes(stands),
         )
 
 
-def growing_stock_m3(curves: CurveSet, species_idx: NDArray, age_years: NDArray,
-                     terms: SiteTerms, area_ha: NDArray) -> float:
+def growing_stock_m3(
+    curves: CurveSet, species_idx: NDArray, age_years: NDArray, terms: SiteTerms, area_ha: NDArray
+) -> float:
     """Standing volume [m3] summed over stands (or stand parts), from their site terms."""
     return float(np.dot(curves.volume_m3_ha(species_idx, age_years, terms=terms), area_ha))
 

@@ -15,8 +15,18 @@ def library_versions() -> dict[str, str]:
     import shapely
 
     out = {"foresight": __version__, "python": platform.python_version()}
-    for name in ("numpy", "pandas", "scipy", "geopandas", "shapely", "pyogrio", "pyproj",
-                 "rasterio", "highspy", "matplotlib"):
+    for name in (
+        "numpy",
+        "pandas",
+        "scipy",
+        "geopandas",
+        "shapely",
+        "pyogrio",
+        "pyproj",
+        "rasterio",
+        "highspy",
+        "matplotlib",
+    ):
         try:
             out[name] = version(name)
         except PackageNotFoundError:

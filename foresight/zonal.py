@@ -46,22 +46,27 @@ def zonal(geoms: np.ndarray, raster: RasterData, threshold: float | None = None)
     live = np.flatnonzero(~(shapely.is_empty(geoms) | shapely.is_missing(geoms)))
     if len(live):
         rasterio.features.rasterize(
-            zip(geoms[live], live + 1, strict=True), out=labels, transform=raster.transform,
-            all_touched=False)
+            zip(geoms[live], live + 1, strict=True),
+            out=labels,
+            transform=raster.transform,
+            all_touched=False,
+        )
     vals = raster.values.ravel()
     lab = labels.ravel()
     ok = (lab > 0) & np.isfinite(vals)
     cells = np.bincount(lab[ok] - 1, minlength=n).astype(np.float64)
     total = np.bincount(lab[ok] - 1, vals[ok], minlength=n)
-    above = (np.bincount(lab[ok] - 1, (vals[ok] > threshold).astype(np.float64), minlength=n)
-             if threshold is not None else None)
+    above = (
+        np.bincount(lab[ok] - 1, (vals[ok] > threshold).astype(np.float64), minlength=n)
+        if threshold is not None
+        else None
+    )
     hit = np.bincount(lab[lab > 0] - 1, minlength=n) > 0  # any cell centre, valid or not
     sampled = np.zeros(n, dtype=bool)
     tiny = live[~hit[live]]
     if len(tiny):  # no cell centre inside: sample one interior point
         pts = shapely.point_on_surface(geoms[tiny])
-        r, c = rasterio.transform.rowcol(raster.transform, shapely.get_x(pts),
-                                         shapely.get_y(pts))
+        r, c = rasterio.transform.rowcol(raster.transform, shapely.get_x(pts), shapely.get_y(pts))
         r, c = np.asarray(r), np.asarray(c)
         inside = (r >= 0) & (r < rows) & (c >= 0) & (c < cols)
         v = np.full(len(tiny), np.nan)

@@ -17,12 +17,9 @@ ROOT = Path(__file__).resolve().parents[1]
 def small_case(tmp_path):
     """Twenty 1-ha pine stands aged 0..95 and a scenario over them, written to tmp_path."""
     n = 20
-    layer = write_layer(tmp_path / "stands.gpkg", squares(n),
-                        stand_attrs(n, ages=np.arange(n) * 5))
+    layer = write_layer(tmp_path / "stands.gpkg", squares(n), stand_attrs(n, ages=np.arange(n) * 5))
     scenario = write_scenario(tmp_path / "scenario.toml", scenario_dict(layer))
     return tmp_path, layer, scenario
-
-
 
 
 # CI runs the property tests on a fixed sequence of examples, so a red build is reproducible;

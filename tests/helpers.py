@@ -11,12 +11,12 @@ import numpy as np
 import pyogrio
 import shapely
 
-
 ROOT = Path(__file__).resolve().parents[1]
 
 
-def squares(n: int, side_m: float = 100.0, x0: float = 500_000.0, y0: float = 6_700_000.0,
-            per_row: int = 10) -> np.ndarray:
+def squares(
+    n: int, side_m: float = 100.0, x0: float = 500_000.0, y0: float = 6_700_000.0, per_row: int = 10
+) -> np.ndarray:
     """n edge-sharing squares of side_m metres (100 m -> 1 ha) in rows of per_row."""
     i = np.arange(n)
     x = x0 + (i % per_row) * side_m
@@ -24,8 +24,14 @@ def squares(n: int, side_m: float = 100.0, x0: float = 500_000.0, y0: float = 6_
     return shapely.box(x, y, x + side_m, y + side_m)
 
 
-def write_layer(path: Path, geoms: Any, attrs: dict[str, Any], crs: str | None = "EPSG:32633",
-                layer: str = "stands", driver: str | None = None) -> Path:
+def write_layer(
+    path: Path,
+    geoms: Any,
+    attrs: dict[str, Any],
+    crs: str | None = "EPSG:32633",
+    layer: str = "stands",
+    driver: str | None = None,
+) -> Path:
     """Write a stand layer with pyogrio (GDAL), as a user's GIS would have."""
     frame = gpd.GeoDataFrame(attrs, geometry=list(geoms), crs=crs)
     with warnings.catch_warnings():
@@ -47,14 +53,36 @@ def stand_attrs(n: int, ages: Any, species: Any = "pine", site: Any = 18.0) -> d
 def scenario_dict(inventory: Path, **sections: dict[str, Any]) -> dict[str, Any]:
     """A complete scenario for one pine curve; keyword sections are merged in."""
     raw: dict[str, Any] = {
-        "scenario": {"name": "test", "start_year": 2030, "period_years": 10, "periods": 10,
-                     "harvest_timing": "midpoint"},
-        "inventory": {"path": str(inventory), "layer": "stands",
-                      "fields": {"stand_id": "ID", "species": "SPP", "site_index": "SI",
-                                 "age": "AGE", "zone": "ZONE"}},
-        "species": {"pine": {"curve": "chapman-richards", "a": 400.0, "k": 0.03, "c": 3.0,
-                             "min_harvest_age": 60, "regen_delay_years": 0,
-                             "site_index_min_m": 10.0, "site_index_max_m": 30.0}},
+        "scenario": {
+            "name": "test",
+            "start_year": 2030,
+            "period_years": 10,
+            "periods": 10,
+            "harvest_timing": "midpoint",
+        },
+        "inventory": {
+            "path": str(inventory),
+            "layer": "stands",
+            "fields": {
+                "stand_id": "ID",
+                "species": "SPP",
+                "site_index": "SI",
+                "age": "AGE",
+                "zone": "ZONE",
+            },
+        },
+        "species": {
+            "pine": {
+                "curve": "chapman-richards",
+                "a": 400.0,
+                "k": 0.03,
+                "c": 3.0,
+                "min_harvest_age": 60,
+                "regen_delay_years": 0,
+                "site_index_min_m": 10.0,
+                "site_index_max_m": 30.0,
+            }
+        },
         "harvest": {"priority": "oldest"},
         "flow": {"policy": "even", "band": 0.0, "ending_stock": 0.0},
     }
@@ -110,3 +138,20 @@ def dump_toml(raw: dict[str, Any]) -> str:
 def write_scenario(path: Path, raw: dict[str, Any]) -> Path:
     path.write_text(dump_toml(raw), encoding="utf-8")
     return path
+
+
+def gap_forest(n: int = 120, seed: int = 4):
+    """StandArrays of one species with an old-forest surplus and an age gap (as the sample)."""
+    from foresight.projection import StandArrays
+
+    rng = np.random.default_rng(seed)
+    ages = np.where(rng.random(n) < 0.6, rng.uniform(90, 160, n), rng.uniform(0, 30, n))
+    return StandArrays(
+        np.zeros(n, np.int32),
+        np.full(n, 20.0),
+        ages,
+        rng.uniform(5, 30, n),
+        np.full(n, 60.0),
+        np.zeros(n),
+        np.arange(n),
+    )

@@ -8,6 +8,7 @@ import pytest
 from foresight import load_scenario
 from foresight.config import KEYS
 from foresight.errors import ScenarioError
+
 from helpers import scenario_dict, write_scenario
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -33,8 +34,9 @@ def test_sample_scenario_loads():
     ],
 )
 def test_bad_keys_are_named(tmp_path, section, table, match):
-    path = write_scenario(tmp_path / "s.toml", scenario_dict(tmp_path / "x.gpkg",
-                                                              **{section: table}))
+    path = write_scenario(
+        tmp_path / "s.toml", scenario_dict(tmp_path / "x.gpkg", **{section: table})
+    )
     with pytest.raises(ScenarioError, match=match):
         load_scenario(path)
 
@@ -44,16 +46,30 @@ def test_bad_keys_are_named(tmp_path, section, table, match):
     [
         ({"a": -400.0}, r"\[species.pine\] a = -400.0: must be > 0"),
         ({"k": 0.0}, r"\[species.pine\] k = 0.0: must be > 0"),
-        ({"curve": "stock-threshold", "r": 0.1, "capacity_m3_ha": 300.0, "initial_m3_ha": 5.0,
-          "min_viable_m3_ha": 300.0}, r"min_viable_m3_ha = 300 must be below capacity_m3_ha"),
-        ({"curve": "stock-logistic", "r": -0.1, "capacity_m3_ha": 300.0,
-          "initial_m3_ha": 5.0}, r"r = -0.1: must be > 0"),
+        (
+            {
+                "curve": "stock-threshold",
+                "r": 0.1,
+                "capacity_m3_ha": 300.0,
+                "initial_m3_ha": 5.0,
+                "min_viable_m3_ha": 300.0,
+            },
+            r"min_viable_m3_ha = 300 must be below capacity_m3_ha",
+        ),
+        (
+            {"curve": "stock-logistic", "r": -0.1, "capacity_m3_ha": 300.0, "initial_m3_ha": 5.0},
+            r"r = -0.1: must be > 0",
+        ),
         ({"curve": "schumacher", "a": 500.0}, r"curve 'schumacher' needs key 'b'"),
-        ({"min_harvest_age": None, "min_harvest_economic": True},
-         r"min_harvest_economic = true needs \[economics\] discount_rate"),
+        (
+            {"min_harvest_age": None, "min_harvest_economic": True},
+            r"min_harvest_economic = true needs \[economics\] discount_rate",
+        ),
         ({"min_harvest_mai_share": 1.5}, r"min_harvest_mai_share = 1.5: must be > 0 and <= 1"),
-        ({"products": {"ages": [40, 80], "saw": [0.2, 0.5], "pulp": [0.8, 0.6]}},
-         r"shares at age 80 add up to 1.1, not 1"),
+        (
+            {"products": {"ages": [40, 80], "saw": [0.2, 0.5], "pulp": [0.8, 0.6]}},
+            r"shares at age 80 add up to 1.1, not 1",
+        ),
     ],
 )
 def test_curve_parameters_out_of_domain(tmp_path, species, match):
@@ -79,17 +95,22 @@ def test_discount_rate_must_be_positive(tmp_path):
 
 def test_site_class_table_from_toml_and_csv(tmp_path):
     raw = scenario_dict(tmp_path / "x.gpkg")
-    raw["species"]["pine"] = {"curve": "table", "ages": [20, 40, 60],
-                              "site_classes_m": [16.0, 22.0],
-                              "volumes_m3_ha": [[10, 60, 140], [30, 120, 240]],
-                              "min_harvest_age": 40}
+    raw["species"]["pine"] = {
+        "curve": "table",
+        "ages": [20, 40, 60],
+        "site_classes_m": [16.0, 22.0],
+        "volumes_m3_ha": [[10, 60, 140], [30, 120, 240]],
+        "min_harvest_age": 40,
+    }
     scn = load_scenario(write_scenario(tmp_path / "a.toml", raw))
     pine = scn.species["pine"]
     assert pine.volumes_m3_ha == ((10, 60, 140), (30, 120, 240))
     assert (pine.site_index_min_m, pine.site_index_max_m) == (16.0, 22.0)
-    (tmp_path / "t.csv").write_text("site_index_m,age_years,volume_m3_ha\n"
-                                    "16,20,10\n16,40,60\n16,60,140\n"
-                                    "22,20,30\n22,40,120\n22,60,240\n")
+    (tmp_path / "t.csv").write_text(
+        "site_index_m,age_years,volume_m3_ha\n"
+        "16,20,10\n16,40,60\n16,60,140\n"
+        "22,20,30\n22,40,120\n22,60,240\n"
+    )
     raw["species"]["pine"] = {"curve": "table", "table_csv": "t.csv", "min_harvest_age": 40}
     from_csv = load_scenario(write_scenario(tmp_path / "b.toml", raw)).species["pine"]
     assert from_csv.volumes_m3_ha == pine.volumes_m3_ha
@@ -109,8 +130,12 @@ def test_unknown_section_and_species_key(tmp_path):
 
 def test_table_curve_checks(tmp_path):
     raw = scenario_dict(tmp_path / "x.gpkg")
-    raw["species"]["pine"] = {"curve": "table", "ages": [10, 30, 20],
-                              "volumes_m3_ha": [1, 2, 3], "min_harvest_age": 20}
+    raw["species"]["pine"] = {
+        "curve": "table",
+        "ages": [10, 30, 20],
+        "volumes_m3_ha": [1, 2, 3],
+        "min_harvest_age": 20,
+    }
     with pytest.raises(ScenarioError, match="ages must increase strictly"):
         load_scenario(write_scenario(tmp_path / "a.toml", raw))
     raw["species"]["pine"] = {"curve": "table", "table_csv": "missing.csv", "min_harvest_age": 2}
@@ -124,9 +149,15 @@ def test_table_curve_checks(tmp_path):
 
 def test_overrides_reach_any_key(tmp_path):
     path = write_scenario(tmp_path / "s.toml", scenario_dict(tmp_path / "x.gpkg"))
-    scn = load_scenario(path, overrides=["flow.band=0.15", "species.pine.k=0.05",
-                                         "scenario.name=sensitivity one",
-                                         "harvest.max_area_ha_per_period=40"])
+    scn = load_scenario(
+        path,
+        overrides=[
+            "flow.band=0.15",
+            "species.pine.k=0.05",
+            "scenario.name=sensitivity one",
+            "harvest.max_area_ha_per_period=40",
+        ],
+    )
     assert scn.flow.band == 0.15
     assert scn.species["pine"].k == 0.05
     assert scn.scenario.name == "sensitivity one"
@@ -157,6 +188,9 @@ def test_max_npv_needs_prices_and_a_rate(tmp_path):
     with pytest.raises(ScenarioError, match=r"max-npv' needs \[economics\] discount_rate"):
         load_scenario(write_scenario(tmp_path / "a.toml", raw))
     raw["economics"] = {"discount_rate": 0.03}
-    with pytest.raises(ScenarioError, match=r"needs price_per_m3 for every species; missing "
-                                            r"for: pine"):
+    with pytest.raises(
+        ScenarioError,
+        match=r"needs price_per_m3 for every species; missing "
+        r"for: pine",
+    ):
         load_scenario(write_scenario(tmp_path / "b.toml", raw))

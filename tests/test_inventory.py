@@ -7,6 +7,7 @@ import shapely
 
 import foresight
 from foresight.errors import InventoryError
+
 from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
 
 
@@ -19,8 +20,7 @@ def _polygons_lonlat():
             lon0 = rng.uniform(-10, 30)
             theta = np.sort(rng.uniform(0, 2 * np.pi, 9))
             r = rng.uniform(0.002, 0.01, 9)
-            polys.append(shapely.Polygon(np.c_[lon0 + r * np.cos(theta),
-                                               lat + r * np.sin(theta)]))
+            polys.append(shapely.Polygon(np.c_[lon0 + r * np.cos(theta), lat + r * np.sin(theta)]))
     return polys
 
 
@@ -73,11 +73,17 @@ def test_invalid_geometry_repaired_and_reported_or_rejected_when_strict(tmp_path
         foresight.check(scn, strict=True)
 
 
-@pytest.mark.parametrize("driver,suffix", [("ESRI Shapefile", ".shp"), ("GeoJSON", ".geojson"),
-                                           ("FlatGeobuf", ".fgb")])
+@pytest.mark.parametrize(
+    "driver,suffix", [("ESRI Shapefile", ".shp"), ("GeoJSON", ".geojson"), ("FlatGeobuf", ".fgb")]
+)
 def test_other_vector_formats(tmp_path, driver, suffix):
-    layer = write_layer(tmp_path / f"stands{suffix}", squares(4), stand_attrs(4, ages=70),
-                        driver=driver, layer="stands")
+    layer = write_layer(
+        tmp_path / f"stands{suffix}",
+        squares(4),
+        stand_attrs(4, ages=70),
+        driver=driver,
+        layer="stands",
+    )
     raw = scenario_dict(layer)
     del raw["inventory"]["layer"]  # one layer per file: no name needed
     inv = foresight.check(foresight.load_scenario(write_scenario(tmp_path / "s.toml", raw)))

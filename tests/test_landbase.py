@@ -17,16 +17,23 @@ import foresight
 from foresight.cli.main import main
 from foresight.io.rasters import RasterData
 from foresight.zonal import zonal
+
 from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
 
 X0, Y0 = 500_000.0, 6_700_000.0
 
 
-def write_raster(path, values, x0=X0, y0=Y0 + 1000, cell=10.0, crs="EPSG:32633",
-                 nodata=-9999.0):
-    prof = {"driver": "GTiff", "width": values.shape[1], "height": values.shape[0], "count": 1,
-            "dtype": "float32", "transform": from_origin(x0, y0, cell, cell), "nodata": nodata,
-            "compress": "deflate"}
+def write_raster(path, values, x0=X0, y0=Y0 + 1000, cell=10.0, crs="EPSG:32633", nodata=-9999.0):
+    prof = {
+        "driver": "GTiff",
+        "width": values.shape[1],
+        "height": values.shape[0],
+        "count": 1,
+        "dtype": "float32",
+        "transform": from_origin(x0, y0, cell, cell),
+        "nodata": nodata,
+        "compress": "deflate",
+    }
     if crs is not None:
         prof["crs"] = crs
     with rasterio.open(path, "w", **prof) as dst:
@@ -57,17 +64,23 @@ def test_stream_buffer_removes_two_w_l(tmp_path):
     stand = shapely.box(X0, Y0, X0 + 400, Y0 + 200)  # 8 ha
     w = 15.0
     crossing = shapely.LineString([(X0 - 50, Y0 + 100), (X0 + 450, Y0 + 100)])
-    scn = layer_case(tmp_path, [stand], [{"label": "streams", "layer": "stands.gpkg",
-                                          "layer_name": "streams", "buffer_m": w}],
-                     extra_layers=[("streams", lines([crossing], CLASS=[1]))])
+    scn = layer_case(
+        tmp_path,
+        [stand],
+        [{"label": "streams", "layer": "stands.gpkg", "layer_name": "streams", "buffer_m": w}],
+        extra_layers=[("streams", lines([crossing], CLASS=[1]))],
+    )
     res = foresight.check(scn)
     assert res.netdown.removed_ha[0, 0] == pytest.approx(2 * w * 400 / 1e4, rel=1e-9)
     # a stream that stops 100 m inside the stand: 2 w 100 plus one end cap
     half = shapely.LineString([(X0 - 50, Y0 + 100), (X0 + 100, Y0 + 100)])
     (tmp_path / "b").mkdir()
-    scn = layer_case(tmp_path / "b", [stand], [{"label": "streams", "layer": "stands.gpkg",
-                                          "layer_name": "streams", "buffer_m": w}],
-                     extra_layers=[("streams", lines([half], CLASS=[1]))])
+    scn = layer_case(
+        tmp_path / "b",
+        [stand],
+        [{"label": "streams", "layer": "stands.gpkg", "layer_name": "streams", "buffer_m": w}],
+        extra_layers=[("streams", lines([half], CLASS=[1]))],
+    )
     cap = math.pi * w**2 / 2 * (32 / (2 * math.pi)) * math.sin(2 * math.pi / 32)
     got = foresight.check(scn).netdown.removed_ha[0, 0]
     assert got == pytest.approx((2 * w * 100 + cap) / 1e4, rel=1e-6)
@@ -76,14 +89,27 @@ def test_stream_buffer_removes_two_w_l(tmp_path):
 def test_reserve_inside_removes_its_area_and_buffer_by_class(tmp_path):
     stands = list(squares(4, side_m=200.0, per_row=2))  # four 4-ha squares
     reserve = shapely.box(X0 + 50, Y0 + 50, X0 + 150, Y0 + 130)  # 0.8 ha inside stand 1
-    streams = lines([shapely.LineString([(X0 + 200, Y0 - 10), (X0 + 200, Y0 + 410)]),
-                     shapely.LineString([(X0 - 10, Y0 + 300), (X0 + 410, Y0 + 300)])],
-                    KIND=["big", "small"])
-    scn = layer_case(tmp_path, stands, [
-        {"label": "reserves", "layer": "stands.gpkg", "layer_name": "reserves"},
-        {"label": "riparian", "layer": "stands.gpkg", "layer_name": "streams",
-         "buffer_by": {"field": "KIND", "widths_m": {"big": 20.0, "small": 5.0}}},
-    ], extra_layers=[("reserves", lines([reserve], RID=[1])), ("streams", streams)])
+    streams = lines(
+        [
+            shapely.LineString([(X0 + 200, Y0 - 10), (X0 + 200, Y0 + 410)]),
+            shapely.LineString([(X0 - 10, Y0 + 300), (X0 + 410, Y0 + 300)]),
+        ],
+        KIND=["big", "small"],
+    )
+    scn = layer_case(
+        tmp_path,
+        stands,
+        [
+            {"label": "reserves", "layer": "stands.gpkg", "layer_name": "reserves"},
+            {
+                "label": "riparian",
+                "layer": "stands.gpkg",
+                "layer_name": "streams",
+                "buffer_by": {"field": "KIND", "widths_m": {"big": 20.0, "small": 5.0}},
+            },
+        ],
+        extra_layers=[("reserves", lines([reserve], RID=[1])), ("streams", streams)],
+    )
     res = foresight.check(scn)
     assert res.netdown.removed_ha[0].tolist() == pytest.approx([0.8, 0, 0, 0])
     # riparian: the big stream (20 m each side, 400 m long) along the shared edge splits
@@ -96,8 +122,9 @@ def test_reserve_inside_removes_its_area_and_buffer_by_class(tmp_path):
 def _mixed_case(tmp_path, order):
     stands = list(squares(6, side_m=200.0, per_row=3))
     attrs = stand_attrs(6, ages=80)
-    attrs["COVER"] = np.array(["forest", "rock", "forest", "forest", "forest", "forest"],
-                              dtype=object)
+    attrs["COVER"] = np.array(
+        ["forest", "rock", "forest", "forest", "forest", "forest"], dtype=object
+    )
     reserve = shapely.box(X0 + 420, Y0 + 20, X0 + 580, Y0 + 180)  # inside stand 3 only
     slope = np.zeros((100, 100))
     slope[60:80, 0:10] = 50  # steep: x 0..100, y 200..400, half of stand 4
@@ -107,10 +134,14 @@ def _mixed_case(tmp_path, order):
         "reserve": {"label": "reserves", "layer": "stands.gpkg", "layer_name": "reserves"},
         "slope": {"label": "steep", "raster": "slope.tif", "above": 40},
     }
-    scn = layer_case(tmp_path, stands, [steps[k] for k in order], attrs=attrs,
-                     extra_layers=[("reserves", lines([reserve], RID=[1]))])
+    scn = layer_case(
+        tmp_path,
+        stands,
+        [steps[k] for k in order],
+        attrs=attrs,
+        extra_layers=[("reserves", lines([reserve], RID=[1]))],
+    )
     return foresight.check(scn)
-
 
 
 @pytest.mark.parametrize("order", list(itertools.permutations(["rule", "reserve", "slope"])))
@@ -119,12 +150,14 @@ def test_gross_is_removals_plus_harvestable_in_any_order(tmp_path, order):
     # order changes attribution but not the harvestable area when steps do not overlap.
     res = _mixed_case(tmp_path, order)
     nd = res.netdown
-    np.testing.assert_allclose(nd.gross_ha, nd.removed_ha.sum(axis=0) + nd.harvestable_ha,
-                               rtol=1e-12)
+    np.testing.assert_allclose(
+        nd.gross_ha, nd.removed_ha.sum(axis=0) + nd.harvestable_ha, rtol=1e-12
+    )
     table = nd.table
     assert table["remaining_ha"].iloc[-1] == pytest.approx(nd.harvestable_ha.sum())
     assert table["removed_ha"].iloc[:-1].sum() + nd.harvestable_ha.sum() == pytest.approx(
-        nd.gross_ha.sum())
+        nd.gross_ha.sum()
+    )
     np.testing.assert_allclose(nd.harvestable_ha, [4, 0, 4 - 2.56, 2, 4, 4], atol=1e-9)
 
 
@@ -135,10 +168,13 @@ def test_zonal_mean_matches_point_sampling():
     values[5:9, 10:30] = np.nan  # nodata
     transform = from_origin(X0, Y0 + 600, 10.0, 10.0)
     raster = RasterData(None, values, transform, None, (0, 0, 0, 0))
-    polys = [shapely.Polygon([(X0 + 33, Y0 + 520), (X0 + 420, Y0 + 590), (X0 + 380, Y0 + 300),
-                              (X0 + 90, Y0 + 260)]),
-             shapely.box(X0 + 500, Y0 + 20, X0 + 790, Y0 + 240).buffer(-20),
-             shapely.box(X0 + 701, Y0 + 401, X0 + 703, Y0 + 403)]  # no cell centre inside
+    polys = [
+        shapely.Polygon(
+            [(X0 + 33, Y0 + 520), (X0 + 420, Y0 + 590), (X0 + 380, Y0 + 300), (X0 + 90, Y0 + 260)]
+        ),
+        shapely.box(X0 + 500, Y0 + 20, X0 + 790, Y0 + 240).buffer(-20),
+        shapely.box(X0 + 701, Y0 + 401, X0 + 703, Y0 + 403),
+    ]  # no cell centre inside
     z = zonal(np.array(polys, dtype=object), raster, threshold=50.0)
     cols, rows = np.meshgrid(np.arange(80), np.arange(60))
     cx, cy = X0 + 5 + 10 * cols, Y0 + 600 - 5 - 10 * rows
@@ -159,7 +195,8 @@ def test_raster_in_another_crs_matches_a_prewarped_raster(tmp_path):
     stands = list(squares(9, side_m=300.0, per_row=3))
     src_crs, dst_crs = "EPSG:3035", "EPSG:32633"
     left, bottom, right, top = rasterio.warp.transform_bounds(
-        dst_crs, src_crs, X0 - 500, Y0 - 500, X0 + 1400, Y0 + 1400)
+        dst_crs, src_crs, X0 - 500, Y0 - 500, X0 + 1400, Y0 + 1400
+    )
     cell = 20.0
     w, h = int((right - left) / cell), int((top - bottom) / cell)
     yy, xx = np.mgrid[0:h, 0:w]
@@ -168,9 +205,14 @@ def test_raster_in_another_crs_matches_a_prewarped_raster(tmp_path):
     dst = np.full((110, 110), np.nan, dtype="float32")
     dst_transform = from_origin(X0 - 100, Y0 + 1000, 10.0, 10.0)
     with rasterio.open(tmp_path / "si_3035.tif") as src:
-        rasterio.warp.reproject(rasterio.band(src, 1), dst, dst_transform=dst_transform,
-                                dst_crs=dst_crs, resampling=rasterio.warp.Resampling.bilinear,
-                                dst_nodata=np.nan)
+        rasterio.warp.reproject(
+            rasterio.band(src, 1),
+            dst,
+            dst_transform=dst_transform,
+            dst_crs=dst_crs,
+            resampling=rasterio.warp.Resampling.bilinear,
+            dst_nodata=np.nan,
+        )
     write_raster(tmp_path / "si_32633.tif", dst, x0=X0 - 100, y0=Y0 + 1000, cell=10.0)
 
     def site_values(name):
@@ -191,10 +233,16 @@ def test_harvested_area_never_exceeds_harvestable(tmp_path):
     stands = list(squares(12, side_m=200.0, per_row=4))
     attrs = stand_attrs(12, ages=np.arange(12) * 10 + 40)
     streams = lines([shapely.LineString([(X0 + 300, Y0 - 10), (X0 + 300, Y0 + 610)])], K=[1])
-    scn = layer_case(tmp_path, stands, [
-        {"label": "riparian", "layer": "stands.gpkg", "layer_name": "streams", "buffer_m": 30},
-        {"label": "roads", "percent": 4.0},
-    ], attrs=attrs, extra_layers=[("streams", streams)])
+    scn = layer_case(
+        tmp_path,
+        stands,
+        [
+            {"label": "riparian", "layer": "stands.gpkg", "layer_name": "streams", "buffer_m": 30},
+            {"label": "roads", "percent": 4.0},
+        ],
+        attrs=attrs,
+        extra_layers=[("streams", streams)],
+    )
     res = foresight.run(scn, None)
     h = res.harvests.groupby(["stand_id", "period"])["area_ha"].sum().reset_index()
     limit = res.stands.set_index("stand_id")["harvestable_ha"]
@@ -203,28 +251,45 @@ def test_harvested_area_never_exceeds_harvestable(tmp_path):
     assert res.stands["harvestable_ha"].sum() < res.stands["gross_ha"].sum()
 
 
-@pytest.mark.parametrize(("step", "pattern"), [
-    ({"layer": "nowhere.gpkg"}, r"#1 'bad': .*nowhere.gpkg: stand layer file not found"),
-    ({"layer": "stands.gpkg", "layer_name": "roads"}, r"#1 'bad': .*no layer 'roads'"),
-    ({"layer": "stands.gpkg", "layer_name": "streams"},
-     r"#1 'bad': the layer has lines or points; give a buffer_m"),
-    ({"layer": "stands.gpkg", "layer_name": "streams",
-      "buffer_by": {"field": "CLASS", "widths_m": {"1": 10}}},
-     r"#1 'bad': buffer_by has no width for class '2'"),
-    ({"layer": "stands.gpkg", "layer_name": "streams", "buffer_m": -5},
-     r"#1 'bad'\] buffer_m = -5: must be >= 0"),
-    ({"where": "COLOUR == 'red'"}, r"#1 'bad': where = .* names field 'COLOUR'"),
-    ({"where": "AGE >> 3"}, r"#1 'bad': where = 'AGE >> 3': 'AGE >> 3' is not allowed"),
-    ({"where": "AGE >"}, r"#1 'bad': where = 'AGE >' does not parse"),
-    ({"raster": "nocrs.tif", "above": 1}, r"nocrs.tif: .*the raster has no CRS"),
-    ({"raster": "far.tif", "above": 1}, r"far.tif: the raster does not overlap the stands"),
-    ({"percent": 5, "raster": "far.tif"}, r"needs exactly one of where, layer, raster"),
-])
+@pytest.mark.parametrize(
+    ("step", "pattern"),
+    [
+        ({"layer": "nowhere.gpkg"}, r"#1 'bad': .*nowhere.gpkg: stand layer file not found"),
+        ({"layer": "stands.gpkg", "layer_name": "roads"}, r"#1 'bad': .*no layer 'roads'"),
+        (
+            {"layer": "stands.gpkg", "layer_name": "streams"},
+            r"#1 'bad': the layer has lines or points; give a buffer_m",
+        ),
+        (
+            {
+                "layer": "stands.gpkg",
+                "layer_name": "streams",
+                "buffer_by": {"field": "CLASS", "widths_m": {"1": 10}},
+            },
+            r"#1 'bad': buffer_by has no width for class '2'",
+        ),
+        (
+            {"layer": "stands.gpkg", "layer_name": "streams", "buffer_m": -5},
+            r"#1 'bad'\] buffer_m = -5: must be >= 0",
+        ),
+        ({"where": "COLOUR == 'red'"}, r"#1 'bad': where = .* names field 'COLOUR'"),
+        ({"where": "AGE >> 3"}, r"#1 'bad': where = 'AGE >> 3': 'AGE >> 3' is not allowed"),
+        ({"where": "AGE >"}, r"#1 'bad': where = 'AGE >' does not parse"),
+        ({"raster": "nocrs.tif", "above": 1}, r"nocrs.tif: .*the raster has no CRS"),
+        ({"raster": "far.tif", "above": 1}, r"far.tif: the raster does not overlap the stands"),
+        ({"percent": 5, "raster": "far.tif"}, r"needs exactly one of where, layer, raster"),
+    ],
+)
 def test_bad_netdown_steps_exit_2(tmp_path, capsys, step, pattern):
     write_raster(tmp_path / "nocrs.tif", np.ones((10, 10)), crs=None)
     write_raster(tmp_path / "far.tif", np.ones((10, 10)), x0=X0 + 1e6)
-    streams = lines([shapely.LineString([(X0, Y0), (X0 + 50, Y0 + 50)]),
-                     shapely.LineString([(X0 + 50, Y0), (X0, Y0 + 50)])], CLASS=[1, 2])
+    streams = lines(
+        [
+            shapely.LineString([(X0, Y0), (X0 + 50, Y0 + 50)]),
+            shapely.LineString([(X0 + 50, Y0), (X0, Y0 + 50)]),
+        ],
+        CLASS=[1, 2],
+    )
     gpkg = write_layer(tmp_path / "stands.gpkg", list(squares(4)), stand_attrs(4, ages=80))
     pyogrio.write_dataframe(streams, gpkg, layer="streams", append=True)
     raw = scenario_dict(gpkg)
@@ -270,10 +335,15 @@ def test_stand_wholly_inside_a_reserve_leaves_nothing(tmp_path, caplog):
     stands = list(squares(2, side_m=100.0))
     write_raster(tmp_path / "slope.tif", np.zeros((20, 40)), x0=X0 - 50, y0=Y0 + 150)
     reserve = shapely.box(X0 - 10, Y0 - 10, X0 + 100, Y0 + 110)  # covers stand 1 entirely
-    scn = layer_case(tmp_path, stands, [
-        {"label": "reserves", "layer": "stands.gpkg", "layer_name": "reserves"},
-        {"label": "steep", "raster": "slope.tif", "above": 40},
-    ], extra_layers=[("reserves", lines([reserve], RID=[1]))])
+    scn = layer_case(
+        tmp_path,
+        stands,
+        [
+            {"label": "reserves", "layer": "stands.gpkg", "layer_name": "reserves"},
+            {"label": "steep", "raster": "slope.tif", "above": 40},
+        ],
+        extra_layers=[("reserves", lines([reserve], RID=[1]))],
+    )
     with caplog.at_level("WARNING", logger="foresight"):
         res = foresight.check(scn)
     assert res.netdown.harvestable_ha.tolist() == [0.0, 1.0]

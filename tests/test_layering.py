@@ -6,12 +6,21 @@ from pathlib import Path
 
 PKG = Path(__file__).resolve().parents[1] / "foresight"
 LAYER = {
-    "errors": 0, "_version": 0, "versions": 0,
-    "config": 1, "growth": 1,
-    "io": 2, "inventory": 2, "projection": 2, "zonal": 2, "adjacency": 2,
-    "schedule": 3, "landbase": 3,
+    "errors": 0,
+    "_version": 0,
+    "versions": 0,
+    "config": 1,
+    "growth": 1,
+    "io": 2,
+    "inventory": 2,
+    "projection": 2,
+    "zonal": 2,
+    "adjacency": 2,
+    "schedule": 3,
+    "landbase": 3,
     "reporting": 4,
-    "pipeline": 5, "__init__": 6,
+    "pipeline": 5,
+    "__init__": 6,
     "cli": 7,
 }
 

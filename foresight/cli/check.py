@@ -8,9 +8,13 @@ import foresight
 
 
 def add_parser(sub, common: argparse.ArgumentParser) -> None:  # noqa: ANN001
-    p = sub.add_parser("check", parents=[common], help="check the scenario and stand layer",
-                       description="Run all scenario and inventory checks and print a summary "
-                       "(stands, area by species and age class) without projecting.")
+    p = sub.add_parser(
+        "check",
+        parents=[common],
+        help="check the scenario and stand layer",
+        description="Run all scenario and inventory checks and print a summary "
+        "(stands, area by species and age class) without projecting.",
+    )
     p.add_argument("scenario", help="scenario TOML file")
     p.set_defaults(handler=handle)
 

@@ -11,14 +11,19 @@ from foresight.io.tables import read_points
 
 
 def add_parser(sub, common: argparse.ArgumentParser) -> None:  # noqa: ANN001
-    p = sub.add_parser("fit", parents=[common], help="fit a yield curve to points",
-                       description="Least-squares fit of a yield curve family to a CSV of "
-                       "age_years, volume_m3_ha points; prints RMSE, R2, warnings and a "
-                       "[species] snippet to paste into a scenario.")
+    p = sub.add_parser(
+        "fit",
+        parents=[common],
+        help="fit a yield curve to points",
+        description="Least-squares fit of a yield curve family to a CSV of "
+        "age_years, volume_m3_ha points; prints RMSE, R2, warnings and a "
+        "[species] snippet to paste into a scenario.",
+    )
     p.add_argument("points", help="CSV with columns age_years and volume_m3_ha")
     p.add_argument("--model", choices=sorted(FAMILIES), default="chapman-richards")
-    p.add_argument("--species", default="SPECIES", metavar="CODE",
-                   help="species code for the printed snippet")
+    p.add_argument(
+        "--species", default="SPECIES", metavar="CODE", help="species code for the printed snippet"
+    )
     p.set_defaults(handler=handle)
 
 

@@ -45,15 +45,27 @@ def build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action=_VersionAction)
     common = argparse.ArgumentParser(add_help=False)
-    common.add_argument("-v", "--verbose", action="count", default=0,
-                        help="more progress detail on stderr (-vv for debug)")
-    common.add_argument("-q", "--quiet", action="store_true",
-                        help="print errors only (no progress, no summary)")
-    common.add_argument("--set", dest="overrides", action="append", default=[],
-                        metavar="KEY=VALUE",
-                        help="override a scenario key, e.g. --set flow.band=0.1 (repeatable)")
-    common.add_argument("--strict", action="store_true",
-                        help="reject invalid geometries instead of repairing them")
+    common.add_argument(
+        "-v",
+        "--verbose",
+        action="count",
+        default=0,
+        help="more progress detail on stderr (-vv for debug)",
+    )
+    common.add_argument(
+        "-q", "--quiet", action="store_true", help="print errors only (no progress, no summary)"
+    )
+    common.add_argument(
+        "--set",
+        dest="overrides",
+        action="append",
+        default=[],
+        metavar="KEY=VALUE",
+        help="override a scenario key, e.g. --set flow.band=0.1 (repeatable)",
+    )
+    common.add_argument(
+        "--strict", action="store_true", help="reject invalid geometries instead of repairing them"
+    )
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
     for module in (run_cmd, check_cmd, curves_cmd, fit_cmd):
         module.add_parser(sub, common)
@@ -84,8 +96,10 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 130
     except Exception:  # a bug: show everything so it can be reported
         traceback.print_exc()
-        print("foresight: unexpected error (a bug); please report it with the traceback above",
-              file=sys.stderr)
+        print(
+            "foresight: unexpected error (a bug); please report it with the traceback above",
+            file=sys.stderr,
+        )
         return EXIT_BUG
 
 

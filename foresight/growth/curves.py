@@ -201,8 +201,9 @@ class StockGrowth(_Parametric):
     site: SiteScaling = field(default_factory=SiteScaling)
 
     def __post_init__(self) -> None:
-        traj = stock.Trajectory(self.r, self.capacity_m3_ha, self.initial_m3_ha,
-                                self.min_viable_m3_ha)
+        traj = stock.Trajectory(
+            self.r, self.capacity_m3_ha, self.initial_m3_ha, self.min_viable_m3_ha
+        )
         object.__setattr__(self, "_trajectory", traj)
 
     @property

@@ -34,16 +34,29 @@ def growth_factor(t: NDArray, rate: float, compounding: str) -> NDArray:
     raise ValueError(f"compounding {compounding!r}: choose 'continuous' or 'annual'")
 
 
-def lev(t: NDArray, volume: VolumeFn, price: float, regen_cost: float, rate: float,
-        compounding: str = "continuous", annual_cost: float = 0.0) -> NDArray:
+def lev(
+    t: NDArray,
+    volume: VolumeFn,
+    price: float,
+    regen_cost: float,
+    rate: float,
+    compounding: str = "continuous",
+    annual_cost: float = 0.0,
+) -> NDArray:
     """Land expectation value [currency/ha] for rotations ``t`` [years]."""
     t = np.asarray(t, dtype=np.float64)
     g = growth_factor(t, rate, compounding)
     return (price * volume(t) - regen_cost * g) / (g - 1.0) - annual_cost / rate
 
 
-def single_rotation_npv(t: NDArray, volume: VolumeFn, price: float, regen_cost: float,
-                        rate: float, compounding: str = "continuous") -> NDArray:
+def single_rotation_npv(
+    t: NDArray,
+    volume: VolumeFn,
+    price: float,
+    regen_cost: float,
+    rate: float,
+    compounding: str = "continuous",
+) -> NDArray:
     """Net present value [currency/ha] of one rotation of ``t`` years on bare land."""
     t = np.asarray(t, dtype=np.float64)
     return price * volume(t) / growth_factor(t, rate, compounding) - regen_cost
@@ -66,25 +79,43 @@ def _argmax(fn: Callable[[NDArray], NDArray], max_age: float, step: float = 0.5)
     if i == len(t) - 1:
         return Rotation(float(t[i]), float(v[i]), interior=False)
     lo, hi = t[max(i - 1, 0)], t[i + 1]
-    res = minimize_scalar(lambda x: -float(fn(np.asarray([x]))[0]), bounds=(lo, hi),
-                          method="bounded", options={"xatol": 1e-8})
+    res = minimize_scalar(
+        lambda x: -float(fn(np.asarray([x]))[0]),
+        bounds=(lo, hi),
+        method="bounded",
+        options={"xatol": 1e-8},
+    )
     return Rotation(float(res.x), float(-res.fun), interior=True)
 
 
-def faustmann_rotation(volume: VolumeFn, price: float, regen_cost: float, rate: float,
-                       compounding: str = "continuous", annual_cost: float = 0.0,
-                       max_age: float = 400.0) -> Rotation:
+def faustmann_rotation(
+    volume: VolumeFn,
+    price: float,
+    regen_cost: float,
+    rate: float,
+    compounding: str = "continuous",
+    annual_cost: float = 0.0,
+    max_age: float = 400.0,
+) -> Rotation:
     """The rotation that maximises LEV (grid scan, then a bounded refinement)."""
     if rate <= 0:
         raise ValueError(f"discount rate {rate}: the Faustmann rotation needs a rate > 0")
-    return _argmax(lambda t: lev(t, volume, price, regen_cost, rate, compounding, annual_cost),
-                   max_age)
+    return _argmax(
+        lambda t: lev(t, volume, price, regen_cost, rate, compounding, annual_cost), max_age
+    )
 
 
-def fisher_rotation(volume: VolumeFn, price: float, regen_cost: float, rate: float,
-                    compounding: str = "continuous", max_age: float = 400.0) -> Rotation:
+def fisher_rotation(
+    volume: VolumeFn,
+    price: float,
+    regen_cost: float,
+    rate: float,
+    compounding: str = "continuous",
+    max_age: float = 400.0,
+) -> Rotation:
     """The single-rotation optimum (maximum NPV of one rotation)."""
     if rate <= 0:
         raise ValueError(f"discount rate {rate}: the single-rotation optimum needs a rate > 0")
-    return _argmax(lambda t: single_rotation_npv(t, volume, price, regen_cost, rate,
-                                                 compounding), max_age)
+    return _argmax(
+        lambda t: single_rotation_npv(t, volume, price, regen_cost, rate, compounding), max_age
+    )

@@ -47,14 +47,16 @@ def _sigmoid_guess(t: NDArray, v: NDArray) -> list[float]:
 
 
 FAMILIES: dict[str, Family] = {
-    "chapman-richards": Family(("a", "k", "c"), chapman_richards, _cr_guess,
-                               (1e-9, 1e-6, 0.05), (np.inf, 5.0, 50.0)),
-    "schumacher": Family(("a", "b"), schumacher, _schumacher_guess, (1e-9, 1e-6),
-                         (np.inf, 1e4)),
-    "logistic": Family(("a", "b", "k"), logistic_yield, _sigmoid_guess, (1e-9, 1e-9, 1e-6),
-                       (np.inf, 1e12, 5.0)),
-    "gompertz": Family(("a", "b", "k"), gompertz_yield, _sigmoid_guess, (1e-9, 1e-9, 1e-6),
-                       (np.inf, 1e6, 5.0)),
+    "chapman-richards": Family(
+        ("a", "k", "c"), chapman_richards, _cr_guess, (1e-9, 1e-6, 0.05), (np.inf, 5.0, 50.0)
+    ),
+    "schumacher": Family(("a", "b"), schumacher, _schumacher_guess, (1e-9, 1e-6), (np.inf, 1e4)),
+    "logistic": Family(
+        ("a", "b", "k"), logistic_yield, _sigmoid_guess, (1e-9, 1e-9, 1e-6), (np.inf, 1e12, 5.0)
+    ),
+    "gompertz": Family(
+        ("a", "b", "k"), gompertz_yield, _sigmoid_guess, (1e-9, 1e-9, 1e-6), (np.inf, 1e6, 5.0)
+    ),
 }
 
 
@@ -71,8 +73,10 @@ class Fit:
         """A ready-to-paste [species.<code>] table."""
         lines = [f"[species.{code}]", f'curve = "{self.model}"']
         lines += [f"{k} = {v:.6g}" for k, v in self.parameters.items()]
-        lines.append(f"# fitted to {self.n} points: RMSE {self.rmse:.4g} m3/ha, "
-                     f"R2 {self.r2:.4f}; add min_harvest_age (or another rule)")
+        lines.append(
+            f"# fitted to {self.n} points: RMSE {self.rmse:.4g} m3/ha, "
+            f"R2 {self.r2:.4f}; add min_harvest_age (or another rule)"
+        )
         return "\n".join(lines)
 
 
@@ -82,12 +86,15 @@ def fit_curve(ages: NDArray, volumes: NDArray, model: str) -> Fit:
     t = np.asarray(ages, dtype=np.float64)
     v = np.asarray(volumes, dtype=np.float64)
     if len(t) < len(fam.names) + 1:
-        raise FitError(f"{model}: {len(t)} points cannot fit {len(fam.names)} parameters; "
-                       f"give at least {len(fam.names) + 1}")
+        raise FitError(
+            f"{model}: {len(t)} points cannot fit {len(fam.names)} parameters; "
+            f"give at least {len(fam.names) + 1}"
+        )
     try:
         with np.errstate(all="ignore"), _no_optimize_warning():
-            p, _ = curve_fit(fam.fn, t, v, p0=fam.guess(t, v), bounds=(fam.lower, fam.upper),
-                             maxfev=20_000)
+            p, _ = curve_fit(
+                fam.fn, t, v, p0=fam.guess(t, v), bounds=(fam.lower, fam.upper), maxfev=20_000
+            )
     except (RuntimeError, ValueError) as exc:
         raise FitError(f"{model}: the fit did not converge ({exc})") from None
     pred = fam.fn(t, *p)
@@ -101,8 +108,14 @@ def fit_curve(ages: NDArray, volumes: NDArray, model: str) -> Fit:
     for name, val, lo, hi in zip(fam.names, p, fam.lower, fam.upper, strict=True):
         if np.isclose(val, lo, rtol=1e-6) or (np.isfinite(hi) and np.isclose(val, hi, rtol=1e-6)):
             notes.append(f"parameter {name} = {val:.6g} sits at its bound; the fit is doubtful")
-    return Fit(model, {k: float(x) for k, x in zip(fam.names, p, strict=True)}, rmse, r2, len(t),
-               tuple(notes))
+    return Fit(
+        model,
+        {k: float(x) for k, x in zip(fam.names, p, strict=True)},
+        rmse,
+        r2,
+        len(t),
+        tuple(notes),
+    )
 
 
 class _no_optimize_warning:

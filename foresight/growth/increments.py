@@ -45,8 +45,9 @@ def table_culmination(ages: ArrayLike, volumes: ArrayLike) -> Culmination:
     return Culmination(float(t[i]), float(m[i]), culminated=i < len(t) - 1)
 
 
-def culmination(volume: VolumeFn, cai: VolumeFn, max_age_years: float,
-                step_years: float = 0.5) -> Culmination:
+def culmination(
+    volume: VolumeFn, cai: VolumeFn, max_age_years: float, step_years: float = 0.5
+) -> Culmination:
     """Age of maximum MAI of any curve: a root of CAI(t) - MAI(t) = 0 where it turns negative.
 
     CAI - MAI is scanned on a grid up to ``max_age_years``; every crossing from + to - is an

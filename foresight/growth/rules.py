@@ -57,8 +57,13 @@ def _curve_fns(curve: YieldCurve, site: float):
     return vol, cai
 
 
-def summarise_site(cfg: SpeciesConfig, curve: YieldCurve, site: float,
-                   economics: EconomicsConfig, growth: GrowthConfig) -> SiteSummary:
+def summarise_site(
+    cfg: SpeciesConfig,
+    curve: YieldCurve,
+    site: float,
+    economics: EconomicsConfig,
+    growth: GrowthConfig,
+) -> SiteSummary:
     """Culmination, yield class, every rule's age and the economic rotations at one site."""
     vol, cai = _curve_fns(curve, site)
     max_age = growth.max_age_years
@@ -73,8 +78,13 @@ def summarise_site(cfg: SpeciesConfig, curve: YieldCurve, site: float,
     faus = fish = None
     lev = None
     if economics.discount_rate is not None and cfg.price_per_m3 is not None:
-        args = (vol, cfg.price_per_m3, cfg.regen_cost_per_ha, economics.discount_rate,
-                economics.compounding)
+        args = (
+            vol,
+            cfg.price_per_m3,
+            cfg.regen_cost_per_ha,
+            economics.discount_rate,
+            economics.compounding,
+        )
         faus = faustmann_rotation(*args, annual_cost=cfg.annual_cost_per_ha, max_age=max_age)
         fish = fisher_rotation(*args, max_age=max_age)
         lev = faus.value
@@ -88,16 +98,28 @@ def summarise_site(cfg: SpeciesConfig, curve: YieldCurve, site: float,
         msy_s, msy_g = float(s), float(g)
         collapses = curve.collapses
     return SiteSummary(
-        species=cfg.code, site_index=float(site), culmination=cul,
-        yield_class=yield_class(cul.mai, growth.yield_class_step), rule_ages=ages,
-        min_harvest_age_years=max(ages.values()), faustmann=faus, fisher=fish, lev_per_ha=lev,
-        msy_stock_m3_ha=msy_s, msy_growth_m3_ha_yr=msy_g, collapses=collapses,
+        species=cfg.code,
+        site_index=float(site),
+        culmination=cul,
+        yield_class=yield_class(cul.mai, growth.yield_class_step),
+        rule_ages=ages,
+        min_harvest_age_years=max(ages.values()),
+        faustmann=faus,
+        fisher=fish,
+        lev_per_ha=lev,
+        msy_stock_m3_ha=msy_s,
+        msy_growth_m3_ha_yr=msy_g,
+        collapses=collapses,
     )
 
 
-def site_summaries(cfg: SpeciesConfig, curve: YieldCurve, site_index: NDArray,
-                   economics: EconomicsConfig, growth: GrowthConfig
-                   ) -> tuple[list[SiteSummary], NDArray[np.intp]]:
+def site_summaries(
+    cfg: SpeciesConfig,
+    curve: YieldCurve,
+    site_index: NDArray,
+    economics: EconomicsConfig,
+    growth: GrowthConfig,
+) -> tuple[list[SiteSummary], NDArray[np.intp]]:
     """Summaries for each distinct site index (rounded to ``growth.rule_site_step_m``) and the
     index that maps every stand onto its summary. The loop runs over distinct sites."""
     step = growth.rule_site_step_m
@@ -106,24 +128,37 @@ def site_summaries(cfg: SpeciesConfig, curve: YieldCurve, site_index: NDArray,
     return [summarise_site(cfg, curve, s, economics, growth) for s in unique], inverse
 
 
-def min_harvest_ages(cfg: SpeciesConfig, curve: YieldCurve, site_index: NDArray,
-                     economics: EconomicsConfig, growth: GrowthConfig) -> NDArray[np.float64]:
+def min_harvest_ages(
+    cfg: SpeciesConfig,
+    curve: YieldCurve,
+    site_index: NDArray,
+    economics: EconomicsConfig,
+    growth: GrowthConfig,
+) -> NDArray[np.float64]:
     """Minimum harvest age [years] for each stand's site index (one species).
 
     Only a fixed age is the same everywhere; other rules are worked out once per distinct site
     index, rounded to ``growth.rule_site_step_m``, and mapped back to the stands.
     """
     site_index = np.asarray(site_index, dtype=np.float64)
-    site_rules = (cfg.min_harvest_mai_share is not None
-                  or cfg.min_harvest_volume_m3_ha is not None or cfg.min_harvest_economic)
+    site_rules = (
+        cfg.min_harvest_mai_share is not None
+        or cfg.min_harvest_volume_m3_ha is not None
+        or cfg.min_harvest_economic
+    )
     if not site_rules:
         return np.full(site_index.shape, float(cfg.min_harvest_age or 0.0))
     sums, inverse = site_summaries(cfg, curve, site_index, economics, growth)
     return np.array([s.min_harvest_age_years for s in sums])[inverse]
 
 
-def max_mai(cfg: SpeciesConfig, curve: YieldCurve, site_index: NDArray,
-            economics: EconomicsConfig, growth: GrowthConfig) -> NDArray[np.float64]:
+def max_mai(
+    cfg: SpeciesConfig,
+    curve: YieldCurve,
+    site_index: NDArray,
+    economics: EconomicsConfig,
+    growth: GrowthConfig,
+) -> NDArray[np.float64]:
     """Maximum MAI [m3/ha/yr] for each stand's site index (one species)."""
     sums, inverse = site_summaries(cfg, curve, site_index, economics, growth)
     return np.array([s.culmination.mai for s in sums])[inverse]
@@ -150,5 +185,6 @@ def _first_volume(vol, volume: float, max_age: float) -> float:
     i = int(hit[0])
     if i == 0:
         return 0.0
-    return float(brentq(lambda x: float(vol(np.asarray([x]))[0] - volume), t[i - 1], t[i],
-                        xtol=1e-8))
+    return float(
+        brentq(lambda x: float(vol(np.asarray([x]))[0] - volume), t[i - 1], t[i], xtol=1e-8)
+    )

@@ -55,8 +55,14 @@ class Trajectory:
     towards the limit the stock approaches and read back by linear interpolation.
     """
 
-    def __init__(self, r: float, capacity: float, initial: float,
-                 min_viable: float | None = None, points: int = 20001):
+    def __init__(
+        self,
+        r: float,
+        capacity: float,
+        initial: float,
+        min_viable: float | None = None,
+        points: int = 20001,
+    ):
         self.r, self.k, self.s0, self.m = r, capacity, initial, min_viable
         if min_viable is None or initial in (0.0, min_viable, capacity):
             self._table = None
@@ -64,13 +70,17 @@ class Trajectory:
         k, m = capacity, min_viable
         limit = k if initial > m else 0.0
         # fractions of the distance still to go, from 1 (start) to 1e-12 (at the limit)
-        u = np.unique(np.r_[np.linspace(1.0, 1e-2, points), np.geomspace(1e-2, 1e-12, points // 4)]
-                      )[::-1]
+        u = np.unique(
+            np.r_[np.linspace(1.0, 1e-2, points), np.geomspace(1e-2, 1e-12, points // 4)]
+        )[::-1]
         s = limit + (initial - limit) * u
 
         def big_f(x: NDArray) -> NDArray:
-            return -np.log(x) + k / (k - m) * np.log(np.abs(x - m)) - m / (k - m) * np.log(
-                np.abs(k - x))
+            return (
+                -np.log(x)
+                + k / (k - m) * np.log(np.abs(x - m))
+                - m / (k - m) * np.log(np.abs(k - x))
+            )
 
         t = (big_f(s) - big_f(np.asarray(initial))) / r
         t[0] = 0.0

@@ -24,8 +24,9 @@ def cache_dir() -> Path:
     return Path(base) / "foresight"
 
 
-def cached_arrays(kind: str, source: Path, options: str,
-                  build: Callable[[], dict[str, np.ndarray]]) -> tuple[dict[str, np.ndarray], bool]:
+def cached_arrays(
+    kind: str, source: Path, options: str, build: Callable[[], dict[str, np.ndarray]]
+) -> tuple[dict[str, np.ndarray], bool]:
     """Arrays for (source file, options) from the cache, or built and stored; (arrays, hit)."""
     key = hashlib.sha256(f"{sha256_file(source)}|{options}".encode()).hexdigest()[:32]
     path = cache_dir() / f"{kind}-{key}.npz"

@@ -38,25 +38,28 @@ def raster_crs(path: Path, what: str) -> pyproj.CRS:
     except RasterioIOError:
         raise InputError(f"{path}: {what}: raster not found or not readable") from None
     if crs is None:
-        raise InputError(f"{path}: {what}: the raster has no CRS; assign one (e.g. with "
-                         "gdal_edit.py -a_srs) so it can be placed over the stands")
+        raise InputError(
+            f"{path}: {what}: the raster has no CRS; assign one (e.g. with "
+            "gdal_edit.py -a_srs) so it can be placed over the stands"
+        )
     return pyproj.CRS.from_user_input(crs.to_wkt())
 
 
-def read_window(path: Path, bounds: tuple[float, float, float, float], band: int,
-                what: str) -> RasterData | None:
+def read_window(
+    path: Path, bounds: tuple[float, float, float, float], band: int, what: str
+) -> RasterData | None:
     """Read ``band`` over ``bounds`` (in the raster's CRS); None if they do not overlap."""
     crs = raster_crs(path, what)
     with rasterio.open(path) as src:
         if not 1 <= band <= src.count:
-            raise InputError(f"{path}: {what}: band {band} asked for, the raster has "
-                             f"{src.count}")
+            raise InputError(f"{path}: {what}: band {band} asked for, the raster has {src.count}")
         full = tuple(src.bounds)
         x0, y0, x1, y1 = bounds
         if x1 <= full[0] or x0 >= full[2] or y1 <= full[1] or y0 >= full[3]:
             return None
-        win = rasterio.windows.from_bounds(max(x0, full[0]), max(y0, full[1]),
-                                           min(x1, full[2]), min(y1, full[3]), src.transform)
+        win = rasterio.windows.from_bounds(
+            max(x0, full[0]), max(y0, full[1]), min(x1, full[2]), min(y1, full[3]), src.transform
+        )
         win = win.round_offsets(op="floor").round_lengths(op="ceil")
         win = win.intersection(rasterio.windows.Window(0, 0, src.width, src.height))
         data = src.read(band, window=win, masked=True)

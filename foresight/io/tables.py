@@ -27,8 +27,9 @@ def read_points(path: Path) -> tuple[np.ndarray, np.ndarray]:
         bad = values.isna() | ~np.isfinite(values)
         if bad.any():
             i = int(np.flatnonzero(bad.to_numpy())[0])
-            raise InputError(f"{path}, line {i + 2}, column {col!r}: {frame[col].iloc[i]!r} "
-                             "is not a number")
+            raise InputError(
+                f"{path}, line {i + 2}, column {col!r}: {frame[col].iloc[i]!r} is not a number"
+            )
         out.append(values.to_numpy(dtype=np.float64))
     if (out[0] <= 0).any():
         raise InputError(f"{path}: ages must be > 0 to fit a curve")

@@ -45,10 +45,17 @@ def read_layer(path: Path, layer: str | None) -> tuple[gpd.GeoDataFrame, str]:
 def write_gpkg_layer(path: Path, frame: pd.DataFrame, layer: str, spatial: bool = True) -> None:
     """Write (or add) one layer to a GeoPackage; ``spatial=False`` writes an attribute table."""
     if spatial:
-        pyogrio.write_dataframe(frame, path, layer=layer, driver="GPKG", use_arrow=True,
-                                append=path.exists())
+        pyogrio.write_dataframe(
+            frame, path, layer=layer, driver="GPKG", use_arrow=True, append=path.exists()
+        )
     else:
         # A DataFrame without geometry becomes a GeoPackage attribute table
         # (gpkg_contents.data_type = 'attributes').
-        pyogrio.write_dataframe(pd.DataFrame(frame), path, layer=layer, driver="GPKG",
-                                use_arrow=True, append=path.exists())
+        pyogrio.write_dataframe(
+            pd.DataFrame(frame),
+            path,
+            layer=layer,
+            driver="GPKG",
+            use_arrow=True,
+            append=path.exists(),
+        )

@@ -15,39 +15,44 @@ from foresight.projection import CurveSet, Periods, StandArrays
 from foresight.schedule import FlowResult
 
 
-def wood_flow_table(flow: FlowResult, periods: Periods, lp_bound: np.ndarray | None = None
-                    ) -> pd.DataFrame:
+def wood_flow_table(
+    flow: FlowResult, periods: Periods, lp_bound: np.ndarray | None = None
+) -> pd.DataFrame:
     """One row per period: harvest, area, mean harvest age, growing stock and growth, and the
     LP's harvest of the period when an LP was solved."""
     sim = flow.simulation
     h, ha = sim.harvest_m3, sim.harvest_ha
     with np.errstate(invalid="ignore", divide="ignore"):
         mean_age = np.where(ha > 0, sim.harvest_age_area / np.where(ha > 0, ha, 1.0), np.nan)
-        change = np.r_[np.nan, np.where(h[:-1] > 0, h[1:] / np.where(h[:-1] > 0, h[:-1], 1) - 1,
-                                         np.nan)]
+        change = np.r_[
+            np.nan, np.where(h[:-1] > 0, h[1:] / np.where(h[:-1] > 0, h[:-1], 1) - 1, np.nan)
+        ]
     gs0, gs1 = sim.growing_stock_start_m3, sim.growing_stock_end_m3
-    return pd.DataFrame({
-        "period": np.arange(1, periods.count + 1),
-        "start_year": periods.start_years,
-        "end_year": periods.end_years,
-        "harvest_year": periods.harvest_years,
-        "harvest_m3": h,
-        "harvest_m3_per_year": h / periods.period_years,
-        "harvest_ha": ha,
-        "mean_harvest_age_years": mean_age,
-        "growing_stock_start_m3": gs0,
-        "growing_stock_end_m3": gs1,
-        "net_growth_m3": gs1 - gs0 + h,
-        "change_from_previous": change,
-        "flow_level_m3": np.full(periods.count, flow.level_m3_per_period),
-        "lp_bound_m3": lp_bound if lp_bound is not None else np.full(periods.count, np.nan),
-        "disturbed_ha": sim.disturbed_ha if len(sim.disturbed_ha) else np.zeros(periods.count),
-        "disturbed_m3": sim.disturbed_m3 if len(sim.disturbed_m3) else np.zeros(periods.count),
-    })
+    return pd.DataFrame(
+        {
+            "period": np.arange(1, periods.count + 1),
+            "start_year": periods.start_years,
+            "end_year": periods.end_years,
+            "harvest_year": periods.harvest_years,
+            "harvest_m3": h,
+            "harvest_m3_per_year": h / periods.period_years,
+            "harvest_ha": ha,
+            "mean_harvest_age_years": mean_age,
+            "growing_stock_start_m3": gs0,
+            "growing_stock_end_m3": gs1,
+            "net_growth_m3": gs1 - gs0 + h,
+            "change_from_previous": change,
+            "flow_level_m3": np.full(periods.count, flow.level_m3_per_period),
+            "lp_bound_m3": lp_bound if lp_bound is not None else np.full(periods.count, np.nan),
+            "disturbed_ha": sim.disturbed_ha if len(sim.disturbed_ha) else np.zeros(periods.count),
+            "disturbed_m3": sim.disturbed_m3 if len(sim.disturbed_m3) else np.zeros(periods.count),
+        }
+    )
 
 
-def harvests_layer(flow: FlowResult, stands: gpd.GeoDataFrame, periods: Periods
-                   ) -> gpd.GeoDataFrame:
+def harvests_layer(
+    flow: FlowResult, stands: gpd.GeoDataFrame, periods: Periods
+) -> gpd.GeoDataFrame:
     """One polygon row per stand and period in which (part of) the stand is cut.
 
     The geometry is the whole stand; ``area_ha`` is the area cut, which is less than the
@@ -55,51 +60,63 @@ def harvests_layer(flow: FlowResult, stands: gpd.GeoDataFrame, periods: Periods
     the area-weighted age.
     """
     sim = flow.simulation
-    ev = pd.DataFrame({
-        "stand": sim.event_stand.astype(np.int64),
-        "period": sim.event_period.astype(np.int64),
-        "age_area": sim.event_age_years * sim.event_area_ha,
-        "area_ha": sim.event_area_ha,
-        "volume_m3": sim.event_volume_m3,
-    })
+    ev = pd.DataFrame(
+        {
+            "stand": sim.event_stand.astype(np.int64),
+            "period": sim.event_period.astype(np.int64),
+            "age_area": sim.event_age_years * sim.event_area_ha,
+            "area_ha": sim.event_area_ha,
+            "volume_m3": sim.event_volume_m3,
+        }
+    )
     agg = ev.groupby(["period", "stand"], sort=True).sum().reset_index()
     pos = agg["stand"].to_numpy()
     stand_area = stands["area_ha"].to_numpy()[pos]
     area = agg["area_ha"].to_numpy()
-    frame = pd.DataFrame({
-        "stand_id": stands["stand_id"].to_numpy()[pos],
-        "species": stands["species"].to_numpy()[pos],
-        "zone": stands["zone"].to_numpy()[pos],
-        "period": agg["period"].to_numpy(),
-        "start_year": periods.start_years[agg["period"].to_numpy() - 1],
-        "harvest_year": periods.harvest_years[agg["period"].to_numpy() - 1],
-        "age_years": agg["age_area"].to_numpy() / area,
-        "area_ha": area,
-        "volume_m3": agg["volume_m3"].to_numpy(),
-        "volume_m3_ha": agg["volume_m3"].to_numpy() / area,
-        "partial": area < stand_area * (1 - 1e-9),
-    })
+    frame = pd.DataFrame(
+        {
+            "stand_id": stands["stand_id"].to_numpy()[pos],
+            "species": stands["species"].to_numpy()[pos],
+            "zone": stands["zone"].to_numpy()[pos],
+            "period": agg["period"].to_numpy(),
+            "start_year": periods.start_years[agg["period"].to_numpy() - 1],
+            "harvest_year": periods.harvest_years[agg["period"].to_numpy() - 1],
+            "age_years": agg["age_area"].to_numpy() / area,
+            "area_ha": area,
+            "volume_m3": agg["volume_m3"].to_numpy(),
+            "volume_m3_ha": agg["volume_m3"].to_numpy() / area,
+            "partial": area < stand_area * (1 - 1e-9),
+        }
+    )
     geom = stands.geometry.to_numpy()[pos]
-    return gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geom, crs=stands.crs).values,
-                            crs=stands.crs)
+    return gpd.GeoDataFrame(
+        frame, geometry=gpd.GeoSeries(geom, crs=stands.crs).values, crs=stands.crs
+    )
 
 
-def stands_layer(flow: FlowResult, stands: gpd.GeoDataFrame, arrays: StandArrays,
-                 curves: CurveSet, periods: Periods) -> gpd.GeoDataFrame:
+def stands_layer(
+    flow: FlowResult,
+    stands: gpd.GeoDataFrame,
+    arrays: StandArrays,
+    curves: CurveSet,
+    periods: Periods,
+) -> gpd.GeoDataFrame:
     """The input stands with their start volume and what the schedule does to each."""
     sim = flow.simulation
     n = len(stands)
     out = stands.copy()
-    out["volume_m3_ha"] = curves.volume_m3_ha(arrays.species_idx, arrays.age_years,
-                                              arrays.site_index)
+    out["volume_m3_ha"] = curves.volume_m3_ha(
+        arrays.species_idx, arrays.age_years, arrays.site_index
+    )
     first = np.full(n, np.iinfo(np.int64).max)
     np.minimum.at(first, sim.event_stand, sim.event_period)
     cut = first < np.iinfo(np.int64).max
     first_age = np.full(n, np.nan)
     is_first = sim.event_period == first[sim.event_stand]
     # area-weighted age of what is cut in the first harvest period
-    w_age = np.bincount(sim.event_stand[is_first],
-                        sim.event_age_years[is_first] * sim.event_area_ha[is_first], n)
+    w_age = np.bincount(
+        sim.event_stand[is_first], sim.event_age_years[is_first] * sim.event_area_ha[is_first], n
+    )
     w = np.bincount(sim.event_stand[is_first], sim.event_area_ha[is_first], n)
     first_age[cut] = w_age[cut] / w[cut]
     out["first_harvest_period"] = pd.array(np.where(cut, first, 0), dtype="Int64")
@@ -107,8 +124,11 @@ def stands_layer(flow: FlowResult, stands: gpd.GeoDataFrame, arrays: StandArrays
     years = periods.harvest_years
     out["first_harvest_year"] = np.where(cut, years[np.where(cut, first, 1) - 1], np.nan)
     out["first_harvest_age_years"] = first_age
-    pairs = np.unique(np.c_[sim.event_stand, sim.event_period], axis=0) if len(
-        sim.event_stand) else np.zeros((0, 2), dtype=np.int64)
+    pairs = (
+        np.unique(np.c_[sim.event_stand, sim.event_period], axis=0)
+        if len(sim.event_stand)
+        else np.zeros((0, 2), dtype=np.int64)
+    )
     out["harvest_count"] = np.bincount(pairs[:, 0].astype(np.int64), minlength=n)
     out["harvested_area_ha"] = np.bincount(sim.event_stand, sim.event_area_ha, n)
     out["harvested_volume_m3"] = np.bincount(sim.event_stand, sim.event_volume_m3, n)
@@ -117,8 +137,9 @@ def stands_layer(flow: FlowResult, stands: gpd.GeoDataFrame, arrays: StandArrays
     return out[cols]
 
 
-def wood_flow_by_product(flow: FlowResult, arrays: StandArrays, curves: CurveSet,
-                         scenario: Scenario) -> pd.DataFrame:
+def wood_flow_by_product(
+    flow: FlowResult, arrays: StandArrays, curves: CurveSet, scenario: Scenario
+) -> pd.DataFrame:
     """Harvested volume per period, species and product (long form).
 
     Each harvest event's volume is split by its species' product shares at the age it was
@@ -131,13 +152,20 @@ def wood_flow_by_product(flow: FlowResult, arrays: StandArrays, curves: CurveSet
         mine = sp == i
         shares = product_shares(scenario.species[code].products, sim.event_age_years[mine])
         for product, share in shares.items():
-            parts.append(pd.DataFrame({
-                "period": sim.event_period[mine].astype(np.int64),
-                "species": code,
-                "product": product,
-                "volume_m3": sim.event_volume_m3[mine] * share,
-            }))
-    frame = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(
-        columns=["period", "species", "product", "volume_m3"])
+            parts.append(
+                pd.DataFrame(
+                    {
+                        "period": sim.event_period[mine].astype(np.int64),
+                        "species": code,
+                        "product": product,
+                        "volume_m3": sim.event_volume_m3[mine] * share,
+                    }
+                )
+            )
+    frame = (
+        pd.concat(parts, ignore_index=True)
+        if parts
+        else pd.DataFrame(columns=["period", "species", "product", "volume_m3"])
+    )
     out = frame.groupby(["period", "species", "product"], as_index=False)["volume_m3"].sum()
     return out.sort_values(["period", "species", "product"], ignore_index=True)

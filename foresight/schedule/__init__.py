@@ -26,8 +26,16 @@ __all__ = [
 ]
 
 
-def schedule(stands, curves, periods, flow_cfg, harvest_cfg, adjacency=None,  # noqa: ANN001
-             cover=None, disturbance=0.0) -> FlowResult:
+def schedule(
+    stands,
+    curves,
+    periods,
+    flow_cfg,
+    harvest_cfg,
+    adjacency=None,  # noqa: ANN001
+    cover=None,
+    disturbance=0.0,
+) -> FlowResult:
     """Run the flow policy of the scenario (``[flow]``, ``[harvest]``) over the stands.
 
     With ``harvest.greenup_years`` > 0 the ``adjacency`` graph carries the spatial rules.
@@ -36,20 +44,35 @@ def schedule(stands, curves, periods, flow_cfg, harvest_cfg, adjacency=None,  # 
     if harvest_cfg.spatial:
         if adjacency is None:
             raise ValueError("spatial rules need the adjacency graph")
-        spatial = SpatialRules(adjacency, harvest_cfg.greenup_years,
-                               harvest_cfg.max_opening_ha or 0.0)
-    common = {"priority": harvest_cfg.priority, "max_area_ha": harvest_cfg.max_area_ha_per_period,
-              "spatial": spatial, "cover": cover, "disturbance": disturbance}
+        spatial = SpatialRules(
+            adjacency, harvest_cfg.greenup_years, harvest_cfg.max_opening_ha or 0.0
+        )
+    common = {
+        "priority": harvest_cfg.priority,
+        "max_area_ha": harvest_cfg.max_area_ha_per_period,
+        "spatial": spatial,
+        "cover": cover,
+        "disturbance": disturbance,
+    }
     if flow_cfg.policy == "targets":
-        return run_targets(stands, curves, periods, flow_cfg.targets_m3,
-                           ending_stock=flow_cfg.ending_stock, **common)
+        return run_targets(
+            stands,
+            curves,
+            periods,
+            flow_cfg.targets_m3,
+            ending_stock=flow_cfg.ending_stock,
+            **common,
+        )
     if flow_cfg.policy == "stepdown":
-        return find_step_down(stands, curves, periods, flow_cfg.step_down_max,
-                              flow_cfg.ending_stock,
-                              stable_periods=stable_periods_for(periods,
-                                                                flow_cfg.long_term_periods),
-                              **common)
+        return find_step_down(
+            stands,
+            curves,
+            periods,
+            flow_cfg.step_down_max,
+            flow_cfg.ending_stock,
+            stable_periods=stable_periods_for(periods, flow_cfg.long_term_periods),
+            **common,
+        )
     if flow_cfg.policy == "nondeclining":
         return find_nondeclining(stands, curves, periods, flow_cfg.ending_stock, **common)
-    return find_even_flow(stands, curves, periods, flow_cfg.band, flow_cfg.ending_stock,
-                          **common)
+    return find_even_flow(stands, curves, periods, flow_cfg.band, flow_cfg.ending_stock, **common)

@@ -55,21 +55,25 @@ class CoverRules:
             out[i] = float(area[inz & hit].sum())
         return out
 
-    def budgets(self, cand_zone: NDArray, cand_age: NDArray, zone: NDArray, age: NDArray,
-                area: NDArray) -> PeriodBudgets:
+    def budgets(
+        self, cand_zone: NDArray, cand_age: NDArray, zone: NDArray, age: NDArray, area: NDArray
+    ) -> PeriodBudgets:
         now = self.measure(zone, age, area)
-        budget = np.array([
-            now[i] - r.share * self.area_of(r) if r.kind == "old"
-            else r.share * self.area_of(r) - now[i]
-            for i, r in enumerate(self.rules)])
+        budget = np.array(
+            [
+                now[i] - r.share * self.area_of(r)
+                if r.kind == "old"
+                else r.share * self.area_of(r) - now[i]
+                for i, r in enumerate(self.rules)
+            ]
+        )
         return PeriodBudgets(self, budget, cand_zone, cand_age)
 
 
 class PeriodBudgets:
     """The budgets of one period's pick (the rule interface of the sequential picker)."""
 
-    def __init__(self, rules: CoverRules, budget: NDArray, cand_zone: NDArray,
-                 cand_age: NDArray):
+    def __init__(self, rules: CoverRules, budget: NDArray, cand_zone: NDArray, cand_age: NDArray):
         self.rules, self.budget = rules, budget
         self.cand_zone, self.cand_age = cand_zone, cand_age
         self._draw: list[tuple[int, float]] = []

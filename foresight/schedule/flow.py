@@ -15,9 +15,9 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from foresight.projection import CurveSet, Periods, StandArrays
+from foresight.schedule.cover import CoverRules
 from foresight.schedule.policies import EvenFlow, Sequence, StepDown, Targets
 from foresight.schedule.simulate import Simulation, simulate
-from foresight.schedule.cover import CoverRules
 from foresight.schedule.spatial import SpatialRules
 
 REL_TOL = 1e-7
@@ -60,9 +60,21 @@ def find_even_flow(
 
     def trial(level: float, record: bool = False) -> Simulation:
         rule = Sequence(fixed, level) if fixed else EvenFlow(level, band)
-        return simulate(stands, curves, periods, level, priority=priority,
-                        max_area_ha=max_area_ha, ending_stock=ending_stock, record=record,
-                        rule=rule, stable_periods=stable_periods, spatial=spatial, cover=cover, disturbance=disturbance)
+        return simulate(
+            stands,
+            curves,
+            periods,
+            level,
+            priority=priority,
+            max_area_ha=max_area_ha,
+            ending_stock=ending_stock,
+            record=record,
+            rule=rule,
+            stable_periods=stable_periods,
+            spatial=spatial,
+            cover=cover,
+            disturbance=disturbance,
+        )
 
     # U: what the first free period could yield if every eligible stand were cut, within the
     # area cap (later periods cannot hold more than that).
@@ -73,9 +85,11 @@ def find_even_flow(
     if not zero.feasible or upper <= 0:
         final = trial(0.0, record=True)
         if not zero.feasible:
-            why = (f"no harvest at all is feasible: even without cutting, the ending growing "
-                   f"stock {final.ending_stock_m3:,.0f} m3 is below flow.ending_stock = "
-                   f"{ending_stock:g} x the initial {final.initial_stock_m3:,.0f} m3")
+            why = (
+                f"no harvest at all is feasible: even without cutting, the ending growing "
+                f"stock {final.ending_stock_m3:,.0f} m3 is below flow.ending_stock = "
+                f"{ending_stock:g} x the initial {final.initial_stock_m3:,.0f} m3"
+            )
         else:
             why = "no stand is eligible for harvest in period 1"
         return _result(0.0, periods, final, why, steps)
@@ -104,8 +118,10 @@ def find_even_flow(
 
 def _why_top(sim: Simulation, max_area_ha: float | None) -> str:
     if max_area_ha is not None and sim.harvest_ha[0] >= max_area_ha * (1 - 1e-9):
-        return (f"period 1: the area cap (harvest.max_area_ha_per_period = {max_area_ha:g} ha) "
-                "is reached at this level")
+        return (
+            f"period 1: the area cap (harvest.max_area_ha_per_period = {max_area_ha:g} ha) "
+            "is reached at this level"
+        )
     return "period 1: every stand eligible in period 1 is cut at this level"
 
 
@@ -113,13 +129,18 @@ def _why(sim: Simulation, level: float, periods: Periods, ending_stock: float) -
     higher = f"a level of {level:,.0f} m3 per period"
     if sim.fail_period is not None:
         year = periods.start_years[sim.fail_period - 1]
-        what = ("runs out of eligible volume" if sim.fail_reason.startswith("eligible")
-                else "reaches the area cap (harvest.max_area_ha_per_period)")
+        what = (
+            "runs out of eligible volume"
+            if sim.fail_reason.startswith("eligible")
+            else "reaches the area cap (harvest.max_area_ha_per_period)"
+        )
         return f"{higher} {what} in period {sim.fail_period} (from {year})"
     if sim.fail_reason.startswith("growing stock on the harvestable"):
         return f"at {higher} the {sim.fail_reason}"
-    return (f"{higher} would leave the ending growing stock below flow.ending_stock = "
-            f"{ending_stock:g} x the initial {sim.initial_stock_m3:,.0f} m3")
+    return (
+        f"{higher} would leave the ending growing stock below flow.ending_stock = "
+        f"{ending_stock:g} x the initial {sim.initial_stock_m3:,.0f} m3"
+    )
 
 
 def _result(level: float, periods: Periods, sim: Simulation, why: str, steps: int) -> FlowResult:
@@ -132,9 +153,15 @@ def stable_periods_for(periods: Periods, configured: int | None) -> int:
 
 
 def find_step_down(
-    stands: StandArrays, curves: CurveSet, periods: Periods, step: float,
-    ending_stock: float = 1.0, priority: str = "oldest", max_area_ha: float | None = None,
-    stable_periods: int = 2, spatial: SpatialRules | None = None,
+    stands: StandArrays,
+    curves: CurveSet,
+    periods: Periods,
+    step: float,
+    ending_stock: float = 1.0,
+    priority: str = "oldest",
+    max_area_ha: float | None = None,
+    stable_periods: int = 2,
+    spatial: SpatialRules | None = None,
     cover: CoverRules | None = None,
     disturbance: float = 0.0,
 ) -> FlowResult:
@@ -147,18 +174,40 @@ def find_step_down(
     periods at H0 followed by the step-down is; the longest such k is found by bisection too
     (holding longer is never easier).
     """
-    base = find_even_flow(stands, curves, periods, 0.0, ending_stock, priority, max_area_ha,
-                          stable_periods=stable_periods, spatial=spatial, cover=cover, disturbance=disturbance)
+    base = find_even_flow(
+        stands,
+        curves,
+        periods,
+        0.0,
+        ending_stock,
+        priority,
+        max_area_ha,
+        stable_periods=stable_periods,
+        spatial=spatial,
+        cover=cover,
+        disturbance=disturbance,
+    )
     lt = base.level_m3_per_period
     steps = base.steps
 
     def run(h0: float, hold: int, record: bool = False) -> Simulation:
         nonlocal steps
         steps += 1
-        return simulate(stands, curves, periods, h0, priority=priority,
-                        max_area_ha=max_area_ha, ending_stock=ending_stock, record=record,
-                        rule=StepDown(h0, hold, step, lt), stable_periods=stable_periods,
-                        spatial=spatial, cover=cover, disturbance=disturbance)
+        return simulate(
+            stands,
+            curves,
+            periods,
+            h0,
+            priority=priority,
+            max_area_ha=max_area_ha,
+            ending_stock=ending_stock,
+            record=record,
+            rule=StepDown(h0, hold, step, lt),
+            stable_periods=stable_periods,
+            spatial=spatial,
+            cover=cover,
+            disturbance=disturbance,
+        )
 
     def longest_hold(h0: float) -> int:
         if not run(h0, 1).feasible:
@@ -171,9 +220,20 @@ def find_step_down(
             lo, hi = (mid, hi) if run(h0, mid).feasible else (lo, mid)
         return lo
 
-    upper = float(simulate(stands, curves, periods, float("inf"), priority=priority,
-                           max_area_ha=max_area_ha, record=True,
-                           spatial=spatial, cover=cover, disturbance=disturbance).harvest_m3[0])
+    upper = float(
+        simulate(
+            stands,
+            curves,
+            periods,
+            float("inf"),
+            priority=priority,
+            max_area_ha=max_area_ha,
+            record=True,
+            spatial=spatial,
+            cover=cover,
+            disturbance=disturbance,
+        ).harvest_m3[0]
+    )
     lo, hi = lt, max(upper, lt)
     best_hold = periods.count
     while hi - lo > 1e-6 * max(hi, 1.0):
@@ -187,43 +247,86 @@ def find_step_down(
         best_hold = periods.count
     final = run(lo, best_hold, record=True)
     if not final.feasible:
-        raise RuntimeError(f"step-down search ended on an infeasible schedule ({final.fail_reason})")
-    why = (f"the long-term level {lt:,.0f} m3 per period is limited by: {base.binding}; "
-           f"the initial level {lo:,.0f} m3 per period holds for {best_hold} period(s)")
-    return FlowResult(lo, lo / periods.period_years, final, why, steps, "stepdown",
-                      {"long_term_m3_per_period": lt, "hold_periods": float(best_hold),
-                       "step_down_max": step})
+        raise RuntimeError(
+            f"step-down search ended on an infeasible schedule ({final.fail_reason})"
+        )
+    why = (
+        f"the long-term level {lt:,.0f} m3 per period is limited by: {base.binding}; "
+        f"the initial level {lo:,.0f} m3 per period holds for {best_hold} period(s)"
+    )
+    return FlowResult(
+        lo,
+        lo / periods.period_years,
+        final,
+        why,
+        steps,
+        "stepdown",
+        {"long_term_m3_per_period": lt, "hold_periods": float(best_hold), "step_down_max": step},
+    )
 
 
-def run_targets(stands: StandArrays, curves: CurveSet, periods: Periods,
-                targets: tuple[float, ...], priority: str = "oldest",
-                max_area_ha: float | None = None, ending_stock: float = 1.0,
-                spatial: SpatialRules | None = None,
-                cover: CoverRules | None = None, disturbance: float = 0.0) -> FlowResult:
+def run_targets(
+    stands: StandArrays,
+    curves: CurveSet,
+    periods: Periods,
+    targets: tuple[float, ...],
+    priority: str = "oldest",
+    max_area_ha: float | None = None,
+    ending_stock: float = 1.0,
+    spatial: SpatialRules | None = None,
+    cover: CoverRules | None = None,
+    disturbance: float = 0.0,
+) -> FlowResult:
     """Explicit per-period targets: one run; shortfalls and the ending stock are reported."""
-    sim = simulate(stands, curves, periods, 0.0, priority=priority, max_area_ha=max_area_ha,
-                   record=True, rule=Targets(tuple(targets)), spatial=spatial, cover=cover, disturbance=disturbance)
+    sim = simulate(
+        stands,
+        curves,
+        periods,
+        0.0,
+        priority=priority,
+        max_area_ha=max_area_ha,
+        record=True,
+        rule=Targets(tuple(targets)),
+        spatial=spatial,
+        cover=cover,
+        disturbance=disturbance,
+    )
     short = np.maximum(np.asarray(targets) - sim.harvest_m3, 0.0)
     missed = np.flatnonzero(short > 1e-6 * np.maximum(np.asarray(targets), 1.0))
     parts = []
     if len(missed):
-        parts.append(f"targets missed in {len(missed)} period(s), first in period "
-                     f"{missed[0] + 1} (short by {short[missed[0]]:,.0f} m3)")
+        parts.append(
+            f"targets missed in {len(missed)} period(s), first in period "
+            f"{missed[0] + 1} (short by {short[missed[0]]:,.0f} m3)"
+        )
     if sim.ending_stock_m3 < ending_stock * sim.initial_stock_m3 * (1 - 1e-9):
-        parts.append(f"the ending growing stock {sim.ending_stock_m3:,.0f} m3 is below "
-                     f"flow.ending_stock = {ending_stock:g} x the initial")
+        parts.append(
+            f"the ending growing stock {sim.ending_stock_m3:,.0f} m3 is below "
+            f"flow.ending_stock = {ending_stock:g} x the initial"
+        )
     why = "; ".join(parts) or "every target met and the ending growing stock requirement holds"
     mean = float(np.mean(sim.harvest_m3))
-    return FlowResult(mean, mean / periods.period_years, sim, why, 1, "targets",
-                      {"shortfall_m3": float(short.sum()), "periods_missed": float(len(missed))})
+    return FlowResult(
+        mean,
+        mean / periods.period_years,
+        sim,
+        why,
+        1,
+        "targets",
+        {"shortfall_m3": float(short.sum()), "periods_missed": float(len(missed))},
+    )
 
 
 Search = Callable[..., FlowResult]
 
 
 def find_nondeclining(
-    stands: StandArrays, curves: CurveSet, periods: Periods, ending_stock: float = 1.0,
-    priority: str = "oldest", max_area_ha: float | None = None,
+    stands: StandArrays,
+    curves: CurveSet,
+    periods: Periods,
+    ending_stock: float = 1.0,
+    priority: str = "oldest",
+    max_area_ha: float | None = None,
     spatial: SpatialRules | None = None,
     cover: CoverRules | None = None,
     disturbance: float = 0.0,
@@ -234,22 +337,61 @@ def find_nondeclining(
     takes the highest level periods 2..P can hold (never below period 1), and so on. Each
     period's harvest is thus the most that can be held from then on without a decline.
     """
-    first = find_even_flow(stands, curves, periods, 0.0, ending_stock, priority, max_area_ha,
-                           spatial=spatial, cover=cover, disturbance=disturbance)
+    first = find_even_flow(
+        stands,
+        curves,
+        periods,
+        0.0,
+        ending_stock,
+        priority,
+        max_area_ha,
+        spatial=spatial,
+        cover=cover,
+        disturbance=disturbance,
+    )
     fixed = [first.level_m3_per_period]
     steps = first.steps
     last = first
     for _ in range(1, periods.count):
-        nxt = find_even_flow(stands, curves, periods, 0.0, ending_stock, priority,
-                             max_area_ha, fixed=tuple(fixed), spatial=spatial, cover=cover, disturbance=disturbance)
+        nxt = find_even_flow(
+            stands,
+            curves,
+            periods,
+            0.0,
+            ending_stock,
+            priority,
+            max_area_ha,
+            fixed=tuple(fixed),
+            spatial=spatial,
+            cover=cover,
+            disturbance=disturbance,
+        )
         steps += nxt.steps
         fixed.append(max(nxt.level_m3_per_period, fixed[-1]))
         last = nxt
-    final = simulate(stands, curves, periods, fixed[0], priority=priority,
-                     max_area_ha=max_area_ha, ending_stock=ending_stock, record=True,
-                     rule=Sequence(tuple(fixed), fixed[-1]), spatial=spatial, cover=cover, disturbance=disturbance)
+    final = simulate(
+        stands,
+        curves,
+        periods,
+        fixed[0],
+        priority=priority,
+        max_area_ha=max_area_ha,
+        ending_stock=ending_stock,
+        record=True,
+        rule=Sequence(tuple(fixed), fixed[-1]),
+        spatial=spatial,
+        cover=cover,
+        disturbance=disturbance,
+    )
     if not final.feasible:
         raise RuntimeError(f"non-declining search ended infeasible ({final.fail_reason})")
-    why = (f"period 1: {first.binding}; the last period's level is limited by: {last.binding}")
-    return FlowResult(fixed[0], fixed[0] / periods.period_years, final, why, steps,
-                      "nondeclining", {"final_m3_per_period": fixed[-1]})
+    why = f"period 1: {first.binding}; the last period's level is limited by: {last.binding}"
+    return FlowResult(
+        fixed[0],
+        fixed[0] / periods.period_years,
+        final,
+        why,
+        steps,
+        "nondeclining",
+        {"final_m3_per_period": fixed[-1]},
+    )

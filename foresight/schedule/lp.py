@@ -12,8 +12,9 @@ Strata group the harvestable area of the stands by species, site class, age clas
 Rows: each stratum's area is conserved; the area cut from group g in period i is the area that
 regenerates in i and is cut again later or never; harvest H_p is the volume of every cut in
 period p; flow rows tie consecutive H_p (even: equal, or within a band; non-declining:
-H_p >= H_{p-1}; none: no flow rows); the ending growing stock (including the area outside the harvestable land
-base, which is never cut) is at least ``ending_stock`` x the initial; an optional area cap.
+H_p >= H_{p-1}; none: no flow rows); the ending growing stock (including the area outside the
+harvestable land base, which is never cut) is at least ``ending_stock`` x the initial; an
+optional area cap.
 Objectives: ``max-even-flow`` maximises H_1 under the flow rows; ``max-volume`` the sum of H_p.
 
 The solution is mapped back to stands by cutting, within each stratum, stands in stand-id order
@@ -62,15 +63,23 @@ class Strata:
         return len(self.area_ha)
 
 
-def make_strata(stands: StandArrays, zone_codes: NDArray, site_step: float,
-                age_step: float) -> Strata:
+def make_strata(
+    stands: StandArrays, zone_codes: NDArray, site_step: float, age_step: float
+) -> Strata:
     """Group stands with harvestable area by species, site class, age class and zone."""
     area = stands.harvestable_ha if stands.harvestable_ha is not None else stands.area_ha
     live = area > 0
     site_cls = np.round(stands.site_index / site_step).astype(np.int64)
     age_cls = np.floor(stands.age_years / age_step).astype(np.int64)
-    key = pd.DataFrame({"sp": stands.species_idx, "si": site_cls, "age": age_cls,
-                        "zone": zone_codes, "min": stands.min_harvest_age})
+    key = pd.DataFrame(
+        {
+            "sp": stands.species_idx,
+            "si": site_cls,
+            "age": age_cls,
+            "zone": zone_codes,
+            "min": stands.min_harvest_age,
+        }
+    )
     codes = key[live].groupby(list(key.columns), sort=True).ngroup().to_numpy()
     of_stand = np.full(stands.n, -1, dtype=np.int64)
     of_stand[live] = codes
@@ -83,17 +92,28 @@ def make_strata(stands: StandArrays, zone_codes: NDArray, site_step: float,
     first = np.zeros(n, dtype=np.int64)
     first[codes[::-1]] = np.flatnonzero(live)[::-1]  # a representative stand per stratum
     site = mean(stands.site_index)
-    gkey = pd.DataFrame({"sp": stands.species_idx[first], "si": site_cls[first],
-                         "min": stands.min_harvest_age[first]})
+    gkey = pd.DataFrame(
+        {
+            "sp": stands.species_idx[first],
+            "si": site_cls[first],
+            "min": stands.min_harvest_age[first],
+        }
+    )
     group = gkey.groupby(list(gkey.columns), sort=True).ngroup().to_numpy()
     ng = int(group.max()) + 1 if n else 0
     gfirst = np.zeros(ng, dtype=np.int64)
     gfirst[group[::-1]] = np.arange(n)[::-1]
     return Strata(
-        species_idx=stands.species_idx[first], site_index=site, age_years=mean(stands.age_years),
-        area_ha=np.bincount(codes, w, n), min_age=stands.min_harvest_age[first],
-        regen_delay=stands.regen_delay_years[first], group=group, of_stand=of_stand,
-        group_species=stands.species_idx[first][gfirst], group_site=site[gfirst],
+        species_idx=stands.species_idx[first],
+        site_index=site,
+        age_years=mean(stands.age_years),
+        area_ha=np.bincount(codes, w, n),
+        min_age=stands.min_harvest_age[first],
+        regen_delay=stands.regen_delay_years[first],
+        group=group,
+        of_stand=of_stand,
+        group_species=stands.species_idx[first][gfirst],
+        group_site=site[gfirst],
         group_min_age=stands.min_harvest_age[first][gfirst],
         group_delay=stands.regen_delay_years[first][gfirst],
     )
@@ -141,21 +161,47 @@ class Economics:
     terminal_value: str = "none"
 
 
-def solve_lp(stands: StandArrays, curves: CurveSet, periods: Periods, strata: Strata,
-             objective: str = "max-even-flow", policy: str = "even", band: float = 0.0,
-             ending_stock: float = 1.0, max_area_ha: float | None = None,
-             economics: Economics | None = None) -> LPResult:
+def solve_lp(
+    stands: StandArrays,
+    curves: CurveSet,
+    periods: Periods,
+    strata: Strata,
+    objective: str = "max-even-flow",
+    policy: str = "even",
+    band: float = 0.0,
+    ending_stock: float = 1.0,
+    max_area_ha: float | None = None,
+    economics: Economics | None = None,
+) -> LPResult:
     """Build the Model II LP of the module docstring and solve it with HiGHS."""
     t0 = time.perf_counter()
-    model = build_lp(stands, curves, periods, strata, objective, policy, band, ending_stock,
-                     max_area_ha, economics)
+    model = build_lp(
+        stands,
+        curves,
+        periods,
+        strata,
+        objective,
+        policy,
+        band,
+        ending_stock,
+        max_area_ha,
+        economics,
+    )
     return solve_highs(model, periods, t0, ending_stock, max_area_ha, policy)
 
 
-def build_lp(stands: StandArrays, curves: CurveSet, periods: Periods, strata: Strata,
-             objective: str = "max-even-flow", policy: str = "even", band: float = 0.0,
-             ending_stock: float = 1.0, max_area_ha: float | None = None,
-             economics: Economics | None = None) -> LPModel:
+def build_lp(
+    stands: StandArrays,
+    curves: CurveSet,
+    periods: Periods,
+    strata: Strata,
+    objective: str = "max-even-flow",
+    policy: str = "even",
+    band: float = 0.0,
+    ending_stock: float = 1.0,
+    max_area_ha: float | None = None,
+    economics: Economics | None = None,
+) -> LPModel:
     """The Model II LP of the module docstring as a matrix model."""
     P, L, off = periods.count, float(periods.period_years), periods.offset_years
     S, G = strata.n, int(strata.group.max()) + 1 if strata.n else 0
@@ -166,18 +212,26 @@ def build_lp(stands: StandArrays, curves: CurveSet, periods: Periods, strata: St
         age_h = strata.age_years + (p - 1) * L + off
         ok = np.flatnonzero(age_h >= strata.min_age - 1e-9)
         v = curves.volume_m3_ha(strata.species_idx[ok], age_h[ok], strata.site_index[ok])
-        parts.append((np.zeros(len(ok)), ok, np.full(len(ok), p), np.zeros(len(ok)), v,
-                      np.zeros(len(ok))))
-    v_end = curves.volume_m3_ha(strata.species_idx, strata.age_years + P * L,
-                                strata.site_index)
+        parts.append(
+            (np.zeros(len(ok)), ok, np.full(len(ok), p), np.zeros(len(ok)), v, np.zeros(len(ok)))
+        )
+    v_end = curves.volume_m3_ha(strata.species_idx, strata.age_years + P * L, strata.site_index)
     parts.append((np.zeros(S), np.arange(S), np.zeros(S), np.zeros(S), np.zeros(S), v_end))
     for i in range(1, P + 1):
         for j in range(i + 1, P + 1):
             age = (j - i) * L - strata.group_delay
             ok = np.flatnonzero(age >= strata.group_min_age - 1e-9)
             v = curves.volume_m3_ha(strata.group_species[ok], age[ok], strata.group_site[ok])
-            parts.append((np.ones(len(ok)), ok, np.full(len(ok), i), np.full(len(ok), j), v,
-                          np.zeros(len(ok))))
+            parts.append(
+                (
+                    np.ones(len(ok)),
+                    ok,
+                    np.full(len(ok), i),
+                    np.full(len(ok), j),
+                    v,
+                    np.zeros(len(ok)),
+                )
+            )
         age = (P - i) * L + (L - off) - strata.group_delay
         v = curves.volume_m3_ha(strata.group_species, age, strata.group_site)
         parts.append((np.ones(G), np.arange(G), np.full(G, i), np.zeros(G), np.zeros(G), v))
@@ -193,29 +247,35 @@ def build_lp(stands: StandArrays, curves: CurveSet, periods: Periods, strata: St
     # rows: [0, S) stratum areas; then G*P regeneration balances; then P harvest definitions
     reg0 = S
     harv0 = S + G * P
-    ri, cj, vv = [], [], []
-    ri.append(a_[xs]); cj.append(cols_idx[xs]); vv.append(np.ones(int(xs.sum())))
-    yo = ys  # y established in period b_: leaves the balance of (g, b_)
-    ri.append(reg0 + a_[yo] * P + (b_[yo] - 1)); cj.append(cols_idx[yo])
-    vv.append(np.ones(int(yo.sum())))
-    yi = ys & (c_ > 0)  # y cut again in c_: enters the balance of (g, c_)
-    ri.append(reg0 + a_[yi] * P + (c_[yi] - 1)); cj.append(cols_idx[yi])
-    vv.append(-np.ones(int(yi.sum())))
-    xi = xs & (b_ > 0)  # existing area cut in b_: enters the balance of (group, b_)
-    ri.append(reg0 + strata.group[a_[xi]] * P + (b_[xi] - 1)); cj.append(cols_idx[xi])
-    vv.append(-np.ones(int(xi.sum())))
+    ri: list[NDArray] = []
+    cj: list[NDArray] = []
+    vv: list[NDArray] = []
+
+    def put(rows: NDArray, cols: NDArray, values: NDArray | float) -> None:
+        """Add matrix entries (rows[k], cols[k]) = values[k]."""
+        ri.append(np.asarray(rows))
+        cj.append(np.asarray(cols))
+        vv.append(np.broadcast_to(np.asarray(values, dtype=np.float64), np.shape(cols)))
+
+    put(a_[xs], cols_idx[xs], 1.0)  # stratum areas
+    # y established in period b_ leaves the balance of (g, b_); cut again in c_ it enters
+    # the balance of (g, c_); existing area cut in b_ enters the balance of (group, b_)
+    put(reg0 + a_[ys] * P + (b_[ys] - 1), cols_idx[ys], 1.0)
+    yi = ys & (c_ > 0)
+    put(reg0 + a_[yi] * P + (c_[yi] - 1), cols_idx[yi], -1.0)
+    xi = xs & (b_ > 0)
+    put(reg0 + strata.group[a_[xi]] * P + (b_[xi] - 1), cols_idx[xi], -1.0)
     period_cut = np.where(xs, b_, c_)  # period in which a column cuts (0: none)
     hv = (period_cut > 0) & (vol_a > 0)
-    ri.append(harv0 + period_cut[hv] - 1); cj.append(cols_idx[hv]); vv.append(vol_a[hv])
-    ri.append(harv0 + np.arange(P)); cj.append(h_col); vv.append(-np.ones(P))
+    put(harv0 + period_cut[hv] - 1, cols_idx[hv], vol_a[hv])  # harvest of each period ...
+    put(harv0 + np.arange(P), h_col, -1.0)  # ... minus H_p is 0
     lo = [*strata.area_ha, *np.zeros(G * P), *np.zeros(P)]
     hi = [*strata.area_ha, *np.zeros(G * P), *np.zeros(P)]
     nrow = harv0 + P
 
     def add_row(cidx: NDArray, cval: NDArray, rlo: float, rhi: float) -> int:
         nonlocal nrow
-        ri.append(np.full(len(cidx), nrow)); cj.append(np.asarray(cidx))
-        vv.append(np.asarray(cval, dtype=np.float64))
+        put(np.full(len(cidx), nrow), cidx, cval)
         lo.append(rlo)
         hi.append(rhi)
         nrow += 1
@@ -230,8 +290,12 @@ def build_lp(stands: StandArrays, curves: CurveSet, periods: Periods, strata: St
             flow_rows.append(add_row(pair, np.array([1.0, -(1 - band)]), 0.0, INF))
             flow_rows.append(add_row(pair, np.array([1.0, -(1 + band)]), -INF, 0.0))
     reserved_end = reserved_stock(stands, curves, periods)
-    initial = float(np.dot(curves.volume_m3_ha(stands.species_idx, stands.age_years,
-                                               stands.site_index), stands.area_ha))
+    initial = float(
+        np.dot(
+            curves.volume_m3_ha(stands.species_idx, stands.age_years, stands.site_index),
+            stands.area_ha,
+        )
+    )
     idx = np.flatnonzero(end_a > 0)
     ending_row = add_row(idx, end_a[idx], ending_stock * initial - reserved_end, INF)
     if max_area_ha is not None:
@@ -246,26 +310,41 @@ def build_lp(stands: StandArrays, curves: CurveSet, periods: Periods, strata: St
     elif objective == "max-npv":
         if economics is None:
             raise InputError("flow.objective = 'max-npv' needs prices and a discount rate")
-        sp = np.where(xs, strata.species_idx[np.clip(a_, 0, max(S - 1, 0))],
-                      strata.group_species[np.clip(a_, 0, max(G - 1, 0))])
+        sp = np.where(
+            xs,
+            strata.species_idx[np.clip(a_, 0, max(S - 1, 0))],
+            strata.group_species[np.clip(a_, 0, max(G - 1, 0))],
+        )
         t_cut = (period_cut - 1) * L + off
         disc = 1.0 / growth_factor(t_cut, economics.rate, economics.compounding)
-        npv = np.where(period_cut > 0, (economics.price[sp] * vol_a - economics.regen_cost[sp])
-                       * disc, 0.0)
+        npv = np.where(
+            period_cut > 0, (economics.price[sp] * vol_a - economics.regen_cost[sp]) * disc, 0.0
+        )
         if economics.terminal_value == "standing":
             npv = npv + economics.price[sp] * end_a / growth_factor(
-                np.full(nvar, P * L), economics.rate, economics.compounding)
+                np.full(nvar, P * L), economics.rate, economics.compounding
+            )
         cost[:nvar] = -npv
     else:
         cost[h_col[0]] = -1.0
-    A = coo_matrix((np.concatenate(vals), (np.concatenate(rows_i), np.concatenate(rows_j))),
-                   shape=(nrow, ncol)).tocsc()
+    A = coo_matrix(
+        (np.concatenate(vals), (np.concatenate(rows_i), np.concatenate(rows_j))), shape=(nrow, ncol)
+    ).tocsc()
     xcol = xs & (b_ > 0)
     x_stratum = np.where(xcol, a_, -1)
     x_period = np.where(xcol, b_, 0)
-    return LPModel(cost, A, np.array(lo, dtype=np.float64), np.array(hi, dtype=np.float64),
-                   h_col, ending_row, flow_rows, np.r_[x_stratum, np.full(P, -1)],
-                   np.r_[x_period, np.zeros(P, dtype=np.int64)], S)
+    return LPModel(
+        cost,
+        A,
+        np.array(lo, dtype=np.float64),
+        np.array(hi, dtype=np.float64),
+        h_col,
+        ending_row,
+        flow_rows,
+        np.r_[x_stratum, np.full(P, -1)],
+        np.r_[x_period, np.zeros(P, dtype=np.int64)],
+        S,
+    )
 
 
 def _new_highs() -> highspy.Highs:
@@ -286,8 +365,14 @@ def _new_highs() -> highspy.Highs:
     return h
 
 
-def solve_highs(model: LPModel, periods: Periods, t0: float, ending_stock: float,
-                max_area_ha: float | None, policy: str) -> LPResult:
+def solve_highs(
+    model: LPModel,
+    periods: Periods,
+    t0: float,
+    ending_stock: float,
+    max_area_ha: float | None,
+    policy: str,
+) -> LPResult:
     """Solve with HiGHS (interior point for large models); explain an infeasible model."""
     A = model.matrix
     ncol, nrow = A.shape[1], A.shape[0]
@@ -322,8 +407,17 @@ def solve_highs(model: LPModel, periods: Periods, t0: float, ending_stock: float
     duals = {"ending_stock_m3_per_m3": float(-dual[model.ending_row])}
     if model.flow_rows:
         duals["flow_rows_m3_per_m3"] = float(-dual[model.flow_rows].sum())
-    return LPResult(status, float(-h.getInfo().objective_function_value), x[model.h_col],
-                    time.perf_counter() - t0, ncol, nrow, model.strata, duals, cut)
+    return LPResult(
+        status,
+        float(-h.getInfo().objective_function_value),
+        x[model.h_col],
+        time.perf_counter() - t0,
+        ncol,
+        nrow,
+        model.strata,
+        duals,
+        cut,
+    )
 
 
 def reserved_stock(stands: StandArrays, curves: CurveSet, periods: Periods) -> float:
@@ -335,13 +429,16 @@ def reserved_stock(stands: StandArrays, curves: CurveSet, periods: Periods) -> f
     return float(np.dot(curves.volume_m3_ha(stands.species_idx, age, stands.site_index), area))
 
 
-def explain_infeasible(status: str, ending_stock: float, max_area_ha: float | None,
-                       policy: str) -> str:
+def explain_infeasible(
+    status: str, ending_stock: float, max_area_ha: float | None, policy: str
+) -> str:
     """Which constraint families can make the harvest LP infeasible, and what to relax."""
     hints = [f"flow.ending_stock = {ending_stock:g} (try a lower share)"]
     if max_area_ha is not None:
         hints.append(f"harvest.max_area_ha_per_period = {max_area_ha:g}")
     if policy in ("even", "nondeclining"):
         hints.append(f"the {policy} flow rows (try flow.band > 0)")
-    return (f"the harvest LP is {status.lower()}: no schedule meets every constraint; the "
-            f"families that can bind are {', '.join(hints)}")
+    return (
+        f"the harvest LP is {status.lower()}: no schedule meets every constraint; the "
+        f"families that can bind are {', '.join(hints)}"
+    )

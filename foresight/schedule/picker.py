@@ -13,8 +13,9 @@ _REL = 1e-9
 _MIN_PART_HA = 1e-9
 
 
-def sequential_pick(t: float, stands: NDArray, vol: NDArray, area: NDArray, target: float,
-                    cap: float, rules: list) -> tuple[NDArray, int, float, int]:
+def sequential_pick(
+    t: float, stands: NDArray, vol: NDArray, area: NDArray, target: float, cap: float, rules: list
+) -> tuple[NDArray, int, float, int]:
     """Positions cut whole, position cut partly (-1), its fraction, candidates skipped.
 
     ``rules`` hold objects with ``begin(t)``, ``allows(k, s, full_area, a)``,

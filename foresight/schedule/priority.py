@@ -23,8 +23,14 @@ PRIORITY_RULES: dict[str, tuple[PriorityKey, str]] = {
 }
 
 
-def cut_order(rule: str, age: NDArray, min_age: NDArray, vol: NDArray, id_rank: NDArray,
-              first: NDArray | None = None) -> NDArray[np.intp]:
+def cut_order(
+    rule: str,
+    age: NDArray,
+    min_age: NDArray,
+    vol: NDArray,
+    id_rank: NDArray,
+    first: NDArray | None = None,
+) -> NDArray[np.intp]:
     """Positions sorted by the rule's key, descending, ties broken by ascending stand id.
 
     ``first`` (0 or 1 per position) puts the 0s ahead of the 1s, the rule ordering each group.

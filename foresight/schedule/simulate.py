@@ -20,10 +20,10 @@ import numpy as np
 from numpy.typing import NDArray
 
 from foresight.projection import CurveSet, Periods, StandArrays, growing_stock_m3
-from foresight.schedule.policies import EvenFlow, Targets
-from foresight.schedule.priority import cut_order
 from foresight.schedule.cover import CoverRules
 from foresight.schedule.picker import sequential_pick
+from foresight.schedule.policies import EvenFlow, Targets
+from foresight.schedule.priority import cut_order
 from foresight.schedule.spatial import SpatialRules
 
 TargetRule = EvenFlow | Targets | object  # anything with bounds(p, h_prev) -> (target, floor)
@@ -35,6 +35,7 @@ class _FixedTargets(Targets):
     def bounds(self, p: int, h_prev: float) -> tuple[float, float]:
         v = float(self.values[p])
         return v, v
+
 
 _REL = 1e-9  # relative tolerance on volume targets
 _MIN_PART_HA = 1e-9  # a smaller partial cut (<= ~1e-6 m3) is not worth a split
@@ -70,8 +71,9 @@ class Simulation:
     event_volume_m3: NDArray = field(default_factory=lambda: np.zeros(0))
 
 
-def _pick_prefix(vol: NDArray, area: NDArray, target: float, cap: float
-                 ) -> tuple[NDArray, int, float]:
+def _pick_prefix(
+    vol: NDArray, area: NDArray, target: float, cap: float
+) -> tuple[NDArray, int, float]:
     """Aspatial pick: candidates in order until the target or the cap; the last one partly.
 
     Returns the positions cut whole, the position cut partly (-1: none) and its fraction.
@@ -79,8 +81,12 @@ def _pick_prefix(vol: NDArray, area: NDArray, target: float, cap: float
     cum_v = np.cumsum(vol)
     cum_a = np.cumsum(area)
     goal = min(target, float(cum_v[-1]))  # an unbounded target asks for everything
-    n = int(min(np.searchsorted(cum_v, goal * (1 + _REL), side="right"),
-                np.searchsorted(cum_a, cap * (1 + _REL), side="right")))
+    n = int(
+        min(
+            np.searchsorted(cum_v, goal * (1 + _REL), side="right"),
+            np.searchsorted(cum_a, cap * (1 + _REL), side="right"),
+        )
+    )
     got_v = cum_v[n - 1] if n else 0.0
     got_a = cum_a[n - 1] if n else 0.0
     if n < len(vol) and goal - got_v > _REL * goal:
@@ -145,14 +151,17 @@ def simulate(
         min_age = np.r_[min_age, np.full(len(reserved), np.inf)]
     in_hlb = np.ones(len(stand), dtype=bool)  # parts on the harvestable land base
     if stands.harvestable_ha is not None:
-        in_hlb[stands.n:] = False
+        in_hlb[stands.n :] = False
     sp = stands.species_idx[stand]
     si = curves.site_terms(sp, stands.site_index[stand])  # site terms, worked out once
     age = stands.age_years[stand]
     delay = stands.regen_delay_years[stand]
     rank = stands.id_rank[stand]
-    zone = (stands.zone_idx[stand] if stands.zone_idx is not None
-            else np.zeros(len(stand), dtype=np.int64))
+    zone = (
+        stands.zone_idx[stand]
+        if stands.zone_idx is not None
+        else np.zeros(len(stand), dtype=np.int64)
+    )
 
     sim = Simulation(level_m3=level_m3, feasible=True)
     sim.initial_stock_m3 = growing_stock_m3(curves, sp, age, si, area)
@@ -172,8 +181,9 @@ def simulate(
             gs_start[p] = sim.initial_stock_m3 if p == 0 else gs_end[p - 1]
         target, floor = rule.bounds(p, h[p - 1] if p else 0.0)
         if record or p == P - stable_periods:
-            hlb_start[p] = growing_stock_m3(curves, sp[in_hlb], age[in_hlb], si.take(in_hlb),
-                                            area[in_hlb])
+            hlb_start[p] = growing_stock_m3(
+                curves, sp[in_hlb], age[in_hlb], si.take(in_hlb), area[in_hlb]
+            )
         age_h = age + off
         elig = np.flatnonzero((age_h >= min_age - 1e-9) & (area > 0))
         vol_ha = curves.volume_m3_ha(sp[elig], age_h[elig], terms=si.take(elig))
@@ -195,7 +205,8 @@ def simulate(
                 full_pos, part_pos, frac = _pick_prefix(vol, area[cand], target, cap)
             else:
                 full_pos, part_pos, frac, blocked = sequential_pick(
-                    p * L + off, stand[cand], vol, area[cand], target, cap, rules)
+                    p * L + off, stand[cand], vol, area[cand], target, cap, rules
+                )
             cut_full = cand[full_pos]
             part = int(cand[part_pos]) if part_pos >= 0 else -1
             h[p] = vol[full_pos].sum() + (frac * vol[part_pos] if part >= 0 else 0.0)
@@ -210,8 +221,15 @@ def simulate(
                     ev_area[-1] *= frac
                 ev_pos = full_pos if part < 0 else np.r_[full_pos, part_pos]
                 ev_vol = v_ha[ev_pos] * ev_area
-                events.append((stand[ev_parts], np.full(len(ev_parts), p + 1), age_h[ev_parts],
-                               ev_area, ev_vol))
+                events.append(
+                    (
+                        stand[ev_parts],
+                        np.full(len(ev_parts), p + 1),
+                        age_h[ev_parts],
+                        ev_area,
+                        ev_vol,
+                    )
+                )
 
         if record and cover is not None:
             after_age = age_h.copy()
@@ -286,8 +304,9 @@ def simulate(
             gs_end[p] = stock
             if p == P - 1:
                 sim.ending_stock_m3 = stock
-                sim.ending_hlb_stock_m3 = growing_stock_m3(curves, sp[in_hlb], age[in_hlb],
-                                                           si.take(in_hlb), area[in_hlb])
+                sim.ending_hlb_stock_m3 = growing_stock_m3(
+                    curves, sp[in_hlb], age[in_hlb], si.take(in_hlb), area[in_hlb]
+                )
 
     if sim.feasible and sim.ending_stock_m3 < ending_stock * sim.initial_stock_m3 * (1 - _REL):
         sim.feasible = False
@@ -296,8 +315,10 @@ def simulate(
         ref = hlb_start[P - stable_periods]
         if sim.ending_hlb_stock_m3 < ref * (1 - 1e-6):
             sim.feasible = False
-            sim.fail_reason = (f"growing stock on the harvestable land base still falls over "
-                               f"the last {stable_periods} periods")
+            sim.fail_reason = (
+                f"growing stock on the harvestable land base still falls over "
+                f"the last {stable_periods} periods"
+            )
     sim.hlb_stock_start_m3 = hlb_start
     sim.disturbed_ha, sim.disturbed_m3 = dist_ha, dist_m3
     if record:
@@ -308,6 +329,11 @@ def simulate(
     sim.growing_stock_start_m3, sim.growing_stock_end_m3 = gs_start, gs_end
     if record and events:
         cols = [np.concatenate(c) for c in zip(*events, strict=True)]
-        (sim.event_stand, sim.event_period, sim.event_age_years, sim.event_area_ha,
-         sim.event_volume_m3) = cols
+        (
+            sim.event_stand,
+            sim.event_period,
+            sim.event_age_years,
+            sim.event_area_ha,
+            sim.event_volume_m3,
+        ) = cols
     return sim

@@ -37,8 +37,13 @@ class SpatialRules:
     def fresh(self) -> SpatialRules:
         """A copy with no stand cut yet (one per simulated horizon)."""
         n = self.adjacency.n
-        return SpatialRules(self.adjacency, self.greenup_years, self.max_opening_ha,
-                            np.full(n, -np.inf), np.zeros(n))
+        return SpatialRules(
+            self.adjacency,
+            self.greenup_years,
+            self.max_opening_ha,
+            np.full(n, -np.inf),
+            np.zeros(n),
+        )
 
     def is_open(self, t: float) -> NDArray[np.bool_]:
         return (t - self.last_cut) < self.greenup_years - 1e-9
@@ -50,8 +55,11 @@ class SpatialRules:
         self.open_area[~open_now] = 0.0
         labels = self.adjacency.components(open_now)
         n_labels = int(labels.max()) + 1 if (labels >= 0).any() else 0
-        self._comp_area = list(np.bincount(labels[open_now], self.open_area[open_now],
-                                           minlength=n_labels)) if n_labels else []
+        self._comp_area = (
+            list(np.bincount(labels[open_now], self.open_area[open_now], minlength=n_labels))
+            if n_labels
+            else []
+        )
         self._parent = list(range(n_labels))
         self._label = labels.tolist()
         self._open = open_now.tolist()
@@ -67,7 +75,7 @@ class SpatialRules:
 
     def allows(self, k: int, s: int, full_area: float, a: float) -> bool:
         """May stand s have area a cut now? (Remembers the openings it would join.)"""
-        nb = self.adjacency.indices[self.adjacency.indptr[s]:self.adjacency.indptr[s + 1]]
+        nb = self.adjacency.indices[self.adjacency.indptr[s] : self.adjacency.indptr[s + 1]]
         if self.max_opening_ha <= 0:
             if any(self._open[j] for j in nb.tolist() if j != s):
                 return False

@@ -9,6 +9,7 @@ import pytest
 import shapely
 
 from foresight.cli.main import main
+
 from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
 
 N = 6
@@ -46,23 +47,35 @@ def _drop_field(raw):
 
 
 CASES = {
-    "missing field": (dict(raw_edit=_drop_field),
-                      r"field 'AGE_YRS' \(inventory.fields.age\) is not in the layer"),
+    "missing field": (
+        dict(raw_edit=_drop_field),
+        r"field 'AGE_YRS' \(inventory.fields.age\) is not in the layer",
+    ),
     "duplicate id": (dict(attrs=_attrs(ID=(3, 1))), r"duplicate id in 2 stands: row 1 \(stand 1\)"),
     "null id": (dict(attrs=_attrs(ID=(2, None))), r"field 'ID': null id in 1 stands: row 3"),
     "null age": (dict(attrs=_attrs(AGE=(4, None))), r"null age in 1 stands: row 5 \(stand 5\)"),
     "negative age": (dict(attrs=_attrs(AGE=(1, -5.0))), r"negative age.*row 2 \(stand 2\): -5"),
-    "unknown species": (dict(attrs=_attrs(SPP=(0, "larch"))),
-                        r"species not in the scenario: 'larch'.*row 1"),
-    "site out of range": (dict(attrs=_attrs(SI=(2, 45.0))),
-                          r"site index outside the range of the 'pine' curve.*row 3.*45"),
-    "non-polygon": (dict(geoms=_geoms(1, shapely.LineString([(0, 0), (1, 1)]))),
-                    r"geometry is not a polygon in 1 stands: row 2 \(stand 2\): LineString"),
-    "empty geometry": (dict(geoms=_geoms(5, shapely.Polygon())),
-                       r"empty or missing geometry in 1 stands: row 6"),
+    "unknown species": (
+        dict(attrs=_attrs(SPP=(0, "larch"))),
+        r"species not in the scenario: 'larch'.*row 1",
+    ),
+    "site out of range": (
+        dict(attrs=_attrs(SI=(2, 45.0))),
+        r"site index outside the range of the 'pine' curve.*row 3.*45",
+    ),
+    "non-polygon": (
+        dict(geoms=_geoms(1, shapely.LineString([(0, 0), (1, 1)]))),
+        r"geometry is not a polygon in 1 stands: row 2 \(stand 2\): LineString",
+    ),
+    "empty geometry": (
+        dict(geoms=_geoms(5, shapely.Polygon())),
+        r"empty or missing geometry in 1 stands: row 6",
+    ),
     "no crs": (dict(crs=None), r"the layer has no CRS"),
-    "empty layer": (dict(attrs={k: v[:0] for k, v in stand_attrs(N, ages=1).items()}, geoms=[]),
-                    r"the layer is empty"),
+    "empty layer": (
+        dict(attrs={k: v[:0] for k, v in stand_attrs(N, ages=1).items()}, geoms=[]),
+        r"the layer is empty",
+    ),
 }
 
 
@@ -99,8 +112,10 @@ def test_invalid_geometry_rejected_with_strict(tmp_path, capsys):
 @pytest.mark.parametrize(
     ("args", "pattern"),
     [
-        (["--set", "flow.bandx=0.2"],
-         r"--set flow.bandx=0.2: unknown \[flow\] key 'bandx'; did you mean 'band'"),
+        (
+            ["--set", "flow.bandx=0.2"],
+            r"--set flow.bandx=0.2: unknown \[flow\] key 'bandx'; did you mean 'band'",
+        ),
         (["--set", "flow.band=1.5"], r"--set flow.band=1.5: \[flow\] band = 1.5: must be >= 0"),
         (["--set", "nonsense"], r"expected KEY=VALUE"),
         (["--set", "scenario.periods=0"], r"\[scenario\] periods = 0: must be > 0"),
@@ -118,9 +133,19 @@ def test_bad_scenario_exits_2(tmp_path, capsys, args, pattern):
 
 def test_missing_scenario_file_via_console_script(tmp_path):
     # The installed console script, as a user runs it.
-    proc = subprocess.run([sys.executable, "-m", "foresight.cli.main", "run",
-                           str(tmp_path / "none.toml"), "--out", str(tmp_path / "o")],
-                          capture_output=True, text=True)
+    proc = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "foresight.cli.main",
+            "run",
+            str(tmp_path / "none.toml"),
+            "--out",
+            str(tmp_path / "o"),
+        ],
+        capture_output=True,
+        text=True,
+    )
     assert proc.returncode == 2
     assert "none.toml: scenario file not found" in proc.stderr
     assert "Traceback" not in proc.stderr

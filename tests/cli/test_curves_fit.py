@@ -7,24 +7,48 @@ from PIL import Image
 
 from foresight.cli.main import main
 from foresight.growth import chapman_richards
+
 from helpers import ROOT, scenario_dict, squares, stand_attrs, write_layer, write_scenario
 
-CONTRACT = ["species", "site_index", "culmination_age_years", "max_mai_m3_ha_yr", "culminated",
-            "min_harvest_age_years", "faustmann_rotation_years", "fisher_rotation_years",
-            "lev_per_ha", "msy_stock_m3_ha", "msy_growth_m3_ha_yr"]
+CONTRACT = [
+    "species",
+    "site_index",
+    "culmination_age_years",
+    "max_mai_m3_ha_yr",
+    "culminated",
+    "min_harvest_age_years",
+    "faustmann_rotation_years",
+    "fisher_rotation_years",
+    "lev_per_ha",
+    "msy_stock_m3_ha",
+    "msy_growth_m3_ha_yr",
+]
 
 
 def test_curves_report_with_two_families(tmp_path, capsys):
     n = 6
-    attrs = stand_attrs(n, ages=60, species=["pine", "pine", "pine", "moss", "moss", "moss"],
-                        site=[16.0, 16.2, 22.0, 18.0, 18.0, 18.0])
+    attrs = stand_attrs(
+        n,
+        ages=60,
+        species=["pine", "pine", "pine", "moss", "moss", "moss"],
+        site=[16.0, 16.2, 22.0, 18.0, 18.0, 18.0],
+    )
     layer = write_layer(tmp_path / "s.gpkg", squares(n), attrs)
     raw = scenario_dict(layer)
-    raw["species"]["pine"].update(site_index_ref_m=18.0, price_per_m3=20.0,
-                                  regen_cost_per_ha=300.0, min_harvest_mai_share=0.95)
-    raw["species"]["moss"] = {"curve": "stock-threshold", "r": 0.1, "capacity_m3_ha": 300.0,
-                              "initial_m3_ha": 10.0, "min_viable_m3_ha": 20.0,
-                              "min_harvest_age": 40}
+    raw["species"]["pine"].update(
+        site_index_ref_m=18.0,
+        price_per_m3=20.0,
+        regen_cost_per_ha=300.0,
+        min_harvest_mai_share=0.95,
+    )
+    raw["species"]["moss"] = {
+        "curve": "stock-threshold",
+        "r": 0.1,
+        "capacity_m3_ha": 300.0,
+        "initial_m3_ha": 10.0,
+        "min_viable_m3_ha": 20.0,
+        "min_harvest_age": 40,
+    }
     raw["economics"] = {"discount_rate": 0.03}
     scenario = write_scenario(tmp_path / "scn.toml", raw)
     out = tmp_path / "rep"
@@ -60,22 +84,27 @@ def test_curves_of_the_sample_region(tmp_path):
 
 def test_fit_round_trip_prints_snippet(tmp_path, capsys):
     ages = np.arange(10, 150, 10.0)
-    pd.DataFrame({"age_years": ages,
-                  "volume_m3_ha": chapman_richards(ages, 450, 0.03, 2.7)}).to_csv(
-        tmp_path / "p.csv", index=False)
-    assert main(["fit", str(tmp_path / "p.csv"), "--model", "chapman-richards",
-                 "--species", "pine"]) == 0
+    pd.DataFrame(
+        {"age_years": ages, "volume_m3_ha": chapman_richards(ages, 450, 0.03, 2.7)}
+    ).to_csv(tmp_path / "p.csv", index=False)
+    assert (
+        main(["fit", str(tmp_path / "p.csv"), "--model", "chapman-richards", "--species", "pine"])
+        == 0
+    )
     out = capsys.readouterr().out
     assert "[species.pine]" in out and 'curve = "chapman-richards"' in out
     assert "a = 450" in out and "R2 1.0000" in out
 
 
-@pytest.mark.parametrize(("content", "pattern"), [
-    (None, "points file not found"),
-    ("age,vol\n1,2\n", "no column 'age_years'"),
-    ("age_years,volume_m3_ha\n10,5\n20,abc\n", r"line 3, column 'volume_m3_ha': 'abc'"),
-    ("age_years,volume_m3_ha\n10,5\n20,7\n", "2 points cannot fit 3 parameters"),
-])
+@pytest.mark.parametrize(
+    ("content", "pattern"),
+    [
+        (None, "points file not found"),
+        ("age,vol\n1,2\n", "no column 'age_years'"),
+        ("age_years,volume_m3_ha\n10,5\n20,abc\n", r"line 3, column 'volume_m3_ha': 'abc'"),
+        ("age_years,volume_m3_ha\n10,5\n20,7\n", "2 points cannot fit 3 parameters"),
+    ],
+)
 def test_fit_bad_input(tmp_path, capsys, content, pattern):
     path = tmp_path / "p.csv"
     if content is not None:

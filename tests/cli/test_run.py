@@ -14,15 +14,26 @@ from foresight.cli.main import main
 
 ROOT = Path(__file__).resolve().parents[2]
 SCENARIO = ROOT / "sample_region" / "scenario.toml"
-WOOD_FLOW_COLUMNS = ["period", "start_year", "end_year", "harvest_m3", "harvest_ha",
-                     "growing_stock_start_m3", "growing_stock_end_m3", "mean_harvest_age_years"]
+WOOD_FLOW_COLUMNS = [
+    "period",
+    "start_year",
+    "end_year",
+    "harvest_m3",
+    "harvest_ha",
+    "growing_stock_start_m3",
+    "growing_stock_end_m3",
+    "mean_harvest_age_years",
+]
 
 
 @pytest.fixture(scope="module")
 def sample_run(tmp_path_factory):
     out = tmp_path_factory.mktemp("sample") / "results"
-    proc = subprocess.run([sys.executable, "-m", "foresight.cli.main", "run", str(SCENARIO),
-                           "--out", str(out)], capture_output=True, text=True)
+    proc = subprocess.run(
+        [sys.executable, "-m", "foresight.cli.main", "run", str(SCENARIO), "--out", str(out)],
+        capture_output=True,
+        text=True,
+    )
     assert proc.returncode == 0, proc.stderr
     return out, proc
 
@@ -30,9 +41,15 @@ def sample_run(tmp_path_factory):
 def test_sample_run_writes_its_outputs(sample_run):
     out, proc = sample_run
     # the sample has spatial rules and cover targets, so openings and cover come too
-    assert sorted(p.name for p in out.iterdir()) == ["cover.csv", "netdown.csv", "openings.csv",
-                                                     "projection.gpkg", "run.json",
-                                                     "wood_flow.csv", "wood_flow_by_product.csv"]
+    assert sorted(p.name for p in out.iterdir()) == [
+        "cover.csv",
+        "netdown.csv",
+        "openings.csv",
+        "projection.gpkg",
+        "run.json",
+        "wood_flow.csv",
+        "wood_flow_by_product.csv",
+    ]
     assert "even-flow level" in proc.stdout and "limited by" in proc.stdout
     assert "planning estimates" in proc.stdout
     assert "project and schedule" in proc.stderr  # progress per stage on stderr
@@ -50,11 +67,11 @@ def test_wood_flow_csv_contract_and_policy(sample_run):
     # the band of the sample scenario (flow.band = 0.1) is never broken
     assert np.all(np.abs(np.diff(h)) <= 0.1 * h[:-1] * (1 + 1e-9))
     # ending stock requirement of the sample (flow.ending_stock = 1.0)
-    assert wf["growing_stock_end_m3"].iloc[-1] >= wf["growing_stock_start_m3"].iloc[0] * (
-        1 - 1e-9)
+    assert wf["growing_stock_end_m3"].iloc[-1] >= wf["growing_stock_start_m3"].iloc[0] * (1 - 1e-9)
     # consecutive periods chain: end of one is the start of the next
-    np.testing.assert_allclose(wf["growing_stock_end_m3"].iloc[:-1],
-                               wf["growing_stock_start_m3"].iloc[1:], rtol=1e-9)
+    np.testing.assert_allclose(
+        wf["growing_stock_end_m3"].iloc[:-1], wf["growing_stock_start_m3"].iloc[1:], rtol=1e-9
+    )
 
 
 def test_run_json_records_provenance(sample_run):
@@ -77,10 +94,10 @@ def test_run_json_records_provenance(sample_run):
 
 def test_stands_layer_covers_the_sample(sample_run):
     out, _ = sample_run
-    stands = pyogrio.read_dataframe(out / "projection.gpkg", layer="stands",
-                                    read_geometry=False)
-    src = pyogrio.read_dataframe(SCENARIO.parent / "norrowmere.gpkg", layer="stands",
-                                 read_geometry=False)
+    stands = pyogrio.read_dataframe(out / "projection.gpkg", layer="stands", read_geometry=False)
+    src = pyogrio.read_dataframe(
+        SCENARIO.parent / "norrowmere.gpkg", layer="stands", read_geometry=False
+    )
     assert len(stands) == len(src)
     assert set(stands["stand_id"]) == set(src["STAND_NO"])
     # no harvest event takes more than the stand's area
@@ -93,8 +110,9 @@ def test_rerun_replaces_previous_output_and_set_changes_result(tmp_path, capsys)
     out = tmp_path / "res"
     assert main(["run", str(SCENARIO), "--out", str(out), "-q"]) == 0
     first = json.loads((out / "run.json").read_text())["flow"]["level_m3_per_year"]
-    assert main(["run", str(SCENARIO), "--out", str(out), "-q",
-                 "--set", "flow.ending_stock=0.6"]) == 0
+    assert (
+        main(["run", str(SCENARIO), "--out", str(out), "-q", "--set", "flow.ending_stock=0.6"]) == 0
+    )
     second = json.loads((out / "run.json").read_text())
     assert second["scenario"]["flow"]["ending_stock"] == 0.6
     assert second["flow"]["level_m3_per_year"] > first  # a looser ending stock allows more
@@ -120,16 +138,29 @@ def test_docs_describe_every_output_column(sample_run):
     out, _ = sample_run
     text = (ROOT / "docs" / "outputs.md").read_text(encoding="utf-8")
     import re
+
     inputs = set(pyogrio.read_info(SCENARIO.parent / "norrowmere.gpkg", layer="stands")["fields"])
-    for layer in ("stands", "harvests", "wood_flow", "wood_flow_by_product", "netdown",
-                  "openings", "cover"):
+    for layer in (
+        "stands",
+        "harvests",
+        "wood_flow",
+        "wood_flow_by_product",
+        "netdown",
+        "openings",
+        "cover",
+    ):
         cols = pyogrio.read_info(out / "projection.gpkg", layer=layer)["fields"]
         cols = [c for c in cols if c not in inputs]  # the layer's own attributes, carried
         for col in cols:
             col = re.sub(r"^removed_step\d+_ha$", "removed_step<N>_ha", col)
             assert re.search(rf"^\| `{re.escape(col)}` \|", text, re.M), f"{layer}.{col}"
-    for name in ("wood_flow.csv", "wood_flow_by_product.csv", "netdown.csv", "openings.csv",
-                 "cover.csv"):
+    for name in (
+        "wood_flow.csv",
+        "wood_flow_by_product.csv",
+        "netdown.csv",
+        "openings.csv",
+        "cover.csv",
+    ):
         for col in pd.read_csv(out / name).columns:
             assert re.search(rf"^\| `{col}` \|", text, re.M), f"{name} {col}"
     for key in json.loads((out / "run.json").read_text()):
@@ -141,12 +172,14 @@ def test_products_add_up_to_the_harvest(sample_run):
     out, _ = sample_run
     wf = pd.read_csv(out / "wood_flow.csv").set_index("period")
     prod = pd.read_csv(out / "wood_flow_by_product.csv")
-    np.testing.assert_allclose(prod.groupby("period")["volume_m3"].sum(), wf["harvest_m3"],
-                               rtol=1e-9)
+    np.testing.assert_allclose(
+        prod.groupby("period")["volume_m3"].sum(), wf["harvest_m3"], rtol=1e-9
+    )
     assert {"sawlog", "pulp", "unsplit"} <= set(prod["product"])
     # spruce shares from the sample scenario: sawlog 0.45 at 70 years ... 0.70 at 140
-    spruce = prod[prod["species"] == "spruce"].pivot(index="period", columns="product",
-                                                     values="volume_m3")
+    spruce = prod[prod["species"] == "spruce"].pivot(
+        index="period", columns="product", values="volume_m3"
+    )
     share = spruce["sawlog"] / spruce.sum(axis=1)
     assert ((share >= 0.10 - 1e-9) & (share <= 0.70 + 1e-9)).all()
 
@@ -162,12 +195,12 @@ def test_sample_netdown_is_consistent_with_the_stands(sample_run):
     for row in steps.itertuples():
         assert stands[f"removed_step{int(row.step)}_ha"].sum() == pytest.approx(row.removed_ha)
     removed = stands[[f"removed_step{int(s)}_ha" for s in steps["step"]]].sum(axis=1)
-    np.testing.assert_allclose(stands["gross_ha"], removed + stands["harvestable_ha"],
-                               rtol=1e-9)
+    np.testing.assert_allclose(stands["gross_ha"], removed + stands["harvestable_ha"], rtol=1e-9)
     share = nd["remaining_ha"].iloc[-1] / stands["gross_ha"].sum()
     assert 0.6 < share < 0.85  # a realistic netdown for the sample (common practice: 10-80%)
-    harvests = pyogrio.read_dataframe(out / "projection.gpkg", layer="harvests",
-                                      read_geometry=False)
+    harvests = pyogrio.read_dataframe(
+        out / "projection.gpkg", layer="harvests", read_geometry=False
+    )
     cut = harvests.groupby(["stand_id", "period"])["area_ha"].sum().reset_index()
     limit = stands.set_index("stand_id")["harvestable_ha"].loc[cut["stand_id"]].to_numpy()
     assert (cut["area_ha"].to_numpy() <= limit * (1 + 1e-9)).all()
@@ -178,8 +211,19 @@ def test_spatial_rules_hold_in_the_written_outputs(tmp_path, capsys):
     # ARM with green-up: the openings rebuilt here from the written harvests layer (not from
     # internal state) never exceed the maximum opening; the second run reuses the cached graph.
     out = tmp_path / "spatial"
-    args = ["run", str(SCENARIO), "--out", str(out), "-q", "--set", "harvest.greenup_years=20",
-            "--set", "harvest.max_opening_ha=40", "--set", "scenario.periods=8"]
+    args = [
+        "run",
+        str(SCENARIO),
+        "--out",
+        str(out),
+        "-q",
+        "--set",
+        "harvest.greenup_years=20",
+        "--set",
+        "harvest.max_opening_ha=40",
+        "--set",
+        "scenario.periods=8",
+    ]
     assert main(args) == 0
     gpkg = out / "projection.gpkg"
     openings = pyogrio.read_dataframe(gpkg, layer="openings")
@@ -206,8 +250,24 @@ def test_spatial_rules_hold_in_the_written_outputs(tmp_path, capsys):
 
 def test_optimised_mode_maps_the_lp_onto_stands(tmp_path):
     out = tmp_path / "opt"
-    assert main(["run", str(SCENARIO), "--out", str(out), "-q", "--set", "flow.method=optimize",
-                 "--set", "flow.band=0", "--set", "scenario.periods=10"]) == 0
+    assert (
+        main(
+            [
+                "run",
+                str(SCENARIO),
+                "--out",
+                str(out),
+                "-q",
+                "--set",
+                "flow.method=optimize",
+                "--set",
+                "flow.band=0",
+                "--set",
+                "scenario.periods=10",
+            ]
+        )
+        == 0
+    )
     rec = json.loads((out / "run.json").read_text())
     assert rec["flow"]["policy"] == "optimize" and rec["lp"]["status"] == "Optimal"
     wf = pd.read_csv(out / "wood_flow.csv")
@@ -229,4 +289,5 @@ def test_sample_keeps_its_spatial_rules_and_cover_targets(sample_run):
     rec = json.loads((out / "run.json").read_text())
     assert rec["lp"]["status"] == "Optimal"
     assert rec["lp"]["total_harvest_m3"] >= pd.read_csv(out / "wood_flow.csv")[
-        "harvest_m3"].sum() * (1 - 1e-9)  # the LP bounds the rule-based schedule
+        "harvest_m3"
+    ].sum() * (1 - 1e-9)  # the LP bounds the rule-based schedule

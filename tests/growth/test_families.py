@@ -66,10 +66,16 @@ def test_schumacher_culminates_at_b():
 def test_site_scaling_moves_culmination():
     # V(t, SI) = rho_a V(rho_k t): culmination age scales by 1 / rho_k, MAI by rho_a rho_k.
     curve = ChapmanRichards(450.0, 0.03, 3.0, SITE)
-    ref = culmination(lambda t: curve.volume_m3_ha(t, 20.0 + 0 * t),
-                      lambda t: curve.cai_m3_ha_yr(t, 20.0 + 0 * t), 400)
-    good = culmination(lambda t: curve.volume_m3_ha(t, 25.0 + 0 * t),
-                       lambda t: curve.cai_m3_ha_yr(t, 25.0 + 0 * t), 400)
+    ref = culmination(
+        lambda t: curve.volume_m3_ha(t, 20.0 + 0 * t),
+        lambda t: curve.cai_m3_ha_yr(t, 20.0 + 0 * t),
+        400,
+    )
+    good = culmination(
+        lambda t: curve.volume_m3_ha(t, 25.0 + 0 * t),
+        lambda t: curve.cai_m3_ha_yr(t, 25.0 + 0 * t),
+        400,
+    )
     rho_a, rho_k = (25 / 20) ** 1.2, (25 / 20) ** 0.5
     assert good.age_years == pytest.approx(ref.age_years / rho_k, rel=1e-6)
     assert good.mai == pytest.approx(ref.mai * rho_a * rho_k, rel=1e-6)

@@ -9,11 +9,14 @@ from foresight.growth.fitting import FitError, fit_curve
 AGES = np.arange(10.0, 160.0, 10.0)
 
 
-@pytest.mark.parametrize(("model", "fn", "params"), [
-    ("chapman-richards", chapman_richards, {"a": 520.0, "k": 0.027, "c": 2.6}),
-    ("schumacher", schumacher, {"a": 700.0, "b": 55.0}),
-    ("gompertz", gompertz_yield, {"a": 480.0, "b": 5.0, "k": 0.045}),
-])
+@pytest.mark.parametrize(
+    ("model", "fn", "params"),
+    [
+        ("chapman-richards", chapman_richards, {"a": 520.0, "k": 0.027, "c": 2.6}),
+        ("schumacher", schumacher, {"a": 700.0, "b": 55.0}),
+        ("gompertz", gompertz_yield, {"a": 480.0, "b": 5.0, "k": 0.045}),
+    ],
+)
 def test_round_trip_recovers_parameters(model, fn, params):
     rng = np.random.default_rng(3)
     v = fn(AGES, **params) * (1 + rng.normal(0, 0.002, len(AGES)))

@@ -14,8 +14,16 @@ GROWTH = GrowthConfig()
 
 
 def species(**rules):
-    return SpeciesConfig(code="pine", curve="chapman-richards", a=500.0, k=0.03, c=3.0,
-                         price_per_m3=25.0, regen_cost_per_ha=400.0, **rules)
+    return SpeciesConfig(
+        code="pine",
+        curve="chapman-richards",
+        a=500.0,
+        k=0.03,
+        c=3.0,
+        price_per_m3=25.0,
+        regen_cost_per_ha=400.0,
+        **rules,
+    )
 
 
 def test_mai_share_rule():
@@ -36,8 +44,7 @@ def test_volume_rule_and_never_reached():
 
 
 def test_combined_rules_take_the_largest_age():
-    cfg = species(min_harvest_age=40.0, min_harvest_mai_share=0.95,
-                  min_harvest_economic=True)
+    cfg = species(min_harvest_age=40.0, min_harvest_mai_share=0.95, min_harvest_economic=True)
     s = summarise_site(cfg, CURVE, 20.0, ECON, GROWTH)
     assert set(s.rule_ages) == {"fixed", "mai_share", "economic"}
     assert s.min_harvest_age_years == max(s.rule_ages.values())

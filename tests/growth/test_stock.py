@@ -38,8 +38,9 @@ def test_threshold_trajectory_matches_numerical_integration(s0):
     r, k, m = 0.08, 600.0, 40.0
     curve = StockGrowth(r, k, s0, m)
     t = np.linspace(0, 200, 41)
-    sol = solve_ivp(lambda _, s: growth(s, r, k, m), (0, 200), [s0], t_eval=t, rtol=1e-10,
-                    atol=1e-10)
+    sol = solve_ivp(
+        lambda _, s: growth(s, r, k, m), (0, 200), [s0], t_eval=t, rtol=1e-10, atol=1e-10
+    )
     np.testing.assert_allclose(curve.volume_m3_ha(t), sol.y[0], rtol=2e-4, atol=1e-3)
     assert curve.collapses == (s0 < m)
 
@@ -55,6 +56,7 @@ def test_logistic_trajectory_closed_form():
     # S(t) = K / (1 + (K - S0)/S0 e^(-rt)) solves dS/dt = r S (1 - S/K) (Verhulst 1838).
     t = np.linspace(0, 100, 11)
     s = logistic_stock(t, 0.1, 800.0, 10.0)
-    ds = np.gradient(logistic_stock(np.linspace(0, 100, 100_001), 0.1, 800.0, 10.0),
-                     np.linspace(0, 100, 100_001))[::10_000]
+    ds = np.gradient(
+        logistic_stock(np.linspace(0, 100, 100_001), 0.1, 800.0, 10.0), np.linspace(0, 100, 100_001)
+    )[::10_000]
     np.testing.assert_allclose(ds, growth(s, 0.1, 800.0), rtol=1e-4, atol=1e-6)

@@ -28,12 +28,17 @@ def test_geopackage_core_requirements(run_dir):
         # Req 6: integrity check passes
         assert con.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
         # Req 10/11: gpkg_spatial_ref_sys holds the mandatory rows (-1, 0, 4326)
-        srs = dict(con.execute("SELECT srs_id, organization_coordsys_id FROM "
-                               "gpkg_spatial_ref_sys").fetchall())
+        srs = dict(
+            con.execute(
+                "SELECT srs_id, organization_coordsys_id FROM gpkg_spatial_ref_sys"
+            ).fetchall()
+        )
         assert {-1, 0, 4326} <= set(srs)
         # Req 13/14: gpkg_contents lists every table with its data_type
-        contents = {row[0]: row[1:] for row in con.execute(
-            "SELECT table_name, data_type, srs_id FROM gpkg_contents")}
+        contents = {
+            row[0]: row[1:]
+            for row in con.execute("SELECT table_name, data_type, srs_id FROM gpkg_contents")
+        }
         assert contents["stands"][0] == "features"
         assert contents["harvests"][0] == "features"
         assert contents["wood_flow"][0] == "attributes"
@@ -43,12 +48,18 @@ def test_geopackage_core_requirements(run_dir):
             srs_id = contents[layer][1]
             org, code = con.execute(
                 "SELECT organization, organization_coordsys_id FROM gpkg_spatial_ref_sys "
-                "WHERE srs_id = ?", (srs_id,)).fetchone()
+                "WHERE srs_id = ?",
+                (srs_id,),
+            ).fetchone()
             assert (org.upper(), code) == ("EPSG", 32633)
         # Req 21/22: gpkg_geometry_columns names a geometry column of each feature table
-        geom = {row[0]: row[1:] for row in con.execute(
-            "SELECT table_name, column_name, geometry_type_name, srs_id "
-            "FROM gpkg_geometry_columns")}
+        geom = {
+            row[0]: row[1:]
+            for row in con.execute(
+                "SELECT table_name, column_name, geometry_type_name, srs_id "
+                "FROM gpkg_geometry_columns"
+            )
+        }
         assert set(geom) == {"stands", "harvests"}
         for layer, (column, gtype, srs_id) in geom.items():
             assert gtype in {"POLYGON", "MULTIPOLYGON", "GEOMETRY"}
@@ -65,8 +76,15 @@ def test_layers_read_back_with_pyogrio(run_dir):
     assert set(layers) == {"stands", "harvests", "wood_flow", "wood_flow_by_product", "netdown"}
     stands = pyogrio.read_dataframe(gpkg, layer="stands")
     assert CRS.from_user_input(stands.crs).to_epsg() == 32633
-    for col in ("stand_id", "species", "site_index", "age_years", "zone", "area_ha",
-                "first_harvest_period"):
+    for col in (
+        "stand_id",
+        "species",
+        "site_index",
+        "age_years",
+        "zone",
+        "area_ha",
+        "first_harvest_period",
+    ):
         assert col in stands.columns
     harvests = pyogrio.read_dataframe(gpkg, layer="harvests")
     for col in ("stand_id", "period", "start_year", "age_years", "area_ha", "volume_m3"):
@@ -74,8 +92,9 @@ def test_layers_read_back_with_pyogrio(run_dir):
     flow = pyogrio.read_dataframe(gpkg, layer="wood_flow")
     # wood_flow.harvest_m3 is the sum over the harvests layer, period by period
     per_period = harvests.groupby("period")["volume_m3"].sum()
-    np.testing.assert_allclose(flow.set_index("period")["harvest_m3"].loc[per_period.index],
-                               per_period, rtol=1e-9)
+    np.testing.assert_allclose(
+        flow.set_index("period")["harvest_m3"].loc[per_period.index], per_period, rtol=1e-9
+    )
     # first_harvest_period agrees with the earliest period in harvests
     first = harvests.groupby("stand_id")["period"].min()
     got = stands.set_index("stand_id")["first_harvest_period"]

@@ -6,6 +6,7 @@ import pyogrio
 import pytest
 
 from foresight.cli.main import main
+
 from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
 
 N, L, OFF = 40, 10, 5
@@ -45,11 +46,14 @@ def test_old_forest_retention_holds_in_the_outputs(tmp_path):
     attrs["ZONE"] = np.array(["east"] * 20 + ["west"] * 20, dtype=object)
     layer = write_layer(tmp_path / "s.gpkg", squares(N), attrs)
     raw = scenario_dict(layer, scenario={"periods": 6}, flow={"ending_stock": 0.0})
-    raw["cover"] = [{"zone": "*", "older_than_years": 120, "min_share": 0.3},
-                    {"zone": "east", "younger_than_years": 20, "max_share": 0.5}]
+    raw["cover"] = [
+        {"zone": "*", "older_than_years": 120, "min_share": 0.3},
+        {"zone": "east", "younger_than_years": 20, "max_share": 0.5},
+    ]
     out = tmp_path / "out"
-    assert main(["run", str(write_scenario(tmp_path / "c.toml", raw)), "--out", str(out),
-                 "-q"]) == 0
+    assert (
+        main(["run", str(write_scenario(tmp_path / "c.toml", raw)), "--out", str(out), "-q"]) == 0
+    )
     gpkg = out / "projection.gpkg"
     stands = pyogrio.read_dataframe(gpkg, layer="stands", read_geometry=False)
     harvests = pyogrio.read_dataframe(gpkg, layer="harvests", read_geometry=False)
@@ -62,20 +66,26 @@ def test_old_forest_retention_holds_in_the_outputs(tmp_path):
     # without the target the scheduler would take more of the old forest in period 1
     raw.pop("cover")
     free = tmp_path / "free"
-    assert main(["run", str(write_scenario(tmp_path / "f.toml", raw)), "--out", str(free),
-                 "-q"]) == 0
-    fh = pyogrio.read_dataframe(free / "projection.gpkg", layer="harvests",
-                                read_geometry=False)
-    assert fh[fh["period"] == 1]["area_ha"].sum() > harvests[harvests["period"] == 1][
-        "area_ha"].sum()
+    assert (
+        main(["run", str(write_scenario(tmp_path / "f.toml", raw)), "--out", str(free), "-q"]) == 0
+    )
+    fh = pyogrio.read_dataframe(free / "projection.gpkg", layer="harvests", read_geometry=False)
+    assert (
+        fh[fh["period"] == 1]["area_ha"].sum() > harvests[harvests["period"] == 1]["area_ha"].sum()
+    )
 
 
-@pytest.mark.parametrize(("cover", "match"), [
-    ({"zone": "*", "older_than_years": 100, "min_share": 1.5}, r"min_share = 1.5: must be in"),
-    ({"zone": "*", "older_than_years": 100}, r"needs both older_than_years and min_share"),
-    ({"zone": "*", "older_than_years": 100, "min_share": 0.2, "max_share": 0.3},
-     r"needs either older_than_years"),
-])
+@pytest.mark.parametrize(
+    ("cover", "match"),
+    [
+        ({"zone": "*", "older_than_years": 100, "min_share": 1.5}, r"min_share = 1.5: must be in"),
+        ({"zone": "*", "older_than_years": 100}, r"needs both older_than_years and min_share"),
+        (
+            {"zone": "*", "older_than_years": 100, "min_share": 0.2, "max_share": 0.3},
+            r"needs either older_than_years",
+        ),
+    ],
+)
 def test_bad_cover_targets_are_named(tmp_path, cover, match):
     from foresight import load_scenario
     from foresight.errors import ScenarioError

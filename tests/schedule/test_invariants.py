@@ -12,10 +12,13 @@ from foresight.growth import ChapmanRichards, SiteScaling, TableYield
 from foresight.projection import CurveSet, Periods, StandArrays
 from foresight.schedule import find_even_flow
 
-CURVES = CurveSet(["a", "b"], [
-    ChapmanRichards(500.0, 0.03, 3.0, SiteScaling(site_index_ref_m=20.0)),
-    TableYield.single((10, 30, 60, 90), (5, 80, 260, 300)),
-])
+CURVES = CurveSet(
+    ["a", "b"],
+    [
+        ChapmanRichards(500.0, 0.03, 3.0, SiteScaling(site_index_ref_m=20.0)),
+        TableYield.single((10, 30, 60, 90), (5, 80, 260, 300)),
+    ],
+)
 
 
 @st.composite
@@ -35,8 +38,12 @@ def forests(draw):
         regen_delay_years=np.full(n, delay),
         id_rank=np.arange(n),
     )
-    periods = Periods(2030, draw(st.sampled_from([5, 10])), draw(st.integers(1, 12)),
-                      draw(st.sampled_from(["start", "midpoint", "end"])))
+    periods = Periods(
+        2030,
+        draw(st.sampled_from([5, 10])),
+        draw(st.integers(1, 12)),
+        draw(st.sampled_from(["start", "midpoint", "end"])),
+    )
     cap = draw(st.none() | st.floats(1.0, 200.0))
     band = draw(st.sampled_from([0.0, 0.1, 0.25]))
     ending = draw(st.sampled_from([0.0, 0.5, 1.0]))
@@ -52,8 +59,13 @@ def reconstruct_stock(stands, periods, sim):
         for p in range(1, periods.count + 1):
             # area cut this period at each age at harvest (several parts may share an age)
             todo: dict[float, float] = {}
-            for s, q, age, a in zip(sim.event_stand, sim.event_period, sim.event_age_years,
-                                    sim.event_area_ha):
+            for s, q, age, a in zip(
+                sim.event_stand,
+                sim.event_period,
+                sim.event_age_years,
+                sim.event_area_ha,
+                strict=True,
+            ):
                 if s == i and q == p:
                     todo[round(float(age), 6)] = todo.get(round(float(age), 6), 0.0) + a
             nxt = []
@@ -73,7 +85,8 @@ def reconstruct_stock(stands, periods, sim):
             for area, age in parts:
                 # the exact curve objects, not the projection's tabulated copy
                 v = CURVES.curves[stands.species_idx[i]].volume_m3_ha(
-                    np.array([age]), np.array([stands.site_index[i]]))[0]
+                    np.array([age]), np.array([stands.site_index[i]])
+                )[0]
                 out[p - 1] += area * v
     return out
 
@@ -82,8 +95,7 @@ def reconstruct_stock(stands, periods, sim):
 @given(forests())
 def test_schedule_invariants(case):
     stands, periods, cap, band, ending = case
-    flow = find_even_flow(stands, CURVES, periods, band=band, ending_stock=ending,
-                          max_area_ha=cap)
+    flow = find_even_flow(stands, CURVES, periods, band=band, ending_stock=ending, max_area_ha=cap)
     sim = flow.simulation
     assert sim.feasible
     # no stand is cut below its minimum harvest age
@@ -92,13 +104,19 @@ def test_schedule_invariants(case):
     if cap is not None:
         assert np.all(sim.harvest_ha <= cap * (1 + 1e-9))
     # per-period totals equal the sums over events
-    per = np.bincount(sim.event_period - 1, sim.event_volume_m3, periods.count) if len(
-        sim.event_period) else np.zeros(periods.count)
+    per = (
+        np.bincount(sim.event_period - 1, sim.event_volume_m3, periods.count)
+        if len(sim.event_period)
+        else np.zeros(periods.count)
+    )
     np.testing.assert_allclose(sim.harvest_m3, per, rtol=1e-9, atol=1e-9)
     # area is conserved: a stand never gives more than its area in one period
     for p in range(1, periods.count + 1):
-        got = np.bincount(sim.event_stand[sim.event_period == p],
-                          sim.event_area_ha[sim.event_period == p], stands.n)
+        got = np.bincount(
+            sim.event_stand[sim.event_period == p],
+            sim.event_area_ha[sim.event_period == p],
+            stands.n,
+        )
         assert np.all(got <= stands.area_ha * (1 + 1e-9))
     # growing stock end = start + growth - harvest, with the stock rebuilt independently
     rebuilt = reconstruct_stock(stands, periods, sim)
@@ -108,4 +126,5 @@ def test_schedule_invariants(case):
     if flow.level_m3_per_period > 0:
         assert np.all(np.abs(np.diff(h)) <= (band + 1e-9) * h[:-1])
     assert sim.ending_stock_m3 >= ending * sim.initial_stock_m3 * (1 - 1e-7) or (
-        flow.level_m3_per_period == 0)
+        flow.level_m3_per_period == 0
+    )

@@ -12,16 +12,15 @@ from foresight.projection import CurveSet, Periods, StandArrays
 from foresight.schedule import find_even_flow
 from foresight.schedule.lp import build_lp, make_strata, solve_lp
 
+from helpers import gap_forest
+
 CURVE = ChapmanRichards(450.0, 0.035, 3.0)
 CURVES = CurveSet(["pine"], [CURVE])
 PERIODS = Periods(2030, 10, 10, "midpoint")
 
 
 def forest(n=60, seed=4):
-    rng = np.random.default_rng(seed)
-    ages = np.where(rng.random(n) < 0.6, rng.uniform(90, 160, n), rng.uniform(0, 30, n))
-    return StandArrays(np.zeros(n, np.int32), np.full(n, 20.0), ages, rng.uniform(5, 30, n),
-                       np.full(n, 60.0), np.zeros(n), np.arange(n))
+    return gap_forest(n, seed)
 
 
 def stand_strata(st):
@@ -29,8 +28,9 @@ def stand_strata(st):
     return make_strata(st, np.zeros(st.n, int), 1e-6, 1e-6)
 
 
-@pytest.mark.parametrize(("objective", "band", "cap"), [("max-even-flow", 0.0, None),
-                                                         ("max-volume", 0.1, 400.0)])
+@pytest.mark.parametrize(
+    ("objective", "band", "cap"), [("max-even-flow", 0.0, None), ("max-volume", 0.1, 400.0)]
+)
 def test_highs_matches_cbc_on_the_same_model(objective, band, cap):
     # Independent solver: the same matrix model solved by CBC through PuLP.
     st = forest()
@@ -41,8 +41,8 @@ def test_highs_matches_cbc_on_the_same_model(objective, band, cap):
     x = [prob.add_variable(f"x{i}", lowBound=0) for i in range(A.shape[1])]
     prob += pulp.lpSum(float(c) * x[i] for i, c in enumerate(model.cost) if c)
     for r in range(A.shape[0]):
-        cols = A.indices[A.indptr[r]:A.indptr[r + 1]]
-        vals = A.data[A.indptr[r]:A.indptr[r + 1]]
+        cols = A.indices[A.indptr[r] : A.indptr[r + 1]]
+        vals = A.data[A.indptr[r] : A.indptr[r + 1]]
         expr = pulp.lpSum(float(v) * x[c] for c, v in zip(cols, vals, strict=True))
         lo, hi = model.row_lo[r], model.row_hi[r]
         if lo == hi:
@@ -65,8 +65,7 @@ def test_lp_optimum_bounds_the_rule_based_forecast():
     # the rule-based scheduler's, since the rule-based schedule is one of the LP's solutions.
     st = forest()
     rules = find_even_flow(st, CURVES, PERIODS, band=0.0, ending_stock=1.0, max_area_ha=300.0)
-    lp = solve_lp(st, CURVES, PERIODS, stand_strata(st), "max-even-flow", "even", 0.0, 1.0,
-                  300.0)
+    lp = solve_lp(st, CURVES, PERIODS, stand_strata(st), "max-even-flow", "even", 0.0, 1.0, 300.0)
     assert lp.objective >= rules.level_m3_per_period * (1 - 1e-6)
     np.testing.assert_allclose(lp.harvest_m3, lp.objective, rtol=1e-6)
 
@@ -75,19 +74,34 @@ def test_regulated_forest_lp_gives_area_control_yield():
     # (A/R) V(R) per year (Davis & Johnson; Bettinger et al. 2009, Ch. 11)
     R, L = 60, 10
     ages = np.arange(6, dtype=float) * 10 + 5
-    st = StandArrays(np.zeros(6, np.int32), np.full(6, 20.0), ages, np.full(6, 25.0),
-                     np.full(6, float(R)), np.zeros(6), np.arange(6))
+    st = StandArrays(
+        np.zeros(6, np.int32),
+        np.full(6, 20.0),
+        ages,
+        np.full(6, 25.0),
+        np.full(6, float(R)),
+        np.zeros(6),
+        np.arange(6),
+    )
     lp = solve_lp(st, CURVES, Periods(2030, L, 12), stand_strata(st), ending_stock=1.0)
-    assert lp.objective == pytest.approx(150.0 / R * float(CURVE.volume_m3_ha(R, 20.0)) * L,
-                                         rel=1e-6)
+    assert lp.objective == pytest.approx(
+        150.0 / R * float(CURVE.volume_m3_ha(R, 20.0)) * L, rel=1e-6
+    )
 
 
 def test_long_horizon_max_volume_approaches_area_times_max_mai():
     # Undiscounted maximum volume over a long horizon (Model II steady state, standard result):
     # the mean harvest approaches area x maximum MAI, at rotations near the MAI culmination.
     area, L, P = 100.0, 5, 80  # 400 years
-    st = StandArrays(np.zeros(1, np.int32), np.full(1, 20.0), np.zeros(1), np.full(1, area),
-                     np.zeros(1), np.zeros(1), np.zeros(1, int))
+    st = StandArrays(
+        np.zeros(1, np.int32),
+        np.full(1, 20.0),
+        np.zeros(1),
+        np.full(1, area),
+        np.zeros(1),
+        np.zeros(1),
+        np.zeros(1, int),
+    )
     periods = Periods(2030, L, P, "start")
     lp = solve_lp(st, CURVES, periods, stand_strata(st), "max-volume", "none", 0.0, 0.0)
     t_star = chapman_richards_culmination_age(CURVE.k, CURVE.c)
@@ -110,11 +124,28 @@ def test_max_npv_on_bare_land_is_the_faustmann_value():
     from foresight.schedule.lp import Economics
 
     p, c, r, L, P = 25.0, 600.0, 0.03, 10, 40
-    st = StandArrays(np.zeros(1, np.int32), np.full(1, 20.0), np.zeros(1), np.ones(1),
-                     np.zeros(1), np.zeros(1), np.zeros(1, int))
+    st = StandArrays(
+        np.zeros(1, np.int32),
+        np.full(1, 20.0),
+        np.zeros(1),
+        np.ones(1),
+        np.zeros(1),
+        np.zeros(1),
+        np.zeros(1, int),
+    )
     econ = Economics(np.array([p]), np.array([c]), r, "continuous", "none")
-    lp = solve_lp(st, CURVES, Periods(2030, L, P, "start"), stand_strata(st), "max-npv", "none",
-                  0.0, 0.0, None, econ)
+    lp = solve_lp(
+        st,
+        CURVES,
+        Periods(2030, L, P, "start"),
+        stand_strata(st),
+        "max-npv",
+        "none",
+        0.0,
+        0.0,
+        None,
+        econ,
+    )
     T = np.arange(1, 30) * L
     faustmann = ((p * CURVE.volume_m3_ha(T, 20.0) - c) / np.expm1(r * T)).max()
     assert lp.objective == pytest.approx(faustmann, rel=1e-4)

@@ -8,16 +8,14 @@ from foresight.growth import ChapmanRichards
 from foresight.projection import CurveSet, Periods, StandArrays
 from foresight.schedule import schedule
 
+from helpers import gap_forest
+
 CURVES = CurveSet(["pine"], [ChapmanRichards(450.0, 0.035, 3.0)])
 PERIODS = Periods(2030, 10, 12, "midpoint")
 
 
 def forest(seed=4, n=120):
-    # an old-forest surplus and an age gap, as in the sample region
-    rng = np.random.default_rng(seed)
-    ages = np.where(rng.random(n) < 0.6, rng.uniform(90, 160, n), rng.uniform(0, 30, n))
-    return StandArrays(np.zeros(n, np.int32), np.full(n, 20.0), ages, rng.uniform(5, 30, n),
-                       np.full(n, 60.0), np.zeros(n), np.arange(n))
+    return gap_forest(n, seed)
 
 
 def run(**flow):
@@ -67,9 +65,17 @@ def test_regulated_forest_is_held_by_every_policy(policy):
     R, L = 60, 10
     ages = np.arange(R // L, dtype=float) * L + 5  # midpoint: oldest reaches 60 at harvest
     n = len(ages)
-    st = StandArrays(np.zeros(n, np.int32), np.full(n, 20.0), ages, np.full(n, 25.0),
-                     np.full(n, float(R)), np.zeros(n), np.arange(n))
-    res = schedule(st, CURVES, PERIODS, FlowConfig(policy=policy, ending_stock=1.0),
-                   HarvestConfig())
+    st = StandArrays(
+        np.zeros(n, np.int32),
+        np.full(n, 20.0),
+        ages,
+        np.full(n, 25.0),
+        np.full(n, float(R)),
+        np.zeros(n),
+        np.arange(n),
+    )
+    res = schedule(
+        st, CURVES, PERIODS, FlowConfig(policy=policy, ending_stock=1.0), HarvestConfig()
+    )
     expected = n * 25.0 / R * float(CURVES.curves[0].volume_m3_ha(R, 20.0)) * L
     np.testing.assert_allclose(res.simulation.harvest_m3, expected, rtol=1e-6)

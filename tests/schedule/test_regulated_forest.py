@@ -54,7 +54,8 @@ def test_regulated_forest_holds_area_control_yield(timing):
 def test_regulated_forest_yield_equals_area_times_mai():
     # The same identity read the other way: (A/R) V(R) = A x MAI(R).
     stands = regulated("midpoint")
-    flow = find_even_flow(stands, CurveSet(["pine"], [CURVE]), Periods(2030, L, PERIODS),
-                          ending_stock=1.0)
+    flow = find_even_flow(
+        stands, CurveSet(["pine"], [CURVE]), Periods(2030, L, PERIODS), ending_stock=1.0
+    )
     mai_r = float(CURVE.volume_m3_ha(R, 20.0)) / R
     assert flow.level_m3_per_year == pytest.approx(stands.area_ha.sum() * mai_r, rel=1e-6)

@@ -11,6 +11,7 @@ from foresight.growth import ChapmanRichards
 from foresight.projection import CurveSet, Periods, StandArrays
 from foresight.schedule import find_even_flow
 from foresight.schedule.spatial import SpatialRules
+
 from helpers import squares
 
 CURVES = CurveSet(["pine"], [ChapmanRichards(450.0, 0.035, 3.0)])
@@ -20,15 +21,17 @@ def test_adjacency_edges_and_corners_match_brute_force():
     # Independent check: shapely's touches / shared-boundary length on every pair.
     rng = np.random.default_rng(8)
     pts = shapely.points(rng.uniform(0, 1000, (60, 2)))
-    cells = shapely.get_parts(shapely.voronoi_polygons(shapely.multipoints(pts),
-                                                       extend_to=shapely.box(0, 0, 1000, 1000)))
+    cells = shapely.get_parts(
+        shapely.voronoi_polygons(shapely.multipoints(pts), extend_to=shapely.box(0, 0, 1000, 1000))
+    )
     cells = shapely.intersection(cells, shapely.box(0, 0, 1000, 1000))
     grid = np.r_[cells, squares(16, side_m=100.0, x0=2000, y0=0, per_row=4)]
     edge = build_adjacency(grid, "edge")
     touch = build_adjacency(grid, "edge-or-corner")
     for i, j in itertools.combinations(range(len(grid)), 2):
-        shared = shapely.length(shapely.intersection(shapely.boundary(grid[i]),
-                                                     shapely.boundary(grid[j])))
+        shared = shapely.length(
+            shapely.intersection(shapely.boundary(grid[i]), shapely.boundary(grid[j]))
+        )
         assert (j in edge.neighbours(i)) == (shared > 1e-9)
         assert (j in touch.neighbours(i)) == bool(shapely.touches(grid[i], grid[j]))
     # a 4 x 4 grid: an inner square has 4 edge neighbours and 8 with corners
@@ -39,9 +42,15 @@ def test_adjacency_edges_and_corners_match_brute_force():
 def grid_forest(n_side=6, side_m=100.0, age=100.0):
     n = n_side * n_side
     geoms = squares(n, side_m=side_m, per_row=n_side)
-    stands = StandArrays(np.zeros(n, np.int32), np.full(n, 20.0), np.full(n, age),
-                         np.full(n, side_m * side_m / 1e4), np.full(n, 60.0), np.zeros(n),
-                         np.arange(n))
+    stands = StandArrays(
+        np.zeros(n, np.int32),
+        np.full(n, 20.0),
+        np.full(n, age),
+        np.full(n, side_m * side_m / 1e4),
+        np.full(n, 60.0),
+        np.zeros(n),
+        np.arange(n),
+    )
     return geoms, stands
 
 
@@ -52,8 +61,9 @@ def test_unit_restriction_never_cuts_two_neighbours_in_one_period():
     geoms, stands = grid_forest()
     adj = build_adjacency(geoms, "edge")
     rules = SpatialRules(adj, greenup_years=10.0, max_opening_ha=0.0)
-    flow = find_even_flow(stands, CURVES, Periods(2030, 10, 2, "midpoint"), ending_stock=0.0,
-                          spatial=rules)
+    flow = find_even_flow(
+        stands, CURVES, Periods(2030, 10, 2, "midpoint"), ending_stock=0.0, spatial=rules
+    )
     sim = flow.simulation
     for p in (1, 2):
         cut = set(sim.event_stand[sim.event_period == p].tolist())
@@ -72,8 +82,9 @@ def test_area_restriction_keeps_openings_to_two_stands():
     geoms, stands = grid_forest()
     adj = build_adjacency(geoms, "edge")
     rules = SpatialRules(adj, greenup_years=20.0, max_opening_ha=2.0)
-    flow = find_even_flow(stands, CURVES, Periods(2030, 10, 3, "midpoint"), ending_stock=0.0,
-                          spatial=rules)
+    flow = find_even_flow(
+        stands, CURVES, Periods(2030, 10, 3, "midpoint"), ending_stock=0.0, spatial=rules
+    )
     sim = flow.simulation
     t = {p: 10 * (p - 1) + 5 for p in (1, 2, 3)}
     for p in (1, 2, 3):
@@ -87,8 +98,7 @@ def test_area_restriction_keeps_openings_to_two_stands():
 def test_a_stand_larger_than_the_opening_is_never_cut():
     geoms, stands = grid_forest(n_side=2, side_m=200.0)  # 4-ha stands, 3-ha openings
     rules = SpatialRules(build_adjacency(geoms), greenup_years=10.0, max_opening_ha=3.0)
-    flow = find_even_flow(stands, CURVES, Periods(2030, 10, 2), ending_stock=0.0,
-                          spatial=rules)
+    flow = find_even_flow(stands, CURVES, Periods(2030, 10, 2), ending_stock=0.0, spatial=rules)
     assert flow.level_m3_per_period == 0.0 and len(flow.simulation.event_stand) == 0
 
 
@@ -96,9 +106,13 @@ def test_a_stand_larger_than_the_opening_is_never_cut():
 def test_contradictory_spatial_settings_rejected_at_load(tmp_path, bad):
     from foresight import load_scenario
     from foresight.errors import ScenarioError
+
     from helpers import scenario_dict, write_scenario
 
     raw = scenario_dict(tmp_path / "x.gpkg", harvest=bad)
-    with pytest.raises(ScenarioError, match=r"\[harvest\] (greenup_years = 500 is longer|"
-                                            r"max_opening_ha needs greenup_years)"):
+    with pytest.raises(
+        ScenarioError,
+        match=r"\[harvest\] (greenup_years = 500 is longer|"
+        r"max_opening_ha needs greenup_years)",
+    ):
         load_scenario(write_scenario(tmp_path / "s.toml", raw))
