@@ -49,11 +49,10 @@ from foresight.reporting import (
 from foresight.reporting.curves import curves_table
 from foresight.reporting.curves import notes as curve_notes
 from foresight.reporting.figures import curve_figure
-from foresight.schedule import FlowResult, schedule, simulate
+from foresight.schedule import FlowResult, schedule, simulate, spatial_rules
 from foresight.schedule.cover import CoverRule, CoverRules
 from foresight.schedule.lp import Economics, LPResult, Strata, make_strata, solve_lp
 from foresight.schedule.policies import Targets
-from foresight.schedule.spatial import SpatialRules
 from foresight.versions import library_versions
 from foresight.zonal import zonal
 
@@ -395,11 +394,7 @@ def monte_carlo_table(
     of the target are reported per period. The seed is ``disturbance.seed``.
     """
     d = scenario.disturbance
-    spatial = None
-    if adjacency is not None:
-        spatial = SpatialRules(
-            adjacency, scenario.harvest.greenup_years, scenario.harvest.max_opening_ha or 0.0
-        )
+    spatial = spatial_rules(scenario.harvest, adjacency)
     targets = tuple(flow.simulation.harvest_m3)
     rng = np.random.default_rng(d.seed)
     h, gs = [], []
@@ -540,11 +535,7 @@ def lp_schedule(
     in which the LP cuts the stratum's area, and the scheduler then takes the LP's harvest of
     each period as its target, planned stands first. The rules the LP does not model (spatial
     rules, cover targets, disturbance) are applied here, so the gap shows what they cost."""
-    spatial = None
-    if adjacency is not None:
-        spatial = SpatialRules(
-            adjacency, scenario.harvest.greenup_years, scenario.harvest.max_opening_ha or 0.0
-        )
+    spatial = spatial_rules(scenario.harvest, adjacency)
     P = periods.count
     planned = np.full(arrays.n, P + 1, dtype=np.int64)
     area = arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha

@@ -22,6 +22,7 @@ __all__ = [
     "run_targets",
     "schedule",
     "simulate",
+    "spatial_rules",
     "stable_periods_for",
 ]
 
@@ -40,13 +41,7 @@ def schedule(
 
     With ``harvest.greenup_years`` > 0 the ``adjacency`` graph carries the spatial rules.
     """
-    spatial = None
-    if harvest_cfg.spatial:
-        if adjacency is None:
-            raise ValueError("spatial rules need the adjacency graph")
-        spatial = SpatialRules(
-            adjacency, harvest_cfg.greenup_years, harvest_cfg.max_opening_ha or 0.0
-        )
+    spatial = spatial_rules(harvest_cfg, adjacency)
     common = {
         "priority": harvest_cfg.priority,
         "max_area_ha": harvest_cfg.max_area_ha_per_period,
@@ -76,3 +71,12 @@ def schedule(
     if flow_cfg.policy == "nondeclining":
         return find_nondeclining(stands, curves, periods, flow_cfg.ending_stock, **common)
     return find_even_flow(stands, curves, periods, flow_cfg.band, flow_cfg.ending_stock, **common)
+
+
+def spatial_rules(harvest_cfg, adjacency) -> SpatialRules | None:  # noqa: ANN001
+    """The green-up and opening rules of ``[harvest]`` over the graph (None without them)."""
+    if not harvest_cfg.spatial:
+        return None
+    if adjacency is None:
+        raise ValueError("spatial rules need the adjacency graph")
+    return SpatialRules(adjacency, harvest_cfg.greenup_years, harvest_cfg.max_opening_ha or 0.0)

@@ -37,6 +37,24 @@ class FlowResult:
     details: dict[str, float] = field(default_factory=dict)  # policy-specific figures
 
 
+def _run(rules: dict, level: float, **options) -> Simulation:
+    """One simulated horizon of the stands under the harvest rules every trial shares."""
+    return simulate(level_m3=level, **rules, **options)
+
+
+def _rules(stands, curves, periods, priority, max_area_ha, spatial, cover, disturbance):  # noqa: ANN001, ANN202
+    return {
+        "stands": stands,
+        "curves": curves,
+        "periods": periods,
+        "priority": priority,
+        "max_area_ha": max_area_ha,
+        "spatial": spatial,
+        "cover": cover,
+        "disturbance": disturbance,
+    }
+
+
 def find_even_flow(
     stands: StandArrays,
     curves: CurveSet,
@@ -57,23 +75,17 @@ def find_even_flow(
     over the last that many periods. With ``fixed`` the first periods take those harvests and
     the level applies to the periods after them (band not used).
     """
+    rules = _rules(stands, curves, periods, priority, max_area_ha, spatial, cover, disturbance)
 
     def trial(level: float, record: bool = False) -> Simulation:
         rule = Sequence(fixed, level) if fixed else EvenFlow(level, band)
-        return simulate(
-            stands,
-            curves,
-            periods,
+        return _run(
+            rules,
             level,
-            priority=priority,
-            max_area_ha=max_area_ha,
             ending_stock=ending_stock,
             record=record,
             rule=rule,
             stable_periods=stable_periods,
-            spatial=spatial,
-            cover=cover,
-            disturbance=disturbance,
         )
 
     # U: what the first free period could yield if every eligible stand were cut, within the
@@ -174,6 +186,7 @@ def find_step_down(
     periods at H0 followed by the step-down is; the longest such k is found by bisection too
     (holding longer is never easier).
     """
+    rules = _rules(stands, curves, periods, priority, max_area_ha, spatial, cover, disturbance)
     base = find_even_flow(
         stands,
         curves,
@@ -193,20 +206,13 @@ def find_step_down(
     def run(h0: float, hold: int, record: bool = False) -> Simulation:
         nonlocal steps
         steps += 1
-        return simulate(
-            stands,
-            curves,
-            periods,
+        return _run(
+            rules,
             h0,
-            priority=priority,
-            max_area_ha=max_area_ha,
             ending_stock=ending_stock,
             record=record,
             rule=StepDown(h0, hold, step, lt),
             stable_periods=stable_periods,
-            spatial=spatial,
-            cover=cover,
-            disturbance=disturbance,
         )
 
     def longest_hold(h0: float) -> int:
@@ -221,17 +227,10 @@ def find_step_down(
         return lo
 
     upper = float(
-        simulate(
-            stands,
-            curves,
-            periods,
+        _run(
+            rules,
             float("inf"),
-            priority=priority,
-            max_area_ha=max_area_ha,
             record=True,
-            spatial=spatial,
-            cover=cover,
-            disturbance=disturbance,
         ).harvest_m3[0]
     )
     lo, hi = lt, max(upper, lt)
@@ -278,18 +277,12 @@ def run_targets(
     disturbance: float = 0.0,
 ) -> FlowResult:
     """Explicit per-period targets: one run; shortfalls and the ending stock are reported."""
-    sim = simulate(
-        stands,
-        curves,
-        periods,
+    rules = _rules(stands, curves, periods, priority, max_area_ha, spatial, cover, disturbance)
+    sim = _run(
+        rules,
         0.0,
-        priority=priority,
-        max_area_ha=max_area_ha,
         record=True,
         rule=Targets(tuple(targets)),
-        spatial=spatial,
-        cover=cover,
-        disturbance=disturbance,
     )
     short = np.maximum(np.asarray(targets) - sim.harvest_m3, 0.0)
     missed = np.flatnonzero(short > 1e-6 * np.maximum(np.asarray(targets), 1.0))
@@ -337,6 +330,7 @@ def find_nondeclining(
     takes the highest level periods 2..P can hold (never below period 1), and so on. Each
     period's harvest is thus the most that can be held from then on without a decline.
     """
+    rules = _rules(stands, curves, periods, priority, max_area_ha, spatial, cover, disturbance)
     first = find_even_flow(
         stands,
         curves,
@@ -369,19 +363,12 @@ def find_nondeclining(
         steps += nxt.steps
         fixed.append(max(nxt.level_m3_per_period, fixed[-1]))
         last = nxt
-    final = simulate(
-        stands,
-        curves,
-        periods,
+    final = _run(
+        rules,
         fixed[0],
-        priority=priority,
-        max_area_ha=max_area_ha,
         ending_stock=ending_stock,
         record=True,
         rule=Sequence(tuple(fixed), fixed[-1]),
-        spatial=spatial,
-        cover=cover,
-        disturbance=disturbance,
     )
     if not final.feasible:
         raise RuntimeError(f"non-declining search ended infeasible ({final.fail_reason})")
