@@ -1139,7 +1139,9 @@ def _coerce(value: Any, ks: KeySpec, where: str) -> Any:
             raise ScenarioError(f"{where}: must be a non-empty string")
     elif ks.kind == "choice":
         if value not in ks.choices:
-            raise ScenarioError(f"{where}: choose one of: {', '.join(ks.choices)}")
+            near = difflib.get_close_matches(str(value), ks.choices, n=1)
+            hint = f" (did you mean {near[0]!r}?)" if near else ""
+            raise ScenarioError(f"{where}: choose one of: {', '.join(ks.choices)}{hint}")
     elif ks.kind == "bool":
         if not isinstance(value, bool):
             raise ScenarioError(f"{where}: must be true or false")

@@ -179,7 +179,9 @@ def check(scenario: Scenario, strict: bool = False) -> CheckResult:
     for offset, (name, values) in enumerate(extra.items()):
         stands.insert(at + offset, name, values)
     stands = stands[[c for c in stands.columns if c != geom] + [geom]]
-    return CheckResult(stands, inventory.report, netdown)
+    result = CheckResult(stands, inventory.report, netdown)
+    cover_rules(scenario, result)  # a target naming an unknown zone is an input error now
+    return result
 
 
 def _where_fields(stands: gpd.GeoDataFrame, scenario: Scenario) -> dict[str, pd.Series]:
@@ -202,7 +204,7 @@ def _read_overlay(step: NetdownStep, crs: pyproj.CRS) -> gpd.GeoDataFrame:
     assert step.layer is not None
     where = f"[[landbase.steps]] #{step.number} {step.label!r}"
     try:
-        frame, layer = read_layer(step.layer, step.layer_name)
+        frame, layer = read_layer(step.layer, step.layer_name, "layer_name", "overlay layer")
     except InputError as exc:
         raise NetdownError(f"{where}: {exc}") from None
     if frame.crs is None:
@@ -339,7 +341,7 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
         scenario.landbase.write_harvestable_layer,
         ltsy,
         openings,
-        lp_record(lp, flow, scenario.flow.objective),
+        lp_record(lp, flow, scenario),
         cover_table,
         monte_carlo,
     )
@@ -488,8 +490,10 @@ def harvest_lp(
     zones = pd.factorize(checked.stands["zone"].fillna("").to_numpy())[0]
     strata = make_strata(arrays, zones, f.lp_site_class_m, f.lp_age_class_years)
     policy = "nondeclining" if f.policy == "nondeclining" else "even"
+    # beside a rule-based run the LP bounds the schedule's total volume under the same flow rows
+    objective = f.objective if f.method == "optimize" else "max-volume"
     econ = None
-    if f.objective == "max-npv":
+    if objective == "max-npv":
         sp = [scenario.species[c] for c in curves.codes]
         econ = Economics(
             np.array([s.price_per_m3 for s in sp], dtype=np.float64),
@@ -503,7 +507,7 @@ def harvest_lp(
         curves,
         periods,
         strata,
-        f.objective,
+        objective,
         policy,
         f.band,
         f.ending_stock,
@@ -569,6 +573,11 @@ def lp_schedule(
     )
     need = scenario.flow.ending_stock * sim.initial_stock_m3
     if sim.ending_stock_m3 < need * (1 - 1e-6):
+        log.warning(
+            "the optimised schedule, mapped onto stands, leaves the ending growing stock "
+            "%.2f%% below flow.ending_stock",
+            100 * (1 - sim.ending_stock_m3 / need),
+        )
         why += (
             f"; on the stands the ending growing stock is {sim.ending_stock_m3:,.0f} m3, "
             f"{100 * (1 - sim.ending_stock_m3 / need):.2f}% short of flow.ending_stock"
@@ -579,17 +588,29 @@ def lp_schedule(
     )
 
 
-def lp_record(lp: LPResult | None, flow: FlowResult, objective: str) -> dict | None:
+def lp_record(lp: LPResult | None, flow: FlowResult, scenario: Scenario) -> dict | None:
     """What run.json says of the LP: solver, status, size, objective, duals, gap."""
     if lp is None:
         return None
     total = float(lp.harvest_m3.sum())
     got = float(flow.simulation.harvest_m3.sum())
+    f = scenario.flow
+    objective = f.objective if f.method == "optimize" else "max-volume"
     return {
         "solver": f"HiGHS {library_versions().get('highspy', '')}",
         "status": lp.status,
         "objective": lp.objective,
+        "objective_name": objective,
         "objective_unit": "currency (net present value)" if objective == "max-npv" else "m3",
+        "leaves_out": [
+            name
+            for name, on in (
+                ("spatial rules", scenario.harvest.spatial),
+                ("cover targets", bool(scenario.cover)),
+                ("disturbance", scenario.disturbance.annual_rate > 0),
+            )
+            if on
+        ],
         "seconds": round(lp.seconds, 3),
         "strata": lp.strata,
         "columns": lp.columns,

@@ -254,7 +254,7 @@ def test_harvested_area_never_exceeds_harvestable(tmp_path):
 @pytest.mark.parametrize(
     ("step", "pattern"),
     [
-        ({"layer": "nowhere.gpkg"}, r"#1 'bad': .*nowhere.gpkg: stand layer file not found"),
+        ({"layer": "nowhere.gpkg"}, r"#1 'bad': .*nowhere.gpkg: overlay layer file not found"),
         ({"layer": "stands.gpkg", "layer_name": "roads"}, r"#1 'bad': .*no layer 'roads'"),
         (
             {"layer": "stands.gpkg", "layer_name": "streams"},

@@ -73,7 +73,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def _setup_logging(verbose: int, quiet: bool) -> None:
-    level = logging.WARNING if quiet else (logging.DEBUG if verbose > 1 else logging.INFO)
+    level = logging.ERROR if quiet else (logging.DEBUG if verbose > 1 else logging.INFO)
     handler = logging.StreamHandler(sys.stderr)
     handler.setFormatter(logging.Formatter("foresight: %(message)s"))
     logger = logging.getLogger("foresight")

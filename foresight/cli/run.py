@@ -58,6 +58,11 @@ def handle(args: argparse.Namespace) -> int:
                 f"{result.lp['total_harvest_m3'] / (len(wf) * scenario.scenario.period_years):,.0f}"
                 f" m3/year over the horizon; the schedule is {100 * gap:.2f}% below it"
             )
+            if result.lp["leaves_out"]:
+                print(
+                    f"  (the LP leaves out {', '.join(result.lp['leaves_out'])}; "
+                    "the schedule keeps them)"
+                )
         ltsy = result.long_term_sustained_yield
         print(
             f"long-term sustained yield for comparison: {ltsy['at_culmination']:,.0f} m3/year "

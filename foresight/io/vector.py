@@ -12,10 +12,15 @@ from pyogrio.errors import DataLayerError, DataSourceError
 from foresight.errors import InventoryError
 
 
-def read_layer(path: Path, layer: str | None) -> tuple[gpd.GeoDataFrame, str]:
-    """Read one vector layer of any format GDAL reads; return it with the layer name used."""
+def read_layer(
+    path: Path, layer: str | None, key: str = "inventory.layer", what: str = "stand layer"
+) -> tuple[gpd.GeoDataFrame, str]:
+    """Read one vector layer of any format GDAL reads; return it with the layer name used.
+
+    ``key`` and ``what`` name the scenario key and the kind of file in messages.
+    """
     if not path.exists():
-        raise InventoryError(f"{path}: stand layer file not found (inventory.path)")
+        raise InventoryError(f"{path}: {what} file not found")
     try:
         layers = [str(name) for name in pyogrio.list_layers(path)[:, 0]]
     except (DataSourceError, OSError) as exc:
@@ -26,12 +31,12 @@ def read_layer(path: Path, layer: str | None) -> tuple[gpd.GeoDataFrame, str]:
         if len(layers) > 1:
             raise InventoryError(
                 f"{path}: the file holds {len(layers)} layers ({', '.join(layers)}); "
-                "name one with inventory.layer"
+                f"name one with {key}"
             )
         layer = layers[0]
     elif layer not in layers:
         raise InventoryError(
-            f"{path}: no layer {layer!r} (inventory.layer); the file holds: {', '.join(layers)}"
+            f"{path}: no layer {layer!r} ({key}); the file holds: {', '.join(layers)}"
         )
     try:
         frame = pyogrio.read_dataframe(path, layer=layer, use_arrow=True)

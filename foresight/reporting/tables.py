@@ -71,7 +71,9 @@ def harvests_layer(
     )
     agg = ev.groupby(["period", "stand"], sort=True).sum().reset_index()
     pos = agg["stand"].to_numpy()
-    stand_area = stands["area_ha"].to_numpy()[pos]
+    # a cut is partial when it takes less than the stand's harvestable area
+    limit = "harvestable_ha" if "harvestable_ha" in stands else "area_ha"
+    stand_area = stands[limit].to_numpy()[pos]
     area = agg["area_ha"].to_numpy()
     frame = pd.DataFrame(
         {

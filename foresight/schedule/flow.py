@@ -138,7 +138,7 @@ def _why_top(sim: Simulation, max_area_ha: float | None) -> str:
 
 
 def _why(sim: Simulation, level: float, periods: Periods, ending_stock: float) -> str:
-    higher = f"a level of {level:,.0f} m3 per period"
+    higher = f"any level above {level:,.0f} m3 per period"
     if sim.fail_period is not None:
         year = periods.start_years[sim.fail_period - 1]
         what = (
@@ -146,7 +146,8 @@ def _why(sim: Simulation, level: float, periods: Periods, ending_stock: float) -
             if sim.fail_reason.startswith("eligible")
             else "reaches the area cap (harvest.max_area_ha_per_period)"
         )
-        return f"{higher} {what} in period {sim.fail_period} (from {year})"
+        what = what.replace("runs", "run").replace("reaches", "reach")
+        return f"{higher} would {what} in period {sim.fail_period} (from {year})"
     if sim.fail_reason.startswith("growing stock on the harvestable"):
         return f"at {higher} the {sim.fail_reason}"
     return (
