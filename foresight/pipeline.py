@@ -487,7 +487,7 @@ def harvest_lp(
 ) -> tuple[LPResult, Strata]:
     """The Model II harvest LP of the scenario (aspatial), solved with HiGHS."""
     f = scenario.flow
-    zones = pd.factorize(checked.stands["zone"].fillna("").to_numpy())[0]
+    zones = zone_codes(checked.stands)
     strata = make_strata(arrays, zones, f.lp_site_class_m, f.lp_age_class_years)
     policy = "nondeclining" if f.policy == "nondeclining" else "even"
     # beside a rule-based run the LP bounds the schedule's total volume under the same flow rows
@@ -513,6 +513,8 @@ def harvest_lp(
         f.ending_stock,
         scenario.harvest.max_area_ha_per_period,
         econ,
+        cover_rules(scenario, checked),
+        zones,
     )
     log.info(
         "harvest LP: %s, %d strata, %d columns, %d rows, %.1f s",
@@ -606,7 +608,6 @@ def lp_record(lp: LPResult | None, flow: FlowResult, scenario: Scenario) -> dict
             name
             for name, on in (
                 ("spatial rules", scenario.harvest.spatial),
-                ("cover targets", bool(scenario.cover)),
                 ("disturbance", scenario.disturbance.annual_rate > 0),
             )
             if on

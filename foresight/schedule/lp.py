@@ -37,6 +37,7 @@ from scipy.sparse import coo_matrix
 from foresight.errors import InputError
 from foresight.growth.economics import growth_factor
 from foresight.projection import CurveSet, Periods, StandArrays
+from foresight.schedule.cover import CoverRules
 
 INF = highspy.kHighsInf
 
@@ -57,6 +58,8 @@ class Strata:
     group_site: NDArray
     group_min_age: NDArray
     group_delay: NDArray
+    zone: NDArray  # zone code of each stratum
+    group_zone: NDArray  # zone code of each regeneration group
 
     @property
     def n(self) -> int:
@@ -97,6 +100,7 @@ def make_strata(
             "sp": stands.species_idx[first],
             "si": site_cls[first],
             "min": stands.min_harvest_age[first],
+            "zone": zone_codes[first],  # regrowth stays in its zone (cover targets)
         }
     )
     group = gkey.groupby(list(gkey.columns), sort=True).ngroup().to_numpy()
@@ -116,6 +120,8 @@ def make_strata(
         group_site=site[gfirst],
         group_min_age=stands.min_harvest_age[first][gfirst],
         group_delay=stands.regen_delay_years[first][gfirst],
+        zone=np.asarray(zone_codes)[first],
+        group_zone=np.asarray(zone_codes)[first][gfirst],
     )
 
 
@@ -172,6 +178,8 @@ def solve_lp(
     ending_stock: float = 1.0,
     max_area_ha: float | None = None,
     economics: Economics | None = None,
+    cover: CoverRules | None = None,
+    stand_zone: NDArray | None = None,
 ) -> LPResult:
     """Build the Model II LP of the module docstring and solve it with HiGHS."""
     t0 = time.perf_counter()
@@ -186,8 +194,10 @@ def solve_lp(
         ending_stock,
         max_area_ha,
         economics,
+        cover,
+        stand_zone,
     )
-    return solve_highs(model, periods, t0, ending_stock, max_area_ha, policy)
+    return solve_highs(model, periods, t0, ending_stock, max_area_ha, policy, cover is not None)
 
 
 def build_lp(
@@ -201,6 +211,8 @@ def build_lp(
     ending_stock: float = 1.0,
     max_area_ha: float | None = None,
     economics: Economics | None = None,
+    cover: CoverRules | None = None,
+    stand_zone: NDArray | None = None,
 ) -> LPModel:
     """The Model II LP of the module docstring as a matrix model."""
     P, L, off = periods.count, float(periods.period_years), periods.offset_years
@@ -298,6 +310,39 @@ def build_lp(
     )
     idx = np.flatnonzero(end_a > 0)
     ending_row = add_row(idx, end_a[idx], ending_stock * initial - reserved_end, INF)
+    if cover is not None:  # old- and young-forest shares per zone at each harvest moment
+        zone_col = np.where(
+            xs,
+            strata.zone[np.clip(a_, 0, max(S - 1, 0))],
+            strata.group_zone[np.clip(a_, 0, max(G - 1, 0))],
+        )
+        x_age0 = strata.age_years[np.clip(a_, 0, max(S - 1, 0))]
+        y_delay = strata.group_delay[np.clip(a_, 0, max(G - 1, 0))]
+        reserved = stands.area_ha - (
+            stands.harvestable_ha if stands.harvestable_ha is not None else stands.area_ha
+        )
+        sz = stand_zone if stand_zone is not None else np.zeros(stands.n, dtype=np.int64)
+        for rule in cover.rules:  # a handful of rules x periods
+            inz = np.ones(nvar, bool) if rule.zone < 0 else zone_col == rule.zone
+            rz = np.ones(stands.n, bool) if rule.zone < 0 else sz == rule.zone
+            for p in range(1, P + 1):
+                t = (p - 1) * L + off
+                # standing at p's harvest moment, after its cut: existing area not yet cut,
+                # and regrowth established at or before p and not cut again by then
+                x_up = xs & ((b_ > p) | (b_ == 0))
+                y_up = ys & (b_ <= p) & ((c_ > p) | (c_ == 0))
+                age = np.where(xs, x_age0 + t, (p - b_) * L - y_delay)
+                r_age = stands.age_years + t
+                if rule.kind == "old":
+                    hit = (x_up | y_up) & inz & (age >= rule.age_years - 1e-9)
+                    fixed = float(reserved[rz & (r_age >= rule.age_years - 1e-9)].sum())
+                    need = rule.share * cover.area_of(rule) - fixed
+                    add_row(np.flatnonzero(hit), np.ones(int(hit.sum())), need, INF)
+                else:
+                    hit = (x_up | y_up) & inz & (age < rule.age_years - 1e-9)
+                    fixed = float(reserved[rz & (r_age < rule.age_years - 1e-9)].sum())
+                    room = rule.share * cover.area_of(rule) - fixed
+                    add_row(np.flatnonzero(hit), np.ones(int(hit.sum())), -INF, room)
     if max_area_ha is not None:
         for p in range(1, P + 1):
             idx = np.flatnonzero(period_cut == p)
@@ -372,6 +417,7 @@ def solve_highs(
     ending_stock: float,
     max_area_ha: float | None,
     policy: str,
+    cover: bool = False,
 ) -> LPResult:
     """Solve with HiGHS (interior point for large models); explain an infeasible model."""
     A = model.matrix
@@ -396,7 +442,7 @@ def solve_highs(
     h.run()
     status = h.modelStatusToString(h.getModelStatus())
     if h.getModelStatus() != highspy.HighsModelStatus.kOptimal:
-        raise InputError(explain_infeasible(status, ending_stock, max_area_ha, policy))
+        raise InputError(explain_infeasible(status, ending_stock, max_area_ha, policy, cover))
     sol = h.getSolution()
     x = np.asarray(sol.col_value)
     dual = np.asarray(sol.row_dual)
@@ -430,10 +476,16 @@ def reserved_stock(stands: StandArrays, curves: CurveSet, periods: Periods) -> f
 
 
 def explain_infeasible(
-    status: str, ending_stock: float, max_area_ha: float | None, policy: str
+    status: str,
+    ending_stock: float,
+    max_area_ha: float | None,
+    policy: str,
+    cover: bool = False,
 ) -> str:
     """Which constraint families can make the harvest LP infeasible, and what to relax."""
     hints = [f"flow.ending_stock = {ending_stock:g} (try a lower share)"]
+    if cover:
+        hints.append("the [[cover]] targets (the forest may not hold them even uncut)")
     if max_area_ha is not None:
         hints.append(f"harvest.max_area_ha_per_period = {max_area_ha:g}")
     if policy in ("even", "nondeclining"):

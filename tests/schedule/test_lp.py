@@ -149,3 +149,47 @@ def test_max_npv_on_bare_land_is_the_faustmann_value():
     T = np.arange(1, 30) * L
     faustmann = ((p * CURVE.volume_m3_ha(T, 20.0) - c) / np.expm1(r * T)).max()
     assert lp.objective == pytest.approx(faustmann, rel=1e-4)
+
+
+def test_lp_keeps_cover_targets_and_still_bounds_the_rules():
+    # With an old-forest target on both sides, the LP (stand-level strata) is still at least
+    # the rule-based level; an impossible target makes the LP infeasible, and says which rows.
+    from foresight.schedule.cover import CoverRule, CoverRules
+
+    st = forest()
+    zones = np.zeros(st.n, dtype=np.int64)
+    cover = CoverRules((CoverRule(-1, "*", "old", 120.0, 0.25),), np.array([st.area_ha.sum()]))
+    rules = find_even_flow(st, CURVES, PERIODS, ending_stock=0.5, cover=cover)
+    lp = solve_lp(
+        st,
+        CURVES,
+        PERIODS,
+        stand_strata(st),
+        "max-even-flow",
+        "even",
+        0.0,
+        0.5,
+        None,
+        None,
+        cover,
+        zones,
+    )
+    assert lp.objective >= rules.level_m3_per_period * (1 - 1e-6)
+    free = solve_lp(st, CURVES, PERIODS, stand_strata(st), "max-even-flow", "even", 0.0, 0.5)
+    assert free.objective >= lp.objective * (1 - 1e-9)  # a target never helps
+    strict = CoverRules((CoverRule(-1, "*", "old", 120.0, 0.95),), np.array([st.area_ha.sum()]))
+    with pytest.raises(InputError, match=r"infeasible.*\[\[cover\]\] targets"):
+        solve_lp(
+            st,
+            CURVES,
+            PERIODS,
+            stand_strata(st),
+            "max-even-flow",
+            "even",
+            0.0,
+            0.5,
+            None,
+            None,
+            strict,
+            zones,
+        )
