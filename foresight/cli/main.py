@@ -41,7 +41,8 @@ def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="foresight",
         description="Timber supply projection: grow a stand layer forward, schedule harvests "
-        "under an even-flow policy, write GeoPackage layers and wood-flow tables.",
+        "under a flow policy and spatial, cover and land-base rules, write GeoPackage layers and "
+        "wood-flow tables.",
     )
     parser.add_argument("--version", action=_VersionAction)
     common = argparse.ArgumentParser(add_help=False)
@@ -55,7 +56,8 @@ def build_parser() -> argparse.ArgumentParser:
     common.add_argument(
         "-q", "--quiet", action="store_true", help="print errors only (no progress, no summary)"
     )
-    common.add_argument(
+    scenario_opts = argparse.ArgumentParser(add_help=False, parents=[common])
+    scenario_opts.add_argument(
         "--set",
         dest="overrides",
         action="append",
@@ -63,12 +65,13 @@ def build_parser() -> argparse.ArgumentParser:
         metavar="KEY=VALUE",
         help="override a scenario key, e.g. --set flow.band=0.1 (repeatable)",
     )
-    common.add_argument(
+    scenario_opts.add_argument(
         "--strict", action="store_true", help="reject invalid geometries instead of repairing them"
     )
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
-    for module in (run_cmd, check_cmd, curves_cmd, fit_cmd):
-        module.add_parser(sub, common)
+    for module in (run_cmd, check_cmd, curves_cmd):  # commands that read a scenario
+        module.add_parser(sub, scenario_opts)
+    fit_cmd.add_parser(sub, common)
     return parser
 
 
