@@ -181,6 +181,17 @@ def check(scenario: Scenario, strict: bool = False) -> CheckResult:
     stands = stands[[c for c in stands.columns if c != geom] + [geom]]
     result = CheckResult(stands, inventory.report, netdown)
     cover_rules(scenario, result)  # a target naming an unknown zone is an input error now
+    opening = scenario.harvest.max_opening_ha
+    if scenario.harvest.spatial and opening:
+        big = netdown.harvestable_ha > opening * (1 + 1e-9)
+        if big.any():
+            log.warning(
+                "harvest.max_opening_ha = %g: %d stands (%.0f ha harvestable) are larger and "
+                "will never be cut; raise it or split those stands",
+                opening,
+                int(big.sum()),
+                float(netdown.harvestable_ha[big].sum()),
+            )
     return result
 
 
@@ -269,17 +280,6 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
         adjacency = None
         if scenario.harvest.spatial:
             adjacency = stand_adjacency(scenario, inventory)
-            big = (
-                arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
-            ) > (scenario.harvest.max_opening_ha or np.inf)
-            if big.any():
-                log.warning(
-                    "%d stands (%.0f ha) are larger than harvest.max_opening_ha = %g "
-                    "and will never be cut",
-                    big.sum(),
-                    arrays.area_ha[big].sum(),
-                    scenario.harvest.max_opening_ha,
-                )
         lp = None
         fcfg = scenario.flow
         if fcfg.method == "optimize" or (fcfg.lp_bound and fcfg.policy in ("even", "nondeclining")):
@@ -515,6 +515,7 @@ def harvest_lp(
         econ,
         cover_rules(scenario, checked),
         zones,
+        scenario.disturbance.annual_rate,
     )
     log.info(
         "harvest LP: %s, %d strata, %d columns, %d rows, %.1f s",
@@ -608,7 +609,12 @@ def lp_record(lp: LPResult | None, flow: FlowResult, scenario: Scenario) -> dict
             name
             for name, on in (
                 ("spatial rules", scenario.harvest.spatial),
-                ("disturbance", scenario.disturbance.annual_rate > 0),
+                (
+                    "the exact timing of disturbed regrowth (off by half a period unless "
+                    "scenario.harvest_timing = 'midpoint')",
+                    scenario.disturbance.annual_rate > 0
+                    and scenario.scenario.harvest_timing != "midpoint",
+                ),
             )
             if on
         ],

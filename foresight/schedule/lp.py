@@ -180,6 +180,7 @@ def solve_lp(
     economics: Economics | None = None,
     cover: CoverRules | None = None,
     stand_zone: NDArray | None = None,
+    disturbance: float = 0.0,
 ) -> LPResult:
     """Build the Model II LP of the module docstring and solve it with HiGHS."""
     t0 = time.perf_counter()
@@ -196,6 +197,7 @@ def solve_lp(
         economics,
         cover,
         stand_zone,
+        disturbance,
     )
     return solve_highs(model, periods, t0, ending_stock, max_area_ha, policy, cover is not None)
 
@@ -213,6 +215,7 @@ def build_lp(
     economics: Economics | None = None,
     cover: CoverRules | None = None,
     stand_zone: NDArray | None = None,
+    disturbance: float = 0.0,
 ) -> LPModel:
     """The Model II LP of the module docstring as a matrix model."""
     P, L, off = periods.count, float(periods.period_years), periods.offset_years
@@ -256,6 +259,21 @@ def build_lp(
     h_col = nvar + np.arange(P)  # H_p variables
     cols_idx = np.arange(nvar)
 
+    # expected disturbance: a share dist of the standing area each period (after its harvest)
+    dist = 1.0 - (1.0 - disturbance) ** L if disturbance > 0 else 0.0
+    keep = 1.0 - dist
+    start = np.where(xs, 0, b_)  # exposed from the period after establishment (x: from 1)
+    surv_cut = np.where(
+        period_cut_all(xs, b_, c_) > 0,
+        keep ** np.maximum(period_cut_all(xs, b_, c_) - start - 1, 0),
+        0.0,
+    )
+    surv_end = keep ** (P - start)
+
+    def surv_at(p: int) -> NDArray:
+        """Share of each column's area still standing at period p's harvest moment."""
+        return keep ** np.maximum(p - start - 1, 0)
+
     # rows: [0, S) stratum areas; then G*P regeneration balances; then P harvest definitions
     reg0 = S
     harv0 = S + G * P
@@ -274,12 +292,19 @@ def build_lp(
     # the balance of (g, c_); existing area cut in b_ enters the balance of (group, b_)
     put(reg0 + a_[ys] * P + (b_[ys] - 1), cols_idx[ys], 1.0)
     yi = ys & (c_ > 0)
-    put(reg0 + a_[yi] * P + (c_[yi] - 1), cols_idx[yi], -1.0)
+    put(reg0 + a_[yi] * P + (c_[yi] - 1), cols_idx[yi], -surv_cut[yi])
     xi = xs & (b_ > 0)
-    put(reg0 + strata.group[a_[xi]] * P + (b_[xi] - 1), cols_idx[xi], -1.0)
+    put(reg0 + strata.group[a_[xi]] * P + (b_[xi] - 1), cols_idx[xi], -surv_cut[xi])
+    if dist > 0:  # disturbed standing area regrows in its group from that period
+        group_of = np.where(xs, strata.group[np.clip(a_, 0, max(S - 1, 0))], a_)
+        last = np.where(period_cut_all(xs, b_, c_) > 0, period_cut_all(xs, b_, c_), P + 1)
+        for k in range(1, P + 1):  # periods
+            exposed = (k > start) & (k < last)
+            frac = keep ** (k - start[exposed] - 1) * dist
+            put(reg0 + group_of[exposed] * P + (k - 1), cols_idx[exposed], -frac)
     period_cut = np.where(xs, b_, c_)  # period in which a column cuts (0: none)
     hv = (period_cut > 0) & (vol_a > 0)
-    put(harv0 + period_cut[hv] - 1, cols_idx[hv], vol_a[hv])  # harvest of each period ...
+    put(harv0 + period_cut[hv] - 1, cols_idx[hv], vol_a[hv] * surv_cut[hv])  # harvest ...
     put(harv0 + np.arange(P), h_col, -1.0)  # ... minus H_p is 0
     lo = [*strata.area_ha, *np.zeros(G * P), *np.zeros(P)]
     hi = [*strata.area_ha, *np.zeros(G * P), *np.zeros(P)]
@@ -301,7 +326,7 @@ def build_lp(
         else:
             flow_rows.append(add_row(pair, np.array([1.0, -(1 - band)]), 0.0, INF))
             flow_rows.append(add_row(pair, np.array([1.0, -(1 + band)]), -INF, 0.0))
-    reserved_end = reserved_stock(stands, curves, periods)
+    reserved_end = reserved_stock(stands, curves, periods, dist)
     initial = float(
         np.dot(
             curves.volume_m3_ha(stands.species_idx, stands.age_years, stands.site_index),
@@ -309,7 +334,9 @@ def build_lp(
         )
     )
     idx = np.flatnonzero(end_a > 0)
-    ending_row = add_row(idx, end_a[idx], ending_stock * initial - reserved_end, INF)
+    ending_row = add_row(
+        idx, end_a[idx] * surv_end[idx], ending_stock * initial - reserved_end, INF
+    )
     if cover is not None:  # old- and young-forest shares per zone at each harvest moment
         zone_col = np.where(
             xs,
@@ -332,21 +359,40 @@ def build_lp(
                 x_up = xs & ((b_ > p) | (b_ == 0))
                 y_up = ys & (b_ <= p) & ((c_ > p) | (c_ == 0))
                 age = np.where(xs, x_age0 + t, (p - b_) * L - y_delay)
-                r_age = stands.age_years + t
                 if rule.kind == "old":
                     hit = (x_up | y_up) & inz & (age >= rule.age_years - 1e-9)
-                    fixed = float(reserved[rz & (r_age >= rule.age_years - 1e-9)].sum())
+                    fixed = reserved_cover(
+                        reserved[rz],
+                        stands.age_years[rz],
+                        p,
+                        L,
+                        off,
+                        dist,
+                        stands.regen_delay_years[rz],
+                        rule,
+                    )
                     need = rule.share * cover.area_of(rule) - fixed
-                    add_row(np.flatnonzero(hit), np.ones(int(hit.sum())), need, INF)
+                    idx = np.flatnonzero(hit)
+                    add_row(idx, surv_at(p)[idx], need, INF)
                 else:
                     hit = (x_up | y_up) & inz & (age < rule.age_years - 1e-9)
-                    fixed = float(reserved[rz & (r_age < rule.age_years - 1e-9)].sum())
+                    fixed = reserved_cover(
+                        reserved[rz],
+                        stands.age_years[rz],
+                        p,
+                        L,
+                        off,
+                        dist,
+                        stands.regen_delay_years[rz],
+                        rule,
+                    )
                     room = rule.share * cover.area_of(rule) - fixed
-                    add_row(np.flatnonzero(hit), np.ones(int(hit.sum())), -INF, room)
+                    idx = np.flatnonzero(hit)
+                    add_row(idx, surv_at(p)[idx], -INF, room)
     if max_area_ha is not None:
         for p in range(1, P + 1):
             idx = np.flatnonzero(period_cut == p)
-            add_row(idx, np.ones(len(idx)), -INF, max_area_ha)
+            add_row(idx, surv_cut[idx], -INF, max_area_ha)
     rows_i, rows_j, vals = ri, cj, vv
     ncol = nvar + P
     cost = np.zeros(ncol)
@@ -466,13 +512,47 @@ def solve_highs(
     )
 
 
-def reserved_stock(stands: StandArrays, curves: CurveSet, periods: Periods) -> float:
+def period_cut_all(xs: NDArray, b_: NDArray, c_: NDArray) -> NDArray:
+    """Period in which each column cuts (0: never)."""
+    return np.where(xs, b_, c_)
+
+
+def reserved_cover(
+    area: NDArray, age0: NDArray, p: int, L: float, off: float, dist: float, delay: NDArray, rule
+) -> float:  # noqa: ANN001
+    """Expected old (or young) area at period p's harvest moment outside the harvestable land
+    base, under the expected disturbance: never disturbed since the start, or last disturbed
+    in period k < p (at its midpoint) and regrown since."""
+    t = (p - 1) * L + off
+    keep = 1.0 - dist
+
+    def hits(age: NDArray) -> NDArray:
+        return age >= rule.age_years - 1e-9 if rule.kind == "old" else age < rule.age_years - 1e-9
+
+    total = float(np.dot(area, hits(age0 + t))) * keep ** (p - 1)
+    for k in range(1, p):  # periods before p
+        share = dist * keep ** (p - 1 - k)
+        total += share * float(np.dot(area, hits((p - k) * L + off - L / 2 - delay)))
+    return total
+
+
+def reserved_stock(
+    stands: StandArrays, curves: CurveSet, periods: Periods, dist: float = 0.0
+) -> float:
     """Volume at the horizon's end on the area outside the harvestable land base."""
     if stands.harvestable_ha is None:
         return 0.0
     area = stands.area_ha - stands.harvestable_ha
-    age = stands.age_years + periods.count * periods.period_years
-    return float(np.dot(curves.volume_m3_ha(stands.species_idx, age, stands.site_index), area))
+    P, L = periods.count, periods.period_years
+    age = stands.age_years + P * L
+    keep = 1.0 - dist
+    v = curves.volume_m3_ha(stands.species_idx, age, stands.site_index)
+    total = float(np.dot(v, area)) * keep**P
+    for k in range(1, P + 1 if dist > 0 else 1):  # last disturbed in period k
+        regrown = (P - k) * L + L / 2 - stands.regen_delay_years
+        v = curves.volume_m3_ha(stands.species_idx, regrown, stands.site_index)
+        total += dist * keep ** (P - k) * float(np.dot(v, area))
+    return total
 
 
 def explain_infeasible(

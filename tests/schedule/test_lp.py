@@ -193,3 +193,94 @@ def test_lp_keeps_cover_targets_and_still_bounds_the_rules():
             strict,
             zones,
         )
+
+
+def test_lp_with_expected_disturbance_bounds_the_rule_based_schedule():
+    # Same expected disturbance (0.5% a year at each period's midpoint) and the same area
+    # outside the harvestable land base on both sides: the LP (stand-level strata) is still
+    # at least the rule-based level, and disturbance never raises it.
+    base = forest()
+    harvestable = base.area_ha * np.where(np.arange(base.n) % 3 == 0, 0.5, 1.0)
+    st = StandArrays(
+        base.species_idx,
+        base.site_index,
+        base.age_years,
+        base.area_ha,
+        base.min_harvest_age,
+        base.regen_delay_years,
+        base.id_rank,
+        harvestable,
+    )
+    rules = find_even_flow(st, CURVES, PERIODS, ending_stock=0.6, disturbance=0.005)
+    lp = solve_lp(
+        st,
+        CURVES,
+        PERIODS,
+        stand_strata(st),
+        "max-even-flow",
+        "even",
+        0.0,
+        0.6,
+        None,
+        None,
+        None,
+        None,
+        0.005,
+    )
+    assert lp.objective >= rules.level_m3_per_period * (1 - 1e-6)
+    calm = solve_lp(st, CURVES, PERIODS, stand_strata(st), "max-even-flow", "even", 0.0, 0.6)
+    assert calm.objective >= lp.objective * (1 - 1e-9)
+
+
+def test_lp_disturbance_accounting_matches_the_simulation():
+    # With monotone yield curves no harvest keeps the most standing volume, so the largest
+    # ending-stock requirement the LP can meet must equal the simulation's expected ending
+    # stock without harvest (the two disturbance bookkeepings agree, reserved area included).
+    from foresight.schedule import simulate
+
+    base = forest(n=30)
+    harvestable = base.area_ha * np.where(np.arange(base.n) % 2 == 0, 0.4, 1.0)
+    st = StandArrays(
+        base.species_idx,
+        base.site_index,
+        base.age_years,
+        base.area_ha,
+        base.min_harvest_age,
+        base.regen_delay_years,
+        base.id_rank,
+        harvestable,
+    )
+    calm = simulate(st, CURVES, PERIODS, 0.0, record=True, disturbance=0.01)
+    ratio = calm.ending_stock_m3 / calm.initial_stock_m3
+    ok = solve_lp(
+        st,
+        CURVES,
+        PERIODS,
+        stand_strata(st),
+        "max-volume",
+        "none",
+        0.0,
+        ratio * (1 - 1e-6),
+        None,
+        None,
+        None,
+        None,
+        0.01,
+    )
+    assert ok.status == "Optimal"
+    with pytest.raises(InputError, match="infeasible"):
+        solve_lp(
+            st,
+            CURVES,
+            PERIODS,
+            stand_strata(st),
+            "max-volume",
+            "none",
+            0.0,
+            ratio * (1 + 1e-4),
+            None,
+            None,
+            None,
+            None,
+            0.01,
+        )
