@@ -6,7 +6,7 @@ The library API a notebook calls; the ``foresight`` command is a thin shell over
 from foresight._version import __version__
 from foresight.config import Scenario, load_scenario
 from foresight.errors import ForesightError, ForesightWarning, InputError
-from foresight.pipeline import CurvesResult, RunResult, check, curves, run
+from foresight.pipeline import CurvesResult, RunResult, check, compare, curves, run
 
 __all__ = [
     "CurvesResult",
@@ -17,6 +17,7 @@ __all__ = [
     "Scenario",
     "__version__",
     "check",
+    "compare",
     "curves",
     "load_scenario",
     "run",

@@ -10,12 +10,14 @@ every key, so a key is described once.
 
 from __future__ import annotations
 
+import copy
 import csv
 import difflib
 import math
+import re
 import tomllib
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -431,6 +433,7 @@ SECTIONS = (
     "landbase",
     "cover",
     "disturbance",
+    "sensitivity",
 )
 STEP_KINDS = ("where", "layer", "raster", "percent")
 _ALL_PARAMETERS = {k for keys in CURVE_PARAMETERS.values() for k in keys}
@@ -609,6 +612,8 @@ class Scenario:
     disturbance: DisturbanceConfig = field(default_factory=DisturbanceConfig)
     source: Path | None = None
     overrides: tuple[str, ...] = ()
+    # [[sensitivity]] cases: (name, the dotted keys it sets, the scenario it makes)
+    sensitivity: tuple[tuple[str, Mapping[str, Any], Scenario], ...] = ()
 
     def to_dict(self) -> dict[str, Any]:
         """The resolved scenario as plain JSON-able data (paths as strings)."""
@@ -624,7 +629,8 @@ class Scenario:
                 return {k: clean(v) for k, v in obj.items()}
             return obj
 
-        return clean(asdict(self))
+        cases = [{"name": n, "set": dict(sets)} for n, sets, _ in self.sensitivity]
+        return {**clean(asdict(replace(self, sensitivity=()))), "sensitivity": cases}
 
 
 # ----------------------------------------------------------------------------- parsing
@@ -793,6 +799,7 @@ def parse_scenario(
                 f"every species; missing for: {', '.join(unpriced)}"
             )
     disturbance = DisturbanceConfig(**_take(raw.get("disturbance", {}), "disturbance", where))
+    cases = _sensitivity(raw, base_dir, where, source)
     if disturbance.replicates and disturbance.annual_rate <= 0:
         raise ScenarioError(
             f"{where}: [disturbance] replicates = {disturbance.replicates} needs annual_rate > 0"
@@ -810,7 +817,60 @@ def parse_scenario(
         disturbance,
         source,
         overrides,
+        cases,
     )
+
+
+def _sensitivity(
+    raw: Mapping[str, Any], base_dir: Path, where: str, source: Path | None
+) -> tuple[tuple[str, Mapping[str, Any], Scenario], ...]:
+    """Each [[sensitivity]] case: the base scenario with its ``set`` keys, checked now."""
+    cases_raw = raw.get("sensitivity", [])
+    if not isinstance(cases_raw, list):
+        raise ScenarioError(f"{where}: sensitivity cases are an array of tables: [[sensitivity]]")
+    base = {k: v for k, v in raw.items() if k != "sensitivity"}
+    out = []
+    seen: set[str] = set()
+    for n, case in enumerate(cases_raw, start=1):
+        if not isinstance(case, dict) or set(case) - {"name", "set"} or "name" not in case:
+            raise ScenarioError(f"{where}: [[sensitivity]] #{n} takes name and set")
+        name = case["name"]
+        if not isinstance(name, str) or not re.fullmatch(r"[A-Za-z0-9][A-Za-z0-9_.-]*", name):
+            raise ScenarioError(
+                f"{where}: [[sensitivity]] #{n} name = {name!r}: use letters, "
+                "digits, '_', '-' and '.' (it names an output folder)"
+            )
+        if name in seen:
+            raise ScenarioError(f"{where}: [[sensitivity]] name {name!r} is used twice")
+        seen.add(name)
+        changes = case.get("set", {})
+        if not isinstance(changes, dict) or not changes:
+            raise ScenarioError(
+                f"{where}: [[sensitivity]] {name!r}: set must be a table of "
+                'dotted keys, e.g. set = { "flow.band" = 0.1 }'
+            )
+        case_raw = copy.deepcopy(base)
+        for key, value in changes.items():
+            _set_dotted(case_raw, str(key), value, f"{where}: [[sensitivity]] {name!r}")
+        try:
+            scn = parse_scenario(case_raw, base_dir, where, source)
+        except ScenarioError as exc:
+            raise ScenarioError(f"[[sensitivity]] {name!r}: {exc}") from None
+        out.append((name, dict(changes), scn))
+    return tuple(out)
+
+
+def _set_dotted(raw: dict[str, Any], key: str, value: Any, where: str) -> None:
+    parts = key.split(".")
+    if len(parts) < 2 or parts[0] not in SECTIONS or parts[0] == "sensitivity":
+        raise ScenarioError(f"{where}: {key!r} is not a scenario key (section.key)")
+    table = raw
+    for part in parts[:-1]:
+        nxt = table.setdefault(part, {})
+        if not isinstance(nxt, dict):
+            raise ScenarioError(f"{where}: {key!r}: {part} is a value, not a table")
+        table = nxt
+    table[parts[-1]] = value
 
 
 def _cover(raw: Any, where: str) -> tuple[CoverTarget, ...]:

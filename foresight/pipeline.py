@@ -31,6 +31,7 @@ from foresight.inventory import CheckReport, prepare_inventory
 from foresight.io.cache import cached_arrays
 from foresight.io.outputs import (
     check_output_dir,
+    read_run,
     replace_file,
     sha256_file,
     staged_output,
@@ -46,6 +47,7 @@ from foresight.reporting import (
     wood_flow_by_product,
     wood_flow_table,
 )
+from foresight.reporting.compare import comparison_figure, comparison_table
 from foresight.reporting.curves import curves_table
 from foresight.reporting.curves import notes as curve_notes
 from foresight.reporting.figures import curve_figure
@@ -103,6 +105,7 @@ class RunResult:
     lp: dict | None = None  # the harvest LP: solver, status, objective, gap
     cover: pd.DataFrame | None = None  # cover targets per period
     monte_carlo: pd.DataFrame | None = None  # percentiles over disturbance replicates
+    cases: dict[str, RunResult] = field(default_factory=dict)  # sensitivity cases by name
 
     @property
     def level_m3_per_year(self) -> float:
@@ -261,8 +264,9 @@ def _raster_site_index(path: Path, band: int, geoms: np.ndarray, crs: pyproj.CRS
 def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) -> RunResult:
     """Check, project, schedule and (if ``out_dir`` is given) write every output."""
     out = Path(out_dir) if out_dir is not None else None
+    managed = MANAGED | {name for name, _, _ in scenario.sensitivity}
     if out is not None:
-        check_output_dir(out, MANAGED)  # before the long stages, not after
+        check_output_dir(out, managed)  # before the long stages, not after
     timer = _Timer()
     with timer.stage("read and check inventory"):
         inventory = check(scenario, strict=strict)
@@ -345,10 +349,20 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
         cover_table,
         monte_carlo,
     )
+    for name, _, case in scenario.sensitivity:  # each case in full, written with the base
+        if name in MANAGED:
+            raise InputError(f"[[sensitivity]] name {name!r} is the name of an output file")
+        log.info("sensitivity case %r ...", name)
+        result.cases[name] = run(case, None, strict=strict)
     if out is not None:
-        with staged_output(out, MANAGED) as tmp:
+        with staged_output(out, managed) as tmp:
             with timer.stage("write outputs"):
                 write_tables(result, tmp)
+                for (name, _, case), sub in zip(
+                    scenario.sensitivity, result.cases.values(), strict=True
+                ):
+                    (tmp / name).mkdir()
+                    write_outputs(sub, case, tmp / name)
             write_json(tmp / RUN_JSON, run_record(result, scenario))
     return result
 
@@ -834,3 +848,23 @@ def harvestable_layer(checked: CheckResult) -> gpd.GeoDataFrame:
     )
     geom = checked.netdown.remaining_geometry[keep]
     return gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geom, crs=s.crs).values, crs=s.crs)
+
+
+COMPARISON_CSV = "comparison.csv"
+COMPARISON_PNG = "comparison.png"
+
+
+def compare(run_dirs: list[str | Path], out_dir: str | Path) -> pd.DataFrame:
+    """Compare foresight runs: ``OUT/comparison.csv`` (one row per run) and the overlay
+    figure ``OUT/comparison.png``; each file is written to a temporary name first."""
+    runs = []
+    for d in map(Path, run_dirs):
+        rec, wf = read_run(d)
+        runs.append((str(d), rec, wf))
+    table = comparison_table(runs)
+    out = Path(out_dir)
+    if out.exists() and not out.is_dir():
+        raise OutputError(f"--out {out}: exists and is not a directory")
+    replace_file(out / COMPARISON_CSV, lambda p: table.to_csv(p, index=False))
+    replace_file(out / COMPARISON_PNG, lambda p: comparison_figure(p, runs))
+    return table

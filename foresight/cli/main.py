@@ -13,6 +13,7 @@ import traceback
 from collections.abc import Sequence
 
 from foresight.cli import check as check_cmd
+from foresight.cli import compare as compare_cmd
 from foresight.cli import curves as curves_cmd
 from foresight.cli import fit as fit_cmd
 from foresight.cli import run as run_cmd
@@ -72,6 +73,7 @@ def build_parser() -> argparse.ArgumentParser:
     for module in (run_cmd, check_cmd, curves_cmd):  # commands that read a scenario
         module.add_parser(sub, scenario_opts)
     fit_cmd.add_parser(sub, common)
+    compare_cmd.add_parser(sub, common)
     return parser
 
 

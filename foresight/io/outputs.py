@@ -19,6 +19,8 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
 
+import pandas as pd
+
 from foresight.errors import OutputError
 
 MARKER = "run.json"
@@ -95,3 +97,16 @@ def replace_file(path: Path, write: Callable[[Path], None]) -> None:
         os.replace(tmp, path)
     finally:
         tmp.unlink(missing_ok=True)
+
+
+def read_run(directory: Path) -> tuple[dict, pd.DataFrame]:
+    """run.json and wood_flow.csv of a foresight output directory."""
+    rec_path, wf_path = directory / MARKER, directory / "wood_flow.csv"
+    if not rec_path.is_file() or not wf_path.is_file():
+        raise OutputError(
+            f"{directory}: not a foresight output directory (needs {MARKER} and wood_flow.csv)"
+        )
+    try:
+        return json.loads(rec_path.read_text(encoding="utf-8")), pd.read_csv(wf_path)
+    except (ValueError, OSError) as exc:
+        raise OutputError(f"{directory}: cannot read its outputs ({exc})") from None

@@ -1,0 +1,43 @@
+"""``foresight compare DIR [DIR ...] --out OUT``: the runs side by side."""
+
+from __future__ import annotations
+
+import argparse
+
+import pandas as pd
+
+import foresight
+
+SHOWN = [
+    "run",
+    "level_m3_per_year",
+    "short_term_m3_per_year",
+    "mid_term_m3_per_year",
+    "long_term_m3_per_year",
+    "ending_stock_ratio",
+    "differences",
+]
+
+
+def add_parser(sub, common: argparse.ArgumentParser) -> None:  # noqa: ANN001
+    p = sub.add_parser(
+        "compare",
+        parents=[common],
+        help="compare runs side by side",
+        description="Short-, mid- and long-term harvest levels and key "
+        "indicators of each run, differences to the first run and the scenario "
+        "keys in which they differ; writes OUT/comparison.csv and "
+        "OUT/comparison.png.",
+    )
+    p.add_argument("runs", nargs="+", metavar="DIR", help="output directories of foresight run")
+    p.add_argument("--out", required=True, metavar="OUT", help="directory for the comparison")
+    p.set_defaults(handler=handle)
+
+
+def handle(args: argparse.Namespace) -> int:
+    table = foresight.compare(args.runs, args.out)
+    if not args.quiet:
+        with pd.option_context("display.width", 140, "display.max_colwidth", 60):
+            print(table[SHOWN].to_string(index=False, float_format=lambda v: f"{v:,.2f}"))
+        print(f"wrote {args.out}/comparison.csv and comparison.png")
+    return 0

@@ -1,0 +1,100 @@
+"""Scenario comparison: short-, mid- and long-term harvest levels and key indicators per run,
+their differences to the first run, and the scenario keys in which the runs differ."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from foresight.reporting.figures import DPI, plt
+
+IGNORED = ("overrides", "sensitivity", "source")  # provenance, not assumptions
+
+
+def flatten(d: Any, prefix: str = "") -> dict[str, Any]:
+    """Dotted keys of a nested scenario dict (lists kept whole)."""
+    out: dict[str, Any] = {}
+    if isinstance(d, dict):
+        for k, v in d.items():
+            if not prefix and k in IGNORED:
+                continue
+            out.update(flatten(v, f"{prefix}.{k}" if prefix else str(k)))
+    else:
+        out[prefix] = d
+    return out
+
+
+def _mean_per_year(wf: pd.DataFrame, rows: slice) -> float:
+    return float(wf["harvest_m3_per_year"].iloc[rows].mean())
+
+
+def comparison_table(runs: list[tuple[str, dict, pd.DataFrame]]) -> pd.DataFrame:
+    """One row per run: levels, indicators, differences to the first run, differing keys."""
+    rows = []
+    first_keys = flatten(runs[0][1]["scenario"])
+    for name, rec, wf in runs:
+        n = len(wf)
+        mid = n // 2
+        keys = flatten(rec["scenario"])
+        diffs = [
+            f"{k}: {first_keys.get(k)!r} -> {keys.get(k)!r}"
+            for k in sorted(set(first_keys) | set(keys))
+            if first_keys.get(k) != keys.get(k)
+        ]
+        flow = rec["flow"]
+        ltsy = flow.get("long_term_sustained_yield_m3_per_year", {})
+        lp = rec.get("lp") or {}
+        rows.append(
+            {
+                "run": name,
+                "scenario": rec["scenario"]["scenario"]["name"],
+                "policy": flow["policy"],
+                "level_m3_per_year": flow["level_m3_per_year"],
+                "short_term_m3_per_year": _mean_per_year(wf, slice(0, 2)),
+                "mid_term_m3_per_year": _mean_per_year(wf, slice(max(mid - 1, 0), mid + 1)),
+                "long_term_m3_per_year": _mean_per_year(wf, slice(max(n - 2, 0), n)),
+                "total_harvest_m3": float(wf["harvest_m3"].sum()),
+                "ending_stock_ratio": flow["ending_growing_stock_m3"]
+                / flow["initial_growing_stock_m3"],
+                "harvestable_ha": rec["inventory"].get("harvestable_ha", np.nan),
+                "ltsy_m3_per_year": ltsy.get("at_culmination", np.nan),
+                "lp_gap": lp.get("gap_of_schedule_to_lp", np.nan),
+                "differences": "; ".join(diffs),
+            }
+        )
+    table = pd.DataFrame(rows)
+    for col in (
+        "level_m3_per_year",
+        "short_term_m3_per_year",
+        "mid_term_m3_per_year",
+        "long_term_m3_per_year",
+        "total_harvest_m3",
+    ):
+        table[f"diff_{col}"] = table[col] - table[col].iloc[0]
+    return table
+
+
+def comparison_figure(path: Path, runs: list[tuple[str, dict, pd.DataFrame]]) -> None:
+    """The harvest forecasts of all runs on one set of axes (greyscale line styles)."""
+    styles = ["-", "--", ":", "-.", (0, (5, 1)), (0, (3, 1, 1, 1))]
+    fig, ax = plt.subplots(figsize=(7.0, 4.0), layout="constrained")
+    for k, (name, _, wf) in enumerate(runs):
+        grey = 0.6 * k / max(len(runs) - 1, 1)
+        ax.step(
+            wf["start_year"],
+            wf["harvest_m3_per_year"],
+            where="post",
+            color=str(grey),
+            ls=styles[k % len(styles)],
+            lw=1.6,
+            label=name,
+        )
+    ax.set_xlabel("year")
+    ax.set_ylabel("harvest (m3/year)")
+    ax.set_ylim(bottom=0)
+    ax.legend(frameon=False, fontsize=8)
+    fig.savefig(path, dpi=DPI)
+    plt.close(fig)

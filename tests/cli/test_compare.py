@@ -1,0 +1,81 @@
+"""[[sensitivity]] cases in one run, and `foresight compare` on their outputs."""
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from PIL import Image
+
+from foresight.cli.main import main
+from foresight.errors import ScenarioError
+
+from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
+
+
+def case_scenario(tmp_path, sensitivity):
+    layer = write_layer(tmp_path / "s.gpkg", squares(30), stand_attrs(30, ages=np.arange(30) * 6))
+    raw = scenario_dict(layer, flow={"ending_stock": 0.5})
+    raw["sensitivity"] = sensitivity
+    return write_scenario(tmp_path / "scn.toml", raw)
+
+
+def test_cases_run_with_the_base_and_compare_names_the_one_difference(tmp_path, capsys):
+    scn = case_scenario(
+        tmp_path,
+        [
+            {"name": "loose", "set": {"flow.ending_stock": 0.2}},
+            {"name": "late", "set": {"species.pine.min_harvest_age": 80}},
+        ],
+    )
+    out = tmp_path / "out"
+    assert main(["run", str(scn), "--out", str(out), "-q"]) == 0
+    for name in ("loose", "late"):
+        assert (out / name / "projection.gpkg").is_file()
+        rec = json.loads((out / name / "run.json").read_text())
+        assert rec["scenario"]["sensitivity"] == []
+    assert (
+        main(["compare", str(out), str(out / "loose"), "--out", str(tmp_path / "cmp"), "-q"]) == 0
+    )
+    table = pd.read_csv(tmp_path / "cmp" / "comparison.csv")
+    assert len(table) == 2
+    # two runs that differ in one override: that difference and nothing else
+    assert table["differences"].iloc[1] == "flow.ending_stock: 0.5 -> 0.2"
+    assert pd.isna(table["differences"].iloc[0])
+    base = json.loads((out / "run.json").read_text())["flow"]["level_m3_per_year"]
+    assert table["diff_level_m3_per_year"].iloc[1] == pytest.approx(
+        table["level_m3_per_year"].iloc[1] - base
+    )
+    assert table["level_m3_per_year"].iloc[1] >= base  # a looser ending stock never lowers it
+    with Image.open(tmp_path / "cmp" / "comparison.png") as img:
+        assert img.format == "PNG" and img.size[0] >= 1000
+    # the docs name every column of the comparison
+    from helpers import ROOT
+
+    docs = (ROOT / "docs" / "outputs.md").read_text(encoding="utf-8")
+    for col in table.columns:
+        assert f"| `{col}` |" in docs, col
+
+
+@pytest.mark.parametrize(
+    ("case", "match"),
+    [
+        ({"name": "bad/name", "set": {"flow.band": 0.1}}, r"name = 'bad/name': use letters"),
+        (
+            {"name": "x", "set": {"flow.bnd": 0.1}},
+            r"\[\[sensitivity\]\] 'x': .*unknown \[flow\] key",
+        ),
+        ({"name": "x"}, r"set must be a table of dotted keys"),
+    ],
+)
+def test_bad_cases_are_named(tmp_path, case, match):
+    from foresight import load_scenario
+
+    with pytest.raises(ScenarioError, match=match):
+        load_scenario(case_scenario(tmp_path, [case]))
+
+
+def test_compare_refuses_a_directory_that_is_not_a_run(tmp_path, capsys):
+    (tmp_path / "notes").mkdir()
+    assert main(["compare", str(tmp_path / "notes"), "--out", str(tmp_path / "c")]) == 2
+    assert "not a foresight output directory" in capsys.readouterr().err
