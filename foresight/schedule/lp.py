@@ -139,6 +139,8 @@ class LPModel:
     x_stratum: NDArray  # per column: stratum of an x column, -1 otherwise
     x_period: NDArray  # per column: first-cut period of an x column, 0 otherwise
     strata: int
+    periods: int = 0
+    context: dict = field(default_factory=dict)  # what an infeasibility message needs
 
 
 @dataclass
@@ -167,39 +169,11 @@ class Economics:
     terminal_value: str = "none"
 
 
-def solve_lp(
-    stands: StandArrays,
-    curves: CurveSet,
-    periods: Periods,
-    strata: Strata,
-    objective: str = "max-even-flow",
-    policy: str = "even",
-    band: float = 0.0,
-    ending_stock: float = 1.0,
-    max_area_ha: float | None = None,
-    economics: Economics | None = None,
-    cover: CoverRules | None = None,
-    stand_zone: NDArray | None = None,
-    disturbance: float = 0.0,
-) -> LPResult:
-    """Build the Model II LP of the module docstring and solve it with HiGHS."""
+def solve_lp(*args, **kwargs) -> LPResult:  # noqa: ANN002, ANN003 - those of build_lp
+    """Build the Model II LP of the module docstring (:func:`build_lp`, same arguments) and
+    solve it with HiGHS."""
     t0 = time.perf_counter()
-    model = build_lp(
-        stands,
-        curves,
-        periods,
-        strata,
-        objective,
-        policy,
-        band,
-        ending_stock,
-        max_area_ha,
-        economics,
-        cover,
-        stand_zone,
-        disturbance,
-    )
-    return solve_highs(model, periods, t0, ending_stock, max_area_ha, policy, cover is not None)
+    return solve_highs(build_lp(*args, **kwargs), t0)
 
 
 def build_lp(
@@ -435,6 +409,13 @@ def build_lp(
         np.r_[x_stratum, np.full(P, -1)],
         np.r_[x_period, np.zeros(P, dtype=np.int64)],
         S,
+        periods=P,
+        context={
+            "ending_stock": ending_stock,
+            "max_area_ha": max_area_ha,
+            "policy": policy,
+            "cover": cover is not None,
+        },
     )
 
 
@@ -456,19 +437,12 @@ def _new_highs() -> highspy.Highs:
     return h
 
 
-def solve_highs(
-    model: LPModel,
-    periods: Periods,
-    t0: float,
-    ending_stock: float,
-    max_area_ha: float | None,
-    policy: str,
-    cover: bool = False,
-) -> LPResult:
+def solve_highs(model: LPModel, t0: float | None = None) -> LPResult:
     """Solve with HiGHS (interior point for large models); explain an infeasible model."""
     A = model.matrix
     ncol, nrow = A.shape[1], A.shape[0]
-    P = periods.count
+    P = model.periods
+    t0 = time.perf_counter() if t0 is None else t0
     h = _new_highs()
     if model.strata * P > 20_000:
         h.setOptionValue("solver", "ipm")  # far faster than simplex on large harvest LPs
@@ -488,7 +462,7 @@ def solve_highs(
     h.run()
     status = h.modelStatusToString(h.getModelStatus())
     if h.getModelStatus() != highspy.HighsModelStatus.kOptimal:
-        raise InputError(explain_infeasible(status, ending_stock, max_area_ha, policy, cover))
+        raise InputError(explain_infeasible(status, **model.context))
     sol = h.getSolution()
     x = np.asarray(sol.col_value)
     dual = np.asarray(sol.row_dual)
