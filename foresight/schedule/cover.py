@@ -31,6 +31,12 @@ class CoverRule:
     age_years: float
     share: float
 
+    def counts(self, age: NDArray) -> NDArray:
+        """Whether area of these ages counts toward the rule (old enough, or still young)."""
+        if self.kind == "old":
+            return age >= self.age_years - 1e-9
+        return age < self.age_years - 1e-9
+
     @property
     def label(self) -> str:
         if self.kind == "old":
@@ -51,8 +57,7 @@ class CoverRules:
         out = np.zeros(len(self.rules))
         for i, r in enumerate(self.rules):  # a handful of rules
             inz = np.ones(len(zone), bool) if r.zone < 0 else zone == r.zone
-            hit = age >= r.age_years - 1e-9 if r.kind == "old" else age < r.age_years - 1e-9
-            out[i] = float(area[inz & hit].sum())
+            out[i] = float(area[inz & r.counts(age)].sum())
         return out
 
     def budgets(
@@ -86,9 +91,10 @@ class PeriodBudgets:
         for i, r in enumerate(self.rules.rules):
             if r.zone >= 0 and self.cand_zone[k] != r.zone:
                 continue
-            old = self.cand_age[k] >= r.age_years - 1e-9
-            young = self.cand_age[k] < r.age_years - 1e-9
-            if (r.kind == "old" and old) or (r.kind == "young" and not young):
+            # cutting draws on an old-forest budget when the stand is old, and on a young-forest
+            # budget when it is not young yet (it becomes young)
+            counted = bool(r.counts(np.asarray(self.cand_age[k])))
+            if counted == (r.kind == "old"):
                 if a > self.budget[i] + _REL * max(1.0, self.rules.area_of(r)):
                     return False
                 draws.append((i, a))

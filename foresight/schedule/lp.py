@@ -333,36 +333,21 @@ def build_lp(
                 x_up = xs & ((b_ > p) | (b_ == 0))
                 y_up = ys & (b_ <= p) & ((c_ > p) | (c_ == 0))
                 age = np.where(xs, x_age0 + t, (p - b_) * L - y_delay)
-                if rule.kind == "old":
-                    hit = (x_up | y_up) & inz & (age >= rule.age_years - 1e-9)
-                    fixed = reserved_cover(
-                        reserved[rz],
-                        stands.age_years[rz],
-                        p,
-                        L,
-                        off,
-                        dist,
-                        stands.regen_delay_years[rz],
-                        rule,
-                    )
-                    need = rule.share * cover.area_of(rule) - fixed
-                    idx = np.flatnonzero(hit)
-                    add_row(idx, surv_at(p)[idx], need, INF)
-                else:
-                    hit = (x_up | y_up) & inz & (age < rule.age_years - 1e-9)
-                    fixed = reserved_cover(
-                        reserved[rz],
-                        stands.age_years[rz],
-                        p,
-                        L,
-                        off,
-                        dist,
-                        stands.regen_delay_years[rz],
-                        rule,
-                    )
-                    room = rule.share * cover.area_of(rule) - fixed
-                    idx = np.flatnonzero(hit)
-                    add_row(idx, surv_at(p)[idx], -INF, room)
+                hit = np.flatnonzero((x_up | y_up) & inz & rule.counts(age))
+                fixed = reserved_cover(
+                    reserved[rz],
+                    stands.age_years[rz],
+                    p,
+                    L,
+                    off,
+                    dist,
+                    stands.regen_delay_years[rz],
+                    rule,
+                )
+                bound = rule.share * cover.area_of(rule) - fixed
+                # old forest: at least the target share; young forest: at most
+                lo_, hi_ = (bound, INF) if rule.kind == "old" else (-INF, bound)
+                add_row(hit, surv_at(p)[hit], lo_, hi_)
     if max_area_ha is not None:
         for p in range(1, P + 1):
             idx = np.flatnonzero(period_cut == p)
@@ -500,13 +485,10 @@ def reserved_cover(
     t = (p - 1) * L + off
     keep = 1.0 - dist
 
-    def hits(age: NDArray) -> NDArray:
-        return age >= rule.age_years - 1e-9 if rule.kind == "old" else age < rule.age_years - 1e-9
-
-    total = float(np.dot(area, hits(age0 + t))) * keep ** (p - 1)
+    total = float(np.dot(area, rule.counts(age0 + t))) * keep ** (p - 1)
     for k in range(1, p):  # periods before p
         share = dist * keep ** (p - 1 - k)
-        total += share * float(np.dot(area, hits((p - k) * L + off - L / 2 - delay)))
+        total += share * float(np.dot(area, rule.counts((p - k) * L + off - L / 2 - delay)))
     return total
 
 
