@@ -2,9 +2,11 @@
 
 Each size runs in its own process (so peak memory is per size): it builds a grid of square
 stands (1-30 ha, shared edges) with random species, site index and ages, writes it as a
-GeoPackage, then times reading and checking, the projection and even-flow scheduling, building
-the output tables, and writing the outputs. Prints one line per size and, with --markdown, a
-table for docs/performance.md.
+GeoPackage, then runs ``foresight.run`` on it (the sample's species and rules, aspatial, no
+cover targets, no LP bound, no sensitivity cases) and reports its stage timings: reading and
+checking, the projection and even-flow scheduling, building the output tables, the indicators,
+and writing every output (GeoPackage with its map layers, CSV, figures, report). Prints one
+line per size and, with --markdown, a table for docs/performance.md.
 
     python benchmarks/bench_pipeline.py                 # 10k, 100k, 1M
     python benchmarks/bench_pipeline.py --sizes 10000 100000
@@ -18,7 +20,6 @@ import resource
 import subprocess
 import sys
 import tempfile
-import time
 from pathlib import Path
 
 import numpy as np
@@ -66,66 +67,37 @@ def synthetic_scenario(gpkg: Path, n: int):
     raw = tomllib.loads(SCENARIO.read_text())
     raw["inventory"]["path"] = str(gpkg)
     raw["inventory"].pop("from_raster", None)  # the sample's rasters cover the sample only
-    raw.pop("landbase", None)
-    raw["harvest"]["max_area_ha_per_period"] = n * 6.25 * 0.18
+    for section in ("landbase", "cover", "sensitivity"):
+        raw.pop(section, None)
+    raw["harvest"] = {"priority": "oldest", "max_area_ha_per_period": n * 6.25 * 0.18}
+    raw["flow"]["lp_bound"] = False
+    raw["report"] = {"age_class_width_years": 20}  # figures, report, map layers; no rasters
     return parse_scenario(raw, base_dir=SCENARIO.parent, where=str(SCENARIO))
 
 
 def one_size(n: int) -> dict:
-    from foresight.pipeline import RunResult, check, write_outputs
-    from foresight.projection import CurveSet, Periods, StandArrays
-    from foresight.reporting import (
-        harvests_layer,
-        stands_layer,
-        wood_flow_by_product,
-        wood_flow_table,
-    )
-    from foresight.schedule import find_even_flow
+    import foresight
 
     with tempfile.TemporaryDirectory(dir=HERE) as tmp:
         tmp = Path(tmp)
         gpkg = tmp / "region.gpkg"
         build_region(n, gpkg)
         scn = synthetic_scenario(gpkg, n)
-        t = {}
-        t0 = time.perf_counter()
-        inv = check(scn)
-        t["read_check_s"] = time.perf_counter() - t0
-        t0 = time.perf_counter()
-        periods, curves = Periods.from_scenario(scn), CurveSet.from_scenario(scn)
-        arrays = StandArrays.from_table(inv.stands, scn, curves)
-        flow = find_even_flow(
-            arrays,
-            curves,
-            periods,
-            band=scn.flow.band,
-            ending_stock=scn.flow.ending_stock,
-            priority=scn.harvest.priority,
-            max_area_ha=scn.harvest.max_area_ha_per_period,
-        )
-        t["project_schedule_s"] = time.perf_counter() - t0
-        t0 = time.perf_counter()
-        result = RunResult(
-            None,
-            inv,
-            flow,
-            wood_flow_table(flow, periods),
-            stands_layer(flow, inv.stands, arrays, curves, periods),
-            harvests_layer(flow, inv.stands, periods),
-            wood_flow_by_product(flow, arrays, curves, scn),
-        )
-        t["tables_s"] = time.perf_counter() - t0
-        t0 = time.perf_counter()
-        out = tmp / "out"
-        out.mkdir()
-        write_outputs(result, scn, out)
-        t["write_s"] = time.perf_counter() - t0
+        result = foresight.run(scn, tmp / "out")
+        st = result.timings_s
+        t = {
+            "read_check_s": st["read and check inventory"],
+            "project_schedule_s": st["project and schedule"],
+            "tables_s": st["build output tables"],
+            "indicators_s": st["indicators"],
+            "write_s": st["write outputs"],
+        }
         t["total_s"] = sum(t.values())
-        t["search_steps"] = flow.steps
+        t["search_steps"] = result.flow.steps
         t["harvest_rows"] = len(result.harvests)
         t["peak_rss_gb"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024**2
         t["stands"] = n
-        t["periods"] = periods.count
+        t["periods"] = scn.scenario.periods
         return t
 
 
@@ -148,22 +120,23 @@ def main() -> None:
         print(
             f"{n:>9,} stands x {row['periods']} periods: read+check {row['read_check_s']:.2f} s, "
             f"project+schedule {row['project_schedule_s']:.2f} s ({row['search_steps']} "
-            f"search steps), tables {row['tables_s']:.2f} s, write {row['write_s']:.2f} s "
+            f"search steps), tables {row['tables_s']:.2f} s, indicators "
+            f"{row['indicators_s']:.2f} s, write {row['write_s']:.2f} s "
             f"({row['harvest_rows']:,} harvest rows), total {row['total_s']:.1f} s, "
             f"peak RSS {row['peak_rss_gb']:.2f} GB",
             flush=True,
         )
     if args.markdown:
         print(
-            "\n| stands | read + check s | project + schedule s | tables s | write s | "
-            "total s | peak RSS GB |"
+            "\n| stands | read + check s | project + schedule s | tables s | indicators s | "
+            "write s | total s | peak RSS GB |"
         )
-        print("|---:|---:|---:|---:|---:|---:|---:|")
+        print("|---:|---:|---:|---:|---:|---:|---:|---:|")
         for r in rows:
             print(
                 f"| {r['stands']:,} | {r['read_check_s']:.2f} | {r['project_schedule_s']:.2f} |"
-                f" {r['tables_s']:.2f} | {r['write_s']:.2f} | {r['total_s']:.1f} |"
-                f" {r['peak_rss_gb']:.2f} |"
+                f" {r['tables_s']:.2f} | {r['indicators_s']:.2f} | {r['write_s']:.2f} |"
+                f" {r['total_s']:.1f} | {r['peak_rss_gb']:.2f} |"
             )
 
 

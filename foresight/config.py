@@ -152,6 +152,29 @@ KEYS: dict[str, dict[str, KeySpec]] = {
         ),
         "seed": KeySpec("int", 1, "", "Seed of the Monte Carlo draws."),
     },
+    "report": {
+        "age_class_years": KeySpec(
+            "floats",
+            None,
+            "year",
+            "Years at which age classes and stand ages are reported (period boundaries; "
+            "default: the start, each quarter of the horizon and its end).",
+        ),
+        "age_class_width_years": KeySpec(
+            "float", 20.0, "years", "Width of an age class.", check=_positive
+        ),
+        "map_layers": KeySpec(
+            "bool", True, "", "Per-period harvest and per-year age layers in projection.gpkg."
+        ),
+        "raster_cell_m": KeySpec(
+            "float",
+            None,
+            "m",
+            "Also write GeoTIFFs of first harvest period and ages at this cell size.",
+            check=_positive,
+        ),
+        "markdown": KeySpec("bool", False, "", "Also write the report as Markdown."),
+    },
     "landbase.steps": {
         "label": KeySpec("str", doc="Name of the step in the netdown table."),
         "where": KeySpec("str", None, doc="Attribute rule: stands matching it are removed."),
@@ -433,6 +456,7 @@ SECTIONS = (
     "landbase",
     "cover",
     "disturbance",
+    "report",
     "sensitivity",
 )
 STEP_KINDS = ("where", "layer", "raster", "percent")
@@ -505,6 +529,17 @@ class DisturbanceConfig:
     annual_rate: float = 0.0
     replicates: int = 0
     seed: int = 1
+
+
+@dataclass(frozen=True)
+class ReportConfig:
+    """What the report and the map outputs show (``[report]``)."""
+
+    age_class_years: tuple[int, ...] = ()  # resolved: never empty after parsing
+    age_class_width_years: float = 20.0
+    map_layers: bool = True
+    raster_cell_m: float | None = None
+    markdown: bool = False
 
 
 @dataclass(frozen=True)
@@ -610,6 +645,7 @@ class Scenario:
     landbase: LandbaseConfig = field(default_factory=LandbaseConfig)
     cover: tuple[CoverTarget, ...] = ()
     disturbance: DisturbanceConfig = field(default_factory=DisturbanceConfig)
+    report: ReportConfig = field(default_factory=ReportConfig)
     source: Path | None = None
     overrides: tuple[str, ...] = ()
     # [[sensitivity]] cases: (name, the dotted keys it sets, the scenario it makes)
@@ -685,8 +721,8 @@ def apply_override(raw: dict[str, Any], item: str) -> None:
     except tomllib.TOMLDecodeError:
         value = text.strip()
     parts = key.split(".")
-    if parts == ["cover"] and isinstance(value, list):  # an array of tables as a whole
-        raw["cover"] = value
+    if parts in (["cover"], ["sensitivity"]) and isinstance(value, list):
+        raw[parts[0]] = value  # an array of tables as a whole (sensitivity=[]: no cases)
         return
     if len(parts) < 2 or parts[0] not in SECTIONS:
         raise ScenarioError(
@@ -799,6 +835,7 @@ def parse_scenario(
                 f"every species; missing for: {', '.join(unpriced)}"
             )
     disturbance = DisturbanceConfig(**_take(raw.get("disturbance", {}), "disturbance", where))
+    report = _report(raw.get("report", {}), info, where)
     cases = _sensitivity(raw, base_dir, where, source)
     if disturbance.replicates and disturbance.annual_rate <= 0:
         raise ScenarioError(
@@ -815,9 +852,43 @@ def parse_scenario(
         landbase,
         cover,
         disturbance,
+        report,
         source,
         overrides,
         cases,
+    )
+
+
+def boundary_years(info: ScenarioInfo) -> list[int]:
+    """The period boundaries: the start year, each period's end (the next one's start)."""
+    return [info.start_year + k * info.period_years for k in range(info.periods + 1)]
+
+
+def _report(raw: Any, info: ScenarioInfo, where: str) -> ReportConfig:
+    vals = _take(raw, "report", where)
+    allowed = boundary_years(info)
+    years = vals["age_class_years"]
+    if years is None:  # the start, each quarter of the horizon, the end
+        picks = sorted({round(info.periods * q / 4) for q in range(5)})
+        years = tuple(allowed[k] for k in picks)
+    else:
+        bad = [y for y in years if y not in allowed]
+        if bad or not years:
+            loc = where.at("report", "age_class_years") if isinstance(where, _Where) else where
+            shown = ", ".join(str(y) for y in allowed[:4])
+            raise ScenarioError(
+                f"{loc}: [report] age_class_years = {list(years)!r}: "
+                f"{f'{bad[0]:g} is not' if bad else 'give at least one year; each must be'} "
+                f"a period boundary ({shown}, ... every {info.period_years} years up to "
+                f"{allowed[-1]})"
+            )
+        years = tuple(sorted({int(y) for y in years}))
+    return ReportConfig(
+        years,
+        vals["age_class_width_years"],
+        vals["map_layers"],
+        vals["raster_cell_m"],
+        vals["markdown"],
     )
 
 

@@ -13,7 +13,6 @@ import time
 from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
-from datetime import UTC, datetime
 from pathlib import Path
 
 import geopandas as gpd
@@ -33,14 +32,29 @@ from foresight.io.outputs import (
     check_output_dir,
     read_run,
     replace_file,
-    sha256_file,
     staged_output,
-    write_json,
 )
 from foresight.io.rasters import RasterData, raster_crs, read_window
-from foresight.io.vector import read_layer, write_gpkg_layer
+from foresight.io.vector import read_layer
 from foresight.landbase import Netdown, NetdownError, apply_netdown, metres_per_unit, work_crs
-from foresight.projection import CurveSet, Periods, StandArrays, zone_codes, zone_names
+from foresight.projection import (
+    CurveSet,
+    Periods,
+    StandArrays,
+    regulated_growing_stock_m3,
+    zone_codes,
+    zone_names,
+)
+from foresight.publish import (
+    COMPARISON_CSV,
+    COMPARISON_PNG,
+    CURVES_CSV,
+    FIGURES_DIR,
+    MANAGED,
+    dominant_sites,
+    figure_age,
+    write_outputs,
+)
 from foresight.reporting import (
     harvests_layer,
     stands_layer,
@@ -51,7 +65,17 @@ from foresight.reporting.compare import comparison_figure, comparison_table
 from foresight.reporting.curves import curves_table
 from foresight.reporting.curves import notes as curve_notes
 from foresight.reporting.figures import curve_figure
-from foresight.schedule import FlowResult, schedule, simulate, spatial_rules
+from foresight.reporting.indicators import (
+    Verdict,
+    age_class_table,
+    boundary_index,
+    harvest_breakdown,
+    horizon_indicators,
+    judge,
+    revenue_by_period,
+    stand_ages_table,
+)
+from foresight.schedule import FlowResult, schedule, simulate, spatial_rules, stable_periods_for
 from foresight.schedule.cover import CoverRule, CoverRules
 from foresight.schedule.lp import Economics, LPResult, Strata, make_strata, solve_lp
 from foresight.schedule.policies import Targets
@@ -59,32 +83,6 @@ from foresight.versions import library_versions
 from foresight.zonal import zonal
 
 log = logging.getLogger("foresight")
-
-GPKG_NAME = "projection.gpkg"
-WOOD_FLOW_CSV = "wood_flow.csv"
-PRODUCTS_CSV = "wood_flow_by_product.csv"
-NETDOWN_CSV = "netdown.csv"
-OPENINGS_CSV = "openings.csv"
-COVER_CSV = "cover.csv"
-MONTE_CARLO_CSV = "monte_carlo.csv"
-RUN_JSON = "run.json"
-CURVES_CSV = "curves.csv"
-FIGURES_DIR = "figures"
-# every entry foresight writes into an output directory (run, curves)
-MANAGED = frozenset(
-    {
-        GPKG_NAME,
-        WOOD_FLOW_CSV,
-        PRODUCTS_CSV,
-        NETDOWN_CSV,
-        OPENINGS_CSV,
-        COVER_CSV,
-        MONTE_CARLO_CSV,
-        RUN_JSON,
-        CURVES_CSV,
-        FIGURES_DIR,
-    }
-)
 
 
 @dataclass
@@ -106,6 +104,15 @@ class RunResult:
     cover: pd.DataFrame | None = None  # cover targets per period
     monte_carlo: pd.DataFrame | None = None  # percentiles over disturbance replicates
     cases: dict[str, RunResult] = field(default_factory=dict)  # sensitivity cases by name
+    verdict: Verdict | None = None  # is the flow sustainable, and why
+    indicators: pd.DataFrame | None = None  # one row per indicator over the horizon
+    age_classes: pd.DataFrame | None = None  # area by year, zone and age class
+    stand_ages: pd.DataFrame | None = None  # each stand's age at the report years
+    harvest_breakdown: pd.DataFrame | None = None  # harvest by period, zone and species
+    regulated_hlb_stock_m3: float = float("nan")  # a regulated forest's, harvestable land
+    curves: pd.DataFrame | None = None  # the curves report table (per species and site)
+    curve_summaries: dict = field(default_factory=dict)  # its SiteSummary lists by species
+    log: list[str] = field(default_factory=list)  # the run's log lines (run.log)
 
     @property
     def level_m3_per_year(self) -> float:
@@ -262,11 +269,70 @@ def _raster_site_index(path: Path, band: int, geoms: np.ndarray, crs: pyproj.CRS
 
 
 def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) -> RunResult:
-    """Check, project, schedule and (if ``out_dir`` is given) write every output."""
+    """Check, project, schedule and (if ``out_dir`` is given) write every output.
+
+    The run's log (progress, warnings, the verdict) is kept in ``RunResult.log`` and written
+    to ``run.log`` beside the other outputs.
+    """
     out = Path(out_dir) if out_dir is not None else None
+    for name, _, _ in scenario.sensitivity:
+        if name in MANAGED:
+            raise InputError(f"[[sensitivity]] name {name!r} is the name of an output file")
     managed = MANAGED | {name for name, _, _ in scenario.sensitivity}
     if out is not None:
         check_output_dir(out, managed)  # before the long stages, not after
+    with _captured_log() as lines:
+        result = _project(scenario, strict)
+        result.out_dir, result.log = out, lines
+        for n, (name, _, case) in enumerate(scenario.sensitivity, start=1):
+            log.info("sensitivity case %r (%d of %d) ...", name, n, len(scenario.sensitivity))
+            result.cases[name] = run(case, None, strict=strict)
+        if out is not None:
+            with staged_output(out, managed) as tmp:
+                log.info("write outputs ...")
+                write_outputs(result, scenario, tmp)
+            log.info("outputs in %s", out)
+    return result
+
+
+class _LogLines(logging.Handler):
+    """Keeps the formatted records of a run in a list."""
+
+    def __init__(self) -> None:
+        super().__init__(logging.INFO)
+        self.lines: list[str] = []
+        self.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
+
+    def emit(self, record: logging.LogRecord) -> None:
+        self.lines.append(self.format(record))
+
+
+@contextmanager
+def _captured_log() -> Iterator[list[str]]:
+    """Collect the foresight logger's INFO and higher records while the block runs. A library
+    caller who configured no logging still sees warnings on stderr, as without capture."""
+    logger = logging.getLogger("foresight")
+    capture = _LogLines()
+    extra: list[logging.Handler] = [capture]
+    if not logger.handlers and not logging.getLogger().handlers:
+        warn = logging.StreamHandler()
+        warn.setLevel(logging.WARNING)
+        extra.append(warn)
+    level = logger.level
+    if logger.getEffectiveLevel() > logging.INFO:
+        logger.setLevel(logging.INFO)
+    for h in extra:
+        logger.addHandler(h)
+    try:
+        yield capture.lines
+    finally:
+        for h in extra:
+            logger.removeHandler(h)
+        logger.setLevel(level)
+
+
+def _project(scenario: Scenario, strict: bool) -> RunResult:
+    """Everything of a run but writing: check, project, schedule, tables, indicators."""
     timer = _Timer()
     with timer.stage("read and check inventory"):
         inventory = check(scenario, strict=strict)
@@ -291,12 +357,23 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
                 lp, strata = harvest_lp(scenario, arrays, curves, periods, inventory)
         cover = cover_rules(scenario, inventory)
         rate = scenario.disturbance.annual_rate
+        snaps = tuple(boundary_index(periods, y) for y in scenario.report.age_class_years)
         if fcfg.method == "optimize":
             assert lp is not None
-            flow = lp_schedule(lp, strata, arrays, curves, periods, scenario, adjacency, cover)
+            flow = lp_schedule(
+                lp, strata, arrays, curves, periods, scenario, adjacency, cover, snaps
+            )
         else:
             flow = schedule(
-                arrays, curves, periods, scenario.flow, scenario.harvest, adjacency, cover, rate
+                arrays,
+                curves,
+                periods,
+                scenario.flow,
+                scenario.harvest,
+                adjacency,
+                cover,
+                rate,
+                snaps,
             )
         openings = None
         if adjacency is not None:
@@ -320,7 +397,8 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
     log.info("flow level %.0f m3/year; limited by %s", flow.level_m3_per_year, flow.binding)
     ltsy = long_term_sustained_yield(scenario, curves, arrays)
     with timer.stage("build output tables"):
-        wood_flow = wood_flow_table(flow, periods, None if lp is None else lp.harvest_m3)
+        revenue = revenue_by_period(flow, arrays, curves, scenario, periods)
+        wood_flow = wood_flow_table(flow, periods, None if lp is None else lp.harvest_m3, revenue)
         stands = stands_layer(flow, inventory.stands, arrays, curves, periods)
         harvests = harvests_layer(flow, inventory.stands, periods)
         products = wood_flow_by_product(flow, arrays, curves, scenario)
@@ -333,8 +411,42 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
     cover_table = None
     if scenario.cover:
         cover_table = cover_report(cover, flow, periods)
+    with timer.stage("indicators"):
+        rep = scenario.report
+        snapshots = flow.simulation.snapshots
+        area = arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
+        regulated = regulated_growing_stock_m3(curves, arrays, area)
+        verdict = judge(
+            wood_flow,
+            flow,
+            scenario,
+            ltsy["at_culmination"],
+            regulated,
+            stable_periods_for(periods, fcfg.long_term_periods),
+            cover_table,
+        )
+        lp_rec = lp_record(lp, flow, scenario)
+        indicators = horizon_indicators(
+            wood_flow,
+            flow,
+            scenario,
+            inventory.report.area_ha,
+            float(inventory.netdown.harvestable_ha.sum()),
+            ltsy,
+            regulated,
+            verdict,
+            lp_rec,
+            monte_carlo,
+        )
+        age_classes = age_class_table(
+            snapshots, inventory.stands, periods, rep.age_class_years, rep.age_class_width_years
+        )
+        stand_ages = stand_ages_table(snapshots, inventory.stands, periods, rep.age_class_years)
+        breakdown = harvest_breakdown(flow, inventory.stands, periods)
+        curve_table, curve_sums = curves_table(scenario, inventory.stands)
+    log.info("verdict: %s", verdict.statement)
     result = RunResult(
-        out,
+        None,
         inventory,
         flow,
         wood_flow,
@@ -345,25 +457,18 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
         scenario.landbase.write_harvestable_layer,
         ltsy,
         openings,
-        lp_record(lp, flow, scenario),
+        lp_rec,
         cover_table,
         monte_carlo,
+        verdict=verdict,
+        indicators=indicators,
+        age_classes=age_classes,
+        stand_ages=stand_ages,
+        harvest_breakdown=breakdown,
+        regulated_hlb_stock_m3=regulated,
+        curves=curve_table,
+        curve_summaries=curve_sums,
     )
-    for name, _, case in scenario.sensitivity:  # each case in full, written with the base
-        if name in MANAGED:
-            raise InputError(f"[[sensitivity]] name {name!r} is the name of an output file")
-        log.info("sensitivity case %r ...", name)
-        result.cases[name] = run(case, None, strict=strict)
-    if out is not None:
-        with staged_output(out, managed) as tmp:
-            with timer.stage("write outputs"):
-                write_tables(result, tmp)
-                for (name, _, case), sub in zip(
-                    scenario.sensitivity, result.cases.values(), strict=True
-                ):
-                    (tmp / name).mkdir()
-                    write_outputs(sub, case, tmp / name)
-            write_json(tmp / RUN_JSON, run_record(result, scenario))
     return result
 
 
@@ -551,6 +656,7 @@ def lp_schedule(
     scenario: Scenario,
     adjacency: Adjacency | None = None,
     cover: CoverRules | None = None,
+    snapshots: tuple[int, ...] = (),
 ) -> FlowResult:
     """Map the LP onto stands: each stratum's stands (in id order) are planned for the periods
     in which the LP cuts the stratum's area, and the scheduler then takes the LP's harvest of
@@ -580,6 +686,7 @@ def lp_schedule(
         spatial=spatial,
         cover=cover,
         disturbance=scenario.disturbance.annual_rate,
+        snapshots=snapshots,
     )
     got, want = float(sim.harvest_m3.sum()), float(lp.harvest_m3.sum())
     gap = (want - got) / want if want > 0 else 0.0
@@ -707,82 +814,6 @@ def check_openings(openings: pd.DataFrame, harvest: HarvestConfig) -> None:
         raise RuntimeError(f"spatial rules broken in the schedule: {bad.head().to_dict('records')}")
 
 
-def write_tables(result: RunResult, directory: Path) -> None:
-    """Write the GeoPackage and the wood-flow CSV into ``directory``."""
-    gpkg = directory / GPKG_NAME
-    write_gpkg_layer(gpkg, result.stands, "stands")
-    write_gpkg_layer(gpkg, result.harvests, "harvests")
-    write_gpkg_layer(gpkg, result.wood_flow, "wood_flow", spatial=False)
-    write_gpkg_layer(gpkg, result.products, "wood_flow_by_product", spatial=False)
-    write_gpkg_layer(gpkg, result.inventory.netdown.table, "netdown", spatial=False)
-    if result.write_harvestable_layer:
-        write_gpkg_layer(gpkg, harvestable_layer(result.inventory), "harvestable")
-    result.wood_flow.to_csv(directory / WOOD_FLOW_CSV, index=False)
-    result.products.to_csv(directory / PRODUCTS_CSV, index=False)
-    result.inventory.netdown.table.to_csv(directory / NETDOWN_CSV, index=False)
-    if result.monte_carlo is not None:
-        write_gpkg_layer(gpkg, result.monte_carlo, "monte_carlo", spatial=False)
-        result.monte_carlo.to_csv(directory / MONTE_CARLO_CSV, index=False)
-    if result.cover is not None:
-        write_gpkg_layer(gpkg, result.cover, "cover", spatial=False)
-        result.cover.to_csv(directory / COVER_CSV, index=False)
-    if result.openings is not None:
-        write_gpkg_layer(gpkg, result.openings, "openings", spatial=False)
-        result.openings.to_csv(directory / OPENINGS_CSV, index=False)
-
-
-def write_outputs(result: RunResult, scenario: Scenario, directory: Path) -> None:
-    """Write every output (tables and run.json) into an existing ``directory``."""
-    write_tables(result, directory)
-    write_json(directory / RUN_JSON, run_record(result, scenario))
-
-
-def run_record(result: RunResult, scenario: Scenario) -> dict:
-    """The provenance of a run: versions, the resolved scenario, input checksums, timings."""
-    inputs = {}
-    if scenario.source is not None:
-        inputs[str(scenario.source)] = sha256_file(scenario.source)
-    inputs[str(scenario.inventory.path)] = sha256_file(scenario.inventory.path)
-    for sp in scenario.species.values():
-        if sp.table_csv is not None:
-            inputs[str(sp.table_csv)] = sha256_file(sp.table_csv)
-    for path in [scenario.inventory.site_index_raster] + [
-        p for st in scenario.landbase.steps for p in (st.layer, st.raster)
-    ]:
-        if path is not None:
-            inputs[str(path)] = sha256_file(path)
-    flow = result.flow
-    return {
-        "foresight_version": library_versions()["foresight"],
-        "created_utc": datetime.now(UTC).isoformat(timespec="seconds"),
-        "versions": library_versions(),
-        "scenario": scenario.to_dict(),
-        "inputs_sha256": inputs,
-        "inventory": {
-            "stands": result.inventory.report.stands,
-            "area_ha": result.inventory.report.area_ha,
-            "crs": result.inventory.report.crs,
-            "area_method": result.inventory.report.area_method,
-            "repaired_geometries": result.inventory.report.repaired_geometries,
-            "harvestable_ha": float(result.inventory.netdown.harvestable_ha.sum()),
-        },
-        "flow": {
-            "policy": flow.policy,
-            "method": scenario.flow.method,
-            "level_m3_per_period": flow.level_m3_per_period,
-            "level_m3_per_year": flow.level_m3_per_year,
-            "binding": flow.binding,
-            "search_steps": flow.steps,
-            **{k: v for k, v in flow.details.items()},
-            "long_term_sustained_yield_m3_per_year": result.long_term_sustained_yield,
-            "initial_growing_stock_m3": flow.simulation.initial_stock_m3,
-            "ending_growing_stock_m3": flow.simulation.ending_stock_m3,
-        },
-        "lp": result.lp,
-        "timings_s": result.timings_s,
-    }
-
-
 @dataclass
 class CurvesResult:
     """The curves report: the table, its notes, and the files written (if any)."""
@@ -810,48 +841,15 @@ def curves(
             raise OutputError(f"--out {out}: exists and is not a directory")
         replace_file(out / CURVES_CSV, lambda p: table.to_csv(p, index=False))
         files.append(out / CURVES_CSV)
-        for code, sums in summaries.items():
-            # the figure shows the site value holding the most area
-            sites = table[table["species"] == code].reset_index(drop=True)
-            main = sums[int(sites["area_ha"].to_numpy().argmax())]
+        for code, main in dominant_sites(table, summaries).items():
             path = out / FIGURES_DIR / f"curves_{code}.png"
             curve = curve_from_config(scenario.species[code])
-            age = _figure_age(main, scenario.growth.max_age_years)
+            age = figure_age(main, scenario.growth.max_age_years)
             replace_file(
                 path, lambda p, c=code, cv=curve, m=main, a=age: curve_figure(p, c, cv, m, a)
             )
             files.append(path)
     return CurvesResult(table, curve_notes(table), files)
-
-
-def _figure_age(summary, max_age: float) -> float:
-    """Show the curve to about twice its latest marked age, within the search range."""
-    marks = [summary.culmination.age_years, summary.min_harvest_age_years]
-    if summary.fisher is not None:
-        marks.append(summary.fisher.age_years)
-    finite = [m for m in marks if np.isfinite(m)]
-    return float(min(max_age, max(100.0, 2.0 * max(finite)))) if finite else max_age
-
-
-def harvestable_layer(checked: CheckResult) -> gpd.GeoDataFrame:
-    """The netted geometry of each stand's harvestable part (vector steps cut it; raster and
-    percent steps only reduce ``harvestable_ha``)."""
-    s = checked.stands
-    keep = checked.netdown.harvestable_ha > 0
-    frame = pd.DataFrame(
-        {
-            "stand_id": s["stand_id"].to_numpy()[keep],
-            "species": s["species"].to_numpy()[keep],
-            "gross_ha": checked.netdown.gross_ha[keep],
-            "harvestable_ha": checked.netdown.harvestable_ha[keep],
-        }
-    )
-    geom = checked.netdown.remaining_geometry[keep]
-    return gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geom, crs=s.crs).values, crs=s.crs)
-
-
-COMPARISON_CSV = "comparison.csv"
-COMPARISON_PNG = "comparison.png"
 
 
 def compare(run_dirs: list[str | Path], out_dir: str | Path) -> pd.DataFrame:

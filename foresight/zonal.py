@@ -81,3 +81,25 @@ def zonal(geoms: np.ndarray, raster: RasterData, threshold: float | None = None)
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = np.where(cells > 0, total / np.maximum(cells, 1), np.nan)
     return Zonal(cells, mean, above, sampled)
+
+
+def stand_grid(
+    geoms: np.ndarray, cell: float, bounds: tuple[float, float, float, float] | None = None
+) -> tuple[np.ndarray, rasterio.Affine]:
+    """Label raster of the stands on a north-up grid of square ``cell`` (in CRS units) over
+    ``bounds`` (default: the stands' bounds): each cell holds 1 + the index of the stand its
+    centre lies in, 0 outside every stand. Returns the labels and the grid's transform."""
+    x0, y0, x1, y1 = bounds if bounds is not None else shapely.total_bounds(geoms)
+    width = max(1, int(np.ceil((x1 - x0) / cell)))
+    height = max(1, int(np.ceil((y1 - y0) / cell)))
+    transform = rasterio.transform.from_origin(x0, y1, cell, cell)
+    labels = np.zeros((height, width), dtype=np.int32)
+    live = np.flatnonzero(~(shapely.is_empty(geoms) | shapely.is_missing(geoms)))
+    if len(live):
+        rasterio.features.rasterize(
+            zip(geoms[live], live + 1, strict=True),
+            out=labels,
+            transform=transform,
+            all_touched=False,
+        )
+    return labels, transform

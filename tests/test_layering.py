@@ -20,6 +20,7 @@ LAYER = {
     "landbase": 3,
     "reporting": 4,
     "pipeline": 5,
+    "publish": 5,
     "__init__": 6,
     "cli": 7,
 }

@@ -81,9 +81,10 @@ def _setup_logging(verbose: int, quiet: bool) -> None:
     level = logging.ERROR if quiet else (logging.DEBUG if verbose > 1 else logging.INFO)
     handler = logging.StreamHandler(sys.stderr)
     handler.setFormatter(logging.Formatter("foresight: %(message)s"))
+    handler.setLevel(level)  # the console's level; run.log keeps INFO and above regardless
     logger = logging.getLogger("foresight")
     logger.handlers[:] = [handler]
-    logger.setLevel(level)
+    logger.setLevel(min(level, logging.INFO))
     logger.propagate = False
 
 

@@ -12,8 +12,10 @@ def add_parser(sub, common: argparse.ArgumentParser) -> None:  # noqa: ANN001
         "run",
         parents=[common],
         help="project and schedule; write outputs",
-        description="Project the stands, find the even-flow level, write "
-        "projection.gpkg, wood_flow.csv and run.json into DIR.",
+        description="Project the stands, schedule harvests under the flow policy, judge "
+        "whether the flow is sustainable, and write report.html, projection.gpkg, the "
+        "tables as CSV, figures/, run.json and run.log into DIR (and each [[sensitivity]] "
+        "case into DIR/<name>/).",
     )
     p.add_argument("scenario", help="scenario TOML file")
     p.add_argument("--out", required=True, metavar="DIR", help="output directory")
@@ -73,7 +75,11 @@ def handle(args: argparse.Namespace) -> int:
             f"growing stock: {wf['growing_stock_start_m3'].iloc[0]:,.0f} m3 at start, "
             f"{wf['growing_stock_end_m3'].iloc[-1]:,.0f} m3 at the end"
         )
-        print(f"outputs in {result.out_dir} (projection.gpkg, wood_flow.csv, run.json)")
+        print(f"verdict: {result.verdict.headline} (report.html has the checks)")
+        print(
+            f"outputs in {result.out_dir}: report.html (open it in a browser), "
+            "projection.gpkg (open it in a GIS), the tables as CSV, figures/, run.json, run.log"
+        )
         print(
             "These are planning estimates; defer to local forest-practice law and to "
             "licensed professionals."

@@ -1,4 +1,5 @@
-"""Raster input through rasterio: read the window of a band that covers given bounds."""
+"""Raster input and output through rasterio: read the window of a band over given bounds,
+write a one-band GeoTIFF."""
 
 from __future__ import annotations
 
@@ -8,6 +9,7 @@ from pathlib import Path
 import numpy as np
 import pyproj
 import rasterio
+import rasterio.crs
 import rasterio.windows
 from affine import Affine
 from rasterio.errors import RasterioIOError
@@ -65,3 +67,31 @@ def read_window(
         data = src.read(band, window=win, masked=True)
         values = np.ma.filled(data.astype(np.float64), np.nan)
         return RasterData(path, values, src.window_transform(win), crs, full)  # type: ignore
+
+
+def write_geotiff(
+    path: Path,
+    values: np.ndarray,
+    transform: Affine,
+    crs: pyproj.CRS,
+    nodata: float,
+    description: str,
+) -> None:
+    """One band, DEFLATE-compressed and tiled, with its nodata value and a band description."""
+    profile = {
+        "driver": "GTiff",
+        "height": values.shape[0],
+        "width": values.shape[1],
+        "count": 1,
+        "dtype": values.dtype.name,
+        "crs": rasterio.crs.CRS.from_wkt(crs.to_wkt()),
+        "transform": transform,
+        "nodata": nodata,
+        "compress": "deflate",
+        "tiled": True,
+        "blockxsize": 256,
+        "blockysize": 256,
+    }
+    with rasterio.open(path, "w", **profile) as dst:
+        dst.write(values, 1)
+        dst.set_band_description(1, description)

@@ -1,7 +1,10 @@
-"""Vector I/O through pyogrio (GDAL): read a stand layer, write GeoPackage layers and tables."""
+"""Vector I/O through pyogrio (GDAL): read a stand layer, write GeoPackage layers and tables;
+register SQL views as feature layers (sqlite3, the GeoPackage being an SQLite database)."""
 
 from __future__ import annotations
 
+import sqlite3
+from contextlib import closing
 from pathlib import Path
 
 import geopandas as gpd
@@ -64,3 +67,41 @@ def write_gpkg_layer(path: Path, frame: pd.DataFrame, layer: str, spatial: bool 
             use_arrow=True,
             append=path.exists(),
         )
+
+
+def add_feature_views(
+    path: Path,
+    views: list[tuple[str, str, str, str]],
+    indexes: list[tuple[str, tuple[str, ...]]] = (),
+) -> None:
+    """Add SQL views to a GeoPackage as feature tables GDAL and GIS viewers list as layers.
+
+    Each view is ``(name, select, like, description)``: the SELECT must return the fid and
+    geometry column of the feature table ``like`` (``{geom}`` in it stands for that column's
+    name), whose geometry column, type, SRS and extent the view is registered with (OGC GeoPackage 1.3, Req. 14: a gpkg_contents row may name a
+    view). ``indexes`` adds SQLite indexes on (table, columns) that the views filter by.
+    """
+    with closing(sqlite3.connect(path)) as con, con:
+        for table, cols in indexes:
+            name = f"idx_{table}_{'_'.join(cols)}"
+            listed = ", ".join(f'"{c}"' for c in cols)
+            con.execute(f'CREATE INDEX IF NOT EXISTS "{name}" ON "{table}" ({listed})')
+        for name, select, like, description in views:
+            column, gtype, srs, z, m = con.execute(
+                "SELECT column_name, geometry_type_name, srs_id, z, m "
+                "FROM gpkg_geometry_columns WHERE table_name = ?",
+                (like,),
+            ).fetchone()
+            con.execute(f'CREATE VIEW "{name}" AS {select.replace("{geom}", column)}')
+            con.execute(
+                "INSERT INTO gpkg_contents (table_name, data_type, identifier, description, "
+                "last_change, min_x, min_y, max_x, max_y, srs_id) "
+                "SELECT ?, 'features', ?, ?, strftime('%Y-%m-%dT%H:%M:%fZ', 'now'), "
+                "min_x, min_y, max_x, max_y, srs_id FROM gpkg_contents WHERE table_name = ?",
+                (name, name, description, like),
+            )
+            con.execute(
+                "INSERT INTO gpkg_geometry_columns (table_name, column_name, "
+                "geometry_type_name, srs_id, z, m) VALUES (?, ?, ?, ?, ?, ?)",
+                (name, column, gtype, srs, z, m),
+            )

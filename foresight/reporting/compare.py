@@ -9,7 +9,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from foresight.reporting.figures import DPI, plt
+from foresight.reporting.figures import SIZES, period_steps, plt, save
+from foresight.reporting.indicators import term_rows
 
 IGNORED = ("overrides", "sensitivity", "source")  # provenance, not assumptions
 
@@ -27,17 +28,15 @@ def flatten(d: Any, prefix: str = "") -> dict[str, Any]:
     return out
 
 
-def _mean_per_year(wf: pd.DataFrame, rows: slice) -> float:
-    return float(wf["harvest_m3_per_year"].iloc[rows].mean())
-
-
 def comparison_table(runs: list[tuple[str, dict, pd.DataFrame]]) -> pd.DataFrame:
     """One row per run: levels, indicators, differences to the first run, differing keys."""
     rows = []
     first_keys = flatten(runs[0][1]["scenario"])
     for name, rec, wf in runs:
-        n = len(wf)
-        mid = n // 2
+        terms = {
+            f"{term}_m3_per_year": float(wf["harvest_m3_per_year"].iloc[span].mean())
+            for term, span in term_rows(len(wf)).items()
+        }
         keys = flatten(rec["scenario"])
         diffs = [
             f"{k}: {first_keys.get(k)!r} -> {keys.get(k)!r}"
@@ -53,15 +52,14 @@ def comparison_table(runs: list[tuple[str, dict, pd.DataFrame]]) -> pd.DataFrame
                 "scenario": rec["scenario"]["scenario"]["name"],
                 "policy": flow["policy"],
                 "level_m3_per_year": flow["level_m3_per_year"],
-                "short_term_m3_per_year": _mean_per_year(wf, slice(0, 2)),
-                "mid_term_m3_per_year": _mean_per_year(wf, slice(max(mid - 1, 0), mid + 1)),
-                "long_term_m3_per_year": _mean_per_year(wf, slice(max(n - 2, 0), n)),
+                **terms,
                 "total_harvest_m3": float(wf["harvest_m3"].sum()),
                 "ending_stock_ratio": flow["ending_growing_stock_m3"]
                 / flow["initial_growing_stock_m3"],
                 "harvestable_ha": rec["inventory"].get("harvestable_ha", np.nan),
                 "ltsy_m3_per_year": ltsy.get("at_culmination", np.nan),
                 "lp_gap": lp.get("gap_of_schedule_to_lp", np.nan),
+                "sustainable": (rec.get("verdict") or {}).get("sustainable"),
                 "differences": "; ".join(diffs),
             }
         )
@@ -80,12 +78,11 @@ def comparison_table(runs: list[tuple[str, dict, pd.DataFrame]]) -> pd.DataFrame
 def comparison_figure(path: Path, runs: list[tuple[str, dict, pd.DataFrame]]) -> None:
     """The harvest forecasts of all runs on one set of axes (greyscale line styles)."""
     styles = ["-", "--", ":", "-.", (0, (5, 1)), (0, (3, 1, 1, 1))]
-    fig, ax = plt.subplots(figsize=(7.0, 4.0), layout="constrained")
+    fig, ax = plt.subplots(figsize=SIZES["chart"], layout="constrained")
     for k, (name, _, wf) in enumerate(runs):
         grey = 0.6 * k / max(len(runs) - 1, 1)
         ax.step(
-            wf["start_year"],
-            wf["harvest_m3_per_year"],
+            *period_steps(wf, "harvest_m3_per_year"),
             where="post",
             color=str(grey),
             ls=styles[k % len(styles)],
@@ -96,5 +93,4 @@ def comparison_figure(path: Path, runs: list[tuple[str, dict, pd.DataFrame]]) ->
     ax.set_ylabel("harvest (m3/year)")
     ax.set_ylim(bottom=0)
     ax.legend(frameon=False, fontsize=8)
-    fig.savefig(path, dpi=DPI)
-    plt.close(fig)
+    save(fig, path)

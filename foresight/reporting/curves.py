@@ -118,3 +118,32 @@ def notes(table: pd.DataFrame) -> list[str]:
                 "stands are never eligible"
             )
     return out
+
+
+def rotation_summary(table: pd.DataFrame) -> pd.DataFrame:
+    """One row per species from the curves table: site index range and area, and the
+    area-weighted MAI culmination age, maximum MAI, minimum harvest age and Faustmann
+    rotation (infinite ages, never met, are left out of the means)."""
+    rows = []
+    for code, g in table.groupby("species", sort=True):
+        w = g["area_ha"].to_numpy()
+
+        def mean(col: str, g: pd.DataFrame = g, w: np.ndarray = w) -> float:
+            v = g[col].to_numpy(dtype=np.float64)
+            ok = np.isfinite(v) & (w > 0)
+            return float(np.average(v[ok], weights=w[ok])) if ok.any() else math.nan
+
+        rows.append(
+            {
+                "species": code,
+                "curve": g["curve"].iloc[0],
+                "site_index_min": float(g["site_index"].min()),
+                "site_index_max": float(g["site_index"].max()),
+                "area_ha": float(w.sum()),
+                "culmination_age_years": mean("culmination_age_years"),
+                "max_mai_m3_ha_yr": mean("max_mai_m3_ha_yr"),
+                "min_harvest_age_years": mean("min_harvest_age_years"),
+                "faustmann_rotation_years": mean("faustmann_rotation_years"),
+            }
+        )
+    return pd.DataFrame(rows)

@@ -1,4 +1,10 @@
-"""Figures (matplotlib, Agg backend): plain, print-resolution, readable in greyscale."""
+"""Figures (matplotlib, Agg backend): plain, print-resolution, readable in greyscale.
+
+Every figure is drawn at a fixed size (:data:`SIZES`, inches at :data:`DPI`), so its pixel size
+is known in advance (docs/outputs.md lists them). Lines differ by grey level *and* dash
+pattern; the map uses a colour scale whose lightness rises steadily (viridis), so it reads in
+greyscale too.
+"""
 
 from __future__ import annotations
 
@@ -10,11 +16,273 @@ matplotlib.use("Agg")  # files only; never a window
 
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
+import pandas as pd  # noqa: E402
+from matplotlib.colors import BoundaryNorm, ListedColormap  # noqa: E402
 
 from foresight.growth import YieldCurve  # noqa: E402
 from foresight.growth.rules import SiteSummary  # noqa: E402
 
 DPI = 200
+SIZES = {  # inches; at DPI 200: 1400 x 800, 1400 x 1000 and 1400 x 1200 pixels
+    "chart": (7.0, 4.0),
+    "panels": (7.0, 5.0),
+    "map": (7.0, 6.0),
+}
+
+
+def save(fig, path: Path) -> None:  # noqa: ANN001
+    fig.savefig(path, dpi=DPI)
+    plt.close(fig)
+
+
+def period_steps(wood_flow: pd.DataFrame, column: str) -> tuple[np.ndarray, np.ndarray]:
+    """x (years) and y for a step line holding each period's value over the period."""
+    x = np.r_[wood_flow["start_year"].to_numpy(), wood_flow["end_year"].iloc[-1] + 1]
+    y = wood_flow[column].to_numpy()
+    return x, np.r_[y, y[-1]]
+
+
+def harvest_figure(
+    path: Path,
+    wood_flow: pd.DataFrame,
+    ltsy: dict[str, float],
+    band: tuple[float, float] | None = None,
+    failing_period: int | None = None,
+) -> None:
+    """Harvest per year by period, with the long-term sustained yield, the band limits of an
+    even flow (``band``: lower and upper m3/year) and the LP's harvest when there is one."""
+    fig, ax = plt.subplots(figsize=SIZES["chart"], layout="constrained")
+    x, y = period_steps(wood_flow, "harvest_m3_per_year")
+    ax.step(x, y, where="post", color="black", lw=2.0, label="harvest")
+    if wood_flow["lp_bound_m3"].notna().all():
+        lp = wood_flow.assign(lp=wood_flow["lp_bound_m3"] / (x[1] - x[0]))
+        ax.step(
+            *period_steps(lp, "lp"),
+            where="post",
+            color="0.5",
+            lw=1.2,
+            ls="-.",
+            label="harvest LP (upper bound)",
+        )
+    if band is not None:
+        ax.axhspan(band[0], band[1], color="0.9", zorder=0, label="flow band")
+    styles = {"at_culmination": ("0.3", "--"), "at_min_harvest_age": ("0.55", ":")}
+    labels = {
+        "at_culmination": "LTSY at MAI culmination",
+        "at_min_harvest_age": "LTSY at minimum harvest ages",
+    }
+    for key, value in ltsy.items():
+        colour, ls = styles[key]
+        ax.axhline(value, color=colour, ls=ls, lw=1.3, label=f"{labels[key]} ({value:,.0f})")
+    if failing_period is not None:
+        row = wood_flow.iloc[failing_period - 1]
+        ax.plot(
+            row["start_year"] + (x[1] - x[0]) / 2,
+            row["harvest_m3_per_year"],
+            marker="v",
+            color="black",
+            ms=9,
+            ls="none",
+            label=f"first failing period ({failing_period})",
+        )
+    ax.set_xlabel("year")
+    ax.set_ylabel("harvest (m3/year)")
+    ax.set_ylim(bottom=0)
+    ax.set_xlim(x[0], x[-1])
+    ax.yaxis.set_major_formatter(lambda v, _: f"{v:,.0f}")
+    ax.legend(frameon=False, fontsize=7, loc="lower left", ncols=2)
+    ax.set_title("Harvest forecast", fontsize=10, loc="left")
+    save(fig, path)
+
+
+def growing_stock_figure(
+    path: Path, wood_flow: pd.DataFrame, regulated_hlb_m3: float | None = None
+) -> None:
+    """Growing stock on the whole forest and on the harvestable land base at period
+    boundaries, with the stock of a regulated forest on the harvestable land."""
+    years = np.r_[wood_flow["start_year"].to_numpy(), wood_flow["end_year"].iloc[-1] + 1]
+    total = np.r_[
+        wood_flow["growing_stock_start_m3"].to_numpy(), wood_flow["growing_stock_end_m3"].iloc[-1]
+    ]
+    hlb = np.r_[
+        wood_flow["hlb_growing_stock_start_m3"].to_numpy(),
+        wood_flow["hlb_growing_stock_end_m3"].iloc[-1],
+    ]
+    fig, ax = plt.subplots(figsize=SIZES["chart"], layout="constrained")
+    ax.plot(years, total / 1e6, color="black", lw=2.0, marker="o", ms=3, label="whole forest")
+    ax.plot(
+        years,
+        hlb / 1e6,
+        color="0.45",
+        lw=1.6,
+        ls="--",
+        marker="s",
+        ms=3,
+        label="harvestable land base",
+    )
+    if regulated_hlb_m3:
+        ax.axhline(
+            regulated_hlb_m3 / 1e6,
+            color="0.3",
+            ls=":",
+            lw=1.3,
+            label="regulated forest on the harvestable land base",
+        )
+    ax.set_xlabel("year")
+    ax.set_ylabel("growing stock (million m3)")
+    ax.set_ylim(bottom=0)
+    ax.legend(frameon=False, fontsize=8, loc="lower left")
+    ax.set_title("Growing stock", fontsize=10, loc="left")
+    save(fig, path)
+
+
+def _grid(n: int) -> tuple[int, int]:
+    cols = min(n, 3)
+    return -(-n // cols), cols
+
+
+def age_class_figure(path: Path, age_classes: pd.DataFrame) -> None:
+    """Area by age class at each report year, one panel a year (the same axes): harvestable
+    area dark, the rest light, stacked."""
+    years = list(dict.fromkeys(age_classes["year"]))
+    per = (
+        age_classes.groupby(["year", "age_from_years"], sort=True)[["area_ha", "harvestable_ha"]]
+        .sum()
+        .reset_index()
+    )
+    width = float(age_classes["age_to_years"].iloc[0] - age_classes["age_from_years"].iloc[0])
+    rows, cols = _grid(len(years))
+    fig, axes = plt.subplots(
+        rows,
+        cols,
+        figsize=SIZES["panels"],
+        layout="constrained",
+        sharex=True,
+        sharey=True,
+        squeeze=False,
+    )
+    for ax, year in zip(axes.ravel(), years, strict=False):
+        g = per[per["year"] == year]
+        x = g["age_from_years"].to_numpy() + width / 2
+        ax.bar(x, g["harvestable_ha"], width=width * 0.9, color="0.25", label="harvestable")
+        ax.bar(
+            x,
+            g["area_ha"] - g["harvestable_ha"],
+            width=width * 0.9,
+            bottom=g["harvestable_ha"],
+            color="0.75",
+            label="other forest",
+        )
+        ax.set_title(str(year), fontsize=9, loc="left")
+        ax.tick_params(labelsize=7)
+    for ax in axes.ravel()[len(years) :]:
+        ax.set_visible(False)
+    for ax in axes[-1]:
+        ax.set_xlabel("age (years)", fontsize=8)
+    for ax in axes[:, 0]:
+        ax.set_ylabel("area (ha)", fontsize=8)
+    axes[0, 0].legend(frameon=False, fontsize=7)
+    fig.suptitle("Age-class distribution", fontsize=10, x=0.01, ha="left")
+    save(fig, path)
+
+
+def cover_figure(path: Path, cover: pd.DataFrame, period_start_years: np.ndarray) -> None:
+    """Each cover target's share by period against its target, one panel a target."""
+    groups = list(cover.groupby(["zone", "rule"], sort=False))
+    rows, cols = _grid(len(groups))
+    fig, axes = plt.subplots(
+        rows, cols, figsize=SIZES["panels"], layout="constrained", sharex=True, squeeze=False
+    )
+    for ax, ((zone, rule), g) in zip(axes.ravel(), groups, strict=False):
+        years = period_start_years[g["period"].to_numpy() - 1]
+        ax.plot(years, 100 * g["share"], color="black", lw=1.8, marker="o", ms=3, label="share")
+        ax.axhline(100 * g["target"].iloc[0], color="0.4", ls="--", lw=1.3, label="target")
+        missed = g[~g["met"].astype(bool)]
+        if len(missed):
+            ax.plot(
+                period_start_years[missed["period"].to_numpy() - 1],
+                100 * missed["share"],
+                ls="none",
+                marker="x",
+                color="black",
+                ms=7,
+                label="missed",
+            )
+        ax.set_title(f"zone {zone}: {rule}", fontsize=8, loc="left")
+        ax.set_ylim(0, max(100 * g["share"].max(), 100 * g["target"].iloc[0]) * 1.15 + 1)
+        ax.tick_params(labelsize=7)
+        ax.set_ylabel("share of area (%)", fontsize=8)
+    for ax in axes.ravel()[len(groups) :]:
+        ax.set_visible(False)
+    axes[0, 0].legend(frameon=False, fontsize=7)
+    fig.suptitle("Cover targets", fontsize=10, x=0.01, ha="left")
+    save(fig, path)
+
+
+def harvest_map_figure(
+    path: Path,
+    labels: np.ndarray,
+    extent: tuple[float, float, float, float],
+    first_period: np.ndarray,
+    periods: int,
+    start_years: np.ndarray,
+) -> None:
+    """Map of the first harvest period of each stand from a label raster (1 + stand index per
+    cell, 0 outside): periods on a lightness scale, stands never cut light grey."""
+    colours = plt.get_cmap("viridis")(np.linspace(0.0, 1.0, periods))
+    # per label: white outside the stands, light grey never cut, else the period's colour
+    table = np.vstack([[1.0, 1.0, 1.0, 1.0], np.empty((len(first_period), 4))])
+    table[1:] = [0.85, 0.85, 0.85, 1.0]
+    cut = first_period > 0
+    table[1:][cut] = colours[first_period[cut] - 1]
+    fig, ax = plt.subplots(figsize=SIZES["map"], layout="constrained")
+    ax.imshow(table[labels], extent=extent, interpolation="nearest")
+    cmap = ListedColormap(colours)
+    norm = BoundaryNorm(np.arange(0.5, periods + 1.5), cmap.N)
+    bar = fig.colorbar(
+        plt.cm.ScalarMappable(norm=norm, cmap=cmap), ax=ax, shrink=0.8, label="first harvest period"
+    )
+    ticks = np.unique(np.linspace(1, periods, min(periods, 10)).round().astype(int))
+    bar.set_ticks(ticks, labels=[f"{t} ({start_years[t - 1]})" for t in ticks], fontsize=7)
+    ax.set_aspect("equal")
+    ax.ticklabel_format(useOffset=False, style="plain")
+    ax.tick_params(labelsize=7)
+    ax.set_title(
+        "First harvest period of each stand (light grey: not cut in the horizon)",
+        fontsize=9,
+        loc="left",
+    )
+    save(fig, path)
+
+
+def monte_carlo_figure(path: Path, monte_carlo: pd.DataFrame, wood_flow: pd.DataFrame) -> None:
+    """Fan chart of harvest over the disturbance replicates: P10-P90 band, median, target."""
+    L = float(wood_flow["end_year"].iloc[0] - wood_flow["start_year"].iloc[0] + 1)
+    mc = monte_carlo.assign(
+        start_year=wood_flow["start_year"].to_numpy(), end_year=wood_flow["end_year"].to_numpy()
+    )
+    for col in ("p10_m3", "p50_m3", "p90_m3", "target_m3"):
+        mc[col + "_y"] = mc[col] / L
+    x, lo = period_steps(mc, "p10_m3_y")
+    _, hi = period_steps(mc, "p90_m3_y")
+    fig, ax = plt.subplots(figsize=SIZES["chart"], layout="constrained")
+    ax.fill_between(x, lo, hi, step="post", color="0.8", label="P10 to P90")
+    ax.step(*period_steps(mc, "p50_m3_y"), where="post", color="black", lw=1.8, label="median")
+    ax.step(
+        *period_steps(mc, "target_m3_y"),
+        where="post",
+        color="0.4",
+        ls="--",
+        lw=1.3,
+        label="target (expected-value schedule)",
+    )
+    ax.set_xlabel("year")
+    ax.set_ylabel("harvest (m3/year)")
+    ax.set_ylim(bottom=0)
+    ax.yaxis.set_major_formatter(lambda v, _: f"{v:,.0f}")
+    ax.legend(frameon=False, fontsize=8, loc="lower left")
+    ax.set_title("Harvest under random disturbance", fontsize=10, loc="left")
+    save(fig, path)
 
 
 def curve_figure(
@@ -24,7 +292,7 @@ def curve_figure(
     t = np.linspace(0.5, max_age, 600)
     si = np.full(t.shape, summary.site_index)
     v = curve.volume_m3_ha(t, si)
-    fig, ax = plt.subplots(figsize=(6.5, 4.0), layout="constrained")
+    fig, ax = plt.subplots(figsize=SIZES["chart"], layout="constrained")
     ax.plot(t, v, color="black", lw=1.8, label="volume (m3/ha)")
     ax.set_xlabel("age (years)")
     ax.set_ylabel("volume (m3/ha)")
@@ -67,5 +335,4 @@ def curve_figure(
     )
     ax.set_title(f"{code}, site index {summary.site_index:g} m", fontsize=10, loc="left")
     ax.set_xlim(0, max_age)
-    fig.savefig(path, dpi=DPI)
-    plt.close(fig)
+    save(fig, path)

@@ -16,36 +16,60 @@ from foresight.schedule import FlowResult
 
 
 def wood_flow_table(
-    flow: FlowResult, periods: Periods, lp_bound: np.ndarray | None = None
+    flow: FlowResult,
+    periods: Periods,
+    lp_bound: np.ndarray | None = None,
+    revenue: tuple[np.ndarray, np.ndarray] | None = None,
 ) -> pd.DataFrame:
-    """One row per period: harvest, area, mean harvest age, growing stock and growth, and the
-    LP's harvest of the period when an LP was solved."""
+    """One row per period: harvest, area, mean harvest age, growing stock and growth, what
+    the flow policy required and whether it was met, the LP's harvest of the period when an
+    LP was solved, and the net revenue (``revenue``: net and discounted, per period)."""
     sim = flow.simulation
+    P, L = periods.count, periods.period_years
     h, ha = sim.harvest_m3, sim.harvest_ha
     with np.errstate(invalid="ignore", divide="ignore"):
         mean_age = np.where(ha > 0, sim.harvest_age_area / np.where(ha > 0, ha, 1.0), np.nan)
+        per_ha = np.where(ha > 0, h / np.where(ha > 0, ha, 1.0), np.nan)
         change = np.r_[
             np.nan, np.where(h[:-1] > 0, h[1:] / np.where(h[:-1] > 0, h[:-1], 1) - 1, np.nan)
         ]
     gs0, gs1 = sim.growing_stock_start_m3, sim.growing_stock_end_m3
+    hlb0 = sim.hlb_stock_start_m3
+    hlb1 = np.r_[hlb0[1:], sim.ending_hlb_stock_m3]
+    # explicit targets (and the LP's, in the optimised mode) are what a period must take;
+    # the other policies fail a period only below their floor
+    takes_target = flow.policy in ("targets", "optimize")
+    required = sim.target_m3 if takes_target else sim.floor_m3
+    if revenue is None:
+        revenue = (np.full(P, np.nan), np.full(P, np.nan))
     return pd.DataFrame(
         {
-            "period": np.arange(1, periods.count + 1),
+            "period": np.arange(1, P + 1),
             "start_year": periods.start_years,
             "end_year": periods.end_years,
             "harvest_year": periods.harvest_years,
             "harvest_m3": h,
-            "harvest_m3_per_year": h / periods.period_years,
+            "harvest_m3_per_year": h / L,
             "harvest_ha": ha,
+            "harvest_ha_per_year": ha / L,
+            "harvest_volume_m3_ha": per_ha,
             "mean_harvest_age_years": mean_age,
             "growing_stock_start_m3": gs0,
             "growing_stock_end_m3": gs1,
+            "hlb_growing_stock_start_m3": hlb0,
+            "hlb_growing_stock_end_m3": hlb1,
             "net_growth_m3": gs1 - gs0 + h,
+            "net_growth_m3_per_year": (gs1 - gs0 + h) / L,
             "change_from_previous": change,
-            "flow_level_m3": np.full(periods.count, flow.level_m3_per_period),
-            "lp_bound_m3": lp_bound if lp_bound is not None else np.full(periods.count, np.nan),
-            "disturbed_ha": sim.disturbed_ha if len(sim.disturbed_ha) else np.zeros(periods.count),
-            "disturbed_m3": sim.disturbed_m3 if len(sim.disturbed_m3) else np.zeros(periods.count),
+            "flow_level_m3": np.full(P, flow.level_m3_per_period),
+            "policy_target_m3": sim.target_m3,
+            "policy_required_m3": required,
+            "meets_policy": h >= required * (1 - 1e-6),
+            "lp_bound_m3": lp_bound if lp_bound is not None else np.full(P, np.nan),
+            "disturbed_ha": sim.disturbed_ha if len(sim.disturbed_ha) else np.zeros(P),
+            "disturbed_m3": sim.disturbed_m3 if len(sim.disturbed_m3) else np.zeros(P),
+            "net_revenue": revenue[0],
+            "discounted_net_revenue": revenue[1],
         }
     )
 

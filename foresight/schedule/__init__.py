@@ -36,10 +36,12 @@ def schedule(
     adjacency=None,  # noqa: ANN001
     cover=None,
     disturbance=0.0,
+    snapshots=(),
 ) -> FlowResult:
     """Run the flow policy of the scenario (``[flow]``, ``[harvest]``) over the stands.
 
-    With ``harvest.greenup_years`` > 0 the ``adjacency`` graph carries the spatial rules.
+    With ``harvest.greenup_years`` > 0 the ``adjacency`` graph carries the spatial rules;
+    the recorded run keeps the stand parts at the period boundaries in ``snapshots``.
     """
     spatial = spatial_rules(harvest_cfg, adjacency)
     common = {
@@ -48,6 +50,7 @@ def schedule(
         "spatial": spatial,
         "cover": cover,
         "disturbance": disturbance,
+        "snapshots": tuple(snapshots),
     }
     if flow_cfg.policy == "targets":
         return run_targets(

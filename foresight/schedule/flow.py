@@ -42,8 +42,21 @@ def _run(rules: dict, level: float, **options) -> Simulation:
     return simulate(level_m3=level, **rules, **options)
 
 
-def _rules(stands, curves, periods, priority, max_area_ha, spatial, cover, disturbance):  # noqa: ANN001, ANN202
+def _rules(  # noqa: ANN202
+    stands,
+    curves,
+    periods,
+    priority,
+    max_area_ha,
+    spatial,
+    cover,
+    disturbance,
+    snapshots=(),  # noqa: ANN001
+):
+    """The simulation options every trial of a search shares (``snapshots``: kept by the
+    recorded runs only)."""
     return {
+        "snapshots": snapshots,
         "stands": stands,
         "curves": curves,
         "periods": periods,
@@ -68,6 +81,7 @@ def find_even_flow(
     spatial: SpatialRules | None = None,
     cover: CoverRules | None = None,
     disturbance: float = 0.0,
+    snapshots: tuple[int, ...] = (),
 ) -> FlowResult:
     """Bisection for the highest feasible even-flow level (see the module docstring).
 
@@ -75,7 +89,9 @@ def find_even_flow(
     over the last that many periods. With ``fixed`` the first periods take those harvests and
     the level applies to the periods after them (band not used).
     """
-    rules = _rules(stands, curves, periods, priority, max_area_ha, spatial, cover, disturbance)
+    rules = _rules(
+        stands, curves, periods, priority, max_area_ha, spatial, cover, disturbance, snapshots
+    )
 
     def trial(level: float, record: bool = False) -> Simulation:
         rule = Sequence(fixed, level) if fixed else EvenFlow(level, band)
@@ -177,6 +193,7 @@ def find_step_down(
     spatial: SpatialRules | None = None,
     cover: CoverRules | None = None,
     disturbance: float = 0.0,
+    snapshots: tuple[int, ...] = (),
 ) -> FlowResult:
     """The highest initial level held as long as possible, then stepped down by at most
     ``step`` a period to the long-term level.
@@ -187,7 +204,9 @@ def find_step_down(
     periods at H0 followed by the step-down is; the longest such k is found by bisection too
     (holding longer is never easier).
     """
-    rules = _rules(stands, curves, periods, priority, max_area_ha, spatial, cover, disturbance)
+    rules = _rules(
+        stands, curves, periods, priority, max_area_ha, spatial, cover, disturbance, snapshots
+    )
     base = find_even_flow(
         stands,
         curves,
@@ -276,9 +295,12 @@ def run_targets(
     spatial: SpatialRules | None = None,
     cover: CoverRules | None = None,
     disturbance: float = 0.0,
+    snapshots: tuple[int, ...] = (),
 ) -> FlowResult:
     """Explicit per-period targets: one run; shortfalls and the ending stock are reported."""
-    rules = _rules(stands, curves, periods, priority, max_area_ha, spatial, cover, disturbance)
+    rules = _rules(
+        stands, curves, periods, priority, max_area_ha, spatial, cover, disturbance, snapshots
+    )
     sim = _run(
         rules,
         0.0,
@@ -324,6 +346,7 @@ def find_nondeclining(
     spatial: SpatialRules | None = None,
     cover: CoverRules | None = None,
     disturbance: float = 0.0,
+    snapshots: tuple[int, ...] = (),
 ) -> FlowResult:
     """A non-declining flow built one period at a time (lexicographic max-min).
 
@@ -331,7 +354,9 @@ def find_nondeclining(
     takes the highest level periods 2..P can hold (never below period 1), and so on. Each
     period's harvest is thus the most that can be held from then on without a decline.
     """
-    rules = _rules(stands, curves, periods, priority, max_area_ha, spatial, cover, disturbance)
+    rules = _rules(
+        stands, curves, periods, priority, max_area_ha, spatial, cover, disturbance, snapshots
+    )
     first = find_even_flow(
         stands,
         curves,

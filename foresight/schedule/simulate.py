@@ -14,6 +14,7 @@ and the area cap allow; a harvest below F_p makes the level H infeasible.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -63,12 +64,30 @@ class Simulation:
     disturbed_m3: NDArray = field(default_factory=lambda: np.zeros(0))
     final_age_years: NDArray = field(default_factory=lambda: np.zeros(0))  # parts at the end
     final_area_ha: NDArray = field(default_factory=lambda: np.zeros(0))
+    # what the flow policy asked of each period (record=True only)
+    target_m3: NDArray = field(default_factory=lambda: np.zeros(0))
+    floor_m3: NDArray = field(default_factory=lambda: np.zeros(0))
+    # the stand parts at chosen period boundaries (record=True only), by boundary index k:
+    # k = 0 is the start, k = p the end of period p (before the next period's harvest)
+    snapshots: dict[int, PartsSnapshot] = field(default_factory=dict)
     # harvest events, one per cut part (record=True only)
     event_stand: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
     event_period: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
     event_age_years: NDArray = field(default_factory=lambda: np.zeros(0))
     event_area_ha: NDArray = field(default_factory=lambda: np.zeros(0))
     event_volume_m3: NDArray = field(default_factory=lambda: np.zeros(0))
+
+
+@dataclass(frozen=True)
+class PartsSnapshot:
+    """The stand parts at one period boundary: each part's stand (row of the stand table), age
+    [years] (negative while regeneration is delayed), area [ha] and whether it lies on the
+    harvestable land base."""
+
+    stand: NDArray[np.int64]
+    age_years: NDArray[np.float64]
+    area_ha: NDArray[np.float64]
+    in_hlb: NDArray[np.bool_]
 
 
 def _pick_prefix(
@@ -114,6 +133,7 @@ def simulate(
     cover: CoverRules | None = None,
     disturbance: float = 0.0,
     rng: np.random.Generator | None = None,
+    snapshots: Sequence[int] = (),
 ) -> Simulation:
     """Run the horizon at flow level ``level_m3`` [m3 per period].
 
@@ -130,7 +150,8 @@ def simulate(
     (:class:`CoverRules`) keeps old- and young-forest shares per zone; it needs
     ``stands.zone_idx``. ``disturbance`` is a stand-replacing rate per year applied at each
     period's midpoint to area not cut in the period: as expected area fractions, or, with
-    ``rng``, as whole stands drawn at random (Monte Carlo).
+    ``rng``, as whole stands drawn at random (Monte Carlo). With ``record``, ``snapshots``
+    names the period boundaries (0 .. periods) at which the stand parts are kept.
     """
     if spatial is not None:
         spatial = spatial.fresh()
@@ -175,11 +196,19 @@ def simulate(
     cover_rows: list[NDArray] = []
     dist_ha = np.zeros(P)
     dist_m3 = np.zeros(P)
+    targets_p, floors_p = np.zeros(P), np.zeros(P)
+    kept_at = set(snapshots) if record else set()
+
+    def snapshot() -> PartsSnapshot:
+        return PartsSnapshot(stand.copy(), age.copy(), area.copy(), in_hlb.copy())
 
     for p in range(P):
+        if p in kept_at:
+            sim.snapshots[p] = snapshot()
         if record:
             gs_start[p] = sim.initial_stock_m3 if p == 0 else gs_end[p - 1]
         target, floor = rule.bounds(p, h[p - 1] if p else 0.0)
+        targets_p[p], floors_p[p] = target, floor
         if record or p == P - stable_periods:
             hlb_start[p] = growing_stock_m3(
                 curves, sp[in_hlb], age[in_hlb], si.take(in_hlb), area[in_hlb]
@@ -319,7 +348,10 @@ def simulate(
                 f"growing stock on the harvestable land base still falls over "
                 f"the last {stable_periods} periods"
             )
+    if P in kept_at:
+        sim.snapshots[P] = snapshot()
     sim.hlb_stock_start_m3 = hlb_start
+    sim.target_m3, sim.floor_m3 = targets_p, floors_p
     sim.disturbed_ha, sim.disturbed_m3 = dist_ha, dist_m3
     if record:
         sim.final_age_years, sim.final_area_ha = age, area

@@ -40,19 +40,38 @@ def sample_run(tmp_path_factory):
 
 def test_sample_run_writes_its_outputs(sample_run):
     out, proc = sample_run
-    # the sample has spatial rules and cover targets, so openings and cover come too
+    # the sample has spatial rules, cover targets, rasters, a Markdown report and two cases
     assert sorted(p.name for p in out.iterdir()) == [
+        "age_classes.csv",
+        "comparison.csv",
         "cover.csv",
+        "figures",
+        "harvest_by_zone_species.csv",
+        "indicators.csv",
+        "lower-ending-stock",
         "netdown.csv",
+        "openings-40ha",
         "openings.csv",
         "projection.gpkg",
+        "rasters",
+        "report.html",
+        "report.md",
         "run.json",
+        "run.log",
+        "verdict.csv",
         "wood_flow.csv",
         "wood_flow_by_product.csv",
     ]
     assert "even-flow level" in proc.stdout and "limited by" in proc.stdout
+    assert "verdict: Sustainable" in proc.stdout
     assert "planning estimates" in proc.stdout
     assert "project and schedule" in proc.stderr  # progress per stage on stderr
+    assert "sensitivity case 'openings-40ha' (2 of 2)" in proc.stderr
+    # the log file holds the stages with their times, whatever the terminal showed
+    log = (out / "run.log").read_text(encoding="utf-8")
+    for line in ("read and check inventory done in", "project and schedule done in", "verdict:"):
+        assert line in log
+    assert (out / "openings-40ha" / "run.log").is_file()
 
 
 def test_wood_flow_csv_contract_and_policy(sample_run):
@@ -108,10 +127,23 @@ def test_stands_layer_covers_the_sample(sample_run):
 
 def test_rerun_replaces_previous_output_and_set_changes_result(tmp_path, capsys):
     out = tmp_path / "res"
-    assert main(["run", str(SCENARIO), "--out", str(out), "-q"]) == 0
+    base_only = ["--set", "sensitivity=[]"]  # the sample's cases are tested elsewhere
+    assert main(["run", str(SCENARIO), "--out", str(out), "-q", *base_only]) == 0
     first = json.loads((out / "run.json").read_text())["flow"]["level_m3_per_year"]
     assert (
-        main(["run", str(SCENARIO), "--out", str(out), "-q", "--set", "flow.ending_stock=0.6"]) == 0
+        main(
+            [
+                "run",
+                str(SCENARIO),
+                "--out",
+                str(out),
+                "-q",
+                *base_only,
+                "--set",
+                "flow.ending_stock=0.6",
+            ]
+        )
+        == 0
     )
     second = json.loads((out / "run.json").read_text())
     assert second["scenario"]["flow"]["ending_stock"] == 0.6
@@ -140,31 +172,47 @@ def test_docs_describe_every_output_column(sample_run):
     import re
 
     inputs = set(pyogrio.read_info(SCENARIO.parent / "norrowmere.gpkg", layer="stands")["fields"])
-    for layer in (
-        "stands",
-        "harvests",
-        "wood_flow",
-        "wood_flow_by_product",
-        "netdown",
-        "openings",
-        "cover",
-    ):
-        cols = pyogrio.read_info(out / "projection.gpkg", layer=layer)["fields"]
+    gpkg = out / "projection.gpkg"
+    for layer, _ in pyogrio.list_layers(gpkg):
+        name = re.sub(r"_\d+$", "_<NN>", re.sub(r"_age_\d{4}$", "_age_<YEAR>", layer))
+        assert re.search(rf"`{re.escape(name)}`", text), f"layer {layer}"
+        cols = pyogrio.read_info(gpkg, layer=layer)["fields"]
         cols = [c for c in cols if c not in inputs]  # the layer's own attributes, carried
         for col in cols:
             col = re.sub(r"^removed_step\d+_ha$", "removed_step<N>_ha", col)
             assert re.search(rf"^\| `{re.escape(col)}` \|", text, re.M), f"{layer}.{col}"
-    for name in (
-        "wood_flow.csv",
-        "wood_flow_by_product.csv",
-        "netdown.csv",
-        "openings.csv",
-        "cover.csv",
-    ):
-        for col in pd.read_csv(out / name).columns:
-            assert re.search(rf"^\| `{col}` \|", text, re.M), f"{name} {col}"
+    for csv in out.glob("*.csv"):
+        assert f"`{csv.name}`" in text, csv.name
+        for col in pd.read_csv(csv).columns:
+            assert re.search(rf"^\| `{col}` \|", text, re.M), f"{csv.name} {col}"
     for key in json.loads((out / "run.json").read_text()):
         assert re.search(rf"^\| `{key}` \|", text, re.M), f"run.json {key}"
+    for png in (out / "figures").glob("*.png"):
+        name = re.sub(r"^curves_\w+\.png$", "curves_<species>.png", png.name)
+        assert f"| `{name}` |" in text, png.name
+    for tif in (out / "rasters").glob("*.tif"):
+        name = re.sub(r"^age_\d{4}\.tif$", "age_<YEAR>.tif", tif.name)
+        assert f"| `{name}` |" in text, tif.name
+
+
+def test_compare_on_the_sample_cases_names_each_case_change(sample_run, tmp_path):
+    out, _ = sample_run
+    cmp = tmp_path / "cmp"
+    runs = [str(out), str(out / "lower-ending-stock"), str(out / "openings-40ha")]
+    assert main(["compare", *runs, "--out", str(cmp), "-q"]) == 0
+    table = pd.read_csv(cmp / "comparison.csv")
+    assert table["differences"].iloc[1:].tolist() == [
+        "flow.ending_stock: 1.0 -> 0.8",
+        "harvest.max_opening_ha: 60.0 -> 40.0",
+    ]
+    # a lower ending stock never lowers the level, smaller openings never raise it
+    base = table["level_m3_per_year"].iloc[0]
+    assert table["level_m3_per_year"].iloc[1] >= base >= table["level_m3_per_year"].iloc[2]
+    # the run's own comparison (written with the base) says the same
+    own = pd.read_csv(out / "comparison.csv")
+    assert own["run"].tolist() == [".", "lower-ending-stock", "openings-40ha"]
+    assert own["differences"].iloc[1:].tolist() == table["differences"].iloc[1:].tolist()
+    np.testing.assert_allclose(own["level_m3_per_year"], table["level_m3_per_year"])
 
 
 def test_products_add_up_to_the_harvest(sample_run):
@@ -223,6 +271,8 @@ def test_spatial_rules_hold_in_the_written_outputs(tmp_path, capsys):
         "harvest.max_opening_ha=40",
         "--set",
         "scenario.periods=8",
+        "--set",
+        "sensitivity=[]",
     ]
     assert main(args) == 0
     gpkg = out / "projection.gpkg"
@@ -258,6 +308,8 @@ def test_optimised_mode_maps_the_lp_onto_stands(tmp_path):
                 "--out",
                 str(out),
                 "-q",
+                "--set",
+                "sensitivity=[]",
                 "--set",
                 "flow.method=optimize",
                 "--set",

@@ -60,12 +60,18 @@ def test_geopackage_core_requirements(run_dir):
                 "FROM gpkg_geometry_columns"
             )
         }
-        assert set(geom) == {"stands", "harvests"}
+        # the feature tables and the map layers (views over them, OGC 12-128r18 Req. 14)
+        views = {n for (n,) in con.execute("SELECT name FROM sqlite_master WHERE type='view'")}
+        assert views == {f"harvests_period_{p:02d}" for p in range(1, 11)} | {
+            f"stands_age_{y}" for y in (2030, 2050, 2080, 2110, 2130)
+        }
+        assert set(geom) == {"stands", "harvests"} | views
         for layer, (column, gtype, srs_id) in geom.items():
             assert gtype in {"POLYGON", "MULTIPOLYGON", "GEOMETRY"}
             assert srs_id == contents[layer][1]
-            cols = [r[1] for r in con.execute(f"PRAGMA table_info({layer})")]
+            cols = [r[1] for r in con.execute(f'PRAGMA table_info("{layer}")')]
             assert column in cols
+            assert contents[layer][0] == "features"
         # the attribute table has no geometry column and one row per period
         assert con.execute("SELECT COUNT(*) FROM wood_flow").fetchone()[0] == 10
 
@@ -73,7 +79,10 @@ def test_geopackage_core_requirements(run_dir):
 def test_layers_read_back_with_pyogrio(run_dir):
     gpkg = run_dir / "projection.gpkg"
     layers = dict(pyogrio.list_layers(gpkg))
-    assert set(layers) == {"stands", "harvests", "wood_flow", "wood_flow_by_product", "netdown"}
+    tables = {"wood_flow", "wood_flow_by_product", "netdown", "indicators", "verdict"}
+    tables |= {"age_classes", "harvest_by_zone_species", "stand_ages"}
+    assert {name for name, kind in layers.items() if kind is None} == tables
+    assert {"stands", "harvests", "harvests_period_01", "stands_age_2130"} <= set(layers)
     stands = pyogrio.read_dataframe(gpkg, layer="stands")
     assert CRS.from_user_input(stands.crs).to_epsg() == 32633
     for col in (

@@ -1,0 +1,413 @@
+"""The run report: one self-contained HTML page (figures embedded as data URIs, styles inline,
+no network resource) and optionally the same content as Markdown.
+
+The content is assembled once as a list of :class:`Section` blocks and rendered twice, so the
+two forms cannot drift apart.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from foresight.config import Scenario
+from foresight.reporting.indicators import POLICY_NAMES, Verdict
+
+CAUTION = (
+    "These are planning estimates from models, not prescriptions. Yield curves, netdowns and "
+    "rules simplify real forests, and a harvest level that is sustainable on paper can still "
+    "harm people, places, soils, water and wildlife. Before any decision, defer to local "
+    "forest-practice law and regulation and to licensed forest professionals who know the "
+    "ground."
+)
+
+
+@dataclass(frozen=True)
+class Figure:
+    """A figure file of the run with its title and a caption saying how to read it."""
+
+    path: Path
+    title: str
+    caption: str
+
+
+@dataclass(frozen=True)
+class Table:
+    frame: pd.DataFrame
+    caption: str = ""
+    collapsed: bool = False  # shown folded (HTML <details>)
+
+
+@dataclass
+class Section:
+    title: str
+    blocks: list[str | Table | Figure] = field(default_factory=list)
+
+
+@dataclass
+class ReportData:
+    """Everything the report shows; the pipeline fills it from a run."""
+
+    scenario: Scenario
+    created_utc: str
+    foresight_version: str
+    inventory: dict[str, Any]
+    verdict: Verdict
+    wood_flow: pd.DataFrame
+    indicators: pd.DataFrame
+    netdown: pd.DataFrame
+    rotations: pd.DataFrame
+    curves: pd.DataFrame
+    figures: dict[str, Figure]
+    binding: str
+    cover: pd.DataFrame | None = None
+    breakdown: pd.DataFrame | None = None
+    comparison: pd.DataFrame | None = None
+    lp: dict | None = None
+
+
+def _fmt(value: Any) -> str:
+    """Numbers for reading: thousands separators, sensible decimals, blanks for missing."""
+    if value is None or value is pd.NA:
+        return ""
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, int):
+        return f"{value:,}"
+    if isinstance(value, float):
+        if math.isnan(value):
+            return ""
+        if math.isinf(value):
+            return "never" if value > 0 else "-inf"
+        if value == int(value) and abs(value) < 1e15:
+            return f"{int(value):,}"
+        if abs(value) >= 100:
+            return f"{value:,.0f}"
+        if abs(value) >= 1:
+            return f"{value:,.2f}"
+        return f"{value:.3f}"
+    return str(value)
+
+
+def _cells(frame: pd.DataFrame) -> list[list[str]]:
+    return [[_fmt(v.item() if hasattr(v, "item") else v) for v in row] for row in frame.values]
+
+
+def _scenario_table(data: ReportData) -> pd.DataFrame:
+    s = data.scenario
+    info, f, h, d = s.scenario, s.flow, s.harvest, s.disturbance
+    end = info.start_year + info.periods * info.period_years
+    inv = data.inventory
+    rows = [
+        ("scenario", info.name),
+        (
+            "horizon",
+            f"{info.start_year} to {end}: {info.periods} periods of "
+            f"{info.period_years} years, harvest at the period's {info.harvest_timing}",
+        ),
+        (
+            "stand layer",
+            f"{s.inventory.path.name}: {inv['stands']:,} stands, "
+            f"{inv['area_ha']:,.0f} ha, {inv['crs']}",
+        ),
+        (
+            "harvestable land base",
+            f"{inv['harvestable_ha']:,.0f} ha "
+            f"({100 * inv['harvestable_ha'] / inv['area_ha']:.1f}% of the gross area)",
+        ),
+        (
+            "flow policy",
+            f"{POLICY_NAMES.get(f.policy, f.policy)}"
+            + (f", band +/-{100 * f.band:g}%" if f.policy == "even" and f.band else "")
+            + (
+                f", step-down at most {100 * f.step_down_max:g}% per period"
+                if f.policy == "stepdown"
+                else ""
+            )
+            + f"; ending growing stock at least {100 * f.ending_stock:g}% of the initial"
+            + ("; schedule from the harvest LP" if f.method == "optimize" else ""),
+        ),
+        (
+            "harvest order",
+            f"{h.priority} first"
+            + (
+                f"; at most {h.max_area_ha_per_period:,.0f} ha per period"
+                if h.max_area_ha_per_period
+                else ""
+            ),
+        ),
+        (
+            "spatial rules",
+            (
+                f"green-up {h.greenup_years:g} years, openings up to "
+                f"{h.max_opening_ha:g} ha, {h.adjacency} neighbours"
+                if h.max_opening_ha
+                else f"green-up {h.greenup_years:g} years, no two neighbours ({h.adjacency})"
+            )
+            if h.spatial
+            else "none",
+        ),
+        (
+            "cover targets",
+            "; ".join(
+                f"zone {c.zone}: {'older' if c.kind == 'old' else 'younger'} than "
+                f"{c.age_years:g} years {'at least' if c.kind == 'old' else 'at most'} "
+                f"{100 * c.share:g}%"
+                for c in s.cover
+            )
+            or "none",
+        ),
+        (
+            "disturbance",
+            f"{100 * d.annual_rate:g}% a year, stand-replacing"
+            + (f"; {d.replicates} random replicates" if d.replicates else "")
+            if d.annual_rate
+            else "none",
+        ),
+        (
+            "species",
+            "; ".join(
+                f"{code}: {sp.curve}"
+                + (f", {sp.price_per_m3:g} per m3" if sp.price_per_m3 is not None else "")
+                for code, sp in s.species.items()
+            ),
+        ),
+    ]
+    if s.overrides:
+        rows.append(("overrides (--set)", ", ".join(s.overrides)))
+    return pd.DataFrame(rows, columns=["item", "value"])
+
+
+WOOD_FLOW_SHOWN = {
+    "period": "period",
+    "start_year": "from",
+    "end_year": "to",
+    "harvest_m3_per_year": "harvest m3/yr",
+    "harvest_ha_per_year": "area ha/yr",
+    "mean_harvest_age_years": "mean age",
+    "harvest_volume_m3_ha": "m3/ha cut",
+    "growing_stock_end_m3": "growing stock m3 (end)",
+    "hlb_growing_stock_end_m3": "harvestable stock m3 (end)",
+    "net_growth_m3_per_year": "net growth m3/yr",
+    "meets_policy": "meets policy",
+    "discounted_net_revenue": "discounted net revenue",
+}
+
+
+def sections(data: ReportData) -> list[Section]:
+    """The report's content, in reading order."""
+    v = data.verdict
+    out = [
+        Section("Caution", [CAUTION]),
+        Section(
+            "Verdict",
+            [
+                v.headline,
+                f"What stops a higher level: {v.limited_by}.",
+                Table(v.table(), "Each check of the verdict (methods: docs/methods.md)."),
+            ],
+        ),
+    ]
+    figs = data.figures
+    main = Section("Harvest and growing stock")
+    for key in ("harvest_forecast", "growing_stock"):
+        if key in figs:
+            main.blocks.append(figs[key])
+    out.append(main)
+    out.append(Section("Scenario", [Table(_scenario_table(data))]))
+    out.append(
+        Section(
+            "Land base netdown",
+            [Table(data.netdown, "Each step removes only area no earlier step removed.")],
+        )
+    )
+    out.append(
+        Section(
+            "Growth curves and rotations",
+            [
+                Table(
+                    data.rotations,
+                    "Per species, area-weighted over the site index values in use.",
+                ),
+                Table(data.curves, "Per species and site index (1 m steps).", collapsed=True),
+            ],
+        )
+    )
+    ind = data.indicators[["indicator", "value", "unit", "meaning"]]
+    shown = data.wood_flow[[c for c in WOOD_FLOW_SHOWN if c in data.wood_flow]]
+    if shown["discounted_net_revenue"].isna().all():
+        shown = shown.drop(columns="discounted_net_revenue")
+    out.append(
+        Section(
+            "Indicators",
+            [
+                Table(ind, "Over the whole horizon (indicators.csv)."),
+                Table(
+                    shown.rename(columns=WOOD_FLOW_SHOWN),
+                    "By period (wood_flow.csv has every column).",
+                ),
+            ],
+        )
+    )
+    forest = Section("Forest structure")
+    for key in ("age_classes", "cover_targets", "harvest_map"):
+        if key in figs:
+            forest.blocks.append(figs[key])
+    if data.breakdown is not None and len(data.breakdown):
+        by = (
+            data.breakdown.groupby(["zone", "species"], dropna=False)[["harvest_ha", "harvest_m3"]]
+            .sum()
+            .reset_index()
+        )
+        forest.blocks.append(Table(by, "Harvest over the horizon by zone and species."))
+    out.append(forest)
+    if "monte_carlo" in figs:
+        out.append(Section("Disturbance risk", [figs["monte_carlo"]]))
+    if data.comparison is not None:
+        cmp_cols = [
+            "run",
+            "level_m3_per_year",
+            "short_term_m3_per_year",
+            "long_term_m3_per_year",
+            "ending_stock_ratio",
+            "diff_level_m3_per_year",
+            "differences",
+        ]
+        block: list[str | Table | Figure] = [
+            Table(data.comparison[cmp_cols], "The base case and each [[sensitivity]] case.")
+        ]
+        if "comparison" in figs:
+            block.append(figs["comparison"])
+        out.append(Section("Sensitivity cases", block))
+    curves = Section("Growth curves")
+    for key, fig in figs.items():
+        if key.startswith("curves_"):
+            curves.blocks.append(fig)
+    if curves.blocks:
+        out.append(curves)
+    out.append(
+        Section(
+            "About this run",
+            [
+                f"foresight {data.foresight_version}, run at {data.created_utc} (UTC). "
+                "run.json records the resolved scenario, the checksums of every input file "
+                "and the versions of the libraries used.",
+                CAUTION,
+            ],
+        )
+    )
+    return out
+
+
+STYLE = """
+body { font-family: sans-serif; max-width: 60em; margin: 2em auto; padding: 0 1em;
+       color: #111; line-height: 1.45; }
+h1 { font-size: 1.6em; } h2 { font-size: 1.25em; border-bottom: 1px solid #999;
+       margin-top: 2em; }
+table { border-collapse: collapse; margin: 0.8em 0; font-size: 0.85em; }
+th, td { border: 1px solid #bbb; padding: 0.2em 0.5em; vertical-align: top; }
+th { background: #eee; text-align: left; }
+td.num { text-align: right; font-variant-numeric: tabular-nums; }
+caption { caption-side: top; text-align: left; font-style: italic; padding: 0.2em 0; }
+figure { margin: 1em 0; } figure img { max-width: 100%; height: auto; border: 1px solid #ddd; }
+figcaption { font-size: 0.9em; }
+.caution { border: 2px solid #333; padding: 0.6em 1em; background: #f4f4f4; }
+.verdict { font-size: 1.05em; font-weight: bold; }
+"""
+
+
+def _html_table(t: Table) -> str:
+    frame = t.frame
+    head = "".join(f"<th>{html.escape(str(c))}</th>" for c in frame.columns)
+    numeric = [pd.api.types.is_numeric_dtype(frame[c]) for c in frame.columns]
+    body = "".join(
+        "<tr>"
+        + "".join(
+            f'<td class="num">{html.escape(c)}</td>' if num else f"<td>{html.escape(c)}</td>"
+            for c, num in zip(row, numeric, strict=True)
+        )
+        + "</tr>"
+        for row in _cells(frame)
+    )
+    cap = f"<caption>{html.escape(t.caption)}</caption>" if t.caption else ""
+    table = f"<table>{cap}<thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+    if t.collapsed:
+        return f"<details><summary>{html.escape(t.caption or 'table')}</summary>{table}</details>"
+    return table
+
+
+def _html_figure(fig: Figure) -> str:
+    data = base64.b64encode(fig.path.read_bytes()).decode("ascii")
+    return (
+        f'<figure><img src="data:image/png;base64,{data}" alt="{html.escape(fig.title)}" '
+        f'data-file="figures/{html.escape(fig.path.name)}">'
+        f"<figcaption><strong>{html.escape(fig.title)}.</strong> "
+        f"{html.escape(fig.caption)}</figcaption></figure>"
+    )
+
+
+def html_report(data: ReportData) -> str:
+    """The report as one HTML5 document with everything embedded."""
+    parts = []
+    for sec in sections(data):
+        parts.append(f"<section><h2>{html.escape(sec.title)}</h2>")
+        for i, block in enumerate(sec.blocks):
+            if isinstance(block, Table):
+                parts.append(_html_table(block))
+            elif isinstance(block, Figure):
+                parts.append(_html_figure(block))
+            else:
+                cls = (
+                    ' class="caution"'
+                    if block == CAUTION
+                    else ' class="verdict"'
+                    if sec.title == "Verdict" and i == 0
+                    else ""
+                )
+                parts.append(f"<p{cls}>{html.escape(block)}</p>")
+        parts.append("</section>")
+    title = f"foresight report: {data.scenario.scenario.name}"
+    return (
+        "<!DOCTYPE html>\n"
+        '<html lang="en">\n<head>\n<meta charset="utf-8">\n'
+        '<meta name="viewport" content="width=device-width, initial-scale=1">\n'
+        f"<title>{html.escape(title)}</title>\n<style>{STYLE}</style>\n</head>\n<body>\n"
+        f"<h1>{html.escape(title)}</h1>\n" + "\n".join(parts) + "\n</body>\n</html>\n"
+    )
+
+
+def _md_escape(text: str) -> str:
+    return text.replace("|", "\\|").replace("\n", " ")
+
+
+def markdown_report(data: ReportData) -> str:
+    """The same report as Markdown; figures are linked from ``figures/``."""
+    lines = [f"# foresight report: {data.scenario.scenario.name}", ""]
+    for sec in sections(data):
+        lines += [f"## {sec.title}", ""]
+        for block in sec.blocks:
+            if isinstance(block, Table):
+                if block.caption:
+                    lines += [f"*{block.caption}*", ""]
+                cols = [str(c) for c in block.frame.columns]
+                lines.append("| " + " | ".join(_md_escape(c) for c in cols) + " |")
+                lines.append("|" + "---|" * len(cols))
+                for row in _cells(block.frame):
+                    lines.append("| " + " | ".join(_md_escape(c) for c in row) + " |")
+                lines.append("")
+            elif isinstance(block, Figure):
+                lines += [
+                    f"![{block.title}](figures/{block.path.name})",
+                    "",
+                    f"*{block.title}.* {block.caption}",
+                    "",
+                ]
+            else:
+                lines += [block, ""]
+    return "\n".join(lines)

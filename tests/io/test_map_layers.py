@@ -1,0 +1,91 @@
+"""The per-period and per-year map layers of projection.gpkg and the GeoTIFF export, read back
+through GDAL (pyogrio, rasterio) as a GIS would read them."""
+
+import numpy as np
+import pandas as pd
+import pyogrio
+import pytest
+import rasterio
+import shapely
+from pyproj import CRS
+
+from foresight.cli.main import main
+
+from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
+
+CELL_M = 10.0
+
+
+@pytest.fixture(scope="module")
+def out(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("maps")
+    n = 30
+    layer = write_layer(tmp / "s.gpkg", squares(n), stand_attrs(n, ages=np.arange(n) * 6.0))
+    raw = scenario_dict(
+        layer,
+        flow={"ending_stock": 0.5},
+        report={"raster_cell_m": CELL_M, "age_class_years": [2030, 2080, 2130]},
+    )
+    scn = write_scenario(tmp / "scn.toml", raw)
+    out = tmp / "out"
+    assert main(["run", str(scn), "--out", str(out), "-q"]) == 0
+    return out
+
+
+def test_each_period_is_a_layer_holding_that_periods_harvest(out):
+    gpkg = out / "projection.gpkg"
+    harvests = pyogrio.read_dataframe(gpkg, layer="harvests")
+    assert harvests["period"].nunique() > 3
+    for p in range(1, 11):
+        view = pyogrio.read_dataframe(gpkg, layer=f"harvests_period_{p:02d}")
+        want = harvests[harvests["period"] == p].reset_index(drop=True)
+        assert len(view) == len(want)
+        pd.testing.assert_frame_equal(
+            pd.DataFrame(view.drop(columns="geometry")), pd.DataFrame(want.drop(columns="geometry"))
+        )
+        assert shapely.equals(view.geometry.values, want.geometry.values).all()
+        assert CRS.from_user_input(view.crs).to_epsg() == 32633
+
+
+def test_each_report_year_is_a_layer_of_stand_ages(out):
+    gpkg = out / "projection.gpkg"
+    stands = pyogrio.read_dataframe(gpkg, layer="stands")
+    ages = pyogrio.read_dataframe(gpkg, layer="stand_ages")
+    for year in (2030, 2080, 2130):
+        view = pyogrio.read_dataframe(gpkg, layer=f"stands_age_{year}").set_index("stand_id")
+        assert len(view) == len(stands)
+        want = ages[ages["year"] == year].set_index("stand_id")
+        np.testing.assert_allclose(view.loc[want.index, "age_years"], want["age_years"])
+        assert (view["year"] == year).all()
+    # in the start year every stand is its input age
+    start = pyogrio.read_dataframe(gpkg, layer="stands_age_2030").set_index("stand_id")
+    np.testing.assert_allclose(
+        start["age_years"], stands.set_index("stand_id").loc[start.index, "age_years"]
+    )
+
+
+def test_geotiffs_carry_each_stands_value_at_its_cells(out):
+    stands = pyogrio.read_dataframe(out / "projection.gpkg", layer="stands")
+    ages = pyogrio.read_dataframe(out / "projection.gpkg", layer="stand_ages")
+    inside = shapely.point_on_surface(stands.geometry.values)
+    first = stands["first_harvest_period"].fillna(0).to_numpy()
+    with rasterio.open(out / "rasters" / "first_harvest_period.tif") as src:
+        assert CRS.from_user_input(src.crs.to_wkt()).to_epsg() == 32633
+        assert src.res == (CELL_M, CELL_M)
+        assert src.nodata == -1
+        # 30 stands of 100 m in rows of 10: a 1000 m x 300 m block
+        assert (src.width, src.height) == (100, 30)
+        got = np.array(
+            [v[0] for v in src.sample(zip(shapely.get_x(inside), shapely.get_y(inside)))]
+        )
+        np.testing.assert_array_equal(got, first)
+        band = src.read(1)
+        assert set(np.unique(band)) <= set(np.unique(first)) | {-1}
+    with rasterio.open(out / "rasters" / "age_2080.tif") as src:
+        assert src.nodata == -9999
+        got = np.array(
+            [v[0] for v in src.sample(zip(shapely.get_x(inside), shapely.get_y(inside)))]
+        )
+        want = ages[ages["year"] == 2080].set_index("stand_id").loc[stands["stand_id"], "age_years"]
+        np.testing.assert_allclose(got, want.to_numpy(), rtol=1e-6)
+        assert "2080" in src.descriptions[0]
