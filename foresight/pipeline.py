@@ -291,7 +291,7 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
             with staged_output(out, managed) as tmp:
                 log.info("write outputs ...")
                 write_outputs(result, scenario, tmp)
-            log.info("outputs in %s", out)
+            log.info("write outputs done in %.2f s: %s", result.timings_s["write outputs"], out)
     return result
 
 

@@ -73,7 +73,7 @@ POLICY_NAMES = {
     "even": "even flow",
     "nondeclining": "non-declining flow",
     "stepdown": "step-down flow",
-    "targets": "harvest targets",
+    "targets": "target schedule",
     "optimize": "optimised (LP) flow",
 }
 
