@@ -78,8 +78,9 @@ def add_feature_views(
 
     Each view is ``(name, select, like, description)``: the SELECT must return the fid and
     geometry column of the feature table ``like`` (``{geom}`` in it stands for that column's
-    name), whose geometry column, type, SRS and extent the view is registered with (OGC GeoPackage 1.3, Req. 14: a gpkg_contents row may name a
-    view). ``indexes`` adds SQLite indexes on (table, columns) that the views filter by.
+    name), whose geometry column, type, SRS and extent the view is registered with (OGC
+    GeoPackage 1.3, Req. 14: a gpkg_contents row may name a view). ``indexes`` adds SQLite
+    indexes on (table, columns) that the views filter by.
     """
     with closing(sqlite3.connect(path)) as con, con:
         for table, cols in indexes:

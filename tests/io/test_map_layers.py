@@ -64,6 +64,12 @@ def test_each_report_year_is_a_layer_of_stand_ages(out):
     )
 
 
+def sample_at(src, points) -> np.ndarray:
+    """The band's value at each point, read by rasterio."""
+    xy = zip(shapely.get_x(points), shapely.get_y(points), strict=True)
+    return np.array([v[0] for v in src.sample(xy)])
+
+
 def test_geotiffs_carry_each_stands_value_at_its_cells(out):
     stands = pyogrio.read_dataframe(out / "projection.gpkg", layer="stands")
     ages = pyogrio.read_dataframe(out / "projection.gpkg", layer="stand_ages")
@@ -75,17 +81,13 @@ def test_geotiffs_carry_each_stands_value_at_its_cells(out):
         assert src.nodata == -1
         # 30 stands of 100 m in rows of 10: a 1000 m x 300 m block
         assert (src.width, src.height) == (100, 30)
-        got = np.array(
-            [v[0] for v in src.sample(zip(shapely.get_x(inside), shapely.get_y(inside)))]
-        )
+        got = sample_at(src, inside)
         np.testing.assert_array_equal(got, first)
         band = src.read(1)
         assert set(np.unique(band)) <= set(np.unique(first)) | {-1}
     with rasterio.open(out / "rasters" / "age_2080.tif") as src:
         assert src.nodata == -9999
-        got = np.array(
-            [v[0] for v in src.sample(zip(shapely.get_x(inside), shapely.get_y(inside)))]
-        )
+        got = sample_at(src, inside)
         want = ages[ages["year"] == 2080].set_index("stand_id").loc[stands["stand_id"], "age_years"]
         np.testing.assert_allclose(got, want.to_numpy(), rtol=1e-6)
         assert "2080" in src.descriptions[0]
