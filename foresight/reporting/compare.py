@@ -9,7 +9,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from foresight.reporting.figures import SIZES, period_steps, plt, save
+from foresight.reporting.figures import SIZES, finish_time_chart, period_steps, plt
 from foresight.reporting.indicators import term_rows
 
 IGNORED = ("overrides", "sensitivity", "source")  # provenance, not assumptions
@@ -89,8 +89,4 @@ def comparison_figure(path: Path, runs: list[tuple[str, dict, pd.DataFrame]]) ->
             lw=1.6,
             label=name,
         )
-    ax.set_xlabel("year")
-    ax.set_ylabel("harvest (m3/year)")
-    ax.set_ylim(bottom=0)
-    ax.legend(frameon=False, fontsize=8)
-    save(fig, path)
+    finish_time_chart(fig, ax, path, "harvest (m3/year)", "Harvest forecasts of the runs")

@@ -35,6 +35,17 @@ def save(fig, path: Path) -> None:  # noqa: ANN001
     plt.close(fig)
 
 
+def finish_time_chart(fig, ax, path: Path, ylabel: str, title: str, ncols: int = 1) -> None:  # noqa: ANN001
+    """Axes over calendar years from 0 up, thousands separated, legend, title; saved."""
+    ax.set_xlabel("year")
+    ax.set_ylabel(ylabel)
+    ax.set_ylim(bottom=0)
+    ax.yaxis.set_major_formatter(lambda v, _: f"{v:,.0f}")
+    ax.legend(frameon=False, fontsize=7 if ncols > 1 else 8, loc="lower left", ncols=ncols)
+    ax.set_title(title, fontsize=10, loc="left")
+    save(fig, path)
+
+
 def period_steps(wood_flow: pd.DataFrame, column: str) -> tuple[np.ndarray, np.ndarray]:
     """x (years) and y for a step line holding each period's value over the period."""
     x = np.r_[wood_flow["start_year"].to_numpy(), wood_flow["end_year"].iloc[-1] + 1]
@@ -85,14 +96,8 @@ def harvest_figure(
             ls="none",
             label=f"first failing period ({failing_period})",
         )
-    ax.set_xlabel("year")
-    ax.set_ylabel("harvest (m3/year)")
-    ax.set_ylim(bottom=0)
     ax.set_xlim(x[0], x[-1])
-    ax.yaxis.set_major_formatter(lambda v, _: f"{v:,.0f}")
-    ax.legend(frameon=False, fontsize=7, loc="lower left", ncols=2)
-    ax.set_title("Harvest forecast", fontsize=10, loc="left")
-    save(fig, path)
+    finish_time_chart(fig, ax, path, "harvest (m3/year)", "Harvest forecast", ncols=2)
 
 
 def growing_stock_figure(
@@ -109,10 +114,10 @@ def growing_stock_figure(
         wood_flow["hlb_growing_stock_end_m3"].iloc[-1],
     ]
     fig, ax = plt.subplots(figsize=SIZES["chart"], layout="constrained")
-    ax.plot(years, total / 1e6, color="black", lw=2.0, marker="o", ms=3, label="whole forest")
+    ax.plot(years, total, color="black", lw=2.0, marker="o", ms=3, label="whole forest")
     ax.plot(
         years,
-        hlb / 1e6,
+        hlb,
         color="0.45",
         lw=1.6,
         ls="--",
@@ -122,18 +127,13 @@ def growing_stock_figure(
     )
     if regulated_hlb_m3:
         ax.axhline(
-            regulated_hlb_m3 / 1e6,
+            regulated_hlb_m3,
             color="0.3",
             ls=":",
             lw=1.3,
             label="regulated forest on the harvestable land base",
         )
-    ax.set_xlabel("year")
-    ax.set_ylabel("growing stock (million m3)")
-    ax.set_ylim(bottom=0)
-    ax.legend(frameon=False, fontsize=8, loc="lower left")
-    ax.set_title("Growing stock", fontsize=10, loc="left")
-    save(fig, path)
+    finish_time_chart(fig, ax, path, "growing stock (m3)", "Growing stock")
 
 
 def _grid(n: int) -> tuple[int, int]:
@@ -276,13 +276,7 @@ def monte_carlo_figure(path: Path, monte_carlo: pd.DataFrame, wood_flow: pd.Data
         lw=1.3,
         label="target (expected-value schedule)",
     )
-    ax.set_xlabel("year")
-    ax.set_ylabel("harvest (m3/year)")
-    ax.set_ylim(bottom=0)
-    ax.yaxis.set_major_formatter(lambda v, _: f"{v:,.0f}")
-    ax.legend(frameon=False, fontsize=8, loc="lower left")
-    ax.set_title("Harvest under random disturbance", fontsize=10, loc="left")
-    save(fig, path)
+    finish_time_chart(fig, ax, path, "harvest (m3/year)", "Harvest under random disturbance")
 
 
 def curve_figure(
