@@ -61,7 +61,7 @@ from foresight.reporting import (
     wood_flow_by_product,
     wood_flow_table,
 )
-from foresight.reporting.compare import comparison_figure, comparison_table
+from foresight.reporting.compare import comparison_figure, comparison_table, flatten
 from foresight.reporting.curves import curves_table
 from foresight.reporting.curves import notes as curve_notes
 from foresight.reporting.figures import curve_figure
@@ -284,14 +284,21 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
     with _captured_log() as lines:
         result = _project(scenario, strict)
         result.out_dir, result.log = out, lines
-        for n, (name, _, case) in enumerate(scenario.sensitivity, start=1):
+        base = flatten(scenario.to_dict())
+        for n, (name, sets, case) in enumerate(scenario.sensitivity, start=1):
+            if flatten(case.to_dict()) == base:
+                log.warning(
+                    "[[sensitivity]] %r changes nothing against the base case (%s; a --set "
+                    "of the same key applies to the base too)",
+                    name,
+                    ", ".join(f"{k} = {v!r}" for k, v in sets.items()),
+                )
             log.info("sensitivity case %r (%d of %d) ...", name, n, len(scenario.sensitivity))
             result.cases[name] = run(case, None, strict=strict)
         if out is not None:
             with staged_output(out, managed) as tmp:
                 log.info("write outputs ...")
                 write_outputs(result, scenario, tmp)
-            log.info("write outputs done in %.2f s: %s", result.timings_s["write outputs"], out)
     return result
 
 

@@ -4,6 +4,7 @@ GeoTIFFs, ``run.json`` and ``run.log``. Names of every file are here, in one pla
 
 from __future__ import annotations
 
+import logging
 import time
 from datetime import UTC, datetime
 from pathlib import Path
@@ -36,6 +37,8 @@ from foresight.reporting.figures import (
 from foresight.reporting.report import Figure, ReportData, html_report, markdown_report
 from foresight.versions import library_versions
 from foresight.zonal import stand_grid
+
+log = logging.getLogger("foresight")
 
 if TYPE_CHECKING:  # the pipeline imports this module; the types only for annotations
     from foresight.pipeline import CheckResult, RunResult
@@ -85,13 +88,18 @@ MANAGED = frozenset(
     }
 )
 MAP_PIXELS = 1200  # cells along the longer side of the harvest map figure
+BASE_LABEL = "base"  # the base case's name in the comparison with its sensitivity cases
 
 
 def write_outputs(
-    result: RunResult, scenario: Scenario, directory: Path, cases: bool = True
+    result: RunResult,
+    scenario: Scenario,
+    directory: Path,
+    case: tuple[str, dict] | None = None,
 ) -> None:
-    """Write every output of a run into the existing ``directory``; with ``cases``, the
-    sensitivity cases' outputs into ``directory/<name>/`` and a comparison with them."""
+    """Write every output of a run into the existing ``directory``, and the sensitivity
+    cases' outputs into ``directory/<name>/`` with a comparison of them; ``case`` (name and
+    keys set) marks the run as one of those cases."""
     t0 = time.perf_counter()
     write_tables(result, directory)
     rep = scenario.report
@@ -101,12 +109,12 @@ def write_outputs(
         write_rasters(result, scenario, directory / RASTERS_DIR)
     record = run_record(result, scenario)
     comparison = None
-    if cases and result.cases:
-        runs = [(".", record, result.wood_flow)]
-        for (name, _, case), sub in zip(scenario.sensitivity, result.cases.values(), strict=True):
+    if result.cases:
+        runs = [(BASE_LABEL, record, result.wood_flow)]
+        for (name, sets, scn), sub in zip(scenario.sensitivity, result.cases.values(), strict=True):
             (directory / name).mkdir()
-            write_outputs(sub, case, directory / name, cases=False)
-            runs.append((name, run_record(sub, case), sub.wood_flow))
+            write_outputs(sub, scn, directory / name, (name, dict(sets)))
+            runs.append((name, run_record(sub, scn), sub.wood_flow))
         comparison = comparison_table(runs)
         comparison.to_csv(directory / COMPARISON_CSV, index=False)
         (directory / FIGURES_DIR).mkdir(exist_ok=True)
@@ -118,13 +126,14 @@ def write_outputs(
             "Sensitivity cases",
             "Harvest forecast of the base case and of each case on the same axes.",
         )
-    data = report_data(result, scenario, record, figures, comparison)
+    data = report_data(result, scenario, record, figures, comparison, case)
     (directory / REPORT_HTML).write_text(html_report(data), encoding="utf-8")
     if rep.markdown:
         (directory / REPORT_MD).write_text(markdown_report(data), encoding="utf-8")
     result.timings_s["write outputs"] = round(time.perf_counter() - t0, 4)
     record["timings_s"] = result.timings_s
     write_json(directory / RUN_JSON, record)
+    log.info("write outputs done in %.2f s", result.timings_s["write outputs"])
     (directory / RUN_LOG).write_text("\n".join(result.log) + "\n", encoding="utf-8")
 
 
@@ -266,9 +275,7 @@ def write_figures(result: RunResult, scenario: Scenario, directory: Path) -> dic
         return path
 
     f = scenario.flow
-    band = None
-    if f.policy == "even" and f.band > 0 and f.method == "rules":
-        band = (result.level_m3_per_year * (1 - f.band), result.level_m3_per_year)
+    show_range = f.policy == "even" and f.band > 0 and f.method == "rules"
     failing = next(
         (c.period for c in verdict.checks if c.name == "flow_policy_held" and not c.holds), None
     )
@@ -278,12 +285,14 @@ def write_figures(result: RunResult, scenario: Scenario, directory: Path) -> dic
             "Harvest forecast",
             "Harvest per year in each period (solid), the long-term sustained yield "
             "(harvestable area x MAI) at MAI culmination and at the minimum harvest ages, "
-            "the flow band below the level where one is set, and the harvest LP's harvest "
-            "where it was solved (an upper bound on the total, not on each period).",
+            "the range the flow band allows each period given the period before (shaded), "
+            "and the harvest LP's harvest where it was solved: it bounds the total over the "
+            "horizon, not each period, and it may move within the band from period to "
+            "period, which the even-flow search (one level for all periods) does not.",
         ),
         wf,
         result.long_term_sustained_yield,
-        band,
+        show_range,
         failing,
     )
     growing_stock_figure(
@@ -337,6 +346,7 @@ def write_figures(result: RunResult, scenario: Scenario, directory: Path) -> dic
         first_periods(result),
         scenario.scenario.periods,
         wf["start_year"].to_numpy(),
+        pyproj.CRS.from_user_input(result.inventory.stands.crs).name,
     )
     if result.monte_carlo is not None:
         monte_carlo_figure(
@@ -401,6 +411,7 @@ def report_data(
     record: dict,
     figures: dict[str, Figure],
     comparison: pd.DataFrame | None,
+    case: tuple[str, dict] | None = None,
 ) -> ReportData:
     assert result.verdict is not None and result.indicators is not None
     return ReportData(
@@ -420,6 +431,7 @@ def report_data(
         breakdown=result.harvest_breakdown,
         comparison=comparison,
         lp=result.lp,
+        case=case,
     )
 
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+from pathlib import Path
 
 import pandas as pd
 
@@ -39,5 +40,6 @@ def handle(args: argparse.Namespace) -> int:
     if not args.quiet:
         with pd.option_context("display.width", 140, "display.max_colwidth", 60):
             print(table[SHOWN].to_string(index=False, float_format=lambda v: f"{v:,.2f}"))
-        print(f"wrote {args.out}/comparison.csv and comparison.png")
+        out = Path(args.out)
+        print(f"wrote {out / 'comparison.csv'} and {out / 'comparison.png'}")
     return 0

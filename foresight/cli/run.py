@@ -76,6 +76,13 @@ def handle(args: argparse.Namespace) -> int:
             f"{wf['growing_stock_end_m3'].iloc[-1]:,.0f} m3 at the end"
         )
         print(f"verdict: {result.verdict.headline} (report.html has the checks)")
+        for name, case in result.cases.items():
+            diff = case.level_m3_per_year - result.level_m3_per_year
+            judged = "sustainable" if case.verdict.sustainable else "NOT sustainable"
+            print(
+                f"sensitivity case {name!r}: {case.level_m3_per_year:,.0f} m3/year "
+                f"({diff:+,.0f} against the base), {judged}"
+            )
         print(
             f"outputs in {result.out_dir}: report.html (open it in a browser), "
             "projection.gpkg (open it in a GIS), the tables as CSV, figures/, run.json, run.log"

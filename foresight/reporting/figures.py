@@ -57,11 +57,12 @@ def harvest_figure(
     path: Path,
     wood_flow: pd.DataFrame,
     ltsy: dict[str, float],
-    band: tuple[float, float] | None = None,
+    show_range: bool = False,
     failing_period: int | None = None,
 ) -> None:
-    """Harvest per year by period, with the long-term sustained yield, the band limits of an
-    even flow (``band``: lower and upper m3/year) and the LP's harvest when there is one."""
+    """Harvest per year by period, with the long-term sustained yield, the LP's harvest when
+    there is one and, with ``show_range``, the range the flow policy allowed each period
+    (from ``policy_required_m3`` up to ``policy_target_m3``: an even flow's band)."""
     fig, ax = plt.subplots(figsize=SIZES["chart"], layout="constrained")
     x, y = period_steps(wood_flow, "harvest_m3_per_year")
     ax.step(x, y, where="post", color="black", lw=2.0, label="harvest")
@@ -75,8 +76,20 @@ def harvest_figure(
             ls="-.",
             label="harvest LP (upper bound)",
         )
-    if band is not None:
-        ax.axhspan(band[0], band[1], color="0.9", zorder=0, label="flow band")
+    if show_range:
+        per_year = wood_flow.assign(
+            lo=wood_flow["policy_required_m3"] / (x[1] - x[0]),
+            hi=wood_flow["policy_target_m3"] / (x[1] - x[0]),
+        )
+        ax.fill_between(
+            x,
+            period_steps(per_year, "lo")[1],
+            period_steps(per_year, "hi")[1],
+            step="post",
+            color="0.88",
+            zorder=0,
+            label="range the flow band allows",
+        )
     styles = {"at_culmination": ("0.3", "--"), "at_min_harvest_age": ("0.55", ":")}
     labels = {
         "at_culmination": "LTSY at MAI culmination",
@@ -226,6 +239,7 @@ def harvest_map_figure(
     first_period: np.ndarray,
     periods: int,
     start_years: np.ndarray,
+    crs_name: str = "",
 ) -> None:
     """Map of the first harvest period of each stand from a label raster (1 + stand index per
     cell, 0 outside): periods on a lightness scale, stands never cut light grey."""
@@ -242,10 +256,12 @@ def harvest_map_figure(
     bar = fig.colorbar(
         plt.cm.ScalarMappable(norm=norm, cmap=cmap), ax=ax, shrink=0.8, label="first harvest period"
     )
-    ticks = np.unique(np.linspace(1, periods, min(periods, 10)).round().astype(int))
+    ticks = np.arange(1, periods + 1, -(-periods // 10))
     bar.set_ticks(ticks, labels=[f"{t} ({start_years[t - 1]})" for t in ticks], fontsize=7)
     ax.set_aspect("equal")
     ax.ticklabel_format(useOffset=False, style="plain")
+    ax.set_xlabel(f"x ({crs_name})" if crs_name else "x", fontsize=8)
+    ax.set_ylabel("y", fontsize=8)
     ax.tick_params(labelsize=7)
     ax.set_title(
         "First harvest period of each stand (light grey: not cut in the horizon)",
@@ -307,10 +323,11 @@ def curve_figure(
     shown = sorted((m for m in marks if np.isfinite(m[1]) and m[1] <= max_age), key=lambda m: m[1])
     for n, (label, age, style) in enumerate(shown):
         ax.axvline(age, color="0.2", lw=0.8, ls=style)
-        # labels alternate sides of their lines so that close ages stay readable
+        # labels alternate sides of their lines, and every second pair sits higher up, so
+        # that close ages stay readable
         ax.text(
             age,
-            ax.get_ylim()[1] * 0.02,
+            ax.get_ylim()[1] * (0.02 if (n // 2) % 2 == 0 else 0.5),
             f" {label} {age:.0f} y",
             rotation=90,
             fontsize=7,

@@ -14,6 +14,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pandas as pd
 
 from foresight.config import Scenario
@@ -39,9 +40,17 @@ class Figure:
 
 @dataclass(frozen=True)
 class Table:
+    """A table of the report; columns left entirely empty are not shown."""
+
     frame: pd.DataFrame
     caption: str = ""
     collapsed: bool = False  # shown folded (HTML <details>)
+    plain: tuple[str, ...] = ("period", "year", "from", "to", "first_failing_period")
+    mixed: tuple[str, ...] = ("value",)  # columns of different quantities, row by row
+
+    def __post_init__(self) -> None:
+        frame = self.frame.dropna(axis=1, how="all") if len(self.frame) else self.frame
+        object.__setattr__(self, "frame", frame)
 
 
 @dataclass
@@ -70,33 +79,52 @@ class ReportData:
     breakdown: pd.DataFrame | None = None
     comparison: pd.DataFrame | None = None
     lp: dict | None = None
+    case: tuple[str, dict] | None = None  # a sensitivity case: its name and the keys it sets
 
 
-def _fmt(value: Any) -> str:
-    """Numbers for reading: thousands separators, sensible decimals, blanks for missing."""
-    if value is None or value is pd.NA:
-        return ""
-    if isinstance(value, bool):
-        return "yes" if value else "no"
-    if isinstance(value, int):
-        return f"{value:,}"
-    if isinstance(value, float):
-        if math.isnan(value):
-            return ""
-        if math.isinf(value):
-            return "never" if value > 0 else "-inf"
-        if value == int(value) and abs(value) < 1e15:
-            return f"{int(value):,}"
-        if abs(value) >= 100:
-            return f"{value:,.0f}"
-        if abs(value) >= 1:
-            return f"{value:,.2f}"
-        return f"{value:.3f}"
-    return str(value)
+def _decimals(values: pd.Series) -> int:
+    """One number of decimals for a whole column: none for whole numbers or large values,
+    more for small ones."""
+    v = pd.to_numeric(values, errors="coerce").to_numpy(dtype=np.float64)
+    v = v[np.isfinite(v)]
+    if not len(v) or np.all(v == np.round(v)):
+        return 0
+    top = np.abs(v).max()
+    return 0 if top >= 1000 else 1 if top >= 10 else 2 if top >= 1 else 3
 
 
-def _cells(frame: pd.DataFrame) -> list[list[str]]:
-    return [[_fmt(v.item() if hasattr(v, "item") else v) for v in row] for row in frame.values]
+def _column(values: pd.Series, plain: bool, mixed: bool = False) -> list[str]:
+    """A column's cells as text: thousands separators (not for years and periods, ``plain``),
+    one precision per column (per cell for a column of ``mixed`` quantities), blanks for
+    missing, 'never' for an infinite age."""
+    if pd.api.types.is_bool_dtype(values):
+        return ["yes" if v else "no" for v in values]
+    if not pd.api.types.is_numeric_dtype(values):
+        return [
+            ""
+            if v is None or v is pd.NA or (isinstance(v, float) and math.isnan(v))
+            else ("yes" if v else "no")
+            if isinstance(v, bool)
+            else str(v)
+            for v in values
+        ]
+    d = _decimals(values)
+    sep = "" if plain else ","
+    out = []
+    for v in values:
+        if v is None or v is pd.NA or (isinstance(v, float) and math.isnan(v)):
+            out.append("")
+        elif isinstance(v, float) and math.isinf(v):
+            out.append("never" if v > 0 else "-inf")
+        else:
+            places = _decimals(pd.Series([v])) if mixed else d
+            out.append(f"{float(v):{sep}.{places}f}")
+    return out
+
+
+def _cells(t: Table) -> list[list[str]]:
+    cols = [_column(t.frame[c], c in t.plain, c in t.mixed) for c in t.frame.columns]
+    return [list(row) for row in zip(*cols, strict=True)] if cols else []
 
 
 def _scenario_table(data: ReportData) -> pd.DataFrame:
@@ -104,8 +132,16 @@ def _scenario_table(data: ReportData) -> pd.DataFrame:
     info, f, h, d = s.scenario, s.flow, s.harvest, s.disturbance
     end = info.start_year + info.periods * info.period_years
     inv = data.inventory
-    rows = [
-        ("scenario", info.name),
+    rows = [("scenario", info.name)]
+    if data.case is not None:
+        name, sets = data.case
+        rows.append(
+            (
+                "sensitivity case",
+                f"{name}: the base case with " + ", ".join(f"{k} = {v!r}" for k, v in sets.items()),
+            )
+        )
+    rows += [
         (
             "horizon",
             f"{info.start_year} to {end}: {info.periods} periods of "
@@ -156,7 +192,8 @@ def _scenario_table(data: ReportData) -> pd.DataFrame:
         (
             "cover targets",
             "; ".join(
-                f"zone {c.zone}: {'older' if c.kind == 'old' else 'younger'} than "
+                f"{'all zones' if c.zone == '*' else 'zone ' + c.zone}: "
+                f"{'older' if c.kind == 'old' else 'younger'} than "
                 f"{c.age_years:g} years {'at least' if c.kind == 'old' else 'at most'} "
                 f"{100 * c.share:g}%"
                 for c in s.cover
@@ -174,7 +211,11 @@ def _scenario_table(data: ReportData) -> pd.DataFrame:
             "species",
             "; ".join(
                 f"{code}: {sp.curve}"
-                + (f", {sp.price_per_m3:g} per m3" if sp.price_per_m3 is not None else "")
+                + (
+                    f", net price {sp.price_per_m3:g} per m3 (scenario currency)"
+                    if sp.price_per_m3 is not None
+                    else ""
+                )
                 for code, sp in s.species.items()
             ),
         ),
@@ -183,6 +224,19 @@ def _scenario_table(data: ReportData) -> pd.DataFrame:
         rows.append(("overrides (--set)", ", ".join(s.overrides)))
     return pd.DataFrame(rows, columns=["item", "value"])
 
+
+ROTATION_HEADERS = {
+    "site_index_min": "SI from (m)",
+    "site_index_max": "SI to (m)",
+    "site_index": "SI (m)",
+    "area_ha": "area (ha)",
+    "culmination_age_years": "MAI culmination",
+    "max_mai_m3_ha_yr": "max MAI",
+    "min_harvest_age_years": "min. harvest age",
+    "faustmann_rotation_years": "Faustmann rotation",
+    "fisher_rotation_years": "single-rotation (Fisher)",
+    "lev_per_ha": "LEV per ha",
+}
 
 WOOD_FLOW_SHOWN = {
     "period": "period",
@@ -232,10 +286,15 @@ def sections(data: ReportData) -> list[Section]:
             "Growth curves and rotations",
             [
                 Table(
-                    data.rotations,
-                    "Per species, area-weighted over the site index values in use.",
+                    data.rotations.rename(columns=ROTATION_HEADERS),
+                    "Per species, area-weighted over the site index values in use "
+                    "(ages in years, MAI in m3/ha/yr).",
                 ),
-                Table(data.curves, "Per species and site index (1 m steps).", collapsed=True),
+                Table(
+                    data.curves.rename(columns=ROTATION_HEADERS),
+                    "Per species and site index (1 m steps; curves.csv has the same columns).",
+                    collapsed=True,
+                ),
             ],
         )
     )
@@ -250,7 +309,7 @@ def sections(data: ReportData) -> list[Section]:
                 Table(ind, "Over the whole horizon (indicators.csv)."),
                 Table(
                     shown.rename(columns=WOOD_FLOW_SHOWN),
-                    "By period (wood_flow.csv has every column).",
+                    "By period, years from and to inclusive (wood_flow.csv has every column).",
                 ),
             ],
         )
@@ -319,7 +378,13 @@ figure { margin: 1em 0; } figure img { max-width: 100%; height: auto; border: 1p
 figcaption { font-size: 0.9em; }
 .caution { border: 2px solid #333; padding: 0.6em 1em; background: #f4f4f4; }
 .verdict { font-size: 1.05em; font-weight: bold; }
+.wide { overflow-x: auto; }
 """
+
+
+def _title(data: ReportData) -> str:
+    title = f"foresight report: {data.scenario.scenario.name}"
+    return title if data.case is None else f"{title}, sensitivity case {data.case[0]}"
 
 
 def _html_table(t: Table) -> str:
@@ -333,10 +398,13 @@ def _html_table(t: Table) -> str:
             for c, num in zip(row, numeric, strict=True)
         )
         + "</tr>"
-        for row in _cells(frame)
+        for row in _cells(t)
     )
     cap = f"<caption>{html.escape(t.caption)}</caption>" if t.caption else ""
-    table = f"<table>{cap}<thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+    table = (
+        f'<div class="wide"><table>{cap}<thead><tr>{head}</tr></thead>'
+        f"<tbody>{body}</tbody></table></div>"
+    )
     if t.collapsed:
         return f"<details><summary>{html.escape(t.caption or 'table')}</summary>{table}</details>"
     return table
@@ -372,7 +440,7 @@ def html_report(data: ReportData) -> str:
                 )
                 parts.append(f"<p{cls}>{html.escape(block)}</p>")
         parts.append("</section>")
-    title = f"foresight report: {data.scenario.scenario.name}"
+    title = _title(data)
     return (
         "<!DOCTYPE html>\n"
         '<html lang="en">\n<head>\n<meta charset="utf-8">\n'
@@ -388,7 +456,7 @@ def _md_escape(text: str) -> str:
 
 def markdown_report(data: ReportData) -> str:
     """The same report as Markdown; figures are linked from ``figures/``."""
-    lines = [f"# foresight report: {data.scenario.scenario.name}", ""]
+    lines = [f"# {_title(data)}", ""]
     for sec in sections(data):
         lines += [f"## {sec.title}", ""]
         for block in sec.blocks:
@@ -398,7 +466,7 @@ def markdown_report(data: ReportData) -> str:
                 cols = [str(c) for c in block.frame.columns]
                 lines.append("| " + " | ".join(_md_escape(c) for c in cols) + " |")
                 lines.append("|" + "---|" * len(cols))
-                for row in _cells(block.frame):
+                for row in _cells(block):
                     lines.append("| " + " | ".join(_md_escape(c) for c in row) + " |")
                 lines.append("")
             elif isinstance(block, Figure):

@@ -64,6 +64,7 @@ def test_sample_run_writes_its_outputs(sample_run):
     ]
     assert "even-flow level" in proc.stdout and "limited by" in proc.stdout
     assert "verdict: Sustainable" in proc.stdout
+    assert "sensitivity case 'openings-40ha':" in proc.stdout
     assert "planning estimates" in proc.stdout
     assert "project and schedule" in proc.stderr  # progress per stage on stderr
     assert "sensitivity case 'openings-40ha' (2 of 2)" in proc.stderr
@@ -210,7 +211,7 @@ def test_compare_on_the_sample_cases_names_each_case_change(sample_run, tmp_path
     assert table["level_m3_per_year"].iloc[1] >= base >= table["level_m3_per_year"].iloc[2]
     # the run's own comparison (written with the base) says the same
     own = pd.read_csv(out / "comparison.csv")
-    assert own["run"].tolist() == [".", "lower-ending-stock", "openings-40ha"]
+    assert own["run"].tolist() == ["base", "lower-ending-stock", "openings-40ha"]
     assert own["differences"].iloc[1:].tolist() == table["differences"].iloc[1:].tolist()
     np.testing.assert_allclose(own["level_m3_per_year"], table["level_m3_per_year"])
 
