@@ -74,7 +74,7 @@ def harvest_figure(
             color="0.5",
             lw=1.2,
             ls="-.",
-            label="harvest LP (upper bound)",
+            label="harvest LP (bounds the total)",
         )
     if show_range:
         per_year = wood_flow.assign(
