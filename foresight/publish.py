@@ -96,10 +96,10 @@ def write_outputs(
     scenario: Scenario,
     directory: Path,
     case: tuple[str, dict] | None = None,
-) -> None:
+) -> dict:
     """Write every output of a run into the existing ``directory``, and the sensitivity
     cases' outputs into ``directory/<name>/`` with a comparison of them; ``case`` (name and
-    keys set) marks the run as one of those cases."""
+    keys set) marks the run as one of those cases. Returns what run.json holds."""
     t0 = time.perf_counter()
     write_tables(result, directory)
     rep = scenario.report
@@ -113,8 +113,8 @@ def write_outputs(
         runs = [(BASE_LABEL, record, result.wood_flow)]
         for (name, sets, scn), sub in zip(scenario.sensitivity, result.cases.values(), strict=True):
             (directory / name).mkdir()
-            write_outputs(sub, scn, directory / name, (name, dict(sets)))
-            runs.append((name, run_record(sub, scn), sub.wood_flow))
+            sub_record = write_outputs(sub, scn, directory / name, (name, dict(sets)))
+            runs.append((name, sub_record, sub.wood_flow))
         comparison = comparison_table(runs)
         comparison.to_csv(directory / COMPARISON_CSV, index=False)
         (directory / FIGURES_DIR).mkdir(exist_ok=True)
@@ -135,6 +135,7 @@ def write_outputs(
     write_json(directory / RUN_JSON, record)
     log.info("write outputs done in %.2f s", result.timings_s["write outputs"])
     (directory / RUN_LOG).write_text("\n".join(result.log) + "\n", encoding="utf-8")
+    return record
 
 
 def write_tables(result: RunResult, directory: Path) -> None:

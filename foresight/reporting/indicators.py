@@ -22,7 +22,7 @@ import pandas as pd
 
 from foresight.config import Scenario
 from foresight.growth.economics import growth_factor
-from foresight.projection import CurveSet, Periods, StandArrays
+from foresight.projection import CurveSet, Periods, StandArrays, zone_codes, zone_names
 from foresight.schedule import FlowResult
 from foresight.schedule.simulate import PartsSnapshot
 
@@ -96,10 +96,7 @@ def boundary_index(periods: Periods, year: int) -> int:
 
 def _zone_names(stands: pd.DataFrame) -> tuple[np.ndarray, list]:
     """Zone code per stand and the names (None for stands without a zone)."""
-    raw = stands["zone"]
-    names_s = raw.fillna("").astype(str).to_numpy()
-    names, codes = np.unique(names_s, return_inverse=True)
-    return codes.astype(np.int64), [n if n else None for n in names]
+    return zone_codes(stands), [n or None for n in zone_names(stands)]
 
 
 def age_class_table(
