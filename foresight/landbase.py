@@ -203,6 +203,15 @@ def work_crs(crs: pyproj.CRS, geoms: np.ndarray) -> pyproj.CRS:
     )
 
 
+def metric_geometries(frame: gpd.GeoDataFrame) -> tuple[np.ndarray, pyproj.CRS]:
+    """The frame's geometries in its metre-based work CRS (see :func:`work_crs`), and that
+    CRS."""
+    crs = pyproj.CRS.from_user_input(frame.crs)
+    geoms = frame.geometry.to_numpy()
+    wcrs = work_crs(crs, geoms)
+    return (geoms if wcrs == crs else frame.geometry.to_crs(wcrs).to_numpy()), wcrs
+
+
 def metres_per_unit(crs: pyproj.CRS) -> float:
     return crs.axis_info[0].unit_conversion_factor if crs.axis_info else 1.0
 
@@ -310,8 +319,7 @@ def apply_netdown(
     """
     gross = stands["area_ha"].to_numpy(dtype=np.float64)
     crs = pyproj.CRS.from_user_input(stands.crs)
-    wcrs = work_crs(crs, stands.geometry.to_numpy())
-    geoms = stands.geometry.to_numpy() if wcrs == crs else stands.geometry.to_crs(wcrs).to_numpy()
+    geoms, wcrs = metric_geometries(stands)
     state = _State(geoms.copy(), shapely.area(geoms), gross.copy())
     removed = np.zeros((len(steps), len(gross)))
     notes: list[str] = []

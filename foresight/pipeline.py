@@ -36,7 +36,13 @@ from foresight.io.outputs import (
 )
 from foresight.io.rasters import RasterData, raster_crs, read_window
 from foresight.io.vector import read_layer
-from foresight.landbase import Netdown, NetdownError, apply_netdown, metres_per_unit, work_crs
+from foresight.landbase import (
+    Netdown,
+    NetdownError,
+    apply_netdown,
+    metres_per_unit,
+    metric_geometries,
+)
 from foresight.projection import (
     CurveSet,
     Periods,
@@ -759,12 +765,7 @@ def lp_record(lp: LPResult | None, flow: FlowResult, scenario: Scenario) -> dict
 def stand_adjacency(scenario: Scenario, checked: CheckResult) -> Adjacency:
     """The adjacency graph of the stands, from the cache when the stand layer is unchanged."""
     h = scenario.harvest
-    stands = checked.stands
-    geoms = stands.geometry.to_numpy()
-    crs = pyproj.CRS.from_user_input(stands.crs)
-    wcrs = work_crs(crs, geoms)
-    if wcrs != crs:
-        geoms = stands.geometry.to_crs(wcrs).to_numpy()
+    geoms, wcrs = metric_geometries(checked.stands)
     separation = h.separation_m / metres_per_unit(wcrs)
 
     def build() -> dict[str, np.ndarray]:

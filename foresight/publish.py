@@ -22,7 +22,7 @@ from foresight.growth.rules import SiteSummary
 from foresight.io.outputs import sha256_file, write_json
 from foresight.io.rasters import write_geotiff
 from foresight.io.vector import add_feature_views, write_gpkg_layer
-from foresight.landbase import metres_per_unit, work_crs
+from foresight.landbase import metres_per_unit, metric_geometries
 from foresight.reporting.compare import comparison_figure, comparison_table
 from foresight.reporting.curves import rotation_summary
 from foresight.reporting.figures import (
@@ -211,12 +211,7 @@ def write_map_layers(result: RunResult, scenario: Scenario, gpkg: Path) -> None:
 def _stand_grid_in_metres(result: RunResult, cell_m: float):  # noqa: ANN202
     """Stand labels on a grid of ``cell_m`` metres in a metric CRS (the layer's own when
     projected), the grid's transform and that CRS."""
-    stands = result.inventory.stands
-    crs = pyproj.CRS.from_user_input(stands.crs)
-    geoms = stands.geometry.to_numpy()
-    wcrs = work_crs(crs, geoms)
-    if wcrs != crs:
-        geoms = stands.geometry.to_crs(wcrs).to_numpy()
+    geoms, wcrs = metric_geometries(result.inventory.stands)
     cell = cell_m / metres_per_unit(wcrs)
     x0, y0, x1, y1 = shapely.total_bounds(geoms)
     bounds = (

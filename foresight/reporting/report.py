@@ -101,18 +101,14 @@ def _column(values: pd.Series, plain: bool, mixed: bool = False) -> list[str]:
         return ["yes" if v else "no" for v in values]
     if not pd.api.types.is_numeric_dtype(values):
         return [
-            ""
-            if v is None or v is pd.NA or (isinstance(v, float) and math.isnan(v))
-            else ("yes" if v else "no")
-            if isinstance(v, bool)
-            else str(v)
+            "" if pd.isna(v) else ("yes" if v else "no") if isinstance(v, bool) else str(v)
             for v in values
         ]
     d = _decimals(values)
     sep = "" if plain else ","
     out = []
     for v in values:
-        if v is None or v is pd.NA or (isinstance(v, float) and math.isnan(v)):
+        if pd.isna(v):
             out.append("")
         elif isinstance(v, float) and math.isinf(v):
             out.append("never" if v > 0 else "-inf")

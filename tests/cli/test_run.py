@@ -14,6 +14,7 @@ from foresight.cli.main import main
 
 ROOT = Path(__file__).resolve().parents[2]
 SCENARIO = ROOT / "sample_region" / "scenario.toml"
+BASE_ONLY = ["--set", "sensitivity=[]"]  # the sample without its cases (tested on their own)
 WOOD_FLOW_COLUMNS = [
     "period",
     "start_year",
@@ -128,8 +129,7 @@ def test_stands_layer_covers_the_sample(sample_run):
 
 def test_rerun_replaces_previous_output_and_set_changes_result(tmp_path, capsys):
     out = tmp_path / "res"
-    base_only = ["--set", "sensitivity=[]"]  # the sample's cases are tested elsewhere
-    assert main(["run", str(SCENARIO), "--out", str(out), "-q", *base_only]) == 0
+    assert main(["run", str(SCENARIO), "--out", str(out), "-q", *BASE_ONLY]) == 0
     first = json.loads((out / "run.json").read_text())["flow"]["level_m3_per_year"]
     assert (
         main(
@@ -139,7 +139,7 @@ def test_rerun_replaces_previous_output_and_set_changes_result(tmp_path, capsys)
                 "--out",
                 str(out),
                 "-q",
-                *base_only,
+                *BASE_ONLY,
                 "--set",
                 "flow.ending_stock=0.6",
             ]
@@ -272,8 +272,7 @@ def test_spatial_rules_hold_in_the_written_outputs(tmp_path, capsys):
         "harvest.max_opening_ha=40",
         "--set",
         "scenario.periods=8",
-        "--set",
-        "sensitivity=[]",
+        *BASE_ONLY,
     ]
     assert main(args) == 0
     gpkg = out / "projection.gpkg"
@@ -309,8 +308,7 @@ def test_optimised_mode_maps_the_lp_onto_stands(tmp_path):
                 "--out",
                 str(out),
                 "-q",
-                "--set",
-                "sensitivity=[]",
+                *BASE_ONLY,
                 "--set",
                 "flow.method=optimize",
                 "--set",
