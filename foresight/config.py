@@ -17,6 +17,7 @@ import math
 import re
 import tomllib
 from collections.abc import Callable, Mapping, Sequence
+from contextvars import ContextVar
 from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from typing import Any
@@ -41,11 +42,77 @@ FLOW_POLICIES = ("even", "nondeclining", "stepdown", "targets")
 ADJACENCY_MODES = ("edge", "edge-or-corner")
 
 _REQUIRED = object()
+# Hard limits: beyond them a value is not a forest-planning input but a slip.
+MAX_AGE_YEARS = (
+    5000.0  # older than any tree known (bristlecone pines, about 4,800 years; from memory)
+)
+MAX_HORIZON_YEARS = 1000  # a timber supply horizon is 100 to 250 years (common practice)
+MAX_PERIODS = MAX_HORIZON_YEARS
+
+
+@dataclass(frozen=True)
+class Range:
+    """A closed or open interval of numbers; called on a value (or an array of values) it
+    returns what is wrong with it, or None. Every number in a scenario is finite as well."""
+
+    lo: float | None = None
+    hi: float | None = None
+    lo_open: bool = False
+    hi_open: bool = False
+
+    def holds(self, v: float) -> bool:
+        if self.lo is not None and not (v > self.lo if self.lo_open else v >= self.lo):
+            return False
+        return self.hi is None or (v < self.hi if self.hi_open else v <= self.hi)
+
+    def text(self) -> str:
+        parts = []
+        if self.lo is not None:
+            parts.append(f"{'>' if self.lo_open else '>='} {_number(self.lo)}")
+        if self.hi is not None:
+            parts.append(f"{'<' if self.hi_open else '<='} {_number(self.hi)}")
+        return " and ".join(parts)
+
+    def __call__(self, value: Any) -> str | None:
+        values = value if isinstance(value, tuple) else (value,)
+        for v in _flat(values):
+            if not self.holds(v):
+                return f"must be {self.text()}" + (f" ({v:g} is not)" if len(values) > 1 else "")
+        return None
+
+
+@dataclass(frozen=True)
+class Usual:
+    """The range a value usually lies in, and why; a value outside it is possible but worth a
+    warning (a wrong unit, a typing slip)."""
+
+    range: Range
+    why: str
+
+    def __call__(self, value: Any) -> str | None:
+        values = value if isinstance(value, tuple) else (value,)
+        odd = [v for v in _flat(values) if not self.range.holds(v)]
+        if not odd:
+            return None
+        shown = f"{odd[0]:g}" if len(values) == 1 else f"{odd[0]:g} among them"
+        return f"{shown} is unusual: usually {self.range.text()} ({self.why})"
+
+
+def _number(x: float) -> str:
+    return str(int(x)) if float(x).is_integer() else f"{x:g}"
+
+
+def _flat(values: Sequence[Any]) -> list[float]:
+    out: list[float] = []
+    for v in values:
+        out.extend(_flat(v) if isinstance(v, tuple) else [v])
+    return out
 
 
 @dataclass(frozen=True)
 class KeySpec:
-    """One scenario key: its type, default, unit and a line of documentation."""
+    """One scenario key: its type, default, unit, a line of documentation, the range outside
+    which a value is an error (``check``) and the usual range outside which it is a warning."""
 
     kind: str  # "int", "float", "str", "bool", "floats", "volumes", "table", "choice"
     default: Any = _REQUIRED
@@ -53,31 +120,51 @@ class KeySpec:
     doc: str = ""
     choices: tuple[str, ...] = ()
     check: Callable[[Any], str | None] | None = None  # returns a problem, or None
+    usual: Usual | None = None
 
     @property
     def required(self) -> bool:
         return self.default is _REQUIRED
 
 
-def _positive(v: float) -> str | None:
-    return None if v > 0 else "must be > 0"
-
-
-def _non_negative(v: float) -> str | None:
-    return None if v >= 0 else "must be >= 0"
-
-
-def _fraction_below_one(v: float) -> str | None:
-    return None if 0 <= v < 1 else "must be >= 0 and < 1"
-
+_positive = Range(0, lo_open=True)
+_non_negative = Range(0)
+_fraction_below_one = Range(0, 1, hi_open=True)
+_share = Range(0, 1)
+_finite = Range()
+_VOLUME_USUAL = Usual(
+    Range(0, 3000), "the largest stand volumes recorded are a few thousand m3/ha, from memory"
+)
+_SITE_USUAL = Usual(
+    Range(0, 60), "site indices above 50 to 60 m are rare even on the best sites; feet?"
+)
+_EXPONENT_USUAL = Usual(Range(-5, 5), "site exponents of 0 to 2 are usual")
 
 # Section name -> key name -> spec. "species.*" applies to every species table.
 KEYS: dict[str, dict[str, KeySpec]] = {
     "scenario": {
         "name": KeySpec("str", doc="Name of the scenario, shown in outputs."),
-        "start_year": KeySpec("int", unit="year", doc="Calendar year at the start of period 1."),
-        "period_years": KeySpec("int", 10, "years", "Length of one period.", check=_positive),
-        "periods": KeySpec("int", 20, "", "Number of periods in the horizon.", check=_positive),
+        "start_year": KeySpec(
+            "int",
+            unit="year",
+            doc="Calendar year at the start of period 1.",
+            check=Range(1, 9999),
+            usual=Usual(Range(1900, 2200), "the year of the inventory"),
+        ),
+        "period_years": KeySpec(
+            "int",
+            10,
+            "years",
+            "Length of one period.",
+            check=Range(1, 100),
+            usual=Usual(
+                Range(1, 20),
+                "periods of 5 to 10 years are common practice; longer ones blur harvest ages",
+            ),
+        ),
+        "periods": KeySpec(
+            "int", 20, "", "Number of periods in the horizon.", check=Range(1, MAX_PERIODS)
+        ),
         "harvest_timing": KeySpec(
             "choice",
             "midpoint",
@@ -100,7 +187,7 @@ KEYS: dict[str, dict[str, KeySpec]] = {
         "site_index": KeySpec(
             "str", None, "m", "Raster of site index to fill stand values by zonal mean."
         ),
-        "band": KeySpec("int", 1, "", "Band of the raster to read.", check=_positive),
+        "band": KeySpec("int", 1, "", "Band of the raster to read.", check=Range(1, 65535)),
     },
     "landbase": {
         "steps": KeySpec("steps", (), "", "Netdown steps, applied in order."),
@@ -122,7 +209,7 @@ KEYS: dict[str, dict[str, KeySpec]] = {
             None,
             "fraction",
             "... is at least this share.",
-            check=lambda v: None if 0 <= v <= 1 else "must be in [0, 1]",
+            check=_share,
         ),
         "younger_than_years": KeySpec(
             "float",
@@ -136,7 +223,7 @@ KEYS: dict[str, dict[str, KeySpec]] = {
             None,
             "fraction",
             "... is at most this share.",
-            check=lambda v: None if 0 <= v <= 1 else "must be in [0, 1]",
+            check=_share,
         ),
     },
     "disturbance": {
@@ -146,11 +233,21 @@ KEYS: dict[str, dict[str, KeySpec]] = {
             "1/year",
             "Stand-replacing disturbance rate on unharvested area.",
             check=_fraction_below_one,
+            usual=Usual(
+                Range(0, 0.02),
+                "reported stand-replacing fire rates are about 0.3% to 0.7% a year in boreal "
+                "forests",
+            ),
         ),
         "replicates": KeySpec(
-            "int", 0, "", "Monte Carlo replicates (0: expected values only).", check=_non_negative
+            "int",
+            0,
+            "",
+            "Monte Carlo replicates (0: expected values only).",
+            check=Range(0, 100_000),
+            usual=Usual(Range(0, 1000), "each replicate is one more simulated horizon"),
         ),
-        "seed": KeySpec("int", 1, "", "Seed of the Monte Carlo draws."),
+        "seed": KeySpec("int", 1, "", "Seed of the Monte Carlo draws.", check=Range(0, 2**32 - 1)),
     },
     "report": {
         "age_class_years": KeySpec(
@@ -161,7 +258,12 @@ KEYS: dict[str, dict[str, KeySpec]] = {
             "default: the start, each quarter of the horizon and its end).",
         ),
         "age_class_width_years": KeySpec(
-            "float", 20.0, "years", "Width of an age class.", check=_positive
+            "float",
+            20.0,
+            "years",
+            "Width of an age class.",
+            check=_positive,
+            usual=Usual(Range(1, 50), "age classes of 10 or 20 years are common practice"),
         ),
         "map_layers": KeySpec(
             "bool", True, "", "Per-period harvest and per-year age layers in projection.gpkg."
@@ -172,6 +274,9 @@ KEYS: dict[str, dict[str, KeySpec]] = {
             "m",
             "Also write GeoTIFFs of first harvest period and ages at this cell size.",
             check=_positive,
+            usual=Usual(
+                Range(1, 1000), "stand maps are drawn at cells of metres to tens of metres"
+            ),
         ),
         "markdown": KeySpec("bool", False, "", "Also write the report as Markdown."),
     },
@@ -183,23 +288,31 @@ KEYS: dict[str, dict[str, KeySpec]] = {
         ),
         "layer_name": KeySpec("str", None, doc="Layer inside the overlay file."),
         "buffer_m": KeySpec(
-            "float", None, "m", "Buffer around every overlay feature.", check=_non_negative
+            "float",
+            None,
+            "m",
+            "Buffer around every overlay feature.",
+            check=_non_negative,
+            usual=Usual(
+                Range(0, 500), "riparian and other reserve buffers are tens of metres per side"
+            ),
         ),
         "buffer_by": KeySpec("table", None, "", "Buffer width by class: field and widths_m."),
         "raster": KeySpec("str", None, doc="Raster mask file."),
-        "band": KeySpec("int", 1, "", "Band of the raster mask.", check=_positive),
+        "band": KeySpec("int", 1, "", "Band of the raster mask.", check=Range(1, 65535)),
         "above": KeySpec(
             "float",
             None,
             "raster units",
             "Remove the part of the stand where the raster exceeds this.",
+            check=_finite,
         ),
         "percent": KeySpec(
             "float",
             None,
             "%",
             "Flat deduction of the remaining area.",
-            check=lambda v: None if 0 <= v <= 100 else "must be in [0, 100]",
+            check=Range(0, 100),
         ),
     },
     "inventory.fields": {
@@ -217,11 +330,24 @@ KEYS: dict[str, dict[str, KeySpec]] = {
             "m3/ha",
             "Asymptote (chapman-richards, schumacher, logistic, gompertz) at the reference site.",
             check=_positive,
+            usual=_VOLUME_USUAL,
         ),
         "k": KeySpec(
-            "float", None, "1/year", "Rate (chapman-richards, logistic, gompertz).", check=_positive
+            "float",
+            None,
+            "1/year",
+            "Rate (chapman-richards, logistic, gompertz).",
+            check=_positive,
+            usual=Usual(Range(0, 1), "fitted rates are a few hundredths a year"),
         ),
-        "c": KeySpec("float", None, "", "Chapman-Richards shape exponent.", check=_positive),
+        "c": KeySpec(
+            "float",
+            None,
+            "",
+            "Chapman-Richards shape exponent.",
+            check=_positive,
+            usual=Usual(Range(0.5, 10), "fitted shape exponents lie between about 1 and 6"),
+        ),
         "b": KeySpec(
             "float", None, "", "Schumacher b [years]; logistic / gompertz b [-].", check=_positive
         ),
@@ -231,9 +357,15 @@ KEYS: dict[str, dict[str, KeySpec]] = {
             "1/year",
             "Intrinsic growth rate of a stock-growth model.",
             check=_positive,
+            usual=Usual(Range(0, 2), "a stock that more than triples in a year is no forest"),
         ),
         "capacity_m3_ha": KeySpec(
-            "float", None, "m3/ha", "Carrying capacity K of a stock model.", check=_positive
+            "float",
+            None,
+            "m3/ha",
+            "Carrying capacity K of a stock model.",
+            check=_positive,
+            usual=_VOLUME_USUAL,
         ),
         "initial_m3_ha": KeySpec(
             "float", None, "m3/ha", "Stock at age 0 of a stock model.", check=_positive
@@ -251,19 +383,46 @@ KEYS: dict[str, dict[str, KeySpec]] = {
             "m",
             "Reference site index of the parameters; leave out for no site dependence.",
             check=_positive,
+            usual=_SITE_USUAL,
         ),
         "site_exponent_a": KeySpec(
-            "float", 1.0, "", "Volume scales with (SI / site_index_ref_m) to this power."
+            "float",
+            1.0,
+            "",
+            "Volume scales with (SI / site_index_ref_m) to this power.",
+            check=_finite,
+            usual=_EXPONENT_USUAL,
         ),
         "site_exponent_k": KeySpec(
-            "float", 0.0, "", "Age runs faster by (SI / site_index_ref_m) to this power."
+            "float",
+            0.0,
+            "",
+            "Age runs faster by (SI / site_index_ref_m) to this power.",
+            check=_finite,
+            usual=_EXPONENT_USUAL,
         ),
-        "ages": KeySpec("floats", None, "years", "Table curve: ages, strictly increasing."),
+        "ages": KeySpec(
+            "floats",
+            None,
+            "years",
+            "Table curve: ages, strictly increasing.",
+            check=Range(0, MAX_AGE_YEARS),
+        ),
         "volumes_m3_ha": KeySpec(
-            "volumes", None, "m3/ha", "Table curve: volume at each age (one array per site class)."
+            "volumes",
+            None,
+            "m3/ha",
+            "Table curve: volume at each age (one array per site class).",
+            check=_non_negative,
+            usual=_VOLUME_USUAL,
         ),
         "site_classes_m": KeySpec(
-            "floats", None, "m", "Table curve: site index of each row of volumes_m3_ha."
+            "floats",
+            None,
+            "m",
+            "Table curve: site index of each row of volumes_m3_ha.",
+            check=_positive,
+            usual=_SITE_USUAL,
         ),
         "table_csv": KeySpec(
             "str",
@@ -273,17 +432,26 @@ KEYS: dict[str, dict[str, KeySpec]] = {
             "site_index_m), relative to the scenario file.",
         ),
         "min_harvest_age": KeySpec(
-            "float", None, "years", "Youngest age that may be cut.", check=_non_negative
+            "float",
+            None,
+            "years",
+            "Youngest age that may be cut.",
+            check=Range(0, MAX_AGE_YEARS),
         ),
         "min_harvest_mai_share": KeySpec(
             "float",
             None,
             "fraction",
             "Youngest age at which MAI reaches this share of its maximum.",
-            check=lambda v: None if 0 < v <= 1 else "must be > 0 and <= 1",
+            check=Range(0, 1, lo_open=True),
         ),
         "min_harvest_volume_m3_ha": KeySpec(
-            "float", None, "m3/ha", "Youngest age with at least this volume.", check=_positive
+            "float",
+            None,
+            "m3/ha",
+            "Youngest age with at least this volume.",
+            check=_positive,
+            usual=_VOLUME_USUAL,
         ),
         "min_harvest_economic": KeySpec(
             "bool", False, "", "Not before the Faustmann (LEV-maximising) rotation."
@@ -293,13 +461,14 @@ KEYS: dict[str, dict[str, KeySpec]] = {
             0.0,
             "years",
             "Years from harvest until the new stand starts at age 0.",
-            check=_non_negative,
+            check=Range(0, MAX_AGE_YEARS),
+            usual=Usual(Range(0, 30), "regeneration delays of 0 to 5 years are common practice"),
         ),
         "site_index_min_m": KeySpec(
-            "float", None, "m", "Lowest site index the curve is valid for."
+            "float", None, "m", "Lowest site index the curve is valid for.", check=_positive
         ),
         "site_index_max_m": KeySpec(
-            "float", None, "m", "Highest site index the curve is valid for."
+            "float", None, "m", "Highest site index the curve is valid for.", check=_positive
         ),
         "price_per_m3": KeySpec(
             "float", None, "currency/m3", "Net price of harvested wood.", check=_non_negative
@@ -319,7 +488,14 @@ KEYS: dict[str, dict[str, KeySpec]] = {
         ),
     },
     "economics": {
-        "discount_rate": KeySpec("float", None, "1/year", "Real discount rate.", check=_positive),
+        "discount_rate": KeySpec(
+            "float",
+            None,
+            "1/year",
+            "Real discount rate.",
+            check=Range(0, 1, lo_open=True, hi_open=True),
+            usual=Usual(Range(0, 0.15), "real rates of 2% to 8% are common practice"),
+        ),
         "compounding": KeySpec(
             "choice", "continuous", "", "Discounting convention.", choices=COMPOUNDING
         ),
@@ -330,7 +506,8 @@ KEYS: dict[str, dict[str, KeySpec]] = {
             400.0,
             "years",
             "Oldest age searched for culmination and rotations.",
-            check=_positive,
+            check=Range(1, MAX_AGE_YEARS),
+            usual=Usual(Range(1, 1000), "few stands live longer"),
         ),
         "yield_class_step": KeySpec(
             "float",
@@ -360,6 +537,7 @@ KEYS: dict[str, dict[str, KeySpec]] = {
             "years",
             "A stand cut less than this long ago blocks its neighbours (0: no spatial rules).",
             check=_non_negative,
+            usual=Usual(Range(0, 50), "green-up takes a few to about twenty years"),
         ),
         "max_opening_ha": KeySpec(
             "float",
@@ -378,6 +556,7 @@ KEYS: dict[str, dict[str, KeySpec]] = {
             "m",
             "Stands within this distance are neighbours too.",
             check=_non_negative,
+            usual=Usual(Range(0, 1000), "separation distances are tens to hundreds of metres"),
         ),
     },
     "flow": {
@@ -395,16 +574,21 @@ KEYS: dict[str, dict[str, KeySpec]] = {
             "fraction",
             "Growing stock at the end of the horizon must be at least this share of the initial.",
             check=_non_negative,
+            usual=Usual(Range(0, 2), "above 2 the forest must more than double its stock"),
         ),
         "step_down_max": KeySpec(
             "float",
             0.1,
             "fraction",
             "stepdown: largest drop from one period to the next.",
-            check=lambda v: None if 0 < v < 1 else "must be > 0 and < 1",
+            check=Range(0, 1, lo_open=True, hi_open=True),
         ),
         "targets_m3": KeySpec(
-            "floats", None, "m3/period", "targets: the harvest target of each period."
+            "floats",
+            None,
+            "m3/period",
+            "targets: the harvest target of each period.",
+            check=_non_negative,
         ),
         "method": KeySpec(
             "choice",
@@ -432,7 +616,12 @@ KEYS: dict[str, dict[str, KeySpec]] = {
             "float", 1.0, "m", "LP strata: site index class width.", check=_positive
         ),
         "lp_age_class_years": KeySpec(
-            "float", 5.0, "years", "LP strata: age class width.", check=_positive
+            "float",
+            5.0,
+            "years",
+            "LP strata: age class width.",
+            check=_positive,
+            usual=Usual(Range(0, 20), "wider classes blur the ages the LP harvests at"),
         ),
         "long_term_periods": KeySpec(
             "int",
@@ -650,6 +839,8 @@ class Scenario:
     overrides: tuple[str, ...] = ()
     # [[sensitivity]] cases: (name, the dotted keys it sets, the scenario it makes)
     sensitivity: tuple[tuple[str, Mapping[str, Any], Scenario], ...] = ()
+    # values that are possible but unusual (see KeySpec.usual), for the run to report
+    warnings: tuple[str, ...] = ()
 
     def to_dict(self) -> dict[str, Any]:
         """The resolved scenario as plain JSON-able data (paths as strings)."""
@@ -666,7 +857,9 @@ class Scenario:
             return obj
 
         cases = [{"name": n, "set": dict(sets)} for n, sets, _ in self.sensitivity]
-        return {**clean(asdict(replace(self, sensitivity=()))), "sensitivity": cases}
+        plain = clean(asdict(replace(self, sensitivity=())))
+        del plain["warnings"]  # what the run found, not what the user set
+        return {**plain, "sensitivity": cases}
 
 
 # ----------------------------------------------------------------------------- parsing
@@ -747,13 +940,32 @@ def parse_scenario(
     source: Path | None = None,
     overrides: tuple[str, ...] = (),
 ) -> Scenario:
-    """Check a scenario given as nested dicts (as tomllib returns) and build the config."""
+    """Check a scenario given as nested dicts (as tomllib returns) and build the config.
+
+    Values that are possible but unusual are kept in ``Scenario.warnings``."""
+    notes: list[str] = []
+    token = _NOTES.set(notes)
+    try:
+        scenario = _parse(raw, base_dir, where, source, overrides)
+    finally:
+        _NOTES.reset(token)
+    return replace(scenario, warnings=tuple(notes))
+
+
+def _parse(
+    raw: Mapping[str, Any],
+    base_dir: Path,
+    where: str,
+    source: Path | None,
+    overrides: tuple[str, ...],
+) -> Scenario:
     _reject_unknown(raw, SECTIONS, where, "")
     for name in ("scenario", "inventory", "species"):
         if name not in raw:
             raise ScenarioError(f"{where}: missing section [{name}]")
 
     info = ScenarioInfo(**_take(raw["scenario"], "scenario", where))
+    _check_horizon(info, where)
 
     inv_raw = _table(raw["inventory"], "inventory", where)
     inv_vals = _take(
@@ -780,9 +992,10 @@ def parse_scenario(
         raise ScenarioError(f"{where}: [species] lists no species; add a [species.<CODE>] table")
     harvest = HarvestConfig(**_take(raw.get("harvest", {}), "harvest", where))
     if harvest.max_opening_ha is not None and harvest.greenup_years <= 0:
-        raise ScenarioError(
-            f"{where}: [harvest] max_opening_ha needs greenup_years > 0 (the "
-            "window in which cut area counts as open)"
+        note(
+            f"{where}: [harvest] max_opening_ha = {harvest.max_opening_ha:g} has no effect: "
+            "greenup_years = 0 switches the spatial rules off (give greenup_years > 0, the "
+            "window in which cut area counts as open, to keep them)"
         )
     horizon = info.periods * info.period_years
     if harvest.greenup_years > horizon:
@@ -857,6 +1070,28 @@ def parse_scenario(
         overrides,
         cases,
     )
+
+
+def _check_horizon(info: ScenarioInfo, where: str) -> None:
+    """The horizon is a span of calendar years a planner can use."""
+    horizon = info.periods * info.period_years
+    if horizon > MAX_HORIZON_YEARS:
+        raise ScenarioError(
+            f"{where}: [scenario] periods = {info.periods} x period_years = "
+            f"{info.period_years} is a horizon of {horizon:,} years; at most "
+            f"{MAX_HORIZON_YEARS:,} are allowed (100 to 250 years are common practice)"
+        )
+    end = info.start_year + horizon
+    if end > 9999:
+        raise ScenarioError(
+            f"{where}: [scenario] start_year = {info.start_year} with a horizon of {horizon} "
+            f"years ends in {end}, beyond the four-digit calendar years the outputs hold"
+        )
+    if horizon > 400:
+        note(
+            f"{where}: [scenario] a horizon of {horizon} years is unusual: 100 to 250 years "
+            "are common practice, and yield curves are rarely known that far"
+        )
 
 
 def boundary_years(info: ScenarioInfo) -> list[int]:
@@ -1185,12 +1420,18 @@ def _read_table_csv(
     table: dict[float, list[tuple[float, float]]] = {}
     for n, row in enumerate(rows, start=2):
         try:
-            site = float(row["site_index_m"]) if with_site else 0.0
-            table.setdefault(site, []).append((float(row["age_years"]), float(row["volume_m3_ha"])))
+            site = float(row["site_index_m"]) if with_site else 1.0
+            age, vol = float(row["age_years"]), float(row["volume_m3_ha"])
         except (TypeError, ValueError):
             raise ScenarioError(
                 f"{path}, line {n}: {dict(row)} holds a value that is not a number"
             ) from None
+        if not all(math.isfinite(v) for v in (site, age, vol)) or site <= 0:
+            raise ScenarioError(
+                f"{path}, line {n}: {dict(row)}: every value must be a finite number "
+                "(and a site index > 0)"
+            )
+        table.setdefault(site, []).append((age, vol))
     classes = sorted(table)
     ages = tuple(a for a, _ in table[classes[0]])
     for site in classes:
@@ -1213,11 +1454,24 @@ def _check_table(ages: Sequence[float], vols: Sequence[float], where: str) -> No
     for a0, a1 in zip(ages, ages[1:], strict=False):
         if not a1 > a0:
             raise ScenarioError(f"{where}: ages must increase strictly ({a0} then {a1})")
-    if ages[0] < 0:
-        raise ScenarioError(f"{where}: age {ages[0]} is negative")
+    if ages[0] < 0 or ages[-1] > MAX_AGE_YEARS:
+        raise ScenarioError(
+            f"{where}: ages run from {ages[0]:g} to {ages[-1]:g}; they must lie in "
+            f"0 .. {MAX_AGE_YEARS:g} years"
+        )
     bad = [v for v in vols if not (v >= 0 and math.isfinite(v))]
     if bad:
         raise ScenarioError(f"{where}: volume {bad[0]} is not a finite value >= 0")
+    top = 0
+    for i, v in enumerate(vols):
+        if v < 0.5 * vols[top]:
+            note(
+                f"{where}: the volume falls from {vols[top]:g} m3/ha at age {ages[top]:g} to "
+                f"{v:g} at age {ages[i]:g}; a stand's yield table levels off or declines "
+                "slowly, so check the values (a typing slip, another unit, a missing digit)"
+            )
+            break
+        top = i if v > vols[top] else top
 
 
 def _table(value: Any, sect: str, where: str) -> dict[str, Any]:
@@ -1295,8 +1549,27 @@ def _coerce(value: Any, ks: KeySpec, where: str) -> Any:
         if not ok:
             raise ScenarioError(f"{where}: must be an array of numbers")
         value = tuple(float(v) for v in value)
+        bad = [v for v in value if not math.isfinite(v)]
+        if bad:
+            raise ScenarioError(f"{where}: {bad[0]} is not a finite number")
     if ks.check is not None:
         problem = ks.check(value)
         if problem:
             raise ScenarioError(f"{where}: {problem}")
+    if ks.usual is not None:
+        odd = ks.usual(value)
+        if odd:
+            note(f"{where}: {odd}")
     return value
+
+
+# Warnings found while a scenario is parsed; parse_scenario collects them into
+# Scenario.warnings, and the run reports them (stderr, run.log, the report).
+_NOTES: ContextVar[list[str] | None] = ContextVar("scenario_notes", default=None)
+
+
+def note(message: str) -> None:
+    """Record a warning about the scenario being parsed."""
+    notes = _NOTES.get()
+    if notes is not None and message not in notes:
+        notes.append(message)

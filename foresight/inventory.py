@@ -17,12 +17,18 @@ import pandas as pd
 import pyproj
 import shapely
 
-from foresight.config import Scenario
+from foresight.config import MAX_AGE_YEARS, Scenario
 from foresight.errors import InventoryError
+from foresight.geometry import invalid_mask, repair
 
 STANDARD_COLUMNS = ("stand_id", "species", "site_index", "age_years", "zone", "area_ha")
 AGE_CLASS_YEARS = 20
 _SHOW = 5  # offending rows quoted in a message
+# A site index is a height at a base age: the tallest trees measured are about 116 m (from
+# memory), and site indices above 50 to 60 m are rare even on the best sites.
+MAX_SITE_INDEX_M = 150.0
+USUAL_SITE_INDEX_M = 60.0
+SLIVER_HA = 0.01  # smaller stands are usually slivers left by a GIS overlay (100 m2)
 
 
 @dataclass(frozen=True)
@@ -35,6 +41,7 @@ class CheckReport:
     area_method: str
     repaired_geometries: int = 0
     notes: tuple[str, ...] = ()
+    warnings: tuple[str, ...] = ()  # possible but unusual input, for the user to look at
     area_by_species_ha: dict[str, float] = field(default_factory=dict)
     area_by_age_class_ha: dict[str, float] = field(default_factory=dict)
 
@@ -105,7 +112,7 @@ def prepare_inventory(
     _fail_rows(dup, row, ids, where, f"field {fields.stand_id!r}: duplicate id")
 
     crs = _crs(frame, scenario, where)
-    geoms = frame.geometry.to_numpy()
+    geoms = geoms_in = frame.geometry.to_numpy()
     empty = shapely.is_missing(geoms) | shapely.is_empty(geoms)
     _fail_rows(empty, row, ids, where, "empty or missing geometry")
     gtype = shapely.get_type_id(geoms)
@@ -119,9 +126,10 @@ def prepare_inventory(
         values=shapely.get_type_id(geoms),
         fmt=_type_name,
     )
-    invalid = ~shapely.is_valid(geoms)
+    invalid = invalid_mask(geoms)
     repaired = int(invalid.sum())
     notes: list[str] = []
+    warnings: list[str] = []
     if repaired:
         if strict:
             _fail_rows(
@@ -133,15 +141,26 @@ def prepare_inventory(
                 values=shapely.is_valid_reason(geoms),
                 fmt=str,
             )
-        geoms = geoms.copy()
-        geoms[invalid] = _polygonal_part(shapely.make_valid(geoms[invalid]))
+        geoms = repair(geoms, invalid)
         lost = shapely.is_empty(geoms) | (shapely.area(geoms) <= 0)
         _fail_rows(lost, row, ids, where, "invalid geometry with no area left after repair")
-        notes.append(f"{repaired} invalid geometries were repaired with make_valid")
+        warnings.append(
+            f"{where}: {_rows_text(invalid, row, ids, shapely.is_valid_reason(geoms_in), str)}: "
+            f"{repaired} invalid geometries repaired with make_valid (their areas are those "
+            "of the repaired shapes; mend them in the source, or use --strict to reject them)"
+        )
 
     area_ha, method = _area_ha(geoms, crs)
     zero = ~(area_ha > 0)
     _fail_rows(zero, row, ids, where, "polygon has zero area")
+    _fail_rows(~np.isfinite(area_ha), row, ids, where, "polygon area is not finite", values=area_ha)
+    sliver = area_ha < SLIVER_HA
+    if sliver.any():
+        warnings.append(
+            f"{where}: {_rows_text(sliver, row, ids, area_ha, lambda v: f'{v:.3g} ha')}: "
+            f"{int(sliver.sum())} stands are smaller than {SLIVER_HA:g} ha (slivers of a GIS "
+            "overlay?); they are kept, and cut only as whole stands"
+        )
 
     age = _numeric(frame[fields.age], fields.age, row, ids, where)
     _fail_rows(np.isnan(age), row, ids, where, f"field {fields.age!r}: null age")
@@ -153,6 +172,23 @@ def prepare_inventory(
         f"field {fields.age!r}: negative age; ages must be >= 0",
         values=age,
     )
+    _fail_rows(np.isinf(age), row, ids, where, f"field {fields.age!r}: not a finite number")
+    _fail_rows(
+        age > MAX_AGE_YEARS,
+        row,
+        ids,
+        where,
+        f"field {fields.age!r}: age above {MAX_AGE_YEARS:g} years, older than any tree known",
+        values=age,
+    )
+    oldest = scenario.growth.max_age_years
+    old = age > oldest
+    if old.any():
+        warnings.append(
+            f"{where}: {_rows_text(old, row, ids, age)}: {int(old.sum())} stands are older "
+            f"than growth.max_age_years = {oldest:g}, the oldest age the curves are searched "
+            f"to; check field {fields.age!r}, or raise growth.max_age_years if such ages are real"
+        )
 
     species = frame[fields.species]
     _fail_rows(
@@ -190,6 +226,23 @@ def prepare_inventory(
     _fail_rows(
         si <= 0, row, ids, where, f"field {fields.site_index!r}: site index must be > 0", values=si
     )
+    _fail_rows(np.isinf(si), row, ids, where, f"field {fields.site_index!r}: not a finite number")
+    _fail_rows(
+        si > MAX_SITE_INDEX_M,
+        row,
+        ids,
+        where,
+        f"field {fields.site_index!r}: site index above {MAX_SITE_INDEX_M:g} m, taller than any "
+        "tree; site index is in metres",
+        values=si,
+    )
+    tall = si > USUAL_SITE_INDEX_M
+    if tall.any():
+        warnings.append(
+            f"{where}: {_rows_text(tall, row, ids, si)}: {int(tall.sum())} stands have a site "
+            f"index above {USUAL_SITE_INDEX_M:g} m, rare even on the best sites; site index "
+            f"is in metres (field {fields.site_index!r} in feet?)"
+        )
     for code, cfg in scenario.species.items():
         mine = (species == code).to_numpy()
         lo = -np.inf if cfg.site_index_min_m is None else cfg.site_index_min_m
@@ -239,6 +292,7 @@ def prepare_inventory(
         area_method=method,
         repaired_geometries=repaired,
         notes=tuple(notes),
+        warnings=tuple(warnings),
         area_by_species_ha={str(k): float(v) for k, v in by_species.items()},
         area_by_age_class_ha={
             f"{k}-{k + AGE_CLASS_YEARS - 1}": float(v) for k, v in by_class.items()
@@ -284,16 +338,6 @@ def _area_ha(geoms: np.ndarray, crs: pyproj.CRS) -> tuple[np.ndarray, str]:
     return shapely.area(geoms) * unit**2 / 1e4, f"planar, CRS unit {name}"
 
 
-def _polygonal_part(geoms: np.ndarray) -> np.ndarray:
-    """Keep only the polygons of repaired geometries (make_valid may add lines or points)."""
-    out = np.empty(len(geoms), dtype=object)
-    for i, geom in enumerate(geoms):  # only the few repaired stands pass through here
-        parts = shapely.get_parts(shapely.get_parts(geom))
-        polys = parts[shapely.get_type_id(parts) == 3]
-        out[i] = shapely.union_all(polys) if len(polys) else shapely.Polygon()
-    return out
-
-
 def _numeric(col: pd.Series, name: str, row: np.ndarray, ids: pd.Series, where: str) -> np.ndarray:
     values = pd.to_numeric(col, errors="coerce")
     bad = values.isna().to_numpy() & col.notna().to_numpy()
@@ -331,6 +375,18 @@ def _fail_rows(
     bad = np.asarray(bad, dtype=bool)
     if not bad.any():
         return
+    quoted = _rows_text(bad, row, ids, values, fmt)
+    raise InventoryError(f"{where}: {what} in {int(bad.sum())} stands: {quoted}")
+
+
+def _rows_text(
+    bad: np.ndarray,
+    row: np.ndarray,
+    ids: pd.Series | None,
+    values: object = None,
+    fmt=lambda v: f"{v:g}",
+) -> str:
+    """The first offending rows, as 'row 3 (stand 12): value; ...'."""
     idx = np.flatnonzero(bad)
     quoted = []
     for i in idx[:_SHOW]:
@@ -342,4 +398,4 @@ def _fail_rows(
             text += f": {fmt(v)}"
         quoted.append(text)
     more = f" and {len(idx) - _SHOW} more" if len(idx) > _SHOW else ""
-    raise InventoryError(f"{where}: {what} in {len(idx)} stands: {'; '.join(quoted)}{more}")
+    return "; ".join(quoted) + more

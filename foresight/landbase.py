@@ -36,6 +36,7 @@ import shapely
 
 from foresight.config import NetdownStep
 from foresight.errors import InputError
+from foresight.geometry import invalid_mask, repair
 from foresight.io.rasters import RasterData
 from foresight.zonal import zonal
 
@@ -56,6 +57,7 @@ class Netdown:
     remaining_geometry: np.ndarray  # in the stands' CRS
     table: pd.DataFrame
     notes: tuple[str, ...] = field(default_factory=tuple)
+    warnings: tuple[str, ...] = field(default_factory=tuple)
 
 
 # ----------------------------------------------------------------------------- expressions
@@ -114,7 +116,12 @@ def evaluate_where(expr: str, fields: Mapping[str, pd.Series], where: str) -> np
             if isinstance(node.op, ast.Not):
                 return ~np.asarray(_truth(val), dtype=bool)
             if isinstance(node.op, ast.USub):
-                return -val
+                try:
+                    return -val
+                except TypeError:
+                    raise NetdownError(
+                        f"{where}: where = {expr!r}: {ast.unparse(node)!r} negates text"
+                    ) from None
         if isinstance(node, ast.Compare):
             left = ev(node.left)
             out = None
@@ -151,7 +158,14 @@ def evaluate_where(expr: str, fields: Mapping[str, pd.Series], where: str) -> np
             else:
                 return out
         if isinstance(node, ast.BinOp) and type(node.op) in _ARITH:
-            return _ARITH[type(node.op)](ev(node.left), ev(node.right))
+            left, right = ev(node.left), ev(node.right)
+            try:
+                return _ARITH[type(node.op)](left, right)
+            except (TypeError, ValueError):
+                raise NetdownError(
+                    f"{where}: where = {expr!r}: {ast.unparse(node)!r} mixes text and numbers "
+                    "(or a list); arithmetic needs numeric fields"
+                ) from None
         if isinstance(node, ast.Name):
             if node.id not in fields:
                 raise NetdownError(
@@ -309,13 +323,15 @@ def apply_netdown(
     fields: Mapping[str, pd.Series],
     read_overlay: OverlayReader,
     read_raster: RasterReader,
+    strict: bool = False,
 ) -> Netdown:
     """Run the steps over the stands (see the module docstring).
 
     ``read_overlay(step, crs)`` returns the step's layer in ``crs``; ``read_raster(step,
     geoms, crs)`` returns the raster window over the geometries and the geometries in the
     raster's CRS (None if they do not overlap). Both are file readers injected by the
-    pipeline, so this module opens no file.
+    pipeline, so this module opens no file. Invalid overlay geometries are repaired as stand
+    geometries are (:mod:`foresight.geometry`), or rejected with ``strict``.
     """
     gross = stands["area_ha"].to_numpy(dtype=np.float64)
     crs = pyproj.CRS.from_user_input(stands.crs)
@@ -323,6 +339,7 @@ def apply_netdown(
     state = _State(geoms.copy(), shapely.area(geoms), gross.copy())
     removed = np.zeros((len(steps), len(gross)))
     notes: list[str] = []
+    warnings: list[str] = []
     for k, step in enumerate(steps):
         where = f"[[landbase.steps]] #{step.number} {step.label!r}"
         before = state.area_ha.copy()
@@ -335,7 +352,7 @@ def apply_netdown(
         elif step.kind == "percent":
             state.area_ha *= 1.0 - (step.percent or 0.0) / 100.0
         elif step.kind == "layer":
-            frame = read_overlay(step, wcrs)
+            frame = _valid_overlay(read_overlay(step, wcrs), strict, where, warnings)
             overlay = buffer_overlay(frame, step, metres_per_unit(wcrs), where)
             cut, left = overlay_cut(state.geom, overlay)
             hit = np.flatnonzero(cut != None)  # noqa: E711
@@ -381,7 +398,34 @@ def apply_netdown(
         remaining_geom,
         netdown_table(gross, removed, steps),
         tuple(notes),
+        tuple(warnings),
     )
+
+
+def _valid_overlay(
+    frame: gpd.GeoDataFrame, strict: bool, where: str, warnings: list[str]
+) -> gpd.GeoDataFrame:
+    """The overlay with invalid geometries repaired (a warning names them), or an error with
+    ``strict``. Features are named by their 1-based position in the layer."""
+    geoms = frame.geometry.to_numpy()
+    bad = invalid_mask(geoms)
+    if not bad.any():
+        return frame
+    pos = frame.index.to_numpy()[bad] + 1
+    why = shapely.is_valid_reason(geoms[bad])
+    shown = "; ".join(f"feature {p}: {w}" for p, w in zip(pos[:5], why[:5], strict=True))
+    more = f" and {len(pos) - 5} more" if len(pos) > 5 else ""
+    if strict:
+        raise NetdownError(
+            f"{where}: {int(bad.sum())} invalid overlay geometries (--strict): {shown}{more}"
+        )
+    warnings.append(
+        f"{where}: {int(bad.sum())} invalid overlay geometries repaired with make_valid "
+        f"({shown}{more}); mend them in the source, or use --strict to reject them"
+    )
+    out = frame.copy()
+    out[out.geometry.name] = gpd.GeoSeries(repair(geoms, bad), index=frame.index, crs=frame.crs)
+    return out
 
 
 def netdown_table(

@@ -43,6 +43,7 @@ from foresight.landbase import (
     metres_per_unit,
     metric_geometries,
 )
+from foresight.limits import check_run_size
 from foresight.projection import (
     CurveSet,
     Periods,
@@ -68,6 +69,7 @@ from foresight.reporting import (
     wood_flow_table,
 )
 from foresight.reporting.compare import comparison_figure, comparison_table, flatten
+from foresight.reporting.concerns import level_held_down, monte_carlo_spread
 from foresight.reporting.curves import curves_table
 from foresight.reporting.curves import notes as curve_notes
 from foresight.reporting.figures import curve_figure
@@ -83,6 +85,7 @@ from foresight.reporting.indicators import (
 )
 from foresight.schedule import FlowResult, schedule, simulate, spatial_rules, stable_periods_for
 from foresight.schedule.cover import CoverRule, CoverRules
+from foresight.schedule.eligibility import never_cut_warnings
 from foresight.schedule.lp import Economics, LPResult, Strata, make_strata, solve_lp
 from foresight.schedule.policies import Targets
 from foresight.versions import library_versions
@@ -119,6 +122,7 @@ class RunResult:
     curves: pd.DataFrame | None = None  # the curves report table (per species and site)
     curve_summaries: dict = field(default_factory=dict)  # its SiteSummary lists by species
     log: list[str] = field(default_factory=list)  # the run's log lines (run.log)
+    warnings: tuple[str, ...] = ()  # what the run warned of (also in run.log and the report)
 
     @property
     def level_m3_per_year(self) -> float:
@@ -164,6 +168,8 @@ def check(scenario: Scenario, strict: bool = False) -> CheckResult:
 
     Nothing is projected or written.
     """
+    for message in scenario.warnings:
+        log.warning("%s", message)
     cfg = scenario.inventory
     frame, layer = read_layer(cfg.path, cfg.layer)
     fill = None
@@ -182,7 +188,10 @@ def check(scenario: Scenario, strict: bool = False) -> CheckResult:
         _where_fields(stands, scenario),
         _read_overlay,
         _read_raster,
+        strict=strict,
     )
+    for message in (*inventory.report.warnings, *netdown.warnings):
+        log.warning("%s", message)
     for note in netdown.notes:
         log.warning("%s", note)
     stands = stands.copy()
@@ -197,6 +206,13 @@ def check(scenario: Scenario, strict: bool = False) -> CheckResult:
     stands = stands[[c for c in stands.columns if c != geom] + [geom]]
     result = CheckResult(stands, inventory.report, netdown)
     cover_rules(scenario, result)  # a target naming an unknown zone is an input error now
+    extent = (0.0, 0.0)
+    if scenario.report.raster_cell_m:
+        geoms, wcrs = metric_geometries(stands)
+        x0, y0, x1, y1 = shapely.total_bounds(geoms)
+        extent = ((x1 - x0) * metres_per_unit(wcrs), (y1 - y0) * metres_per_unit(wcrs))
+    where = f"{scenario.source}: " if scenario.source is not None else ""
+    check_run_size(scenario, len(stands), extent, where)
     opening = scenario.harvest.max_opening_ha
     if scenario.harvest.spatial and opening:
         big = netdown.harvestable_ha > opening * (1 + 1e-9)
@@ -287,9 +303,11 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
     managed = MANAGED | {name for name, _, _ in scenario.sensitivity}
     if out is not None:
         check_output_dir(out, managed)  # before the long stages, not after
-    with _captured_log() as lines:
+    with _captured_log() as capture:
         result = _project(scenario, strict)
-        result.out_dir, result.log = out, lines
+        result.out_dir, result.log = out, capture.lines
+        result.warnings = tuple(capture.warnings)  # this run's own, not its cases'
+
         base = flatten(scenario.to_dict())
         for n, (name, sets, case) in enumerate(scenario.sensitivity, start=1):
             if flatten(case.to_dict()) == base:
@@ -314,14 +332,17 @@ class _LogLines(logging.Handler):
     def __init__(self) -> None:
         super().__init__(logging.INFO)
         self.lines: list[str] = []
+        self.warnings: list[str] = []  # the messages of WARNING records and above
         self.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
 
     def emit(self, record: logging.LogRecord) -> None:
         self.lines.append(self.format(record))
+        if record.levelno >= logging.WARNING:
+            self.warnings.append(record.getMessage())
 
 
 @contextmanager
-def _captured_log() -> Iterator[list[str]]:
+def _captured_log() -> Iterator[_LogLines]:
     """Collect the foresight logger's INFO and higher records while the block runs. A library
     caller who configured no logging still sees warnings on stderr, as without capture."""
     logger = logging.getLogger("foresight")
@@ -337,7 +358,7 @@ def _captured_log() -> Iterator[list[str]]:
     for h in extra:
         logger.addHandler(h)
     try:
-        yield capture.lines
+        yield capture
     finally:
         for h in extra:
             logger.removeHandler(h)
@@ -359,6 +380,8 @@ def _project(scenario: Scenario, strict: bool) -> RunResult:
                 code,
             )
     arrays = StandArrays.from_table(inventory.stands, scenario, curves)
+    for message in never_cut_warnings(arrays, curves, scenario.growth.max_age_years):
+        log.warning("%s", message)
     with timer.stage("project and schedule"):
         adjacency = None
         if scenario.harvest.spatial:
@@ -438,6 +461,18 @@ def _project(scenario: Scenario, strict: bool) -> RunResult:
             stable_periods_for(periods, fcfg.long_term_periods),
             cover_table,
         )
+        concerns = [
+            level_held_down(
+                wood_flow,
+                ltsy["at_culmination"],
+                regulated,
+                stable_periods_for(periods, fcfg.long_term_periods),
+                flow.binding,
+            ),
+            None if monte_carlo is None else monte_carlo_spread(monte_carlo),
+        ]
+        for message in filter(None, concerns):
+            log.warning("%s", message)
         lp_rec = lp_record(lp, flow, scenario)
         indicators = horizon_indicators(
             wood_flow,

@@ -473,6 +473,7 @@ def run_record(result: RunResult, scenario: Scenario) -> dict:
             "ending_growing_stock_m3": flow.simulation.ending_stock_m3,
         },
         "verdict": result.verdict.to_dict() if result.verdict is not None else None,
+        "warnings": list(result.warnings),
         "lp": result.lp,
         "timings_s": result.timings_s,
     }

@@ -6,7 +6,7 @@ from pathlib import Path
 import pytest
 
 from foresight import load_scenario
-from foresight.config import KEYS
+from foresight.config import KEYS, Range
 from foresight.errors import ScenarioError
 
 from helpers import scenario_dict, write_scenario
@@ -181,6 +181,49 @@ def test_docs_describe_every_key():
     for section, keys in KEYS.items():
         for key in keys:
             assert re.search(rf"^\|\s*`{re.escape(key)}`", text, re.M), f"{section}.{key}"
+
+
+def test_docs_state_every_numeric_range():
+    # The table of docs/scenario.md "Checks on every value" states, for each numeric key, the
+    # range outside which a value is an error and the usual range outside which it warns;
+    # each row must read exactly as the ranges in config.KEYS.
+    text = (ROOT / "docs" / "scenario.md").read_text(encoding="utf-8")
+    for section, keys in KEYS.items():
+        for key, ks in keys.items():
+            if ks.kind not in ("int", "float", "floats", "volumes"):
+                continue
+            err = ks.check.text() if isinstance(ks.check, Range) and ks.check.text() else "finite"
+            usual = f"{ks.usual.range.text()} ({ks.usual.why})" if ks.usual else ""
+            row = f"| `{section.replace('species.*', 'species.<CODE>')}.{key}` | {err} | {usual} |"
+            assert row in text, row
+
+
+def test_every_number_is_finite_and_in_range(tmp_path):
+    # TOML allows nan and inf; no scenario number may be either (the keys' own ranges aside).
+    for key, value in [
+        ("flow.band", "nan"),
+        ("flow.targets_m3", "[1.0, inf]"),
+        ("species.pine.a", "inf"),
+        ("report.age_class_years", "[nan]"),
+    ]:
+        raw = scenario_dict(tmp_path / "x.gpkg")
+        path = write_scenario(tmp_path / "s.toml", raw)
+        with pytest.raises(ScenarioError, match="finite"):
+            load_scenario(path, overrides=[f"{key}={value}"])
+
+
+def test_unusual_values_warn_and_usual_ones_do_not(tmp_path):
+    raw = scenario_dict(tmp_path / "x.gpkg")
+    path = write_scenario(tmp_path / "s.toml", raw)
+    assert load_scenario(path).warnings == ()
+    scn = load_scenario(path, overrides=["economics.discount_rate=0.5", "species.pine.a=40000"])
+    assert scn.warnings == (
+        "--set economics.discount_rate=0.5: [economics] discount_rate = 0.5: 0.5 is unusual: "
+        "usually >= 0 and <= 0.15 (real rates of 2% to 8% are common practice)",
+        "--set species.pine.a=40000: [species.pine] a = 40000: 40000 is unusual: usually >= 0 "
+        "and <= 3000 (the largest stand volumes recorded are a few thousand m3/ha, from memory)",
+    )
+    assert "warnings" not in scn.to_dict()  # found by the run, not set by the user
 
 
 def test_max_npv_needs_prices_and_a_rate(tmp_path):

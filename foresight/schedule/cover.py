@@ -78,6 +78,8 @@ class CoverRules:
 class PeriodBudgets:
     """The budgets of one period's pick (the rule interface of the sequential picker)."""
 
+    name = "the cover targets"  # in messages
+
     def __init__(self, rules: CoverRules, budget: NDArray, cand_zone: NDArray, cand_age: NDArray):
         self.rules, self.budget = rules, budget
         self.cand_zone, self.cand_age = cand_zone, cand_age

@@ -157,12 +157,13 @@ def _why(sim: Simulation, level: float, periods: Periods, ending_stock: float) -
     higher = f"any level above {level:,.0f} m3 per period"
     if sim.fail_period is not None:
         year = periods.start_years[sim.fail_period - 1]
-        what = (
-            "runs out of eligible volume"
-            if sim.fail_reason.startswith("eligible")
-            else "reaches the area cap (harvest.max_area_ha_per_period)"
-        )
-        what = what.replace("runs", "run").replace("reaches", "reach")
+        if sim.fail_reason.startswith("eligible volume the"):  # a rule of the pick refused
+            rules = sim.fail_reason.removeprefix("eligible volume ").removesuffix(" exhausted")
+            what = f"run out of the eligible volume {rules}"
+        elif sim.fail_reason.startswith("eligible"):
+            what = "run out of eligible volume"
+        else:
+            what = "reach the area cap (harvest.max_area_ha_per_period)"
         return f"{higher} would {what} in period {sim.fail_period} (from {year})"
     if sim.fail_reason.startswith("growing stock on the harvestable"):
         return f"at {higher} the {sim.fail_reason}"

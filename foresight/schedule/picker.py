@@ -15,8 +15,9 @@ _MIN_PART_HA = 1e-9
 
 def sequential_pick(
     t: float, stands: NDArray, vol: NDArray, area: NDArray, target: float, cap: float, rules: list
-) -> tuple[NDArray, int, float, int]:
-    """Positions cut whole, position cut partly (-1), its fraction, candidates skipped.
+) -> tuple[NDArray, int, float, list[int]]:
+    """Positions cut whole, position cut partly (-1), its fraction, and per rule the
+    candidates it refused (the first rule to refuse a candidate counts it).
 
     ``rules`` hold objects with ``begin(t)``, ``allows(k, s, full_area, a)``,
     ``commit(k, s, a)`` and ``end()``.
@@ -24,7 +25,8 @@ def sequential_pick(
     for r in rules:
         r.begin(t)
     full: list[int] = []
-    part, frac, skipped = -1, 0.0, 0
+    part, frac = -1, 0.0
+    skipped = [0] * len(rules)
     got_v = got_a = 0.0
     goal = min(target, float(vol.sum()))
     for k in range(len(stands)):  # sequential: each cut changes what the next may do
@@ -33,10 +35,15 @@ def sequential_pick(
         s = int(stands[k])
         f = min(1.0, (goal - got_v) / vol[k], (cap - got_a) / area[k])
         a = f * area[k]
-        if a <= _MIN_PART_HA:
-            break
-        if not all(r.allows(k, s, float(area[k]), a) for r in rules):
-            skipped += 1
+        if f < 1.0 and a <= _MIN_PART_HA:
+            break  # what is left of the target or the cap is not worth a split
+        # (a whole part, however small, is a candidate like any other: a sliver of a stand
+        # must not end the period's pick)
+        refused = next(
+            (i for i, r in enumerate(rules) if not r.allows(k, s, float(area[k]), a)), -1
+        )
+        if refused >= 0:
+            skipped[refused] += 1
             continue
         for r in rules:
             r.commit(k, s, a)

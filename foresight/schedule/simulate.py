@@ -220,7 +220,7 @@ def simulate(
         elig, vol_ha = elig[keep], vol_ha[keep]
 
         cut_full = np.zeros(0, dtype=np.intp)
-        part, frac, blocked = -1, 0.0, 0
+        part, frac, blocked = -1, 0.0, ""
         if target > 0 and len(elig):
             first = None if planned is None else (planned[stand[elig]] > p + 1).astype(np.int8)
             order = cut_order(priority, age_h[elig], min_age[elig], vol_ha, rank[elig], first)
@@ -233,9 +233,11 @@ def simulate(
             if not rules:
                 full_pos, part_pos, frac = _pick_prefix(vol, area[cand], target, cap)
             else:
-                full_pos, part_pos, frac, blocked = sequential_pick(
+                full_pos, part_pos, frac, refused = sequential_pick(
                     p * L + off, stand[cand], vol, area[cand], target, cap, rules
                 )
+                names = [r.name for r, n in zip(rules, refused, strict=True) if n]
+                blocked = " and ".join(dict.fromkeys(names))
             cut_full = cand[full_pos]
             part = int(cand[part_pos]) if part_pos >= 0 else -1
             h[p] = vol[full_pos].sum() + (frac * vol[part_pos] if part >= 0 else 0.0)
@@ -274,7 +276,7 @@ def simulate(
             sim.feasible = False
             sim.fail_period = p + 1
             if blocked:
-                sim.fail_reason = "eligible volume the spatial rules allow exhausted"
+                sim.fail_reason = f"eligible volume {blocked} allow exhausted"
             elif len(cut_full) + (part >= 0) == len(elig):
                 sim.fail_reason = "eligible volume exhausted"
             else:

@@ -28,6 +28,8 @@ _MIN_PART_HA = 1e-9
 
 @dataclass
 class SpatialRules:
+    name = "the spatial rules (green-up and openings)"  # in messages
+
     adjacency: Adjacency
     greenup_years: float
     max_opening_ha: float = 0.0  # 0: unit restriction

@@ -118,7 +118,7 @@ def test_invalid_geometry_rejected_with_strict(tmp_path, capsys):
         ),
         (["--set", "flow.band=1.5"], r"--set flow.band=1.5: \[flow\] band = 1.5: must be >= 0"),
         (["--set", "nonsense"], r"expected KEY=VALUE"),
-        (["--set", "scenario.periods=0"], r"\[scenario\] periods = 0: must be > 0"),
+        (["--set", "scenario.periods=0"], r"\[scenario\] periods = 0: must be >= 1"),
         (["--set", "inventory.layer=roads"], r"no layer 'roads' \(inventory.layer\)"),
         (["--set", "inventory.path=nowhere.gpkg"], r"nowhere.gpkg: stand layer file not found"),
     ],

@@ -78,7 +78,10 @@ def test_old_forest_retention_holds_in_the_outputs(tmp_path):
 @pytest.mark.parametrize(
     ("cover", "match"),
     [
-        ({"zone": "*", "older_than_years": 100, "min_share": 1.5}, r"min_share = 1.5: must be in"),
+        (
+            {"zone": "*", "older_than_years": 100, "min_share": 1.5},
+            r"min_share = 1.5: must be >= 0 and <= 1",
+        ),
         ({"zone": "*", "older_than_years": 100}, r"needs both older_than_years and min_share"),
         (
             {"zone": "*", "older_than_years": 100, "min_share": 0.2, "max_share": 0.3},
