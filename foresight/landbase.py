@@ -40,6 +40,7 @@ from foresight.geometry import invalid_mask, repair
 from foresight.io.rasters import RasterData
 from foresight.zonal import zonal
 
+CRUMB_HA = 1e-4  # harvestable area under 1 m2 is an artefact of an overlay's edge
 _GROUP = 64  # pieces per stand unioned in one vectorised call; larger groups one by one
 
 
@@ -388,6 +389,14 @@ def apply_netdown(
                 )
             state.area_ha *= 1.0 - z.fraction_above()
         removed[k] = before - state.area_ha
+    crumbs = (state.area_ha > 0) & (state.area_ha < CRUMB_HA) & (gross >= CRUMB_HA)
+    if crumbs.any():
+        warnings.append(
+            f"{int(crumbs.sum())} stands keep less than 1 m2 of harvestable area after the "
+            f"netdown (the smallest {float(state.area_ha[crumbs].min()):.3g} ha): crumbs an "
+            "overlay's edge left (is it drawn along the stand boundaries?); they are cut, if "
+            "at all, as whole parts"
+        )
     remaining_geom = (
         state.geom if wcrs == crs else gpd.GeoSeries(state.geom, crs=wcrs).to_crs(crs).to_numpy()
     )

@@ -164,3 +164,32 @@ def test_monte_carlo_spread_in_stock_only_is_named(tmp_path, capsys):
     assert main(["run", str(scenario), "--out", str(out)]) == 0
     pattern = r"every disturbance replicate met the harvest target in every period"
     _warned_everywhere(out, capsys.readouterr().err, pattern)
+
+
+def test_a_crumb_left_by_a_reserve_is_named_and_costs_nothing(tmp_path, capsys):
+    # The end-to-end case of a reserve drawn a hair inside a stand's boundary: it leaves a
+    # 1 mm2 crumb of harvestable area. Under a cover target (a rule of the sequential pick)
+    # the level must equal the level with the stand wholly reserved, and the crumb is named.
+    geoms = list(squares(N))
+    oldest = N - 1
+    x0, y0, _, _ = shapely.bounds(geoms[oldest])
+    hole = shapely.box(x0 + 50, y0 + 50, x0 + 50.001, y0 + 50.001)
+    levels = {}
+    for name, reserve in (("crumb", geoms[oldest].difference(hole)), ("whole", geoms[oldest])):
+        d = tmp_path / name
+        d.mkdir()
+        write_layer(d / "reserve.gpkg", [reserve], {"K": np.array([1])}, layer="reserve")
+        raw = _forest(
+            d,
+            landbase={"steps": [{"label": "reserve", "layer": str(d / "reserve.gpkg")}]},
+            cover=[{"zone": "*", "older_than_years": 90, "min_share": 0.1}],
+        )
+        out = d / "out"
+        code = main(["run", str(write_scenario(d / "s.toml", raw)), "--out", str(out)])
+        assert code == 0
+        levels[name] = json.loads((out / "run.json").read_text())["flow"]["level_m3_per_year"]
+        if name == "crumb":
+            pattern = r"1 stands keep less than 1 m2 of harvestable area after the netdown"
+            _warned_everywhere(out, capsys.readouterr().err, pattern)
+    assert levels["whole"] > 0
+    assert levels["crumb"] == pytest.approx(levels["whole"], rel=1e-6)
