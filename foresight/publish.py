@@ -428,6 +428,8 @@ def report_data(
         comparison=comparison,
         lp=result.lp,
         case=case,
+        # the run's warnings, once RunResult carries them
+        warnings=tuple(getattr(result, "warnings", ())),
     )
 
 
