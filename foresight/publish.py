@@ -330,20 +330,22 @@ def write_figures(result: RunResult, scenario: Scenario, directory: Path) -> dic
         transform.f + h * transform.e,
         transform.f,
     )
-    harvest_map_figure(
-        add(
-            "harvest_map",
-            "Where and when",
-            "The first period in which each stand is cut (projection.gpkg: style the stands "
-            "layer by first_harvest_period, or switch on the harvests_period_* layers).",
-        ),
+    caption = (
+        "The first period in which each stand is cut (projection.gpkg: style the stands "
+        "layer by first_harvest_period, or switch on the harvests_period_* layers)."
+    )
+    path = add("harvest_map", "Where and when", caption)
+    note = harvest_map_figure(
+        path,
         labels,
         extent,
         first_periods(result),
         scenario.scenario.periods,
         wf["start_year"].to_numpy(),
-        pyproj.CRS.from_user_input(result.inventory.stands.crs).name,
+        pyproj.CRS.from_user_input(result.inventory.stands.crs),
     )
+    if note:
+        figs["harvest_map"] = Figure(path, "Where and when", f"{caption} {note}")
     if result.monte_carlo is not None:
         monte_carlo_figure(
             add(
