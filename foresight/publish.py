@@ -133,7 +133,8 @@ def write_outputs(
     result.timings_s["write outputs"] = round(time.perf_counter() - t0, 4)
     record["timings_s"] = result.timings_s
     write_json(directory / RUN_JSON, record)
-    log.info("write outputs done in %.2f s", result.timings_s["write outputs"])
+    if case is None:  # once for the whole output: the cases' writes are part of it
+        log.info("write outputs done in %.2f s", result.timings_s["write outputs"])
     (directory / RUN_LOG).write_text("\n".join(result.log) + "\n", encoding="utf-8")
     return record
 

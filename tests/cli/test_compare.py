@@ -57,6 +57,37 @@ def test_cases_run_with_the_base_and_compare_names_the_one_difference(tmp_path, 
         assert f"| `{col}` |" in docs, col
 
 
+def test_a_run_with_cases_logs_no_line_twice_and_names_each_cases_lines(tmp_path, capsys):
+    cases = ["loose", "late"]
+    scn = case_scenario(
+        tmp_path,
+        [
+            {"name": "loose", "set": {"flow.ending_stock": 0.2}},
+            {"name": "late", "set": {"species.pine.min_harvest_age": 80}},
+        ],
+    )
+    out = tmp_path / "out"
+    capsys.readouterr()
+    assert main(["run", str(scn), "--out", str(out)]) == 0
+    lines = capsys.readouterr().err.splitlines()
+    assert len(lines) == len(set(lines)), [x for x in lines if lines.count(x) > 1]
+    # the write of the whole output (the cases' folders included) is logged once
+    assert sum("write outputs done" in x for x in lines) == 1
+    # one verdict for the base, and one for each case that names it
+    verdicts = [x for x in lines if "verdict: " in x]
+    assert len(verdicts) == 1 + len(cases)
+    assert verdicts[0].startswith("foresight: verdict: ")
+    for name, line in zip(cases, verdicts[1:], strict=True):
+        assert line.startswith(f"foresight: case {name!r}: verdict: ")
+    # run.log holds the same lines (INFO and above), with a time stamp and a level
+    logged = [x.split(" ", 3)[3] for x in (out / "run.log").read_text().splitlines()]
+    assert logged == [x.removeprefix("foresight: ") for x in lines]
+    # each case's own log names it too and holds its verdict once
+    own = (out / "late" / "run.log").read_text().splitlines()
+    assert sum("verdict: " in x for x in own) == 1
+    assert all(" case 'late': " in x for x in own)
+
+
 def test_compare_prints_each_runs_verdict_and_its_figure_names_it(tmp_path, capsys, monkeypatch):
     from foresight.reporting import figures
 
