@@ -318,12 +318,30 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
                     ", ".join(f"{k} = {v!r}" for k, v in sets.items()),
                 )
             log.info("sensitivity case %r (%d of %d) ...", name, n, len(scenario.sensitivity))
-            result.cases[name] = run(case, None, strict=strict)
+            with _named_lines(f"case {name!r}: "):
+                result.cases[name] = run(case, None, strict=strict)
         if out is not None:
             with staged_output(out, managed) as tmp:
                 log.info("write outputs ...")
                 write_outputs(result, scenario, tmp)
     return result
+
+
+@contextmanager
+def _named_lines(prefix: str) -> Iterator[None]:
+    """Begin every foresight log line with ``prefix`` while the block runs, so that a
+    sensitivity case's lines (its warnings, its verdict) say whose they are."""
+
+    def name(record: logging.LogRecord) -> bool:
+        record.msg, record.args = prefix + record.getMessage(), ()
+        return True
+
+    logger = logging.getLogger("foresight")
+    logger.addFilter(name)
+    try:
+        yield
+    finally:
+        logger.removeFilter(name)
 
 
 class _LogLines(logging.Handler):

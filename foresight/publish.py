@@ -133,7 +133,8 @@ def write_outputs(
     result.timings_s["write outputs"] = round(time.perf_counter() - t0, 4)
     record["timings_s"] = result.timings_s
     write_json(directory / RUN_JSON, record)
-    log.info("write outputs done in %.2f s", result.timings_s["write outputs"])
+    if case is None:  # once for the whole output: the cases' writes are part of it
+        log.info("write outputs done in %.2f s", result.timings_s["write outputs"])
     (directory / RUN_LOG).write_text("\n".join(result.log) + "\n", encoding="utf-8")
     return record
 
@@ -330,20 +331,22 @@ def write_figures(result: RunResult, scenario: Scenario, directory: Path) -> dic
         transform.f + h * transform.e,
         transform.f,
     )
-    harvest_map_figure(
-        add(
-            "harvest_map",
-            "Where and when",
-            "The first period in which each stand is cut (projection.gpkg: style the stands "
-            "layer by first_harvest_period, or switch on the harvests_period_* layers).",
-        ),
+    caption = (
+        "The first period in which each stand is cut (projection.gpkg: style the stands "
+        "layer by first_harvest_period, or switch on the harvests_period_* layers)."
+    )
+    path = add("harvest_map", "Where and when", caption)
+    note = harvest_map_figure(
+        path,
         labels,
         extent,
         first_periods(result),
         scenario.scenario.periods,
         wf["start_year"].to_numpy(),
-        pyproj.CRS.from_user_input(result.inventory.stands.crs).name,
+        pyproj.CRS.from_user_input(result.inventory.stands.crs),
     )
+    if note:
+        figs["harvest_map"] = Figure(path, "Where and when", f"{caption} {note}")
     if result.monte_carlo is not None:
         monte_carlo_figure(
             add(
@@ -428,6 +431,8 @@ def report_data(
         comparison=comparison,
         lp=result.lp,
         case=case,
+        # the run's warnings, once RunResult carries them
+        warnings=tuple(getattr(result, "warnings", ())),
     )
 
 

@@ -16,6 +16,7 @@ SHOWN = [
     "mid_term_m3_per_year",
     "long_term_m3_per_year",
     "ending_stock_ratio",
+    "sustainable",
     "differences",
 ]
 
@@ -35,11 +36,17 @@ def add_parser(sub, common: argparse.ArgumentParser) -> None:  # noqa: ANN001
     p.set_defaults(handler=handle)
 
 
+def verdict_word(sustainable: bool | None) -> str:
+    """A run's verdict in a word ('?' for a run.json without one)."""
+    return {True: "yes", False: "no"}.get(sustainable, "?")
+
+
 def handle(args: argparse.Namespace) -> int:
     table = foresight.compare(args.runs, args.out)
     if not args.quiet:
         with pd.option_context("display.width", 140, "display.max_colwidth", 60):
-            print(table[SHOWN].to_string(index=False, float_format=lambda v: f"{v:,.2f}"))
+            shown = table[SHOWN].assign(sustainable=table["sustainable"].map(verdict_word))
+            print(shown.to_string(index=False, float_format=lambda v: f"{v:,.2f}"))
         out = Path(args.out)
         print(f"wrote {out / 'comparison.csv'} and {out / 'comparison.png'}")
     return 0

@@ -50,23 +50,25 @@ def read_layer(
     return frame, layer
 
 
+# GeoPackage 1.2 (OGC 12-128r15): GDAL writes it since 2.2 and reads it without a word, while a
+# 1.4 file makes an older GDAL (3.6, under QGIS 3.22 on Debian 12) warn on every open that it
+# "may only be partially supported"; nothing we write needs 1.3 or 1.4.
+GPKG_VERSION = "1.2"
+
+
 def write_gpkg_layer(path: Path, frame: pd.DataFrame, layer: str, spatial: bool = True) -> None:
-    """Write (or add) one layer to a GeoPackage; ``spatial=False`` writes an attribute table."""
-    if spatial:
-        pyogrio.write_dataframe(
-            frame, path, layer=layer, driver="GPKG", use_arrow=True, append=path.exists()
-        )
-    else:
-        # A DataFrame without geometry becomes a GeoPackage attribute table
-        # (gpkg_contents.data_type = 'attributes').
-        pyogrio.write_dataframe(
-            pd.DataFrame(frame),
-            path,
-            layer=layer,
-            driver="GPKG",
-            use_arrow=True,
-            append=path.exists(),
-        )
+    """Write (or add) one layer to a GeoPackage; ``spatial=False`` writes an attribute table
+    (``gpkg_contents.data_type = 'attributes'``). The file is created at :data:`GPKG_VERSION`."""
+    create = not path.exists()
+    pyogrio.write_dataframe(
+        frame if spatial else pd.DataFrame(frame),
+        path,
+        layer=layer,
+        driver="GPKG",
+        use_arrow=True,
+        append=not create,
+        dataset_options={"VERSION": GPKG_VERSION} if create else None,
+    )
 
 
 def add_feature_views(
@@ -79,8 +81,9 @@ def add_feature_views(
     Each view is ``(name, select, like, description)``: the SELECT must return the fid and
     geometry column of the feature table ``like`` (``{geom}`` in it stands for that column's
     name), whose geometry column, type, SRS and extent the view is registered with (OGC
-    GeoPackage 1.3, Req. 14: a gpkg_contents row may name a view). ``indexes`` adds SQLite
-    indexes on (table, columns) that the views filter by.
+    12-128r15, GeoPackage 1.2, Req. 14: "The table_name column value in a gpkg_contents table
+    row SHALL contain the name of a SQLite table or view"). ``indexes`` adds SQLite indexes on
+    (table, columns) that the views filter by.
     """
     with closing(sqlite3.connect(path)) as con, con:
         for table, cols in indexes:

@@ -76,10 +76,13 @@ def comparison_table(runs: list[tuple[str, dict, pd.DataFrame]]) -> pd.DataFrame
 
 
 def comparison_figure(path: Path, runs: list[tuple[str, dict, pd.DataFrame]]) -> None:
-    """The harvest forecasts of all runs on one set of axes (greyscale line styles)."""
+    """The harvest forecasts of all runs on one set of axes (greyscale line styles), each
+    labelled with its verdict."""
     styles = ["-", "--", ":", "-.", (0, (5, 1)), (0, (3, 1, 1, 1))]
     fig, ax = plt.subplots(figsize=SIZES["chart"], layout="constrained")
-    for k, (name, _, wf) in enumerate(runs):
+    for k, (name, rec, wf) in enumerate(runs):
+        sustainable = (rec.get("verdict") or {}).get("sustainable")
+        verdict = {True: "sustainable", False: "not sustainable"}.get(sustainable)
         grey = 0.6 * k / max(len(runs) - 1, 1)
         ax.step(
             *period_steps(wf, "harvest_m3_per_year"),
@@ -87,6 +90,6 @@ def comparison_figure(path: Path, runs: list[tuple[str, dict, pd.DataFrame]]) ->
             color=str(grey),
             ls=styles[k % len(styles)],
             lw=1.6,
-            label=name,
+            label=f"{name} ({verdict})" if verdict else name,
         )
     finish_time_chart(fig, ax, path, "harvest (m3/year)", "Harvest forecasts of the runs")

@@ -14,10 +14,18 @@ import matplotlib
 
 matplotlib.use("Agg")  # files only; never a window
 
+import math  # noqa: E402
+
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
+import pyproj  # noqa: E402
 from matplotlib.colors import BoundaryNorm, ListedColormap  # noqa: E402
+from matplotlib.lines import Line2D  # noqa: E402
+from matplotlib.offsetbox import AnchoredOffsetbox, DrawingArea  # noqa: E402
+from matplotlib.patches import Polygon  # noqa: E402
+from matplotlib.text import Text  # noqa: E402
+from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar  # noqa: E402
 
 from foresight.growth import YieldCurve  # noqa: E402
 from foresight.growth.rules import SiteSummary  # noqa: E402
@@ -92,8 +100,8 @@ def harvest_figure(
         )
     styles = {"at_culmination": ("0.3", "--"), "at_min_harvest_age": ("0.55", ":")}
     labels = {
-        "at_culmination": "LTSY at MAI culmination",
-        "at_min_harvest_age": "LTSY at minimum harvest ages",
+        "at_culmination": "long-term sustained yield, MAI culmination",
+        "at_min_harvest_age": "long-term sustained yield, minimum harvest ages",
     }
     for key, value in ltsy.items():
         colour, ls = styles[key]
@@ -221,7 +229,8 @@ def cover_figure(path: Path, cover: pd.DataFrame, period_start_years: np.ndarray
                 ms=7,
                 label="missed",
             )
-        ax.set_title(f"zone {zone}: {rule}", fontsize=8, loc="left")
+        where = "all zones" if zone == "*" else f"zone {zone}"  # '*': the zones together
+        ax.set_title(f"{where}: {rule}", fontsize=8, loc="left")
         ax.set_ylim(0, max(100 * g["share"].max(), 100 * g["target"].iloc[0]) * 1.15 + 1)
         ax.tick_params(labelsize=7)
         ax.set_ylabel("share of area (%)", fontsize=8)
@@ -232,6 +241,99 @@ def cover_figure(path: Path, cover: pd.DataFrame, period_start_years: np.ndarray
     save(fig, path)
 
 
+UNIT_SYMBOLS = {"metre": "m", "kilometre": "km", "foot": "ft", "US survey foot": "US ft"}
+
+
+def round_length_m(span_m: float) -> float:
+    """A round length for a scale bar: 1, 2 or 5 x 10^k metres, the largest not above a
+    fifth of ``span_m`` [m]."""
+    target = span_m / 5
+    step = 10.0 ** math.floor(math.log10(target))
+    return next(m * step for m in (5, 2, 1) if m * step <= target)
+
+
+def length_label(metres: float) -> str:
+    return f"{metres / 1000:g} km" if metres >= 1000 else f"{metres:g} m"
+
+
+def map_frame(crs: pyproj.CRS, extent: tuple[float, float, float, float]) -> tuple[float, float]:
+    """At the centre of a map in a projected ``crs``: map units per metre on the ground along
+    the x axis (the projection's scale factor over the unit's length), and the direction of
+    true north in degrees clockwise from the map's up (the meridian convergence), both from
+    pyproj's geodesics and transformations."""
+    x0, x1, y0, y1 = extent
+    cx, cy = (x0 + x1) / 2, (y0 + y1) / 2
+    to_geo = pyproj.Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True)
+    lon, lat = to_geo.transform(cx, cy)
+    dx = (x1 - x0) / 100
+    lon2, lat2 = to_geo.transform(cx + dx, cy)
+    ground_m = crs.get_geod().inv(lon, lat, lon2, lat2)[2]
+    to_map = pyproj.Transformer.from_crs(crs.geodetic_crs, crs, always_xy=True)
+    nx, ny = to_map.transform(lon, lat + 1e-3)
+    return dx / ground_m, math.degrees(math.atan2(nx - cx, ny - cy))
+
+
+def scale_bar_and_north(ax, crs: pyproj.CRS, extent: tuple[float, float, float, float]) -> str:  # noqa: ANN001
+    """A scale bar (a round length in m or km, lower left) and a north arrow (upper right) on a
+    map in ``crs``; returns a note for the caption where there can be no true scale bar."""
+    north = 0.0
+    note = ""
+    if crs.is_geographic:
+        # a degree of longitude shrinks with latitude: no one length holds across the map
+        note = "No scale bar: the layer's CRS is geographic (degrees)."
+    else:
+        per_m, north = map_frame(crs, extent)
+        length_m = round_length_m((extent[1] - extent[0]) / per_m)
+        ax.add_artist(
+            AnchoredSizeBar(
+                ax.transData,
+                length_m * per_m,
+                length_label(length_m),
+                "lower left",
+                pad=0.4,
+                borderpad=0.8,
+                sep=3,
+                frameon=True,
+                size_vertical=0,
+                fontproperties={"size": 7},
+            )
+        )
+    ax.add_artist(north_arrow(north))
+    return note
+
+
+def north_arrow(north_deg: float) -> AnchoredOffsetbox:
+    """A north arrow in a small box for the upper right corner: a shaft (``gid``
+    'north_arrow', from tail to tip), its head and an N beyond the tip, turned
+    ``north_deg`` clockwise from up. Drawn in points, so it keeps its shape on any map."""
+    along = np.array([math.sin(math.radians(north_deg)), math.cos(math.radians(north_deg))])
+    across = np.array([along[1], -along[0]])
+    centre = np.array([12.0, 17.0])
+    tail, tip = centre - 12 * along, centre + 12 * along
+    area = DrawingArea(24, 42)
+    area.add_artist(Line2D(*zip(tail, tip, strict=True), color="black", lw=1.2, gid="north_arrow"))
+    head = [tip + 1.5 * along, tip - 5 * along + 3 * across, tip - 5 * along - 3 * across]
+    area.add_artist(Polygon(head, closed=True, color="black"))
+    area.add_artist(
+        Text(*(tip + 9 * along), "N", ha="center", va="center", fontsize=8, fontweight="bold")
+    )
+    box = AnchoredOffsetbox("upper right", child=area, pad=0.2, borderpad=0.6, frameon=True)
+    box.patch.set(alpha=0.9, edgecolor="none")
+    return box
+
+
+def map_axis_labels(crs: pyproj.CRS | None) -> tuple[str, str]:
+    """Axis labels naming easting and northing (or longitude and latitude) with the unit and
+    the CRS."""
+    if crs is None:
+        return "easting", "northing"
+    unit = crs.axis_info[0].unit_name if crs.axis_info else ""
+    if crs.is_geographic:
+        return f"longitude (degrees), {crs.name}", "latitude (degrees)"
+    symbol = UNIT_SYMBOLS.get(unit, unit)
+    return f"easting ({symbol}), {crs.name}", f"northing ({symbol})"
+
+
 def harvest_map_figure(
     path: Path,
     labels: np.ndarray,
@@ -239,10 +341,12 @@ def harvest_map_figure(
     first_period: np.ndarray,
     periods: int,
     start_years: np.ndarray,
-    crs_name: str = "",
-) -> None:
+    crs: pyproj.CRS | None = None,
+) -> str:
     """Map of the first harvest period of each stand from a label raster (1 + stand index per
-    cell, 0 outside): periods on a lightness scale, stands never cut light grey."""
+    cell, 0 outside): periods on a lightness scale, stands never cut light grey, with a scale
+    bar and a north arrow when ``crs`` is known. Returns a note for the caption (why there is
+    no scale bar), empty when there is none to make."""
     colours = plt.get_cmap("viridis")(np.linspace(0.0, 1.0, periods))
     # per label: white outside the stands, light grey never cut, else the period's colour
     table = np.vstack([[1.0, 1.0, 1.0, 1.0], np.empty((len(first_period), 4))])
@@ -260,15 +364,22 @@ def harvest_map_figure(
     bar.set_ticks(ticks, labels=[f"{t} ({start_years[t - 1]})" for t in ticks], fontsize=7)
     ax.set_aspect("equal")
     ax.ticklabel_format(useOffset=False, style="plain")
-    ax.set_xlabel(f"x ({crs_name})" if crs_name else "x", fontsize=8)
-    ax.set_ylabel("y", fontsize=8)
+    xlabel, ylabel = map_axis_labels(crs)
+    ax.set_xlabel(xlabel, fontsize=8)
+    ax.set_ylabel(ylabel, fontsize=8)
     ax.tick_params(labelsize=7)
+    note = (
+        scale_bar_and_north(ax, crs, extent)
+        if crs is not None
+        else "No scale bar: the layer has no CRS."
+    )
     ax.set_title(
         "First harvest period of each stand (light grey: not cut in the horizon)",
         fontsize=9,
         loc="left",
     )
     save(fig, path)
+    return note
 
 
 def monte_carlo_figure(path: Path, monte_carlo: pd.DataFrame, wood_flow: pd.DataFrame) -> None:
@@ -282,7 +393,7 @@ def monte_carlo_figure(path: Path, monte_carlo: pd.DataFrame, wood_flow: pd.Data
     x, lo = period_steps(mc, "p10_m3_y")
     _, hi = period_steps(mc, "p90_m3_y")
     fig, ax = plt.subplots(figsize=SIZES["chart"], layout="constrained")
-    ax.fill_between(x, lo, hi, step="post", color="0.8", label="P10 to P90")
+    ax.fill_between(x, lo, hi, step="post", color="0.8", label="10th to 90th percentile")
     ax.step(*period_steps(mc, "p50_m3_y"), where="post", color="black", lw=1.8, label="median")
     ax.step(
         *period_steps(mc, "target_m3_y"),

@@ -68,6 +68,54 @@ MEANINGS = {
     "max_shortfall_probability": "Highest share of disturbance replicates short of a "
     "period's target.",
 }
+# The indicators and the checks of the verdict in words, as the report shows them (the CSV
+# files keep the names and add these as a `label` column).
+LABELS = {
+    "horizon_years": "Horizon",
+    "gross_area_ha": "Gross area",
+    "harvestable_ha": "Harvestable land base",
+    "flow_level_m3_per_year": "Flow level",
+    "mean_harvest_m3_per_year": "Mean harvest",
+    "short_term_m3_per_year": "Short-term harvest",
+    "mid_term_m3_per_year": "Mid-term harvest",
+    "long_term_m3_per_year": "Long-term harvest",
+    "total_harvest_m3": "Total harvest",
+    "total_harvest_ha": "Total area cut",
+    "mean_harvest_age_years": "Mean age at harvest",
+    "mean_harvest_volume_m3_ha": "Mean volume per hectare cut",
+    "ltsy_at_culmination_m3_per_year": "Long-term sustained yield at MAI culmination",
+    "ltsy_at_min_harvest_age_m3_per_year": "Long-term sustained yield at the minimum harvest ages",
+    "level_to_ltsy": "Flow level to long-term sustained yield",
+    "largest_drop": "Largest fall between periods",
+    "largest_drop_period": "Period of the largest fall",
+    "largest_increase": "Largest rise between periods",
+    "initial_growing_stock_m3": "Initial growing stock",
+    "ending_growing_stock_m3": "Ending growing stock",
+    "ending_to_initial_growing_stock": "Ending to initial growing stock",
+    "initial_hlb_growing_stock_m3": "Initial growing stock, harvestable land base",
+    "ending_hlb_growing_stock_m3": "Ending growing stock, harvestable land base",
+    "ending_to_initial_hlb_growing_stock": "Ending to initial growing stock, harvestable land base",
+    "regulated_hlb_growing_stock_m3": "Regulated forest's growing stock, harvestable land base",
+    "total_net_growth_m3": "Net growth over the horizon",
+    "harvest_to_net_growth": "Harvest to net growth",
+    "total_disturbed_ha": "Area disturbed",
+    "total_disturbed_m3": "Volume lost to disturbance",
+    "periods_meeting_policy": "Periods meeting the flow policy",
+    "sustainable": "Sustainable",
+    "total_net_revenue": "Net revenue",
+    "net_present_value": "Net present value",
+    "spatial_cost_m3_per_year": "Cost of the spatial rules",
+    "lp_harvest_m3_per_year": "Harvest of the harvest LP",
+    "gap_to_lp": "Gap to the harvest LP",
+    "max_shortfall_probability": "Highest shortfall probability",
+}
+CHECK_LABELS = {
+    "flow_policy_held": "Flow policy held",
+    "ending_growing_stock": "Ending growing stock kept",
+    "harvestable_stock_kept": "Harvestable growing stock kept",
+    "within_long_term_sustained_yield": "Within the long-term sustained yield",
+    "cover_targets_met": "Cover targets met",
+}
 STOCK_TOLERANCE = 0.01  # a harvestable growing stock within 1% counts as not falling
 POLICY_NAMES = {
     "even": "even flow",
@@ -269,6 +317,10 @@ class Check:
     detail: str
     period: int | None = None
 
+    @property
+    def label(self) -> str:
+        return CHECK_LABELS[self.name]
+
 
 @dataclass(frozen=True)
 class Verdict:
@@ -281,16 +333,21 @@ class Verdict:
     checks: list[Check] = field(default_factory=list)
 
     def table(self) -> pd.DataFrame:
+        """One row per check (verdict.csv): its name, whether it holds, the first failing
+        period, the detail and the check in words."""
         rows = [
             {
                 "check": c.name,
                 "holds": c.holds,
                 "first_failing_period": c.period,
                 "detail": c.detail,
+                "label": c.label,
             }
             for c in self.checks
         ]
-        frame = pd.DataFrame(rows, columns=["check", "holds", "first_failing_period", "detail"])
+        frame = pd.DataFrame(
+            rows, columns=["check", "holds", "first_failing_period", "detail", "label"]
+        )
         frame["first_failing_period"] = frame["first_failing_period"].astype("Int64")
         return frame
 
@@ -449,9 +506,10 @@ def judge(
     else:
         first = min((c.period for c in failed if c.period is not None), default=None)
         where = f", the first in period {first}" if first is not None else ""
+        which = "; ".join(c.label[0].lower() + c.label[1:] for c in failed)
         headline = (
             f"Not sustainable over the {horizon}-year horizon: {level} fails "
-            f"{len(failed)} of {len(checks)} checks{where}."
+            f"{len(failed)} of {len(checks)} checks ({which}){where}."
         )
         grounds = failed
     statement = headline[:-1] + ": " + "; ".join(c.detail for c in grounds) + "."
@@ -564,4 +622,5 @@ def horizon_indicators(
         )
     frame = pd.DataFrame(rows, columns=["indicator", "value", "unit"])
     frame["meaning"] = frame["indicator"].map(MEANINGS)
+    frame["label"] = frame["indicator"].map(LABELS)
     return frame

@@ -45,18 +45,30 @@ class Table:
     frame: pd.DataFrame
     caption: str = ""
     collapsed: bool = False  # shown folded (HTML <details>)
-    plain: tuple[str, ...] = ("period", "year", "from", "to", "first_failing_period")
+    plain: tuple[str, ...] = ("period", "year", "from", "to", "first failing period")
     mixed: tuple[str, ...] = ("value",)  # columns of different quantities, row by row
+    boxed: bool = False  # set off in a box (HTML), as the key numbers are
 
     def __post_init__(self) -> None:
         frame = self.frame.dropna(axis=1, how="all") if len(self.frame) else self.frame
         object.__setattr__(self, "frame", frame)
 
 
+@dataclass(frozen=True)
+class Items:
+    """A titled list of separate points, one item each (the run's warnings)."""
+
+    title: str
+    items: tuple[str, ...]
+
+
+Block = str | Table | Figure | Items
+
+
 @dataclass
 class Section:
     title: str
-    blocks: list[str | Table | Figure] = field(default_factory=list)
+    blocks: list[Block] = field(default_factory=list)
 
 
 @dataclass
@@ -80,6 +92,7 @@ class ReportData:
     comparison: pd.DataFrame | None = None
     lp: dict | None = None
     case: tuple[str, dict] | None = None  # a sensitivity case: its name and the keys it sets
+    warnings: tuple[str, ...] = ()  # what the run warned of, one sentence each
 
 
 def _decimals(values: pd.Series) -> int:
@@ -250,20 +263,125 @@ WOOD_FLOW_SHOWN = {
 }
 
 
-def sections(data: ReportData) -> list[Section]:
-    """The report's content, in reading order."""
-    v = data.verdict
-    out = [
-        Section("Caution", [CAUTION]),
-        Section(
-            "Verdict",
-            [
-                v.headline,
-                f"What stops a higher level: {v.limited_by}.",
-                Table(v.table(), "Each check of the verdict (methods: docs/methods.md)."),
-            ],
+CHECK_SHOWN = {
+    "label": "check",
+    "holds": "holds",
+    "first_failing_period": "first failing period",
+    "detail": "detail",
+}
+INDICATORS_SHOWN = {"label": "indicator", "value": "value", "unit": "unit", "meaning": "meaning"}
+NETDOWN_SHOWN = {
+    "step": "step",
+    "label": "label",
+    "removed_ha": "removed (ha)",
+    "percent_of_gross": "% of gross",
+    "remaining_ha": "remaining (ha)",
+    "kind": "kind",
+}
+CASES_SHOWN = {
+    "run": "case",
+    "level_m3_per_year": "level m3/yr",
+    "short_term_m3_per_year": "short term m3/yr",
+    "long_term_m3_per_year": "long term m3/yr",
+    "ending_stock_ratio": "ending / initial stock",
+    "sustainable": "sustainable",
+    "diff_level_m3_per_year": "level against base m3/yr",
+    "differences": "differences",
+}
+BREAKDOWN_SHOWN = {
+    "zone": "zone",
+    "species": "species",
+    "harvest_ha": "area cut (ha)",
+    "harvest_m3": "volume cut (m3)",
+}
+
+
+def _shown(frame: pd.DataFrame, headers: dict[str, str]) -> pd.DataFrame:
+    """The columns of ``headers`` that the frame has, renamed to their headers."""
+    return frame[[c for c in headers if c in frame]].rename(columns=headers)
+
+
+LEVEL_MEANS = {  # what the flow level is, where a policy's harvest is not one level
+    "nondeclining": ", period 1",
+    "stepdown": ", initial level",
+    "targets": ", mean harvest",
+    "optimize": ", period 1",
+}
+
+
+def key_numbers(data: ReportData) -> pd.DataFrame:
+    """The numbers a reader needs first, in words: the flow level, the harvestable land base,
+    the long-term sustained yield, the ending growing stock against the initial and the
+    requirement, and each sensitivity case's level and verdict."""
+    ind = data.indicators.set_index("indicator")["value"]
+    f = data.scenario.flow
+    key = "optimize" if f.method == "optimize" else f.policy
+    policy = POLICY_NAMES.get(key, key) + LEVEL_MEANS.get(key, "")
+    level = float(ind["flow_level_m3_per_year"])
+    gross, hlb = float(ind["gross_area_ha"]), float(ind["harvestable_ha"])
+    ltsy = float(ind["ltsy_at_culmination_m3_per_year"])
+    gs0, gs1 = float(ind["initial_growing_stock_m3"]), float(ind["ending_growing_stock_m3"])
+    need = f.ending_stock
+    rows = [
+        (f"Flow level ({policy})", f"{level:,.0f} m3/year"),
+        (
+            "Harvestable land base",
+            f"{hlb:,.0f} ha, {100 * hlb / gross:.1f}% of the gross {gross:,.0f} ha"
+            if gross > 0
+            else f"{hlb:,.0f} ha",
+        ),
+        (
+            "Long-term sustained yield",
+            f"{ltsy:,.0f} m3/year (harvestable area x maximum MAI); the flow level is "
+            f"{100 * level / ltsy:.0f}% of it"
+            if ltsy > 0
+            else f"{ltsy:,.0f} m3/year (harvestable area x maximum MAI)",
+        ),
+        (
+            "Ending growing stock",
+            (
+                f"{gs1:,.0f} m3, {100 * gs1 / gs0:.1f}% of the initial {gs0:,.0f} m3"
+                if gs0 > 0
+                else f"{gs1:,.0f} m3"
+            )
+            + (f"; at least {100 * need:g}% required" if need > 0 else "; no minimum required"),
         ),
     ]
+    if data.comparison is not None:
+        for row in data.comparison.iloc[1:].itertuples(index=False):
+            judged = {True: "sustainable", False: "not sustainable"}.get(
+                row.sustainable, "verdict unknown"
+            )
+            rows.append(
+                (
+                    f"Sensitivity case {row.run}",
+                    f"{row.level_m3_per_year:,.0f} m3/year "
+                    f"({row.diff_level_m3_per_year:+,.0f} against the base), {judged}",
+                )
+            )
+    return pd.DataFrame(rows, columns=["key number", "value"])
+
+
+def sections(data: ReportData) -> list[Section]:
+    """The report's content, in reading order. The first screen (one section) holds the
+    verdict, the key numbers, the run's warnings and the caution; the checks and the rest
+    follow."""
+    v = data.verdict
+    first: list[Block] = [
+        v.headline,
+        f"What stops a higher level: {v.limited_by}.",
+        Table(key_numbers(data), "Key numbers (indicators.csv has them all).", boxed=True),
+    ]
+    if data.warnings:
+        first.append(Items("Warnings", tuple(data.warnings)))
+    first.append(CAUTION)
+    out = [Section("Verdict", first)]
+    out.append(
+        Section(
+            "Checks of the verdict",
+            [Table(_shown(v.table(), CHECK_SHOWN), "Methods: docs/methods.md, the verdict.")],
+        )
+    )
     figs = data.figures
     main = Section("Harvest and growing stock")
     for key in ("harvest_forecast", "growing_stock"):
@@ -274,7 +392,12 @@ def sections(data: ReportData) -> list[Section]:
     out.append(
         Section(
             "Land base netdown",
-            [Table(data.netdown, "Each step removes only area no earlier step removed.")],
+            [
+                Table(
+                    _shown(data.netdown, NETDOWN_SHOWN),
+                    "Each step removes only area no earlier step removed.",
+                )
+            ],
         )
     )
     out.append(
@@ -294,7 +417,6 @@ def sections(data: ReportData) -> list[Section]:
             ],
         )
     )
-    ind = data.indicators[["indicator", "value", "unit", "meaning"]]
     shown = data.wood_flow[[c for c in WOOD_FLOW_SHOWN if c in data.wood_flow]]
     if shown["discounted_net_revenue"].isna().all():
         shown = shown.drop(columns="discounted_net_revenue")
@@ -302,7 +424,10 @@ def sections(data: ReportData) -> list[Section]:
         Section(
             "Indicators",
             [
-                Table(ind, "Over the whole horizon (indicators.csv)."),
+                Table(
+                    _shown(data.indicators, INDICATORS_SHOWN),
+                    "Over the whole horizon (indicators.csv).",
+                ),
                 Table(
                     shown.rename(columns=WOOD_FLOW_SHOWN),
                     "By period, years from and to inclusive (wood_flow.csv has every column).",
@@ -320,22 +445,18 @@ def sections(data: ReportData) -> list[Section]:
             .sum()
             .reset_index()
         )
-        forest.blocks.append(Table(by, "Harvest over the horizon by zone and species."))
+        forest.blocks.append(
+            Table(_shown(by, BREAKDOWN_SHOWN), "Harvest over the horizon by zone and species.")
+        )
     out.append(forest)
     if "monte_carlo" in figs:
         out.append(Section("Disturbance risk", [figs["monte_carlo"]]))
     if data.comparison is not None:
-        cmp_cols = [
-            "run",
-            "level_m3_per_year",
-            "short_term_m3_per_year",
-            "long_term_m3_per_year",
-            "ending_stock_ratio",
-            "diff_level_m3_per_year",
-            "differences",
-        ]
-        block: list[str | Table | Figure] = [
-            Table(data.comparison[cmp_cols], "The base case and each [[sensitivity]] case.")
+        block: list[Block] = [
+            Table(
+                _shown(data.comparison, CASES_SHOWN),
+                "The base case and each [[sensitivity]] case, with its verdict.",
+            )
         ]
         if "comparison" in figs:
             block.append(figs["comparison"])
@@ -374,6 +495,11 @@ figure { margin: 1em 0; } figure img { max-width: 100%; height: auto; border: 1p
 figcaption { font-size: 0.9em; }
 .caution { border: 2px solid #333; padding: 0.6em 1em; background: #f4f4f4; }
 .verdict { font-size: 1.05em; font-weight: bold; }
+.box table { border: 2px solid #333; font-size: 0.95em; }
+.box th { display: none; }
+.box td:first-child { font-weight: bold; }
+.warnings { border-left: 4px solid #333; padding: 0.1em 1em; background: #f4f4f4; }
+.warnings p { margin: 0.4em 0; }
 .wide { overflow-x: auto; }
 """
 
@@ -397,8 +523,9 @@ def _html_table(t: Table) -> str:
         for row in _cells(t)
     )
     cap = f"<caption>{html.escape(t.caption)}</caption>" if t.caption else ""
+    cls = "wide box" if t.boxed else "wide"
     table = (
-        f'<div class="wide"><table>{cap}<thead><tr>{head}</tr></thead>'
+        f'<div class="{cls}"><table>{cap}<thead><tr>{head}</tr></thead>'
         f"<tbody>{body}</tbody></table></div>"
     )
     if t.collapsed:
@@ -426,6 +553,12 @@ def html_report(data: ReportData) -> str:
                 parts.append(_html_table(block))
             elif isinstance(block, Figure):
                 parts.append(_html_figure(block))
+            elif isinstance(block, Items):
+                items = "".join(f"<li>{html.escape(i)}</li>" for i in block.items)
+                parts.append(
+                    f'<div class="warnings"><p><strong>{html.escape(block.title)}</strong></p>'
+                    f"<ul>{items}</ul></div>"
+                )
             else:
                 cls = (
                     ' class="caution"'
@@ -472,6 +605,9 @@ def markdown_report(data: ReportData) -> str:
                     f"*{block.title}.* {block.caption}",
                     "",
                 ]
+            elif isinstance(block, Items):
+                lines += [f"**{block.title}**", ""]
+                lines += [f"- {_md_escape(i)}" for i in block.items] + [""]
             else:
                 lines += [block, ""]
     return "\n".join(lines)

@@ -15,6 +15,19 @@ from foresight.projection import CurveSet, Periods, StandArrays
 from foresight.schedule import FlowResult
 
 
+def calendar_years(years: np.ndarray) -> np.ndarray | pd.arrays.IntegerArray:
+    """Years as integers (INTEGER in the GeoPackage, no ``.0`` in a CSV) when every one given
+    is whole, nullable ``Int64`` where some are missing (NaN). A harvest at the midpoint of
+    a period of an odd number of years falls on a half year: then the years stay floats."""
+    v = np.asarray(years, dtype=np.float64)
+    known = v[~np.isnan(v)]
+    if np.any(known != np.round(known)):
+        return v
+    if len(known) < len(v):
+        return pd.array(v, dtype="Int64")
+    return v.astype(np.int64)
+
+
 def wood_flow_table(
     flow: FlowResult,
     periods: Periods,
@@ -47,7 +60,7 @@ def wood_flow_table(
             "period": np.arange(1, P + 1),
             "start_year": periods.start_years,
             "end_year": periods.end_years,
-            "harvest_year": periods.harvest_years,
+            "harvest_year": calendar_years(periods.harvest_years),
             "harvest_m3": h,
             "harvest_m3_per_year": h / L,
             "harvest_ha": ha,
@@ -106,7 +119,7 @@ def harvests_layer(
             "zone": stands["zone"].to_numpy()[pos],
             "period": agg["period"].to_numpy(),
             "start_year": periods.start_years[agg["period"].to_numpy() - 1],
-            "harvest_year": periods.harvest_years[agg["period"].to_numpy() - 1],
+            "harvest_year": calendar_years(periods.harvest_years[agg["period"].to_numpy() - 1]),
             "age_years": agg["age_area"].to_numpy() / area,
             "area_ha": area,
             "volume_m3": agg["volume_m3"].to_numpy(),
@@ -148,7 +161,9 @@ def stands_layer(
     out["first_harvest_period"] = pd.array(np.where(cut, first, 0), dtype="Int64")
     out.loc[~cut, "first_harvest_period"] = pd.NA
     years = periods.harvest_years
-    out["first_harvest_year"] = np.where(cut, years[np.where(cut, first, 1) - 1], np.nan)
+    out["first_harvest_year"] = calendar_years(
+        np.where(cut, years[np.where(cut, first, 1) - 1], np.nan)
+    )
     out["first_harvest_age_years"] = first_age
     pairs = (
         np.unique(np.c_[sim.event_stand, sim.event_period], axis=0)

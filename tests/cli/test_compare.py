@@ -57,6 +57,77 @@ def test_cases_run_with_the_base_and_compare_names_the_one_difference(tmp_path, 
         assert f"| `{col}` |" in docs, col
 
 
+def test_a_run_with_cases_logs_no_line_twice_and_names_each_cases_lines(tmp_path, capsys):
+    cases = ["loose", "late"]
+    scn = case_scenario(
+        tmp_path,
+        [
+            {"name": "loose", "set": {"flow.ending_stock": 0.2}},
+            {"name": "late", "set": {"species.pine.min_harvest_age": 80}},
+        ],
+    )
+    out = tmp_path / "out"
+    capsys.readouterr()
+    assert main(["run", str(scn), "--out", str(out)]) == 0
+    lines = capsys.readouterr().err.splitlines()
+    assert len(lines) == len(set(lines)), [x for x in lines if lines.count(x) > 1]
+    # the write of the whole output (the cases' folders included) is logged once
+    assert sum("write outputs done" in x for x in lines) == 1
+    # one verdict for the base, and one for each case that names it
+    verdicts = [x for x in lines if "verdict: " in x]
+    assert len(verdicts) == 1 + len(cases)
+    assert verdicts[0].startswith("foresight: verdict: ")
+    for name, line in zip(cases, verdicts[1:], strict=True):
+        assert line.startswith(f"foresight: case {name!r}: verdict: ")
+    # run.log holds the same lines (INFO and above), with a time stamp and a level
+    logged = [x.split(" ", 3)[3] for x in (out / "run.log").read_text().splitlines()]
+    assert logged == [x.removeprefix("foresight: ") for x in lines]
+    # each case's own log names it too and holds its verdict once
+    own = (out / "late" / "run.log").read_text().splitlines()
+    assert sum("verdict: " in x for x in own) == 1
+    assert all(" case 'late': " in x for x in own)
+
+
+def test_compare_prints_each_runs_verdict_and_its_figure_names_it(tmp_path, capsys, monkeypatch):
+    from foresight.reporting import figures
+
+    # a regulated forest (six 10-year classes up to the rotation of 60 years) is sustainable
+    # (tests/reporting/test_verdict.py); targets of twice its area-control yield are not
+    ages = np.repeat(np.arange(5.0, 60.0, 10.0), 10)
+    layer = write_layer(tmp_path / "s.gpkg", squares(len(ages)), stand_attrs(len(ages), ages))
+    raw = scenario_dict(layer, scenario={"periods": 12}, flow={"ending_stock": 1.0})
+    twice = float(2 * len(ages) / 60 * 400 * (1 - np.exp(-0.03 * 60)) ** 3 * 10)  # m3/period
+    raw["sensitivity"] = [
+        {"name": "greedy", "set": {"flow.policy": "targets", "flow.targets_m3": [twice] * 12}}
+    ]
+    scn = write_scenario(tmp_path / "scn.toml", raw)
+    out = tmp_path / "out"
+    assert main(["run", str(scn), "--out", str(out), "-q"]) == 0
+    verdicts = {
+        str(d): json.loads((d / "run.json").read_text())["verdict"]["sustainable"]
+        for d in (out, out / "greedy")
+    }
+    assert set(verdicts.values()) == {True, False}, verdicts
+    drawn = []
+    save = figures.save  # keep each figure for a look at its artists, and write it
+
+    monkeypatch.setattr(figures, "save", lambda fig, path: (drawn.append(fig), save(fig, path)))
+    capsys.readouterr()
+    assert main(["compare", *verdicts, "--out", str(tmp_path / "cmp")]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    assert "sustainable" in lines[0].split()
+    at = lines[0].split().index("sustainable")
+    for line, (run, sustainable) in zip(lines[1:], verdicts.items(), strict=False):
+        words = line.split()
+        assert words[0] == run and words[at] == ("yes" if sustainable else "no")
+    # the figure's legend names each run with its verdict
+    (ax,) = drawn[0].axes
+    legend = [t.get_text() for t in ax.get_legend().get_texts()]
+    assert legend == [
+        f"{run} ({'sustainable' if ok else 'not sustainable'})" for run, ok in verdicts.items()
+    ]
+
+
 @pytest.mark.parametrize(
     ("case", "match"),
     [

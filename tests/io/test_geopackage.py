@@ -1,7 +1,16 @@
-"""The output GeoPackage against the OGC GeoPackage standard (OGC 12-128r18, version 1.3/1.4),
-read back with pyogrio and inspected with the standard library's sqlite3."""
+"""The output GeoPackage against the OGC GeoPackage standard, version 1.2 (OGC 12-128r15),
+read back with pyogrio, inspected with the standard library's sqlite3, checked with GDAL's own
+validator (validate_gpkg.py) and opened with an older GDAL (Debian 12's 3.6, the one QGIS 3.22
+runs on there) where one is installed."""
 
+import csv
+import json
+import os
+import re
 import sqlite3
+import subprocess
+import sys
+from pathlib import Path
 
 import numpy as np
 import pyogrio
@@ -22,9 +31,10 @@ def run_dir(small_case):
 def test_geopackage_core_requirements(run_dir):
     gpkg = run_dir / "projection.gpkg"
     with sqlite3.connect(gpkg) as con:
-        # Req 2: application_id is 0x47504B47 ("GPKG"); Req 2 (1.2+): user_version 10200+
+        # OGC 12-128r15 (GeoPackage 1.2) Req 2: application_id 0x47504B47 ("GPKG") and, for
+        # version 1.2, user_version 10200 (0x000027D8)
         assert con.execute("PRAGMA application_id").fetchone()[0] == 0x47504B47
-        assert con.execute("PRAGMA user_version").fetchone()[0] >= 10300
+        assert con.execute("PRAGMA user_version").fetchone()[0] == 10200
         # Req 6: integrity check passes
         assert con.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
         # Req 10/11: gpkg_spatial_ref_sys holds the mandatory rows (-1, 0, 4326)
@@ -60,7 +70,8 @@ def test_geopackage_core_requirements(run_dir):
                 "FROM gpkg_geometry_columns"
             )
         }
-        # the feature tables and the map layers (views over them, OGC 12-128r18 Req. 14)
+        # the feature tables and the map layers (views over them: OGC 12-128r15 Req 14,
+        # a gpkg_contents row names "a SQLite table or view")
         views = {n for (n,) in con.execute("SELECT name FROM sqlite_master WHERE type='view'")}
         assert views == {f"harvests_period_{p:02d}" for p in range(1, 11)} | {
             f"stands_age_{y}" for y in (2030, 2050, 2080, 2110, 2130)
@@ -109,3 +120,161 @@ def test_layers_read_back_with_pyogrio(run_dir):
     got = stands.set_index("stand_id")["first_harvest_period"]
     np.testing.assert_array_equal(got.loc[first.index].to_numpy(), first.to_numpy())
     assert got.drop(first.index).isna().all()
+
+
+def _run(small_case, name: str, *sets: str) -> Path:
+    tmp, _, scenario = small_case
+    args = [a for s in sets for a in ("--set", s)]
+    assert main(["run", str(scenario), "--out", str(tmp / name), "-q", *args]) == 0
+    return tmp / name
+
+
+def column_types(gpkg: Path, table: str) -> dict[str, str]:
+    """Declared SQLite column types (PRAGMA table_info), views included."""
+    with sqlite3.connect(gpkg) as con:
+        return {r[1]: r[2] for r in con.execute(f'PRAGMA table_info("{table}")')}
+
+
+def field_types(gpkg: Path, layer: str) -> dict[str, str]:
+    """The field types GDAL reports (through pyogrio)."""
+    info = pyogrio.read_info(gpkg, layer=layer)
+    return dict(zip(info["fields"], info["dtypes"], strict=True))
+
+
+YEAR_COLUMNS = {  # every calendar-year and period column of the GeoPackage's tables
+    "stands": ("first_harvest_period", "first_harvest_year"),
+    "harvests": ("period", "start_year", "harvest_year"),
+    "harvests_period_*": ("period", "start_year", "harvest_year"),
+    "stands_age_*": ("first_harvest_year", "year"),
+    "wood_flow": ("period", "start_year", "end_year", "harvest_year"),
+    "stand_ages": ("year",),
+    "age_classes": ("year",),
+    "harvest_by_zone_species": ("period", "start_year"),
+    "verdict": ("first_failing_period",),
+}
+
+
+def test_years_are_integers_also_with_stands_never_cut(small_case):
+    # three periods: the young stands are never cut, so first_harvest_year has nulls
+    out = _run(small_case, "short", "scenario.periods=3")
+    gpkg = out / "projection.gpkg"
+    layers = [name for name, _ in pyogrio.list_layers(gpkg)]
+    for pattern, cols in YEAR_COLUMNS.items():
+        table = next(n for n in layers if re.fullmatch(pattern.replace("*", r"\d+"), n))
+        declared, gdal = column_types(gpkg, table), field_types(gpkg, table)
+        for col in cols:
+            assert declared[col] == "INTEGER", (table, col)
+            assert gdal[col] == "int64", (table, col)
+    with sqlite3.connect(gpkg) as con:
+        kinds = dict(
+            con.execute(
+                "SELECT first_harvest_year IS NULL, COUNT(*) FROM stands GROUP BY 1"
+            ).fetchall()
+        )
+        assert kinds[0] > 0 and kinds[1] > 0  # stands cut and stands never cut
+        # stored values are integers, not reals in an INTEGER column
+        assert {
+            t for (t,) in con.execute("SELECT DISTINCT typeof(harvest_year) FROM harvests")
+        } == {"integer"}
+        assert {
+            t for (t,) in con.execute("SELECT DISTINCT typeof(first_harvest_year) FROM stands")
+        } == {"integer", "null"}
+    # the CSVs carry the same years without a decimal point
+    for name, cols in (
+        ("wood_flow.csv", ("period", "start_year", "end_year", "harvest_year")),
+        ("age_classes.csv", ("year",)),
+        ("harvest_by_zone_species.csv", ("period", "start_year")),
+    ):
+        with open(out / name, newline="", encoding="utf-8") as f:
+            rows = list(csv.DictReader(f))
+        assert rows, name
+        for row in rows:
+            for col in cols:
+                assert re.fullmatch(r"\d+", row[col]), (name, col, row[col])
+
+
+def test_a_midpoint_of_an_odd_period_keeps_half_years(small_case):
+    # 5-year periods harvested at their midpoint: 2032.5, 2037.5, ... (docs/outputs.md)
+    out = _run(small_case, "odd", "scenario.period_years=5", "scenario.periods=3")
+    gpkg = out / "projection.gpkg"
+    assert column_types(gpkg, "wood_flow")["harvest_year"] == "REAL"
+    assert column_types(gpkg, "wood_flow")["start_year"] == "INTEGER"
+    assert column_types(gpkg, "stands")["first_harvest_year"] == "REAL"
+    flow = pyogrio.read_dataframe(gpkg, layer="wood_flow")
+    np.testing.assert_array_equal(flow["harvest_year"], [2032.5, 2037.5, 2042.5])
+
+
+def gdal_python() -> str | None:
+    """A Python with GDAL's own bindings and sample scripts (Debian's python3-gdal): this
+    environment's, or the system's."""
+    for exe in dict.fromkeys((sys.executable, "/usr/bin/python3")):
+        if Path(exe).exists():
+            probe = subprocess.run(
+                [exe, "-c", "import osgeo.gdal, osgeo_utils.samples.validate_gpkg"],
+                capture_output=True,
+            )
+            if probe.returncode == 0:
+                return exe
+    if os.environ.get("FORESIGHT_REQUIRE_GDAL_TOOLS"):
+        pytest.fail("FORESIGHT_REQUIRE_GDAL_TOOLS is set but GDAL's Python tools are missing")
+    return None
+
+
+def test_gdal_validator_passes(run_dir):
+    exe = gdal_python()
+    if exe is None:
+        pytest.skip("GDAL's Python tools are not installed (CI installs Debian's python3-gdal)")
+    # validate_gpkg.py checks the file against the GeoPackage requirements, one by one;
+    # -k reports every failure, --extra adds its checks beyond the letter of the standard
+    done = subprocess.run(
+        [
+            exe,
+            "-m",
+            "osgeo_utils.samples.validate_gpkg",
+            "-k",
+            "--extra",
+            "--warning-as-error",
+            str(run_dir / "projection.gpkg"),
+        ],
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
+    assert done.returncode == 0 and not done.stdout.strip(), done.stdout + done.stderr
+
+
+OPEN_EVERY_LAYER = """
+import json, sys
+from osgeo import gdal
+gdal.UseExceptions()
+messages = []
+gdal.PushErrorHandler(lambda cls, number, msg: messages.append(msg))
+ds = gdal.OpenEx(sys.argv[1], gdal.OF_VECTOR)
+counts = {}
+for i in range(ds.GetLayerCount()):
+    layer = ds.GetLayer(i)
+    counts[layer.GetName()] = sum(1 for _ in layer)
+print(json.dumps({"version": gdal.__version__, "counts": counts, "messages": messages}))
+"""
+
+
+def test_gdal_of_the_system_opens_every_layer_without_a_word(run_dir):
+    exe = gdal_python()
+    if exe is None:
+        pytest.skip("GDAL's Python tools are not installed (CI installs Debian's python3-gdal)")
+    gpkg = run_dir / "projection.gpkg"
+    done = subprocess.run(
+        [exe, "-c", OPEN_EVERY_LAYER, str(gpkg)],
+        capture_output=True,
+        text=True,
+        timeout=120,
+        check=True,
+    )
+    seen = json.loads(done.stdout)
+    # an older GDAL (Debian 12 has 3.6) warns on every open of a GeoPackage 1.4 that it
+    # "may only be partially supported"; 1.2 it reads without a word
+    assert seen["messages"] == [], seen
+    assert seen["counts"] == {
+        name: pyogrio.read_info(gpkg, layer=name)["features"]
+        for name, _ in pyogrio.list_layers(gpkg)
+    }

@@ -207,6 +207,17 @@ def test_wood_flow_revenue_and_horizon_indicators(run):
     assert ind["long_term_m3_per_year"] == pytest.approx(wf["harvest_m3_per_year"].iloc[-2:].mean())
 
 
+def test_every_indicator_has_a_label_beside_its_name(run):
+    table = pd.read_csv(run["out"] / "indicators.csv")
+    # the names stay identifiers in their column; the label is words, one per indicator
+    assert table["indicator"].str.fullmatch(r"[a-z0-9_]+").all()
+    assert table["label"].notna().all() and table["label"].is_unique
+    for name, label in zip(table["indicator"], table["label"], strict=True):
+        assert label[0].isupper() and "_" not in label, (name, label)
+    row = table.set_index("indicator").loc["ltsy_at_culmination_m3_per_year"]
+    assert row["label"] == "Long-term sustained yield at MAI culmination"
+
+
 def test_every_indicator_is_documented(run):
     from helpers import ROOT
 

@@ -3,6 +3,7 @@ it renders in a real browser (headless Chromium, Debian's package); the figures 
 sizes docs/outputs.md gives."""
 
 import base64
+import html
 import json
 import os
 import re
@@ -12,10 +13,13 @@ import subprocess
 
 import html5lib
 import numpy as np
+import pandas as pd
 import pytest
 from matplotlib.image import imread
 
+import foresight
 from foresight.cli.main import main
+from foresight.publish import write_outputs
 
 from helpers import ROOT, scenario_dict, squares, stand_attrs, write_layer, write_scenario
 
@@ -129,6 +133,100 @@ def test_report_carries_the_caution_verdict_and_tables(out):
         assert f"(figures/{p.name})" in md
 
 
+def page(path):
+    """The report's body parsed with a WHATWG parser, and its sections by title."""
+    doc = html5lib.parse(path.read_text(encoding="utf-8"), namespaceHTMLElements=False)
+    sections = {sec.find("h2").text: sec for sec in doc.find("body").findall("section")}
+    return doc, sections
+
+
+def cells(table) -> list[list[str]]:
+    return [["".join(td.itertext()) for td in tr] for tr in table.findall("./tbody/tr")]
+
+
+def test_first_screen_verdict_then_key_numbers_then_caution(out):
+    doc, sections = page(out / "report.html")
+    rec = json.loads((out / "run.json").read_text())
+    case = json.loads((out / "looser" / "run.json").read_text())
+    assert list(sections)[:2] == ["Verdict", "Checks of the verdict"]
+    verdict = sections["Verdict"]
+    # in this order: the headline, what stops a higher level, the key numbers, the caution
+    blocks = [(el.tag, el.get("class")) for el in verdict if el.tag != "h2"]
+    assert blocks == [("p", "verdict"), ("p", None), ("div", "wide box"), ("p", "caution")]
+    headline, limited, _ = ("".join(p.itertext()) for p in verdict.findall("p"))
+    assert headline == rec["verdict"]["headline"]
+    assert limited == f"What stops a higher level: {rec['verdict']['limited_by']}."
+    # the key numbers against run.json (its flow, inventory and the case's verdict)
+    box = verdict.find(".//div[@class='wide box']/table")
+    rows = dict(cells(box))
+    flow, inv = rec["flow"], rec["inventory"]
+    assert rows["Flow level (even flow)"] == f"{flow['level_m3_per_year']:,.0f} m3/year"
+    hlb, gross = inv["harvestable_ha"], inv["area_ha"]
+    assert rows["Harvestable land base"] == (
+        f"{hlb:,.0f} ha, {100 * hlb / gross:.1f}% of the gross {gross:,.0f} ha"
+    )
+    ltsy = flow["long_term_sustained_yield_m3_per_year"]["at_culmination"]
+    assert rows["Long-term sustained yield"].startswith(f"{ltsy:,.0f} m3/year")
+    gs0, gs1 = flow["initial_growing_stock_m3"], flow["ending_growing_stock_m3"]
+    assert rows["Ending growing stock"] == (
+        f"{gs1:,.0f} m3, {100 * gs1 / gs0:.1f}% of the initial {gs0:,.0f} m3; "
+        "at least 50% required"  # flow.ending_stock = 0.5 in the fixture
+    )
+    level = case["flow"]["level_m3_per_year"]
+    judged = "sustainable" if case["verdict"]["sustainable"] else "not sustainable"
+    assert rows["Sensitivity case looser"] == (
+        f"{level:,.0f} m3/year ({level - flow['level_m3_per_year']:+,.0f} against the base), "
+        f"{judged}"
+    )
+    # and the caution again at the end
+    assert list(sections)[-1] == "About this run"
+    assert any(p.get("class") == "caution" for p in sections["About this run"].findall("p"))
+
+
+def test_checks_and_indicators_appear_by_their_labels(out):
+    text = (out / "report.html").read_text(encoding="utf-8")
+    md = (out / "report.md").read_text(encoding="utf-8")
+    checks = pd.read_csv(out / "verdict.csv")
+    assert len(checks) == 5  # with the cover target
+    indicators = pd.read_csv(out / "indicators.csv")
+    for name, label in [*zip(checks["check"], checks["label"], strict=True)] + [
+        *zip(indicators["indicator"], indicators["label"], strict=True)
+    ]:
+        assert html.escape(label) in text and label in md, label
+        if "_" in name:  # an identifier, not a word of the text
+            assert name not in text and name not in md, name
+
+
+def test_sensitivity_table_gives_each_case_its_verdict(out):
+    _, sections = page(out / "report.html")
+    table = sections["Sensitivity cases"].find(".//table")
+    head = ["".join(th.itertext()) for th in table.findall("./thead/tr/th")]
+    rows = {row[0]: dict(zip(head, row, strict=True)) for row in cells(table)}
+    for name, run_dir in (("base", out), ("looser", out / "looser")):
+        sustainable = json.loads((run_dir / "run.json").read_text())["verdict"]["sustainable"]
+        assert rows[name]["sustainable"] == ("yes" if sustainable else "no")
+
+
+def test_warnings_stand_after_the_key_numbers_one_item_each(small_case, tmp_path):
+    _, _, scn = small_case
+    scenario = foresight.load_scenario(scn, overrides=["report.markdown=true"])
+    result = foresight.run(scenario, None)
+    warnings = ("stand 7: a repaired geometry", "3 stands can never be cut <larger> & older")
+    result.warnings = warnings  # as the run will fill it
+    out = tmp_path / "w"
+    out.mkdir()
+    write_outputs(result, scenario, out)
+    _, sections = page(out / "report.html")
+    verdict = sections["Verdict"]
+    blocks = [el.get("class") for el in verdict if el.tag != "h2"]
+    assert blocks == ["verdict", None, "wide box", "warnings", "caution"]
+    items = verdict.findall("./div[@class='warnings']/ul/li")
+    assert tuple("".join(li.itertext()) for li in items) == warnings
+    md = (out / "report.md").read_text(encoding="utf-8")
+    at = [md.index(x) for x in ("Key numbers", f"- {warnings[0]}", f"- {warnings[1]}")]
+    assert at == sorted(at) and at[-1] < md.index("These are planning estimates")
+
+
 def browser() -> str | None:
     found = shutil.which("chromium") or shutil.which("chromium-browser")
     if found is None and os.environ.get("FORESIGHT_REQUIRE_BROWSER"):
@@ -150,6 +248,36 @@ def chromium(exe: str, tmp_path, *args: str) -> subprocess.CompletedProcess:
     return subprocess.run(
         [exe, *flags, *args], capture_output=True, text=True, timeout=120, check=True
     )
+
+
+def test_first_screen_fits_a_laptop_window(out, tmp_path):
+    exe = browser()
+    if exe is None:
+        pytest.skip("chromium is not installed (CI installs it and sets FORESIGHT_REQUIRE_BROWSER)")
+    # where the browser lays out the headline, the key numbers and the caution
+    probe = (
+        "<script>addEventListener('load', () => { const at = s => "
+        "document.querySelector(s).getBoundingClientRect(); document.title = 'LAYOUT ' + "
+        "JSON.stringify([at('p.verdict').top, at('div.box').top, at('p.caution').top, "
+        "at('p.caution').bottom, innerHeight]); });</script>"
+    )
+    shown = tmp_path / "page.html"
+    shown.write_text(
+        (out / "report.html").read_text(encoding="utf-8").replace("</body>", probe + "</body>"),
+        encoding="utf-8",
+    )
+    dom = chromium(
+        exe,
+        tmp_path,
+        "--window-size=1280,800",
+        "--virtual-time-budget=10000",
+        "--dump-dom",
+        shown.as_uri(),
+    )
+    found = re.search(r"<title>LAYOUT (\[.*?\])</title>", dom.stdout)
+    assert found, dom.stdout[:500]
+    verdict, box, caution, caution_end, height = json.loads(found[1])
+    assert verdict < box < caution and caution_end <= height
 
 
 def test_report_renders_in_a_real_browser(out, tmp_path):

@@ -72,6 +72,14 @@ def test_a_forest_liquidated_by_a_too_high_target_is_not_and_the_period_is_named
         flow={"policy": "targets", "targets_m3": [float(target)] * 10, "ending_stock": 0.0},
     )
     assert verdict["sustainable"] is False
+    # verdict.csv keeps the check's name and adds its label, which the headline uses
+    assert list(table.columns) == ["check", "holds", "first_failing_period", "detail", "label"]
+    failed = table.loc[~table["holds"], "label"].tolist()
+    assert "Flow policy held" in failed
+    for label in failed:
+        assert label[0].lower() + label[1:] in verdict["headline"]
+    for label in table.loc[table["holds"], "label"]:
+        assert label[0].lower() + label[1:] not in verdict["headline"]
     policy = table.set_index("check").loc["flow_policy_held"]
     assert not policy["holds"]
     assert policy["first_failing_period"] == expected
