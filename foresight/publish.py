@@ -351,9 +351,12 @@ def write_figures(result: RunResult, scenario: Scenario, directory: Path) -> dic
         monte_carlo_figure(
             add(
                 "monte_carlo",
-                "Harvest under random disturbance",
-                "Over the replicates: the band from the 10th to the 90th percentile of each "
-                "period's harvest, the median, and the expected-value schedule's harvest.",
+                "Harvest and growing stock under random disturbance",
+                "Over the replicates, each period's harvest (above) and growing stock at the "
+                "period's end (below): the band from the 10th to the 90th percentile, the "
+                "median, and the expected-value schedule's target and stock. Where every "
+                "replicate meets every target the harvest band is a line, and the risk shows "
+                "in the stock.",
             ),
             result.monte_carlo,
             wf,

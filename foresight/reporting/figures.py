@@ -383,27 +383,54 @@ def harvest_map_figure(
 
 
 def monte_carlo_figure(path: Path, monte_carlo: pd.DataFrame, wood_flow: pd.DataFrame) -> None:
-    """Fan chart of harvest over the disturbance replicates: P10-P90 band, median, target."""
+    """Fan charts over the disturbance replicates, one panel each for harvest and growing
+    stock: the 10th-90th percentile band, the median, and the expected-value schedule's
+    target (harvest) or stock. Where every replicate met every target the harvest band is a
+    line and the spread shows in the stock panel, which is why both are drawn."""
     L = float(wood_flow["end_year"].iloc[0] - wood_flow["start_year"].iloc[0] + 1)
     mc = monte_carlo.assign(
-        start_year=wood_flow["start_year"].to_numpy(), end_year=wood_flow["end_year"].to_numpy()
+        start_year=wood_flow["start_year"].to_numpy(),
+        end_year=wood_flow["end_year"].to_numpy(),
+        expected_stock_m3=wood_flow["growing_stock_end_m3"].to_numpy(),
     )
     for col in ("p10_m3", "p50_m3", "p90_m3", "target_m3"):
         mc[col + "_y"] = mc[col] / L
-    x, lo = period_steps(mc, "p10_m3_y")
-    _, hi = period_steps(mc, "p90_m3_y")
-    fig, ax = plt.subplots(figsize=SIZES["chart"], layout="constrained")
-    ax.fill_between(x, lo, hi, step="post", color="0.8", label="10th to 90th percentile")
-    ax.step(*period_steps(mc, "p50_m3_y"), where="post", color="black", lw=1.8, label="median")
-    ax.step(
-        *period_steps(mc, "target_m3_y"),
-        where="post",
-        color="0.4",
-        ls="--",
-        lw=1.3,
-        label="target (expected-value schedule)",
+    fig, (top, bottom) = plt.subplots(
+        2, 1, sharex=True, figsize=SIZES["panels"], layout="constrained"
     )
-    finish_time_chart(fig, ax, path, "harvest (m3/year)", "Harvest under random disturbance")
+    panels = (
+        (
+            top,
+            ("p10_m3_y", "p50_m3_y", "p90_m3_y", "target_m3_y"),
+            "harvest (m3/year)",
+            "target (expected-value schedule)",
+        ),
+        (
+            bottom,
+            (
+                "growing_stock_p10_m3",
+                "growing_stock_p50_m3",
+                "growing_stock_p90_m3",
+                "expected_stock_m3",
+            ),
+            "growing stock, end of period (m3)",
+            "expected-value schedule",
+        ),
+    )
+    for ax, (p10, p50, p90, ref), ylabel, ref_label in panels:
+        x, lo = period_steps(mc, p10)
+        _, hi = period_steps(mc, p90)
+        ax.fill_between(x, lo, hi, step="post", color="0.8", label="10th to 90th percentile")
+        ax.step(*period_steps(mc, p50), where="post", color="black", lw=1.8, label="median")
+        ax.step(*period_steps(mc, ref), where="post", color="0.4", ls="--", lw=1.3, label=ref_label)
+        ax.set_ylabel(ylabel)
+        top_y = float(np.nanmax([hi.max(), period_steps(mc, ref)[1].max()]))
+        ax.set_ylim(0, top_y * 1.25 if top_y > 0 else 1.0)  # room above the lines for the legend
+        ax.yaxis.set_major_formatter(lambda v, _: f"{v:,.0f}")
+        ax.legend(frameon=False, fontsize=7, loc="upper left", ncols=3)
+    bottom.set_xlabel("year")
+    top.set_title("Harvest and growing stock under random disturbance", fontsize=10, loc="left")
+    save(fig, path)
 
 
 def curve_figure(

@@ -364,17 +364,17 @@ def key_numbers(data: ReportData) -> pd.DataFrame:
 
 def sections(data: ReportData) -> list[Section]:
     """The report's content, in reading order. The first screen (one section) holds the
-    verdict, the key numbers, the run's warnings and the caution; the checks and the rest
-    follow."""
+    verdict, the key numbers and the caution, then the run's warnings; the checks and the
+    rest follow."""
     v = data.verdict
     first: list[Block] = [
         v.headline,
         f"What stops a higher level: {v.limited_by}.",
         Table(key_numbers(data), "Key numbers (indicators.csv has them all).", boxed=True),
     ]
-    if data.warnings:
-        first.append(Items("Warnings", tuple(data.warnings)))
     first.append(CAUTION)
+    if data.warnings:  # after the caution, which the first screen must hold
+        first.append(Items("Warnings", tuple(data.warnings)))
     out = [Section("Verdict", first)]
     out.append(
         Section(

@@ -1,6 +1,7 @@
 """Results and inputs that deserve a warning get one, on stderr, in run.log, in run.json's
 record of the run and in the report; the run still succeeds. Each case on a small forest."""
 
+import html
 import json
 import re
 
@@ -105,11 +106,15 @@ WARNED = {
 
 
 def _warned_everywhere(out, err, pattern):
-    """The warning is on stderr, in run.log, in run.json and in the report."""
+    """The warning is on stderr, in run.log, in run.json and in the report's warnings."""
     assert re.search(pattern, err), err
     assert re.search(pattern, (out / "run.log").read_text(encoding="utf-8"))
     record = json.loads((out / "run.json").read_text(encoding="utf-8"))
     assert any(re.search(pattern, w) for w in record["warnings"]), record["warnings"]
+    page = html.unescape((out / "report.html").read_text(encoding="utf-8"))
+    start = page.index('<div class="warnings">')
+    block = page[start : page.index("</div>", start)]
+    assert re.search(pattern, block), block
 
 
 @pytest.mark.parametrize("name", list(WARNED))

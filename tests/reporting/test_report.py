@@ -150,9 +150,19 @@ def test_first_screen_verdict_then_key_numbers_then_caution(out):
     case = json.loads((out / "looser" / "run.json").read_text())
     assert list(sections)[:2] == ["Verdict", "Checks of the verdict"]
     verdict = sections["Verdict"]
-    # in this order: the headline, what stops a higher level, the key numbers, the caution
+    # in this order: the headline, what stops a higher level, the key numbers, the caution,
+    # then the run's warnings (this run has some: its replicates differ in stock only)
     blocks = [(el.tag, el.get("class")) for el in verdict if el.tag != "h2"]
-    assert blocks == [("p", "verdict"), ("p", None), ("div", "wide box"), ("p", "caution")]
+    assert rec["warnings"]
+    assert blocks == [
+        ("p", "verdict"),
+        ("p", None),
+        ("div", "wide box"),
+        ("p", "caution"),
+        ("div", "warnings"),
+    ]
+    shown = ["".join(li.itertext()) for li in verdict.findall(".//div[@class='warnings']//li")]
+    assert shown == rec["warnings"]
     headline, limited, _ = ("".join(p.itertext()) for p in verdict.findall("p"))
     assert headline == rec["verdict"]["headline"]
     assert limited == f"What stops a higher level: {rec['verdict']['limited_by']}."
@@ -207,7 +217,7 @@ def test_sensitivity_table_gives_each_case_its_verdict(out):
         assert rows[name]["sustainable"] == ("yes" if sustainable else "no")
 
 
-def test_warnings_stand_after_the_key_numbers_one_item_each(small_case, tmp_path):
+def test_warnings_stand_after_the_caution_one_item_each(small_case, tmp_path):
     _, _, scn = small_case
     scenario = foresight.load_scenario(scn, overrides=["report.markdown=true"])
     result = foresight.run(scenario, None)
@@ -219,12 +229,13 @@ def test_warnings_stand_after_the_key_numbers_one_item_each(small_case, tmp_path
     _, sections = page(out / "report.html")
     verdict = sections["Verdict"]
     blocks = [el.get("class") for el in verdict if el.tag != "h2"]
-    assert blocks == ["verdict", None, "wide box", "warnings", "caution"]
+    assert blocks == ["verdict", None, "wide box", "caution", "warnings"]
     items = verdict.findall("./div[@class='warnings']/ul/li")
     assert tuple("".join(li.itertext()) for li in items) == warnings
     md = (out / "report.md").read_text(encoding="utf-8")
+    caution = md.index("These are planning estimates")
     at = [md.index(x) for x in ("Key numbers", f"- {warnings[0]}", f"- {warnings[1]}")]
-    assert at == sorted(at) and at[-1] < md.index("These are planning estimates")
+    assert at == sorted(at) and at[0] < caution < at[1]
 
 
 def browser() -> str | None:
