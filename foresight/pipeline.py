@@ -23,12 +23,13 @@ import shapely
 
 from foresight.adjacency import Adjacency, build_adjacency
 from foresight.config import HarvestConfig, NetdownStep, Scenario
-from foresight.errors import InputError, OutputError
+from foresight.errors import InputError
 from foresight.growth import curve_from_config
 from foresight.growth.rules import max_mai
 from foresight.inventory import CheckReport, prepare_inventory
 from foresight.io.cache import cached_arrays
 from foresight.io.outputs import (
+    check_files_dir,
     check_output_dir,
     read_run,
     replace_file,
@@ -839,14 +840,14 @@ def curves(
     Files go into ``out_dir`` one by one, each written to a temporary name and moved into
     place, so the report can sit beside a run's outputs without touching them.
     """
+    out = Path(out_dir) if out_dir is not None else None
+    if out is not None:
+        check_files_dir(out)
     inventory = check(scenario)
     with _Timer().stage("curves report"):
         table, summaries = curves_table(scenario, inventory.stands, site_step_m)
     files: list[Path] = []
-    if out_dir is not None:
-        out = Path(out_dir)
-        if out.exists() and not out.is_dir():
-            raise OutputError(f"--out {out}: exists and is not a directory")
+    if out is not None:
         replace_file(out / CURVES_CSV, lambda p: table.to_csv(p, index=False))
         files.append(out / CURVES_CSV)
         for code, main in dominant_sites(table, summaries).items():
@@ -863,14 +864,13 @@ def curves(
 def compare(run_dirs: list[str | Path], out_dir: str | Path) -> pd.DataFrame:
     """Compare foresight runs: ``OUT/comparison.csv`` (one row per run) and the overlay
     figure ``OUT/comparison.png``; each file is written to a temporary name first."""
+    out = Path(out_dir)
+    check_files_dir(out)
     runs = []
     for d in map(Path, run_dirs):
         rec, wf = read_run(d)
         runs.append((str(d), rec, wf))
     table = comparison_table(runs)
-    out = Path(out_dir)
-    if out.exists() and not out.is_dir():
-        raise OutputError(f"--out {out}: exists and is not a directory")
     replace_file(out / COMPARISON_CSV, lambda p: table.to_csv(p, index=False))
     replace_file(out / COMPARISON_PNG, lambda p: comparison_figure(p, runs))
     return table

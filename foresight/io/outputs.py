@@ -27,38 +27,113 @@ MARKER = "run.json"
 
 
 def check_output_dir(out: Path, managed: frozenset[str]) -> None:
-    """Refuse early an output path foresight must not replace.
+    """Refuse early an output path foresight must not replace or cannot write.
 
     ``managed`` names the entries a run writes; a non-empty directory is replaced only if it
-    holds ``run.json`` and nothing outside ``managed``.
+    holds ``run.json`` and nothing outside ``managed``. The staged copy is made beside ``out``,
+    so its parent (or the nearest ancestor that exists) must take new entries.
     """
-    if out.exists():
-        if not out.is_dir():
+    target = _target(out)
+    if _exists(target, out):
+        if not target.is_dir():
             raise OutputError(f"--out {out}: exists and is not a directory")
-        entries = sorted(p.name for p in out.iterdir())
+        if _holds_cwd(target):
+            raise OutputError(
+                f"--out {out}: is the current directory or holds it, and a run replaces its "
+                "--out whole; choose another directory, such as a new sub-directory"
+            )
+        entries = sorted(p.name for p in _listing(target, out))
         if not entries:
-            return
-        if MARKER not in entries:
+            pass
+        elif MARKER not in entries:
             raise OutputError(
                 f"--out {out}: the directory is not empty and holds no {MARKER}, so it is not "
                 "an earlier foresight output; choose a new or empty directory"
             )
-        foreign = [name for name in entries if name not in managed]
-        if foreign:
-            raise OutputError(
-                f"--out {out}: holds files foresight did not write ({', '.join(foreign[:5])}"
-                f"{' ...' if len(foreign) > 5 else ''}); replacing the directory would delete "
-                "them. Move them out or choose another directory"
-            )
+        else:
+            foreign = [name for name in entries if name not in managed]
+            if foreign:
+                raise OutputError(
+                    f"--out {out}: holds files foresight did not write ({', '.join(foreign[:5])}"
+                    f"{' ...' if len(foreign) > 5 else ''}); replacing the directory would "
+                    "delete them. Move them out or choose another directory"
+                )
+    check_writable(target.parent, out)
+
+
+def check_files_dir(out: Path) -> None:
+    """Refuse early an output directory that files are written into one by one (``curves``,
+    ``compare``): it must be a directory, or be possible to make, and take new entries."""
+    target = _target(out)
+    if _exists(target, out) and not target.is_dir():
+        raise OutputError(f"--out {out}: exists and is not a directory")
+    check_writable(target, out)
+
+
+def check_writable(directory: Path, out: Path) -> None:
+    """Refuse ``directory`` (where ``--out out`` puts new entries) if no entry can be made in
+    it: it, or the nearest ancestor that exists when it is still to be made, must be a
+    directory in which a temporary entry can be made and removed. Trying is the only honest
+    test: permissions, access lists, read-only mounts and root all answer it."""
+    probe = directory
+    while not _exists(probe, out) and probe.parent != probe:
+        probe = probe.parent
+    if not probe.is_dir():
+        raise OutputError(
+            f"--out {out}: {probe} is {'a file' if probe.exists() else 'missing'}, not a "
+            "directory; choose another --out"
+        )
+    try:
+        os.rmdir(tempfile.mkdtemp(prefix=".foresight-", suffix=".probe", dir=probe))
+    except OSError as exc:
+        raise OutputError(
+            f"--out {out}: cannot create anything in {probe} ({exc.strerror}); "
+            "choose another --out or change the directory's permissions"
+        ) from None
+
+
+def _target(out: Path) -> Path:
+    """The absolute, normalised path written to; a symbolic link is followed, so a run through
+    a linked directory replaces what the link points to, not the link."""
+    if "\0" in str(out):
+        raise OutputError(f"--out {str(out)!r}: the path holds a NUL byte")
+    try:
+        return Path(os.path.realpath(out) if Path(out).is_symlink() else os.path.abspath(out))
+    except OSError as exc:  # the current directory was removed
+        raise OutputError(f"--out {out}: {exc.strerror}") from None
+
+
+def _holds_cwd(target: Path) -> bool:
+    try:
+        cwd = Path.cwd()
+    except OSError:
+        return False
+    real = Path(os.path.realpath(target))
+    return real == cwd or real in cwd.parents
+
+
+def _exists(path: Path, out: Path) -> bool:
+    try:
+        return path.exists()
+    except OSError as exc:  # a name too long, a permission on the way
+        raise OutputError(f"--out {out}: {path}: {exc.strerror}") from None
+
+
+def _listing(directory: Path, out: Path) -> list[Path]:
+    try:
+        return list(directory.iterdir())
+    except OSError as exc:
+        raise OutputError(f"--out {out}: cannot list {directory} ({exc.strerror})") from None
 
 
 @contextmanager
 def staged_output(out: Path, managed: frozenset[str]) -> Iterator[Path]:
     """Write into a temporary sibling of ``out``; move it into place only on success."""
-    out = Path(out)
     check_output_dir(out, managed)
+    out = _target(out)
     out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.", suffix=".partial", dir=out.parent))
+    # a short prefix keeps the staged name within the file system's limit for a long name
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name[:64]}.", suffix=".partial", dir=out.parent))
     umask = os.umask(0)
     os.umask(umask)
     tmp.chmod(0o777 & ~umask)  # mkdtemp makes it private; results are for sharing
@@ -69,7 +144,7 @@ def staged_output(out: Path, managed: frozenset[str]) -> Iterator[Path]:
         raise
     old = None
     if out.exists():
-        old = out.with_name(f".{out.name}.{tmp.name.split('.')[-2]}.old")
+        old = tmp.with_suffix(".old")
         out.rename(old)
     tmp.rename(out)
     if old is not None:
