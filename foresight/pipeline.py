@@ -848,14 +848,14 @@ def curves(
         table, summaries = curves_table(scenario, inventory.stands, site_step_m)
     files: list[Path] = []
     if out is not None:
-        replace_file(out / CURVES_CSV, lambda p: table.to_csv(p, index=False))
+        replace_file(out / CURVES_CSV, lambda p: table.to_csv(p, index=False), out)
         files.append(out / CURVES_CSV)
         for code, main in dominant_sites(table, summaries).items():
             path = out / FIGURES_DIR / f"curves_{code}.png"
             curve = curve_from_config(scenario.species[code])
             age = figure_age(main, scenario.growth.max_age_years)
             replace_file(
-                path, lambda p, c=code, cv=curve, m=main, a=age: curve_figure(p, c, cv, m, a)
+                path, lambda p, c=code, cv=curve, m=main, a=age: curve_figure(p, c, cv, m, a), out
             )
             files.append(path)
     return CurvesResult(table, curve_notes(table), files)
@@ -871,6 +871,6 @@ def compare(run_dirs: list[str | Path], out_dir: str | Path) -> pd.DataFrame:
         rec, wf = read_run(d)
         runs.append((str(d), rec, wf))
     table = comparison_table(runs)
-    replace_file(out / COMPARISON_CSV, lambda p: table.to_csv(p, index=False))
-    replace_file(out / COMPARISON_PNG, lambda p: comparison_figure(p, runs))
+    replace_file(out / COMPARISON_CSV, lambda p: table.to_csv(p, index=False), out)
+    replace_file(out / COMPARISON_PNG, lambda p: comparison_figure(p, runs), out)
     return table

@@ -9,6 +9,7 @@ project file) makes the run stop before any work, so nothing of the user's is ev
 
 from __future__ import annotations
 
+import errno
 import hashlib
 import json
 import os
@@ -128,27 +129,108 @@ def _listing(directory: Path, out: Path) -> list[Path]:
 
 @contextmanager
 def staged_output(out: Path, managed: frozenset[str]) -> Iterator[Path]:
-    """Write into a temporary sibling of ``out``; move it into place only on success."""
+    """Write into a temporary sibling of ``out``; move it into place only on success.
+
+    A fault of the file system while writing (a full disk or quota, a permission, a read-only
+    mount) becomes an :class:`OutputError` that says so; on any failure nothing is left behind:
+    no staged directory and no parent folder made for it.
+    """
     check_output_dir(out, managed)
-    out = _target(out)
-    out.parent.mkdir(parents=True, exist_ok=True)
-    # a short prefix keeps the staged name within the file system's limit for a long name
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name[:64]}.", suffix=".partial", dir=out.parent))
+    target = _target(out)
+    made = [p for p in reversed(target.parents) if not p.exists()]  # outermost first
+    try:
+        target.parent.mkdir(parents=True, exist_ok=True)
+        # a short prefix keeps the staged name within the file system's limit for a long name
+        tmp = Path(
+            tempfile.mkdtemp(prefix=f".{target.name[:64]}.", suffix=".partial", dir=target.parent)
+        )
+    except OSError as exc:
+        _remove_made(made)
+        raise write_fault(exc, out) from exc
     umask = os.umask(0)
     os.umask(umask)
     tmp.chmod(0o777 & ~umask)  # mkdtemp makes it private; results are for sharing
     try:
         yield tmp
-    except BaseException:
+        old = tmp.with_suffix(".old") if target.exists() else None
+        if old is not None:
+            target.rename(old)
+        try:
+            tmp.rename(target)
+        except OSError:
+            if old is not None:
+                old.rename(target)  # the earlier output back in place
+            raise
+    except BaseException as exc:
+        fault = write_fault(exc, out, tmp) if isinstance(exc, Exception) else None
         shutil.rmtree(tmp, ignore_errors=True)
+        _remove_made(made)
+        if fault is not None:
+            raise fault from exc
         raise
-    old = None
-    if out.exists():
-        old = tmp.with_suffix(".old")
-        out.rename(old)
-    tmp.rename(out)
     if old is not None:
         shutil.rmtree(old, ignore_errors=True)
+
+
+NO_SPACE = {errno.ENOSPC: "no space left on device", errno.EDQUOT: "disk quota exceeded"}
+FULL_WORDS = ("no space left on device", "disk is full", "disk quota exceeded")
+LOW_SPACE_BYTES = 1 << 20  # a writer that fails with less free than this beside it ran out
+
+
+def write_fault(
+    exc: Exception, out: Path, staged: Path | None = None, left: str = "nothing was written"
+) -> OutputError | None:
+    """The input error for a fault of the file system while writing under ``--out out``
+    (into ``staged``, which stands in for it), or None for anything else (a bug).
+
+    A full disk or quota is named as such even when a library reports it in its own words
+    (SQLite's "database or disk is full") or as a failure it cannot explain, which is what
+    GDAL makes of some: its error, with next to no space left, is taken for a full disk.
+    ``left`` says what became of the outputs."""
+    if isinstance(exc, OutputError):
+        return None  # already says what is wrong
+    filename = getattr(exc, "filename", None)
+    where = _shown(filename, out, staged) if filename else f"into {out}"
+    reason = NO_SPACE.get(getattr(exc, "errno", None) or 0)
+    if reason is None and any(w in str(exc).lower() for w in FULL_WORDS):
+        reason = "no space left on device"
+    if reason is None and isinstance(exc, OSError | RuntimeError):
+        try:
+            if shutil.disk_usage(staged or _nearest(out)).free < LOW_SPACE_BYTES:
+                reason = f"no space left on device ({exc})"
+        except OSError:
+            pass
+    if reason is not None:
+        return OutputError(
+            f"--out {out}: {reason} while writing {where}; {left}: free space or choose "
+            "another --out"
+        )
+    if isinstance(exc, OSError) and exc.errno is not None:
+        return OutputError(f"--out {out}: cannot write {where} ({exc.strerror}); {left}")
+    return None
+
+
+def _shown(filename: object, out: Path, staged: Path | None) -> str:
+    """A path in the staged directory as the user knows it: under ``--out``."""
+    path = Path(os.fsdecode(filename))  # type: ignore[arg-type]
+    if staged is not None and path.is_relative_to(staged):
+        path = Path(out) / path.relative_to(staged)
+    return str(path)
+
+
+def _nearest(path: Path) -> Path:
+    path = Path(os.path.abspath(path))
+    while not path.exists() and path.parent != path:
+        path = path.parent
+    return path
+
+
+def _remove_made(made: list[Path]) -> None:
+    for folder in reversed(made):
+        try:
+            folder.rmdir()
+        except OSError:
+            break
 
 
 def write_json(path: Path, data: Any) -> None:
@@ -163,13 +245,19 @@ def sha256_file(path: Path) -> str:
     return digest.hexdigest()
 
 
-def replace_file(path: Path, write: Callable[[Path], None]) -> None:
-    """Write one file through ``write(tmp_path)`` and move it over ``path`` only when done."""
-    path.parent.mkdir(parents=True, exist_ok=True)
+def replace_file(path: Path, write: Callable[[Path], None], out: Path) -> None:
+    """Write one file through ``write(tmp_path)`` and move it over ``path`` (under
+    ``--out out``) only when done; a fault of the file system is an :class:`OutputError`."""
     tmp = path.with_name(f".partial.{path.name}")  # same suffix: writers pick formats by it
     try:
+        path.parent.mkdir(parents=True, exist_ok=True)
         write(tmp)
         os.replace(tmp, path)
+    except Exception as exc:
+        fault = write_fault(exc, out, left=f"{path.name} is left as it was")
+        if fault is not None:
+            raise fault from exc
+        raise
     finally:
         tmp.unlink(missing_ok=True)
 

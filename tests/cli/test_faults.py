@@ -2,8 +2,10 @@
 folder, paths that cannot be used. Each case asserts the exit code, a message naming the path
 or key, no traceback and nothing written (no output, no staged sibling left behind)."""
 
+import errno
 import os
 import re
+import shutil
 import uuid
 
 import pytest
@@ -115,3 +117,113 @@ def test_out_with_a_name_too_long(small_case, capsys):
     out = tmp_path / ("x" * 300)
     fails(capsys, ["run", str(scenario), "--out", str(out)], r"--out .*: File name too long")
     nothing_left(tmp_path)
+
+
+# -- a full disk, and other faults of the file system while writing ----------------------------
+
+
+def failing_writer(exc):
+    """A stand-in for the figure writer that writes part of a file, then fails with ``exc``."""
+
+    def write(result, scenario, figures):
+        figures.mkdir(exist_ok=True)
+        (figures / "age.png").write_bytes(b"\x89PNG half")
+        raise exc(figures)
+
+    return write
+
+
+def os_error(code):
+    return lambda figures: OSError(code, os.strerror(code), str(figures / "age.png"))
+
+
+@pytest.mark.parametrize(
+    ("exc", "pattern"),
+    [
+        (os_error(errno.ENOSPC), r"no space left on device while writing .*out/figures/age.png; "),
+        (os_error(errno.EDQUOT), r"disk quota exceeded while writing .*out/figures/age.png; "),
+        # SQLite (in a GeoPackage) says it its own way, without an errno
+        (lambda d: RuntimeError("sqlite3_exec(COMMIT) failed: database or disk is full"), r"no "),
+    ],
+)
+def test_a_full_disk_says_so_and_leaves_nothing(small_case, capsys, monkeypatch, exc, pattern):
+    tmp_path, _, scenario = small_case
+    monkeypatch.setattr("foresight.publish.write_figures", failing_writer(exc))
+    out = tmp_path / "new" / "out"  # its parent is made for the run, and removed again
+    err = fails(capsys, ["run", str(scenario), "--out", str(out)], pattern)
+    assert "nothing was written: free space or choose another --out" in err
+    assert "a bug" not in err
+    nothing_left(tmp_path, out, tmp_path / "new")
+
+
+def test_a_writer_failing_with_no_space_left_is_a_full_disk(small_case, capsys, monkeypatch):
+    # GDAL reports some writes into a full disk as anything but that ("no such table")
+    tmp_path, _, scenario = small_case
+    boom = RuntimeError("sqlite3_exec(INSERT INTO gpkg_contents ...) failed: no such table")
+    monkeypatch.setattr("foresight.publish.write_figures", failing_writer(lambda d: boom))
+    monkeypatch.setattr(
+        "foresight.io.outputs.shutil.disk_usage", lambda p: shutil._ntuple_diskusage(1, 1, 0)
+    )
+    out = tmp_path / "out"
+    fails(capsys, ["run", str(scenario), "--out", str(out)], r"no space left on device \(sqlite")
+    nothing_left(tmp_path, out)
+
+
+@pytest.mark.parametrize(
+    ("code", "words"), [(errno.EACCES, "Permission denied"), (errno.EROFS, "Read-only file system")]
+)
+def test_other_faults_while_writing_name_the_file(small_case, capsys, monkeypatch, code, words):
+    tmp_path, _, scenario = small_case
+    monkeypatch.setattr("foresight.publish.write_figures", failing_writer(os_error(code)))
+    out = tmp_path / "out"
+    fails(
+        capsys,
+        ["run", str(scenario), "--out", str(out)],
+        rf"--out .*out: cannot write {re.escape(str(out))}/figures/age.png \({words}\); "
+        "nothing was written",
+    )
+    nothing_left(tmp_path, out)
+
+
+def test_an_earlier_output_is_kept_whole_when_the_disk_fills(small_case, capsys, monkeypatch):
+    tmp_path, _, scenario = small_case
+    out = tmp_path / "out"
+    assert main(["run", str(scenario), "--out", str(out), "-q"]) == 0
+    before = sorted(p.name for p in out.iterdir())
+    monkeypatch.setattr("foresight.publish.write_figures", failing_writer(os_error(errno.ENOSPC)))
+    fails(capsys, ["run", str(scenario), "--out", str(out)], r"no space left on device")
+    assert sorted(p.name for p in out.iterdir()) == before
+    nothing_left(tmp_path)
+
+
+def test_a_bug_while_writing_is_still_a_bug_and_leaves_nothing(small_case, capsys, monkeypatch):
+    tmp_path, _, scenario = small_case
+    bug = failing_writer(lambda d: TypeError("unsupported operand"))
+    monkeypatch.setattr("foresight.publish.write_figures", bug)
+    out = tmp_path / "out"
+    assert main(["run", str(scenario), "--out", str(out)]) == 1
+    assert "unexpected error (a bug)" in capsys.readouterr().err
+    nothing_left(tmp_path, out)
+
+
+@pytest.mark.parametrize("command", ["curves", "compare"])
+def test_a_full_disk_in_curves_and_compare(small_case, capsys, monkeypatch, command):
+    tmp_path, _, scenario = small_case
+    if command == "compare":
+        assert main(["run", str(scenario), "--out", str(tmp_path / "run"), "-q"]) == 0
+
+    def full(path, *args):
+        path.write_bytes(b"half")
+        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+
+    figure = {"curves": "curve_figure", "compare": "comparison_figure"}[command]
+    monkeypatch.setattr(f"foresight.pipeline.{figure}", full)
+    out = tmp_path / "cmp"
+    args = [str(scenario)] if command == "curves" else [str(tmp_path / "run")]
+    png = "curves_pine.png" if command == "curves" else "comparison.png"
+    fails(
+        capsys,
+        [command, *args, "--out", str(out)],
+        rf"no space left on device while writing into .*cmp; {png} is left as it was: free space",
+    )
+    assert not [p for p in out.rglob("*") if p.name.startswith(".partial")]
