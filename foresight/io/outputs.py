@@ -14,7 +14,9 @@ import hashlib
 import json
 import os
 import shutil
+import signal
 import tempfile
+import threading
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
@@ -85,7 +87,8 @@ def check_writable(directory: Path, out: Path) -> None:
             "directory; choose another --out"
         )
     try:
-        os.rmdir(tempfile.mkdtemp(prefix=".foresight-", suffix=".probe", dir=probe))
+        with signals_held():
+            os.rmdir(tempfile.mkdtemp(prefix=".foresight-", suffix=".probe", dir=probe))
     except OSError as exc:
         raise OutputError(
             f"--out {out}: cannot create anything in {probe} ({exc.strerror}); "
@@ -146,30 +149,74 @@ def staged_output(out: Path, managed: frozenset[str]) -> Iterator[Path]:
         )
     except OSError as exc:
         _remove_made(made)
-        raise write_fault(exc, out) from exc
-    umask = os.umask(0)
-    os.umask(umask)
-    tmp.chmod(0o777 & ~umask)  # mkdtemp makes it private; results are for sharing
-    try:
-        yield tmp
-        old = tmp.with_suffix(".old") if target.exists() else None
-        if old is not None:
-            target.rename(old)
-        try:
-            tmp.rename(target)
-        except OSError:
-            if old is not None:
-                old.rename(target)  # the earlier output back in place
+        fault = write_fault(exc, out)
+        if fault is None:
             raise
+        raise fault from exc
+    placed = False
+    try:
+        umask = os.umask(0)
+        os.umask(umask)
+        tmp.chmod(0o777 & ~umask)  # mkdtemp makes it private; results are for sharing
+        yield tmp
+        with signals_held():  # an interrupt now waits until the output is whole in place
+            _move_into_place(tmp, target)
+            placed = True
+    except KeyboardInterrupt as exc:
+        if placed:
+            exc.add_note(f"the output was complete and is in {out}")
+        else:
+            _clean_up(tmp, made)
+        raise
     except BaseException as exc:
         fault = write_fault(exc, out, tmp) if isinstance(exc, Exception) else None
-        shutil.rmtree(tmp, ignore_errors=True)
-        _remove_made(made)
+        _clean_up(tmp, made)
         if fault is not None:
             raise fault from exc
         raise
+
+
+def _move_into_place(tmp: Path, target: Path) -> None:
+    old = tmp.with_suffix(".old") if target.exists() else None
+    if old is not None:
+        target.rename(old)
+    try:
+        tmp.rename(target)
+    except OSError:
+        if old is not None:
+            old.rename(target)  # the earlier output back in place
+        raise
     if old is not None:
         shutil.rmtree(old, ignore_errors=True)
+
+
+def _clean_up(tmp: Path, made: list[Path]) -> None:
+    with signals_held(deliver=False):  # a second interrupt must not stop the clean-up
+        shutil.rmtree(tmp, ignore_errors=True)
+        _remove_made(made)
+
+
+@contextmanager
+def signals_held(deliver: bool = True) -> Iterator[None]:
+    """Hold SIGINT and SIGTERM while file operations run that must not stop half way (a move
+    into place, a clean-up); with ``deliver`` one that came meanwhile is raised again when the
+    block has ended without error. Python runs signal handlers in the main thread only, so
+    elsewhere this holds nothing."""
+    kinds = (signal.SIGINT, signal.SIGTERM)
+    saved = {kind: signal.getsignal(kind) for kind in kinds}
+    if threading.current_thread() is not threading.main_thread() or None in saved.values():
+        yield  # not ours to change
+        return
+    came: list[int] = []
+    for kind in kinds:
+        signal.signal(kind, lambda signum, frame: came.append(signum))
+    try:
+        yield
+    finally:
+        for kind, handler in saved.items():
+            signal.signal(kind, handler)
+    if came and deliver:
+        signal.raise_signal(came[0])
 
 
 NO_SPACE = {errno.ENOSPC: "no space left on device", errno.EDQUOT: "disk quota exceeded"}

@@ -6,11 +6,17 @@ import errno
 import os
 import re
 import shutil
+import signal
+import subprocess
+import sys
+import time
 import uuid
+from pathlib import Path
 
 import pytest
 
 from foresight.cli.main import main
+from foresight.publish import MANAGED
 
 STAGED = (".partial", ".old", ".probe")
 
@@ -227,3 +233,100 @@ def test_a_full_disk_in_curves_and_compare(small_case, capsys, monkeypatch, comm
         rf"no space left on device while writing into .*cmp; {png} is left as it was: free space",
     )
     assert not [p for p in out.rglob("*") if p.name.startswith(".partial")]
+
+
+# -- SIGTERM and SIGINT while writing ----------------------------------------------------------
+
+# The real command in a process of its own, with the figure writer held up inside the staged
+# write until the signal comes (it marks the moment with a file), so the test does not race.
+HELD_WRITE = """
+import sys, time
+import foresight.publish as publish
+def held(result, scenario, figures):
+    figures.mkdir(exist_ok=True)
+    (figures / "writing").write_text("")
+    time.sleep(120)
+publish.write_figures = held
+from foresight.cli.main import main
+from foresight.publish import MANAGED
+sys.exit(main(sys.argv[1:]))
+"""
+
+
+def run_until_writing(tmp_path, scenario, out):
+    proc = subprocess.Popen(
+        [sys.executable, "-c", HELD_WRITE, "run", str(scenario), "--out", str(out), "-q"],
+        stderr=subprocess.PIPE,
+        text=True,
+    )
+    deadline = time.monotonic() + 60
+    while not list(tmp_path.glob(f".{out.name}.*.partial/figures/writing")):
+        if proc.poll() is not None or time.monotonic() > deadline:
+            proc.kill()
+            pytest.fail(f"the run did not reach its writing: {proc.communicate()[1]}")
+        time.sleep(0.01)
+    return proc
+
+
+@pytest.mark.parametrize(
+    ("sig", "code", "name"), [(signal.SIGTERM, 143, "SIGTERM"), (signal.SIGINT, 130, "SIGINT")]
+)
+def test_a_signal_while_writing_leaves_nothing(small_case, sig, code, name):
+    tmp_path, _, scenario = small_case
+    out = tmp_path / "out"
+    proc = run_until_writing(tmp_path, scenario, out)
+    proc.send_signal(sig)
+    _, err = proc.communicate(timeout=60)
+    assert proc.returncode == code, err
+    assert f"foresight: interrupted ({name}); no output was written" in err
+    assert "Traceback" not in err
+    nothing_left(tmp_path, out)
+
+
+def test_sigterm_while_replacing_an_earlier_output_keeps_it(small_case):
+    tmp_path, _, scenario = small_case
+    out = tmp_path / "out"
+    assert main(["run", str(scenario), "--out", str(out), "-q"]) == 0
+    before = {p.name: p.stat().st_mtime_ns for p in out.iterdir()}
+    proc = run_until_writing(tmp_path, scenario, out)
+    proc.send_signal(signal.SIGTERM)
+    proc.communicate(timeout=60)
+    assert proc.returncode == 143
+    assert {p.name: p.stat().st_mtime_ns for p in out.iterdir()} == before
+    nothing_left(tmp_path)
+
+
+class _Signalled(Exception):
+    pass
+
+
+def test_a_signal_while_moving_into_place_waits_until_the_output_is_whole(small_case, monkeypatch):
+    # SIGTERM (here with a handler of the test's) arrives between the two moves of the
+    # commit: it is held until the new output is in place and the earlier one removed.
+    from foresight.io import outputs
+
+    tmp_path, _, scenario = small_case
+    out = tmp_path / "out"
+    assert main(["run", str(scenario), "--out", str(out), "-q"]) == 0
+    rename = Path.rename
+
+    def rename_then_signal(self, target):
+        done = rename(self, target)
+        if str(target).endswith(".old"):
+            signal.raise_signal(signal.SIGTERM)
+        return done
+
+    def on_term(signum, frame):
+        raise _Signalled
+
+    monkeypatch.setattr(Path, "rename", rename_then_signal)
+    previous = signal.signal(signal.SIGTERM, on_term)
+    try:
+        with pytest.raises(_Signalled):
+            with outputs.staged_output(out, MANAGED | {"new.txt"}) as tmp:
+                (tmp / "run.json").write_text("{}")
+                (tmp / "new.txt").write_text("new")
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+    assert sorted(p.name for p in out.iterdir()) == ["new.txt", "run.json"]
+    nothing_left(tmp_path)
