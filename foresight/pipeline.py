@@ -285,9 +285,8 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
     for name, _, _ in scenario.sensitivity:
         if name in MANAGED:
             raise InputError(f"[[sensitivity]] name {name!r} is the name of an output file")
-    managed = MANAGED | {name for name, _, _ in scenario.sensitivity}
     if out is not None:
-        check_output_dir(out, managed)  # before the long stages, not after
+        check_output_dir(out, MANAGED)  # before the long stages, not after
     with _captured_log() as lines:
         result = _project(scenario, strict)
         result.out_dir, result.log = out, lines
@@ -303,7 +302,7 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
             log.info("sensitivity case %r (%d of %d) ...", name, n, len(scenario.sensitivity))
             result.cases[name] = run(case, None, strict=strict)
         if out is not None:
-            with staged_output(out, managed) as tmp:
+            with staged_output(out, MANAGED) as tmp:
                 log.info("write outputs ...")
                 write_outputs(result, scenario, tmp)
     return result

@@ -3,8 +3,9 @@
 :func:`staged_output` yields a fresh temporary directory next to the target; when the block
 ends without error the target is replaced by it in two renames, otherwise it is removed and the
 target is left as it was. A target that exists is replaced only when it holds nothing but
-what a foresight run writes (``run.json`` among it); anything else in it (a user's notes, a
-project file) makes the run stop before any work, so nothing of the user's is ever deleted.
+what an earlier foresight run wrote there (its ``run.json`` lists it); anything else in it (a
+user's notes, a project file) makes the run stop before any work, so nothing of the user's is
+ever deleted.
 """
 
 from __future__ import annotations
@@ -32,8 +33,9 @@ MARKER = "run.json"
 def check_output_dir(out: Path, managed: frozenset[str]) -> None:
     """Refuse early an output path foresight must not replace or cannot write.
 
-    ``managed`` names the entries a run writes; a non-empty directory is replaced only if it
-    holds ``run.json`` and nothing outside ``managed``. The staged copy is made beside ``out``,
+    A non-empty directory is replaced only if it holds nothing but what an earlier run wrote
+    (see :func:`_not_written_by_a_run`; ``managed`` names the entries foresight writes). The
+    staged copy is made beside ``out``,
     so its parent (or the nearest ancestor that exists) must take new entries.
     """
     target = _target(out)
@@ -45,23 +47,56 @@ def check_output_dir(out: Path, managed: frozenset[str]) -> None:
                 f"--out {out}: is the current directory or holds it, and a run replaces its "
                 "--out whole; choose another directory, such as a new sub-directory"
             )
-        entries = sorted(p.name for p in _listing(target, out))
-        if not entries:
-            pass
-        elif MARKER not in entries:
+        foreign = _not_written_by_a_run(target, managed, out)
+        if foreign is None:
             raise OutputError(
-                f"--out {out}: the directory is not empty and holds no {MARKER}, so it is not "
-                "an earlier foresight output; choose a new or empty directory"
+                f"--out {out}: the directory is not empty and holds no {MARKER} foresight wrote, "
+                "so it is not an earlier foresight output; choose a new or empty directory"
             )
-        else:
-            foreign = [name for name in entries if name not in managed]
-            if foreign:
-                raise OutputError(
-                    f"--out {out}: holds files foresight did not write ({', '.join(foreign[:5])}"
-                    f"{' ...' if len(foreign) > 5 else ''}); replacing the directory would "
-                    "delete them. Move them out or choose another directory"
-                )
+        if foreign:
+            raise OutputError(
+                f"--out {out}: holds files foresight did not write ({', '.join(foreign[:5])}"
+                f"{' ...' if len(foreign) > 5 else ''}); replacing the directory would "
+                "delete them. Move them out or choose another directory"
+            )
     check_writable(target.parent, out)
+
+
+def _not_written_by_a_run(directory: Path, managed: frozenset[str], out: Path) -> list[str] | None:
+    """The entries of ``directory`` that no foresight run wrote, or None if it is neither empty
+    nor an earlier run's output (no readable ``run.json`` of foresight).
+
+    A run's ``run.json`` lists what it wrote (``outputs``); an entry in ``managed`` is one a
+    foresight command writes there (``curves.csv`` beside a run). Output written before runs
+    listed theirs is known by its sub-folders that hold a run's own ``run.json`` (the cases).
+    A sensitivity case's folder is looked into the same way.
+    """
+    entries = sorted(p.name for p in _listing(directory, out))
+    if not entries:
+        return []
+    record = _run_json(directory)
+    if record is None:
+        return None
+    listed = record.get("outputs")
+    foreign = []
+    for name in entries:
+        path = directory / name
+        is_run = path.is_dir() and not path.is_symlink() and (path / MARKER).is_file()
+        if name in managed or (name in listed if isinstance(listed, list) else is_run):
+            inner = _not_written_by_a_run(path, managed, out) if is_run else []
+            foreign += [name] if inner is None else [f"{name}/{x}" for x in inner]
+        else:
+            foreign.append(name)
+    return foreign
+
+
+def _run_json(directory: Path) -> dict | None:
+    """The ``run.json`` foresight wrote in ``directory``, or None (absent, unreadable, other)."""
+    try:
+        record = json.loads((directory / MARKER).read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return None
+    return record if isinstance(record, dict) and "foresight_version" in record else None
 
 
 def check_files_dir(out: Path) -> None:

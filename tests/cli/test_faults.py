@@ -3,6 +3,7 @@ folder, paths that cannot be used. Each case asserts the exit code, a message na
 or key, no traceback and nothing written (no output, no staged sibling left behind)."""
 
 import errno
+import json
 import os
 import re
 import shutil
@@ -17,6 +18,8 @@ import pytest
 
 from foresight.cli.main import main
 from foresight.publish import MANAGED
+
+from helpers import scenario_dict, write_scenario
 
 STAGED = (".partial", ".old", ".probe")
 
@@ -248,7 +251,6 @@ def held(result, scenario, figures):
     time.sleep(120)
 publish.write_figures = held
 from foresight.cli.main import main
-from foresight.publish import MANAGED
 sys.exit(main(sys.argv[1:]))
 """
 
@@ -330,3 +332,84 @@ def test_a_signal_while_moving_into_place_waits_until_the_output_is_whole(small_
         signal.signal(signal.SIGTERM, previous)
     assert sorted(p.name for p in out.iterdir()) == ["new.txt", "run.json"]
     nothing_left(tmp_path)
+
+
+# -- a second run into the same folder -----------------------------------------------------------
+
+
+def with_a_case(tmp_path, layer):
+    raw = scenario_dict(layer)
+    raw["sensitivity"] = [{"name": "late", "set": {"species.pine.min_harvest_age": 80}}]
+    return write_scenario(tmp_path / "cases.toml", raw)
+
+
+def test_a_second_run_replaces_what_the_first_wrote_whatever_its_cases(small_case, capsys):
+    # The README's quick start writes the cases into results/<case>/; a run without them into
+    # the same folder replaces it all, and the other way round.
+    tmp_path, layer, _ = small_case
+    scenario, out = with_a_case(tmp_path, layer), tmp_path / "results"
+    assert main(["run", str(scenario), "--out", str(out), "-q"]) == 0
+    record = json.loads((out / "run.json").read_text())
+    assert record["outputs"] == sorted(p.name for p in out.iterdir())
+    assert "late" in record["outputs"] and "run.log" in record["outputs"]
+    assert main(["run", str(scenario), "--out", str(out), "-q", "--set", "sensitivity=[]"]) == 0
+    assert not (out / "late").exists()
+    assert main(["run", str(scenario), "--out", str(out), "-q"]) == 0
+    assert (out / "late" / "run.json").is_file()
+    nothing_left(tmp_path)
+
+
+def test_output_written_before_runs_listed_theirs_is_replaced(small_case):
+    tmp_path, layer, _ = small_case
+    scenario, out = with_a_case(tmp_path, layer), tmp_path / "results"
+    assert main(["run", str(scenario), "--out", str(out), "-q"]) == 0
+    for rec_path in (out / "run.json", out / "late" / "run.json"):  # as an earlier version wrote
+        record = json.loads(rec_path.read_text())
+        del record["outputs"]
+        rec_path.write_text(json.dumps(record))
+    assert main(["run", str(scenario), "--out", str(out), "-q", "--set", "sensitivity=[]"]) == 0
+    assert not (out / "late").exists()
+
+
+@pytest.mark.parametrize("legacy", [False, True])
+@pytest.mark.parametrize(
+    ("mine", "named"),
+    [
+        ("late/notes.txt", "late/notes.txt"),  # in a case's folder
+        ("figures2/map.png", "figures2"),  # a folder of one's own
+        ("late2/run.json", "late2"),  # a folder with a run.json that foresight did not write
+    ],
+)
+def test_a_users_file_among_an_earlier_runs_is_never_deleted(
+    small_case, capsys, legacy, mine, named
+):
+    tmp_path, layer, _ = small_case
+    scenario, out = with_a_case(tmp_path, layer), tmp_path / "results"
+    assert main(["run", str(scenario), "--out", str(out), "-q"]) == 0
+    if legacy:
+        record = json.loads((out / "run.json").read_text())
+        del record["outputs"]
+        (out / "run.json").write_text(json.dumps(record))
+    (out / mine).parent.mkdir(exist_ok=True)
+    (out / mine).write_text("{}")
+    fails(
+        capsys,
+        ["run", str(scenario), "--out", str(out), "--set", "sensitivity=[]"],
+        rf"holds files foresight did not write \({re.escape(named)}\)",
+    )
+    assert (out / mine).read_text() == "{}"
+
+
+@pytest.mark.parametrize("text", ["{not json", '{"a": 1}', "[]"])
+def test_an_earlier_output_whose_run_json_is_not_foresights_is_refused(small_case, capsys, text):
+    tmp_path, _, scenario = small_case
+    out = tmp_path / "results"
+    out.mkdir()
+    (out / "run.json").write_text(text)
+    (out / "wood_flow.csv").write_text("mine")
+    fails(
+        capsys,
+        ["run", str(scenario), "--out", str(out)],
+        r"holds no run.json foresight wrote, so it is not an earlier foresight output",
+    )
+    assert (out / "wood_flow.csv").read_text() == "mine"
