@@ -674,11 +674,22 @@ def load_scenario(path: str | Path, overrides: Sequence[str] = ()) -> Scenario:
     """Read a scenario TOML file, apply ``section.key=value`` overrides, and check every key."""
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8")
+        data = path.read_bytes()
     except FileNotFoundError:
         raise ScenarioError(f"{path}: scenario file not found") from None
     except OSError as exc:
         raise ScenarioError(f"{path}: cannot read the scenario file ({exc.strerror})") from None
+    except ValueError:  # the file system takes no NUL byte in a path
+        raise ScenarioError(f"{str(path)!r}: the scenario file's path holds a NUL byte") from None
+    try:
+        text = data.decode("utf-8-sig")  # TOML is UTF-8; some editors put a byte-order mark first
+    except UnicodeDecodeError as exc:
+        line = data.count(b"\n", 0, exc.start) + 1
+        utf16 = data[:2] in (b"\xff\xfe", b"\xfe\xff")
+        raise ScenarioError(
+            f"{path}: not UTF-8 text: byte 0x{data[exc.start]:02x} at position {exc.start} "
+            f"(line {line}){' (the file is UTF-16)' if utf16 else ''}; save it as UTF-8"
+        ) from None
     try:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -687,6 +698,19 @@ def load_scenario(path: str | Path, overrides: Sequence[str] = ()) -> Scenario:
         apply_override(raw, item)
     where = _Where(str(path))
     where.overrides = {item.partition("=")[0].strip(): item for item in overrides}
+    found: list[tuple[str, Any]] = [("", raw)]
+    while found:  # a NUL byte in any text; in a path it would reach the file system
+        key, value = found.pop()
+        if isinstance(value, dict):
+            found += [(f"{key}.{k}" if key else str(k), v) for k, v in value.items()]
+        elif isinstance(value, list):
+            found += [(f"{key}[{i}]", v) for i, v in enumerate(value)]
+        elif isinstance(value, str) and "\0" in value:
+            sect, _, name = key.rpartition(".")
+            at = where.at(sect, name).replace("\0", "\\x00")  # a --set item holds it too
+            raise ScenarioError(
+                f"{at}: {key} = {value!r}: holds a NUL byte, which no path or name may hold"
+            )
     return parse_scenario(
         raw,
         base_dir=path.resolve().parent,

@@ -413,3 +413,91 @@ def test_an_earlier_output_whose_run_json_is_not_foresights_is_refused(small_cas
         r"holds no run.json foresight wrote, so it is not an earlier foresight output",
     )
     assert (out / "wood_flow.csv").read_text() == "mine"
+
+
+# -- a scenario that is not UTF-8, a NUL byte in a path ------------------------------------------
+
+
+@pytest.mark.parametrize(
+    ("encode", "pattern"),
+    [
+        # Latin-1: "é" is the single byte 0xe9, never valid UTF-8 on its own
+        (
+            lambda text: b"# r\xe9gion\n" + text.encode(),
+            r"scenario.toml: not UTF-8 text: byte 0xe9 at position 3 \(line 1\); save it as UTF-8",
+        ),
+        (
+            lambda text: text.encode("utf-16"),
+            r"not UTF-8 text: byte 0xff at position 0 \(line 1\) \(the file is UTF-16\)",
+        ),
+        (
+            lambda text: text.replace("[species", "# \xe9t\xe9\n[species", 1).encode("cp1252"),
+            r"not UTF-8 text: byte 0xe9 at position \d+ \(line \d+\)",
+        ),
+    ],
+)
+def test_a_scenario_that_is_not_utf8(small_case, capsys, encode, pattern):
+    tmp_path, _, scenario = small_case
+    scenario.write_bytes(encode(scenario.read_text(encoding="utf-8")))
+    out = tmp_path / "out"
+    fails(capsys, ["run", str(scenario), "--out", str(out)], pattern)
+    nothing_left(tmp_path, out)
+
+
+def test_a_scenario_with_a_byte_order_mark_is_read(small_case, capsys):
+    # Some Windows editors start UTF-8 files with a byte-order mark (EF BB BF).
+    _, _, scenario = small_case
+    scenario.write_bytes(b"\xef\xbb\xbf" + scenario.read_bytes())
+    assert main(["check", str(scenario)]) == 0
+
+
+def test_a_nul_byte_in_the_paths_of_the_command(small_case, capsys):
+    tmp_path, _, scenario = small_case
+    out = tmp_path / "out"
+    fails(
+        capsys,
+        ["run", f"{scenario}\0x", "--out", str(out)],
+        r"scenario.toml\\x00x': the scenario file's path holds a NUL byte",
+    )
+    fails(capsys, ["run", str(scenario), "--out", f"{out}\0x"], r"--out '.*out\\x00x': .*NUL byte")
+    fails(capsys, ["compare", str(tmp_path), "--out", f"{out}\0x"], r"--out '.*NUL byte")
+    nothing_left(tmp_path, out)
+
+
+@pytest.mark.parametrize(
+    ("edit", "set_", "pattern"),
+    [
+        (
+            ("inventory", "path", "stands\0.gpkg"),
+            None,
+            r"scenario.toml: inventory.path = '.*stands\\x00.gpkg': holds a NUL byte",
+        ),
+        (
+            None,
+            'inventory.path="stands\\u0000.gpkg"',
+            r"--set inventory.path=.*: inventory.path = 'stands\\x00.gpkg': holds a NUL byte",
+        ),
+        (
+            None,
+            "species.pine.table_csv=y\0.csv",
+            r"--set species.pine.table_csv=y\\x00.csv: .* holds a NUL byte",
+        ),
+        (
+            ("inventory", "from_raster", {"site_index": "si\0.tif"}),
+            None,
+            r"inventory.from_raster.site_index = 'si\\x00.tif': holds a NUL byte",
+        ),
+    ],
+)
+def test_a_nul_byte_in_a_path_of_the_scenario(small_case, capsys, edit, set_, pattern):
+    tmp_path, layer, scenario = small_case
+    if edit is not None:
+        raw = scenario_dict(layer)
+        section, key, value = edit
+        raw[section][key] = value
+        write_scenario(scenario, raw)
+        scenario.write_text(scenario.read_text().replace("\0", "\\u0000"))  # a TOML escape
+    out = tmp_path / "out"
+    extra = ["--set", set_] if set_ else []
+    fails(capsys, ["run", str(scenario), "--out", str(out), *extra], pattern)
+    nothing_left(tmp_path, out)
