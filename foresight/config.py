@@ -705,12 +705,16 @@ def load_scenario(path: str | Path, overrides: Sequence[str] = ()) -> Scenario:
             found += [(f"{key}.{k}" if key else str(k), v) for k, v in value.items()]
         elif isinstance(value, list):
             found += [(f"{key}[{i}]", v) for i, v in enumerate(value)]
-        elif isinstance(value, str) and "\0" in value:
-            sect, _, name = key.rpartition(".")
-            at = where.at(sect, name).replace("\0", "\\x00")  # a --set item holds it too
-            raise ScenarioError(
-                f"{at}: {key} = {value!r}: holds a NUL byte, which no path or name may hold"
-            )
+        elif isinstance(value, str):
+            fault = "holds a NUL byte, which no path or name may hold" if "\0" in value else ""
+            try:
+                value.encode("utf-8")
+            except UnicodeEncodeError:  # bytes of another encoding in a --set argument
+                fault = "is not UTF-8 text"
+            if fault:
+                sect, _, name = key.rpartition(".")
+                at = where.at(sect, name).replace("\0", "\\x00")  # a --set item holds it too
+                raise ScenarioError(f"{at}: {key} = {value!r}: {fault}")
     return parse_scenario(
         raw,
         base_dir=path.resolve().parent,

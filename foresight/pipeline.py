@@ -23,7 +23,7 @@ import shapely
 
 from foresight.adjacency import Adjacency, build_adjacency
 from foresight.config import HarvestConfig, NetdownStep, Scenario
-from foresight.errors import InputError
+from foresight.errors import InputError, OutputError
 from foresight.growth import curve_from_config
 from foresight.growth.rules import max_mai
 from foresight.inventory import CheckReport, prepare_inventory
@@ -58,6 +58,7 @@ from foresight.publish import (
     CURVES_CSV,
     FIGURES_DIR,
     MANAGED,
+    RUN_JSON,
     dominant_sites,
     figure_age,
     write_outputs,
@@ -865,6 +866,11 @@ def compare(run_dirs: list[str | Path], out_dir: str | Path) -> pd.DataFrame:
     figure ``OUT/comparison.png``; each file is written to a temporary name first."""
     out = Path(out_dir)
     check_files_dir(out)
+    if (out / RUN_JSON).exists():
+        raise OutputError(
+            f"--out {out}: holds a foresight run ({RUN_JSON}), whose own {COMPARISON_CSV} the "
+            "comparison would replace; choose another directory"
+        )
     runs = []
     for d in map(Path, run_dirs):
         rec, wf = read_run(d)

@@ -8,6 +8,7 @@ file, layer, field, row, key or path), 1 an unexpected error (a bug: the traceba
 from __future__ import annotations
 
 import argparse
+import io
 import logging
 import signal
 import sys
@@ -115,6 +116,9 @@ def _setup_logging(verbose: int, quiet: bool) -> None:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
+    for stream in (sys.stdout, sys.stderr):  # a path in another encoding is shown, escaped
+        if isinstance(stream, io.TextIOWrapper):
+            stream.reconfigure(errors="backslashreplace")
     parser = build_parser()
     args = parser.parse_args(argv)
     _setup_logging(args.verbose, args.quiet)

@@ -115,6 +115,10 @@ def check_writable(directory: Path, out: Path) -> None:
     test: permissions, access lists, read-only mounts and root all answer it."""
     probe = directory
     while not _exists(probe, out) and probe.parent != probe:
+        if probe.is_symlink():  # a link to nothing, or a loop: no folder can be made through it
+            raise OutputError(
+                f"--out {out}: {probe} is a symbolic link that leads nowhere; choose another --out"
+            )
         probe = probe.parent
     if not probe.is_dir():
         raise OutputError(
@@ -134,11 +138,24 @@ def check_writable(directory: Path, out: Path) -> None:
 def _target(out: Path) -> Path:
     """The absolute, normalised path written to; a symbolic link is followed, so a run through
     a linked directory replaces what the link points to, not the link."""
-    if "\0" in str(out):
-        raise OutputError(f"--out {str(out)!r}: the path holds a NUL byte")
+    text = str(out)
+    if "\0" in text:
+        raise OutputError(f"--out {text!r}: the path holds a NUL byte")
     try:
-        return Path(os.path.realpath(out) if Path(out).is_symlink() else os.path.abspath(out))
-    except OSError as exc:  # the current directory was removed
+        text.encode("utf-8")
+    except UnicodeEncodeError as exc:  # bytes of another encoding, as Python keeps them
+        raise OutputError(
+            f"--out {text!r}: the path is not UTF-8 (byte 0x{ord(text[exc.start]) & 0xFF:02x}), "
+            "and GDAL writes to UTF-8 paths only; choose another name"
+        ) from None
+    try:
+        if Path(out).is_symlink():
+            try:
+                return Path(os.path.realpath(out, strict=True))
+            except FileNotFoundError:
+                return Path(os.path.realpath(out))  # a link to a folder yet to be made
+        return Path(os.path.abspath(out))
+    except OSError as exc:  # a loop of links; the current directory removed
         raise OutputError(f"--out {out}: {exc.strerror}") from None
 
 
@@ -194,6 +211,7 @@ def staged_output(out: Path, managed: frozenset[str]) -> Iterator[Path]:
         os.umask(umask)
         tmp.chmod(0o777 & ~umask)  # mkdtemp makes it private; results are for sharing
         yield tmp
+        check_output_dir(out, managed)  # again: something may have been put there meanwhile
         with signals_held():  # an interrupt now waits until the output is whole in place
             _move_into_place(tmp, target)
             placed = True
@@ -341,17 +359,61 @@ def replace_file(path: Path, write: Callable[[Path], None], out: Path) -> None:
             raise fault from exc
         raise
     finally:
-        tmp.unlink(missing_ok=True)
+        try:
+            tmp.unlink(missing_ok=True)
+        except OSError:
+            pass  # never made (its folder could not be)
+
+
+# What a comparison reads of a run (reporting/compare.py), checked when it is read, so that a
+# run.json changed by hand or written by something else is an error that names the key.
+RUN_NEEDS: dict[str, type | tuple[type, ...]] = {
+    "scenario.scenario.name": str,
+    "flow.policy": str,
+    "flow.level_m3_per_year": (int, float),
+    "flow.initial_growing_stock_m3": (int, float),
+    "flow.ending_growing_stock_m3": (int, float),
+    "inventory": dict,
+    "flow.long_term_sustained_yield_m3_per_year": (dict, type(None)),
+    "lp": (dict, type(None)),
+    "verdict": (dict, type(None)),
+}
+OPTIONAL = {"flow.long_term_sustained_yield_m3_per_year", "lp", "verdict"}
+WOOD_FLOW_NEEDS = ("start_year", "end_year", "harvest_m3", "harvest_m3_per_year")
+_ABSENT = object()
 
 
 def read_run(directory: Path) -> tuple[dict, pd.DataFrame]:
-    """run.json and wood_flow.csv of a foresight output directory."""
+    """run.json and wood_flow.csv of a foresight output directory, with what a comparison of
+    runs reads of them checked."""
     rec_path, wf_path = directory / MARKER, directory / "wood_flow.csv"
     if not rec_path.is_file() or not wf_path.is_file():
         raise OutputError(
             f"{directory}: not a foresight output directory (needs {MARKER} and wood_flow.csv)"
         )
     try:
-        return json.loads(rec_path.read_text(encoding="utf-8")), pd.read_csv(wf_path)
+        record, wf = json.loads(rec_path.read_text(encoding="utf-8")), pd.read_csv(wf_path)
     except (ValueError, OSError) as exc:
         raise OutputError(f"{directory}: cannot read its outputs ({exc})") from None
+    if not isinstance(record, dict) or "foresight_version" not in record:
+        raise OutputError(f"{rec_path}: not a run.json that foresight wrote")
+    for key, kind in RUN_NEEDS.items():
+        value: object = record
+        for part in key.split("."):
+            value = value.get(part, _ABSENT) if isinstance(value, dict) else _ABSENT
+        if value is _ABSENT and key in OPTIONAL:
+            continue
+        if value is _ABSENT or isinstance(value, bool) or not isinstance(value, kind):
+            found = "missing" if value is _ABSENT else f"{value!r}"
+            raise OutputError(
+                f"{rec_path}: {key} is {found}; the file is not as a foresight run wrote it"
+            )
+    if wf.empty:
+        raise OutputError(f"{wf_path}: holds no periods")
+    for col in WOOD_FLOW_NEEDS:
+        if col not in wf or not pd.api.types.is_numeric_dtype(wf[col]):
+            raise OutputError(
+                f"{wf_path}: column {col!r} is {'missing' if col not in wf else 'not numeric'}; "
+                "the file is not as a foresight run wrote it"
+            )
+    return record, wf

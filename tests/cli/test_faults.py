@@ -14,12 +14,14 @@ import time
 import uuid
 from pathlib import Path
 
+import numpy as np
+import pandas as pd
 import pytest
 
 from foresight.cli.main import main
 from foresight.publish import MANAGED
 
-from helpers import scenario_dict, write_scenario
+from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
 
 STAGED = (".partial", ".old", ".probe")
 
@@ -52,6 +54,23 @@ def can_write_into(directory):
         return False
     probe.rmdir()
     return True
+
+
+@pytest.fixture(scope="module")
+def _earlier_template(tmp_path_factory):
+    """The small forest's files and a run of it, with a case, into results/: made once."""
+    root = tmp_path_factory.mktemp("earlier")
+    layer = write_layer(root / "stands.gpkg", squares(20), stand_attrs(20, ages=np.arange(20) * 5))
+    write_scenario(root / "scenario.toml", scenario_dict(layer))
+    assert main(["run", str(with_a_case(root, layer)), "--out", str(root / "results"), "-q"]) == 0
+    return root
+
+
+@pytest.fixture
+def earlier(_earlier_template, tmp_path):
+    """A copy of it: (folder, scenario without cases, results/ of the earlier run)."""
+    shutil.copytree(_earlier_template, tmp_path, dirs_exist_ok=True)
+    return tmp_path, tmp_path / "scenario.toml", tmp_path / "results"
 
 
 # -- the output location is checked before any work --------------------------------------------
@@ -194,10 +213,8 @@ def test_other_faults_while_writing_name_the_file(small_case, capsys, monkeypatc
     nothing_left(tmp_path, out)
 
 
-def test_an_earlier_output_is_kept_whole_when_the_disk_fills(small_case, capsys, monkeypatch):
-    tmp_path, _, scenario = small_case
-    out = tmp_path / "out"
-    assert main(["run", str(scenario), "--out", str(out), "-q"]) == 0
+def test_an_earlier_output_is_kept_whole_when_the_disk_fills(earlier, capsys, monkeypatch):
+    tmp_path, scenario, out = earlier
     before = sorted(p.name for p in out.iterdir())
     monkeypatch.setattr("foresight.publish.write_figures", failing_writer(os_error(errno.ENOSPC)))
     fails(capsys, ["run", str(scenario), "--out", str(out)], r"no space left on device")
@@ -285,10 +302,8 @@ def test_a_signal_while_writing_leaves_nothing(small_case, sig, code, name):
     nothing_left(tmp_path, out)
 
 
-def test_sigterm_while_replacing_an_earlier_output_keeps_it(small_case):
-    tmp_path, _, scenario = small_case
-    out = tmp_path / "out"
-    assert main(["run", str(scenario), "--out", str(out), "-q"]) == 0
+def test_sigterm_while_replacing_an_earlier_output_keeps_it(earlier):
+    tmp_path, scenario, out = earlier
     before = {p.name: p.stat().st_mtime_ns for p in out.iterdir()}
     proc = run_until_writing(tmp_path, scenario, out)
     proc.send_signal(signal.SIGTERM)
@@ -302,14 +317,12 @@ class _Signalled(Exception):
     pass
 
 
-def test_a_signal_while_moving_into_place_waits_until_the_output_is_whole(small_case, monkeypatch):
+def test_a_signal_while_moving_into_place_waits_until_the_output_is_whole(earlier, monkeypatch):
     # SIGTERM (here with a handler of the test's) arrives between the two moves of the
     # commit: it is held until the new output is in place and the earlier one removed.
     from foresight.io import outputs
 
-    tmp_path, _, scenario = small_case
-    out = tmp_path / "out"
-    assert main(["run", str(scenario), "--out", str(out), "-q"]) == 0
+    tmp_path, _, out = earlier
     rename = Path.rename
 
     def rename_then_signal(self, target):
@@ -343,31 +356,28 @@ def with_a_case(tmp_path, layer):
     return write_scenario(tmp_path / "cases.toml", raw)
 
 
-def test_a_second_run_replaces_what_the_first_wrote_whatever_its_cases(small_case, capsys):
+def test_a_second_run_replaces_what_the_first_wrote_whatever_its_cases(earlier, capsys):
     # The README's quick start writes the cases into results/<case>/; a run without them into
     # the same folder replaces it all, and the other way round.
-    tmp_path, layer, _ = small_case
-    scenario, out = with_a_case(tmp_path, layer), tmp_path / "results"
-    assert main(["run", str(scenario), "--out", str(out), "-q"]) == 0
+    tmp_path, _, out = earlier
+    cases = tmp_path / "cases.toml"
     record = json.loads((out / "run.json").read_text())
     assert record["outputs"] == sorted(p.name for p in out.iterdir())
     assert "late" in record["outputs"] and "run.log" in record["outputs"]
-    assert main(["run", str(scenario), "--out", str(out), "-q", "--set", "sensitivity=[]"]) == 0
+    assert main(["run", str(cases), "--out", str(out), "-q", "--set", "sensitivity=[]"]) == 0
     assert not (out / "late").exists()
-    assert main(["run", str(scenario), "--out", str(out), "-q"]) == 0
+    assert main(["run", str(cases), "--out", str(out), "-q"]) == 0
     assert (out / "late" / "run.json").is_file()
     nothing_left(tmp_path)
 
 
-def test_output_written_before_runs_listed_theirs_is_replaced(small_case):
-    tmp_path, layer, _ = small_case
-    scenario, out = with_a_case(tmp_path, layer), tmp_path / "results"
-    assert main(["run", str(scenario), "--out", str(out), "-q"]) == 0
+def test_output_written_before_runs_listed_theirs_is_replaced(earlier):
+    _, scenario, out = earlier
     for rec_path in (out / "run.json", out / "late" / "run.json"):  # as an earlier version wrote
         record = json.loads(rec_path.read_text())
         del record["outputs"]
         rec_path.write_text(json.dumps(record))
-    assert main(["run", str(scenario), "--out", str(out), "-q", "--set", "sensitivity=[]"]) == 0
+    assert main(["run", str(scenario), "--out", str(out), "-q"]) == 0
     assert not (out / "late").exists()
 
 
@@ -380,12 +390,8 @@ def test_output_written_before_runs_listed_theirs_is_replaced(small_case):
         ("late2/run.json", "late2"),  # a folder with a run.json that foresight did not write
     ],
 )
-def test_a_users_file_among_an_earlier_runs_is_never_deleted(
-    small_case, capsys, legacy, mine, named
-):
-    tmp_path, layer, _ = small_case
-    scenario, out = with_a_case(tmp_path, layer), tmp_path / "results"
-    assert main(["run", str(scenario), "--out", str(out), "-q"]) == 0
+def test_a_users_file_among_an_earlier_runs_is_never_deleted(earlier, capsys, legacy, mine, named):
+    _, scenario, out = earlier
     if legacy:
         record = json.loads((out / "run.json").read_text())
         del record["outputs"]
@@ -394,7 +400,7 @@ def test_a_users_file_among_an_earlier_runs_is_never_deleted(
     (out / mine).write_text("{}")
     fails(
         capsys,
-        ["run", str(scenario), "--out", str(out), "--set", "sensitivity=[]"],
+        ["run", str(scenario), "--out", str(out)],
         rf"holds files foresight did not write \({re.escape(named)}\)",
     )
     assert (out / mine).read_text() == "{}"
@@ -501,3 +507,254 @@ def test_a_nul_byte_in_a_path_of_the_scenario(small_case, capsys, edit, set_, pa
     extra = ["--set", set_] if set_ else []
     fails(capsys, ["run", str(scenario), "--out", str(out), *extra], pattern)
     nothing_left(tmp_path, out)
+
+
+# -- links, names, folders that come and go, runs to compare that are not runs ------------------
+
+
+def test_an_out_that_is_a_link_to_a_folder_writes_into_the_folder(small_case, capsys):
+    tmp_path, _, scenario = small_case
+    (tmp_path / "disk").mkdir()
+    (tmp_path / "results").symlink_to(tmp_path / "disk")
+    for _ in range(2):  # the second run replaces the first through the link
+        assert main(["run", str(scenario), "--out", str(tmp_path / "results"), "-q"]) == 0
+    assert (tmp_path / "results").is_symlink()
+    assert (tmp_path / "disk" / "run.json").is_file()
+    nothing_left(tmp_path)
+
+
+def test_links_that_lead_nowhere(small_case, capsys):
+    tmp_path, _, scenario = small_case
+    (tmp_path / "a").symlink_to(tmp_path / "b")
+    (tmp_path / "b").symlink_to(tmp_path / "a")
+    fails(capsys, ["run", str(scenario), "--out", str(tmp_path / "a")], r"--out .*a: Too many")
+    fails(
+        capsys,
+        ["run", str(scenario), "--out", str(tmp_path / "a" / "out")],
+        r"--out .*a/out: .*a is a symbolic link that leads nowhere",
+    )
+    nothing_left(tmp_path)
+
+
+def test_an_out_that_is_the_scenarios_own_folder(small_case, capsys):
+    tmp_path, layer, scenario = small_case
+    fails(
+        capsys,
+        ["run", str(scenario), "--out", str(tmp_path)],
+        r"not empty and holds no run.json foresight wrote",
+    )
+    assert layer.is_file() and scenario.is_file()
+    nothing_left(tmp_path)
+
+
+def non_utf8_name(parent, name):
+    """A path whose name holds the Latin-1 byte 0xe9, as Python keeps it (a lone surrogate)."""
+    path = os.fsdecode(os.fsencode(parent) + b"/" + name.encode("latin-1"))
+    try:
+        os.mkdir(path)
+    except OSError:
+        pytest.skip("this file system takes UTF-8 names only")
+    os.rmdir(path)
+    return Path(path)
+
+
+def test_names_that_are_not_utf8(small_case, capsys):
+    tmp_path, layer, scenario = small_case
+    out = non_utf8_name(tmp_path, "r\xe9sultats")
+    err = fails(
+        capsys,
+        ["run", str(scenario), "--out", str(out)],
+        r"--out '.*r\\udce9sultats': the path is not UTF-8 \(byte 0xe9\)",
+    )
+    assert "read and check inventory" not in err
+    layer2 = non_utf8_name(tmp_path, "st\xe9")
+    fails(
+        capsys,
+        ["check", str(scenario), "--set", f"inventory.path={layer2}"],
+        r"--set inventory.path=.*: inventory.path = '.*st\\udce9': is not UTF-8 text",
+    )
+    folder = non_utf8_name(tmp_path, "r\xe9gion")
+    folder.mkdir()
+    shutil.copy(layer, folder / "stands.gpkg")
+    write_scenario(folder / "scenario.toml", scenario_dict(Path("stands.gpkg")))
+    fails(
+        capsys,
+        ["check", str(folder / "scenario.toml")],
+        r"r\\udce9gion/stands.gpkg': the stand layer's path is not UTF-8",
+    )
+    nothing_left(tmp_path, out)
+
+
+def test_the_staged_folder_disappearing_while_writing(small_case, capsys, monkeypatch):
+    tmp_path, _, scenario = small_case
+
+    def gone(result, scenario, figures):
+        shutil.rmtree(figures.parent)  # the staged folder, removed by someone else
+        (figures.parent / "age.png").write_bytes(b"")
+
+    monkeypatch.setattr("foresight.publish.write_figures", gone)
+    out = tmp_path / "out"
+    fails(
+        capsys,
+        ["run", str(scenario), "--out", str(out)],
+        rf"cannot write {re.escape(str(out))}/age.png \(No such file or directory\); nothing",
+    )
+    nothing_left(tmp_path, out)
+
+
+def test_the_parent_of_out_disappearing_during_the_run(small_case, monkeypatch):
+    # checked at the start, removed while the run projects: it is made again for the output
+    from foresight import pipeline
+
+    tmp_path, _, scenario = small_case
+    (tmp_path / "runs").mkdir()
+    project = pipeline._project
+
+    def project_then_remove(*args):
+        (tmp_path / "runs").rmdir()
+        return project(*args)
+
+    monkeypatch.setattr(pipeline, "_project", project_then_remove)
+    assert main(["run", str(scenario), "--out", str(tmp_path / "runs" / "out"), "-q"]) == 0
+    assert (tmp_path / "runs" / "out" / "run.json").is_file()
+
+
+def test_a_file_put_into_the_earlier_output_while_writing_is_kept(earlier, capsys, monkeypatch):
+    from foresight import publish
+
+    tmp_path, scenario, out = earlier
+    figures = publish.write_figures
+
+    def and_a_note(result, scenario, directory):
+        (out / "notes.txt").write_text("mine")  # the user, meanwhile
+        return figures(result, scenario, directory)
+
+    monkeypatch.setattr(publish, "write_figures", and_a_note)
+    fails(capsys, ["run", str(scenario), "--out", str(out)], r"did not write \(notes.txt\)")
+    assert (out / "notes.txt").read_text() == "mine"
+    nothing_left(tmp_path)
+
+
+def test_curves_out_where_its_figures_folder_is_a_file(small_case, capsys):
+    tmp_path, _, scenario = small_case
+    out = tmp_path / "rep"
+    out.mkdir()
+    (out / "figures").write_text("mine")
+    fails(
+        capsys,
+        ["curves", str(scenario), "--out", str(out)],
+        r"cannot write .*rep/figures \(File exists\); curves_pine.png is left as it was",
+    )
+    assert (out / "figures").read_text() == "mine"
+    assert not [p for p in out.iterdir() if p.name.startswith(".partial")]
+
+
+@pytest.fixture
+def a_run(earlier):
+    return earlier[2]
+
+
+def test_compare_refuses_to_write_into_a_run(a_run, capsys):
+    before = (a_run / "run.json").read_bytes()
+    fails(
+        capsys,
+        ["compare", str(a_run), "--out", str(a_run)],
+        r"holds a foresight run \(run.json\), whose own comparison.csv the comparison would",
+    )
+    assert (a_run / "run.json").read_bytes() == before
+    assert not (a_run / "comparison.png").exists()
+
+
+def _set(key, value):
+    def edit(record):
+        *path, last = key.split(".")
+        table = record
+        for part in path:
+            table = table[part]
+        table[last] = value
+        return record
+
+    return edit
+
+
+@pytest.mark.parametrize(
+    ("edit", "pattern"),
+    [
+        (lambda rec: [rec], r"results/run.json: not a run.json that foresight wrote"),
+        (lambda rec: {"a": 1}, r"results/run.json: not a run.json that foresight wrote"),
+        (_set("flow.level_m3_per_year", "89"), r"run.json: flow.level_m3_per_year is '89'"),
+        (_set("scenario", None), r"run.json: scenario.scenario.name is missing"),
+        (_set("verdict", []), r"run.json: verdict is \[\]; the file is not as a foresight run"),
+        (_set("flow.initial_growing_stock_m3", True), r"flow.initial_growing_stock_m3 is True"),
+    ],
+)
+def test_compare_a_run_whose_run_json_was_changed(a_run, capsys, edit, pattern):
+    record = json.loads((a_run / "run.json").read_text())
+    (a_run / "run.json").write_text(json.dumps(edit(record)))
+    out = a_run.parent / "cmp"
+    fails(capsys, ["compare", str(a_run), "--out", str(out)], pattern)
+    assert not out.exists()
+
+
+@pytest.mark.parametrize(
+    ("text", "pattern"),
+    [
+        ("period,harvest_m3\n1,5\n", r"wood_flow.csv: column 'start_year' is missing"),
+        (None, r"wood_flow.csv: holds no periods"),
+        ("x\n1\n", r"wood_flow.csv: column 'start_year' is missing"),
+        (b"\xff\xfe\x00", r"results: cannot read its outputs \('utf-8' codec"),
+    ],
+)
+def test_compare_a_run_whose_wood_flow_was_changed(a_run, capsys, text, pattern):
+    csv = a_run / "wood_flow.csv"
+    if text is None:
+        csv.write_text(csv.read_text().splitlines()[0] + "\n")  # the header alone
+    elif isinstance(text, bytes):
+        csv.write_bytes(text)
+    else:
+        csv.write_text(text)
+    out = a_run.parent / "cmp"
+    fails(capsys, ["compare", str(a_run), "--out", str(out)], pattern)
+    assert not out.exists()
+
+
+def test_compare_what_is_not_a_run(small_case, capsys):
+    tmp_path, layer, _ = small_case
+    for what in (layer, tmp_path / "nowhere", tmp_path):
+        fails(
+            capsys,
+            ["compare", str(what), "--out", str(tmp_path / "cmp")],
+            rf"{re.escape(str(what))}: not a foresight output directory",
+        )
+    nothing_left(tmp_path, tmp_path / "cmp")
+
+
+def test_bare_land_with_a_case_runs_and_compares(tmp_path, capsys):
+    # Every stand aged 0 on a curve through the origin: no growing stock at the start, so the
+    # ending-to-initial ratio has no value (as indicators.csv has it), instead of a failure.
+    layer = write_layer(tmp_path / "bare.gpkg", squares(6), stand_attrs(6, ages=0))
+    raw = scenario_dict(layer)
+    raw["sensitivity"] = [{"name": "late", "set": {"species.pine.min_harvest_age": 80}}]
+    scenario = write_scenario(tmp_path / "bare.toml", raw)
+    out = tmp_path / "out"
+    assert main(["run", str(scenario), "--out", str(out), "-q"]) == 0
+    assert main(["compare", str(out), str(out / "late"), "--out", str(tmp_path / "c"), "-q"]) == 0
+    table = pd.read_csv(tmp_path / "c" / "comparison.csv")
+    assert table["ending_stock_ratio"].isna().all()
+
+
+def test_the_cache_keeps_no_part_of_an_entry_after_a_fault(tmp_path, monkeypatch):
+    from foresight.io import cache
+
+    monkeypatch.setenv("FORESIGHT_CACHE_DIR", str(tmp_path / "cache"))
+    source = tmp_path / "in.bin"
+    source.write_bytes(b"stands")
+
+    def full(path, **arrays):
+        Path(path).write_bytes(b"PK half")
+        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+
+    monkeypatch.setattr(cache.np, "savez", full)
+    arrays, hit = cache.cached_arrays("graph", source, "", lambda: {"a": np.arange(3)})
+    assert not hit and arrays["a"].tolist() == [0, 1, 2]
+    assert list((tmp_path / "cache").iterdir()) == []
