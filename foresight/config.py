@@ -1201,10 +1201,18 @@ def _read_table_csv(
     """Read a yield table CSV: age_years, volume_m3_ha and optionally site_index_m (long form)."""
     # A yield table is a small text file named by the scenario, so it is read with the scenario.
     try:
-        with path.open(newline="", encoding="utf-8") as fh:
-            rows = list(csv.DictReader(fh))
+        data = path.read_bytes()
+        rows = list(csv.DictReader(data.decode("utf-8-sig").splitlines()))
     except FileNotFoundError:
         raise ScenarioError(f"{path}: yield table file not found") from None
+    except OSError as exc:
+        raise ScenarioError(f"{path}: cannot read the yield table ({exc.strerror})") from None
+    except UnicodeDecodeError as exc:  # (a byte-order mark, as spreadsheets write, is read)
+        line = data.count(b"\n", 0, exc.start) + 1
+        raise ScenarioError(
+            f"{path}: not UTF-8 text: byte 0x{data[exc.start]:02x} at position {exc.start} "
+            f"(line {line}); save it as UTF-8"
+        ) from None
     need = ("age_years", "volume_m3_ha")
     if not rows or any(col not in rows[0] for col in need):
         have = ", ".join(rows[0]) if rows else "no rows"

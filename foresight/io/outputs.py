@@ -35,8 +35,8 @@ def check_output_dir(out: Path, managed: frozenset[str]) -> None:
 
     A non-empty directory is replaced only if it holds nothing but what an earlier run wrote
     (see :func:`_not_written_by_a_run`; ``managed`` names the entries foresight writes). The
-    staged copy is made beside ``out``,
-    so its parent (or the nearest ancestor that exists) must take new entries.
+    staged copy is made beside ``out``, so its parent (or the nearest ancestor that exists)
+    must take new entries.
     """
     target = _target(out)
     if _exists(target, out):
@@ -209,7 +209,10 @@ def staged_output(out: Path, managed: frozenset[str]) -> Iterator[Path]:
     try:
         umask = os.umask(0)
         os.umask(umask)
-        tmp.chmod(0o777 & ~umask)  # mkdtemp makes it private; results are for sharing
+        try:
+            tmp.chmod(0o777 & ~umask)  # mkdtemp makes it private; results are for sharing
+        except OSError:
+            pass  # a file system without modes (FAT on a USB stick refuses them): as it is
         yield tmp
         check_output_dir(out, managed)  # again: something may have been put there meanwhile
         with signals_held():  # an interrupt now waits until the output is whole in place

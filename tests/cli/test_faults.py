@@ -758,3 +758,67 @@ def test_the_cache_keeps_no_part_of_an_entry_after_a_fault(tmp_path, monkeypatch
     arrays, hit = cache.cached_arrays("graph", source, "", lambda: {"a": np.arange(3)})
     assert not hit and arrays["a"].tolist() == [0, 1, 2]
     assert list((tmp_path / "cache").iterdir()) == []
+
+
+TABLE = "age_years,volume_m3_ha\n0,0\n20,40\n40,150\n60,260\n80,320\n100,350\n"
+
+
+def table_scenario(tmp_path, layer, table_csv):
+    raw = scenario_dict(layer)
+    raw["species"]["pine"] = {
+        "curve": "table",
+        "table_csv": str(table_csv),
+        "min_harvest_age": 60,
+        "site_index_min_m": 10.0,
+        "site_index_max_m": 30.0,
+    }
+    return write_scenario(tmp_path / "table.toml", raw)
+
+
+@pytest.mark.parametrize(
+    ("content", "pattern"),
+    [
+        (None, r"yield: cannot read the yield table \(Is a directory\)"),
+        (
+            TABLE.replace("60,260", "60,260 # \xe9").encode("latin-1"),
+            r"yield.csv: not UTF-8 text: byte 0xe9 at position \d+ \(line 5\); save it as UTF-8",
+        ),
+    ],
+)
+def test_a_yield_table_that_cannot_be_read(small_case, capsys, content, pattern):
+    tmp_path, layer, _ = small_case
+    if content is None:
+        (tmp_path / "yield").mkdir()
+        table_csv = tmp_path / "yield"
+    else:
+        table_csv = tmp_path / "yield.csv"
+        table_csv.write_bytes(content)
+    scenario = table_scenario(tmp_path, layer, table_csv)
+    fails(capsys, ["run", str(scenario), "--out", str(tmp_path / "out")], pattern)
+    nothing_left(tmp_path, tmp_path / "out")
+
+
+def test_a_yield_table_saved_with_a_byte_order_mark_is_read(small_case, capsys):
+    # spreadsheets save "CSV UTF-8" with EF BB BF first, which is not part of the first column
+    tmp_path, layer, _ = small_case
+    (tmp_path / "yield.csv").write_bytes(b"\xef\xbb\xbf" + TABLE.encode())
+    assert main(["check", str(table_scenario(tmp_path, layer, tmp_path / "yield.csv"))]) == 0
+
+
+def test_fit_on_a_folder(tmp_path, capsys):
+    fails(
+        capsys, ["fit", str(tmp_path)], rf"{re.escape(str(tmp_path))}: cannot read the points file"
+    )
+
+
+def test_a_file_system_that_refuses_modes(small_case, monkeypatch):
+    # FAT (a USB stick) mounted with a mask refuses chmod with EPERM; the output is written
+    tmp_path, _, scenario = small_case
+
+    def refuse(self, mode):
+        raise PermissionError(errno.EPERM, os.strerror(errno.EPERM), str(self))
+
+    monkeypatch.setattr(Path, "chmod", refuse)
+    assert main(["run", str(scenario), "--out", str(tmp_path / "out"), "-q"]) == 0
+    assert (tmp_path / "out" / "run.json").is_file()
+    nothing_left(tmp_path)
