@@ -867,11 +867,22 @@ def load_scenario(path: str | Path, overrides: Sequence[str] = ()) -> Scenario:
     """Read a scenario TOML file, apply ``section.key=value`` overrides, and check every key."""
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8")
+        data = path.read_bytes()
     except FileNotFoundError:
         raise ScenarioError(f"{path}: scenario file not found") from None
     except OSError as exc:
         raise ScenarioError(f"{path}: cannot read the scenario file ({exc.strerror})") from None
+    except ValueError:  # the file system takes no NUL byte in a path
+        raise ScenarioError(f"{str(path)!r}: the scenario file's path holds a NUL byte") from None
+    try:
+        text = data.decode("utf-8-sig")  # TOML is UTF-8; some editors put a byte-order mark first
+    except UnicodeDecodeError as exc:
+        line = data.count(b"\n", 0, exc.start) + 1
+        utf16 = data[:2] in (b"\xff\xfe", b"\xfe\xff")
+        raise ScenarioError(
+            f"{path}: not UTF-8 text: byte 0x{data[exc.start]:02x} at position {exc.start} "
+            f"(line {line}){' (the file is UTF-16)' if utf16 else ''}; save it as UTF-8"
+        ) from None
     try:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -880,6 +891,23 @@ def load_scenario(path: str | Path, overrides: Sequence[str] = ()) -> Scenario:
         apply_override(raw, item)
     where = _Where(str(path))
     where.overrides = {item.partition("=")[0].strip(): item for item in overrides}
+    found: list[tuple[str, Any]] = [("", raw)]
+    while found:  # a NUL byte in any text; in a path it would reach the file system
+        key, value = found.pop()
+        if isinstance(value, dict):
+            found += [(f"{key}.{k}" if key else str(k), v) for k, v in value.items()]
+        elif isinstance(value, list):
+            found += [(f"{key}[{i}]", v) for i, v in enumerate(value)]
+        elif isinstance(value, str):
+            fault = "holds a NUL byte, which no path or name may hold" if "\0" in value else ""
+            try:
+                value.encode("utf-8")
+            except UnicodeEncodeError:  # bytes of another encoding in a --set argument
+                fault = "is not UTF-8 text"
+            if fault:
+                sect, _, name = key.rpartition(".")
+                at = where.at(sect, name).replace("\0", "\\x00")  # a --set item holds it too
+                raise ScenarioError(f"{at}: {key} = {value!r}: {fault}")
     return parse_scenario(
         raw,
         base_dir=path.resolve().parent,
@@ -1408,10 +1436,18 @@ def _read_table_csv(
     """Read a yield table CSV: age_years, volume_m3_ha and optionally site_index_m (long form)."""
     # A yield table is a small text file named by the scenario, so it is read with the scenario.
     try:
-        with path.open(newline="", encoding="utf-8") as fh:
-            rows = list(csv.DictReader(fh))
+        data = path.read_bytes()
+        rows = list(csv.DictReader(data.decode("utf-8-sig").splitlines()))
     except FileNotFoundError:
         raise ScenarioError(f"{path}: yield table file not found") from None
+    except OSError as exc:
+        raise ScenarioError(f"{path}: cannot read the yield table ({exc.strerror})") from None
+    except UnicodeDecodeError as exc:  # (a byte-order mark, as spreadsheets write, is read)
+        line = data.count(b"\n", 0, exc.start) + 1
+        raise ScenarioError(
+            f"{path}: not UTF-8 text: byte 0x{data[exc.start]:02x} at position {exc.start} "
+            f"(line {line}); save it as UTF-8"
+        ) from None
     need = ("age_years", "volume_m3_ha")
     if not rows or any(col not in rows[0] for col in need):
         have = ", ".join(rows[0]) if rows else "no rows"

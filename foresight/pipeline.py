@@ -29,6 +29,7 @@ from foresight.growth.rules import max_mai
 from foresight.inventory import CheckReport, prepare_inventory
 from foresight.io.cache import cached_arrays
 from foresight.io.outputs import (
+    check_files_dir,
     check_output_dir,
     read_run,
     replace_file,
@@ -58,6 +59,7 @@ from foresight.publish import (
     CURVES_CSV,
     FIGURES_DIR,
     MANAGED,
+    RUN_JSON,
     dominant_sites,
     figure_age,
     write_outputs,
@@ -300,14 +302,12 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
     for name, _, _ in scenario.sensitivity:
         if name in MANAGED:
             raise InputError(f"[[sensitivity]] name {name!r} is the name of an output file")
-    managed = MANAGED | {name for name, _, _ in scenario.sensitivity}
     if out is not None:
-        check_output_dir(out, managed)  # before the long stages, not after
+        check_output_dir(out, MANAGED)  # before the long stages, not after
     with _captured_log() as capture:
         result = _project(scenario, strict)
         result.out_dir, result.log = out, capture.lines
         result.warnings = tuple(capture.warnings)  # this run's own, not its cases'
-
         base = flatten(scenario.to_dict())
         for n, (name, sets, case) in enumerate(scenario.sensitivity, start=1):
             if flatten(case.to_dict()) == base:
@@ -321,7 +321,7 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
             with _named_lines(f"case {name!r}: "):
                 result.cases[name] = run(case, None, strict=strict)
         if out is not None:
-            with staged_output(out, managed) as tmp:
+            with staged_output(out, MANAGED) as tmp:
                 log.info("write outputs ...")
                 write_outputs(result, scenario, tmp)
     return result
@@ -892,22 +892,22 @@ def curves(
     Files go into ``out_dir`` one by one, each written to a temporary name and moved into
     place, so the report can sit beside a run's outputs without touching them.
     """
+    out = Path(out_dir) if out_dir is not None else None
+    if out is not None:
+        check_files_dir(out)
     inventory = check(scenario)
     with _Timer().stage("curves report"):
         table, summaries = curves_table(scenario, inventory.stands, site_step_m)
     files: list[Path] = []
-    if out_dir is not None:
-        out = Path(out_dir)
-        if out.exists() and not out.is_dir():
-            raise OutputError(f"--out {out}: exists and is not a directory")
-        replace_file(out / CURVES_CSV, lambda p: table.to_csv(p, index=False))
+    if out is not None:
+        replace_file(out / CURVES_CSV, lambda p: table.to_csv(p, index=False), out)
         files.append(out / CURVES_CSV)
         for code, main in dominant_sites(table, summaries).items():
             path = out / FIGURES_DIR / f"curves_{code}.png"
             curve = curve_from_config(scenario.species[code])
             age = figure_age(main, scenario.growth.max_age_years)
             replace_file(
-                path, lambda p, c=code, cv=curve, m=main, a=age: curve_figure(p, c, cv, m, a)
+                path, lambda p, c=code, cv=curve, m=main, a=age: curve_figure(p, c, cv, m, a), out
             )
             files.append(path)
     return CurvesResult(table, curve_notes(table), files)
@@ -916,14 +916,18 @@ def curves(
 def compare(run_dirs: list[str | Path], out_dir: str | Path) -> pd.DataFrame:
     """Compare foresight runs: ``OUT/comparison.csv`` (one row per run) and the overlay
     figure ``OUT/comparison.png``; each file is written to a temporary name first."""
+    out = Path(out_dir)
+    check_files_dir(out)
+    if (out / RUN_JSON).exists():
+        raise OutputError(
+            f"--out {out}: holds a foresight run ({RUN_JSON}), whose own {COMPARISON_CSV} the "
+            "comparison would replace; choose another directory"
+        )
     runs = []
     for d in map(Path, run_dirs):
         rec, wf = read_run(d)
         runs.append((str(d), rec, wf))
     table = comparison_table(runs)
-    out = Path(out_dir)
-    if out.exists() and not out.is_dir():
-        raise OutputError(f"--out {out}: exists and is not a directory")
-    replace_file(out / COMPARISON_CSV, lambda p: table.to_csv(p, index=False))
-    replace_file(out / COMPARISON_PNG, lambda p: comparison_figure(p, runs))
+    replace_file(out / COMPARISON_CSV, lambda p: table.to_csv(p, index=False), out)
+    replace_file(out / COMPARISON_PNG, lambda p: comparison_figure(p, runs), out)
     return table

@@ -132,6 +132,8 @@ def write_outputs(
         (directory / REPORT_MD).write_text(markdown_report(data), encoding="utf-8")
     result.timings_s["write outputs"] = round(time.perf_counter() - t0, 4)
     record["timings_s"] = result.timings_s
+    # what this run wrote, so that a later run may replace it all (io.outputs.check_output_dir)
+    record["outputs"] = sorted({p.name for p in directory.iterdir()} | {RUN_JSON, RUN_LOG})
     write_json(directory / RUN_JSON, record)
     if case is None:  # once for the whole output: the cases' writes are part of it
         log.info("write outputs done in %.2f s", result.timings_s["write outputs"])

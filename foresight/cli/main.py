@@ -1,16 +1,21 @@
 """Entry point: parse, call the library once, map errors to exit codes.
 
-Exit codes: 0 success, 2 bad input (a message naming file, layer, field, row or key), 1 an
-unexpected error (a bug: the traceback is printed).
+Exit codes: 0 success, 2 bad input or an output location that cannot be used (a message naming
+file, layer, field, row, key or path), 1 an unexpected error (a bug: the traceback is printed),
+130 interrupted by SIGINT (Ctrl-C) and 143 by SIGTERM (nothing written).
 """
 
 from __future__ import annotations
 
 import argparse
+import io
 import logging
+import signal
 import sys
+import threading
 import traceback
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
+from contextlib import contextmanager
 
 from foresight.cli import check as check_cmd
 from foresight.cli import compare as compare_cmd
@@ -21,6 +26,7 @@ from foresight.errors import InputError
 from foresight.versions import library_versions
 
 EXIT_OK, EXIT_BUG, EXIT_INPUT = 0, 1, 2
+EXIT_SIGINT, EXIT_SIGTERM = 128 + signal.SIGINT, 128 + signal.SIGTERM
 
 
 def _version_text() -> str:
@@ -77,6 +83,27 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+class Terminated(KeyboardInterrupt):
+    """SIGTERM, raised where the program is, so that it takes the way out of Ctrl-C: staged
+    output removed, a message, exit code 128 + 15."""
+
+
+def _terminate(signum: int, frame: object) -> None:
+    raise Terminated
+
+
+@contextmanager
+def _sigterm_as_interrupt() -> Iterator[None]:
+    if threading.current_thread() is not threading.main_thread():
+        yield  # only the main thread may set handlers (main() called from a worker thread)
+        return
+    previous = signal.signal(signal.SIGTERM, _terminate)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+
+
 def _setup_logging(verbose: int, quiet: bool) -> None:
     level = logging.ERROR if quiet else (logging.DEBUG if verbose > 1 else logging.INFO)
     handler = logging.StreamHandler(sys.stderr)
@@ -89,17 +116,28 @@ def _setup_logging(verbose: int, quiet: bool) -> None:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
+    for stream in (sys.stdout, sys.stderr):  # a path in another encoding is shown, escaped
+        if isinstance(stream, io.TextIOWrapper):
+            stream.reconfigure(errors="backslashreplace")
     parser = build_parser()
     args = parser.parse_args(argv)
     _setup_logging(args.verbose, args.quiet)
     try:
-        return int(args.handler(args))
+        with _sigterm_as_interrupt():
+            return int(args.handler(args))
     except InputError as exc:
         print(f"foresight: error: {exc}", file=sys.stderr)
         return EXIT_INPUT
-    except KeyboardInterrupt:
-        print("foresight: interrupted; no output was written", file=sys.stderr)
-        return 130
+    except KeyboardInterrupt as exc:
+        name, code = (
+            ("SIGTERM", EXIT_SIGTERM) if isinstance(exc, Terminated) else ("SIGINT", EXIT_SIGINT)
+        )
+        notes = getattr(exc, "__notes__", None)  # the output was in place before the signal
+        print(
+            f"foresight: interrupted ({name}); {notes[0] if notes else 'no output was written'}",
+            file=sys.stderr,
+        )
+        return code
     except Exception:  # a bug: show everything so it can be reported
         traceback.print_exc()
         print(

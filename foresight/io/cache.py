@@ -37,11 +37,16 @@ def cached_arrays(
         except (OSError, ValueError):
             pass  # a damaged entry is rebuilt
     arrays = build()
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.partial.npz")
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
-        tmp = path.with_name(f".{path.name}.{os.getpid()}.partial.npz")
         np.savez(tmp, **arrays)
         os.replace(tmp, path)
     except OSError:
         pass
+    finally:  # a full disk or an interrupt while saving leaves no part of an entry
+        try:
+            tmp.unlink(missing_ok=True)
+        except OSError:
+            pass
     return arrays, False

@@ -16,6 +16,8 @@ def read_points(path: Path) -> tuple[np.ndarray, np.ndarray]:
         frame = pd.read_csv(path)
     except FileNotFoundError:
         raise InputError(f"{path}: points file not found") from None
+    except OSError as exc:  # a folder, a file not readable
+        raise InputError(f"{path}: cannot read the points file ({exc.strerror})") from None
     except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
         raise InputError(f"{path}: not a readable CSV ({exc})") from None
     for col in ("age_years", "volume_m3_ha"):

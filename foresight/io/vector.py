@@ -25,6 +25,13 @@ def read_layer(
     if not path.exists():
         raise InventoryError(f"{path}: {what} file not found")
     try:
+        str(path).encode("utf-8")
+    except UnicodeEncodeError:  # bytes of another encoding in a file or folder name
+        raise InventoryError(
+            f"{str(path)!r}: the {what}'s path is not UTF-8, and GDAL reads UTF-8 paths only; "
+            "rename the file or its folder"
+        ) from None
+    try:
         layers = [str(name) for name in pyogrio.list_layers(path)[:, 0]]
     except (DataSourceError, OSError) as exc:
         raise InventoryError(f"{path}: not a vector file GDAL can read ({exc})") from None

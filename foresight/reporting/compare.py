@@ -55,7 +55,9 @@ def comparison_table(runs: list[tuple[str, dict, pd.DataFrame]]) -> pd.DataFrame
                 **terms,
                 "total_harvest_m3": float(wf["harvest_m3"].sum()),
                 "ending_stock_ratio": flow["ending_growing_stock_m3"]
-                / flow["initial_growing_stock_m3"],
+                / flow["initial_growing_stock_m3"]
+                if flow["initial_growing_stock_m3"] > 0
+                else np.nan,  # bare land at the start, as indicators.ending_to_initial_...
                 "harvestable_ha": rec["inventory"].get("harvestable_ha", np.nan),
                 "ltsy_m3_per_year": ltsy.get("at_culmination", np.nan),
                 "lp_gap": lp.get("gap_of_schedule_to_lp", np.nan),
