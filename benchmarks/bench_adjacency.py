@@ -13,11 +13,11 @@ import time
 import numpy as np
 import shapely
 
-from foresight.adjacency import build_adjacency
-from foresight.growth import ChapmanRichards
-from foresight.projection import CurveSet, Periods, StandArrays
-from foresight.schedule import find_even_flow
-from foresight.schedule.spatial import SpatialRules
+from yieldscape.adjacency import build_adjacency
+from yieldscape.growth import ChapmanRichards
+from yieldscape.projection import CurveSet, Periods, StandArrays
+from yieldscape.schedule import find_even_flow
+from yieldscape.schedule.spatial import SpatialRules
 
 
 def voronoi_stands(n: int, seed: int = 3) -> np.ndarray:

@@ -1,5 +1,5 @@
 """Time yield-curve evaluation for 1M stands x 21 period boundaries, per family, and the
-`foresight curves` report on the sample region.
+`yieldscape curves` report on the sample region.
 
     python benchmarks/bench_curves.py
 """
@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
-from foresight.growth import (
+from yieldscape.growth import (
     ChapmanRichards,
     GompertzYield,
     LogisticYield,
@@ -23,7 +23,7 @@ from foresight.growth import (
     StockGrowth,
     TableYield,
 )
-from foresight.projection import CurveSet
+from yieldscape.projection import CurveSet
 
 N, P = 1_000_000, 21
 SITE = SiteScaling(20.0, 1.0, 0.3)
@@ -82,7 +82,7 @@ def main() -> None:
             [
                 sys.executable,
                 "-m",
-                "foresight.cli.main",
+                "yieldscape.cli.main",
                 "curves",
                 str(scenario),
                 "--out",
@@ -92,7 +92,7 @@ def main() -> None:
             check=True,
         )
         print(
-            f"foresight curves on the sample region: {time.perf_counter() - t0:.2f} s "
+            f"yieldscape curves on the sample region: {time.perf_counter() - t0:.2f} s "
             "(whole command, with start-up)"
         )
 

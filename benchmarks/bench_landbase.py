@@ -1,7 +1,7 @@
 """Time the land base netdown: 100k stands against 20k stream segments and a 10k x 10k raster.
 
 Builds a synthetic region (square stands of 6.25 ha, random meandering stream segments with
-three classes, a smooth slope raster of 10,000 x 10,000 cells), then times `foresight.check`
+three classes, a smooth slope raster of 10,000 x 10,000 cells), then times `yieldscape.check`
 with and without the netdown steps; the difference is the netdown.
 
     python benchmarks/bench_landbase.py [--stands 100000] [--segments 20000] [--cells 10000]
@@ -86,8 +86,8 @@ def build(tmp: Path, n: int, segments: int, cells: int) -> tuple[Path, Path, Pat
 def main() -> None:
     import tomllib
 
-    import foresight
-    from foresight.config import apply_override, parse_scenario
+    import yieldscape
+    from yieldscape.config import apply_override, parse_scenario
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--stands", type=int, default=100_000)
@@ -136,10 +136,10 @@ def main() -> None:
         apply_override(raw, f"landbase.steps={toml_steps}")
         scn1 = parse_scenario(raw, base_dir=SCENARIO.parent)
         t0 = time.perf_counter()
-        foresight.check(scn0)
+        yieldscape.check(scn0)
         t_plain = time.perf_counter() - t0
         t0 = time.perf_counter()
-        res = foresight.check(scn1)
+        res = yieldscape.check(scn1)
         t_net = time.perf_counter() - t0
         peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024**2
         print(res.netdown.table.to_string(index=False))

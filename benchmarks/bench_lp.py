@@ -10,9 +10,9 @@ import time
 
 import numpy as np
 
-from foresight.growth import ChapmanRichards, SiteScaling
-from foresight.projection import CurveSet, Periods, StandArrays
-from foresight.schedule.lp import make_strata, solve_lp
+from yieldscape.growth import ChapmanRichards, SiteScaling
+from yieldscape.projection import CurveSet, Periods, StandArrays
+from yieldscape.schedule.lp import make_strata, solve_lp
 
 
 def main() -> None:

@@ -2,7 +2,7 @@
 
 Each size runs in its own process (so peak memory is per size): it builds a grid of square
 stands (1-30 ha, shared edges) with random species, site index and ages, writes it as a
-GeoPackage, then runs ``foresight.run`` on it (the sample's species and rules, aspatial, no
+GeoPackage, then runs ``yieldscape.run`` on it (the sample's species and rules, aspatial, no
 cover targets, no LP bound, no sensitivity cases) and reports its stage timings: reading and
 checking, the projection and even-flow scheduling, building the output tables, the indicators,
 and writing every output (GeoPackage with its map layers, CSV, figures, report). Prints one
@@ -62,7 +62,7 @@ def synthetic_scenario(gpkg: Path, n: int):
     """The sample scenario's species, curves and rules over a synthetic layer, no netdown."""
     import tomllib
 
-    from foresight.config import parse_scenario
+    from yieldscape.config import parse_scenario
 
     raw = tomllib.loads(SCENARIO.read_text())
     raw["inventory"]["path"] = str(gpkg)
@@ -76,14 +76,14 @@ def synthetic_scenario(gpkg: Path, n: int):
 
 
 def one_size(n: int) -> dict:
-    import foresight
+    import yieldscape
 
     with tempfile.TemporaryDirectory(dir=HERE) as tmp:
         tmp = Path(tmp)
         gpkg = tmp / "region.gpkg"
         build_region(n, gpkg)
         scn = synthetic_scenario(gpkg, n)
-        result = foresight.run(scn, tmp / "out")
+        result = yieldscape.run(scn, tmp / "out")
         st = result.timings_s
         t = {
             "read_check_s": st["read and check inventory"],

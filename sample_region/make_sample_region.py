@@ -1,4 +1,4 @@
-"""Generate the sample region "Norrowmere" used by foresight's demo and tests.
+"""Generate the sample region "Norrowmere" used by yieldscape's demo and tests.
 
 Norrowmere is an invented region: its outline, stands, terrain, streams,
 reserves and attributes are all made up by this script, and none of it
@@ -17,7 +17,7 @@ smoothed random blob):
   than 1 ha and less than 80 ha; the stands form a clean coverage (no gaps or
   overlaps inside the outline, and neighbours share exactly the same vertices
   along common edges). Attribute fields are named differently from
-  foresight's own names, so that a scenario's field mapping is exercised:
+  yieldscape's own names, so that a scenario's field mapping is exercised:
 
   ``STAND_NO`` int, unique 1..N, numbered in north-to-south rows, west to east;
   ``SPP``      species code: spruce / pine / fir / aspen (about 40/30/20/10 %

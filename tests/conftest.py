@@ -32,4 +32,4 @@ if os.environ.get("CI"):
 @pytest.fixture(autouse=True, scope="session")
 def _private_cache(tmp_path_factory):
     """Keep the tests' adjacency cache out of the user's cache directory."""
-    os.environ["FORESIGHT_CACHE_DIR"] = str(tmp_path_factory.mktemp("cache"))
+    os.environ["YIELDSCAPE_CACHE_DIR"] = str(tmp_path_factory.mktemp("cache"))

@@ -142,7 +142,7 @@ def write_scenario(path: Path, raw: dict[str, Any]) -> Path:
 
 def gap_forest(n: int = 120, seed: int = 4):
     """StandArrays of one species with an old-forest surplus and an age gap (as the sample)."""
-    from foresight.projection import StandArrays
+    from yieldscape.projection import StandArrays
 
     rng = np.random.default_rng(seed)
     ages = np.where(rng.random(n) < 0.6, rng.uniform(90, 160, n), rng.uniform(0, 30, n))

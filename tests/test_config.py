@@ -5,9 +5,9 @@ from pathlib import Path
 
 import pytest
 
-from foresight import load_scenario
-from foresight.config import KEYS, Range
-from foresight.errors import ScenarioError
+from yieldscape import load_scenario
+from yieldscape.config import KEYS, Range
+from yieldscape.errors import ScenarioError
 
 from helpers import scenario_dict, write_scenario
 

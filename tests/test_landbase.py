@@ -13,10 +13,10 @@ import rasterio.warp
 import shapely
 from rasterio.transform import from_origin
 
-import foresight
-from foresight.cli.main import main
-from foresight.io.rasters import RasterData
-from foresight.zonal import zonal
+import yieldscape
+from yieldscape.cli.main import main
+from yieldscape.io.rasters import RasterData
+from yieldscape.zonal import zonal
 
 from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
 
@@ -50,7 +50,7 @@ def layer_case(tmp_path, geoms, steps, attrs=None, extra_layers=()):
         pyogrio.write_dataframe(frame, gpkg, layer=name, append=True)
     raw = scenario_dict(gpkg)
     raw["landbase"] = {"steps": steps}
-    return foresight.load_scenario(write_scenario(tmp_path / "s.toml", raw))
+    return yieldscape.load_scenario(write_scenario(tmp_path / "s.toml", raw))
 
 
 def lines(geoms, **attrs):
@@ -70,7 +70,7 @@ def test_stream_buffer_removes_two_w_l(tmp_path):
         [{"label": "streams", "layer": "stands.gpkg", "layer_name": "streams", "buffer_m": w}],
         extra_layers=[("streams", lines([crossing], CLASS=[1]))],
     )
-    res = foresight.check(scn)
+    res = yieldscape.check(scn)
     assert res.netdown.removed_ha[0, 0] == pytest.approx(2 * w * 400 / 1e4, rel=1e-9)
     # a stream that stops 100 m inside the stand: 2 w 100 plus one end cap
     half = shapely.LineString([(X0 - 50, Y0 + 100), (X0 + 100, Y0 + 100)])
@@ -82,7 +82,7 @@ def test_stream_buffer_removes_two_w_l(tmp_path):
         extra_layers=[("streams", lines([half], CLASS=[1]))],
     )
     cap = math.pi * w**2 / 2 * (32 / (2 * math.pi)) * math.sin(2 * math.pi / 32)
-    got = foresight.check(scn).netdown.removed_ha[0, 0]
+    got = yieldscape.check(scn).netdown.removed_ha[0, 0]
     assert got == pytest.approx((2 * w * 100 + cap) / 1e4, rel=1e-6)
 
 
@@ -110,7 +110,7 @@ def test_reserve_inside_removes_its_area_and_buffer_by_class(tmp_path):
         ],
         extra_layers=[("reserves", lines([reserve], RID=[1])), ("streams", streams)],
     )
-    res = foresight.check(scn)
+    res = yieldscape.check(scn)
     assert res.netdown.removed_ha[0].tolist() == pytest.approx([0.8, 0, 0, 0])
     # riparian: the big stream (20 m each side, 400 m long) along the shared edge splits
     # 2 x 20 x 400 m2 between the stands; the small one crosses the upper stands (5 m, 400 m)
@@ -141,7 +141,7 @@ def _mixed_case(tmp_path, order):
         attrs=attrs,
         extra_layers=[("reserves", lines([reserve], RID=[1]))],
     )
-    return foresight.check(scn)
+    return yieldscape.check(scn)
 
 
 @pytest.mark.parametrize("order", list(itertools.permutations(["rule", "reserve", "slope"])))
@@ -190,7 +190,7 @@ def test_zonal_mean_matches_point_sampling():
 
 
 def test_raster_in_another_crs_matches_a_prewarped_raster(tmp_path):
-    # A raster in EPSG:3035 used directly (foresight reprojects the stands) gives the values
+    # A raster in EPSG:3035 used directly (yieldscape reprojects the stands) gives the values
     # of the same raster warped to the stands' CRS beforehand with rasterio.warp.
     stands = list(squares(9, side_m=300.0, per_row=3))
     src_crs, dst_crs = "EPSG:3035", "EPSG:32633"
@@ -221,8 +221,8 @@ def test_raster_in_another_crs_matches_a_prewarped_raster(tmp_path):
         gpkg = write_layer(tmp_path / "st.gpkg", stands, attrs)
         raw = scenario_dict(gpkg)
         raw["inventory"]["from_raster"] = {"site_index": name}
-        scn = foresight.load_scenario(write_scenario(tmp_path / f"{name}.toml", raw))
-        return foresight.check(scn).stands["site_index"].to_numpy()
+        scn = yieldscape.load_scenario(write_scenario(tmp_path / f"{name}.toml", raw))
+        return yieldscape.check(scn).stands["site_index"].to_numpy()
 
     direct, warped = site_values("si_3035.tif"), site_values("si_32633.tif")
     # within what one cell of the smooth field changes (|grad| * cell)
@@ -243,7 +243,7 @@ def test_harvested_area_never_exceeds_harvestable(tmp_path):
         attrs=attrs,
         extra_layers=[("streams", streams)],
     )
-    res = foresight.run(scn, None)
+    res = yieldscape.run(scn, None)
     h = res.harvests.groupby(["stand_id", "period"])["area_ha"].sum().reset_index()
     limit = res.stands.set_index("stand_id")["harvestable_ha"]
     assert (h["area_ha"].to_numpy() <= limit.loc[h["stand_id"]].to_numpy() * (1 + 1e-9)).all()
@@ -307,9 +307,9 @@ def test_partial_raster_cover_is_a_warning(tmp_path, caplog):
     gpkg = write_layer(tmp_path / "stands.gpkg", list(squares(4)), stand_attrs(4, ages=80))
     raw = scenario_dict(gpkg)
     raw["landbase"] = {"steps": [{"label": "steep", "raster": "slope.tif", "above": 40}]}
-    scn = foresight.load_scenario(write_scenario(tmp_path / "s.toml", raw))
-    with caplog.at_level("WARNING", logger="foresight"):
-        res = foresight.check(scn)
+    scn = yieldscape.load_scenario(write_scenario(tmp_path / "s.toml", raw))
+    with caplog.at_level("WARNING", logger="yieldscape"):
+        res = yieldscape.check(scn)
     assert "2 stands are not covered by slope.tif" in caplog.text
     np.testing.assert_allclose(res.netdown.harvestable_ha, [0, 0, 1, 1])
 
@@ -322,13 +322,13 @@ def test_site_index_raster_fills_gaps_or_wins(tmp_path):
     gpkg = write_layer(tmp_path / "stands.gpkg", list(squares(4)), attrs)
     raw = scenario_dict(gpkg)
     raw["inventory"]["from_raster"] = {"site_index": "si.tif"}
-    scn = foresight.load_scenario(write_scenario(tmp_path / "a.toml", raw))
-    stands = foresight.check(scn).stands
+    scn = yieldscape.load_scenario(write_scenario(tmp_path / "a.toml", raw))
+    stands = yieldscape.check(scn).stands
     assert stands["site_index"].tolist() == [18.0, 25.0, 20.0, 25.0]
     assert stands["site_index_source"].tolist() == ["layer", "raster", "layer", "raster"]
     raw["inventory"]["raster_wins"] = True
-    scn = foresight.load_scenario(write_scenario(tmp_path / "b.toml", raw))
-    assert foresight.check(scn).stands["site_index"].tolist() == [25.0] * 4
+    scn = yieldscape.load_scenario(write_scenario(tmp_path / "b.toml", raw))
+    assert yieldscape.check(scn).stands["site_index"].tolist() == [25.0] * 4
 
 
 def test_stand_wholly_inside_a_reserve_leaves_nothing(tmp_path, caplog):
@@ -344,7 +344,7 @@ def test_stand_wholly_inside_a_reserve_leaves_nothing(tmp_path, caplog):
         ],
         extra_layers=[("reserves", lines([reserve], RID=[1]))],
     )
-    with caplog.at_level("WARNING", logger="foresight"):
-        res = foresight.check(scn)
+    with caplog.at_level("WARNING", logger="yieldscape"):
+        res = yieldscape.check(scn)
     assert res.netdown.harvestable_ha.tolist() == [0.0, 1.0]
     assert "not covered" not in caplog.text

@@ -4,7 +4,7 @@ growth, config, errors (house style). A module may not import from a layer above
 import ast
 from pathlib import Path
 
-PKG = Path(__file__).resolve().parents[1] / "foresight"
+PKG = Path(__file__).resolve().parents[1] / "yieldscape"
 LAYER = {
     "errors": 0,
     "_version": 0,
@@ -38,7 +38,7 @@ def test_no_module_imports_upward():
     for path in PKG.rglob("*.py"):
         rel = path.relative_to(PKG.parent).with_suffix("")
         mod = ".".join(rel.parts).removesuffix(".__init__")
-        mine = _layer_of(mod) if mod != "foresight" else LAYER["__init__"]
+        mine = _layer_of(mod) if mod != "yieldscape" else LAYER["__init__"]
         for node in ast.walk(ast.parse(path.read_text())):
             names = []
             if isinstance(node, ast.ImportFrom) and node.module:
@@ -46,8 +46,8 @@ def test_no_module_imports_upward():
             elif isinstance(node, ast.Import):
                 names = [a.name for a in node.names]
             for name in names:
-                if name == "foresight" or name.startswith("foresight."):
-                    theirs = _layer_of(name) if name != "foresight" else LAYER["__init__"]
+                if name == "yieldscape" or name.startswith("yieldscape."):
+                    theirs = _layer_of(name) if name != "yieldscape" else LAYER["__init__"]
                     if theirs > mine:
                         problems.append(f"{mod} imports {name}")
     assert not problems, problems

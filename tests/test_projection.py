@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from foresight.growth import (
+from yieldscape.growth import (
     ChapmanRichards,
     GompertzYield,
     LogisticYield,
@@ -12,7 +12,7 @@ from foresight.growth import (
     StockGrowth,
     TableYield,
 )
-from foresight.projection import CurveSet
+from yieldscape.projection import CurveSet
 
 SITE = SiteScaling(20.0, 1.1, 0.4)
 CURVES = [

@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 import shapely
 
-import foresight.zonal as zonal
+import yieldscape.zonal as zonal
 
 
 @pytest.fixture

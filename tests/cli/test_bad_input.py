@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 import shapely
 
-from foresight.cli.main import main
+from yieldscape.cli.main import main
 
 from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
 
@@ -87,7 +87,7 @@ def test_bad_inventory_exits_2_and_writes_nothing(tmp_path, capsys, name):
     assert main(["run", str(scenario), "--out", str(out)]) == 2
     err = capsys.readouterr().err
     assert "stands.gpkg, layer 'stands'" in err
-    errors = [line for line in err.splitlines() if line.startswith("foresight: error:")]
+    errors = [line for line in err.splitlines() if line.startswith("yieldscape: error:")]
     assert len(errors) == 1  # one paragraph, on one line
     assert re.search(pattern, errors[0]), err
     assert "Traceback" not in err
@@ -137,7 +137,7 @@ def test_missing_scenario_file_via_console_script(tmp_path):
         [
             sys.executable,
             "-m",
-            "foresight.cli.main",
+            "yieldscape.cli.main",
             "run",
             str(tmp_path / "none.toml"),
             "--out",
@@ -157,7 +157,7 @@ def test_never_deletes_a_users_files_in_an_earlier_output(tmp_path, capsys):
     assert main(["run", str(scenario), "--out", str(out), "-q"]) == 0
     (out / "my_notes.txt").write_text("keep me")
     assert main(["run", str(scenario), "--out", str(out)]) == 2
-    assert "holds files foresight did not write (my_notes.txt)" in capsys.readouterr().err
+    assert "holds files yieldscape did not write (my_notes.txt)" in capsys.readouterr().err
     assert (out / "my_notes.txt").read_text() == "keep me"
     assert (out / "projection.gpkg").is_file()  # the earlier result is untouched
 
@@ -168,5 +168,5 @@ def test_refuses_to_replace_a_foreign_directory(tmp_path, capsys):
     out.mkdir()
     (out / "notes.txt").write_text("keep me")
     assert main(["run", str(scenario), "--out", str(out)]) == 2
-    assert "not an earlier foresight output" in capsys.readouterr().err
+    assert "not an earlier yieldscape output" in capsys.readouterr().err
     assert (out / "notes.txt").read_text() == "keep me"

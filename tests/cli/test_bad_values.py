@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 import shapely
 
-from foresight.cli.main import main
+from yieldscape.cli.main import main
 
 from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
 
@@ -435,7 +435,7 @@ def test_bad_value_exits_2_names_it_and_writes_nothing(tmp_path, capsys, name):
     code = main(["run", str(scenario), "--out", str(out), *args])
     err = capsys.readouterr().err
     assert code == 2, err
-    errors = [line for line in err.splitlines() if line.startswith("foresight: error:")]
+    errors = [line for line in err.splitlines() if line.startswith("yieldscape: error:")]
     assert len(errors) == 1, err
     assert re.search(pattern, errors[0]), errors[0]
     assert "Traceback" not in err

@@ -1,4 +1,4 @@
-"""[[sensitivity]] cases in one run, and `foresight compare` on their outputs."""
+"""[[sensitivity]] cases in one run, and `yieldscape compare` on their outputs."""
 
 import json
 
@@ -7,8 +7,8 @@ import pandas as pd
 import pytest
 from PIL import Image
 
-from foresight.cli.main import main
-from foresight.errors import ScenarioError
+from yieldscape.cli.main import main
+from yieldscape.errors import ScenarioError
 
 from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
 
@@ -76,12 +76,12 @@ def test_a_run_with_cases_logs_no_line_twice_and_names_each_cases_lines(tmp_path
     # one verdict for the base, and one for each case that names it
     verdicts = [x for x in lines if "verdict: " in x]
     assert len(verdicts) == 1 + len(cases)
-    assert verdicts[0].startswith("foresight: verdict: ")
+    assert verdicts[0].startswith("yieldscape: verdict: ")
     for name, line in zip(cases, verdicts[1:], strict=True):
-        assert line.startswith(f"foresight: case {name!r}: verdict: ")
+        assert line.startswith(f"yieldscape: case {name!r}: verdict: ")
     # run.log holds the same lines (INFO and above), with a time stamp and a level
     logged = [x.split(" ", 3)[3] for x in (out / "run.log").read_text().splitlines()]
-    assert logged == [x.removeprefix("foresight: ") for x in lines]
+    assert logged == [x.removeprefix("yieldscape: ") for x in lines]
     # each case's own log names it too and holds its verdict once
     own = (out / "late" / "run.log").read_text().splitlines()
     assert sum("verdict: " in x for x in own) == 1
@@ -89,7 +89,7 @@ def test_a_run_with_cases_logs_no_line_twice_and_names_each_cases_lines(tmp_path
 
 
 def test_compare_prints_each_runs_verdict_and_its_figure_names_it(tmp_path, capsys, monkeypatch):
-    from foresight.reporting import figures
+    from yieldscape.reporting import figures
 
     # a regulated forest (six 10-year classes up to the rotation of 60 years) is sustainable
     # (tests/reporting/test_verdict.py); targets of twice its area-control yield are not
@@ -140,7 +140,7 @@ def test_compare_prints_each_runs_verdict_and_its_figure_names_it(tmp_path, caps
     ],
 )
 def test_bad_cases_are_named(tmp_path, case, match):
-    from foresight import load_scenario
+    from yieldscape import load_scenario
 
     with pytest.raises(ScenarioError, match=match):
         load_scenario(case_scenario(tmp_path, [case]))
@@ -149,4 +149,4 @@ def test_bad_cases_are_named(tmp_path, case, match):
 def test_compare_refuses_a_directory_that_is_not_a_run(tmp_path, capsys):
     (tmp_path / "notes").mkdir()
     assert main(["compare", str(tmp_path / "notes"), "--out", str(tmp_path / "c")]) == 2
-    assert "not a foresight output directory" in capsys.readouterr().err
+    assert "not a yieldscape output directory" in capsys.readouterr().err

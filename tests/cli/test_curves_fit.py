@@ -1,12 +1,12 @@
-"""`foresight curves` and `foresight fit` on real files."""
+"""`yieldscape curves` and `yieldscape fit` on real files."""
 
 import numpy as np
 import pandas as pd
 import pytest
 from PIL import Image
 
-from foresight.cli.main import main
-from foresight.growth import chapman_richards
+from yieldscape.cli.main import main
+from yieldscape.growth import chapman_richards
 
 from helpers import ROOT, scenario_dict, squares, stand_attrs, write_layer, write_scenario
 

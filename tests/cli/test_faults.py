@@ -18,8 +18,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from foresight.cli.main import main
-from foresight.publish import MANAGED
+from yieldscape.cli.main import main
+from yieldscape.publish import MANAGED
 
 from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
 
@@ -31,7 +31,7 @@ def fails(capsys, args, pattern, code=2):
     assert main(args) == code
     err = capsys.readouterr().err
     assert "Traceback" not in err, err
-    errors = [line for line in err.splitlines() if line.startswith("foresight: error:")]
+    errors = [line for line in err.splitlines() if line.startswith("yieldscape: error:")]
     assert len(errors) == 1, err
     assert re.search(pattern, errors[0]), err
     return err
@@ -176,7 +176,7 @@ def os_error(code):
 )
 def test_a_full_disk_says_so_and_leaves_nothing(small_case, capsys, monkeypatch, exc, pattern):
     tmp_path, _, scenario = small_case
-    monkeypatch.setattr("foresight.publish.write_figures", failing_writer(exc))
+    monkeypatch.setattr("yieldscape.publish.write_figures", failing_writer(exc))
     out = tmp_path / "new" / "out"  # its parent is made for the run, and removed again
     err = fails(capsys, ["run", str(scenario), "--out", str(out)], pattern)
     assert "nothing was written: free space or choose another --out" in err
@@ -188,9 +188,9 @@ def test_a_writer_failing_with_no_space_left_is_a_full_disk(small_case, capsys, 
     # GDAL reports some writes into a full disk as anything but that ("no such table")
     tmp_path, _, scenario = small_case
     boom = RuntimeError("sqlite3_exec(INSERT INTO gpkg_contents ...) failed: no such table")
-    monkeypatch.setattr("foresight.publish.write_figures", failing_writer(lambda d: boom))
+    monkeypatch.setattr("yieldscape.publish.write_figures", failing_writer(lambda d: boom))
     monkeypatch.setattr(
-        "foresight.io.outputs.shutil.disk_usage", lambda p: shutil._ntuple_diskusage(1, 1, 0)
+        "yieldscape.io.outputs.shutil.disk_usage", lambda p: shutil._ntuple_diskusage(1, 1, 0)
     )
     out = tmp_path / "out"
     fails(capsys, ["run", str(scenario), "--out", str(out)], r"no space left on device \(sqlite")
@@ -202,7 +202,7 @@ def test_a_writer_failing_with_no_space_left_is_a_full_disk(small_case, capsys, 
 )
 def test_other_faults_while_writing_name_the_file(small_case, capsys, monkeypatch, code, words):
     tmp_path, _, scenario = small_case
-    monkeypatch.setattr("foresight.publish.write_figures", failing_writer(os_error(code)))
+    monkeypatch.setattr("yieldscape.publish.write_figures", failing_writer(os_error(code)))
     out = tmp_path / "out"
     fails(
         capsys,
@@ -216,7 +216,7 @@ def test_other_faults_while_writing_name_the_file(small_case, capsys, monkeypatc
 def test_an_earlier_output_is_kept_whole_when_the_disk_fills(earlier, capsys, monkeypatch):
     tmp_path, scenario, out = earlier
     before = sorted(p.name for p in out.iterdir())
-    monkeypatch.setattr("foresight.publish.write_figures", failing_writer(os_error(errno.ENOSPC)))
+    monkeypatch.setattr("yieldscape.publish.write_figures", failing_writer(os_error(errno.ENOSPC)))
     fails(capsys, ["run", str(scenario), "--out", str(out)], r"no space left on device")
     assert sorted(p.name for p in out.iterdir()) == before
     nothing_left(tmp_path)
@@ -225,7 +225,7 @@ def test_an_earlier_output_is_kept_whole_when_the_disk_fills(earlier, capsys, mo
 def test_a_bug_while_writing_is_still_a_bug_and_leaves_nothing(small_case, capsys, monkeypatch):
     tmp_path, _, scenario = small_case
     bug = failing_writer(lambda d: TypeError("unsupported operand"))
-    monkeypatch.setattr("foresight.publish.write_figures", bug)
+    monkeypatch.setattr("yieldscape.publish.write_figures", bug)
     out = tmp_path / "out"
     assert main(["run", str(scenario), "--out", str(out)]) == 1
     assert "unexpected error (a bug)" in capsys.readouterr().err
@@ -243,7 +243,7 @@ def test_a_full_disk_in_curves_and_compare(small_case, capsys, monkeypatch, comm
         raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
 
     figure = {"curves": "curve_figure", "compare": "comparison_figure"}[command]
-    monkeypatch.setattr(f"foresight.pipeline.{figure}", full)
+    monkeypatch.setattr(f"yieldscape.pipeline.{figure}", full)
     out = tmp_path / "cmp"
     args = [str(scenario)] if command == "curves" else [str(tmp_path / "run")]
     png = "curves_pine.png" if command == "curves" else "comparison.png"
@@ -261,13 +261,13 @@ def test_a_full_disk_in_curves_and_compare(small_case, capsys, monkeypatch, comm
 # write until the signal comes (it marks the moment with a file), so the test does not race.
 HELD_WRITE = """
 import sys, time
-import foresight.publish as publish
+import yieldscape.publish as publish
 def held(result, scenario, figures):
     figures.mkdir(exist_ok=True)
     (figures / "writing").write_text("")
     time.sleep(120)
 publish.write_figures = held
-from foresight.cli.main import main
+from yieldscape.cli.main import main
 sys.exit(main(sys.argv[1:]))
 """
 
@@ -297,7 +297,7 @@ def test_a_signal_while_writing_leaves_nothing(small_case, sig, code, name):
     proc.send_signal(sig)
     _, err = proc.communicate(timeout=60)
     assert proc.returncode == code, err
-    assert f"foresight: interrupted ({name}); no output was written" in err
+    assert f"yieldscape: interrupted ({name}); no output was written" in err
     assert "Traceback" not in err
     nothing_left(tmp_path, out)
 
@@ -320,7 +320,7 @@ class _Signalled(Exception):
 def test_a_signal_while_moving_into_place_waits_until_the_output_is_whole(earlier, monkeypatch):
     # SIGTERM (here with a handler of the test's) arrives between the two moves of the
     # commit: it is held until the new output is in place and the earlier one removed.
-    from foresight.io import outputs
+    from yieldscape.io import outputs
 
     tmp_path, _, out = earlier
     rename = Path.rename
@@ -387,7 +387,7 @@ def test_output_written_before_runs_listed_theirs_is_replaced(earlier):
     [
         ("late/notes.txt", "late/notes.txt"),  # in a case's folder
         ("figures2/map.png", "figures2"),  # a folder of one's own
-        ("late2/run.json", "late2"),  # a folder with a run.json that foresight did not write
+        ("late2/run.json", "late2"),  # a folder with a run.json that yieldscape did not write
     ],
 )
 def test_a_users_file_among_an_earlier_runs_is_never_deleted(earlier, capsys, legacy, mine, named):
@@ -401,13 +401,13 @@ def test_a_users_file_among_an_earlier_runs_is_never_deleted(earlier, capsys, le
     fails(
         capsys,
         ["run", str(scenario), "--out", str(out)],
-        rf"holds files foresight did not write \({re.escape(named)}\)",
+        rf"holds files yieldscape did not write \({re.escape(named)}\)",
     )
     assert (out / mine).read_text() == "{}"
 
 
 @pytest.mark.parametrize("text", ["{not json", '{"a": 1}', "[]"])
-def test_an_earlier_output_whose_run_json_is_not_foresights_is_refused(small_case, capsys, text):
+def test_an_earlier_output_whose_run_json_is_not_yieldscapes_is_refused(small_case, capsys, text):
     tmp_path, _, scenario = small_case
     out = tmp_path / "results"
     out.mkdir()
@@ -416,7 +416,7 @@ def test_an_earlier_output_whose_run_json_is_not_foresights_is_refused(small_cas
     fails(
         capsys,
         ["run", str(scenario), "--out", str(out)],
-        r"holds no run.json foresight wrote, so it is not an earlier foresight output",
+        r"holds no run.json yieldscape wrote, so it is not an earlier yieldscape output",
     )
     assert (out / "wood_flow.csv").read_text() == "mine"
 
@@ -541,7 +541,7 @@ def test_an_out_that_is_the_scenarios_own_folder(small_case, capsys):
     fails(
         capsys,
         ["run", str(scenario), "--out", str(tmp_path)],
-        r"not empty and holds no run.json foresight wrote",
+        r"not empty and holds no run.json yieldscape wrote",
     )
     assert layer.is_file() and scenario.is_file()
     nothing_left(tmp_path)
@@ -592,7 +592,7 @@ def test_the_staged_folder_disappearing_while_writing(small_case, capsys, monkey
         shutil.rmtree(figures.parent)  # the staged folder, removed by someone else
         (figures.parent / "age.png").write_bytes(b"")
 
-    monkeypatch.setattr("foresight.publish.write_figures", gone)
+    monkeypatch.setattr("yieldscape.publish.write_figures", gone)
     out = tmp_path / "out"
     fails(
         capsys,
@@ -604,7 +604,7 @@ def test_the_staged_folder_disappearing_while_writing(small_case, capsys, monkey
 
 def test_the_parent_of_out_disappearing_during_the_run(small_case, monkeypatch):
     # checked at the start, removed while the run projects: it is made again for the output
-    from foresight import pipeline
+    from yieldscape import pipeline
 
     tmp_path, _, scenario = small_case
     (tmp_path / "runs").mkdir()
@@ -620,7 +620,7 @@ def test_the_parent_of_out_disappearing_during_the_run(small_case, monkeypatch):
 
 
 def test_a_file_put_into_the_earlier_output_while_writing_is_kept(earlier, capsys, monkeypatch):
-    from foresight import publish
+    from yieldscape import publish
 
     tmp_path, scenario, out = earlier
     figures = publish.write_figures
@@ -659,7 +659,7 @@ def test_compare_refuses_to_write_into_a_run(a_run, capsys):
     fails(
         capsys,
         ["compare", str(a_run), "--out", str(a_run)],
-        r"holds a foresight run \(run.json\), whose own comparison.csv the comparison would",
+        r"holds a yieldscape run \(run.json\), whose own comparison.csv the comparison would",
     )
     assert (a_run / "run.json").read_bytes() == before
     assert not (a_run / "comparison.png").exists()
@@ -680,11 +680,11 @@ def _set(key, value):
 @pytest.mark.parametrize(
     ("edit", "pattern"),
     [
-        (lambda rec: [rec], r"results/run.json: not a run.json that foresight wrote"),
-        (lambda rec: {"a": 1}, r"results/run.json: not a run.json that foresight wrote"),
+        (lambda rec: [rec], r"results/run.json: not a run.json that yieldscape wrote"),
+        (lambda rec: {"a": 1}, r"results/run.json: not a run.json that yieldscape wrote"),
         (_set("flow.level_m3_per_year", "89"), r"run.json: flow.level_m3_per_year is '89'"),
         (_set("scenario", None), r"run.json: scenario.scenario.name is missing"),
-        (_set("verdict", []), r"run.json: verdict is \[\]; the file is not as a foresight run"),
+        (_set("verdict", []), r"run.json: verdict is \[\]; the file is not as a yieldscape run"),
         (_set("flow.initial_growing_stock_m3", True), r"flow.initial_growing_stock_m3 is True"),
     ],
 )
@@ -724,7 +724,7 @@ def test_compare_what_is_not_a_run(small_case, capsys):
         fails(
             capsys,
             ["compare", str(what), "--out", str(tmp_path / "cmp")],
-            rf"{re.escape(str(what))}: not a foresight output directory",
+            rf"{re.escape(str(what))}: not a yieldscape output directory",
         )
     nothing_left(tmp_path, tmp_path / "cmp")
 
@@ -744,9 +744,9 @@ def test_bare_land_with_a_case_runs_and_compares(tmp_path, capsys):
 
 
 def test_the_cache_keeps_no_part_of_an_entry_after_a_fault(tmp_path, monkeypatch):
-    from foresight.io import cache
+    from yieldscape.io import cache
 
-    monkeypatch.setenv("FORESIGHT_CACHE_DIR", str(tmp_path / "cache"))
+    monkeypatch.setenv("YIELDSCAPE_CACHE_DIR", str(tmp_path / "cache"))
     source = tmp_path / "in.bin"
     source.write_bytes(b"stands")
 

@@ -1,4 +1,4 @@
-"""`foresight run` and `foresight check` on the committed sample region, as a user runs them."""
+"""`yieldscape run` and `yieldscape check` on the committed sample region, as a user runs them."""
 
 import json
 import subprocess
@@ -10,7 +10,7 @@ import pandas as pd
 import pyogrio
 import pytest
 
-from foresight.cli.main import main
+from yieldscape.cli.main import main
 
 ROOT = Path(__file__).resolve().parents[2]
 SCENARIO = ROOT / "sample_region" / "scenario.toml"
@@ -31,7 +31,7 @@ WOOD_FLOW_COLUMNS = [
 def sample_run(tmp_path_factory):
     out = tmp_path_factory.mktemp("sample") / "results"
     proc = subprocess.run(
-        [sys.executable, "-m", "foresight.cli.main", "run", str(SCENARIO), "--out", str(out)],
+        [sys.executable, "-m", "yieldscape.cli.main", "run", str(SCENARIO), "--out", str(out)],
         capture_output=True,
         text=True,
     )
@@ -98,7 +98,7 @@ def test_wood_flow_csv_contract_and_policy(sample_run):
 def test_run_json_records_provenance(sample_run):
     out, _ = sample_run
     rec = json.loads((out / "run.json").read_text())
-    assert rec["foresight_version"]
+    assert rec["yieldscape_version"]
     assert rec["scenario"]["scenario"]["name"] == "Norrowmere base case"
     assert rec["scenario"]["species"]["aspen"]["curve"] == "table"
     # scenario, stand layer (also the overlay layers' file), the aspen CSV, two rasters
@@ -163,7 +163,7 @@ def test_version_names_libraries(capsys):
         main(["--version"])
     assert exc.value.code == 0
     text = capsys.readouterr().out
-    for lib in ("foresight", "GDAL", "GEOS", "PROJ", "highspy"):
+    for lib in ("yieldscape", "GDAL", "GEOS", "PROJ", "highspy"):
         assert lib in text
 
 
@@ -280,7 +280,7 @@ def test_spatial_rules_hold_in_the_written_outputs(tmp_path, capsys):
     assert openings["area_ha"].max() <= 40 + 1e-6
     harvests = pyogrio.read_dataframe(gpkg, layer="harvests")
     stands = pyogrio.read_dataframe(gpkg, layer="stands")
-    from foresight.adjacency import build_adjacency
+    from yieldscape.adjacency import build_adjacency
 
     adj = build_adjacency(stands.geometry.to_numpy(), "edge")
     pos = {sid: i for i, sid in enumerate(stands["stand_id"])}

@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 import shapely
 
-from foresight.cli.main import main
+from yieldscape.cli.main import main
 
 from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
 

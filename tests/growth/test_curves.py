@@ -5,7 +5,7 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from foresight.growth import (
+from yieldscape.growth import (
     ChapmanRichards,
     SiteScaling,
     TableYield,

@@ -5,8 +5,8 @@ import pytest
 from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 
-from foresight.growth import ChapmanRichards, chapman_richards_culmination_age, culmination
-from foresight.growth.economics import faustmann_rotation, fisher_rotation, lev
+from yieldscape.growth import ChapmanRichards, chapman_richards_culmination_age, culmination
+from yieldscape.growth.economics import faustmann_rotation, fisher_rotation, lev
 
 
 def conrad_q(t):

@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from foresight.growth import (
+from yieldscape.growth import (
     ChapmanRichards,
     GompertzYield,
     LogisticYield,

@@ -3,8 +3,8 @@
 import numpy as np
 import pytest
 
-from foresight.growth.curves import chapman_richards, gompertz_yield, schumacher
-from foresight.growth.fitting import FitError, fit_curve
+from yieldscape.growth.curves import chapman_richards, gompertz_yield, schumacher
+from yieldscape.growth.fitting import FitError, fit_curve
 
 AGES = np.arange(10.0, 160.0, 10.0)
 

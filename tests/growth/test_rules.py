@@ -3,10 +3,10 @@
 import numpy as np
 import pytest
 
-from foresight.config import EconomicsConfig, GrowthConfig, SpeciesConfig
-from foresight.growth import ChapmanRichards, SiteScaling, chapman_richards_culmination_age
-from foresight.growth.economics import faustmann_rotation
-from foresight.growth.rules import min_harvest_ages, summarise_site
+from yieldscape.config import EconomicsConfig, GrowthConfig, SpeciesConfig
+from yieldscape.growth import ChapmanRichards, SiteScaling, chapman_richards_culmination_age
+from yieldscape.growth.economics import faustmann_rotation
+from yieldscape.growth.rules import min_harvest_ages, summarise_site
 
 CURVE = ChapmanRichards(500.0, 0.03, 3.0, SiteScaling(20.0, 1.0, 0.5))
 ECON = EconomicsConfig(discount_rate=0.03)

@@ -4,8 +4,8 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
-from foresight.growth import StockGrowth
-from foresight.growth.stock import equilibria, growth, logistic_stock, msy
+from yieldscape.growth import StockGrowth
+from yieldscape.growth.stock import equilibria, growth, logistic_stock, msy
 
 
 def test_logistic_msy():

@@ -17,7 +17,7 @@ import pyogrio
 import pytest
 from pyproj import CRS
 
-from foresight.cli.main import main
+from yieldscape.cli.main import main
 
 
 @pytest.fixture
@@ -215,8 +215,8 @@ def gdal_python() -> str | None:
             )
             if probe.returncode == 0:
                 return exe
-    if os.environ.get("FORESIGHT_REQUIRE_GDAL_TOOLS"):
-        pytest.fail("FORESIGHT_REQUIRE_GDAL_TOOLS is set but GDAL's Python tools are missing")
+    if os.environ.get("YIELDSCAPE_REQUIRE_GDAL_TOOLS"):
+        pytest.fail("YIELDSCAPE_REQUIRE_GDAL_TOOLS is set but GDAL's Python tools are missing")
     return None
 
 

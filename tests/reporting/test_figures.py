@@ -12,8 +12,8 @@ import pyproj
 import pytest
 from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar
 
-from foresight.cli.main import main
-from foresight.reporting import figures
+from yieldscape.cli.main import main
+from yieldscape.reporting import figures
 
 from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
 

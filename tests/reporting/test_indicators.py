@@ -2,7 +2,7 @@
 
 The run goes through the real CLI on a small layer written with GDAL; the checks rebuild the
 forest from the `stands` and `harvests` layers alone (a replay of the cuts, stand by stand, with
-the Chapman-Richards formula written out here) and compare with what foresight reported.
+the Chapman-Richards formula written out here) and compare with what yieldscape reported.
 """
 
 import json
@@ -14,7 +14,7 @@ import pyogrio
 import pytest
 from scipy.integrate import quad
 
-from foresight.cli.main import main
+from yieldscape.cli.main import main
 
 from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
 

@@ -17,9 +17,9 @@ import pandas as pd
 import pytest
 from matplotlib.image import imread
 
-import foresight
-from foresight.cli.main import main
-from foresight.publish import write_outputs
+import yieldscape
+from yieldscape.cli.main import main
+from yieldscape.publish import write_outputs
 
 from helpers import ROOT, scenario_dict, squares, stand_attrs, write_layer, write_scenario
 
@@ -219,8 +219,8 @@ def test_sensitivity_table_gives_each_case_its_verdict(out):
 
 def test_warnings_stand_after_the_caution_one_item_each(small_case, tmp_path):
     _, _, scn = small_case
-    scenario = foresight.load_scenario(scn, overrides=["report.markdown=true"])
-    result = foresight.run(scenario, None)
+    scenario = yieldscape.load_scenario(scn, overrides=["report.markdown=true"])
+    result = yieldscape.run(scenario, None)
     warnings = ("stand 7: a repaired geometry", "3 stands can never be cut <larger> & older")
     result.warnings = warnings  # as the run will fill it
     out = tmp_path / "w"
@@ -240,8 +240,8 @@ def test_warnings_stand_after_the_caution_one_item_each(small_case, tmp_path):
 
 def browser() -> str | None:
     found = shutil.which("chromium") or shutil.which("chromium-browser")
-    if found is None and os.environ.get("FORESIGHT_REQUIRE_BROWSER"):
-        pytest.fail("FORESIGHT_REQUIRE_BROWSER is set but no chromium is installed")
+    if found is None and os.environ.get("YIELDSCAPE_REQUIRE_BROWSER"):
+        pytest.fail("YIELDSCAPE_REQUIRE_BROWSER is set but no chromium is installed")
     return found
 
 
@@ -264,7 +264,9 @@ def chromium(exe: str, tmp_path, *args: str) -> subprocess.CompletedProcess:
 def test_first_screen_fits_a_laptop_window(out, tmp_path):
     exe = browser()
     if exe is None:
-        pytest.skip("chromium is not installed (CI installs it and sets FORESIGHT_REQUIRE_BROWSER)")
+        pytest.skip(
+            "chromium is not installed (CI installs it and sets YIELDSCAPE_REQUIRE_BROWSER)"
+        )
     # where the browser lays out the headline, the key numbers and the caution
     probe = (
         "<script>addEventListener('load', () => { const at = s => "
@@ -294,7 +296,9 @@ def test_first_screen_fits_a_laptop_window(out, tmp_path):
 def test_report_renders_in_a_real_browser(out, tmp_path):
     exe = browser()
     if exe is None:
-        pytest.skip("chromium is not installed (CI installs it and sets FORESIGHT_REQUIRE_BROWSER)")
+        pytest.skip(
+            "chromium is not installed (CI installs it and sets YIELDSCAPE_REQUIRE_BROWSER)"
+        )
     shot = tmp_path / "shot.png"
     chromium(
         exe,

@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from foresight.cli.main import main
+from yieldscape.cli.main import main
 
 from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
 

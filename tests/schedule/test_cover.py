@@ -5,7 +5,7 @@ import pandas as pd
 import pyogrio
 import pytest
 
-from foresight.cli.main import main
+from yieldscape.cli.main import main
 
 from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
 
@@ -90,8 +90,8 @@ def test_old_forest_retention_holds_in_the_outputs(tmp_path):
     ],
 )
 def test_bad_cover_targets_are_named(tmp_path, cover, match):
-    from foresight import load_scenario
-    from foresight.errors import ScenarioError
+    from yieldscape import load_scenario
+    from yieldscape.errors import ScenarioError
 
     raw = scenario_dict(tmp_path / "x.gpkg")
     raw["cover"] = [cover]

@@ -3,9 +3,9 @@
 import numpy as np
 import pytest
 
-from foresight.growth import ChapmanRichards
-from foresight.projection import CurveSet, Periods, StandArrays
-from foresight.schedule import simulate
+from yieldscape.growth import ChapmanRichards
+from yieldscape.projection import CurveSet, Periods, StandArrays
+from yieldscape.schedule import simulate
 
 CURVES = CurveSet(["pine"], [ChapmanRichards(450.0, 0.035, 3.0)])
 

@@ -9,9 +9,9 @@ Hand-checkable from the definitions in docs/methods.md.
 import numpy as np
 import pytest
 
-from foresight.growth import ChapmanRichards
-from foresight.projection import CurveSet, Periods, StandArrays
-from foresight.schedule import simulate
+from yieldscape.growth import ChapmanRichards
+from yieldscape.projection import CurveSet, Periods, StandArrays
+from yieldscape.schedule import simulate
 
 CURVE = ChapmanRichards(a=400.0, k=0.03, c=3.0)
 

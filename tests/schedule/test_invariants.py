@@ -8,9 +8,9 @@ import numpy as np
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from foresight.growth import ChapmanRichards, SiteScaling, TableYield
-from foresight.projection import CurveSet, Periods, StandArrays
-from foresight.schedule import find_even_flow
+from yieldscape.growth import ChapmanRichards, SiteScaling, TableYield
+from yieldscape.projection import CurveSet, Periods, StandArrays
+from yieldscape.schedule import find_even_flow
 
 CURVES = CurveSet(
     ["a", "b"],

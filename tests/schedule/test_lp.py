@@ -6,11 +6,11 @@ import numpy as np
 import pulp
 import pytest
 
-from foresight.errors import InputError
-from foresight.growth import ChapmanRichards, chapman_richards_culmination_age
-from foresight.projection import CurveSet, Periods, StandArrays
-from foresight.schedule import find_even_flow
-from foresight.schedule.lp import build_lp, make_strata, solve_lp
+from yieldscape.errors import InputError
+from yieldscape.growth import ChapmanRichards, chapman_richards_culmination_age
+from yieldscape.projection import CurveSet, Periods, StandArrays
+from yieldscape.schedule import find_even_flow
+from yieldscape.schedule.lp import build_lp, make_strata, solve_lp
 
 from helpers import gap_forest
 
@@ -121,7 +121,7 @@ def test_max_npv_on_bare_land_is_the_faustmann_value():
     # continuous discounting at r: NPV = (p V(T) - c) / (e^(rT) - 1) (the land expectation
     # value plus the first regeneration, which the LP does not charge). Over a long horizon the
     # LP's optimum is that value at the best T on its 10-year grid.
-    from foresight.schedule.lp import Economics
+    from yieldscape.schedule.lp import Economics
 
     p, c, r, L, P = 25.0, 600.0, 0.03, 10, 40
     st = StandArrays(
@@ -154,7 +154,7 @@ def test_max_npv_on_bare_land_is_the_faustmann_value():
 def test_lp_keeps_cover_targets_and_still_bounds_the_rules():
     # With an old-forest target on both sides, the LP (stand-level strata) is still at least
     # the rule-based level; an impossible target makes the LP infeasible, and says which rows.
-    from foresight.schedule.cover import CoverRule, CoverRules
+    from yieldscape.schedule.cover import CoverRule, CoverRules
 
     st = forest()
     zones = np.zeros(st.n, dtype=np.int64)
@@ -236,7 +236,7 @@ def test_lp_disturbance_accounting_matches_the_simulation():
     # With monotone yield curves no harvest keeps the most standing volume, so the largest
     # ending-stock requirement the LP can meet must equal the simulation's expected ending
     # stock without harvest (the two disturbance bookkeepings agree, reserved area included).
-    from foresight.schedule import simulate
+    from yieldscape.schedule import simulate
 
     base = forest(n=30)
     harvestable = base.area_ha * np.where(np.arange(base.n) % 2 == 0, 0.4, 1.0)

@@ -3,10 +3,10 @@
 import numpy as np
 import pytest
 
-from foresight.config import FlowConfig, HarvestConfig
-from foresight.growth import ChapmanRichards
-from foresight.projection import CurveSet, Periods, StandArrays
-from foresight.schedule import schedule
+from yieldscape.config import FlowConfig, HarvestConfig
+from yieldscape.growth import ChapmanRichards
+from yieldscape.projection import CurveSet, Periods, StandArrays
+from yieldscape.schedule import schedule
 
 from helpers import gap_forest
 

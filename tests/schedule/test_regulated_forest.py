@@ -9,9 +9,9 @@ and Planning, Ch. 11: a regulated forest yields (A/R) V(R) a year = A x MAI(R)).
 import numpy as np
 import pytest
 
-from foresight.growth import ChapmanRichards
-from foresight.projection import CurveSet, Periods, StandArrays
-from foresight.schedule import find_even_flow
+from yieldscape.growth import ChapmanRichards
+from yieldscape.projection import CurveSet, Periods, StandArrays
+from yieldscape.schedule import find_even_flow
 
 R, L, PERIODS = 60, 10, 12
 CLASS_HA = 25.0

@@ -7,11 +7,11 @@ import numpy as np
 import pytest
 import shapely
 
-from foresight.adjacency import build_adjacency
-from foresight.growth import ChapmanRichards
-from foresight.projection import CurveSet, Periods, StandArrays
-from foresight.schedule import find_even_flow
-from foresight.schedule.spatial import SpatialRules
+from yieldscape.adjacency import build_adjacency
+from yieldscape.growth import ChapmanRichards
+from yieldscape.projection import CurveSet, Periods, StandArrays
+from yieldscape.schedule import find_even_flow
+from yieldscape.schedule.spatial import SpatialRules
 
 from helpers import squares
 
@@ -104,8 +104,8 @@ def test_a_stand_larger_than_the_opening_is_never_cut():
 
 
 def test_contradictory_greenup_rejected_at_load(tmp_path):
-    from foresight import load_scenario
-    from foresight.errors import ScenarioError
+    from yieldscape import load_scenario
+    from yieldscape.errors import ScenarioError
 
     from helpers import scenario_dict, write_scenario
 
@@ -117,7 +117,7 @@ def test_contradictory_greenup_rejected_at_load(tmp_path):
 def test_greenup_zero_switches_the_spatial_rules_off_with_a_warning(tmp_path):
     # `--set harvest.greenup_years=0` must switch the rules off even where the scenario file
     # sets max_opening_ha; the opening then has no effect, and the scenario says so.
-    from foresight import load_scenario
+    from yieldscape import load_scenario
 
     from helpers import scenario_dict, write_scenario
 
@@ -136,7 +136,7 @@ def test_a_sliver_stand_does_not_stop_the_pick(rules):
     # same forest with the sliver outside the harvestable land base (never a candidate); the
     # sliver lies apart from the others, so cutting it opens no neighbour. The levels may
     # differ by the sliver's volume at most (about 1e-10 m3).
-    from foresight.schedule.cover import CoverRule, CoverRules
+    from yieldscape.schedule.cover import CoverRule, CoverRules
 
     geoms, grid = grid_forest(n_side=5)
     n, crumb = grid.n, 7  # an old stand, early in the queue

@@ -1,1 +1,0 @@
-"""The ``foresight`` command: one module per subcommand over the library API."""

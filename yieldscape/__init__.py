@@ -1,0 +1,23 @@
+"""yieldscape: timber supply projection for regional forest planners.
+
+The library API a notebook calls; the ``yieldscape`` command is a thin shell over it.
+"""
+
+from yieldscape._version import __version__
+from yieldscape.config import Scenario, load_scenario
+from yieldscape.errors import InputError, YieldscapeError
+from yieldscape.pipeline import CurvesResult, RunResult, check, compare, curves, run
+
+__all__ = [
+    "CurvesResult",
+    "YieldscapeError",
+    "InputError",
+    "RunResult",
+    "Scenario",
+    "__version__",
+    "check",
+    "compare",
+    "curves",
+    "load_scenario",
+    "run",
+]

@@ -1,0 +1,1 @@
+"""The ``yieldscape`` command: one module per subcommand over the library API."""

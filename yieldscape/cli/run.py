@@ -1,0 +1,94 @@
+"""``yieldscape run SCENARIO --out DIR``: the whole projection, outputs written atomically."""
+
+from __future__ import annotations
+
+import argparse
+
+import yieldscape
+
+
+def add_parser(sub, common: argparse.ArgumentParser) -> None:  # noqa: ANN001
+    p = sub.add_parser(
+        "run",
+        parents=[common],
+        help="project and schedule; write outputs",
+        description="Project the stands, schedule harvests under the flow policy, judge "
+        "whether the flow is sustainable, and write report.html, projection.gpkg, the "
+        "tables as CSV, figures/, run.json and run.log into DIR (and each [[sensitivity]] "
+        "case into DIR/<name>/).",
+    )
+    p.add_argument("scenario", help="scenario TOML file")
+    p.add_argument("--out", required=True, metavar="DIR", help="output directory")
+    p.set_defaults(handler=handle)
+
+
+def handle(args: argparse.Namespace) -> int:
+    scenario = yieldscape.load_scenario(args.scenario, overrides=args.overrides)
+    result = yieldscape.run(scenario, args.out, strict=args.strict)
+    if not args.quiet:
+        wf = result.wood_flow
+        print(
+            f"scenario {scenario.scenario.name!r}: {len(result.stands)} stands, "
+            f"{result.inventory.report.area_ha:,.0f} ha, {len(wf)} periods of "
+            f"{scenario.scenario.period_years} years"
+        )
+        what = {
+            "even": "even-flow level",
+            "nondeclining": "non-declining flow, period 1",
+            "stepdown": "step-down flow, initial level",
+            "targets": "targets, mean harvest",
+            "optimize": "optimised (LP) flow, period 1",
+        }[result.flow.policy]
+        print(
+            f"{what}: {result.flow.level_m3_per_year:,.0f} m3/year "
+            f"({result.flow.level_m3_per_period:,.0f} m3 per period)"
+        )
+        print(f"limited by: {result.flow.binding}")
+        if "spatial_cost_m3_per_period" in result.flow.details:
+            cost = (
+                result.flow.details["spatial_cost_m3_per_period"] / scenario.scenario.period_years
+            )
+            big = result.openings["area_ha"].max() if len(result.openings) else 0.0
+            print(
+                f"spatial rules cost {cost:,.0f} m3/year against the same policy without "
+                f"them; largest opening {big:,.1f} ha; no rule is broken"
+            )
+        if result.lp is not None:
+            gap = result.lp["gap_of_schedule_to_lp"]
+            print(
+                f"harvest LP ({result.lp['status'].lower()}, {result.lp['strata']} strata): "
+                f"{result.lp['total_harvest_m3'] / (len(wf) * scenario.scenario.period_years):,.0f}"
+                f" m3/year over the horizon; the schedule is {100 * gap:.2f}% below it"
+            )
+            if result.lp["leaves_out"]:
+                print(
+                    f"  (the LP leaves out {', '.join(result.lp['leaves_out'])}; "
+                    "the schedule keeps them)"
+                )
+        ltsy = result.long_term_sustained_yield
+        print(
+            f"long-term sustained yield for comparison: {ltsy['at_culmination']:,.0f} m3/year "
+            f"at MAI culmination, {ltsy['at_min_harvest_age']:,.0f} m3/year at the minimum "
+            "harvest ages (harvestable area x MAI)"
+        )
+        print(
+            f"growing stock: {wf['growing_stock_start_m3'].iloc[0]:,.0f} m3 at start, "
+            f"{wf['growing_stock_end_m3'].iloc[-1]:,.0f} m3 at the end"
+        )
+        print(f"verdict: {result.verdict.headline} (report.html has the checks)")
+        for name, case in result.cases.items():
+            diff = case.level_m3_per_year - result.level_m3_per_year
+            judged = "sustainable" if case.verdict.sustainable else "NOT sustainable"
+            print(
+                f"sensitivity case {name!r}: {case.level_m3_per_year:,.0f} m3/year "
+                f"({diff:+,.0f} against the base), {judged}"
+            )
+        print(
+            f"outputs in {result.out_dir}: report.html (open it in a browser), "
+            "projection.gpkg (open it in a GIS), the tables as CSV, figures/, run.json, run.log"
+        )
+        print(
+            "These are planning estimates; defer to local forest-practice law and to "
+            "licensed professionals."
+        )
+    return 0

@@ -1,0 +1,317 @@
+"""Yield curve families: volume per hectare as a vectorised function of age and site index.
+
+Every curve answers ``volume_m3_ha(age_years, site_index_m)`` and
+``cai_m3_ha_yr(age_years, site_index_m)`` for scalars or arrays, gives 0 for ages < 0 (a stand
+inside its regeneration delay carries a negative age) and never a negative volume.
+
+Site dependence of the parametric families is one scheme for all of them: with a reference site
+index SI_ref, ``V(t, SI) = rho_a V_ref(rho_k t)`` where ``rho_a = (SI/SI_ref)^site_exponent_a``
+and ``rho_k = (SI/SI_ref)^site_exponent_k``. For Chapman-Richards this is the familiar
+``a rho_a (1 - exp(-k rho_k t))^c``: the asymptote scales with rho_a, the rate with rho_k.
+Table curves carry site through site classes instead (one table per class).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Protocol
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+from scipy.interpolate import PchipInterpolator
+
+from yieldscape.config import SpeciesConfig
+from yieldscape.growth import stock
+
+
+class YieldCurve(Protocol):
+    """A yield curve: standing volume per hectare by age and site."""
+
+    def volume_m3_ha(self, age_years: ArrayLike, site_index_m: ArrayLike) -> NDArray[np.float64]:
+        """Volume [m3/ha] at ``age_years`` [years] on sites ``site_index_m`` [m]."""
+        ...
+
+    def cai_m3_ha_yr(self, age_years: ArrayLike, site_index_m: ArrayLike) -> NDArray[np.float64]:
+        """Current annual increment dV/dt [m3/ha/yr]."""
+        ...
+
+
+# ----------------------------------------------------------------------------- plain formulas
+def chapman_richards(age_years: ArrayLike, a: ArrayLike, k: ArrayLike, c: ArrayLike) -> NDArray:
+    """Chapman-Richards yield V = a (1 - exp(-k t))^c (Richards 1959; Chapman 1961).
+
+    age_years : [years]; a : asymptote [m3/ha]; k : rate [1/year]; c : shape [-].
+    Ages below zero give 0.
+
+    >>> float(chapman_richards(0.0, 500.0, 0.03, 3.0))
+    0.0
+    >>> round(float(chapman_richards(1e6, 500.0, 0.03, 3.0)), 6)
+    500.0
+    """
+    t = np.maximum(np.asarray(age_years, dtype=np.float64), 0.0)
+    return np.asarray(a) * (-np.expm1(-np.asarray(k) * t)) ** np.asarray(c)
+
+
+def schumacher(age_years: ArrayLike, a: float, b: float) -> NDArray:
+    """Schumacher yield V = a exp(-b / t) (Schumacher 1939); 0 at t <= 0.
+
+    >>> round(float(schumacher(10.0, 300.0, 10.0)), 4)  # a / e at t = b
+    110.3638
+    """
+    t = np.asarray(age_years, dtype=np.float64)
+    safe = np.where(t > 0, t, 1.0)
+    return np.where(t > 0, a * np.exp(-b / safe), 0.0)
+
+
+def logistic_yield(age_years: ArrayLike, a: float, b: float, k: float) -> NDArray:
+    """Logistic (Verhulst) sigmoid yield V = a / (1 + b exp(-k t))."""
+    t = np.asarray(age_years, dtype=np.float64)
+    return np.where(t >= 0, a / (1.0 + b * np.exp(-k * np.maximum(t, 0.0))), 0.0)
+
+
+def gompertz_yield(age_years: ArrayLike, a: float, b: float, k: float) -> NDArray:
+    """Gompertz sigmoid yield V = a exp(-b exp(-k t)) (Gompertz 1825)."""
+    t = np.asarray(age_years, dtype=np.float64)
+    return np.where(t >= 0, a * np.exp(-b * np.exp(-k * np.maximum(t, 0.0))), 0.0)
+
+
+# ----------------------------------------------------------------------------- site scaling
+@dataclass(frozen=True)
+class SiteScaling:
+    """rho_a and rho_k of the site scheme in the module docstring (1, 1 without SI_ref)."""
+
+    site_index_ref_m: float | None = None
+    site_exponent_a: float = 1.0
+    site_exponent_k: float = 0.0
+
+    def factors(self, site_index_m: ArrayLike) -> tuple[NDArray, NDArray]:
+        si = np.asarray(site_index_m, dtype=np.float64)
+        if self.site_index_ref_m is None:
+            one = np.ones(si.shape)
+            return one, one
+        ratio = si / self.site_index_ref_m
+        return ratio**self.site_exponent_a, ratio**self.site_exponent_k
+
+
+class _Parametric:
+    """A reference curve V_ref(t) with derivative, scaled by site as in the module docstring."""
+
+    site: SiteScaling
+
+    def reference(self, t: NDArray) -> NDArray:  # pragma: no cover - interface
+        raise NotImplementedError
+
+    def reference_cai(self, t: NDArray) -> NDArray:  # pragma: no cover - interface
+        raise NotImplementedError
+
+    def volume_m3_ha(self, age_years: ArrayLike, site_index_m: ArrayLike = 0.0) -> NDArray:
+        t = np.asarray(age_years, dtype=np.float64)
+        ra, rk = self.site.factors(np.broadcast_to(site_index_m, t.shape))
+        return np.where(t < 0, 0.0, ra * self.reference(np.maximum(t, 0.0) * rk))
+
+    def cai_m3_ha_yr(self, age_years: ArrayLike, site_index_m: ArrayLike = 0.0) -> NDArray:
+        t = np.asarray(age_years, dtype=np.float64)
+        ra, rk = self.site.factors(np.broadcast_to(site_index_m, t.shape))
+        return np.where(t < 0, 0.0, ra * rk * self.reference_cai(np.maximum(t, 0.0) * rk))
+
+
+@dataclass(frozen=True)
+class ChapmanRichards(_Parametric):
+    """V = a (1 - exp(-k t))^c; a [m3/ha], k [1/year], c [-]."""
+
+    a: float
+    k: float
+    c: float
+    site: SiteScaling = field(default_factory=SiteScaling)
+
+    def reference(self, t: NDArray) -> NDArray:
+        return chapman_richards(t, self.a, self.k, self.c)
+
+    def reference_cai(self, t: NDArray) -> NDArray:
+        e = np.exp(-self.k * t)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            base = (1.0 - e) ** (self.c - 1.0)
+        return self.a * self.c * self.k * e * np.where(np.isfinite(base), base, 0.0)
+
+
+@dataclass(frozen=True)
+class Schumacher(_Parametric):
+    """V = a exp(-b / t); a [m3/ha], b [years] (MAI peaks at t = b, CAI at t = b/2)."""
+
+    a: float
+    b: float
+    site: SiteScaling = field(default_factory=SiteScaling)
+
+    def reference(self, t: NDArray) -> NDArray:
+        return schumacher(t, self.a, self.b)
+
+    def reference_cai(self, t: NDArray) -> NDArray:
+        safe = np.where(t > 0, t, 1.0)
+        return np.where(t > 0, schumacher(t, self.a, self.b) * self.b / safe**2, 0.0)
+
+
+@dataclass(frozen=True)
+class LogisticYield(_Parametric):
+    """V = a / (1 + b exp(-k t)); a [m3/ha], b [-], k [1/year]."""
+
+    a: float
+    b: float
+    k: float
+    site: SiteScaling = field(default_factory=SiteScaling)
+
+    def reference(self, t: NDArray) -> NDArray:
+        return logistic_yield(t, self.a, self.b, self.k)
+
+    def reference_cai(self, t: NDArray) -> NDArray:
+        v = self.reference(t)
+        return self.k * v * (1.0 - v / self.a)
+
+
+@dataclass(frozen=True)
+class GompertzYield(_Parametric):
+    """V = a exp(-b exp(-k t)); a [m3/ha], b [-], k [1/year]."""
+
+    a: float
+    b: float
+    k: float
+    site: SiteScaling = field(default_factory=SiteScaling)
+
+    def reference(self, t: NDArray) -> NDArray:
+        return gompertz_yield(t, self.a, self.b, self.k)
+
+    def reference_cai(self, t: NDArray) -> NDArray:
+        return self.reference(t) * self.b * self.k * np.exp(-self.k * t)
+
+
+@dataclass(frozen=True)
+class StockGrowth(_Parametric):
+    """Standing volume as a stock S(t) growing by g(S) from S(0) = initial_m3_ha.
+
+    ``min_viable_m3_ha`` None: logistic g(S) = r S (1 - S/K). Given (m): the minimum-viable-
+    stock form g(S) = r S (S/m - 1)(1 - S/K), in which a stock starting below m collapses
+    towards 0 (:attr:`collapses`). Integrated exactly (see :mod:`yieldscape.growth.stock`).
+    Under the site scheme K, m and S(0) all scale with rho_a and time with rho_k, which maps
+    the model onto itself, so one reference trajectory serves every site.
+    """
+
+    r: float
+    capacity_m3_ha: float
+    initial_m3_ha: float
+    min_viable_m3_ha: float | None = None
+    site: SiteScaling = field(default_factory=SiteScaling)
+
+    def __post_init__(self) -> None:
+        traj = stock.Trajectory(
+            self.r, self.capacity_m3_ha, self.initial_m3_ha, self.min_viable_m3_ha
+        )
+        object.__setattr__(self, "_trajectory", traj)
+
+    @property
+    def collapses(self) -> bool:
+        m = self.min_viable_m3_ha
+        return m is not None and self.initial_m3_ha < m
+
+    def growth(self, s: NDArray) -> NDArray:
+        return stock.growth(s, self.r, self.capacity_m3_ha, self.min_viable_m3_ha)
+
+    def reference(self, t: NDArray) -> NDArray:
+        return self._trajectory(t)  # type: ignore[attr-defined]
+
+    def reference_cai(self, t: NDArray) -> NDArray:
+        return self.growth(self.reference(t))
+
+    def msy(self, site_index_m: ArrayLike = 0.0) -> tuple[NDArray, NDArray]:
+        """(MSY stock [m3/ha], MSY growth [m3/ha/yr]) at each site."""
+        s, g = stock.msy(self.r, self.capacity_m3_ha, self.min_viable_m3_ha)
+        ra, rk = self.site.factors(site_index_m)
+        return ra * s, ra * rk * g
+
+
+@dataclass(frozen=True)
+class TableYield:
+    """Volume from age/volume tables, one per site class, interpolated monotonically.
+
+    Along age, interpolation is piecewise cubic Hermite (PCHIP; Fritsch & Carlson 1980), which
+    keeps monotone stretches monotone and never overshoots between two points. Below the first
+    age the curve runs from (0, 0) unless the table starts at 0; past the last age the volume is
+    held at the last value. With several classes (``site_classes_m``, increasing), the volume at
+    an intermediate site index is linear between the two neighbouring classes; outside the
+    class range the nearest class is used (the inventory check rejects such stands when the
+    species' site range is the class range, the default).
+    """
+
+    ages: tuple[float, ...]
+    volumes_m3_ha: tuple[tuple[float, ...], ...]  # one row per class
+    site_classes_m: tuple[float, ...] = (0.0,)
+
+    def __post_init__(self) -> None:
+        ages = np.asarray(self.ages, dtype=np.float64)
+        vols = np.atleast_2d(np.asarray(self.volumes_m3_ha, dtype=np.float64))
+        if ages[0] > 0:
+            ages = np.r_[0.0, ages]
+            vols = np.c_[np.zeros(len(vols)), vols]
+        interp = PchipInterpolator(ages, vols, axis=1, extrapolate=False)
+        object.__setattr__(self, "_interp", interp)
+        object.__setattr__(self, "_deriv", interp.derivative())
+        object.__setattr__(self, "_range", (float(ages[0]), float(ages[-1])))
+        object.__setattr__(self, "_last", vols[:, -1])
+
+    @classmethod
+    def single(cls, ages: tuple[float, ...], volumes: tuple[float, ...]) -> TableYield:
+        return cls(tuple(ages), (tuple(volumes),))
+
+    def _blend(self, values: NDArray, site_index_m: ArrayLike) -> NDArray:
+        """values: (classes, n) -> (n,), linear between neighbouring classes."""
+        classes = np.asarray(self.site_classes_m, dtype=np.float64)
+        if len(classes) == 1:
+            return values[0]
+        si = np.clip(np.asarray(site_index_m, dtype=np.float64), classes[0], classes[-1])
+        hi = np.clip(np.searchsorted(classes, si, side="right"), 1, len(classes) - 1)
+        w = (si - classes[hi - 1]) / (classes[hi] - classes[hi - 1])
+        cols = np.arange(values.shape[1])
+        return (1 - w) * values[hi - 1, cols] + w * values[hi, cols]
+
+    def volume_m3_ha(self, age_years: ArrayLike, site_index_m: ArrayLike = 0.0) -> NDArray:
+        t = np.asarray(age_years, dtype=np.float64)
+        flat = t.ravel()
+        first, last = self._range  # type: ignore[attr-defined]
+        v = self._interp(np.clip(flat, first, last))  # type: ignore[attr-defined]
+        v = np.where(flat[None, :] >= last, self._last[:, None], v)  # type: ignore[attr-defined]
+        out = self._blend(v, np.broadcast_to(site_index_m, t.shape).ravel())
+        return np.where(flat < 0, 0.0, np.maximum(out, 0.0)).reshape(t.shape)
+
+    def cai_m3_ha_yr(self, age_years: ArrayLike, site_index_m: ArrayLike = 0.0) -> NDArray:
+        t = np.asarray(age_years, dtype=np.float64)
+        flat = t.ravel()
+        first, last = self._range  # type: ignore[attr-defined]
+        d = self._deriv(np.clip(flat, first, last))  # type: ignore[attr-defined]
+        d = np.where((flat[None, :] >= last) | (flat[None, :] < 0), 0.0, d)
+        return self._blend(d, np.broadcast_to(site_index_m, t.shape).ravel()).reshape(t.shape)
+
+    @property
+    def site_range(self) -> tuple[float, float]:
+        return float(min(self.site_classes_m)), float(max(self.site_classes_m))
+
+
+def curve_from_config(cfg: SpeciesConfig) -> YieldCurve:
+    """Build the yield curve a species table of the scenario describes."""
+    site = SiteScaling(cfg.site_index_ref_m, cfg.site_exponent_a, cfg.site_exponent_k)
+    p = cfg
+    if p.curve == "chapman-richards":
+        return ChapmanRichards(_f(p.a), _f(p.k), _f(p.c), site)
+    if p.curve == "schumacher":
+        return Schumacher(_f(p.a), _f(p.b), site)
+    if p.curve == "logistic":
+        return LogisticYield(_f(p.a), _f(p.b), _f(p.k), site)
+    if p.curve == "gompertz":
+        return GompertzYield(_f(p.a), _f(p.b), _f(p.k), site)
+    if p.curve in ("stock-logistic", "stock-threshold"):
+        m = p.min_viable_m3_ha if p.curve == "stock-threshold" else None
+        return StockGrowth(_f(p.r), _f(p.capacity_m3_ha), _f(p.initial_m3_ha), m, site)
+    assert p.ages is not None and p.volumes_m3_ha is not None
+    return TableYield(p.ages, p.volumes_m3_ha, p.site_classes_m or (0.0,))
+
+
+def _f(value: float | None) -> float:
+    assert value is not None, "checked when the scenario was loaded"
+    return float(value)

@@ -1,0 +1,190 @@
+"""Minimum harvest age rules and the per-site curve summary they draw on.
+
+Rules, combinable per species (the largest age wins):
+
+- ``min_harvest_age``: a fixed age;
+- ``min_harvest_mai_share``: the first age at which MAI reaches that share of its maximum
+  (0.95 is common practice in North American public-land planning);
+- ``min_harvest_volume_m3_ha``: the first age with at least that volume per hectare;
+- ``min_harvest_economic``: the Faustmann (LEV-maximising) rotation.
+
+A rule a stand can never meet (a volume the curve never reaches within ``growth.max_age_years``)
+gives an infinite age: the stand is never eligible, and the curves report says so.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+from scipy.optimize import brentq
+
+from yieldscape.config import EconomicsConfig, GrowthConfig, SpeciesConfig
+from yieldscape.growth.curves import StockGrowth, YieldCurve
+from yieldscape.growth.economics import Rotation, faustmann_rotation, fisher_rotation
+from yieldscape.growth.increments import Culmination, culmination, yield_class
+
+RULES = ("fixed", "mai_share", "volume", "economic")
+
+
+@dataclass(frozen=True)
+class SiteSummary:
+    """Everything the curves report says of one species on one site index."""
+
+    species: str
+    site_index: float
+    culmination: Culmination
+    yield_class: float
+    rule_ages: dict[str, float]  # rule -> age [years] (only the rules the species uses)
+    min_harvest_age_years: float
+    faustmann: Rotation | None
+    fisher: Rotation | None
+    lev_per_ha: float | None
+    msy_stock_m3_ha: float | None
+    msy_growth_m3_ha_yr: float | None
+    collapses: bool
+
+
+def _curve_fns(curve: YieldCurve, site: float):
+    def vol(t):
+        return curve.volume_m3_ha(t, np.full(np.shape(t), site))
+
+    def cai(t):
+        return curve.cai_m3_ha_yr(t, np.full(np.shape(t), site))
+
+    return vol, cai
+
+
+def summarise_site(
+    cfg: SpeciesConfig,
+    curve: YieldCurve,
+    site: float,
+    economics: EconomicsConfig,
+    growth: GrowthConfig,
+) -> SiteSummary:
+    """Culmination, yield class, every rule's age and the economic rotations at one site."""
+    vol, cai = _curve_fns(curve, site)
+    max_age = growth.max_age_years
+    cul = culmination(vol, cai, max_age)
+    ages: dict[str, float] = {}
+    if cfg.min_harvest_age is not None:
+        ages["fixed"] = float(cfg.min_harvest_age)
+    if cfg.min_harvest_mai_share is not None:
+        ages["mai_share"] = _first_mai_share(vol, cul, cfg.min_harvest_mai_share)
+    if cfg.min_harvest_volume_m3_ha is not None:
+        ages["volume"] = _first_volume(vol, cfg.min_harvest_volume_m3_ha, max_age)
+    faus = fish = None
+    lev = None
+    if economics.discount_rate is not None and cfg.price_per_m3 is not None:
+        args = (
+            vol,
+            cfg.price_per_m3,
+            cfg.regen_cost_per_ha,
+            economics.discount_rate,
+            economics.compounding,
+        )
+        faus = faustmann_rotation(*args, annual_cost=cfg.annual_cost_per_ha, max_age=max_age)
+        fish = fisher_rotation(*args, max_age=max_age)
+        lev = faus.value
+    if cfg.min_harvest_economic:
+        assert faus is not None, "checked when the scenario was loaded"
+        ages["economic"] = faus.age_years
+    msy_s = msy_g = None
+    collapses = False
+    if isinstance(curve, StockGrowth):
+        s, g = curve.msy(np.asarray(site))
+        msy_s, msy_g = float(s), float(g)
+        collapses = curve.collapses
+    return SiteSummary(
+        species=cfg.code,
+        site_index=float(site),
+        culmination=cul,
+        yield_class=yield_class(cul.mai, growth.yield_class_step),
+        rule_ages=ages,
+        min_harvest_age_years=max(ages.values()),
+        faustmann=faus,
+        fisher=fish,
+        lev_per_ha=lev,
+        msy_stock_m3_ha=msy_s,
+        msy_growth_m3_ha_yr=msy_g,
+        collapses=collapses,
+    )
+
+
+def site_summaries(
+    cfg: SpeciesConfig,
+    curve: YieldCurve,
+    site_index: NDArray,
+    economics: EconomicsConfig,
+    growth: GrowthConfig,
+) -> tuple[list[SiteSummary], NDArray[np.intp]]:
+    """Summaries for each distinct site index (rounded to ``growth.rule_site_step_m``) and the
+    index that maps every stand onto its summary. The loop runs over distinct sites."""
+    step = growth.rule_site_step_m
+    rounded = np.round(np.asarray(site_index, dtype=np.float64) / step) * step
+    unique, inverse = np.unique(rounded, return_inverse=True)
+    return [summarise_site(cfg, curve, s, economics, growth) for s in unique], inverse
+
+
+def min_harvest_ages(
+    cfg: SpeciesConfig,
+    curve: YieldCurve,
+    site_index: NDArray,
+    economics: EconomicsConfig,
+    growth: GrowthConfig,
+) -> NDArray[np.float64]:
+    """Minimum harvest age [years] for each stand's site index (one species).
+
+    Only a fixed age is the same everywhere; other rules are worked out once per distinct site
+    index, rounded to ``growth.rule_site_step_m``, and mapped back to the stands.
+    """
+    site_index = np.asarray(site_index, dtype=np.float64)
+    site_rules = (
+        cfg.min_harvest_mai_share is not None
+        or cfg.min_harvest_volume_m3_ha is not None
+        or cfg.min_harvest_economic
+    )
+    if not site_rules:
+        return np.full(site_index.shape, float(cfg.min_harvest_age or 0.0))
+    sums, inverse = site_summaries(cfg, curve, site_index, economics, growth)
+    return np.array([s.min_harvest_age_years for s in sums])[inverse]
+
+
+def max_mai(
+    cfg: SpeciesConfig,
+    curve: YieldCurve,
+    site_index: NDArray,
+    economics: EconomicsConfig,
+    growth: GrowthConfig,
+) -> NDArray[np.float64]:
+    """Maximum MAI [m3/ha/yr] for each stand's site index (one species)."""
+    sums, inverse = site_summaries(cfg, curve, site_index, economics, growth)
+    return np.array([s.culmination.mai for s in sums])[inverse]
+
+
+def _first_mai_share(vol, cul: Culmination, share: float) -> float:
+    target = share * cul.mai
+
+    def f(t: float) -> float:
+        return float(vol(np.asarray([t]))[0] / t - target)
+
+    lo = 1e-6
+    if f(cul.age_years) < 0:  # only when not culminated and the grid max is at the end
+        return cul.age_years
+    return float(brentq(f, lo, cul.age_years, xtol=1e-8)) if f(lo) < 0 else lo
+
+
+def _first_volume(vol, volume: float, max_age: float) -> float:
+    t = np.arange(0.0, max_age + 0.25, 0.5)
+    v = vol(t)
+    hit = np.flatnonzero(v >= volume)
+    if not len(hit):
+        return math.inf
+    i = int(hit[0])
+    if i == 0:
+        return 0.0
+    return float(
+        brentq(lambda x: float(vol(np.asarray([x]))[0] - volume), t[i - 1], t[i], xtol=1e-8)
+    )

@@ -1,0 +1,118 @@
+"""Vector I/O through pyogrio (GDAL): read a stand layer, write GeoPackage layers and tables;
+register SQL views as feature layers (sqlite3, the GeoPackage being an SQLite database)."""
+
+from __future__ import annotations
+
+import sqlite3
+from contextlib import closing
+from pathlib import Path
+
+import geopandas as gpd
+import pandas as pd
+import pyogrio
+from pyogrio.errors import DataLayerError, DataSourceError
+
+from yieldscape.errors import InventoryError
+
+
+def read_layer(
+    path: Path, layer: str | None, key: str = "inventory.layer", what: str = "stand layer"
+) -> tuple[gpd.GeoDataFrame, str]:
+    """Read one vector layer of any format GDAL reads; return it with the layer name used.
+
+    ``key`` and ``what`` name the scenario key and the kind of file in messages.
+    """
+    if not path.exists():
+        raise InventoryError(f"{path}: {what} file not found")
+    try:
+        str(path).encode("utf-8")
+    except UnicodeEncodeError:  # bytes of another encoding in a file or folder name
+        raise InventoryError(
+            f"{str(path)!r}: the {what}'s path is not UTF-8, and GDAL reads UTF-8 paths only; "
+            "rename the file or its folder"
+        ) from None
+    try:
+        layers = [str(name) for name in pyogrio.list_layers(path)[:, 0]]
+    except (DataSourceError, OSError) as exc:
+        raise InventoryError(f"{path}: not a vector file GDAL can read ({exc})") from None
+    if not layers:
+        raise InventoryError(f"{path}: the file holds no layers")
+    if layer is None:
+        if len(layers) > 1:
+            raise InventoryError(
+                f"{path}: the file holds {len(layers)} layers ({', '.join(layers)}); "
+                f"name one with {key}"
+            )
+        layer = layers[0]
+    elif layer not in layers:
+        raise InventoryError(
+            f"{path}: no layer {layer!r} ({key}); the file holds: {', '.join(layers)}"
+        )
+    try:
+        frame = pyogrio.read_dataframe(path, layer=layer, use_arrow=True)
+    except (DataSourceError, DataLayerError, OSError) as exc:
+        raise InventoryError(f"{path}, layer {layer!r}: cannot be read ({exc})") from None
+    if not isinstance(frame, gpd.GeoDataFrame) or frame.geometry.name not in frame:
+        raise InventoryError(f"{path}, layer {layer!r}: the layer has no geometry column")
+    return frame, layer
+
+
+# GeoPackage 1.2 (OGC 12-128r15): GDAL writes it since 2.2 and reads it without a word, while a
+# 1.4 file makes an older GDAL (3.6, under QGIS 3.22 on Debian 12) warn on every open that it
+# "may only be partially supported"; nothing we write needs 1.3 or 1.4.
+GPKG_VERSION = "1.2"
+
+
+def write_gpkg_layer(path: Path, frame: pd.DataFrame, layer: str, spatial: bool = True) -> None:
+    """Write (or add) one layer to a GeoPackage; ``spatial=False`` writes an attribute table
+    (``gpkg_contents.data_type = 'attributes'``). The file is created at :data:`GPKG_VERSION`."""
+    create = not path.exists()
+    pyogrio.write_dataframe(
+        frame if spatial else pd.DataFrame(frame),
+        path,
+        layer=layer,
+        driver="GPKG",
+        use_arrow=True,
+        append=not create,
+        dataset_options={"VERSION": GPKG_VERSION} if create else None,
+    )
+
+
+def add_feature_views(
+    path: Path,
+    views: list[tuple[str, str, str, str]],
+    indexes: list[tuple[str, tuple[str, ...]]] = (),
+) -> None:
+    """Add SQL views to a GeoPackage as feature tables GDAL and GIS viewers list as layers.
+
+    Each view is ``(name, select, like, description)``: the SELECT must return the fid and
+    geometry column of the feature table ``like`` (``{geom}`` in it stands for that column's
+    name), whose geometry column, type, SRS and extent the view is registered with (OGC
+    12-128r15, GeoPackage 1.2, Req. 14: "The table_name column value in a gpkg_contents table
+    row SHALL contain the name of a SQLite table or view"). ``indexes`` adds SQLite indexes on
+    (table, columns) that the views filter by.
+    """
+    with closing(sqlite3.connect(path)) as con, con:
+        for table, cols in indexes:
+            name = f"idx_{table}_{'_'.join(cols)}"
+            listed = ", ".join(f'"{c}"' for c in cols)
+            con.execute(f'CREATE INDEX IF NOT EXISTS "{name}" ON "{table}" ({listed})')
+        for name, select, like, description in views:
+            column, gtype, srs, z, m = con.execute(
+                "SELECT column_name, geometry_type_name, srs_id, z, m "
+                "FROM gpkg_geometry_columns WHERE table_name = ?",
+                (like,),
+            ).fetchone()
+            con.execute(f'CREATE VIEW "{name}" AS {select.replace("{geom}", column)}')
+            con.execute(
+                "INSERT INTO gpkg_contents (table_name, data_type, identifier, description, "
+                "last_change, min_x, min_y, max_x, max_y, srs_id) "
+                "SELECT ?, 'features', ?, ?, strftime('%Y-%m-%dT%H:%M:%fZ', 'now'), "
+                "min_x, min_y, max_x, max_y, srs_id FROM gpkg_contents WHERE table_name = ?",
+                (name, name, description, like),
+            )
+            con.execute(
+                "INSERT INTO gpkg_geometry_columns (table_name, column_name, "
+                "geometry_type_name, srs_id, z, m) VALUES (?, ?, ?, ?, ?, ?)",
+                (name, column, gtype, srs, z, m),
+            )

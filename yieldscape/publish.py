@@ -1,0 +1,506 @@
+"""Everything a run writes into its (staged) output directory: the GeoPackage with its tables
+and per-period map layers, the CSV tables, figures, the HTML (and Markdown) report, optional
+GeoTIFFs, ``run.json`` and ``run.log``. Names of every file are here, in one place."""
+
+from __future__ import annotations
+
+import logging
+import time
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pyproj
+import shapely
+
+from yieldscape.config import Scenario
+from yieldscape.growth import curve_from_config
+from yieldscape.growth.rules import SiteSummary
+from yieldscape.io.outputs import sha256_file, write_json
+from yieldscape.io.rasters import write_geotiff
+from yieldscape.io.vector import add_feature_views, write_gpkg_layer
+from yieldscape.landbase import metres_per_unit, metric_geometries
+from yieldscape.reporting.compare import comparison_figure, comparison_table
+from yieldscape.reporting.curves import rotation_summary
+from yieldscape.reporting.figures import (
+    age_class_figure,
+    cover_figure,
+    curve_figure,
+    growing_stock_figure,
+    harvest_figure,
+    harvest_map_figure,
+    monte_carlo_figure,
+)
+from yieldscape.reporting.report import Figure, ReportData, html_report, markdown_report
+from yieldscape.versions import library_versions
+from yieldscape.zonal import stand_grid
+
+log = logging.getLogger("yieldscape")
+
+if TYPE_CHECKING:  # the pipeline imports this module; the types only for annotations
+    from yieldscape.pipeline import CheckResult, RunResult
+
+GPKG_NAME = "projection.gpkg"
+WOOD_FLOW_CSV = "wood_flow.csv"
+PRODUCTS_CSV = "wood_flow_by_product.csv"
+NETDOWN_CSV = "netdown.csv"
+OPENINGS_CSV = "openings.csv"
+COVER_CSV = "cover.csv"
+MONTE_CARLO_CSV = "monte_carlo.csv"
+INDICATORS_CSV = "indicators.csv"
+VERDICT_CSV = "verdict.csv"
+AGE_CLASSES_CSV = "age_classes.csv"
+BREAKDOWN_CSV = "harvest_by_zone_species.csv"
+COMPARISON_CSV = "comparison.csv"
+COMPARISON_PNG = "comparison.png"
+REPORT_HTML = "report.html"
+REPORT_MD = "report.md"
+RUN_JSON = "run.json"
+RUN_LOG = "run.log"
+CURVES_CSV = "curves.csv"
+FIGURES_DIR = "figures"
+RASTERS_DIR = "rasters"
+# every entry yieldscape writes into an output directory (run, curves)
+MANAGED = frozenset(
+    {
+        GPKG_NAME,
+        WOOD_FLOW_CSV,
+        PRODUCTS_CSV,
+        NETDOWN_CSV,
+        OPENINGS_CSV,
+        COVER_CSV,
+        MONTE_CARLO_CSV,
+        INDICATORS_CSV,
+        VERDICT_CSV,
+        AGE_CLASSES_CSV,
+        BREAKDOWN_CSV,
+        COMPARISON_CSV,
+        REPORT_HTML,
+        REPORT_MD,
+        RUN_JSON,
+        RUN_LOG,
+        CURVES_CSV,
+        FIGURES_DIR,
+        RASTERS_DIR,
+    }
+)
+MAP_PIXELS = 1200  # cells along the longer side of the harvest map figure
+BASE_LABEL = "base"  # the base case's name in the comparison with its sensitivity cases
+
+
+def write_outputs(
+    result: RunResult,
+    scenario: Scenario,
+    directory: Path,
+    case: tuple[str, dict] | None = None,
+) -> dict:
+    """Write every output of a run into the existing ``directory``, and the sensitivity
+    cases' outputs into ``directory/<name>/`` with a comparison of them; ``case`` (name and
+    keys set) marks the run as one of those cases. Returns what run.json holds."""
+    t0 = time.perf_counter()
+    write_tables(result, directory)
+    rep = scenario.report
+    if rep.map_layers:
+        write_map_layers(result, scenario, directory / GPKG_NAME)
+    if rep.raster_cell_m:
+        write_rasters(result, scenario, directory / RASTERS_DIR)
+    record = run_record(result, scenario)
+    comparison = None
+    if result.cases:
+        runs = [(BASE_LABEL, record, result.wood_flow)]
+        for (name, sets, scn), sub in zip(scenario.sensitivity, result.cases.values(), strict=True):
+            (directory / name).mkdir()
+            sub_record = write_outputs(sub, scn, directory / name, (name, dict(sets)))
+            runs.append((name, sub_record, sub.wood_flow))
+        comparison = comparison_table(runs)
+        comparison.to_csv(directory / COMPARISON_CSV, index=False)
+        (directory / FIGURES_DIR).mkdir(exist_ok=True)
+        comparison_figure(directory / FIGURES_DIR / COMPARISON_PNG, runs)
+    figures = write_figures(result, scenario, directory / FIGURES_DIR)
+    if comparison is not None:
+        figures["comparison"] = Figure(
+            directory / FIGURES_DIR / COMPARISON_PNG,
+            "Sensitivity cases",
+            "Harvest forecast of the base case and of each case on the same axes.",
+        )
+    data = report_data(result, scenario, record, figures, comparison, case)
+    (directory / REPORT_HTML).write_text(html_report(data), encoding="utf-8")
+    if rep.markdown:
+        (directory / REPORT_MD).write_text(markdown_report(data), encoding="utf-8")
+    result.timings_s["write outputs"] = round(time.perf_counter() - t0, 4)
+    record["timings_s"] = result.timings_s
+    # what this run wrote, so that a later run may replace it all (io.outputs.check_output_dir)
+    record["outputs"] = sorted({p.name for p in directory.iterdir()} | {RUN_JSON, RUN_LOG})
+    write_json(directory / RUN_JSON, record)
+    if case is None:  # once for the whole output: the cases' writes are part of it
+        log.info("write outputs done in %.2f s", result.timings_s["write outputs"])
+    (directory / RUN_LOG).write_text("\n".join(result.log) + "\n", encoding="utf-8")
+    return record
+
+
+def write_tables(result: RunResult, directory: Path) -> None:
+    """The GeoPackage layers and tables, and the same tables as CSV."""
+    gpkg = directory / GPKG_NAME
+    write_gpkg_layer(gpkg, result.stands, "stands")
+    write_gpkg_layer(gpkg, result.harvests, "harvests")
+    if result.write_harvestable_layer:
+        write_gpkg_layer(gpkg, harvestable_layer(result.inventory), "harvestable")
+    assert result.verdict is not None
+    tables = [
+        (result.wood_flow, "wood_flow", WOOD_FLOW_CSV),
+        (result.products, "wood_flow_by_product", PRODUCTS_CSV),
+        (result.inventory.netdown.table, "netdown", NETDOWN_CSV),
+        (result.monte_carlo, "monte_carlo", MONTE_CARLO_CSV),
+        (result.cover, "cover", COVER_CSV),
+        (result.openings, "openings", OPENINGS_CSV),
+        (result.indicators, "indicators", INDICATORS_CSV),
+        (result.verdict.table(), "verdict", VERDICT_CSV),
+        (result.age_classes, "age_classes", AGE_CLASSES_CSV),
+        (result.harvest_breakdown, "harvest_by_zone_species", BREAKDOWN_CSV),
+        (result.stand_ages, "stand_ages", None),
+    ]
+    for table, layer, csv in tables:
+        if table is None:
+            continue
+        write_gpkg_layer(gpkg, table, layer, spatial=False)
+        if csv is not None:
+            table.to_csv(directory / csv, index=False)
+
+
+def write_map_layers(result: RunResult, scenario: Scenario, gpkg: Path) -> None:
+    """Layers a GIS user switches on one at a time: the harvest of each period and the stand
+    ages at each report year, as views over ``harvests`` and ``stands`` + ``stand_ages``
+    (registered as feature tables, so they cost no copy of the geometry)."""
+    periods = scenario.scenario.periods
+    width = len(str(periods))
+    views = [
+        (
+            f"harvests_period_{p:0{width}d}",
+            f'SELECT * FROM "harvests" WHERE "period" = {p}',
+            "harvests",
+            f"Stands cut in period {p}",
+        )
+        for p in range(1, periods + 1)
+    ]
+    year_cols = ("year", "age_years", "mean_age_years", "renewed_share")
+    geom = result.stands.geometry.name
+    own = [c for c in result.stands.columns if c != geom and c not in year_cols]
+    cols = ", ".join(
+        ['s."fid" AS "fid"', 's."{geom}" AS "{geom}"']
+        + [f's."{c}" AS "{c}"' for c in own]
+        + ['s."age_years" AS "start_age_years"']
+        + [f'a."{c}" AS "{c}"' for c in year_cols]
+    )
+    for year in scenario.report.age_class_years:
+        views.append(
+            (
+                f"stands_age_{year}",
+                f'SELECT {cols} FROM "stands" AS s JOIN "stand_ages" AS a '
+                f'ON a."stand_id" = s."stand_id" WHERE a."year" = {year}',
+                "stands",
+                f"Stands with their age in {year}",
+            )
+        )
+    add_feature_views(
+        gpkg,
+        views,
+        indexes=[("harvests", ("period",)), ("stand_ages", ("year", "stand_id"))],
+    )
+
+
+def _stand_grid_in_metres(result: RunResult, cell_m: float):  # noqa: ANN202
+    """Stand labels on a grid of ``cell_m`` metres in a metric CRS (the layer's own when
+    projected), the grid's transform and that CRS."""
+    geoms, wcrs = metric_geometries(result.inventory.stands)
+    cell = cell_m / metres_per_unit(wcrs)
+    x0, y0, x1, y1 = shapely.total_bounds(geoms)
+    bounds = (
+        np.floor(x0 / cell) * cell,
+        np.floor(y0 / cell) * cell,
+        np.ceil(x1 / cell) * cell,
+        np.ceil(y1 / cell) * cell,
+    )
+    labels, transform = stand_grid(geoms, cell, bounds)
+    return labels, transform, wcrs
+
+
+def first_periods(result: RunResult) -> np.ndarray:
+    """First harvest period per stand, 0 where never cut."""
+    return result.stands["first_harvest_period"].fillna(0).to_numpy(dtype=np.int64)
+
+
+def write_rasters(result: RunResult, scenario: Scenario, directory: Path) -> None:
+    """GeoTIFFs at ``report.raster_cell_m``: the first harvest period of each cell's stand
+    (0: not cut in the horizon) and its age at each report year (nodata outside stands)."""
+    directory.mkdir()
+    labels, transform, crs = _stand_grid_in_metres(result, scenario.report.raster_cell_m)
+    first = np.r_[-1, first_periods(result)].astype(np.int16)
+    write_geotiff(
+        directory / "first_harvest_period.tif",
+        first[labels],
+        transform,
+        crs,
+        -1,
+        "first harvest period (0: not cut in the horizon)",
+    )
+    ages = result.stand_ages
+    for year in scenario.report.age_class_years:
+        age = ages.loc[ages["year"] == year, "age_years"].to_numpy(dtype=np.float32)
+        grid = np.r_[np.float32(-9999), age][labels]
+        write_geotiff(
+            directory / f"age_{year}.tif",
+            grid,
+            transform,
+            crs,
+            -9999.0,
+            f"stand age in {year} (years; age of the stand's largest part)",
+        )
+
+
+def write_figures(result: RunResult, scenario: Scenario, directory: Path) -> dict[str, Figure]:
+    """The run's figures as PNG files; returns them by key with title and caption."""
+    directory.mkdir(exist_ok=True)
+    wf = result.wood_flow
+    verdict = result.verdict
+    assert verdict is not None
+    figs: dict[str, Figure] = {}
+
+    def add(key: str, title: str, caption: str) -> Path:
+        path = directory / f"{key}.png"
+        figs[key] = Figure(path, title, caption)
+        return path
+
+    f = scenario.flow
+    show_range = f.policy == "even" and f.band > 0 and f.method == "rules"
+    failing = next(
+        (c.period for c in verdict.checks if c.name == "flow_policy_held" and not c.holds), None
+    )
+    harvest_figure(
+        add(
+            "harvest_forecast",
+            "Harvest forecast",
+            "Harvest per year in each period (solid), the long-term sustained yield "
+            "(harvestable area x MAI) at MAI culmination and at the minimum harvest ages, "
+            "the range the flow band allows each period given the period before (shaded), "
+            "and the harvest LP's harvest where it was solved: it bounds the total over the "
+            "horizon, not each period, and it may move within the band from period to "
+            "period, which the even-flow search (one level for all periods) does not.",
+        ),
+        wf,
+        result.long_term_sustained_yield,
+        show_range,
+        failing,
+    )
+    growing_stock_figure(
+        add(
+            "growing_stock",
+            "Growing stock",
+            "Standing volume at each period boundary on the whole forest and on the "
+            "harvestable land base, and the stock a regulated forest on the harvestable land "
+            "base would hold if cut at the minimum harvest ages.",
+        ),
+        wf,
+        result.regulated_hlb_stock_m3,
+    )
+    age_class_figure(
+        add(
+            "age_classes",
+            "Age classes",
+            f"Area by {scenario.report.age_class_width_years:g}-year age class at each "
+            "report year; dark: harvestable land base, light: the rest of the forest.",
+        ),
+        result.age_classes,
+    )
+    if result.cover is not None:
+        cover_figure(
+            add(
+                "cover_targets",
+                "Cover targets",
+                "Each target's share of its zone after each period's harvest (line) against "
+                "the target (dashed); a cross marks a period that misses it.",
+            ),
+            result.cover,
+            wf["start_year"].to_numpy(),
+        )
+    labels, transform = _stand_grid_for_map(result)
+    h, w = labels.shape
+    extent = (
+        transform.c,
+        transform.c + w * transform.a,
+        transform.f + h * transform.e,
+        transform.f,
+    )
+    caption = (
+        "The first period in which each stand is cut (projection.gpkg: style the stands "
+        "layer by first_harvest_period, or switch on the harvests_period_* layers)."
+    )
+    path = add("harvest_map", "Where and when", caption)
+    note = harvest_map_figure(
+        path,
+        labels,
+        extent,
+        first_periods(result),
+        scenario.scenario.periods,
+        wf["start_year"].to_numpy(),
+        pyproj.CRS.from_user_input(result.inventory.stands.crs),
+    )
+    if note:
+        figs["harvest_map"] = Figure(path, "Where and when", f"{caption} {note}")
+    if result.monte_carlo is not None:
+        monte_carlo_figure(
+            add(
+                "monte_carlo",
+                "Harvest and growing stock under random disturbance",
+                "Over the replicates, each period's harvest (above) and growing stock at the "
+                "period's end (below): the band from the 10th to the 90th percentile, the "
+                "median, and the expected-value schedule's target and stock. Where every "
+                "replicate meets every target the harvest band is a line, and the risk shows "
+                "in the stock.",
+            ),
+            result.monte_carlo,
+            wf,
+        )
+    for code, summary in dominant_sites(result.curves, result.curve_summaries).items():
+        curve = curve_from_config(scenario.species[code])
+        age = figure_age(summary, scenario.growth.max_age_years)
+        curve_figure(
+            add(
+                f"curves_{code}",
+                f"Yield curve of {code}",
+                f"Volume, MAI and CAI at site index {summary.site_index:g} m (the site with "
+                "the most area), with the rotation ages marked.",
+            ),
+            code,
+            curve,
+            summary,
+            age,
+        )
+    return figs
+
+
+def _stand_grid_for_map(result: RunResult):  # noqa: ANN202
+    """Labels for the map figure (in the layer's CRS): about MAP_PIXELS cells along the
+    longer side."""
+    geoms = result.inventory.stands.geometry.to_numpy()
+    x0, y0, x1, y1 = shapely.total_bounds(geoms)
+    return stand_grid(geoms, max(x1 - x0, y1 - y0) / MAP_PIXELS or 1.0)
+
+
+def dominant_sites(
+    table: pd.DataFrame, summaries: dict[str, list[SiteSummary]]
+) -> dict[str, SiteSummary]:
+    """Per species, the summary of the site index value holding the most area."""
+    out = {}
+    for code, sums in summaries.items():
+        sites = table[table["species"] == code].reset_index(drop=True)
+        out[code] = sums[int(sites["area_ha"].to_numpy().argmax())]
+    return out
+
+
+def figure_age(summary: SiteSummary, max_age: float) -> float:
+    """Show a curve to about twice its latest marked age, within the search range."""
+    marks = [summary.culmination.age_years, summary.min_harvest_age_years]
+    if summary.fisher is not None:
+        marks.append(summary.fisher.age_years)
+    finite = [m for m in marks if np.isfinite(m)]
+    return float(min(max_age, max(100.0, 2.0 * max(finite)))) if finite else max_age
+
+
+def report_data(
+    result: RunResult,
+    scenario: Scenario,
+    record: dict,
+    figures: dict[str, Figure],
+    comparison: pd.DataFrame | None,
+    case: tuple[str, dict] | None = None,
+) -> ReportData:
+    assert result.verdict is not None and result.indicators is not None
+    return ReportData(
+        scenario=scenario,
+        created_utc=record["created_utc"],
+        yieldscape_version=record["yieldscape_version"],
+        inventory=record["inventory"],
+        verdict=result.verdict,
+        wood_flow=result.wood_flow,
+        indicators=result.indicators,
+        netdown=result.inventory.netdown.table,
+        rotations=rotation_summary(result.curves),
+        curves=result.curves,
+        figures=figures,
+        binding=result.flow.binding,
+        cover=result.cover,
+        breakdown=result.harvest_breakdown,
+        comparison=comparison,
+        lp=result.lp,
+        case=case,
+        # the run's warnings, once RunResult carries them
+        warnings=tuple(getattr(result, "warnings", ())),
+    )
+
+
+def run_record(result: RunResult, scenario: Scenario) -> dict:
+    """The provenance of a run: versions, the resolved scenario, input checksums, timings."""
+    inputs = {}
+    if scenario.source is not None:
+        inputs[str(scenario.source)] = sha256_file(scenario.source)
+    inputs[str(scenario.inventory.path)] = sha256_file(scenario.inventory.path)
+    for sp in scenario.species.values():
+        if sp.table_csv is not None:
+            inputs[str(sp.table_csv)] = sha256_file(sp.table_csv)
+    for path in [scenario.inventory.site_index_raster] + [
+        p for st in scenario.landbase.steps for p in (st.layer, st.raster)
+    ]:
+        if path is not None:
+            inputs[str(path)] = sha256_file(path)
+    flow = result.flow
+    return {
+        "yieldscape_version": library_versions()["yieldscape"],
+        "created_utc": datetime.now(UTC).isoformat(timespec="seconds"),
+        "versions": library_versions(),
+        "scenario": scenario.to_dict(),
+        "inputs_sha256": inputs,
+        "inventory": {
+            "stands": result.inventory.report.stands,
+            "area_ha": result.inventory.report.area_ha,
+            "crs": result.inventory.report.crs,
+            "area_method": result.inventory.report.area_method,
+            "repaired_geometries": result.inventory.report.repaired_geometries,
+            "harvestable_ha": float(result.inventory.netdown.harvestable_ha.sum()),
+        },
+        "flow": {
+            "policy": flow.policy,
+            "method": scenario.flow.method,
+            "level_m3_per_period": flow.level_m3_per_period,
+            "level_m3_per_year": flow.level_m3_per_year,
+            "binding": flow.binding,
+            "search_steps": flow.steps,
+            **{k: v for k, v in flow.details.items()},
+            "long_term_sustained_yield_m3_per_year": result.long_term_sustained_yield,
+            "initial_growing_stock_m3": flow.simulation.initial_stock_m3,
+            "ending_growing_stock_m3": flow.simulation.ending_stock_m3,
+        },
+        "verdict": result.verdict.to_dict() if result.verdict is not None else None,
+        "warnings": list(result.warnings),
+        "lp": result.lp,
+        "timings_s": result.timings_s,
+    }
+
+
+def harvestable_layer(checked: CheckResult) -> gpd.GeoDataFrame:
+    """The netted geometry of each stand's harvestable part (vector steps cut it; raster and
+    percent steps only reduce ``harvestable_ha``)."""
+    s = checked.stands
+    keep = checked.netdown.harvestable_ha > 0
+    frame = pd.DataFrame(
+        {
+            "stand_id": s["stand_id"].to_numpy()[keep],
+            "species": s["species"].to_numpy()[keep],
+            "gross_ha": checked.netdown.gross_ha[keep],
+            "harvestable_ha": checked.netdown.harvestable_ha[keep],
+        }
+    )
+    geom = checked.netdown.remaining_geometry[keep]
+    return gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geom, crs=s.crs).values, crs=s.crs)

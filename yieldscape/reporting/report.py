@@ -1,0 +1,613 @@
+"""The run report: one self-contained HTML page (figures embedded as data URIs, styles inline,
+no network resource) and optionally the same content as Markdown.
+
+The content is assembled once as a list of :class:`Section` blocks and rendered twice, so the
+two forms cannot drift apart.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from yieldscape.config import Scenario
+from yieldscape.reporting.indicators import POLICY_NAMES, Verdict
+
+CAUTION = (
+    "These are planning estimates from models, not prescriptions. Yield curves, netdowns and "
+    "rules simplify real forests, and a harvest level that is sustainable on paper can still "
+    "harm people, places, soils, water and wildlife. Before any decision, defer to local "
+    "forest-practice law and regulation and to licensed forest professionals who know the "
+    "ground."
+)
+
+
+@dataclass(frozen=True)
+class Figure:
+    """A figure file of the run with its title and a caption saying how to read it."""
+
+    path: Path
+    title: str
+    caption: str
+
+
+@dataclass(frozen=True)
+class Table:
+    """A table of the report; columns left entirely empty are not shown."""
+
+    frame: pd.DataFrame
+    caption: str = ""
+    collapsed: bool = False  # shown folded (HTML <details>)
+    plain: tuple[str, ...] = ("period", "year", "from", "to", "first failing period")
+    mixed: tuple[str, ...] = ("value",)  # columns of different quantities, row by row
+    boxed: bool = False  # set off in a box (HTML), as the key numbers are
+
+    def __post_init__(self) -> None:
+        frame = self.frame.dropna(axis=1, how="all") if len(self.frame) else self.frame
+        object.__setattr__(self, "frame", frame)
+
+
+@dataclass(frozen=True)
+class Items:
+    """A titled list of separate points, one item each (the run's warnings)."""
+
+    title: str
+    items: tuple[str, ...]
+
+
+Block = str | Table | Figure | Items
+
+
+@dataclass
+class Section:
+    title: str
+    blocks: list[Block] = field(default_factory=list)
+
+
+@dataclass
+class ReportData:
+    """Everything the report shows; the pipeline fills it from a run."""
+
+    scenario: Scenario
+    created_utc: str
+    yieldscape_version: str
+    inventory: dict[str, Any]
+    verdict: Verdict
+    wood_flow: pd.DataFrame
+    indicators: pd.DataFrame
+    netdown: pd.DataFrame
+    rotations: pd.DataFrame
+    curves: pd.DataFrame
+    figures: dict[str, Figure]
+    binding: str
+    cover: pd.DataFrame | None = None
+    breakdown: pd.DataFrame | None = None
+    comparison: pd.DataFrame | None = None
+    lp: dict | None = None
+    case: tuple[str, dict] | None = None  # a sensitivity case: its name and the keys it sets
+    warnings: tuple[str, ...] = ()  # what the run warned of, one sentence each
+
+
+def _decimals(values: pd.Series) -> int:
+    """One number of decimals for a whole column: none for whole numbers or large values,
+    more for small ones."""
+    v = pd.to_numeric(values, errors="coerce").to_numpy(dtype=np.float64)
+    v = v[np.isfinite(v)]
+    if not len(v) or np.all(v == np.round(v)):
+        return 0
+    top = np.abs(v).max()
+    return 0 if top >= 1000 else 1 if top >= 10 else 2 if top >= 1 else 3
+
+
+def _column(values: pd.Series, plain: bool, mixed: bool = False) -> list[str]:
+    """A column's cells as text: thousands separators (not for years and periods, ``plain``),
+    one precision per column (per cell for a column of ``mixed`` quantities), blanks for
+    missing, 'never' for an infinite age."""
+    if pd.api.types.is_bool_dtype(values):
+        return ["yes" if v else "no" for v in values]
+    if not pd.api.types.is_numeric_dtype(values):
+        return [
+            "" if pd.isna(v) else ("yes" if v else "no") if isinstance(v, bool) else str(v)
+            for v in values
+        ]
+    d = _decimals(values)
+    sep = "" if plain else ","
+    out = []
+    for v in values:
+        if pd.isna(v):
+            out.append("")
+        elif isinstance(v, float) and math.isinf(v):
+            out.append("never" if v > 0 else "-inf")
+        else:
+            places = _decimals(pd.Series([v])) if mixed else d
+            out.append(f"{float(v):{sep}.{places}f}")
+    return out
+
+
+def _cells(t: Table) -> list[list[str]]:
+    cols = [_column(t.frame[c], c in t.plain, c in t.mixed) for c in t.frame.columns]
+    return [list(row) for row in zip(*cols, strict=True)] if cols else []
+
+
+def _scenario_table(data: ReportData) -> pd.DataFrame:
+    s = data.scenario
+    info, f, h, d = s.scenario, s.flow, s.harvest, s.disturbance
+    end = info.start_year + info.periods * info.period_years
+    inv = data.inventory
+    rows = [("scenario", info.name)]
+    if data.case is not None:
+        name, sets = data.case
+        rows.append(
+            (
+                "sensitivity case",
+                f"{name}: the base case with " + ", ".join(f"{k} = {v!r}" for k, v in sets.items()),
+            )
+        )
+    rows += [
+        (
+            "horizon",
+            f"{info.start_year} to {end}: {info.periods} periods of "
+            f"{info.period_years} years, harvest at the period's {info.harvest_timing}",
+        ),
+        (
+            "stand layer",
+            f"{s.inventory.path.name}: {inv['stands']:,} stands, "
+            f"{inv['area_ha']:,.0f} ha, {inv['crs']}",
+        ),
+        (
+            "harvestable land base",
+            f"{inv['harvestable_ha']:,.0f} ha "
+            f"({100 * inv['harvestable_ha'] / inv['area_ha']:.1f}% of the gross area)",
+        ),
+        (
+            "flow policy",
+            f"{POLICY_NAMES.get(f.policy, f.policy)}"
+            + (f", band +/-{100 * f.band:g}%" if f.policy == "even" and f.band else "")
+            + (
+                f", step-down at most {100 * f.step_down_max:g}% per period"
+                if f.policy == "stepdown"
+                else ""
+            )
+            + f"; ending growing stock at least {100 * f.ending_stock:g}% of the initial"
+            + ("; schedule from the harvest LP" if f.method == "optimize" else ""),
+        ),
+        (
+            "harvest order",
+            f"{h.priority} first"
+            + (
+                f"; at most {h.max_area_ha_per_period:,.0f} ha per period"
+                if h.max_area_ha_per_period
+                else ""
+            ),
+        ),
+        (
+            "spatial rules",
+            (
+                f"green-up {h.greenup_years:g} years, openings up to "
+                f"{h.max_opening_ha:g} ha, {h.adjacency} neighbours"
+                if h.max_opening_ha
+                else f"green-up {h.greenup_years:g} years, no two neighbours ({h.adjacency})"
+            )
+            if h.spatial
+            else "none",
+        ),
+        (
+            "cover targets",
+            "; ".join(
+                f"{'all zones' if c.zone == '*' else 'zone ' + c.zone}: "
+                f"{'older' if c.kind == 'old' else 'younger'} than "
+                f"{c.age_years:g} years {'at least' if c.kind == 'old' else 'at most'} "
+                f"{100 * c.share:g}%"
+                for c in s.cover
+            )
+            or "none",
+        ),
+        (
+            "disturbance",
+            f"{100 * d.annual_rate:g}% a year, stand-replacing"
+            + (f"; {d.replicates} random replicates" if d.replicates else "")
+            if d.annual_rate
+            else "none",
+        ),
+        (
+            "species",
+            "; ".join(
+                f"{code}: {sp.curve}"
+                + (
+                    f", net price {sp.price_per_m3:g} per m3 (scenario currency)"
+                    if sp.price_per_m3 is not None
+                    else ""
+                )
+                for code, sp in s.species.items()
+            ),
+        ),
+    ]
+    if s.overrides:
+        rows.append(("overrides (--set)", ", ".join(s.overrides)))
+    return pd.DataFrame(rows, columns=["item", "value"])
+
+
+ROTATION_HEADERS = {
+    "site_index_min": "SI from (m)",
+    "site_index_max": "SI to (m)",
+    "site_index": "SI (m)",
+    "area_ha": "area (ha)",
+    "culmination_age_years": "MAI culmination",
+    "max_mai_m3_ha_yr": "max MAI",
+    "min_harvest_age_years": "min. harvest age",
+    "faustmann_rotation_years": "Faustmann rotation",
+    "fisher_rotation_years": "single-rotation (Fisher)",
+    "lev_per_ha": "LEV per ha",
+}
+
+WOOD_FLOW_SHOWN = {
+    "period": "period",
+    "start_year": "from",
+    "end_year": "to",
+    "harvest_m3_per_year": "harvest m3/yr",
+    "harvest_ha_per_year": "area ha/yr",
+    "mean_harvest_age_years": "mean age",
+    "harvest_volume_m3_ha": "m3/ha cut",
+    "growing_stock_end_m3": "growing stock m3 (end)",
+    "hlb_growing_stock_end_m3": "harvestable stock m3 (end)",
+    "net_growth_m3_per_year": "net growth m3/yr",
+    "meets_policy": "meets policy",
+    "discounted_net_revenue": "discounted net revenue",
+}
+
+
+CHECK_SHOWN = {
+    "label": "check",
+    "holds": "holds",
+    "first_failing_period": "first failing period",
+    "detail": "detail",
+}
+INDICATORS_SHOWN = {"label": "indicator", "value": "value", "unit": "unit", "meaning": "meaning"}
+NETDOWN_SHOWN = {
+    "step": "step",
+    "label": "label",
+    "removed_ha": "removed (ha)",
+    "percent_of_gross": "% of gross",
+    "remaining_ha": "remaining (ha)",
+    "kind": "kind",
+}
+CASES_SHOWN = {
+    "run": "case",
+    "level_m3_per_year": "level m3/yr",
+    "short_term_m3_per_year": "short term m3/yr",
+    "long_term_m3_per_year": "long term m3/yr",
+    "ending_stock_ratio": "ending / initial stock",
+    "sustainable": "sustainable",
+    "diff_level_m3_per_year": "level against base m3/yr",
+    "differences": "differences",
+}
+BREAKDOWN_SHOWN = {
+    "zone": "zone",
+    "species": "species",
+    "harvest_ha": "area cut (ha)",
+    "harvest_m3": "volume cut (m3)",
+}
+
+
+def _shown(frame: pd.DataFrame, headers: dict[str, str]) -> pd.DataFrame:
+    """The columns of ``headers`` that the frame has, renamed to their headers."""
+    return frame[[c for c in headers if c in frame]].rename(columns=headers)
+
+
+LEVEL_MEANS = {  # what the flow level is, where a policy's harvest is not one level
+    "nondeclining": ", period 1",
+    "stepdown": ", initial level",
+    "targets": ", mean harvest",
+    "optimize": ", period 1",
+}
+
+
+def key_numbers(data: ReportData) -> pd.DataFrame:
+    """The numbers a reader needs first, in words: the flow level, the harvestable land base,
+    the long-term sustained yield, the ending growing stock against the initial and the
+    requirement, and each sensitivity case's level and verdict."""
+    ind = data.indicators.set_index("indicator")["value"]
+    f = data.scenario.flow
+    key = "optimize" if f.method == "optimize" else f.policy
+    policy = POLICY_NAMES.get(key, key) + LEVEL_MEANS.get(key, "")
+    level = float(ind["flow_level_m3_per_year"])
+    gross, hlb = float(ind["gross_area_ha"]), float(ind["harvestable_ha"])
+    ltsy = float(ind["ltsy_at_culmination_m3_per_year"])
+    gs0, gs1 = float(ind["initial_growing_stock_m3"]), float(ind["ending_growing_stock_m3"])
+    need = f.ending_stock
+    rows = [
+        (f"Flow level ({policy})", f"{level:,.0f} m3/year"),
+        (
+            "Harvestable land base",
+            f"{hlb:,.0f} ha, {100 * hlb / gross:.1f}% of the gross {gross:,.0f} ha"
+            if gross > 0
+            else f"{hlb:,.0f} ha",
+        ),
+        (
+            "Long-term sustained yield",
+            f"{ltsy:,.0f} m3/year (harvestable area x maximum MAI); the flow level is "
+            f"{100 * level / ltsy:.0f}% of it"
+            if ltsy > 0
+            else f"{ltsy:,.0f} m3/year (harvestable area x maximum MAI)",
+        ),
+        (
+            "Ending growing stock",
+            (
+                f"{gs1:,.0f} m3, {100 * gs1 / gs0:.1f}% of the initial {gs0:,.0f} m3"
+                if gs0 > 0
+                else f"{gs1:,.0f} m3"
+            )
+            + (f"; at least {100 * need:g}% required" if need > 0 else "; no minimum required"),
+        ),
+    ]
+    if data.comparison is not None:
+        for row in data.comparison.iloc[1:].itertuples(index=False):
+            judged = {True: "sustainable", False: "not sustainable"}.get(
+                row.sustainable, "verdict unknown"
+            )
+            rows.append(
+                (
+                    f"Sensitivity case {row.run}",
+                    f"{row.level_m3_per_year:,.0f} m3/year "
+                    f"({row.diff_level_m3_per_year:+,.0f} against the base), {judged}",
+                )
+            )
+    return pd.DataFrame(rows, columns=["key number", "value"])
+
+
+def sections(data: ReportData) -> list[Section]:
+    """The report's content, in reading order. The first screen (one section) holds the
+    verdict, the key numbers and the caution, then the run's warnings; the checks and the
+    rest follow."""
+    v = data.verdict
+    first: list[Block] = [
+        v.headline,
+        f"What stops a higher level: {v.limited_by}.",
+        Table(key_numbers(data), "Key numbers (indicators.csv has them all).", boxed=True),
+    ]
+    first.append(CAUTION)
+    if data.warnings:  # after the caution, which the first screen must hold
+        first.append(Items("Warnings", tuple(data.warnings)))
+    out = [Section("Verdict", first)]
+    out.append(
+        Section(
+            "Checks of the verdict",
+            [Table(_shown(v.table(), CHECK_SHOWN), "Methods: docs/methods.md, the verdict.")],
+        )
+    )
+    figs = data.figures
+    main = Section("Harvest and growing stock")
+    for key in ("harvest_forecast", "growing_stock"):
+        if key in figs:
+            main.blocks.append(figs[key])
+    out.append(main)
+    out.append(Section("Scenario", [Table(_scenario_table(data))]))
+    out.append(
+        Section(
+            "Land base netdown",
+            [
+                Table(
+                    _shown(data.netdown, NETDOWN_SHOWN),
+                    "Each step removes only area no earlier step removed.",
+                )
+            ],
+        )
+    )
+    out.append(
+        Section(
+            "Growth curves and rotations",
+            [
+                Table(
+                    data.rotations.rename(columns=ROTATION_HEADERS),
+                    "Per species, area-weighted over the site index values in use "
+                    "(ages in years, MAI in m3/ha/yr).",
+                ),
+                Table(
+                    data.curves.rename(columns=ROTATION_HEADERS),
+                    "Per species and site index (1 m steps; curves.csv has the same columns).",
+                    collapsed=True,
+                ),
+            ],
+        )
+    )
+    shown = data.wood_flow[[c for c in WOOD_FLOW_SHOWN if c in data.wood_flow]]
+    if shown["discounted_net_revenue"].isna().all():
+        shown = shown.drop(columns="discounted_net_revenue")
+    out.append(
+        Section(
+            "Indicators",
+            [
+                Table(
+                    _shown(data.indicators, INDICATORS_SHOWN),
+                    "Over the whole horizon (indicators.csv).",
+                ),
+                Table(
+                    shown.rename(columns=WOOD_FLOW_SHOWN),
+                    "By period, years from and to inclusive (wood_flow.csv has every column).",
+                ),
+            ],
+        )
+    )
+    forest = Section("Forest structure")
+    for key in ("age_classes", "cover_targets", "harvest_map"):
+        if key in figs:
+            forest.blocks.append(figs[key])
+    if data.breakdown is not None and len(data.breakdown):
+        by = (
+            data.breakdown.groupby(["zone", "species"], dropna=False)[["harvest_ha", "harvest_m3"]]
+            .sum()
+            .reset_index()
+        )
+        forest.blocks.append(
+            Table(_shown(by, BREAKDOWN_SHOWN), "Harvest over the horizon by zone and species.")
+        )
+    out.append(forest)
+    if "monte_carlo" in figs:
+        out.append(Section("Disturbance risk", [figs["monte_carlo"]]))
+    if data.comparison is not None:
+        block: list[Block] = [
+            Table(
+                _shown(data.comparison, CASES_SHOWN),
+                "The base case and each [[sensitivity]] case, with its verdict.",
+            )
+        ]
+        if "comparison" in figs:
+            block.append(figs["comparison"])
+        out.append(Section("Sensitivity cases", block))
+    curves = Section("Growth curves")
+    for key, fig in figs.items():
+        if key.startswith("curves_"):
+            curves.blocks.append(fig)
+    if curves.blocks:
+        out.append(curves)
+    out.append(
+        Section(
+            "About this run",
+            [
+                f"yieldscape {data.yieldscape_version}, run at {data.created_utc} (UTC). "
+                "run.json records the resolved scenario, the checksums of every input file "
+                "and the versions of the libraries used.",
+                CAUTION,
+            ],
+        )
+    )
+    return out
+
+
+STYLE = """
+body { font-family: sans-serif; max-width: 60em; margin: 2em auto; padding: 0 1em;
+       color: #111; line-height: 1.45; }
+h1 { font-size: 1.6em; } h2 { font-size: 1.25em; border-bottom: 1px solid #999;
+       margin-top: 2em; }
+table { border-collapse: collapse; margin: 0.8em 0; font-size: 0.85em; }
+th, td { border: 1px solid #bbb; padding: 0.2em 0.5em; vertical-align: top; }
+th { background: #eee; text-align: left; }
+td.num { text-align: right; font-variant-numeric: tabular-nums; }
+caption { caption-side: top; text-align: left; font-style: italic; padding: 0.2em 0; }
+figure { margin: 1em 0; } figure img { max-width: 100%; height: auto; border: 1px solid #ddd; }
+figcaption { font-size: 0.9em; }
+.caution { border: 2px solid #333; padding: 0.6em 1em; background: #f4f4f4; }
+.verdict { font-size: 1.05em; font-weight: bold; }
+.box table { border: 2px solid #333; font-size: 0.95em; }
+.box th { display: none; }
+.box td:first-child { font-weight: bold; }
+.warnings { border-left: 4px solid #333; padding: 0.1em 1em; background: #f4f4f4; }
+.warnings p { margin: 0.4em 0; }
+.wide { overflow-x: auto; }
+"""
+
+
+def _title(data: ReportData) -> str:
+    title = f"yieldscape report: {data.scenario.scenario.name}"
+    return title if data.case is None else f"{title}, sensitivity case {data.case[0]}"
+
+
+def _html_table(t: Table) -> str:
+    frame = t.frame
+    head = "".join(f"<th>{html.escape(str(c))}</th>" for c in frame.columns)
+    numeric = [pd.api.types.is_numeric_dtype(frame[c]) for c in frame.columns]
+    body = "".join(
+        "<tr>"
+        + "".join(
+            f'<td class="num">{html.escape(c)}</td>' if num else f"<td>{html.escape(c)}</td>"
+            for c, num in zip(row, numeric, strict=True)
+        )
+        + "</tr>"
+        for row in _cells(t)
+    )
+    cap = f"<caption>{html.escape(t.caption)}</caption>" if t.caption else ""
+    cls = "wide box" if t.boxed else "wide"
+    table = (
+        f'<div class="{cls}"><table>{cap}<thead><tr>{head}</tr></thead>'
+        f"<tbody>{body}</tbody></table></div>"
+    )
+    if t.collapsed:
+        return f"<details><summary>{html.escape(t.caption or 'table')}</summary>{table}</details>"
+    return table
+
+
+def _html_figure(fig: Figure) -> str:
+    data = base64.b64encode(fig.path.read_bytes()).decode("ascii")
+    return (
+        f'<figure><img src="data:image/png;base64,{data}" alt="{html.escape(fig.title)}" '
+        f'data-file="figures/{html.escape(fig.path.name)}">'
+        f"<figcaption><strong>{html.escape(fig.title)}.</strong> "
+        f"{html.escape(fig.caption)}</figcaption></figure>"
+    )
+
+
+def html_report(data: ReportData) -> str:
+    """The report as one HTML5 document with everything embedded."""
+    parts = []
+    for sec in sections(data):
+        parts.append(f"<section><h2>{html.escape(sec.title)}</h2>")
+        for i, block in enumerate(sec.blocks):
+            if isinstance(block, Table):
+                parts.append(_html_table(block))
+            elif isinstance(block, Figure):
+                parts.append(_html_figure(block))
+            elif isinstance(block, Items):
+                items = "".join(f"<li>{html.escape(i)}</li>" for i in block.items)
+                parts.append(
+                    f'<div class="warnings"><p><strong>{html.escape(block.title)}</strong></p>'
+                    f"<ul>{items}</ul></div>"
+                )
+            else:
+                cls = (
+                    ' class="caution"'
+                    if block == CAUTION
+                    else ' class="verdict"'
+                    if sec.title == "Verdict" and i == 0
+                    else ""
+                )
+                parts.append(f"<p{cls}>{html.escape(block)}</p>")
+        parts.append("</section>")
+    title = _title(data)
+    return (
+        "<!DOCTYPE html>\n"
+        '<html lang="en">\n<head>\n<meta charset="utf-8">\n'
+        '<meta name="viewport" content="width=device-width, initial-scale=1">\n'
+        f"<title>{html.escape(title)}</title>\n<style>{STYLE}</style>\n</head>\n<body>\n"
+        f"<h1>{html.escape(title)}</h1>\n" + "\n".join(parts) + "\n</body>\n</html>\n"
+    )
+
+
+def _md_escape(text: str) -> str:
+    return text.replace("|", "\\|").replace("\n", " ")
+
+
+def markdown_report(data: ReportData) -> str:
+    """The same report as Markdown; figures are linked from ``figures/``."""
+    lines = [f"# {_title(data)}", ""]
+    for sec in sections(data):
+        lines += [f"## {sec.title}", ""]
+        for block in sec.blocks:
+            if isinstance(block, Table):
+                if block.caption:
+                    lines += [f"*{block.caption}*", ""]
+                cols = [str(c) for c in block.frame.columns]
+                lines.append("| " + " | ".join(_md_escape(c) for c in cols) + " |")
+                lines.append("|" + "---|" * len(cols))
+                for row in _cells(block):
+                    lines.append("| " + " | ".join(_md_escape(c) for c in row) + " |")
+                lines.append("")
+            elif isinstance(block, Figure):
+                lines += [
+                    f"![{block.title}](figures/{block.path.name})",
+                    "",
+                    f"*{block.title}.* {block.caption}",
+                    "",
+                ]
+            elif isinstance(block, Items):
+                lines += [f"**{block.title}**", ""]
+                lines += [f"- {_md_escape(i)}" for i in block.items] + [""]
+            else:
+                lines += [block, ""]
+    return "\n".join(lines)

@@ -1,0 +1,212 @@
+"""The output tables: wood flow per period, harvest events, and per-stand results.
+
+Every column is documented in docs/outputs.md; names carry their units.
+"""
+
+from __future__ import annotations
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+
+from yieldscape.config import Scenario
+from yieldscape.growth.products import product_shares
+from yieldscape.projection import CurveSet, Periods, StandArrays
+from yieldscape.schedule import FlowResult
+
+
+def calendar_years(years: np.ndarray) -> np.ndarray | pd.arrays.IntegerArray:
+    """Years as integers (INTEGER in the GeoPackage, no ``.0`` in a CSV) when every one given
+    is whole, nullable ``Int64`` where some are missing (NaN). A harvest at the midpoint of
+    a period of an odd number of years falls on a half year: then the years stay floats."""
+    v = np.asarray(years, dtype=np.float64)
+    known = v[~np.isnan(v)]
+    if np.any(known != np.round(known)):
+        return v
+    if len(known) < len(v):
+        return pd.array(v, dtype="Int64")
+    return v.astype(np.int64)
+
+
+def wood_flow_table(
+    flow: FlowResult,
+    periods: Periods,
+    lp_bound: np.ndarray | None = None,
+    revenue: tuple[np.ndarray, np.ndarray] | None = None,
+) -> pd.DataFrame:
+    """One row per period: harvest, area, mean harvest age, growing stock and growth, what
+    the flow policy required and whether it was met, the LP's harvest of the period when an
+    LP was solved, and the net revenue (``revenue``: net and discounted, per period)."""
+    sim = flow.simulation
+    P, L = periods.count, periods.period_years
+    h, ha = sim.harvest_m3, sim.harvest_ha
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean_age = np.where(ha > 0, sim.harvest_age_area / np.where(ha > 0, ha, 1.0), np.nan)
+        per_ha = np.where(ha > 0, h / np.where(ha > 0, ha, 1.0), np.nan)
+        change = np.r_[
+            np.nan, np.where(h[:-1] > 0, h[1:] / np.where(h[:-1] > 0, h[:-1], 1) - 1, np.nan)
+        ]
+    gs0, gs1 = sim.growing_stock_start_m3, sim.growing_stock_end_m3
+    hlb0 = sim.hlb_stock_start_m3
+    hlb1 = np.r_[hlb0[1:], sim.ending_hlb_stock_m3]
+    # explicit targets (and the LP's, in the optimised mode) are what a period must take;
+    # the other policies fail a period only below their floor
+    takes_target = flow.policy in ("targets", "optimize")
+    required = sim.target_m3 if takes_target else sim.floor_m3
+    if revenue is None:
+        revenue = (np.full(P, np.nan), np.full(P, np.nan))
+    return pd.DataFrame(
+        {
+            "period": np.arange(1, P + 1),
+            "start_year": periods.start_years,
+            "end_year": periods.end_years,
+            "harvest_year": calendar_years(periods.harvest_years),
+            "harvest_m3": h,
+            "harvest_m3_per_year": h / L,
+            "harvest_ha": ha,
+            "harvest_ha_per_year": ha / L,
+            "harvest_volume_m3_ha": per_ha,
+            "mean_harvest_age_years": mean_age,
+            "growing_stock_start_m3": gs0,
+            "growing_stock_end_m3": gs1,
+            "hlb_growing_stock_start_m3": hlb0,
+            "hlb_growing_stock_end_m3": hlb1,
+            "net_growth_m3": gs1 - gs0 + h,
+            "net_growth_m3_per_year": (gs1 - gs0 + h) / L,
+            "change_from_previous": change,
+            "flow_level_m3": np.full(P, flow.level_m3_per_period),
+            "policy_target_m3": sim.target_m3,
+            "policy_required_m3": required,
+            "meets_policy": h >= required * (1 - 1e-6),
+            "lp_bound_m3": lp_bound if lp_bound is not None else np.full(P, np.nan),
+            "disturbed_ha": sim.disturbed_ha if len(sim.disturbed_ha) else np.zeros(P),
+            "disturbed_m3": sim.disturbed_m3 if len(sim.disturbed_m3) else np.zeros(P),
+            "net_revenue": revenue[0],
+            "discounted_net_revenue": revenue[1],
+        }
+    )
+
+
+def harvests_layer(
+    flow: FlowResult, stands: gpd.GeoDataFrame, periods: Periods
+) -> gpd.GeoDataFrame:
+    """One polygon row per stand and period in which (part of) the stand is cut.
+
+    The geometry is the whole stand; ``area_ha`` is the area cut, which is less than the
+    stand's area for a partial cut. Two parts of one stand cut in one period are one row, with
+    the area-weighted age.
+    """
+    sim = flow.simulation
+    ev = pd.DataFrame(
+        {
+            "stand": sim.event_stand.astype(np.int64),
+            "period": sim.event_period.astype(np.int64),
+            "age_area": sim.event_age_years * sim.event_area_ha,
+            "area_ha": sim.event_area_ha,
+            "volume_m3": sim.event_volume_m3,
+        }
+    )
+    agg = ev.groupby(["period", "stand"], sort=True).sum().reset_index()
+    pos = agg["stand"].to_numpy()
+    # a cut is partial when it takes less than the stand's harvestable area
+    limit = "harvestable_ha" if "harvestable_ha" in stands else "area_ha"
+    stand_area = stands[limit].to_numpy()[pos]
+    area = agg["area_ha"].to_numpy()
+    frame = pd.DataFrame(
+        {
+            "stand_id": stands["stand_id"].to_numpy()[pos],
+            "species": stands["species"].to_numpy()[pos],
+            "zone": stands["zone"].to_numpy()[pos],
+            "period": agg["period"].to_numpy(),
+            "start_year": periods.start_years[agg["period"].to_numpy() - 1],
+            "harvest_year": calendar_years(periods.harvest_years[agg["period"].to_numpy() - 1]),
+            "age_years": agg["age_area"].to_numpy() / area,
+            "area_ha": area,
+            "volume_m3": agg["volume_m3"].to_numpy(),
+            "volume_m3_ha": agg["volume_m3"].to_numpy() / area,
+            "partial": area < stand_area * (1 - 1e-9),
+        }
+    )
+    geom = stands.geometry.to_numpy()[pos]
+    return gpd.GeoDataFrame(
+        frame, geometry=gpd.GeoSeries(geom, crs=stands.crs).values, crs=stands.crs
+    )
+
+
+def stands_layer(
+    flow: FlowResult,
+    stands: gpd.GeoDataFrame,
+    arrays: StandArrays,
+    curves: CurveSet,
+    periods: Periods,
+) -> gpd.GeoDataFrame:
+    """The input stands with their start volume and what the schedule does to each."""
+    sim = flow.simulation
+    n = len(stands)
+    out = stands.copy()
+    out["volume_m3_ha"] = curves.volume_m3_ha(
+        arrays.species_idx, arrays.age_years, arrays.site_index
+    )
+    first = np.full(n, np.iinfo(np.int64).max)
+    np.minimum.at(first, sim.event_stand, sim.event_period)
+    cut = first < np.iinfo(np.int64).max
+    first_age = np.full(n, np.nan)
+    is_first = sim.event_period == first[sim.event_stand]
+    # area-weighted age of what is cut in the first harvest period
+    w_age = np.bincount(
+        sim.event_stand[is_first], sim.event_age_years[is_first] * sim.event_area_ha[is_first], n
+    )
+    w = np.bincount(sim.event_stand[is_first], sim.event_area_ha[is_first], n)
+    first_age[cut] = w_age[cut] / w[cut]
+    out["first_harvest_period"] = pd.array(np.where(cut, first, 0), dtype="Int64")
+    out.loc[~cut, "first_harvest_period"] = pd.NA
+    years = periods.harvest_years
+    out["first_harvest_year"] = calendar_years(
+        np.where(cut, years[np.where(cut, first, 1) - 1], np.nan)
+    )
+    out["first_harvest_age_years"] = first_age
+    pairs = (
+        np.unique(np.c_[sim.event_stand, sim.event_period], axis=0)
+        if len(sim.event_stand)
+        else np.zeros((0, 2), dtype=np.int64)
+    )
+    out["harvest_count"] = np.bincount(pairs[:, 0].astype(np.int64), minlength=n)
+    out["harvested_area_ha"] = np.bincount(sim.event_stand, sim.event_area_ha, n)
+    out["harvested_volume_m3"] = np.bincount(sim.event_stand, sim.event_volume_m3, n)
+    geom_col = out.geometry.name
+    cols = [c for c in out.columns if c != geom_col] + [geom_col]
+    return out[cols]
+
+
+def wood_flow_by_product(
+    flow: FlowResult, arrays: StandArrays, curves: CurveSet, scenario: Scenario
+) -> pd.DataFrame:
+    """Harvested volume per period, species and product (long form).
+
+    Each harvest event's volume is split by its species' product shares at the age it was
+    cut (:mod:`yieldscape.growth.products`); the products of a period add up to its harvest.
+    """
+    sim = flow.simulation
+    sp = arrays.species_idx[sim.event_stand] if len(sim.event_stand) else np.zeros(0, int)
+    parts = []
+    for i, code in enumerate(curves.codes):  # per species and product: a handful
+        mine = sp == i
+        shares = product_shares(scenario.species[code].products, sim.event_age_years[mine])
+        for product, share in shares.items():
+            parts.append(
+                pd.DataFrame(
+                    {
+                        "period": sim.event_period[mine].astype(np.int64),
+                        "species": code,
+                        "product": product,
+                        "volume_m3": sim.event_volume_m3[mine] * share,
+                    }
+                )
+            )
+    frame = (
+        pd.concat(parts, ignore_index=True)
+        if parts
+        else pd.DataFrame(columns=["period", "species", "product", "volume_m3"])
+    )
+    out = frame.groupby(["period", "species", "product"], as_index=False)["volume_m3"].sum()
+    return out.sort_values(["period", "species", "product"], ignore_index=True)

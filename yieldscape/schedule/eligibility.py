@@ -1,0 +1,49 @@
+"""Which stands can ever be cut: a stand on the harvestable land base whose minimum harvest
+age lies beyond the oldest age the curves are followed to (``growth.max_age_years``), or whose
+rule can never be met (an infinite age, e.g. a volume the curve never reaches), holds area and
+volume no schedule can use. The run warns of them, so that a slip in a rule (a minimum harvest
+age of 5,000 years) does not pass in silence."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from yieldscape.projection import CurveSet, StandArrays
+
+
+def never_cut(stands: StandArrays, max_age_years: float) -> np.ndarray:
+    """Stands with harvestable area whose minimum harvest age is beyond ``max_age_years``."""
+    area = stands.harvestable_ha if stands.harvestable_ha is not None else stands.area_ha
+    return (area > 0) & ~(stands.min_harvest_age <= max_age_years)
+
+
+def never_cut_warnings(stands: StandArrays, curves: CurveSet, max_age_years: float) -> list[str]:
+    """One line naming, per species, the stands that can never be cut (see above)."""
+    mask = never_cut(stands, max_age_years)
+    if not mask.any():
+        return []
+    area = stands.harvestable_ha if stands.harvestable_ha is not None else stands.area_ha
+    parts = []
+    for i, code in enumerate(curves.codes):  # per species
+        mine = mask & (stands.species_idx == i)
+        if not mine.any():
+            continue
+        ages = stands.min_harvest_age[mine]
+        rule = (
+            "its harvest age rule is never met within growth.max_age_years"
+            if np.isinf(ages).all()
+            else f"minimum harvest age {_span(ages[np.isfinite(ages)])} years"
+        )
+        n, ha = int(mine.sum()), float(area[mine].sum())
+        parts.append(f"{code}: {n} stands, {ha:,.1f} ha ({rule})")
+    cut_ha, total = float(area[mask].sum()), float(area.sum())
+    return [
+        f"{int(mask.sum())} stands ({cut_ha:,.1f} ha, {100 * cut_ha / total:.1f}% of the "
+        f"harvestable land base) can never be cut: their minimum harvest age lies beyond "
+        f"growth.max_age_years = {max_age_years:g}; " + "; ".join(parts)
+    ]
+
+
+def _span(values: np.ndarray) -> str:
+    lo, hi = float(values.min()), float(values.max())
+    return f"{lo:,.0f}" if round(lo) == round(hi) else f"{lo:,.0f} to {hi:,.0f}"

@@ -1,0 +1,112 @@
+"""Green-up and opening-size rules over the stand adjacency graph.
+
+A stand cut at time t is *open* until t + ``greenup_years``. An opening is a connected group
+of open stands over the adjacency graph; its area is the area cut in its stands inside the
+window. Area restriction model (ARM; Murray 1999, Forest Science 45:45-52): no opening may
+exceed ``max_opening_ha``. Unit restriction model (URM, ``max_opening_ha = 0``): no two
+neighbours may be open at once. Candidates are taken in priority order; a stand that would break
+a rule is skipped and the next one taken. A stand whose harvestable area alone exceeds the
+maximum opening is never cut (yieldscape does not split stands into several cut blocks).
+
+The pick is sequential by nature (each cut changes what its neighbours may do): see
+:mod:`yieldscape.schedule.picker`; openings at the start of a period come from one vectorised
+connected-components call and grow through a union-find as stands are cut.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from numpy.typing import NDArray
+
+from yieldscape.adjacency import Adjacency
+
+_REL = 1e-9
+_MIN_PART_HA = 1e-9
+
+
+@dataclass
+class SpatialRules:
+    name = "the spatial rules (green-up and openings)"  # in messages
+
+    adjacency: Adjacency
+    greenup_years: float
+    max_opening_ha: float = 0.0  # 0: unit restriction
+    last_cut: NDArray = field(default_factory=lambda: np.zeros(0))
+    open_area: NDArray = field(default_factory=lambda: np.zeros(0))
+
+    def fresh(self) -> SpatialRules:
+        """A copy with no stand cut yet (one per simulated horizon)."""
+        n = self.adjacency.n
+        return SpatialRules(
+            self.adjacency,
+            self.greenup_years,
+            self.max_opening_ha,
+            np.full(n, -np.inf),
+            np.zeros(n),
+        )
+
+    def is_open(self, t: float) -> NDArray[np.bool_]:
+        return (t - self.last_cut) < self.greenup_years - 1e-9
+
+    def begin(self, t: float) -> None:
+        """Openings at the start of a period's pick (one connected-components call)."""
+        self._t = t
+        open_now = self.is_open(t)
+        self.open_area[~open_now] = 0.0
+        labels = self.adjacency.components(open_now)
+        n_labels = int(labels.max()) + 1 if (labels >= 0).any() else 0
+        self._comp_area = (
+            list(np.bincount(labels[open_now], self.open_area[open_now], minlength=n_labels))
+            if n_labels
+            else []
+        )
+        self._parent = list(range(n_labels))
+        self._label = labels.tolist()
+        self._open = open_now.tolist()
+        self._cut: dict[int, float] = {}
+        self._pending: tuple[set[int], float] = (set(), 0.0)
+
+    def _find(self, x: int) -> int:
+        parent = self._parent
+        while parent[x] != x:
+            parent[x] = parent[parent[x]]
+            x = parent[x]
+        return x
+
+    def allows(self, k: int, s: int, full_area: float, a: float) -> bool:
+        """May stand s have area a cut now? (Remembers the openings it would join.)"""
+        nb = self.adjacency.indices[self.adjacency.indptr[s] : self.adjacency.indptr[s + 1]]
+        if self.max_opening_ha <= 0:
+            if any(self._open[j] for j in nb.tolist() if j != s):
+                return False
+            self._pending = (set(), a)
+            return True
+        if full_area > self.max_opening_ha * (1 + _REL):
+            return False  # larger than an opening: never cut
+        roots = {self._find(self._label[j]) for j in nb.tolist() if self._open[j]}
+        if self._open[s]:
+            roots.add(self._find(self._label[s]))
+        total = a + sum(self._comp_area[r] for r in roots)
+        if total > self.max_opening_ha * (1 + _REL):
+            return False
+        self._pending = (roots, total)
+        return True
+
+    def commit(self, k: int, s: int, a: float) -> None:
+        """Cut stand s (after :meth:`allows`): it opens, or grows, one opening."""
+        roots, total = self._pending
+        new = len(self._parent)
+        self._parent.append(new)
+        self._comp_area.append(total)
+        for r in roots:
+            self._parent[r] = new
+        self._label[s] = new
+        self._open[s] = True
+        self._cut[s] = self._cut.get(s, 0.0) + a
+
+    def end(self) -> None:
+        for s, a in self._cut.items():
+            self.last_cut[s] = self._t
+            self.open_area[s] += a
