@@ -175,12 +175,58 @@ def test_inventory_path_is_relative_to_scenario(tmp_path):
     assert scn.inventory.path == (tmp_path / "sub" / "stands.gpkg").resolve()
 
 
-def test_docs_describe_every_key():
-    # One table of keys drives the parser; docs/scenario.md must name each one in a table row.
+def _rendered_default(spec) -> str:
+    """How docs/scenario.md writes a key's default."""
+    if spec.required:
+        return "required"
+    d = spec.default
+    if d is None or d == ():
+        return "none"
+    if isinstance(d, bool):
+        return "true" if d else "false"
+    if isinstance(d, str):
+        return f'`"{d}"`'
+    return f"{d:g}"
+
+
+def _docs_rows(section: str) -> dict[str, list[str]]:
+    """The key rows (key -> cells) of the docs' part for a section: from its heading to the
+    next heading of its level or above."""
     text = (ROOT / "docs" / "scenario.md").read_text(encoding="utf-8")
+    name = section.replace("species.*", "species.<CODE>")
+    head = re.search(rf"^(#+) .*`\[{{1,2}}{re.escape(name)}\]{{1,2}}`.*$", text, re.M)
+    assert head, f"docs/scenario.md has no heading for [{name}]"
+    level = len(head[1])
+    rest = text[head.end() :]
+    stop = re.search(rf"^#{{1,{level}}} ", rest, re.M)
+    part = rest[: stop.start()] if stop else rest
+    rows = {}
+    for line in part.splitlines():
+        m = re.match(r"^\| `([a-z_0-9]+)` \|(.*)\|$", line)
+        if m:
+            rows[m[1]] = [c.strip() for c in m[2].split("|")]
+    return rows
+
+
+def test_docs_state_every_key_with_its_default_and_unit():
+    # Each key is stated once, in config (type, unit, default, doc, check); docs/scenario.md
+    # has a row for it under its section whose unit and default agree with the code (a
+    # default may be followed by words in parentheses).
+    problems = []
     for section, keys in KEYS.items():
-        for key in keys:
-            assert re.search(rf"^\|\s*`{re.escape(key)}`", text, re.M), f"{section}.{key}"
+        rows = _docs_rows(section)
+        for key, spec in keys.items():
+            cells = rows.get(key)
+            if cells is None:
+                problems.append(f"{section}.{key}: no row")
+                continue
+            _, unit, default, _ = cells[0], cells[1], cells[2], cells[3:]
+            want = _rendered_default(spec)
+            if unit != spec.unit:
+                problems.append(f"{section}.{key}: unit {unit!r}, code says {spec.unit!r}")
+            if default != want and not default.startswith(want + " ("):
+                problems.append(f"{section}.{key}: default {default!r}, code says {want!r}")
+    assert not problems, "\n".join(problems)
 
 
 def test_docs_state_every_numeric_range():
@@ -195,6 +241,7 @@ def test_docs_state_every_numeric_range():
             err = ks.check.text() if isinstance(ks.check, Range) and ks.check.text() else "finite"
             usual = f"{ks.usual.range.text()} ({ks.usual.why})" if ks.usual else ""
             row = f"| `{section.replace('species.*', 'species.<CODE>')}.{key}` | {err} | {usual} |"
+            row = row.replace("|  |", "| |")
             assert row in text, row
 
 
@@ -237,3 +284,14 @@ def test_max_npv_needs_prices_and_a_rate(tmp_path):
         r"for: pine",
     ):
         load_scenario(write_scenario(tmp_path / "b.toml", raw))
+
+
+def test_choices_come_from_the_registries_that_own_them():
+    # One registry per kind of choice: curve families (growth.curves.FAMILIES), flow policies
+    # and priority rules (yieldscape.policies); the scenario's keys offer exactly those.
+    from yieldscape.growth.curves import FAMILIES
+    from yieldscape.policies import FLOW_POLICIES, PRIORITIES
+
+    assert KEYS["species.*"]["curve"].choices == tuple(FAMILIES)
+    assert KEYS["flow"]["policy"].choices == tuple(FLOW_POLICIES)
+    assert KEYS["harvest"]["priority"].choices == tuple(PRIORITIES)

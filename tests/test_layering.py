@@ -10,6 +10,7 @@ LAYER = {
     "_version": 0,
     "versions": 0,
     "geometry": 0,
+    "policies": 0,
     "config": 1,
     "growth": 1,
     "io": 2,

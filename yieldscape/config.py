@@ -1,8 +1,12 @@
 """The scenario file: TOML in, frozen typed config objects out.
 
-One declarative table (:data:`KEYS`) lists every key with its type, unit, default and meaning.
-It drives parsing, the unknown-key errors and the test that checks ``docs/scenario.md`` names
-every key, so a key is described once.
+Every key is stated once, as a field of the dataclass of its section, with a :func:`key` that
+records its TOML type, unit, default, meaning, the range outside which a value is an error and
+the usual range outside which it warns. :data:`KEYS` is read off those fields; it drives the
+parsing, the unknown-key errors and the test that checks ``docs/scenario.md`` against it (each
+key's default and unit). Choices come from the registries that own them: curve families from
+:mod:`yieldscape.growth.curves`, flow policies and priority rules from
+:mod:`yieldscape.policies`.
 
     >>> scn = load_scenario("sample_region/scenario.toml")            # doctest: +SKIP
     >>> scn = load_scenario(path, overrides=["flow.band=0.1"])          # doctest: +SKIP
@@ -12,6 +16,7 @@ from __future__ import annotations
 
 import copy
 import csv
+import dataclasses
 import difflib
 import math
 import re
@@ -23,29 +28,25 @@ from pathlib import Path
 from typing import Any
 
 from yieldscape.errors import ScenarioError
+from yieldscape.growth.curves import FAMILIES, SiteScaling, YieldCurve, make_curve
+from yieldscape.growth.products import ProductSplit
+from yieldscape.growth.rules import AgeRules, Money, Search
+from yieldscape.policies import FLOW_POLICIES, PRIORITIES
 
 # curve family -> the parameter keys it needs (besides the keys every species takes)
-CURVE_PARAMETERS: dict[str, tuple[str, ...]] = {
-    "chapman-richards": ("a", "k", "c"),
-    "schumacher": ("a", "b"),
-    "logistic": ("a", "b", "k"),
-    "gompertz": ("a", "b", "k"),
-    "stock-logistic": ("r", "capacity_m3_ha", "initial_m3_ha"),
-    "stock-threshold": ("r", "capacity_m3_ha", "initial_m3_ha", "min_viable_m3_ha"),
-    "table": (),
-}
+CURVE_PARAMETERS: dict[str, tuple[str, ...]] = {n: f.parameters for n, f in FAMILIES.items()}
 CURVES = tuple(CURVE_PARAMETERS)
 COMPOUNDING = ("continuous", "annual")
-PRIORITIES = ("oldest", "relative_oldest", "highest_volume")
 TIMINGS = ("start", "midpoint", "end")
-FLOW_POLICIES = ("even", "nondeclining", "stepdown", "targets")
 ADJACENCY_MODES = ("edge", "edge-or-corner")
+METHODS = ("rules", "optimize")
+OBJECTIVES = ("max-even-flow", "max-volume", "max-npv")
+TERMINAL_VALUES = ("none", "standing")
 
-_REQUIRED = object()
+_REQUIRED: Any = object()  # the default of a key that must be given
 # Hard limits: beyond them a value is not a forest-planning input but a slip.
-MAX_AGE_YEARS = (
-    5000.0  # older than any tree known (bristlecone pines, about 4,800 years; from memory)
-)
+# older than any tree known (bristlecone pines, about 4,800 years; from memory)
+MAX_AGE_YEARS = 5000.0
 MAX_HORIZON_YEARS = 1000  # a timber supply horizon is 100 to 250 years (common practice)
 MAX_PERIODS = MAX_HORIZON_YEARS
 
@@ -140,499 +141,6 @@ _SITE_USUAL = Usual(
 )
 _EXPONENT_USUAL = Usual(Range(-5, 5), "site exponents of 0 to 2 are usual")
 
-# Section name -> key name -> spec. "species.*" applies to every species table.
-KEYS: dict[str, dict[str, KeySpec]] = {
-    "scenario": {
-        "name": KeySpec("str", doc="Name of the scenario, shown in outputs."),
-        "start_year": KeySpec(
-            "int",
-            unit="year",
-            doc="Calendar year at the start of period 1.",
-            check=Range(1, 9999),
-            usual=Usual(Range(1900, 2200), "the year of the inventory"),
-        ),
-        "period_years": KeySpec(
-            "int",
-            10,
-            "years",
-            "Length of one period.",
-            check=Range(1, 100),
-            usual=Usual(
-                Range(1, 20),
-                "periods of 5 to 10 years are common practice; longer ones blur harvest ages",
-            ),
-        ),
-        "periods": KeySpec(
-            "int", 20, "", "Number of periods in the horizon.", check=Range(1, MAX_PERIODS)
-        ),
-        "harvest_timing": KeySpec(
-            "choice",
-            "midpoint",
-            "",
-            "Moment within a period at which its harvest is taken and ages are judged.",
-            choices=TIMINGS,
-        ),
-    },
-    "inventory": {
-        "path": KeySpec("str", doc="Stand layer file, relative to the scenario file."),
-        "layer": KeySpec("str", None, doc="Layer name; may be left out if the file has one."),
-        "crs": KeySpec(
-            "str", None, doc="CRS of the layer (e.g. 'EPSG:32633'), only if it has none."
-        ),
-        "raster_wins": KeySpec(
-            "bool", False, "", "Raster values replace layer values (else they fill gaps)."
-        ),
-    },
-    "inventory.from_raster": {
-        "site_index": KeySpec(
-            "str", None, "m", "Raster of site index to fill stand values by zonal mean."
-        ),
-        "band": KeySpec("int", 1, "", "Band of the raster to read.", check=Range(1, 65535)),
-    },
-    "landbase": {
-        "steps": KeySpec("steps", (), "", "Netdown steps, applied in order."),
-        "write_harvestable_layer": KeySpec(
-            "bool", False, "", "Also write the netted geometry as a layer."
-        ),
-    },
-    "cover": {
-        "zone": KeySpec("str", "*", "", "Zone the target applies to; '*' for all together."),
-        "older_than_years": KeySpec(
-            "float",
-            None,
-            "years",
-            "Old-forest target: area at least this old ...",
-            check=_non_negative,
-        ),
-        "min_share": KeySpec(
-            "float",
-            None,
-            "fraction",
-            "... is at least this share.",
-            check=_share,
-        ),
-        "younger_than_years": KeySpec(
-            "float",
-            None,
-            "years",
-            "Young-forest limit: area younger than this ...",
-            check=_positive,
-        ),
-        "max_share": KeySpec(
-            "float",
-            None,
-            "fraction",
-            "... is at most this share.",
-            check=_share,
-        ),
-    },
-    "disturbance": {
-        "annual_rate": KeySpec(
-            "float",
-            0.0,
-            "1/year",
-            "Stand-replacing disturbance rate on unharvested area.",
-            check=_fraction_below_one,
-            usual=Usual(
-                Range(0, 0.02),
-                "reported stand-replacing fire rates are about 0.3% to 0.7% a year in boreal "
-                "forests",
-            ),
-        ),
-        "replicates": KeySpec(
-            "int",
-            0,
-            "",
-            "Monte Carlo replicates (0: expected values only).",
-            check=Range(0, 100_000),
-            usual=Usual(Range(0, 1000), "each replicate is one more simulated horizon"),
-        ),
-        "seed": KeySpec("int", 1, "", "Seed of the Monte Carlo draws.", check=Range(0, 2**32 - 1)),
-    },
-    "report": {
-        "age_class_years": KeySpec(
-            "floats",
-            None,
-            "year",
-            "Years at which age classes and stand ages are reported (period boundaries; "
-            "default: the start, each quarter of the horizon and its end).",
-        ),
-        "age_class_width_years": KeySpec(
-            "float",
-            20.0,
-            "years",
-            "Width of an age class.",
-            check=_positive,
-            usual=Usual(Range(1, 50), "age classes of 10 or 20 years are common practice"),
-        ),
-        "map_layers": KeySpec(
-            "bool", True, "", "Per-period harvest and per-year age layers in projection.gpkg."
-        ),
-        "raster_cell_m": KeySpec(
-            "float",
-            None,
-            "m",
-            "Also write GeoTIFFs of first harvest period and ages at this cell size.",
-            check=_positive,
-            usual=Usual(
-                Range(1, 1000), "stand maps are drawn at cells of metres to tens of metres"
-            ),
-        ),
-        "markdown": KeySpec("bool", False, "", "Also write the report as Markdown."),
-    },
-    "landbase.steps": {
-        "label": KeySpec("str", doc="Name of the step in the netdown table."),
-        "where": KeySpec("str", None, doc="Attribute rule: stands matching it are removed."),
-        "layer": KeySpec(
-            "str", None, doc="Overlay vector file (polygons, or lines/points with a buffer)."
-        ),
-        "layer_name": KeySpec("str", None, doc="Layer inside the overlay file."),
-        "buffer_m": KeySpec(
-            "float",
-            None,
-            "m",
-            "Buffer around every overlay feature.",
-            check=_non_negative,
-            usual=Usual(
-                Range(0, 500), "riparian and other reserve buffers are tens of metres per side"
-            ),
-        ),
-        "buffer_by": KeySpec("table", None, "", "Buffer width by class: field and widths_m."),
-        "raster": KeySpec("str", None, doc="Raster mask file."),
-        "band": KeySpec("int", 1, "", "Band of the raster mask.", check=Range(1, 65535)),
-        "above": KeySpec(
-            "float",
-            None,
-            "raster units",
-            "Remove the part of the stand where the raster exceeds this.",
-            check=_finite,
-        ),
-        "percent": KeySpec(
-            "float",
-            None,
-            "%",
-            "Flat deduction of the remaining area.",
-            check=Range(0, 100),
-        ),
-    },
-    "inventory.fields": {
-        "stand_id": KeySpec("str", doc="Layer field holding a unique stand identifier."),
-        "species": KeySpec("str", doc="Layer field holding the species code."),
-        "site_index": KeySpec("str", doc="Layer field holding the site index [m]."),
-        "age": KeySpec("str", doc="Layer field holding the stand age [years] at start_year."),
-        "zone": KeySpec("str", None, doc="Layer field holding a zone name (optional)."),
-    },
-    "species.*": {
-        "curve": KeySpec("choice", doc="Yield curve family.", choices=CURVES),
-        "a": KeySpec(
-            "float",
-            None,
-            "m3/ha",
-            "Asymptote (chapman-richards, schumacher, logistic, gompertz) at the reference site.",
-            check=_positive,
-            usual=_VOLUME_USUAL,
-        ),
-        "k": KeySpec(
-            "float",
-            None,
-            "1/year",
-            "Rate (chapman-richards, logistic, gompertz).",
-            check=_positive,
-            usual=Usual(Range(0, 1), "fitted rates are a few hundredths a year"),
-        ),
-        "c": KeySpec(
-            "float",
-            None,
-            "",
-            "Chapman-Richards shape exponent.",
-            check=_positive,
-            usual=Usual(Range(0.5, 10), "fitted shape exponents lie between about 1 and 6"),
-        ),
-        "b": KeySpec(
-            "float", None, "", "Schumacher b [years]; logistic / gompertz b [-].", check=_positive
-        ),
-        "r": KeySpec(
-            "float",
-            None,
-            "1/year",
-            "Intrinsic growth rate of a stock-growth model.",
-            check=_positive,
-            usual=Usual(Range(0, 2), "a stock that more than triples in a year is no forest"),
-        ),
-        "capacity_m3_ha": KeySpec(
-            "float",
-            None,
-            "m3/ha",
-            "Carrying capacity K of a stock model.",
-            check=_positive,
-            usual=_VOLUME_USUAL,
-        ),
-        "initial_m3_ha": KeySpec(
-            "float", None, "m3/ha", "Stock at age 0 of a stock model.", check=_positive
-        ),
-        "min_viable_m3_ha": KeySpec(
-            "float",
-            None,
-            "m3/ha",
-            "Minimum viable stock of stock-threshold (0 < m < K).",
-            check=_positive,
-        ),
-        "site_index_ref_m": KeySpec(
-            "float",
-            None,
-            "m",
-            "Reference site index of the parameters; leave out for no site dependence.",
-            check=_positive,
-            usual=_SITE_USUAL,
-        ),
-        "site_exponent_a": KeySpec(
-            "float",
-            1.0,
-            "",
-            "Volume scales with (SI / site_index_ref_m) to this power.",
-            check=_finite,
-            usual=_EXPONENT_USUAL,
-        ),
-        "site_exponent_k": KeySpec(
-            "float",
-            0.0,
-            "",
-            "Age runs faster by (SI / site_index_ref_m) to this power.",
-            check=_finite,
-            usual=_EXPONENT_USUAL,
-        ),
-        "ages": KeySpec(
-            "floats",
-            None,
-            "years",
-            "Table curve: ages, strictly increasing.",
-            check=Range(0, MAX_AGE_YEARS),
-        ),
-        "volumes_m3_ha": KeySpec(
-            "volumes",
-            None,
-            "m3/ha",
-            "Table curve: volume at each age (one array per site class).",
-            check=_non_negative,
-            usual=_VOLUME_USUAL,
-        ),
-        "site_classes_m": KeySpec(
-            "floats",
-            None,
-            "m",
-            "Table curve: site index of each row of volumes_m3_ha.",
-            check=_positive,
-            usual=_SITE_USUAL,
-        ),
-        "table_csv": KeySpec(
-            "str",
-            None,
-            "",
-            "Table curve from a CSV file (columns age_years, volume_m3_ha and optionally "
-            "site_index_m), relative to the scenario file.",
-        ),
-        "min_harvest_age": KeySpec(
-            "float",
-            None,
-            "years",
-            "Youngest age that may be cut.",
-            check=Range(0, MAX_AGE_YEARS),
-        ),
-        "min_harvest_mai_share": KeySpec(
-            "float",
-            None,
-            "fraction",
-            "Youngest age at which MAI reaches this share of its maximum.",
-            check=Range(0, 1, lo_open=True),
-        ),
-        "min_harvest_volume_m3_ha": KeySpec(
-            "float",
-            None,
-            "m3/ha",
-            "Youngest age with at least this volume.",
-            check=_positive,
-            usual=_VOLUME_USUAL,
-        ),
-        "min_harvest_economic": KeySpec(
-            "bool", False, "", "Not before the Faustmann (LEV-maximising) rotation."
-        ),
-        "regen_delay_years": KeySpec(
-            "float",
-            0.0,
-            "years",
-            "Years from harvest until the new stand starts at age 0.",
-            check=Range(0, MAX_AGE_YEARS),
-            usual=Usual(Range(0, 30), "regeneration delays of 0 to 5 years are common practice"),
-        ),
-        "site_index_min_m": KeySpec(
-            "float", None, "m", "Lowest site index the curve is valid for.", check=_positive
-        ),
-        "site_index_max_m": KeySpec(
-            "float", None, "m", "Highest site index the curve is valid for.", check=_positive
-        ),
-        "price_per_m3": KeySpec(
-            "float", None, "currency/m3", "Net price of harvested wood.", check=_non_negative
-        ),
-        "regen_cost_per_ha": KeySpec(
-            "float",
-            0.0,
-            "currency/ha",
-            "Regeneration cost at the start of each rotation.",
-            check=_non_negative,
-        ),
-        "annual_cost_per_ha": KeySpec(
-            "float", 0.0, "currency/ha/yr", "Annual cost.", check=_non_negative
-        ),
-        "products": KeySpec(
-            "table", None, "", "Product split by age: ages and one share array per product."
-        ),
-    },
-    "economics": {
-        "discount_rate": KeySpec(
-            "float",
-            None,
-            "1/year",
-            "Real discount rate.",
-            check=Range(0, 1, lo_open=True, hi_open=True),
-            usual=Usual(Range(0, 0.15), "real rates of 2% to 8% are common practice"),
-        ),
-        "compounding": KeySpec(
-            "choice", "continuous", "", "Discounting convention.", choices=COMPOUNDING
-        ),
-    },
-    "growth": {
-        "max_age_years": KeySpec(
-            "float",
-            400.0,
-            "years",
-            "Oldest age searched for culmination and rotations.",
-            check=Range(1, MAX_AGE_YEARS),
-            usual=Usual(Range(1, 1000), "few stands live longer"),
-        ),
-        "yield_class_step": KeySpec(
-            "float",
-            2.0,
-            "m3/ha/yr",
-            "Step to which maximum MAI is rounded for the yield class.",
-            check=_positive,
-        ),
-        "rule_site_step_m": KeySpec(
-            "float",
-            0.1,
-            "m",
-            "Site index rounding for per-site harvest-age rules.",
-            check=_positive,
-        ),
-    },
-    "harvest": {
-        "priority": KeySpec(
-            "choice", "oldest", "", "Order in which eligible stands are cut.", choices=PRIORITIES
-        ),
-        "max_area_ha_per_period": KeySpec(
-            "float", None, "ha", "Cap on the area harvested in one period.", check=_positive
-        ),
-        "greenup_years": KeySpec(
-            "float",
-            0.0,
-            "years",
-            "A stand cut less than this long ago blocks its neighbours (0: no spatial rules).",
-            check=_non_negative,
-            usual=Usual(Range(0, 50), "green-up takes a few to about twenty years"),
-        ),
-        "max_opening_ha": KeySpec(
-            "float",
-            None,
-            "ha",
-            "Largest opening (contiguous area cut within the green-up window); 0 = unit "
-            "restriction (no two neighbours).",
-            check=_non_negative,
-        ),
-        "adjacency": KeySpec(
-            "choice", "edge", "", "Which stands are neighbours.", choices=ADJACENCY_MODES
-        ),
-        "separation_m": KeySpec(
-            "float",
-            0.0,
-            "m",
-            "Stands within this distance are neighbours too.",
-            check=_non_negative,
-            usual=Usual(Range(0, 1000), "separation distances are tens to hundreds of metres"),
-        ),
-    },
-    "flow": {
-        "policy": KeySpec("choice", "even", "", "Flow policy.", choices=FLOW_POLICIES),
-        "band": KeySpec(
-            "float",
-            0.0,
-            "fraction",
-            "Allowed change of harvest between consecutive periods (0.1 = +/-10%).",
-            check=_fraction_below_one,
-        ),
-        "ending_stock": KeySpec(
-            "float",
-            1.0,
-            "fraction",
-            "Growing stock at the end of the horizon must be at least this share of the initial.",
-            check=_non_negative,
-            usual=Usual(Range(0, 2), "above 2 the forest must more than double its stock"),
-        ),
-        "step_down_max": KeySpec(
-            "float",
-            0.1,
-            "fraction",
-            "stepdown: largest drop from one period to the next.",
-            check=Range(0, 1, lo_open=True, hi_open=True),
-        ),
-        "targets_m3": KeySpec(
-            "floats",
-            None,
-            "m3/period",
-            "targets: the harvest target of each period.",
-            check=_non_negative,
-        ),
-        "method": KeySpec(
-            "choice",
-            "rules",
-            "",
-            "rules: the rule-based scheduler; optimize: the harvest LP, mapped to stands.",
-            choices=("rules", "optimize"),
-        ),
-        "objective": KeySpec(
-            "choice",
-            "max-even-flow",
-            "",
-            "LP objective.",
-            choices=("max-even-flow", "max-volume", "max-npv"),
-        ),
-        "terminal_value": KeySpec(
-            "choice",
-            "none",
-            "",
-            "max-npv: value of the standing forest at the horizon's end.",
-            choices=("none", "standing"),
-        ),
-        "lp_bound": KeySpec("bool", True, "", "rules: also solve the LP as an upper bound."),
-        "lp_site_class_m": KeySpec(
-            "float", 1.0, "m", "LP strata: site index class width.", check=_positive
-        ),
-        "lp_age_class_years": KeySpec(
-            "float",
-            5.0,
-            "years",
-            "LP strata: age class width.",
-            check=_positive,
-            usual=Usual(Range(0, 20), "wider classes blur the ages the LP harvests at"),
-        ),
-        "long_term_periods": KeySpec(
-            "int",
-            None,
-            "",
-            "stepdown: periods over which the long-term level must hold the "
-            "harvestable growing stock (default: a quarter of the horizon, at least 2).",
-            check=_positive,
-        ),
-    },
-}
 
 SECTIONS = (
     "scenario",
@@ -652,152 +160,544 @@ STEP_KINDS = ("where", "layer", "raster", "percent")
 _ALL_PARAMETERS = {k for keys in CURVE_PARAMETERS.values() for k in keys}
 _SITE_KEYS = {"site_index_ref_m", "site_exponent_a", "site_exponent_k"}
 _TABLE_KEYS = {"ages", "volumes_m3_ha", "table_csv", "site_classes_m"}
+_TABLE_PARAMS = {"ages", "volumes_m3_ha", "site_classes_m"}  # what a table curve is built of
 
 
-# ----------------------------------------------------------------------------- config objects
+def key(
+    kind: str,
+    default: Any = _REQUIRED,
+    unit: str = "",
+    doc: str = "",
+    choices: Sequence[str] = (),
+    check: Callable[[Any], str | None] | None = None,
+    usual: Usual | None = None,
+) -> Any:
+    """A dataclass field that is a scenario key, with everything said of it in one place."""
+    spec = KeySpec(kind, default, unit, doc, tuple(choices), check, usual)
+    if default is _REQUIRED:
+        return field(metadata={"key": spec})
+    return field(default=default, metadata={"key": spec})
+
+
+def keys_of(cls: type) -> dict[str, KeySpec]:
+    """The scenario keys of a section's dataclass, in field order."""
+    return {f.name: f.metadata["key"] for f in dataclasses.fields(cls) if "key" in f.metadata}
+
+
+# ----------------------------------------------------------------------------- the sections
 @dataclass(frozen=True)
 class ScenarioInfo:
-    name: str
-    start_year: int
-    period_years: int
-    periods: int
-    harvest_timing: str
+    """``[scenario]``: its name and the time grid."""
+
+    name: str = key("str", doc="Name of the scenario, shown in outputs.")
+    start_year: int = key(
+        "int",
+        unit="year",
+        doc="Calendar year at the start of period 1.",
+        check=Range(1, 9999),
+        usual=Usual(Range(1900, 2200), "the year of the inventory"),
+    )
+    period_years: int = key(
+        "int",
+        10,
+        "years",
+        "Length of one period.",
+        check=Range(1, 100),
+        usual=Usual(
+            Range(1, 20),
+            "periods of 5 to 10 years are common practice; longer ones blur harvest ages",
+        ),
+    )
+    periods: int = key(
+        "int", 20, "", "Number of periods in the horizon.", check=Range(1, MAX_PERIODS)
+    )
+    harvest_timing: str = key(
+        "choice",
+        "midpoint",
+        "",
+        "Moment within a period at which its harvest is taken and ages are judged.",
+        choices=TIMINGS,
+    )
 
 
 @dataclass(frozen=True)
 class FieldMap:
-    stand_id: str
-    species: str
-    site_index: str
-    age: str
-    zone: str | None = None
+    """``[inventory.fields]``: the layer's names of the fields the tool reads."""
+
+    stand_id: str = key("str", doc="Layer field holding a unique stand identifier.")
+    species: str = key("str", doc="Layer field holding the species code.")
+    site_index: str = key("str", doc="Layer field holding the site index [m].")
+    age: str = key("str", doc="Layer field holding the stand age [years] at start_year.")
+    zone: str | None = key("str", None, doc="Layer field holding a zone name (optional).")
+
+
+@dataclass(frozen=True)
+class RasterFill:
+    """``[inventory.from_raster]``: stand values filled from a raster by zonal mean."""
+
+    site_index: Path | None = key(
+        "str", None, "m", "Raster of site index to fill stand values by zonal mean."
+    )
+    band: int = key("int", 1, "", "Band of the raster to read.", check=Range(1, 65535))
 
 
 @dataclass(frozen=True)
 class InventoryConfig:
-    path: Path
-    layer: str | None
-    crs: str | None
-    fields: FieldMap
-    site_index_raster: Path | None = None
-    site_index_raster_band: int = 1
-    raster_wins: bool = False
+    """``[inventory]``: the stand layer and how its fields map onto the tool's."""
+
+    path: Path = key("str", doc="Stand layer file, relative to the scenario file.")
+    fields: FieldMap  # [inventory.fields]
+    layer: str | None = key("str", None, doc="Layer name; may be left out if the file has one.")
+    crs: str | None = key(
+        "str", None, doc="CRS of the layer (e.g. 'EPSG:32633'), only if it has none."
+    )
+    raster_wins: bool = key(
+        "bool", False, "", "Raster values replace layer values (else they fill gaps)."
+    )
+    from_raster: RasterFill = field(default_factory=RasterFill)
+
+
+@dataclass(frozen=True)
+class BufferBy:
+    """A buffer width per class of an overlay field."""
+
+    field: str
+    widths_m: Mapping[str, float]
 
 
 @dataclass(frozen=True)
 class NetdownStep:
-    """One land-base netdown step; ``kind`` is one of STEP_KINDS."""
+    """``[[landbase.steps]]``: one netdown step; ``kind`` is one of STEP_KINDS."""
 
-    number: int
-    label: str
+    number: int  # 1-based position in the scenario
     kind: str
-    where: str | None = None
-    layer: Path | None = None
-    layer_name: str | None = None
-    buffer_m: float | None = None
-    buffer_field: str | None = None
-    buffer_widths_m: Mapping[str, float] | None = None
-    raster: Path | None = None
-    band: int = 1
-    above: float | None = None
-    percent: float | None = None
-
-
-@dataclass(frozen=True)
-class CoverTarget:
-    """One cover target: ``kind`` "old" (min_share of area older than) or "young"."""
-
-    zone: str
-    kind: str
-    age_years: float
-    share: float
-
-
-@dataclass(frozen=True)
-class DisturbanceConfig:
-    annual_rate: float = 0.0
-    replicates: int = 0
-    seed: int = 1
-
-
-@dataclass(frozen=True)
-class ReportConfig:
-    """What the report and the map outputs show (``[report]``)."""
-
-    age_class_years: tuple[int, ...] = ()  # resolved: never empty after parsing
-    age_class_width_years: float = 20.0
-    map_layers: bool = True
-    raster_cell_m: float | None = None
-    markdown: bool = False
+    label: str = key("str", doc="Name of the step in the netdown table.")
+    where: str | None = key("str", None, doc="Attribute rule: stands matching it are removed.")
+    layer: Path | None = key(
+        "str", None, doc="Overlay vector file (polygons, or lines/points with a buffer)."
+    )
+    layer_name: str | None = key("str", None, doc="Layer inside the overlay file.")
+    buffer_m: float | None = key(
+        "float",
+        None,
+        "m",
+        "Buffer around every overlay feature.",
+        check=_non_negative,
+        usual=Usual(
+            Range(0, 500), "riparian and other reserve buffers are tens of metres per side"
+        ),
+    )
+    buffer_by: BufferBy | None = key(
+        "table", None, "", "Buffer width by class: field and widths_m."
+    )
+    raster: Path | None = key("str", None, doc="Raster mask file.")
+    band: int = key("int", 1, "", "Band of the raster mask.", check=Range(1, 65535))
+    above: float | None = key(
+        "float",
+        None,
+        "raster units",
+        "Remove the part of the stand where the raster exceeds this.",
+        check=_finite,
+    )
+    percent: float | None = key(
+        "float", None, "%", "Flat deduction of the remaining area.", check=Range(0, 100)
+    )
 
 
 @dataclass(frozen=True)
 class LandbaseConfig:
-    steps: tuple[NetdownStep, ...] = ()
-    write_harvestable_layer: bool = False
+    """``[landbase]``: the netdown."""
+
+    steps: tuple[NetdownStep, ...] = key("steps", (), "", "Netdown steps, applied in order.")
+    write_harvestable_layer: bool = key(
+        "bool", False, "", "Also write the netted geometry as a layer."
+    )
 
 
 @dataclass(frozen=True)
-class ProductSplit:
-    """Shares of harvested volume by product at given ages (linear between, flat outside)."""
+class CoverTarget:
+    """``[[cover]]``: an old-forest floor (older_than_years, min_share) or a young-forest
+    ceiling (younger_than_years, max_share) in one zone or all (``"*"``)."""
 
-    ages: tuple[float, ...]
-    shares: Mapping[str, tuple[float, ...]]
+    zone: str = key("str", "*", "", "Zone the target applies to; '*' for all together.")
+    older_than_years: float | None = key(
+        "float",
+        None,
+        "years",
+        "Old-forest target: area at least this old ...",
+        check=_non_negative,
+    )
+    min_share: float | None = key(
+        "float", None, "fraction", "... is at least this share.", check=_share
+    )
+    younger_than_years: float | None = key(
+        "float",
+        None,
+        "years",
+        "Young-forest limit: area younger than this ...",
+        check=_positive,
+    )
+    max_share: float | None = key(
+        "float", None, "fraction", "... is at most this share.", check=_share
+    )
+
+    @property
+    def kind(self) -> str:
+        """``"old"`` or ``"young"``."""
+        return "old" if self.older_than_years is not None else "young"
+
+    @property
+    def age_years(self) -> float:
+        age = self.older_than_years if self.kind == "old" else self.younger_than_years
+        assert age is not None, "checked when the scenario was loaded"
+        return age
+
+    @property
+    def share(self) -> float:
+        share = self.min_share if self.kind == "old" else self.max_share
+        assert share is not None, "checked when the scenario was loaded"
+        return share
 
 
 @dataclass(frozen=True)
-class SpeciesConfig:
-    code: str
-    curve: str
-    min_harvest_age: float | None = None
-    regen_delay_years: float = 0.0
-    a: float | None = None
-    k: float | None = None
-    c: float | None = None
-    b: float | None = None
-    r: float | None = None
-    capacity_m3_ha: float | None = None
-    initial_m3_ha: float | None = None
-    min_viable_m3_ha: float | None = None
-    site_index_ref_m: float | None = None
-    site_exponent_a: float = 1.0
-    site_exponent_k: float = 0.0
-    ages: tuple[float, ...] | None = None
-    volumes_m3_ha: tuple[tuple[float, ...], ...] | None = None  # one row per site class
-    site_classes_m: tuple[float, ...] | None = None
-    table_csv: Path | None = None
-    min_harvest_mai_share: float | None = None
-    min_harvest_volume_m3_ha: float | None = None
-    min_harvest_economic: bool = False
-    site_index_min_m: float | None = None
-    site_index_max_m: float | None = None
-    price_per_m3: float | None = None
-    regen_cost_per_ha: float = 0.0
-    annual_cost_per_ha: float = 0.0
-    products: ProductSplit | None = None
+class DisturbanceConfig:
+    """``[disturbance]``: stand-replacing disturbance and its Monte Carlo replicates."""
+
+    annual_rate: float = key(
+        "float",
+        0.0,
+        "1/year",
+        "Stand-replacing disturbance rate on unharvested area.",
+        check=_fraction_below_one,
+        usual=Usual(
+            Range(0, 0.02),
+            "reported stand-replacing fire rates are about 0.3% to 0.7% a year in boreal forests",
+        ),
+    )
+    replicates: int = key(
+        "int",
+        0,
+        "",
+        "Monte Carlo replicates (0: expected values only).",
+        check=Range(0, 100_000),
+        usual=Usual(Range(0, 1000), "each replicate is one more simulated horizon"),
+    )
+    seed: int = key("int", 1, "", "Seed of the Monte Carlo draws.", check=Range(0, 2**32 - 1))
+
+
+@dataclass(frozen=True)
+class ReportConfig:
+    """``[report]``: what the report and the map outputs show."""
+
+    # resolved when parsed: never empty afterwards
+    age_class_years: tuple[int, ...] | None = key(
+        "floats",
+        None,
+        "year",
+        "Years at which age classes and stand ages are reported (period boundaries; "
+        "default: the start, each quarter of the horizon and its end).",
+    )
+    age_class_width_years: float = key(
+        "float",
+        20.0,
+        "years",
+        "Width of an age class.",
+        check=_positive,
+        usual=Usual(Range(1, 50), "age classes of 10 or 20 years are common practice"),
+    )
+    map_layers: bool = key(
+        "bool", True, "", "Per-period harvest and per-year age layers in projection.gpkg."
+    )
+    raster_cell_m: float | None = key(
+        "float",
+        None,
+        "m",
+        "Also write GeoTIFFs of first harvest period and ages at this cell size.",
+        check=_positive,
+        usual=Usual(Range(1, 1000), "stand maps are drawn at cells of metres to tens of metres"),
+    )
+    markdown: bool = key("bool", False, "", "Also write the report as Markdown.")
 
 
 @dataclass(frozen=True)
 class EconomicsConfig:
-    discount_rate: float | None = None
-    compounding: str = "continuous"
+    """``[economics]``: discounting."""
+
+    discount_rate: float | None = key(
+        "float",
+        None,
+        "1/year",
+        "Real discount rate.",
+        check=Range(0, 1, lo_open=True, hi_open=True),
+        usual=Usual(Range(0, 0.15), "real rates of 2% to 8% are common practice"),
+    )
+    compounding: str = key(
+        "choice", "continuous", "", "Discounting convention.", choices=COMPOUNDING
+    )
 
 
 @dataclass(frozen=True)
 class GrowthConfig:
-    max_age_years: float = 400.0
-    yield_class_step: float = 2.0
-    rule_site_step_m: float = 0.1
+    """``[growth]``: how far and how finely curves are searched."""
+
+    max_age_years: float = key(
+        "float",
+        400.0,
+        "years",
+        "Oldest age searched for culmination and rotations.",
+        check=Range(1, MAX_AGE_YEARS),
+        usual=Usual(Range(1, 1000), "few stands live longer"),
+    )
+    yield_class_step: float = key(
+        "float",
+        2.0,
+        "m3/ha/yr",
+        "Step to which maximum MAI is rounded for the yield class.",
+        check=_positive,
+    )
+    rule_site_step_m: float = key(
+        "float", 0.1, "m", "Site index rounding for per-site harvest-age rules.", check=_positive
+    )
+
+    def search(self) -> Search:
+        return Search(self.max_age_years, self.yield_class_step, self.rule_site_step_m)
+
+
+@dataclass(frozen=True)
+class SpeciesConfig:
+    """``[species.<CODE>]``: a species' (or analysis unit's) curve, rules, costs, products."""
+
+    code: str
+    curve: str = key("choice", doc="Yield curve family.", choices=CURVES)
+    a: float | None = key(
+        "float",
+        None,
+        "m3/ha",
+        "Asymptote (chapman-richards, schumacher, logistic, gompertz) at the reference site.",
+        check=_positive,
+        usual=_VOLUME_USUAL,
+    )
+    k: float | None = key(
+        "float",
+        None,
+        "1/year",
+        "Rate (chapman-richards, logistic, gompertz).",
+        check=_positive,
+        usual=Usual(Range(0, 1), "fitted rates are a few hundredths a year"),
+    )
+    c: float | None = key(
+        "float",
+        None,
+        "",
+        "Chapman-Richards shape exponent.",
+        check=_positive,
+        usual=Usual(Range(0.5, 10), "fitted shape exponents lie between about 1 and 6"),
+    )
+    b: float | None = key(
+        "float", None, "", "Schumacher b [years]; logistic / gompertz b [-].", check=_positive
+    )
+    r: float | None = key(
+        "float",
+        None,
+        "1/year",
+        "Intrinsic growth rate of a stock-growth model.",
+        check=_positive,
+        usual=Usual(Range(0, 2), "a stock that more than triples in a year is no forest"),
+    )
+    capacity_m3_ha: float | None = key(
+        "float",
+        None,
+        "m3/ha",
+        "Carrying capacity K of a stock model.",
+        check=_positive,
+        usual=_VOLUME_USUAL,
+    )
+    initial_m3_ha: float | None = key(
+        "float", None, "m3/ha", "Stock at age 0 of a stock model.", check=_positive
+    )
+    min_viable_m3_ha: float | None = key(
+        "float",
+        None,
+        "m3/ha",
+        "Minimum viable stock of stock-threshold (0 < m < K).",
+        check=_positive,
+    )
+    site_index_ref_m: float | None = key(
+        "float",
+        None,
+        "m",
+        "Reference site index of the parameters; leave out for no site dependence.",
+        check=_positive,
+        usual=_SITE_USUAL,
+    )
+    site_exponent_a: float = key(
+        "float",
+        1.0,
+        "",
+        "Volume scales with (SI / site_index_ref_m) to this power.",
+        check=_finite,
+        usual=_EXPONENT_USUAL,
+    )
+    site_exponent_k: float = key(
+        "float",
+        0.0,
+        "",
+        "Age runs faster by (SI / site_index_ref_m) to this power.",
+        check=_finite,
+        usual=_EXPONENT_USUAL,
+    )
+    ages: tuple[float, ...] | None = key(
+        "floats",
+        None,
+        "years",
+        "Table curve: ages, strictly increasing.",
+        check=Range(0, MAX_AGE_YEARS),
+    )
+    # one row per site class
+    volumes_m3_ha: tuple[tuple[float, ...], ...] | None = key(
+        "volumes",
+        None,
+        "m3/ha",
+        "Table curve: volume at each age (one array per site class).",
+        check=_non_negative,
+        usual=_VOLUME_USUAL,
+    )
+    site_classes_m: tuple[float, ...] | None = key(
+        "floats",
+        None,
+        "m",
+        "Table curve: site index of each row of volumes_m3_ha.",
+        check=_positive,
+        usual=_SITE_USUAL,
+    )
+    table_csv: Path | None = key(
+        "str",
+        None,
+        "",
+        "Table curve from a CSV file (columns age_years, volume_m3_ha and optionally "
+        "site_index_m), relative to the scenario file.",
+    )
+    min_harvest_age: float | None = key(
+        "float",
+        None,
+        "years",
+        "Youngest age that may be cut.",
+        check=Range(0, MAX_AGE_YEARS),
+    )
+    min_harvest_mai_share: float | None = key(
+        "float",
+        None,
+        "fraction",
+        "Youngest age at which MAI reaches this share of its maximum.",
+        check=Range(0, 1, lo_open=True),
+    )
+    min_harvest_volume_m3_ha: float | None = key(
+        "float",
+        None,
+        "m3/ha",
+        "Youngest age with at least this volume.",
+        check=_positive,
+        usual=_VOLUME_USUAL,
+    )
+    min_harvest_economic: bool = key(
+        "bool", False, "", "Not before the Faustmann (LEV-maximising) rotation."
+    )
+    regen_delay_years: float = key(
+        "float",
+        0.0,
+        "years",
+        "Years from harvest until the new stand starts at age 0.",
+        check=Range(0, MAX_AGE_YEARS),
+        usual=Usual(Range(0, 30), "regeneration delays of 0 to 5 years are common practice"),
+    )
+    site_index_min_m: float | None = key(
+        "float", None, "m", "Lowest site index the curve is valid for.", check=_positive
+    )
+    site_index_max_m: float | None = key(
+        "float", None, "m", "Highest site index the curve is valid for.", check=_positive
+    )
+    price_per_m3: float | None = key(
+        "float", None, "currency/m3", "Net price of harvested wood.", check=_non_negative
+    )
+    regen_cost_per_ha: float = key(
+        "float",
+        0.0,
+        "currency/ha",
+        "Regeneration cost at the start of each rotation.",
+        check=_non_negative,
+    )
+    annual_cost_per_ha: float = key(
+        "float", 0.0, "currency/ha/yr", "Annual cost.", check=_non_negative
+    )
+    products: ProductSplit | None = key(
+        "table", None, "", "Product split by age: ages and one share array per product."
+    )
+
+    def yield_curve(self) -> YieldCurve:
+        """The yield curve this table describes (a family of growth.curves.FAMILIES)."""
+        params = {name: getattr(self, name) for name in _CURVE_FIELDS}
+        site = SiteScaling(self.site_index_ref_m, self.site_exponent_a, self.site_exponent_k)
+        return make_curve(self.curve, params, site)
+
+    def age_rules(self) -> AgeRules:
+        return AgeRules(
+            self.min_harvest_age,
+            self.min_harvest_mai_share,
+            self.min_harvest_volume_m3_ha,
+            self.min_harvest_economic,
+        )
+
+    def money(self, economics: EconomicsConfig) -> Money:
+        return Money(
+            self.price_per_m3,
+            self.regen_cost_per_ha,
+            self.annual_cost_per_ha,
+            economics.discount_rate,
+            economics.compounding,
+        )
 
 
 @dataclass(frozen=True)
 class HarvestConfig:
-    priority: str = "oldest"
-    max_area_ha_per_period: float | None = None
-    greenup_years: float = 0.0
-    max_opening_ha: float | None = None
-    adjacency: str = "edge"
-    separation_m: float = 0.0
+    """``[harvest]``: the cutting order, the area cap and the spatial rules."""
+
+    priority: str = key(
+        "choice",
+        "oldest",
+        "",
+        "Order in which eligible stands are cut.",
+        choices=tuple(PRIORITIES),
+    )
+    max_area_ha_per_period: float | None = key(
+        "float", None, "ha", "Cap on the area harvested in one period.", check=_positive
+    )
+    greenup_years: float = key(
+        "float",
+        0.0,
+        "years",
+        "A stand cut less than this long ago blocks its neighbours (0: no spatial rules).",
+        check=_non_negative,
+        usual=Usual(Range(0, 50), "green-up takes a few to about twenty years"),
+    )
+    max_opening_ha: float | None = key(
+        "float",
+        None,
+        "ha",
+        "Largest opening (contiguous area cut within the green-up window); 0 = unit "
+        "restriction (no two neighbours).",
+        check=_non_negative,
+    )
+    adjacency: str = key(
+        "choice", "edge", "", "Which stands are neighbours.", choices=ADJACENCY_MODES
+    )
+    separation_m: float = key(
+        "float",
+        0.0,
+        "m",
+        "Stands within this distance are neighbours too.",
+        check=_non_negative,
+        usual=Usual(Range(0, 1000), "separation distances are tens to hundreds of metres"),
+    )
 
     @property
     def spatial(self) -> bool:
@@ -806,18 +706,95 @@ class HarvestConfig:
 
 @dataclass(frozen=True)
 class FlowConfig:
-    policy: str = "even"
-    band: float = 0.0
-    ending_stock: float = 1.0
-    step_down_max: float = 0.1
-    targets_m3: tuple[float, ...] | None = None
-    long_term_periods: int | None = None
-    method: str = "rules"
-    objective: str = "max-even-flow"
-    terminal_value: str = "none"
-    lp_bound: bool = True
-    lp_site_class_m: float = 1.0
-    lp_age_class_years: float = 5.0
+    """``[flow]``: the flow policy, the ending stock and the harvest LP."""
+
+    policy: str = key("choice", "even", "", "Flow policy.", choices=tuple(FLOW_POLICIES))
+    band: float = key(
+        "float",
+        0.0,
+        "fraction",
+        "Allowed change of harvest between consecutive periods (0.1 = +/-10%).",
+        check=_fraction_below_one,
+    )
+    ending_stock: float = key(
+        "float",
+        1.0,
+        "fraction",
+        "Growing stock at the end of the horizon must be at least this share of the initial.",
+        check=_non_negative,
+        usual=Usual(Range(0, 2), "above 2 the forest must more than double its stock"),
+    )
+    step_down_max: float = key(
+        "float",
+        0.1,
+        "fraction",
+        "stepdown: largest drop from one period to the next.",
+        check=Range(0, 1, lo_open=True, hi_open=True),
+    )
+    targets_m3: tuple[float, ...] | None = key(
+        "floats",
+        None,
+        "m3/period",
+        "targets: the harvest target of each period.",
+        check=_non_negative,
+    )
+    long_term_periods: int | None = key(
+        "int",
+        None,
+        "periods",
+        "stepdown: periods over which the long-term level must hold the harvestable growing "
+        "stock (default: a quarter of the horizon, at least 2).",
+        check=_positive,
+    )
+    method: str = key(
+        "choice",
+        "rules",
+        "",
+        "rules: the rule-based scheduler; optimize: the harvest LP, mapped to stands.",
+        choices=METHODS,
+    )
+    objective: str = key("choice", "max-even-flow", "", "LP objective.", choices=OBJECTIVES)
+    terminal_value: str = key(
+        "choice",
+        "none",
+        "",
+        "max-npv: value of the standing forest at the horizon's end.",
+        choices=TERMINAL_VALUES,
+    )
+    lp_bound: bool = key("bool", True, "", "rules: also solve the LP as an upper bound.")
+    lp_site_class_m: float = key(
+        "float", 1.0, "m", "LP strata: site index class width.", check=_positive
+    )
+    lp_age_class_years: float = key(
+        "float",
+        5.0,
+        "years",
+        "LP strata: age class width.",
+        check=_positive,
+        usual=Usual(Range(0, 20), "wider classes blur the ages the LP harvests at"),
+    )
+
+
+_CURVE_FIELDS = sorted({p for f in FAMILIES.values() for p in f.parameters} | _TABLE_PARAMS)
+
+# Section name -> key name -> spec, read off the dataclasses. "species.*" applies to every
+# species table.
+KEYS: dict[str, dict[str, KeySpec]] = {
+    "scenario": keys_of(ScenarioInfo),
+    "inventory": keys_of(InventoryConfig),
+    "inventory.from_raster": keys_of(RasterFill),
+    "inventory.fields": keys_of(FieldMap),
+    "landbase": keys_of(LandbaseConfig),
+    "landbase.steps": keys_of(NetdownStep),
+    "cover": keys_of(CoverTarget),
+    "disturbance": keys_of(DisturbanceConfig),
+    "report": keys_of(ReportConfig),
+    "species.*": keys_of(SpeciesConfig),
+    "economics": keys_of(EconomicsConfig),
+    "growth": keys_of(GrowthConfig),
+    "harvest": keys_of(HarvestConfig),
+    "flow": keys_of(FlowConfig),
+}
 
 
 @dataclass(frozen=True)
@@ -860,6 +837,9 @@ class Scenario:
         plain = clean(asdict(replace(self, sensitivity=())))
         del plain["warnings"]  # what the run found, not what the user set
         return {**plain, "sensitivity": cases}
+
+
+# ----------------------------------------------------------------------------- parsing
 
 
 # ----------------------------------------------------------------------------- parsing
@@ -1003,16 +983,16 @@ def _parse(
         raise ScenarioError(f"{where}: missing table [inventory.fields]")
     fields = FieldMap(**_take(inv_raw["fields"], "inventory.fields", where))
     rasters = _take(inv_raw.get("from_raster", {}), "inventory.from_raster", where)
+    site_raster = rasters["site_index"]
     inventory = InventoryConfig(
-        path=(base_dir / inv_vals["path"]).resolve(),
-        layer=inv_vals["layer"],
-        crs=inv_vals["crs"],
-        fields=fields,
-        site_index_raster=(base_dir / rasters["site_index"]).resolve()
-        if rasters["site_index"]
-        else None,
-        site_index_raster_band=rasters["band"],
-        raster_wins=inv_vals["raster_wins"],
+        **{
+            **inv_vals,
+            "path": (base_dir / inv_vals["path"]).resolve(),
+            "fields": fields,
+            "from_raster": RasterFill(
+                (base_dir / site_raster).resolve() if site_raster else None, rasters["band"]
+            ),
+        }
     )
 
     species_raw = _table(raw["species"], "species", where)
@@ -1226,13 +1206,13 @@ def _cover(raw: Any, where: str) -> tuple[CoverTarget, ...]:
                 raise ScenarioError(
                     f"{where}: [[cover]] #{n} needs both older_than_years and min_share"
                 )
-            out.append(CoverTarget(v["zone"], "old", v["older_than_years"], v["min_share"]))
+            out.append(CoverTarget(**v))
         else:
             if v["younger_than_years"] is None or v["max_share"] is None:
                 raise ScenarioError(
                     f"{where}: [[cover]] #{n} needs both younger_than_years and max_share"
                 )
-            out.append(CoverTarget(v["zone"], "young", v["younger_than_years"], v["max_share"]))
+            out.append(CoverTarget(**v))
     return tuple(out)
 
 
@@ -1264,34 +1244,27 @@ def _landbase(raw: Any, base_dir: Path, where: str) -> LandbaseConfig:
             raise ScenarioError(
                 f"{where}: [{sect}] key {stray[0]!r} does not apply to a {kind!r} step"
             )
-        field_name = widths = None
         if v["buffer_by"] is not None:
             if v["buffer_m"] is not None:
                 raise ScenarioError(f"{where}: [{sect}] give buffer_m or buffer_by, not both")
-            field_name, widths = _buffer_by(v["buffer_by"], f"{where}: [{sect}] buffer_by")
+            v["buffer_by"] = _buffer_by(v["buffer_by"], f"{where}: [{sect}] buffer_by")
         if kind == "raster" and v["above"] is None:
             raise ScenarioError(f"{where}: [{sect}] a raster step needs 'above'")
         steps.append(
             NetdownStep(
                 number=n,
-                label=str(v["label"]),
                 kind=kind,
-                where=v["where"],
-                layer=(base_dir / v["layer"]).resolve() if v["layer"] else None,
-                layer_name=v["layer_name"],
-                buffer_m=v["buffer_m"],
-                buffer_field=field_name,
-                buffer_widths_m=widths,
-                raster=(base_dir / v["raster"]).resolve() if v["raster"] else None,
-                band=v["band"],
-                above=v["above"],
-                percent=v["percent"],
+                **{
+                    **v,
+                    "layer": (base_dir / v["layer"]).resolve() if v["layer"] else None,
+                    "raster": (base_dir / v["raster"]).resolve() if v["raster"] else None,
+                },
             )
         )
     return LandbaseConfig(tuple(steps), vals["write_harvestable_layer"])
 
 
-def _buffer_by(raw: dict[str, Any], where: str) -> tuple[str, dict[str, float]]:
+def _buffer_by(raw: dict[str, Any], where: str) -> BufferBy:
     unknown = set(raw) - {"field", "widths_m"}
     if unknown:
         raise ScenarioError(
@@ -1303,12 +1276,13 @@ def _buffer_by(raw: dict[str, Any], where: str) -> tuple[str, dict[str, float]]:
         )
     widths = {}
     for cls, width in raw["widths_m"].items():
-        if isinstance(width, bool) or not isinstance(width, int | float) or width < 0:
+        ok = isinstance(width, int | float) and not isinstance(width, bool)
+        if not ok or not (math.isfinite(width) and width >= 0):
             raise ScenarioError(
                 f"{where}: width for class {cls!r} = {width!r}: must be a number >= 0"
             )
         widths[str(cls)] = float(width)
-    return raw["field"], widths
+    return BufferBy(raw["field"], widths)
 
 
 def _species(

@@ -219,7 +219,7 @@ def prepare_inventory(
         hint = " and no site index raster value"
         how = "raster wins" if scenario.inventory.raster_wins else "gaps filled"
         notes.append(
-            f"site index from {scenario.inventory.site_index_raster}: "
+            f"site index from {scenario.inventory.from_raster.site_index}: "
             f"{int(use.sum())} stands ({how})"
         )
     _fail_rows(np.isnan(si), row, ids, where, f"field {fields.site_index!r}: null site index{hint}")

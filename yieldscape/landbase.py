@@ -275,22 +275,22 @@ def buffer_overlay(
 ) -> np.ndarray:
     """Overlay geometries with the step's buffer (metres, converted to CRS units)."""
     geoms = frame.geometry.to_numpy()
-    if step.buffer_field is not None:
-        assert step.buffer_widths_m is not None
-        if step.buffer_field not in frame.columns:
+    if step.buffer_by is not None:
+        by = step.buffer_by
+        if by.field not in frame.columns:
             raise NetdownError(
-                f"{where}: buffer_by field {step.buffer_field!r} is not in the "
+                f"{where}: buffer_by field {by.field!r} is not in the "
                 f"layer; its fields: {', '.join(map(str, frame.columns))}"
             )
-        classes = frame[step.buffer_field].astype(str).to_numpy()
-        missing = sorted(set(classes) - set(step.buffer_widths_m))
+        classes = frame[by.field].astype(str).to_numpy()
+        missing = sorted(set(classes) - set(by.widths_m))
         if missing:
             raise NetdownError(
                 f"{where}: buffer_by has no width for class "
-                f"{missing[0]!r} of field {step.buffer_field!r}; "
-                f"widths given for: {', '.join(step.buffer_widths_m)}"
+                f"{missing[0]!r} of field {by.field!r}; "
+                f"widths given for: {', '.join(by.widths_m)}"
             )
-        width = np.array([step.buffer_widths_m[c] for c in classes])
+        width = np.array([by.widths_m[c] for c in classes])
     else:
         width = np.full(len(geoms), step.buffer_m or 0.0)
     gtype = shapely.get_type_id(geoms)

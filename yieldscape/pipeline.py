@@ -24,7 +24,6 @@ import shapely
 from yieldscape.adjacency import Adjacency, build_adjacency
 from yieldscape.config import HarvestConfig, NetdownStep, Scenario
 from yieldscape.errors import InputError, OutputError
-from yieldscape.growth import curve_from_config
 from yieldscape.growth.rules import max_mai
 from yieldscape.inventory import CheckReport, prepare_inventory
 from yieldscape.io.cache import cached_arrays
@@ -45,6 +44,7 @@ from yieldscape.landbase import (
     metric_geometries,
 )
 from yieldscape.limits import check_run_size
+from yieldscape.policies import Targets
 from yieldscape.projection import (
     CurveSet,
     Periods,
@@ -89,7 +89,6 @@ from yieldscape.schedule import FlowResult, schedule, simulate, spatial_rules, s
 from yieldscape.schedule.cover import CoverRule, CoverRules
 from yieldscape.schedule.eligibility import never_cut_warnings
 from yieldscape.schedule.lp import Economics, LPResult, Strata, make_strata, solve_lp
-from yieldscape.schedule.policies import Targets
 from yieldscape.versions import library_versions
 from yieldscape.zonal import zonal
 
@@ -175,10 +174,10 @@ def check(scenario: Scenario, strict: bool = False) -> CheckResult:
     cfg = scenario.inventory
     frame, layer = read_layer(cfg.path, cfg.layer)
     fill = None
-    if cfg.site_index_raster is not None:
+    if cfg.from_raster.site_index is not None:
 
         def fill(geoms: np.ndarray, crs: pyproj.CRS) -> np.ndarray:
-            return _raster_site_index(cfg.site_index_raster, cfg.site_index_raster_band, geoms, crs)
+            return _raster_site_index(cfg.from_raster.site_index, cfg.from_raster.band, geoms, crs)
 
     inventory = prepare_inventory(
         frame, scenario, where=f"{cfg.path}, layer {layer!r}", strict=strict, site_fill=fill
@@ -545,15 +544,11 @@ def long_term_sustained_yield(
     culmination, and at its minimum harvest age (the rotation the rules use)."""
     area = arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
     at_cul = np.zeros(arrays.n)
-    for i, code in enumerate(curves.codes):  # per species; per distinct site inside
+    for i in range(len(curves.codes)):  # per species; per distinct site inside
         mine = arrays.species_idx == i
         if mine.any():
             at_cul[mine] = max_mai(
-                scenario.species[code],
-                curves.curves[i],
-                arrays.site_index[mine],
-                scenario.economics,
-                scenario.growth,
+                curves.curves[i], arrays.site_index[mine], scenario.growth.search()
             )
     r = arrays.min_harvest_age
     ok = np.isfinite(r) & (r > 0)
@@ -904,7 +899,7 @@ def curves(
         files.append(out / CURVES_CSV)
         for code, main in dominant_sites(table, summaries).items():
             path = out / FIGURES_DIR / f"curves_{code}.png"
-            curve = curve_from_config(scenario.species[code])
+            curve = scenario.species[code].yield_curve()
             age = figure_age(main, scenario.growth.max_age_years)
             replace_file(
                 path, lambda p, c=code, cv=curve, m=main, a=age: curve_figure(p, c, cv, m, a), out

@@ -20,7 +20,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from yieldscape.config import Scenario
-from yieldscape.growth import TableYield, YieldCurve, curve_from_config
+from yieldscape.growth import TableYield, YieldCurve
 from yieldscape.growth.curves import _Parametric
 from yieldscape.growth.rules import min_harvest_ages
 
@@ -138,7 +138,7 @@ class CurveSet:
         codes = sorted(scenario.species)
         return cls(
             codes,
-            [curve_from_config(scenario.species[c]) for c in codes],
+            [scenario.species[c].yield_curve() for c in codes],
             max_age_years=max_age_years,
         )
 
@@ -237,12 +237,13 @@ class StandArrays:
         for i, code in enumerate(curves.codes):  # per species; rules run per distinct site
             mine = idx == i
             if mine.any():
+                sp = scenario.species[code]
                 min_age[mine] = min_harvest_ages(
-                    scenario.species[code],
                     curves.curves[i],
                     site[mine],
-                    scenario.economics,
-                    scenario.growth,
+                    sp.age_rules(),
+                    sp.money(scenario.economics),
+                    scenario.growth.search(),
                 )
         ids = stands["stand_id"].to_numpy()
         rank = np.empty(len(ids), dtype=np.int64)

@@ -17,7 +17,6 @@ import pyproj
 import shapely
 
 from yieldscape.config import Scenario
-from yieldscape.growth import curve_from_config
 from yieldscape.growth.rules import SiteSummary
 from yieldscape.io.outputs import sha256_file, write_json
 from yieldscape.io.rasters import write_geotiff
@@ -364,7 +363,7 @@ def write_figures(result: RunResult, scenario: Scenario, directory: Path) -> dic
             wf,
         )
     for code, summary in dominant_sites(result.curves, result.curve_summaries).items():
-        curve = curve_from_config(scenario.species[code])
+        curve = scenario.species[code].yield_curve()
         age = figure_age(summary, scenario.growth.max_age_years)
         curve_figure(
             add(
@@ -450,7 +449,7 @@ def run_record(result: RunResult, scenario: Scenario) -> dict:
     for sp in scenario.species.values():
         if sp.table_csv is not None:
             inputs[str(sp.table_csv)] = sha256_file(sp.table_csv)
-    for path in [scenario.inventory.site_index_raster] + [
+    for path in [scenario.inventory.from_raster.site_index] + [
         p for st in scenario.landbase.steps for p in (st.layer, st.raster)
     ]:
         if path is not None:

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 
 import yieldscape
+from yieldscape.policies import flow_policy
 
 
 def add_parser(sub, common: argparse.ArgumentParser) -> None:  # noqa: ANN001
@@ -32,13 +33,7 @@ def handle(args: argparse.Namespace) -> int:
             f"{result.inventory.report.area_ha:,.0f} ha, {len(wf)} periods of "
             f"{scenario.scenario.period_years} years"
         )
-        what = {
-            "even": "even-flow level",
-            "nondeclining": "non-declining flow, period 1",
-            "stepdown": "step-down flow, initial level",
-            "targets": "targets, mean harvest",
-            "optimize": "optimised (LP) flow, period 1",
-        }[result.flow.policy]
+        what = flow_policy(result.flow.policy).level_label
         print(
             f"{what}: {result.flow.level_m3_per_year:,.0f} m3/year "
             f"({result.flow.level_m3_per_period:,.0f} m3 per period)"

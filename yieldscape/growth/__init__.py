@@ -1,6 +1,7 @@
 """Growth and yield: curve families, increments, rotations and fitting (pure numpy/scipy)."""
 
 from yieldscape.growth.curves import (
+    FAMILIES,
     ChapmanRichards,
     GompertzYield,
     LogisticYield,
@@ -10,7 +11,7 @@ from yieldscape.growth.curves import (
     TableYield,
     YieldCurve,
     chapman_richards,
-    curve_from_config,
+    make_curve,
 )
 from yieldscape.growth.increments import (
     Culmination,
@@ -22,6 +23,7 @@ from yieldscape.growth.increments import (
 )
 
 __all__ = [
+    "FAMILIES",
     "ChapmanRichards",
     "Culmination",
     "GompertzYield",
@@ -34,8 +36,8 @@ __all__ = [
     "chapman_richards",
     "chapman_richards_culmination_age",
     "culmination",
-    "curve_from_config",
     "mai",
+    "make_curve",
     "table_culmination",
     "yield_class",
 ]

@@ -13,14 +13,14 @@ Table curves carry site through site classes instead (one table per class).
 
 from __future__ import annotations
 
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
-from typing import Protocol
+from typing import Any, Protocol
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy.interpolate import PchipInterpolator
 
-from yieldscape.config import SpeciesConfig
 from yieldscape.growth import stock
 
 
@@ -293,25 +293,42 @@ class TableYield:
         return float(min(self.site_classes_m)), float(max(self.site_classes_m))
 
 
-def curve_from_config(cfg: SpeciesConfig) -> YieldCurve:
-    """Build the yield curve a species table of the scenario describes."""
-    site = SiteScaling(cfg.site_index_ref_m, cfg.site_exponent_a, cfg.site_exponent_k)
-    p = cfg
-    if p.curve == "chapman-richards":
-        return ChapmanRichards(_f(p.a), _f(p.k), _f(p.c), site)
-    if p.curve == "schumacher":
-        return Schumacher(_f(p.a), _f(p.b), site)
-    if p.curve == "logistic":
-        return LogisticYield(_f(p.a), _f(p.b), _f(p.k), site)
-    if p.curve == "gompertz":
-        return GompertzYield(_f(p.a), _f(p.b), _f(p.k), site)
-    if p.curve in ("stock-logistic", "stock-threshold"):
-        m = p.min_viable_m3_ha if p.curve == "stock-threshold" else None
-        return StockGrowth(_f(p.r), _f(p.capacity_m3_ha), _f(p.initial_m3_ha), m, site)
-    assert p.ages is not None and p.volumes_m3_ha is not None
-    return TableYield(p.ages, p.volumes_m3_ha, p.site_classes_m or (0.0,))
+@dataclass(frozen=True)
+class Family:
+    """A curve family of the registry: the parameters a scenario gives it, and how a curve is
+    built from them (with the site scheme, which table curves do not use)."""
+
+    parameters: tuple[str, ...]
+    build: Callable[[Mapping[str, Any], SiteScaling], YieldCurve]
 
 
-def _f(value: float | None) -> float:
-    assert value is not None, "checked when the scenario was loaded"
-    return float(value)
+def _stock(p: Mapping[str, Any], site: SiteScaling) -> StockGrowth:
+    m = p.get("min_viable_m3_ha")
+    return StockGrowth(p["r"], p["capacity_m3_ha"], p["initial_m3_ha"], m, site)
+
+
+# The one registry of curve families: the scenario's choices (species.<CODE>.curve), the keys
+# each needs, and the curve built. A new family is a class above and one entry here.
+FAMILIES: dict[str, Family] = {
+    "chapman-richards": Family(
+        ("a", "k", "c"), lambda p, site: ChapmanRichards(p["a"], p["k"], p["c"], site)
+    ),
+    "schumacher": Family(("a", "b"), lambda p, site: Schumacher(p["a"], p["b"], site)),
+    "logistic": Family(
+        ("a", "b", "k"), lambda p, site: LogisticYield(p["a"], p["b"], p["k"], site)
+    ),
+    "gompertz": Family(
+        ("a", "b", "k"), lambda p, site: GompertzYield(p["a"], p["b"], p["k"], site)
+    ),
+    "stock-logistic": Family(("r", "capacity_m3_ha", "initial_m3_ha"), _stock),
+    "stock-threshold": Family(("r", "capacity_m3_ha", "initial_m3_ha", "min_viable_m3_ha"), _stock),
+    "table": Family(
+        (),
+        lambda p, site: TableYield(p["ages"], p["volumes_m3_ha"], p["site_classes_m"] or (0.0,)),
+    ),
+}
+
+
+def make_curve(family: str, parameters: Mapping[str, Any], site: SiteScaling) -> YieldCurve:
+    """The curve of ``family`` (a key of :data:`FAMILIES`) with these parameters."""
+    return FAMILIES[family].build(parameters, site)

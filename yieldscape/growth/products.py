@@ -6,12 +6,21 @@ values outside; at every age they add up to 1, so no volume is lost or made.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
+from dataclasses import dataclass
+
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from yieldscape.config import ProductSplit
-
 UNSPLIT = "unsplit"  # the product name of volume from a species without a product split
+
+
+@dataclass(frozen=True)
+class ProductSplit:
+    """Shares of harvested volume by product at given ages (linear between, flat outside)."""
+
+    ages: tuple[float, ...]
+    shares: Mapping[str, tuple[float, ...]]
 
 
 def product_shares(split: ProductSplit | None, age_years: ArrayLike) -> dict[str, NDArray]:

@@ -21,12 +21,47 @@ import numpy as np
 from numpy.typing import NDArray
 from scipy.optimize import brentq
 
-from yieldscape.config import EconomicsConfig, GrowthConfig, SpeciesConfig
 from yieldscape.growth.curves import StockGrowth, YieldCurve
 from yieldscape.growth.economics import Rotation, faustmann_rotation, fisher_rotation
 from yieldscape.growth.increments import Culmination, culmination, yield_class
 
 RULES = ("fixed", "mai_share", "volume", "economic")
+
+
+@dataclass(frozen=True)
+class AgeRules:
+    """A species' minimum harvest age rules (None: not used); the largest age wins."""
+
+    fixed_years: float | None = None
+    mai_share: float | None = None
+    volume_m3_ha: float | None = None
+    economic: bool = False
+
+    @property
+    def per_site(self) -> bool:
+        """Whether the age depends on site (every rule but a fixed age does)."""
+        return self.mai_share is not None or self.volume_m3_ha is not None or self.economic
+
+
+@dataclass(frozen=True)
+class Money:
+    """What a hectare of the species earns and costs, and the rate money is discounted at."""
+
+    price_per_m3: float | None = None
+    regen_cost_per_ha: float = 0.0
+    annual_cost_per_ha: float = 0.0
+    discount_rate: float | None = None
+    compounding: str = "continuous"
+
+
+@dataclass(frozen=True)
+class Search:
+    """How far and how finely curves are searched: the oldest age, the yield-class step
+    [m3/ha/yr] and the site index rounding of per-site rules [m]."""
+
+    max_age_years: float = 400.0
+    yield_class_step: float = 2.0
+    site_step_m: float = 0.1
 
 
 @dataclass(frozen=True)
@@ -58,37 +93,38 @@ def _curve_fns(curve: YieldCurve, site: float):
 
 
 def summarise_site(
-    cfg: SpeciesConfig,
+    species: str,
     curve: YieldCurve,
     site: float,
-    economics: EconomicsConfig,
-    growth: GrowthConfig,
+    rules: AgeRules,
+    money: Money = Money(),
+    search: Search = Search(),
 ) -> SiteSummary:
     """Culmination, yield class, every rule's age and the economic rotations at one site."""
     vol, cai = _curve_fns(curve, site)
-    max_age = growth.max_age_years
+    max_age = search.max_age_years
     cul = culmination(vol, cai, max_age)
     ages: dict[str, float] = {}
-    if cfg.min_harvest_age is not None:
-        ages["fixed"] = float(cfg.min_harvest_age)
-    if cfg.min_harvest_mai_share is not None:
-        ages["mai_share"] = _first_mai_share(vol, cul, cfg.min_harvest_mai_share)
-    if cfg.min_harvest_volume_m3_ha is not None:
-        ages["volume"] = _first_volume(vol, cfg.min_harvest_volume_m3_ha, max_age)
+    if rules.fixed_years is not None:
+        ages["fixed"] = float(rules.fixed_years)
+    if rules.mai_share is not None:
+        ages["mai_share"] = _first_mai_share(vol, cul, rules.mai_share)
+    if rules.volume_m3_ha is not None:
+        ages["volume"] = _first_volume(vol, rules.volume_m3_ha, max_age)
     faus = fish = None
     lev = None
-    if economics.discount_rate is not None and cfg.price_per_m3 is not None:
+    if money.discount_rate is not None and money.price_per_m3 is not None:
         args = (
             vol,
-            cfg.price_per_m3,
-            cfg.regen_cost_per_ha,
-            economics.discount_rate,
-            economics.compounding,
+            money.price_per_m3,
+            money.regen_cost_per_ha,
+            money.discount_rate,
+            money.compounding,
         )
-        faus = faustmann_rotation(*args, annual_cost=cfg.annual_cost_per_ha, max_age=max_age)
+        faus = faustmann_rotation(*args, annual_cost=money.annual_cost_per_ha, max_age=max_age)
         fish = fisher_rotation(*args, max_age=max_age)
         lev = faus.value
-    if cfg.min_harvest_economic:
+    if rules.economic:
         assert faus is not None, "checked when the scenario was loaded"
         ages["economic"] = faus.age_years
     msy_s = msy_g = None
@@ -98,10 +134,10 @@ def summarise_site(
         msy_s, msy_g = float(s), float(g)
         collapses = curve.collapses
     return SiteSummary(
-        species=cfg.code,
+        species=species,
         site_index=float(site),
         culmination=cul,
-        yield_class=yield_class(cul.mai, growth.yield_class_step),
+        yield_class=yield_class(cul.mai, search.yield_class_step),
         rule_ages=ages,
         min_harvest_age_years=max(ages.values()),
         faustmann=faus,
@@ -114,54 +150,52 @@ def summarise_site(
 
 
 def site_summaries(
-    cfg: SpeciesConfig,
+    species: str,
     curve: YieldCurve,
     site_index: NDArray,
-    economics: EconomicsConfig,
-    growth: GrowthConfig,
+    rules: AgeRules,
+    money: Money = Money(),
+    search: Search = Search(),
 ) -> tuple[list[SiteSummary], NDArray[np.intp]]:
-    """Summaries for each distinct site index (rounded to ``growth.rule_site_step_m``) and the
+    """Summaries for each distinct site index (rounded to ``search.site_step_m``) and the
     index that maps every stand onto its summary. The loop runs over distinct sites."""
-    step = growth.rule_site_step_m
+    step = search.site_step_m
     rounded = np.round(np.asarray(site_index, dtype=np.float64) / step) * step
     unique, inverse = np.unique(rounded, return_inverse=True)
-    return [summarise_site(cfg, curve, s, economics, growth) for s in unique], inverse
+    return [summarise_site(species, curve, s, rules, money, search) for s in unique], inverse
 
 
 def min_harvest_ages(
-    cfg: SpeciesConfig,
     curve: YieldCurve,
     site_index: NDArray,
-    economics: EconomicsConfig,
-    growth: GrowthConfig,
+    rules: AgeRules,
+    money: Money = Money(),
+    search: Search = Search(),
 ) -> NDArray[np.float64]:
     """Minimum harvest age [years] for each stand's site index (one species).
 
     Only a fixed age is the same everywhere; other rules are worked out once per distinct site
-    index, rounded to ``growth.rule_site_step_m``, and mapped back to the stands.
+    index, rounded to ``search.site_step_m``, and mapped back to the stands.
     """
     site_index = np.asarray(site_index, dtype=np.float64)
-    site_rules = (
-        cfg.min_harvest_mai_share is not None
-        or cfg.min_harvest_volume_m3_ha is not None
-        or cfg.min_harvest_economic
-    )
-    if not site_rules:
-        return np.full(site_index.shape, float(cfg.min_harvest_age or 0.0))
-    sums, inverse = site_summaries(cfg, curve, site_index, economics, growth)
+    if not rules.per_site:
+        return np.full(site_index.shape, float(rules.fixed_years or 0.0))
+    sums, inverse = site_summaries("", curve, site_index, rules, money, search)
     return np.array([s.min_harvest_age_years for s in sums])[inverse]
 
 
 def max_mai(
-    cfg: SpeciesConfig,
-    curve: YieldCurve,
-    site_index: NDArray,
-    economics: EconomicsConfig,
-    growth: GrowthConfig,
+    curve: YieldCurve, site_index: NDArray, search: Search = Search()
 ) -> NDArray[np.float64]:
     """Maximum MAI [m3/ha/yr] for each stand's site index (one species)."""
-    sums, inverse = site_summaries(cfg, curve, site_index, economics, growth)
-    return np.array([s.culmination.mai for s in sums])[inverse]
+    step = search.site_step_m
+    rounded = np.round(np.asarray(site_index, dtype=np.float64) / step) * step
+    unique, inverse = np.unique(rounded, return_inverse=True)
+    out = []
+    for site in unique:  # per distinct site
+        vol, cai = _curve_fns(curve, site)
+        out.append(culmination(vol, cai, search.max_age_years).mai)
+    return np.array(out)[inverse]
 
 
 def _first_mai_share(vol, cul: Culmination, share: float) -> float:

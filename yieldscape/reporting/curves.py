@@ -8,7 +8,6 @@ import numpy as np
 import pandas as pd
 
 from yieldscape.config import Scenario
-from yieldscape.growth import curve_from_config
 from yieldscape.growth.rules import RULES, SiteSummary, summarise_site
 
 COLUMNS = [
@@ -58,10 +57,17 @@ def curves_table(
     summaries: dict[str, list[SiteSummary]] = {}
     for code, sites in site_values(stands, step_m).items():
         cfg = scenario.species[code]
-        curve = curve_from_config(cfg)
+        curve = cfg.yield_curve()
         summaries[code] = []
         for site, n, area in sites[["site_index", "stands", "area_ha"]].itertuples(index=False):
-            s = summarise_site(cfg, curve, float(site), scenario.economics, scenario.growth)
+            s = summarise_site(
+                code,
+                curve,
+                float(site),
+                cfg.age_rules(),
+                cfg.money(scenario.economics),
+                scenario.growth.search(),
+            )
             summaries[code].append(s)
             rows.append(
                 {

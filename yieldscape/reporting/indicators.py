@@ -22,6 +22,7 @@ import pandas as pd
 
 from yieldscape.config import Scenario
 from yieldscape.growth.economics import growth_factor
+from yieldscape.policies import flow_policy
 from yieldscape.projection import CurveSet, Periods, StandArrays, zone_codes, zone_names
 from yieldscape.schedule import FlowResult
 from yieldscape.schedule.simulate import PartsSnapshot
@@ -117,13 +118,6 @@ CHECK_LABELS = {
     "cover_targets_met": "Cover targets met",
 }
 STOCK_TOLERANCE = 0.01  # a harvestable growing stock within 1% counts as not falling
-POLICY_NAMES = {
-    "even": "even flow",
-    "nondeclining": "non-declining flow",
-    "stepdown": "step-down flow",
-    "targets": "target schedule",
-    "optimize": "optimised (LP) flow",
-}
 
 
 def term_rows(n_periods: int) -> dict[str, slice]:
@@ -378,7 +372,7 @@ def judge(
     wf = wood_flow
     P = len(wf)
     L = scenario.scenario.period_years
-    policy = POLICY_NAMES.get(flow.policy, flow.policy)
+    policy = flow_policy(flow.policy).label
     checks: list[Check] = []
 
     short = ~wf["meets_policy"].to_numpy(dtype=bool)

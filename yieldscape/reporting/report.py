@@ -18,7 +18,8 @@ import numpy as np
 import pandas as pd
 
 from yieldscape.config import Scenario
-from yieldscape.reporting.indicators import POLICY_NAMES, Verdict
+from yieldscape.policies import flow_policy
+from yieldscape.reporting.indicators import Verdict
 
 CAUTION = (
     "These are planning estimates from models, not prescriptions. Yield curves, netdowns and "
@@ -168,7 +169,7 @@ def _scenario_table(data: ReportData) -> pd.DataFrame:
         ),
         (
             "flow policy",
-            f"{POLICY_NAMES.get(f.policy, f.policy)}"
+            f"{flow_policy(f.policy).label}"
             + (f", band +/-{100 * f.band:g}%" if f.policy == "even" and f.band else "")
             + (
                 f", step-down at most {100 * f.step_down_max:g}% per period"
@@ -301,22 +302,13 @@ def _shown(frame: pd.DataFrame, headers: dict[str, str]) -> pd.DataFrame:
     return frame[[c for c in headers if c in frame]].rename(columns=headers)
 
 
-LEVEL_MEANS = {  # what the flow level is, where a policy's harvest is not one level
-    "nondeclining": ", period 1",
-    "stepdown": ", initial level",
-    "targets": ", mean harvest",
-    "optimize": ", period 1",
-}
-
-
 def key_numbers(data: ReportData) -> pd.DataFrame:
     """The numbers a reader needs first, in words: the flow level, the harvestable land base,
     the long-term sustained yield, the ending growing stock against the initial and the
     requirement, and each sensitivity case's level and verdict."""
     ind = data.indicators.set_index("indicator")["value"]
     f = data.scenario.flow
-    key = "optimize" if f.method == "optimize" else f.policy
-    policy = POLICY_NAMES.get(key, key) + LEVEL_MEANS.get(key, "")
+    policy = flow_policy("optimize" if f.method == "optimize" else f.policy).level_label
     level = float(ind["flow_level_m3_per_year"])
     gross, hlb = float(ind["gross_area_ha"]), float(ind["harvestable_ha"])
     ltsy = float(ind["ltsy_at_culmination_m3_per_year"])

@@ -8,12 +8,10 @@ from yieldscape.schedule.flow import (
     run_targets,
     stable_periods_for,
 )
-from yieldscape.schedule.priority import PRIORITY_RULES
 from yieldscape.schedule.simulate import Simulation, simulate
 from yieldscape.schedule.spatial import SpatialRules
 
 __all__ = [
-    "PRIORITY_RULES",
     "FlowResult",
     "Simulation",
     "find_even_flow",

@@ -14,9 +14,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from yieldscape.policies import EvenFlow, Sequence, StepDown, Targets
 from yieldscape.projection import CurveSet, Periods, StandArrays
 from yieldscape.schedule.cover import CoverRules
-from yieldscape.schedule.policies import EvenFlow, Sequence, StepDown, Targets
 from yieldscape.schedule.simulate import Simulation, simulate
 from yieldscape.schedule.spatial import SpatialRules
 

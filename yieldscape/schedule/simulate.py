@@ -20,23 +20,11 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import NDArray
 
+from yieldscape.policies import EvenFlow, FixedTargets, TargetRule, cut_order
 from yieldscape.projection import CurveSet, Periods, StandArrays, growing_stock_m3
 from yieldscape.schedule.cover import CoverRules
 from yieldscape.schedule.picker import sequential_pick
-from yieldscape.schedule.policies import EvenFlow, Targets
-from yieldscape.schedule.priority import cut_order
 from yieldscape.schedule.spatial import SpatialRules
-
-TargetRule = EvenFlow | Targets | object  # anything with bounds(p, h_prev) -> (target, floor)
-
-
-class _FixedTargets(Targets):
-    """Fixed targets that are also floors (for tests and explicit schedules)."""
-
-    def bounds(self, p: int, h_prev: float) -> tuple[float, float]:
-        v = float(self.values[p])
-        return v, v
-
 
 _REL = 1e-9  # relative tolerance on volume targets
 _MIN_PART_HA = 1e-9  # a smaller partial cut (<= ~1e-6 m3) is not worth a split
@@ -141,7 +129,7 @@ def simulate(
     run goes on to the end even where a floor is missed; without it the run stops at the
     first missed floor (the flow search only needs the verdict). ``targets`` [m3 per period]
     replaces the level and band by fixed per-period targets, each also its period's floor;
-    ``rule`` (a :mod:`yieldscape.schedule.policies` rule) replaces both. With
+    ``rule`` (a :mod:`yieldscape.policies` target rule) replaces both. With
     ``stable_periods`` = K > 0 the run also fails unless the growing stock on the harvestable
     land base at the end is at least its value K periods before the end. ``spatial``
     (:class:`SpatialRules`) adds green-up and opening-size rules over the adjacency graph.
@@ -156,7 +144,7 @@ def simulate(
     if spatial is not None:
         spatial = spatial.fresh()
     if rule is None:
-        rule = _FixedTargets(tuple(targets)) if targets is not None else EvenFlow(level_m3, band)
+        rule = FixedTargets(tuple(targets)) if targets is not None else EvenFlow(level_m3, band)
     P, L, off = periods.count, float(periods.period_years), periods.offset_years
     cap = np.inf if max_area_ha is None else float(max_area_ha)
     # parts: start as copies of the stand arrays; partial cuts append
