@@ -16,7 +16,7 @@ import shapely
 from yieldscape.adjacency import build_adjacency
 from yieldscape.growth import ChapmanRichards
 from yieldscape.projection import CurveSet, Periods, StandArrays
-from yieldscape.schedule import find_even_flow
+from yieldscape.schedule import HarvestRules, find_even_flow
 from yieldscape.schedule.spatial import SpatialRules
 
 
@@ -72,9 +72,9 @@ def main() -> None:
             stands,
             curves,
             Periods(2027, 10, 20),
+            HarvestRules(spatial=SpatialRules(adj, 20.0, 40.0)),
             band=0.1,
             ending_stock=1.0,
-            spatial=SpatialRules(adj, 20.0, 40.0),
         )
         print(
             f"spatial run (green-up 20 y, openings <= 40 ha) of {m:,} stands x 20 periods: "

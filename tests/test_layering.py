@@ -1,5 +1,7 @@
-"""Imports run one way: cli -> pipeline -> io, inventory, projection, schedule, reporting ->
-growth, config, errors (house style). A module may not import from a layer above it."""
+"""Imports run one way: cli -> pipeline -> publish -> results -> reporting -> schedule, landbase
+-> io, inventory, projection -> growth, config -> errors, policies (house style). A module may
+not import from a layer above it, and no two modules import each other, directly or round a
+loop, not even for type annotations only."""
 
 import ast
 from pathlib import Path
@@ -22,10 +24,11 @@ LAYER = {
     "schedule": 3,
     "landbase": 3,
     "reporting": 4,
-    "pipeline": 5,
-    "publish": 5,
-    "__init__": 6,
-    "cli": 7,
+    "results": 5,
+    "publish": 6,
+    "pipeline": 7,
+    "__init__": 8,
+    "cli": 9,
 }
 
 
@@ -34,21 +37,60 @@ def _layer_of(module: str) -> int:
     return LAYER[parts[1] if len(parts) > 1 else "__init__"]
 
 
-def test_no_module_imports_upward():
-    problems = []
+def _modules() -> dict[str, Path]:
+    out = {}
     for path in PKG.rglob("*.py"):
         rel = path.relative_to(PKG.parent).with_suffix("")
-        mod = ".".join(rel.parts).removesuffix(".__init__")
-        mine = _layer_of(mod) if mod != "yieldscape" else LAYER["__init__"]
-        for node in ast.walk(ast.parse(path.read_text())):
-            names = []
-            if isinstance(node, ast.ImportFrom) and node.module:
-                names = [node.module]
-            elif isinstance(node, ast.Import):
-                names = [a.name for a in node.names]
-            for name in names:
-                if name == "yieldscape" or name.startswith("yieldscape."):
-                    theirs = _layer_of(name) if name != "yieldscape" else LAYER["__init__"]
-                    if theirs > mine:
-                        problems.append(f"{mod} imports {name}")
+        out[".".join(rel.parts).removesuffix(".__init__")] = path
+    return out
+
+
+def _imports(path: Path, known: dict[str, Path]) -> set[str]:
+    """Every yieldscape module ``path`` imports, wherever the import stands (a function body,
+    an ``if TYPE_CHECKING:`` block): ``from a.b import c`` counts a.b.c when that is a module,
+    else a.b."""
+    names = set()
+    for node in ast.walk(ast.parse(path.read_text())):
+        if isinstance(node, ast.ImportFrom) and node.module:
+            for alias in node.names:
+                sub = f"{node.module}.{alias.name}"
+                names.add(sub if sub in known else node.module)
+        elif isinstance(node, ast.Import):
+            names.update(a.name for a in node.names)
+    return {n for n in names if n == "yieldscape" or n.startswith("yieldscape.")}
+
+
+def test_no_module_imports_upward():
+    problems = []
+    known = _modules()
+    for mod, path in known.items():
+        mine = _layer_of(mod)
+        for name in _imports(path, known):
+            if _layer_of(name) > mine:
+                problems.append(f"{mod} imports {name}")
     assert not problems, problems
+
+
+def test_no_import_cycles():
+    # A module imports its package's __init__ on the way; only edges between modules count
+    # here (a package importing its own submodules is the package's job, not a cycle).
+    known = _modules()
+    graph = {m: {n for n in _imports(p, known) if n in known and n != m} for m, p in known.items()}
+    for mod in graph:  # a submodule's import of its own package is not an edge back
+        graph[mod] = {n for n in graph[mod] if not mod.startswith(n + ".")}
+    state: dict[str, int] = {}
+    cycles = []
+
+    def visit(m: str, trail: list[str]) -> None:
+        state[m] = 1
+        for n in sorted(graph[m]):
+            if state.get(n) == 1:
+                cycles.append(trail[trail.index(n) :] + [n] if n in trail else [m, n])
+            elif n not in state:
+                visit(n, [*trail, n])
+        state[m] = 2
+
+    for m in sorted(graph):
+        if m not in state:
+            visit(m, [m])
+    assert not cycles, cycles

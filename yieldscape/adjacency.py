@@ -13,12 +13,17 @@ The graph is returned as compressed sparse rows (``indptr``, ``indices``), symme
 from __future__ import annotations
 
 from dataclasses import dataclass
+from pathlib import Path
 
+import geopandas as gpd
 import numpy as np
 import shapely
 from numpy.typing import NDArray
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
+
+from yieldscape.geometry import metres_per_unit, metric_geometries
+from yieldscape.io.cache import cached_arrays
 
 MODES = ("edge", "edge-or-corner")
 
@@ -84,3 +89,24 @@ def build_adjacency(geoms: NDArray, mode: str = "edge", separation: float = 0.0)
         edge = shapely.relate_pattern(geoms[i], geoms[j], "****1****")
         i, j = i[edge], j[edge]
     return Adjacency.from_pairs(len(geoms), i, j)
+
+
+def stand_adjacency(
+    stands: gpd.GeoDataFrame,
+    source: Path,
+    layer: str | None,
+    mode: str = "edge",
+    separation_m: float = 0.0,
+) -> tuple[Adjacency, bool]:
+    """The adjacency graph of the stands (in a metre-based CRS), from the on-disk cache when
+    the stand file ``source`` and the options are unchanged; and whether it was cached."""
+    geoms, wcrs = metric_geometries(stands)
+    separation = separation_m / metres_per_unit(wcrs)
+
+    def build() -> dict[str, np.ndarray]:
+        adj = build_adjacency(geoms, mode, separation)
+        return {"indptr": adj.indptr, "indices": adj.indices}
+
+    options = f"adjacency|{layer}|{mode}|{separation_m}|{len(geoms)}"
+    arrays, hit = cached_arrays("adjacency", source, options, build)
+    return Adjacency(arrays["indptr"], arrays["indices"]), hit

@@ -36,7 +36,7 @@ import shapely
 
 from yieldscape.config import NetdownStep
 from yieldscape.errors import InputError
-from yieldscape.geometry import invalid_mask, repair
+from yieldscape.geometry import invalid_mask, metres_per_unit, metric_geometries, repair
 from yieldscape.io.rasters import RasterData
 from yieldscape.zonal import zonal
 
@@ -208,29 +208,6 @@ def _truth(value):  # noqa: ANN001, ANN202
 
 
 # ----------------------------------------------------------------------------- geometry
-def work_crs(crs: pyproj.CRS, geoms: np.ndarray) -> pyproj.CRS:
-    """A metre-based CRS for buffers: the layer's own if projected, else a local LAEA."""
-    if not crs.is_geographic:
-        return crs
-    x0, y0, x1, y1 = shapely.total_bounds(geoms)
-    return pyproj.CRS.from_proj4(
-        f"+proj=laea +lat_0={(y0 + y1) / 2} +lon_0={(x0 + x1) / 2} +ellps=WGS84 +units=m"
-    )
-
-
-def metric_geometries(frame: gpd.GeoDataFrame) -> tuple[np.ndarray, pyproj.CRS]:
-    """The frame's geometries in its metre-based work CRS (see :func:`work_crs`), and that
-    CRS."""
-    crs = pyproj.CRS.from_user_input(frame.crs)
-    geoms = frame.geometry.to_numpy()
-    wcrs = work_crs(crs, geoms)
-    return (geoms if wcrs == crs else frame.geometry.to_crs(wcrs).to_numpy()), wcrs
-
-
-def metres_per_unit(crs: pyproj.CRS) -> float:
-    return crs.axis_info[0].unit_conversion_factor if crs.axis_info else 1.0
-
-
 def overlay_cut(remaining: np.ndarray, overlay: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Per stand: the union of its remaining geometry's intersections with the overlay, and
     what is left of the geometry. Candidates come from an STRtree; intersections and unions
@@ -467,3 +444,30 @@ def netdown_table(
         }
     )
     return pd.concat([rows, last], ignore_index=True)
+
+
+def with_netdown_columns(
+    stands: gpd.GeoDataFrame, netdown: Netdown, steps: tuple[NetdownStep, ...]
+) -> gpd.GeoDataFrame:
+    """The stand table with the netdown after ``area_ha``: ``gross_ha``, what each step removed
+    (``removed_step<N>_ha``) and ``harvestable_ha``; the geometry stays last."""
+    stands = stands.copy()
+    geom = stands.geometry.name
+    extra = {"gross_ha": netdown.gross_ha}
+    for step, removed in zip(steps, netdown.removed_ha, strict=True):
+        extra[f"removed_step{step.number}_ha"] = removed
+    extra["harvestable_ha"] = netdown.harvestable_ha
+    at = list(stands.columns).index("area_ha") + 1
+    for offset, (name, values) in enumerate(extra.items()):
+        stands.insert(at + offset, name, values)
+    return stands[[c for c in stands.columns if c != geom] + [geom]]
+
+
+def where_fields(stands: gpd.GeoDataFrame, fields_map: Mapping[str, str | None]) -> dict:
+    """Fields a netdown rule may name: the stand table's own, and the layer's names for the
+    standard ones (``fields_map``: standard name -> the layer's name)."""
+    fields = {c: stands[c] for c in stands.columns if c != stands.geometry.name}
+    for ours, theirs in fields_map.items():
+        if theirs is not None and theirs not in fields:
+            fields[theirs] = stands[ours]
+    return fields

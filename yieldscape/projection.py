@@ -22,7 +22,7 @@ from numpy.typing import NDArray
 from yieldscape.config import Scenario
 from yieldscape.growth import TableYield, YieldCurve
 from yieldscape.growth.curves import _Parametric
-from yieldscape.growth.rules import min_harvest_ages
+from yieldscape.growth.rules import Search, max_mai, min_harvest_ages
 
 TIMING_OFFSET = {"start": 0.0, "midpoint": 0.5, "end": 1.0}  # share of a period
 
@@ -311,3 +311,24 @@ def zone_codes(stands: pd.DataFrame) -> NDArray[np.int64]:
 
 def zone_names(stands: pd.DataFrame) -> list[str]:
     return sorted(set(stands["zone"].fillna("").astype(str)))
+
+
+def long_term_sustained_yield(
+    curves: CurveSet, arrays: StandArrays, search: Search
+) -> dict[str, float]:
+    """Harvestable area times MAI, summed over stands [m3/year]: at each stand's MAI
+    culmination, and at its minimum harvest age (the rotation the rules use)."""
+    area = arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
+    at_cul = np.zeros(arrays.n)
+    for i in range(len(curves.codes)):  # per species; per distinct site inside
+        mine = arrays.species_idx == i
+        if mine.any():
+            at_cul[mine] = max_mai(curves.curves[i], arrays.site_index[mine], search)
+    r = arrays.min_harvest_age
+    ok = np.isfinite(r) & (r > 0)
+    at_rot = np.zeros(arrays.n)
+    at_rot[ok] = curves.volume_m3_ha(arrays.species_idx[ok], r[ok], arrays.site_index[ok]) / r[ok]
+    return {
+        "at_culmination": float(np.dot(area, at_cul)),
+        "at_min_harvest_age": float(np.dot(area, at_rot)),
+    }

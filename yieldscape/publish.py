@@ -8,7 +8,6 @@ import logging
 import time
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import TYPE_CHECKING
 
 import geopandas as gpd
 import numpy as np
@@ -17,11 +16,11 @@ import pyproj
 import shapely
 
 from yieldscape.config import Scenario
+from yieldscape.geometry import metres_per_unit, metric_geometries
 from yieldscape.growth.rules import SiteSummary
-from yieldscape.io.outputs import sha256_file, write_json
+from yieldscape.io.outputs import replace_file, sha256_file, write_json
 from yieldscape.io.rasters import write_geotiff
 from yieldscape.io.vector import add_feature_views, write_gpkg_layer
-from yieldscape.landbase import metres_per_unit, metric_geometries
 from yieldscape.reporting.compare import comparison_figure, comparison_table
 from yieldscape.reporting.curves import rotation_summary
 from yieldscape.reporting.figures import (
@@ -34,13 +33,12 @@ from yieldscape.reporting.figures import (
     monte_carlo_figure,
 )
 from yieldscape.reporting.report import Figure, ReportData, html_report, markdown_report
+from yieldscape.results import CheckResult, RunResult
 from yieldscape.versions import library_versions
 from yieldscape.zonal import stand_grid
 
 log = logging.getLogger("yieldscape")
 
-if TYPE_CHECKING:  # the pipeline imports this module; the types only for annotations
-    from yieldscape.pipeline import CheckResult, RunResult
 
 GPKG_NAME = "projection.gpkg"
 WOOD_FLOW_CSV = "wood_flow.csv"
@@ -129,13 +127,13 @@ def write_outputs(
     (directory / REPORT_HTML).write_text(html_report(data), encoding="utf-8")
     if rep.markdown:
         (directory / REPORT_MD).write_text(markdown_report(data), encoding="utf-8")
-    result.timings_s["write outputs"] = round(time.perf_counter() - t0, 4)
-    record["timings_s"] = result.timings_s
+    seconds = round(time.perf_counter() - t0, 4)
+    record["timings_s"] = {**result.timings_s, "write outputs": seconds}
     # what this run wrote, so that a later run may replace it all (io.outputs.check_output_dir)
     record["outputs"] = sorted({p.name for p in directory.iterdir()} | {RUN_JSON, RUN_LOG})
     write_json(directory / RUN_JSON, record)
     if case is None:  # once for the whole output: the cases' writes are part of it
-        log.info("write outputs done in %.2f s", result.timings_s["write outputs"])
+        log.info("write outputs done in %.2f s", seconds)
     (directory / RUN_LOG).write_text("\n".join(result.log) + "\n", encoding="utf-8")
     return record
 
@@ -435,8 +433,7 @@ def report_data(
         comparison=comparison,
         lp=result.lp,
         case=case,
-        # the run's warnings, once RunResult carries them
-        warnings=tuple(getattr(result, "warnings", ())),
+        warnings=result.warnings,
     )
 
 
@@ -503,3 +500,31 @@ def harvestable_layer(checked: CheckResult) -> gpd.GeoDataFrame:
     )
     geom = checked.netdown.remaining_geometry[keep]
     return gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geom, crs=s.crs).values, crs=s.crs)
+
+
+def write_curves(
+    out: Path, scenario: Scenario, table: pd.DataFrame, summaries: dict[str, list[SiteSummary]]
+) -> list[Path]:
+    """The curves report into ``out``: curves.csv and one figure per species at the site
+    holding the most area. Each file is written to a temporary name and moved into place, so
+    the report can sit beside a run's outputs without touching them. Returns the files."""
+    replace_file(out / CURVES_CSV, lambda p: table.to_csv(p, index=False), out)
+    files = [out / CURVES_CSV]
+    for code, main in dominant_sites(table, summaries).items():
+        path = out / FIGURES_DIR / f"curves_{code}.png"
+        curve = scenario.species[code].yield_curve()
+        age = figure_age(main, scenario.growth.max_age_years)
+        replace_file(
+            path, lambda p, c=code, cv=curve, m=main, a=age: curve_figure(p, c, cv, m, a), out
+        )
+        files.append(path)
+    return files
+
+
+def write_comparison(
+    out: Path, table: pd.DataFrame, runs: list[tuple[str, dict, pd.DataFrame]]
+) -> None:
+    """comparison.csv and comparison.png of ``yieldscape compare`` into ``out`` (each written
+    to a temporary name first)."""
+    replace_file(out / COMPARISON_CSV, lambda p: table.to_csv(p, index=False), out)
+    replace_file(out / COMPARISON_PNG, lambda p: comparison_figure(p, runs), out)

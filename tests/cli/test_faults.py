@@ -243,7 +243,7 @@ def test_a_full_disk_in_curves_and_compare(small_case, capsys, monkeypatch, comm
         raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
 
     figure = {"curves": "curve_figure", "compare": "comparison_figure"}[command]
-    monkeypatch.setattr(f"yieldscape.pipeline.{figure}", full)
+    monkeypatch.setattr(f"yieldscape.publish.{figure}", full)  # the writer draws them
     out = tmp_path / "cmp"
     args = [str(scenario)] if command == "curves" else [str(tmp_path / "run")]
     png = "curves_pine.png" if command == "curves" else "comparison.png"

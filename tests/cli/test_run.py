@@ -63,7 +63,7 @@ def test_sample_run_writes_its_outputs(sample_run):
         "wood_flow.csv",
         "wood_flow_by_product.csv",
     ]
-    assert "even-flow level" in proc.stdout and "limited by" in proc.stdout
+    assert "even flow: " in proc.stdout and "limited by" in proc.stdout
     assert "verdict: Sustainable" in proc.stdout
     assert "sensitivity case 'openings-40ha':" in proc.stdout
     assert "planning estimates" in proc.stdout

@@ -4,8 +4,9 @@ import numpy as np
 import pytest
 
 from yieldscape.growth import ChapmanRichards
+from yieldscape.policies import EvenFlow
 from yieldscape.projection import CurveSet, Periods, StandArrays
-from yieldscape.schedule import simulate
+from yieldscape.schedule import HarvestRules, simulate
 
 CURVES = CurveSet(["pine"], [ChapmanRichards(450.0, 0.035, 3.0)])
 
@@ -28,7 +29,8 @@ def test_share_older_than_r_is_one_minus_p_to_the_r(p, R):
     # of area older than R is (1 - p)^R (common practice; negative exponential age structure).
     L, periods = 10, 15
     st = young_forest()
-    sim = simulate(st, CURVES, Periods(2030, L, periods, "start"), 0.0, record=True, disturbance=p)
+    periods_ = Periods(2030, L, periods, "start")
+    sim = simulate(st, CURVES, periods_, EvenFlow(0.0), HarvestRules(disturbance=p), record=True)
     old = sim.final_area_ha[sim.final_age_years >= R - 1e-9].sum()
     assert old / sim.final_area_ha.sum() == pytest.approx((1 - p) ** R, rel=1e-9)
     survive = (1 - p) ** (L * periods)
@@ -42,10 +44,17 @@ def test_share_older_than_r_is_one_minus_p_to_the_r(p, R):
 def test_monte_carlo_agrees_with_expected_values_and_is_seeded():
     st = young_forest(n=2000, age=80.0)
     periods = Periods(2030, 10, 8)
-    det = simulate(st, CURVES, periods, 0.0, record=True, disturbance=0.01)
+    burning = HarvestRules(disturbance=0.01)
+    det = simulate(st, CURVES, periods, EvenFlow(0.0), burning, record=True)
     runs = [
         simulate(
-            st, CURVES, periods, 0.0, record=True, disturbance=0.01, rng=np.random.default_rng(seed)
+            st,
+            CURVES,
+            periods,
+            EvenFlow(0.0),
+            burning,
+            record=True,
+            rng=np.random.default_rng(seed),
         )
         for seed in (1, 2, 3)
     ]
@@ -53,6 +62,6 @@ def test_monte_carlo_agrees_with_expected_values_and_is_seeded():
     # whole stands of 2.5 ha burn with the period's probability: within sampling error
     np.testing.assert_allclose(mean, det.disturbed_ha, rtol=0.12)
     again = simulate(
-        st, CURVES, periods, 0.0, record=True, disturbance=0.01, rng=np.random.default_rng(1)
+        st, CURVES, periods, EvenFlow(0.0), burning, record=True, rng=np.random.default_rng(1)
     )
     np.testing.assert_array_equal(again.disturbed_ha, runs[0].disturbed_ha)

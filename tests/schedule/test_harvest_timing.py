@@ -10,6 +10,7 @@ import numpy as np
 import pytest
 
 from yieldscape.growth import ChapmanRichards
+from yieldscape.policies import EvenFlow, FixedTargets
 from yieldscape.projection import CurveSet, Periods, StandArrays
 from yieldscape.schedule import simulate
 
@@ -36,8 +37,7 @@ def test_first_cut_follows_timing(timing, period, age):
         one_stand(),
         CurveSet(["pine"], [CURVE]),
         Periods(2030, 10, 3, timing),
-        level_m3=0.0,
-        targets=np.full(3, 1e9),
+        FixedTargets((1e9,) * 3),
         record=True,
     )
     assert sim.event_period[0] == period
@@ -53,8 +53,7 @@ def test_regeneration_delay_sets_next_start_age():
         one_stand(delay=3.0),
         curves,
         Periods(2030, 10, 1, "midpoint"),
-        level_m3=1e9,
-        band=0.5,
+        EvenFlow(1e9, 0.5),
         record=True,
     )
     assert sim.growing_stock_end_m3[0] == pytest.approx(2.0 * float(CURVE.volume_m3_ha(2.0, 18)))

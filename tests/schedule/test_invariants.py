@@ -10,7 +10,7 @@ from hypothesis import strategies as st
 
 from yieldscape.growth import ChapmanRichards, SiteScaling, TableYield
 from yieldscape.projection import CurveSet, Periods, StandArrays
-from yieldscape.schedule import find_even_flow
+from yieldscape.schedule import HarvestRules, find_even_flow
 
 CURVES = CurveSet(
     ["a", "b"],
@@ -95,7 +95,8 @@ def reconstruct_stock(stands, periods, sim):
 @given(forests())
 def test_schedule_invariants(case):
     stands, periods, cap, band, ending = case
-    flow = find_even_flow(stands, CURVES, periods, band=band, ending_stock=ending, max_area_ha=cap)
+    rules = HarvestRules(max_area_ha=cap)
+    flow = find_even_flow(stands, CURVES, periods, rules, band=band, ending_stock=ending)
     sim = flow.simulation
     assert sim.feasible
     # no stand is cut below its minimum harvest age

@@ -8,8 +8,9 @@ import pytest
 
 from yieldscape.errors import InputError
 from yieldscape.growth import ChapmanRichards, chapman_richards_culmination_age
+from yieldscape.policies import EvenFlow
 from yieldscape.projection import CurveSet, Periods, StandArrays
-from yieldscape.schedule import find_even_flow
+from yieldscape.schedule import HarvestRules, find_even_flow, simulate
 from yieldscape.schedule.lp import build_lp, make_strata, solve_lp
 
 from helpers import gap_forest
@@ -64,7 +65,8 @@ def test_lp_optimum_bounds_the_rule_based_forecast():
     # Same aspatial constraints (strict even flow, ending stock): the LP's level is at least
     # the rule-based scheduler's, since the rule-based schedule is one of the LP's solutions.
     st = forest()
-    rules = find_even_flow(st, CURVES, PERIODS, band=0.0, ending_stock=1.0, max_area_ha=300.0)
+    capped = HarvestRules(max_area_ha=300.0)
+    rules = find_even_flow(st, CURVES, PERIODS, capped, band=0.0, ending_stock=1.0)
     lp = solve_lp(st, CURVES, PERIODS, stand_strata(st), "max-even-flow", "even", 0.0, 1.0, 300.0)
     assert lp.objective >= rules.level_m3_per_period * (1 - 1e-6)
     np.testing.assert_allclose(lp.harvest_m3, lp.objective, rtol=1e-6)
@@ -159,7 +161,7 @@ def test_lp_keeps_cover_targets_and_still_bounds_the_rules():
     st = forest()
     zones = np.zeros(st.n, dtype=np.int64)
     cover = CoverRules((CoverRule(-1, "*", "old", 120.0, 0.25),), np.array([st.area_ha.sum()]))
-    rules = find_even_flow(st, CURVES, PERIODS, ending_stock=0.5, cover=cover)
+    rules = find_even_flow(st, CURVES, PERIODS, HarvestRules(cover=cover), ending_stock=0.5)
     lp = solve_lp(
         st,
         CURVES,
@@ -211,7 +213,8 @@ def test_lp_with_expected_disturbance_bounds_the_rule_based_schedule():
         base.id_rank,
         harvestable,
     )
-    rules = find_even_flow(st, CURVES, PERIODS, ending_stock=0.6, disturbance=0.005)
+    burning = HarvestRules(disturbance=0.005)
+    rules = find_even_flow(st, CURVES, PERIODS, burning, ending_stock=0.6)
     lp = solve_lp(
         st,
         CURVES,
@@ -236,7 +239,6 @@ def test_lp_disturbance_accounting_matches_the_simulation():
     # With monotone yield curves no harvest keeps the most standing volume, so the largest
     # ending-stock requirement the LP can meet must equal the simulation's expected ending
     # stock without harvest (the two disturbance bookkeepings agree, reserved area included).
-    from yieldscape.schedule import simulate
 
     base = forest(n=30)
     harvestable = base.area_ha * np.where(np.arange(base.n) % 2 == 0, 0.4, 1.0)
@@ -250,7 +252,7 @@ def test_lp_disturbance_accounting_matches_the_simulation():
         base.id_rank,
         harvestable,
     )
-    calm = simulate(st, CURVES, PERIODS, 0.0, record=True, disturbance=0.01)
+    calm = simulate(st, CURVES, PERIODS, EvenFlow(0.0), HarvestRules(disturbance=0.01), record=True)
     ratio = calm.ending_stock_m3 / calm.initial_stock_m3
     ok = solve_lp(
         st,

@@ -3,10 +3,10 @@
 import numpy as np
 import pytest
 
-from yieldscape.config import FlowConfig, HarvestConfig
+from yieldscape.config import FlowConfig
 from yieldscape.growth import ChapmanRichards
 from yieldscape.projection import CurveSet, Periods, StandArrays
-from yieldscape.schedule import schedule
+from yieldscape.schedule import NO_RULES, schedule
 
 from helpers import gap_forest
 
@@ -19,7 +19,8 @@ def forest(seed=4, n=120):
 
 
 def run(**flow):
-    return schedule(forest(), CURVES, PERIODS, FlowConfig(**flow), HarvestConfig())
+    cfg = FlowConfig(**flow)
+    return schedule(forest(), CURVES, PERIODS, cfg, cfg.policy, NO_RULES)
 
 
 def test_nondeclining_never_declines_and_dominates_even_flow():
@@ -75,7 +76,7 @@ def test_regulated_forest_is_held_by_every_policy(policy):
         np.arange(n),
     )
     res = schedule(
-        st, CURVES, PERIODS, FlowConfig(policy=policy, ending_stock=1.0), HarvestConfig()
+        st, CURVES, PERIODS, FlowConfig(policy=policy, ending_stock=1.0), policy, NO_RULES
     )
     expected = n * 25.0 / R * float(CURVES.curves[0].volume_m3_ha(R, 20.0)) * L
     np.testing.assert_allclose(res.simulation.harvest_m3, expected, rtol=1e-6)

@@ -10,7 +10,7 @@ import shapely
 from yieldscape.adjacency import build_adjacency
 from yieldscape.growth import ChapmanRichards
 from yieldscape.projection import CurveSet, Periods, StandArrays
-from yieldscape.schedule import find_even_flow
+from yieldscape.schedule import HarvestRules, find_even_flow
 from yieldscape.schedule.spatial import SpatialRules
 
 from helpers import squares
@@ -63,7 +63,11 @@ def test_unit_restriction_never_cuts_two_neighbours_in_one_period():
     adj = build_adjacency(geoms, "edge")
     rules = SpatialRules(adj, greenup_years=10.0, max_opening_ha=0.0)
     flow = find_even_flow(
-        stands, CURVES, Periods(2030, 10, 2, "midpoint"), ending_stock=0.0, spatial=rules
+        stands,
+        CURVES,
+        Periods(2030, 10, 2, "midpoint"),
+        HarvestRules(spatial=rules),
+        ending_stock=0.0,
     )
     sim = flow.simulation
     for p in (1, 2):
@@ -84,7 +88,11 @@ def test_area_restriction_keeps_openings_to_two_stands():
     adj = build_adjacency(geoms, "edge")
     rules = SpatialRules(adj, greenup_years=20.0, max_opening_ha=2.0)
     flow = find_even_flow(
-        stands, CURVES, Periods(2030, 10, 3, "midpoint"), ending_stock=0.0, spatial=rules
+        stands,
+        CURVES,
+        Periods(2030, 10, 3, "midpoint"),
+        HarvestRules(spatial=rules),
+        ending_stock=0.0,
     )
     sim = flow.simulation
     t = {p: 10 * (p - 1) + 5 for p in (1, 2, 3)}
@@ -99,7 +107,9 @@ def test_area_restriction_keeps_openings_to_two_stands():
 def test_a_stand_larger_than_the_opening_is_never_cut():
     geoms, stands = grid_forest(n_side=2, side_m=200.0)  # 4-ha stands, 3-ha openings
     rules = SpatialRules(build_adjacency(geoms), greenup_years=10.0, max_opening_ha=3.0)
-    flow = find_even_flow(stands, CURVES, Periods(2030, 10, 2), ending_stock=0.0, spatial=rules)
+    flow = find_even_flow(
+        stands, CURVES, Periods(2030, 10, 2), HarvestRules(spatial=rules), ending_stock=0.0
+    )
     assert flow.level_m3_per_period == 0.0 and len(flow.simulation.event_stand) == 0
 
 
@@ -156,7 +166,7 @@ def test_a_sliver_stand_does_not_stop_the_pick(rules):
         else:
             opening = 0.0 if rules == "urm" else 2.0
             extra = {"spatial": SpatialRules(adj, greenup_years=10.0, max_opening_ha=opening)}
-        return find_even_flow(stands, CURVES, periods, ending_stock=0.0, **extra)
+        return find_even_flow(stands, CURVES, periods, HarvestRules(**extra), ending_stock=0.0)
 
     got, ref = level(forest).level_m3_per_period, level(without).level_m3_per_period
     assert ref > 0

@@ -15,10 +15,15 @@ forbids every cut that draws on it, and the shortfall shows in the ``cover`` tab
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
+import pandas as pd
 from numpy.typing import NDArray
+
+from yieldscape.config import CoverTarget
+from yieldscape.errors import InputError
 
 _REL = 1e-9
 
@@ -109,3 +114,45 @@ class PeriodBudgets:
 
     def end(self) -> None:
         pass
+
+
+def cover_rules(
+    targets: Sequence[CoverTarget], zone_names: list, zone_codes: NDArray, area_ha: NDArray
+) -> CoverRules | None:
+    """The ``[[cover]]`` targets over the stands' zones (names and per-stand codes, see
+    :func:`yieldscape.projection.zone_codes`); a target naming an unknown zone is an error."""
+    if not targets:
+        return None
+    area = np.bincount(zone_codes, area_ha, len(zone_names))
+    rules = []
+    for n, t in enumerate(targets, start=1):
+        if t.zone != "*" and t.zone not in zone_names:
+            raise InputError(
+                f"[[cover]] #{n}: zone {t.zone!r} is not a zone of the stands; "
+                f"their zones: {', '.join(z for z in zone_names if z) or '(none)'}"
+            )
+        code = -1 if t.zone == "*" else zone_names.index(t.zone)
+        rules.append(CoverRule(code, t.zone, t.kind, t.age_years, t.share))
+    return CoverRules(tuple(rules), area)
+
+
+def cover_report(cover: CoverRules, cover_area_ha: NDArray, periods: int) -> pd.DataFrame:
+    """Per period and target: the share reached after the period's cut (from a recorded
+    simulation's ``cover_area_ha``), and whether it holds."""
+    rows = []
+    for i, r in enumerate(cover.rules):
+        share = cover_area_ha[:, i] / cover.area_of(r)
+        met = share >= r.share - 1e-9 if r.kind == "old" else share <= r.share + 1e-9
+        rows.append(
+            pd.DataFrame(
+                {
+                    "period": np.arange(1, periods + 1),
+                    "zone": r.zone_name,
+                    "rule": r.label,
+                    "target": r.share,
+                    "share": share,
+                    "met": met,
+                }
+            )
+        )
+    return pd.concat(rows, ignore_index=True)

@@ -47,3 +47,16 @@ def never_cut_warnings(stands: StandArrays, curves: CurveSet, max_age_years: flo
 def _span(values: np.ndarray) -> str:
     lo, hi = float(values.min()), float(values.max())
     return f"{lo:,.0f}" if round(lo) == round(hi) else f"{lo:,.0f} to {hi:,.0f}"
+
+
+def too_large_for_openings(harvestable_ha: np.ndarray, max_opening_ha: float) -> list[str]:
+    """A warning when stands are larger than the maximum opening: they are never cut (the
+    tool does not split a stand into several cut blocks)."""
+    big = harvestable_ha > max_opening_ha * (1 + 1e-9)
+    if not big.any():
+        return []
+    return [
+        f"harvest.max_opening_ha = {max_opening_ha:g}: {int(big.sum())} stands "
+        f"({float(harvestable_ha[big].sum()):.0f} ha harvestable) are larger and will never be "
+        "cut; raise it or split those stands"
+    ]

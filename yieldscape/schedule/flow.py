@@ -1,24 +1,27 @@
-"""Even-flow search: the highest flow level the rule-based scheduler can hold.
+"""The flow searches: the highest flow level the rule-based scheduler can hold, per policy.
 
-The level H [m3 per period] is found by bisection on [0, U], where U is the volume eligible in
-period 1 (period 1 must yield H, so no level above U can hold). Each step runs the vectorised
-simulation of :mod:`yieldscape.schedule.simulate`, which stops at the first missed period.
-Bisection assumes feasibility falls with H, which holds for a queue that always cuts in the same
-order; the final level is re-run in full and its feasibility is checked, never assumed.
+Even flow: the level H [m3 per period] is found by bisection on [0, U], where U is the volume
+eligible in period 1 (period 1 must yield H, so no level above U can hold). Each step runs the
+vectorised simulation of :mod:`yieldscape.schedule.simulate`, which stops at the first missed
+period. Bisection assumes feasibility falls with H, which holds for a queue that always cuts in
+the same order; the final level is re-run in full and its feasibility is checked, never
+assumed. The other policies build on it (see each function).
+
+:data:`SEARCHES` is this module's part of the flow-policy registry
+(:data:`yieldscape.policies.FLOW_POLICIES`): one search per policy name.
 """
 
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
+from typing import Protocol
 
 import numpy as np
 
 from yieldscape.policies import EvenFlow, Sequence, StepDown, Targets
 from yieldscape.projection import CurveSet, Periods, StandArrays
-from yieldscape.schedule.cover import CoverRules
-from yieldscape.schedule.simulate import Simulation, simulate
-from yieldscape.schedule.spatial import SpatialRules
+from yieldscape.schedule.simulate import NO_RULES, HarvestRules, Simulation, simulate
 
 REL_TOL = 1e-7
 MAX_STEPS = 80
@@ -37,51 +40,15 @@ class FlowResult:
     details: dict[str, float] = field(default_factory=dict)  # policy-specific figures
 
 
-def _run(rules: dict, level: float, **options) -> Simulation:
-    """One simulated horizon of the stands under the harvest rules every trial shares."""
-    return simulate(level_m3=level, **rules, **options)
-
-
-def _rules(  # noqa: ANN202
-    stands,
-    curves,
-    periods,
-    priority,
-    max_area_ha,
-    spatial,
-    cover,
-    disturbance,
-    snapshots=(),  # noqa: ANN001
-):
-    """The simulation options every trial of a search shares (``snapshots``: kept by the
-    recorded runs only)."""
-    return {
-        "snapshots": snapshots,
-        "stands": stands,
-        "curves": curves,
-        "periods": periods,
-        "priority": priority,
-        "max_area_ha": max_area_ha,
-        "spatial": spatial,
-        "cover": cover,
-        "disturbance": disturbance,
-    }
-
-
 def find_even_flow(
     stands: StandArrays,
     curves: CurveSet,
     periods: Periods,
+    rules: HarvestRules = NO_RULES,
     band: float = 0.0,
     ending_stock: float = 1.0,
-    priority: str = "oldest",
-    max_area_ha: float | None = None,
     stable_periods: int = 0,
     fixed: tuple[float, ...] = (),
-    spatial: SpatialRules | None = None,
-    cover: CoverRules | None = None,
-    disturbance: float = 0.0,
-    snapshots: tuple[int, ...] = (),
 ) -> FlowResult:
     """Bisection for the highest feasible even-flow level (see the module docstring).
 
@@ -89,45 +56,33 @@ def find_even_flow(
     over the last that many periods. With ``fixed`` the first periods take those harvests and
     the level applies to the periods after them (band not used).
     """
-    rules = _rules(
-        stands, curves, periods, priority, max_area_ha, spatial, cover, disturbance, snapshots
-    )
 
     def trial(level: float, record: bool = False) -> Simulation:
         rule = Sequence(fixed, level) if fixed else EvenFlow(level, band)
-        return _run(
+        return simulate(
+            stands,
+            curves,
+            periods,
+            rule,
             rules,
-            level,
             ending_stock=ending_stock,
-            record=record,
-            rule=rule,
             stable_periods=stable_periods,
+            record=record,
         )
 
     # U: what the first free period could yield if every eligible stand were cut, within the
     # area cap (later periods cannot hold more than that).
     upper = float(trial(float("inf"), record=True).harvest_m3[len(fixed)])
-    steps = 1
     zero = trial(0.0)
-    steps += 1
+    steps = 2
     if not zero.feasible or upper <= 0:
         final = trial(0.0, record=True)
-        if not zero.feasible:
-            why = (
-                f"no harvest at all is feasible: even without cutting, the ending growing "
-                f"stock {final.ending_stock_m3:,.0f} m3 is below flow.ending_stock = "
-                f"{ending_stock:g} x the initial {final.initial_stock_m3:,.0f} m3"
-            )
-        else:
-            why = "no stand is eligible for harvest in period 1"
-        return _result(0.0, periods, final, why, steps)
-
+        return _result(0.0, periods, final, _why_none(zero, final, ending_stock), steps)
     top = trial(upper)
     steps += 1
     if top.feasible:
         final = trial(upper, record=True)
-        return _result(upper, periods, final, _why_top(final, max_area_ha), steps + 1)
-
+        return _result(upper, periods, final, _why_top(final, rules.max_area_ha), steps + 1)
     lo, hi, hi_sim = (fixed[-1] if fixed else 0.0), upper, top
     while hi - lo > REL_TOL * hi and steps < MAX_STEPS:
         mid = 0.5 * (lo + hi)
@@ -142,6 +97,16 @@ def find_even_flow(
     if not final.feasible:  # a non-monotone case: never report an infeasible level
         raise RuntimeError(f"flow search ended on an infeasible level {lo} ({final.fail_reason})")
     return _result(lo, periods, final, _why(hi_sim, hi, periods, ending_stock), steps)
+
+
+def _why_none(zero: Simulation, final: Simulation, ending_stock: float) -> str:
+    if not zero.feasible:
+        return (
+            f"no harvest at all is feasible: even without cutting, the ending growing "
+            f"stock {final.ending_stock_m3:,.0f} m3 is below flow.ending_stock = "
+            f"{ending_stock:g} x the initial {final.initial_stock_m3:,.0f} m3"
+        )
+    return "no stand is eligible for harvest in period 1"
 
 
 def _why_top(sim: Simulation, max_area_ha: float | None) -> str:
@@ -186,15 +151,10 @@ def find_step_down(
     stands: StandArrays,
     curves: CurveSet,
     periods: Periods,
-    step: float,
+    rules: HarvestRules = NO_RULES,
+    step: float = 0.1,
     ending_stock: float = 1.0,
-    priority: str = "oldest",
-    max_area_ha: float | None = None,
     stable_periods: int = 2,
-    spatial: SpatialRules | None = None,
-    cover: CoverRules | None = None,
-    disturbance: float = 0.0,
-    snapshots: tuple[int, ...] = (),
 ) -> FlowResult:
     """The highest initial level held as long as possible, then stepped down by at most
     ``step`` a period to the long-term level.
@@ -205,35 +165,23 @@ def find_step_down(
     periods at H0 followed by the step-down is; the longest such k is found by bisection too
     (holding longer is never easier).
     """
-    rules = _rules(
-        stands, curves, periods, priority, max_area_ha, spatial, cover, disturbance, snapshots
-    )
-    base = find_even_flow(
-        stands,
-        curves,
-        periods,
-        0.0,
-        ending_stock,
-        priority,
-        max_area_ha,
-        stable_periods=stable_periods,
-        spatial=spatial,
-        cover=cover,
-        disturbance=disturbance,
-    )
+    plain = replace(rules, snapshots=())  # the searches inside keep no parts
+    base = find_even_flow(stands, curves, periods, plain, 0.0, ending_stock, stable_periods)
     lt = base.level_m3_per_period
     steps = base.steps
 
     def run(h0: float, hold: int, record: bool = False) -> Simulation:
         nonlocal steps
         steps += 1
-        return _run(
+        return simulate(
+            stands,
+            curves,
+            periods,
+            StepDown(h0, hold, step, lt),
             rules,
-            h0,
             ending_stock=ending_stock,
-            record=record,
-            rule=StepDown(h0, hold, step, lt),
             stable_periods=stable_periods,
+            record=record,
         )
 
     def longest_hold(h0: float) -> int:
@@ -247,14 +195,8 @@ def find_step_down(
             lo, hi = (mid, hi) if run(h0, mid).feasible else (lo, mid)
         return lo
 
-    upper = float(
-        _run(
-            rules,
-            float("inf"),
-            record=True,
-        ).harvest_m3[0]
-    )
-    lo, hi = lt, max(upper, lt)
+    every = simulate(stands, curves, periods, EvenFlow(float("inf")), rules, record=True)
+    lo, hi = lt, max(float(every.harvest_m3[0]), lt)
     best_hold = periods.count
     while hi - lo > 1e-6 * max(hi, 1.0):
         mid = 0.5 * (lo + hi)
@@ -274,40 +216,24 @@ def find_step_down(
         f"the long-term level {lt:,.0f} m3 per period is limited by: {base.binding}; "
         f"the initial level {lo:,.0f} m3 per period holds for {best_hold} period(s)"
     )
-    return FlowResult(
-        lo,
-        lo / periods.period_years,
-        final,
-        why,
-        steps,
-        "stepdown",
-        {"long_term_m3_per_period": lt, "hold_periods": float(best_hold), "step_down_max": step},
-    )
+    details = {
+        "long_term_m3_per_period": lt,
+        "hold_periods": float(best_hold),
+        "step_down_max": step,
+    }
+    return FlowResult(lo, lo / periods.period_years, final, why, steps, "stepdown", details)
 
 
 def run_targets(
     stands: StandArrays,
     curves: CurveSet,
     periods: Periods,
-    targets: tuple[float, ...],
-    priority: str = "oldest",
-    max_area_ha: float | None = None,
+    rules: HarvestRules = NO_RULES,
+    targets: tuple[float, ...] = (),
     ending_stock: float = 1.0,
-    spatial: SpatialRules | None = None,
-    cover: CoverRules | None = None,
-    disturbance: float = 0.0,
-    snapshots: tuple[int, ...] = (),
 ) -> FlowResult:
     """Explicit per-period targets: one run; shortfalls and the ending stock are reported."""
-    rules = _rules(
-        stands, curves, periods, priority, max_area_ha, spatial, cover, disturbance, snapshots
-    )
-    sim = _run(
-        rules,
-        0.0,
-        record=True,
-        rule=Targets(tuple(targets)),
-    )
+    sim = simulate(stands, curves, periods, Targets(tuple(targets)), rules, record=True)
     short = np.maximum(np.asarray(targets) - sim.harvest_m3, 0.0)
     missed = np.flatnonzero(short > 1e-6 * np.maximum(np.asarray(targets), 1.0))
     parts = []
@@ -323,31 +249,16 @@ def run_targets(
         )
     why = "; ".join(parts) or "every target met and the ending growing stock requirement holds"
     mean = float(np.mean(sim.harvest_m3))
-    return FlowResult(
-        mean,
-        mean / periods.period_years,
-        sim,
-        why,
-        1,
-        "targets",
-        {"shortfall_m3": float(short.sum()), "periods_missed": float(len(missed))},
-    )
-
-
-Search = Callable[..., FlowResult]
+    details = {"shortfall_m3": float(short.sum()), "periods_missed": float(len(missed))}
+    return FlowResult(mean, mean / periods.period_years, sim, why, 1, "targets", details)
 
 
 def find_nondeclining(
     stands: StandArrays,
     curves: CurveSet,
     periods: Periods,
+    rules: HarvestRules = NO_RULES,
     ending_stock: float = 1.0,
-    priority: str = "oldest",
-    max_area_ha: float | None = None,
-    spatial: SpatialRules | None = None,
-    cover: CoverRules | None = None,
-    disturbance: float = 0.0,
-    snapshots: tuple[int, ...] = (),
 ) -> FlowResult:
     """A non-declining flow built one period at a time (lexicographic max-min).
 
@@ -355,57 +266,64 @@ def find_nondeclining(
     takes the highest level periods 2..P can hold (never below period 1), and so on. Each
     period's harvest is thus the most that can be held from then on without a decline.
     """
-    rules = _rules(
-        stands, curves, periods, priority, max_area_ha, spatial, cover, disturbance, snapshots
-    )
-    first = find_even_flow(
-        stands,
-        curves,
-        periods,
-        0.0,
-        ending_stock,
-        priority,
-        max_area_ha,
-        spatial=spatial,
-        cover=cover,
-        disturbance=disturbance,
-    )
+    plain = replace(rules, snapshots=())  # the searches inside keep no parts
+    first = find_even_flow(stands, curves, periods, plain, 0.0, ending_stock)
     fixed = [first.level_m3_per_period]
     steps = first.steps
     last = first
     for _ in range(1, periods.count):
-        nxt = find_even_flow(
-            stands,
-            curves,
-            periods,
-            0.0,
-            ending_stock,
-            priority,
-            max_area_ha,
-            fixed=tuple(fixed),
-            spatial=spatial,
-            cover=cover,
-            disturbance=disturbance,
-        )
+        nxt = find_even_flow(stands, curves, periods, plain, 0.0, ending_stock, fixed=tuple(fixed))
         steps += nxt.steps
         fixed.append(max(nxt.level_m3_per_period, fixed[-1]))
         last = nxt
-    final = _run(
+    final = simulate(
+        stands,
+        curves,
+        periods,
+        Sequence(tuple(fixed), fixed[-1]),
         rules,
-        fixed[0],
         ending_stock=ending_stock,
         record=True,
-        rule=Sequence(tuple(fixed), fixed[-1]),
     )
     if not final.feasible:
         raise RuntimeError(f"non-declining search ended infeasible ({final.fail_reason})")
     why = f"period 1: {first.binding}; the last period's level is limited by: {last.binding}"
+    details = {"final_m3_per_period": fixed[-1]}
     return FlowResult(
-        fixed[0],
-        fixed[0] / periods.period_years,
-        final,
-        why,
-        steps,
-        "nondeclining",
-        {"final_m3_per_period": fixed[-1]},
+        fixed[0], fixed[0] / periods.period_years, final, why, steps, "nondeclining", details
     )
+
+
+class FlowSettings(Protocol):
+    """What a search reads of the scenario's ``[flow]`` (config.FlowConfig has it all)."""
+
+    band: float
+    ending_stock: float
+    step_down_max: float
+    targets_m3: tuple[float, ...] | None
+    long_term_periods: int | None
+
+
+Search = Callable[[StandArrays, CurveSet, Periods, HarvestRules, FlowSettings], FlowResult]
+
+# The searches of the flow-policy registry, by policy name (a test checks they match it).
+SEARCHES: dict[str, Search] = {
+    "even": lambda s, c, p, r, f: find_even_flow(s, c, p, r, f.band, f.ending_stock),
+    "nondeclining": lambda s, c, p, r, f: find_nondeclining(s, c, p, r, f.ending_stock),
+    "stepdown": lambda s, c, p, r, f: find_step_down(
+        s, c, p, r, f.step_down_max, f.ending_stock, stable_periods_for(p, f.long_term_periods)
+    ),
+    "targets": lambda s, c, p, r, f: run_targets(s, c, p, r, f.targets_m3 or (), f.ending_stock),
+}
+
+
+def schedule(
+    stands: StandArrays,
+    curves: CurveSet,
+    periods: Periods,
+    flow: FlowSettings,
+    policy: str,
+    rules: HarvestRules,
+) -> FlowResult:
+    """Run the flow ``policy``'s search over the stands under the harvest ``rules``."""
+    return SEARCHES[policy](stands, curves, periods, rules, flow)

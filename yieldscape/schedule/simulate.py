@@ -14,14 +14,13 @@ and the area cap allow; a harvest below F_p makes the level H infeasible.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
 from numpy.typing import NDArray
 
-from yieldscape.policies import EvenFlow, FixedTargets, TargetRule, cut_order
-from yieldscape.projection import CurveSet, Periods, StandArrays, growing_stock_m3
+from yieldscape.policies import TargetRule, cut_order
+from yieldscape.projection import CurveSet, Periods, SiteTerms, StandArrays, growing_stock_m3
 from yieldscape.schedule.cover import CoverRules
 from yieldscape.schedule.picker import sequential_pick
 from yieldscape.schedule.spatial import SpatialRules
@@ -30,12 +29,29 @@ _REL = 1e-9  # relative tolerance on volume targets
 _MIN_PART_HA = 1e-9  # a smaller partial cut (<= ~1e-6 m3) is not worth a split
 
 
+@dataclass(frozen=True)
+class HarvestRules:
+    """The rules every simulated horizon of a run shares, travelling as one value: the
+    priority rule, the area cap [ha per period], the green-up and opening rules, the cover
+    targets, the stand-replacing disturbance rate [1/year], and the period boundaries at which
+    a recorded run keeps the stand parts (0 .. periods)."""
+
+    priority: str = "oldest"
+    max_area_ha: float | None = None
+    spatial: SpatialRules | None = None
+    cover: CoverRules | None = None
+    disturbance: float = 0.0
+    snapshots: tuple[int, ...] = ()
+
+
+NO_RULES = HarvestRules()  # oldest first, no cap, no spatial or cover rules, no disturbance
+
+
 @dataclass
 class Simulation:
-    """Outcome of one simulated horizon at a flow level."""
+    """Outcome of one simulated horizon under a target rule."""
 
-    level_m3: float
-    feasible: bool
+    feasible: bool = True
     fail_period: int | None = None  # 1-based
     fail_reason: str = ""
     harvest_m3: NDArray = field(default_factory=lambda: np.zeros(0))
@@ -103,230 +119,317 @@ def _pick_prefix(
     return np.arange(n), -1, 0.0
 
 
+@dataclass
+class _Parts:
+    """The stand parts of one horizon, one element each: the stand (row of the stand table),
+    area [ha], minimum harvest age (inf outside the harvestable land base), species, site
+    terms, age [years], regeneration delay, tie-breaking rank, zone, and whether on the
+    harvestable land base. Cuts and disturbance append parts; nothing is removed."""
+
+    stand: NDArray[np.int64]
+    area: NDArray[np.float64]
+    min_age: NDArray[np.float64]
+    sp: NDArray
+    si: SiteTerms
+    age: NDArray[np.float64]
+    delay: NDArray[np.float64]
+    rank: NDArray[np.int64]
+    zone: NDArray[np.int64]
+    in_hlb: NDArray[np.bool_]
+
+    @classmethod
+    def of(cls, stands: StandArrays, curves: CurveSet) -> _Parts:
+        """One part per stand; area outside the harvestable land base is a part of its own
+        that grows and is never cut."""
+        stand = np.arange(stands.n, dtype=np.int64)
+        area = stands.area_ha.copy()
+        min_age = stands.min_harvest_age.copy()
+        in_hlb = np.ones(stands.n, dtype=bool)
+        if stands.harvestable_ha is not None:
+            reserved = np.flatnonzero(stands.area_ha - stands.harvestable_ha > 1e-9)
+            area = np.minimum(stands.harvestable_ha, stands.area_ha)
+            stand = np.r_[stand, reserved]
+            area = np.r_[area, stands.area_ha[reserved] - area[reserved]]
+            min_age = np.r_[min_age, np.full(len(reserved), np.inf)]
+            in_hlb = np.r_[in_hlb, np.zeros(len(reserved), dtype=bool)]
+        sp = stands.species_idx[stand]
+        zone = (
+            stands.zone_idx[stand]
+            if stands.zone_idx is not None
+            else np.zeros(len(stand), dtype=np.int64)
+        )
+        return cls(
+            stand,
+            area,
+            min_age,
+            sp,
+            curves.site_terms(sp, stands.site_index[stand]),  # site terms, worked out once
+            stands.age_years[stand],
+            stands.regen_delay_years[stand],
+            stands.id_rank[stand],
+            zone,
+            in_hlb,
+        )
+
+    def extend(self, src: NDArray | int, age: NDArray | float, area: NDArray | float) -> None:
+        """Append copies of the parts ``src`` with new ages and areas."""
+        self.stand = np.r_[self.stand, self.stand[src]]
+        self.sp, self.si = np.r_[self.sp, self.sp[src]], self.si.append(src)
+        self.min_age, self.delay = (
+            np.r_[self.min_age, self.min_age[src]],
+            np.r_[self.delay, self.delay[src]],
+        )
+        self.rank, self.zone = np.r_[self.rank, self.rank[src]], np.r_[self.zone, self.zone[src]]
+        self.in_hlb = np.r_[self.in_hlb, self.in_hlb[src]]
+        self.age = np.r_[self.age, age]
+        self.area = np.r_[self.area, area]
+
+    def stock(self, curves: CurveSet, hlb_only: bool = False) -> float:
+        """Growing stock [m3] of all parts, or of those on the harvestable land base."""
+        if not hlb_only:
+            return growing_stock_m3(curves, self.sp, self.age, self.si, self.area)
+        m = self.in_hlb
+        return growing_stock_m3(curves, self.sp[m], self.age[m], self.si.take(m), self.area[m])
+
+    def snapshot(self) -> PartsSnapshot:
+        return PartsSnapshot(
+            self.stand.copy(), self.age.copy(), self.area.copy(), self.in_hlb.copy()
+        )
+
+
+@dataclass
+class _Cut:
+    """One period's cut: parts cut whole, the part cut partly (-1: none) and its share, the
+    totals, the per-part volumes per ha of the candidates taken, the rules that refused
+    candidates, and whether every eligible part was taken."""
+
+    full: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.intp))
+    part: int = -1
+    frac: float = 0.0
+    volume_m3: float = 0.0
+    area_ha: float = 0.0
+    age_area: float = 0.0
+    blocked: str = ""
+    all_taken: bool = True
+    events: tuple[NDArray, ...] | None = None  # stand, age, area, volume of each cut part
+
+
+def _cut_period(
+    parts: _Parts,
+    curves: CurveSet,
+    rules: HarvestRules,
+    spatial: SpatialRules | None,
+    t: float,
+    age_h: NDArray,
+    target: float,
+    planned_first: NDArray | None,
+    record: bool,
+) -> _Cut:
+    """Rank the eligible parts (age at the harvest moment ``age_h``) and cut up to the
+    target and the area cap, the last part partly; rules of the sequential pick skip parts
+    that would break them."""
+    cut = _Cut()
+    elig = np.flatnonzero((age_h >= parts.min_age - 1e-9) & (parts.area > 0))
+    vol_ha = curves.volume_m3_ha(parts.sp[elig], age_h[elig], terms=parts.si.take(elig))
+    keep = vol_ha > 0
+    elig, vol_ha = elig[keep], vol_ha[keep]
+    if not (target > 0 and len(elig)):
+        cut.all_taken = len(elig) == 0
+        return cut
+    first = None if planned_first is None else planned_first[parts.stand[elig]].astype(np.int8)
+    order = cut_order(
+        rules.priority, age_h[elig], parts.min_age[elig], vol_ha, parts.rank[elig], first
+    )
+    cand = elig[order]
+    v_ha = vol_ha[order]
+    area = parts.area
+    vol = v_ha * area[cand]
+    cap = np.inf if rules.max_area_ha is None else float(rules.max_area_ha)
+    pick: list = [spatial] if spatial is not None else []
+    if rules.cover is not None:
+        pick.append(rules.cover.budgets(parts.zone[cand], age_h[cand], parts.zone, age_h, area))
+    if not pick:
+        full_pos, part_pos, frac = _pick_prefix(vol, area[cand], target, cap)
+    else:
+        full_pos, part_pos, frac, refused = sequential_pick(
+            t, parts.stand[cand], vol, area[cand], target, cap, pick
+        )
+        names = [r.name for r, n in zip(pick, refused, strict=True) if n]
+        cut.blocked = " and ".join(dict.fromkeys(names))
+    cut.full = cand[full_pos]
+    cut.part = part = int(cand[part_pos]) if part_pos >= 0 else -1
+    cut.frac = frac
+    cut.volume_m3 = vol[full_pos].sum() + (frac * vol[part_pos] if part >= 0 else 0.0)
+    cut.area_ha = area[cut.full].sum() + (frac * area[part] if part >= 0 else 0.0)
+    cut.age_area = np.dot(age_h[cut.full], area[cut.full]) + (
+        frac * area[part] * age_h[part] if part >= 0 else 0.0
+    )
+    cut.all_taken = len(cut.full) + (part >= 0) == len(elig)
+    if record:
+        ev_parts = cut.full if part < 0 else np.r_[cut.full, part]
+        ev_area = area[ev_parts].copy()
+        if part >= 0:
+            ev_area[-1] *= frac
+        ev_pos = full_pos if part < 0 else np.r_[full_pos, part_pos]
+        cut.events = (parts.stand[ev_parts], age_h[ev_parts], ev_area, v_ha[ev_pos] * ev_area)
+    return cut
+
+
+def _cover_after(parts: _Parts, cover: CoverRules, age_h: NDArray, cut: _Cut) -> NDArray:
+    """Old or young area of each cover rule after the period's cut (cut area restarts)."""
+    after_age = age_h.copy()
+    after_area = parts.area.copy()
+    after_age[cut.full] = 0.0
+    zones = parts.zone
+    if cut.part >= 0:  # the cut share of the last part restarts; the rest stays
+        after_age = np.r_[after_age, 0.0]
+        after_area = np.r_[after_area, cut.frac * parts.area[cut.part]]
+        after_area[cut.part] -= cut.frac * parts.area[cut.part]
+        zones = np.r_[zones, zones[cut.part]]
+    return cover.measure(zones, after_age, after_area)
+
+
+def _regrow(parts: _Parts, cut: _Cut, L: float, off: float) -> int:
+    """Age the parts a period; cut parts restart after their delay, the partly cut part
+    splitting into its uncut rest and a regenerating part. Returns the part count before."""
+    regrown = L - off - parts.delay
+    new_age = parts.age + L
+    new_age[cut.full] = regrown[cut.full]
+    n_before = len(parts.age)
+    if cut.part >= 0:
+        cut_area = cut.frac * parts.area[cut.part]
+        parts.area[cut.part] -= cut_area
+        parts.age = new_age
+        parts.extend(cut.part, regrown[cut.part], cut_area)
+    else:
+        parts.age = new_age
+    return n_before
+
+
+def _disturb(
+    parts: _Parts,
+    curves: CurveSet,
+    rate: float,
+    L: float,
+    n_before: int,
+    cut_full: NDArray,
+    rng: np.random.Generator | None,
+    n_stands: int,
+) -> tuple[float, float]:
+    """Stand-replacing disturbance at the period's midpoint on area not cut in the period:
+    as expected area fractions (the burnt share of each stand regrows as one part), or with
+    ``rng`` whole stands drawn at random. Returns the area [ha] and volume [m3] lost."""
+    exposed = np.zeros(len(parts.age), dtype=bool)
+    exposed[:n_before] = True
+    exposed[cut_full] = False
+    exposed &= parts.area > 0
+    share = 1.0 - (1.0 - rate) ** L
+    if rng is None:
+        idx = np.flatnonzero(exposed)
+        lost = share * parts.area[idx]
+        vol = curves.volume_m3_ha(parts.sp[idx], parts.age[idx] - L / 2, terms=parts.si.take(idx))
+        out = lost.sum(), float(np.dot(vol, lost))
+        key = parts.stand[idx] * 2 + parts.in_hlb[idx]
+        _, first, inv = np.unique(key, return_index=True, return_inverse=True)
+        rep = idx[first]
+        parts.area[idx] -= lost
+        parts.extend(rep, L / 2 - parts.delay[rep], np.bincount(inv, lost))
+        return out
+    burn = rng.random(n_stands) < share
+    hit = np.flatnonzero(exposed & burn[parts.stand])
+    vol = curves.volume_m3_ha(parts.sp[hit], parts.age[hit] - L / 2, terms=parts.si.take(hit))
+    out = parts.area[hit].sum(), float(np.dot(vol, parts.area[hit]))
+    parts.age[hit] = L / 2 - parts.delay[hit]
+    return out
+
+
+def _fail_reason(cut: _Cut) -> str:
+    if cut.blocked:
+        return f"eligible volume {cut.blocked} allow exhausted"
+    if cut.all_taken:
+        return "eligible volume exhausted"
+    return "area cap reached"
+
+
 def simulate(
     stands: StandArrays,
     curves: CurveSet,
     periods: Periods,
-    level_m3: float,
-    band: float = 0.0,
-    priority: str = "oldest",
-    max_area_ha: float | None = None,
+    rule: TargetRule,
+    rules: HarvestRules = NO_RULES,
+    *,
     ending_stock: float = 0.0,
-    record: bool = False,
-    targets: NDArray | None = None,
-    rule: TargetRule | None = None,
     stable_periods: int = 0,
-    spatial: SpatialRules | None = None,
+    record: bool = False,
     planned: NDArray | None = None,
-    cover: CoverRules | None = None,
-    disturbance: float = 0.0,
     rng: np.random.Generator | None = None,
-    snapshots: Sequence[int] = (),
 ) -> Simulation:
-    """Run the horizon at flow level ``level_m3`` [m3 per period].
+    """Run the horizon under a target ``rule`` (a :mod:`yieldscape.policies` rule: each
+    period's target and floor) and the harvest ``rules``.
 
     With ``record`` every period's totals, growing stock and harvest events are kept and the
     run goes on to the end even where a floor is missed; without it the run stops at the
-    first missed floor (the flow search only needs the verdict). ``targets`` [m3 per period]
-    replaces the level and band by fixed per-period targets, each also its period's floor;
-    ``rule`` (a :mod:`yieldscape.policies` target rule) replaces both. With
-    ``stable_periods`` = K > 0 the run also fails unless the growing stock on the harvestable
-    land base at the end is at least its value K periods before the end. ``spatial``
-    (:class:`SpatialRules`) adds green-up and opening-size rules over the adjacency graph.
-    ``planned`` (per stand, a period) puts stands planned for the period or earlier ahead of
-    the others in the queue (the mapping of an LP schedule onto stands). ``cover``
-    (:class:`CoverRules`) keeps old- and young-forest shares per zone; it needs
-    ``stands.zone_idx``. ``disturbance`` is a stand-replacing rate per year applied at each
-    period's midpoint to area not cut in the period: as expected area fractions, or, with
-    ``rng``, as whole stands drawn at random (Monte Carlo). With ``record``, ``snapshots``
-    names the period boundaries (0 .. periods) at which the stand parts are kept.
+    first missed floor (the flow search only needs the verdict). The run also fails when the
+    ending growing stock is below ``ending_stock`` x the initial, and, with
+    ``stable_periods`` = K > 0, unless the growing stock on the harvestable land base at the
+    end is at least its value K periods before the end. ``planned`` (per stand, a period)
+    puts stands planned for the period or earlier ahead of the others in the queue (the
+    mapping of an LP schedule onto stands). Disturbance (``rules.disturbance``) is applied
+    as expected area fractions, or, with ``rng``, as whole stands drawn at random (Monte
+    Carlo). With ``record``, ``rules.snapshots`` names the period boundaries at which the
+    stand parts are kept; cover targets need ``stands.zone_idx``.
     """
-    if spatial is not None:
-        spatial = spatial.fresh()
-    if rule is None:
-        rule = FixedTargets(tuple(targets)) if targets is not None else EvenFlow(level_m3, band)
+    spatial = rules.spatial.fresh() if rules.spatial is not None else None
     P, L, off = periods.count, float(periods.period_years), periods.offset_years
-    cap = np.inf if max_area_ha is None else float(max_area_ha)
-    # parts: start as copies of the stand arrays; partial cuts append
-    stand = np.arange(stands.n, dtype=np.int64)
-    area = stands.area_ha.copy()
-    min_age = stands.min_harvest_age.copy()
-    if stands.harvestable_ha is not None:
-        # area outside the harvestable land base is its own part that grows and is never cut
-        reserved = np.flatnonzero(stands.area_ha - stands.harvestable_ha > 1e-9)
-        area = np.minimum(stands.harvestable_ha, stands.area_ha)
-        stand = np.r_[stand, reserved]
-        area = np.r_[area, stands.area_ha[reserved] - area[reserved]]
-        min_age = np.r_[min_age, np.full(len(reserved), np.inf)]
-    in_hlb = np.ones(len(stand), dtype=bool)  # parts on the harvestable land base
-    if stands.harvestable_ha is not None:
-        in_hlb[stands.n :] = False
-    sp = stands.species_idx[stand]
-    si = curves.site_terms(sp, stands.site_index[stand])  # site terms, worked out once
-    age = stands.age_years[stand]
-    delay = stands.regen_delay_years[stand]
-    rank = stands.id_rank[stand]
-    zone = (
-        stands.zone_idx[stand]
-        if stands.zone_idx is not None
-        else np.zeros(len(stand), dtype=np.int64)
-    )
-
-    sim = Simulation(level_m3=level_m3, feasible=True)
-    sim.initial_stock_m3 = growing_stock_m3(curves, sp, age, si, area)
-    h = np.zeros(P)
-    ha = np.zeros(P)
-    age_area = np.zeros(P)
-    gs_start = np.full(P, np.nan)
-    gs_end = np.full(P, np.nan)
-    hlb_start = np.full(P, np.nan)
-    events: list[tuple[NDArray, ...]] = []
-    cover_rows: list[NDArray] = []
-    dist_ha = np.zeros(P)
-    dist_m3 = np.zeros(P)
-    targets_p, floors_p = np.zeros(P), np.zeros(P)
-    kept_at = set(snapshots) if record else set()
-
-    def snapshot() -> PartsSnapshot:
-        return PartsSnapshot(stand.copy(), age.copy(), area.copy(), in_hlb.copy())
-
+    parts = _Parts.of(stands, curves)
+    sim = Simulation()
+    sim.initial_stock_m3 = parts.stock(curves)
+    out = _Totals.empty(P)
+    kept_at = set(rules.snapshots) if record else set()
     for p in range(P):
         if p in kept_at:
-            sim.snapshots[p] = snapshot()
+            sim.snapshots[p] = parts.snapshot()
         if record:
-            gs_start[p] = sim.initial_stock_m3 if p == 0 else gs_end[p - 1]
-        target, floor = rule.bounds(p, h[p - 1] if p else 0.0)
-        targets_p[p], floors_p[p] = target, floor
+            out.gs_start[p] = sim.initial_stock_m3 if p == 0 else out.gs_end[p - 1]
+        target, floor = rule.bounds(p, out.h[p - 1] if p else 0.0)
+        out.target[p], out.floor[p] = target, floor
         if record or p == P - stable_periods:
-            hlb_start[p] = growing_stock_m3(
-                curves, sp[in_hlb], age[in_hlb], si.take(in_hlb), area[in_hlb]
+            out.hlb_start[p] = parts.stock(curves, hlb_only=True)
+        age_h = parts.age + off
+        first = None if planned is None else planned > p + 1
+        cut = _cut_period(parts, curves, rules, spatial, p * L + off, age_h, target, first, record)
+        out.h[p], out.ha[p], out.age_area[p] = cut.volume_m3, cut.area_ha, cut.age_area
+        if cut.events is not None:
+            out.events.append(
+                cut.events[:1] + (np.full(len(cut.events[0]), p + 1),) + cut.events[1:]
             )
-        age_h = age + off
-        elig = np.flatnonzero((age_h >= min_age - 1e-9) & (area > 0))
-        vol_ha = curves.volume_m3_ha(sp[elig], age_h[elig], terms=si.take(elig))
-        keep = vol_ha > 0
-        elig, vol_ha = elig[keep], vol_ha[keep]
-
-        cut_full = np.zeros(0, dtype=np.intp)
-        part, frac, blocked = -1, 0.0, ""
-        if target > 0 and len(elig):
-            first = None if planned is None else (planned[stand[elig]] > p + 1).astype(np.int8)
-            order = cut_order(priority, age_h[elig], min_age[elig], vol_ha, rank[elig], first)
-            cand = elig[order]
-            v_ha = vol_ha[order]
-            vol = v_ha * area[cand]
-            rules: list = [spatial] if spatial is not None else []
-            if cover is not None:
-                rules.append(cover.budgets(zone[cand], age_h[cand], zone, age_h, area))
-            if not rules:
-                full_pos, part_pos, frac = _pick_prefix(vol, area[cand], target, cap)
-            else:
-                full_pos, part_pos, frac, refused = sequential_pick(
-                    p * L + off, stand[cand], vol, area[cand], target, cap, rules
-                )
-                names = [r.name for r, n in zip(rules, refused, strict=True) if n]
-                blocked = " and ".join(dict.fromkeys(names))
-            cut_full = cand[full_pos]
-            part = int(cand[part_pos]) if part_pos >= 0 else -1
-            h[p] = vol[full_pos].sum() + (frac * vol[part_pos] if part >= 0 else 0.0)
-            ha[p] = area[cut_full].sum() + (frac * area[part] if part >= 0 else 0.0)
-            age_area[p] = np.dot(age_h[cut_full], area[cut_full]) + (
-                frac * area[part] * age_h[part] if part >= 0 else 0.0
-            )
-            if record:
-                ev_parts = cut_full if part < 0 else np.r_[cut_full, part]
-                ev_area = area[ev_parts].copy()
-                if part >= 0:
-                    ev_area[-1] *= frac
-                ev_pos = full_pos if part < 0 else np.r_[full_pos, part_pos]
-                ev_vol = v_ha[ev_pos] * ev_area
-                events.append(
-                    (
-                        stand[ev_parts],
-                        np.full(len(ev_parts), p + 1),
-                        age_h[ev_parts],
-                        ev_area,
-                        ev_vol,
-                    )
-                )
-
-        if record and cover is not None:
-            after_age = age_h.copy()
-            after_area = area.copy()
-            after_age[cut_full] = 0.0
-            if part >= 0:  # the cut share of the last stand restarts; the rest stays
-                after_age = np.r_[after_age, 0.0]
-                after_area = np.r_[after_area, frac * area[part]]
-                after_area[part] -= frac * area[part]
-            zones_after = zone if part < 0 else np.r_[zone, zone[part]]
-            cover_rows.append(cover.measure(zones_after, after_age, after_area))
-        if h[p] < floor * (1 - _REL) and sim.feasible:
-            sim.feasible = False
-            sim.fail_period = p + 1
-            if blocked:
-                sim.fail_reason = f"eligible volume {blocked} allow exhausted"
-            elif len(cut_full) + (part >= 0) == len(elig):
-                sim.fail_reason = "eligible volume exhausted"
-            else:
-                sim.fail_reason = "area cap reached"
+        if record and rules.cover is not None:
+            out.cover.append(_cover_after(parts, rules.cover, age_h, cut))
+        if out.h[p] < floor * (1 - _REL) and sim.feasible:
+            sim.feasible, sim.fail_period, sim.fail_reason = False, p + 1, _fail_reason(cut)
             if not record:
                 break
-
-        # grow: uncut parts age one period; cut parts restart after their delay
-        regrown = L - off - delay
-        new_age = age + L
-        new_age[cut_full] = regrown[cut_full]
-        if part >= 0:
-            stand = np.r_[stand, stand[part]]
-            sp, si = np.r_[sp, sp[part]], si.append(part)
-            min_age, delay = np.r_[min_age, min_age[part]], np.r_[delay, delay[part]]
-            rank = np.r_[rank, rank[part]]
-            zone = np.r_[zone, zone[part]]
-            in_hlb = np.r_[in_hlb, in_hlb[part]]
-            new_age = np.r_[new_age, regrown[part]]
-            cut_area = frac * area[part]
-            area = np.r_[area, cut_area]
-            area[part] -= cut_area
-        n_before = len(age)
-        age = new_age
-        if disturbance > 0:
-            # stand-replacing disturbance at the period's midpoint on area not cut this period
-            exposed = np.zeros(len(age), dtype=bool)
-            exposed[:n_before] = True
-            exposed[cut_full] = False
-            exposed &= area > 0
-            share = 1.0 - (1.0 - disturbance) ** L
-            if rng is None:  # expected fractions: the burnt share of each stand regrows as one
-                idx = np.flatnonzero(exposed)
-                lost = share * area[idx]
-                vol = curves.volume_m3_ha(sp[idx], age[idx] - L / 2, terms=si.take(idx))
-                dist_ha[p], dist_m3[p] = lost.sum(), float(np.dot(vol, lost))
-                key = stand[idx] * 2 + in_hlb[idx]
-                _, first, inv = np.unique(key, return_index=True, return_inverse=True)
-                rep = idx[first]
-                area[idx] -= lost
-                stand = np.r_[stand, stand[rep]]
-                sp, si = np.r_[sp, sp[rep]], si.append(rep)
-                min_age, delay = np.r_[min_age, min_age[rep]], np.r_[delay, delay[rep]]
-                rank, zone = np.r_[rank, rank[rep]], np.r_[zone, zone[rep]]
-                in_hlb = np.r_[in_hlb, in_hlb[rep]]
-                age = np.r_[age, L / 2 - delay[rep]]
-                area = np.r_[area, np.bincount(inv, lost)]
-            else:  # Monte Carlo: whole stands burn with that probability
-                burn = rng.random(stands.n) < share
-                hit = np.flatnonzero(exposed & burn[stand])
-                vol = curves.volume_m3_ha(sp[hit], age[hit] - L / 2, terms=si.take(hit))
-                dist_ha[p], dist_m3[p] = area[hit].sum(), float(np.dot(vol, area[hit]))
-                age[hit] = L / 2 - delay[hit]
+        n_before = _regrow(parts, cut, L, off)
+        if rules.disturbance > 0:
+            out.dist_ha[p], out.dist_m3[p] = _disturb(
+                parts, curves, rules.disturbance, L, n_before, cut.full, rng, stands.n
+            )
         if record or p == P - 1:
-            stock = growing_stock_m3(curves, sp, age, si, area)
-            gs_end[p] = stock
+            out.gs_end[p] = parts.stock(curves)
             if p == P - 1:
-                sim.ending_stock_m3 = stock
-                sim.ending_hlb_stock_m3 = growing_stock_m3(
-                    curves, sp[in_hlb], age[in_hlb], si.take(in_hlb), area[in_hlb]
-                )
+                sim.ending_stock_m3 = out.gs_end[p]
+                sim.ending_hlb_stock_m3 = parts.stock(curves, hlb_only=True)
+    _judge_end(sim, ending_stock, stable_periods, out.hlb_start, P)
+    if P in kept_at:
+        sim.snapshots[P] = parts.snapshot()
+    out.fill(sim, parts if record else None)
+    return sim
 
+
+def _judge_end(
+    sim: Simulation, ending_stock: float, stable_periods: int, hlb_start: NDArray, P: int
+) -> None:
+    """Fail a horizon that met every floor on the ending-stock or the stability rule."""
     if sim.feasible and sim.ending_stock_m3 < ending_stock * sim.initial_stock_m3 * (1 - _REL):
         sim.feasible = False
         sim.fail_reason = "ending growing stock below the requirement"
@@ -338,24 +441,58 @@ def simulate(
                 f"growing stock on the harvestable land base still falls over "
                 f"the last {stable_periods} periods"
             )
-    if P in kept_at:
-        sim.snapshots[P] = snapshot()
-    sim.hlb_stock_start_m3 = hlb_start
-    sim.target_m3, sim.floor_m3 = targets_p, floors_p
-    sim.disturbed_ha, sim.disturbed_m3 = dist_ha, dist_m3
-    if record:
-        sim.final_age_years, sim.final_area_ha = age, area
-    if cover_rows:
-        sim.cover_area_ha = np.vstack(cover_rows)
-    sim.harvest_m3, sim.harvest_ha, sim.harvest_age_area = h, ha, age_area
-    sim.growing_stock_start_m3, sim.growing_stock_end_m3 = gs_start, gs_end
-    if record and events:
-        cols = [np.concatenate(c) for c in zip(*events, strict=True)]
-        (
-            sim.event_stand,
-            sim.event_period,
-            sim.event_age_years,
-            sim.event_area_ha,
-            sim.event_volume_m3,
-        ) = cols
-    return sim
+
+
+@dataclass
+class _Totals:
+    """Per-period figures of a horizon while it runs."""
+
+    h: NDArray
+    ha: NDArray
+    age_area: NDArray
+    gs_start: NDArray
+    gs_end: NDArray
+    hlb_start: NDArray
+    target: NDArray
+    floor: NDArray
+    dist_ha: NDArray
+    dist_m3: NDArray
+    events: list[tuple[NDArray, ...]] = field(default_factory=list)
+    cover: list[NDArray] = field(default_factory=list)
+
+    @classmethod
+    def empty(cls, P: int) -> _Totals:
+        nan = np.full(P, np.nan)
+        return cls(
+            np.zeros(P),
+            np.zeros(P),
+            np.zeros(P),
+            nan.copy(),
+            nan.copy(),
+            nan.copy(),
+            np.zeros(P),
+            np.zeros(P),
+            np.zeros(P),
+            np.zeros(P),
+        )
+
+    def fill(self, sim: Simulation, parts: _Parts | None) -> None:
+        """Move the figures into the simulation (with the parts at the end when recorded)."""
+        sim.hlb_stock_start_m3 = self.hlb_start
+        sim.target_m3, sim.floor_m3 = self.target, self.floor
+        sim.disturbed_ha, sim.disturbed_m3 = self.dist_ha, self.dist_m3
+        if parts is not None:
+            sim.final_age_years, sim.final_area_ha = parts.age, parts.area
+        if self.cover:
+            sim.cover_area_ha = np.vstack(self.cover)
+        sim.harvest_m3, sim.harvest_ha, sim.harvest_age_area = self.h, self.ha, self.age_area
+        sim.growing_stock_start_m3, sim.growing_stock_end_m3 = self.gs_start, self.gs_end
+        if self.events:
+            cols = [np.concatenate(c) for c in zip(*self.events, strict=True)]
+            (
+                sim.event_stand,
+                sim.event_period,
+                sim.event_age_years,
+                sim.event_area_ha,
+                sim.event_volume_m3,
+            ) = cols

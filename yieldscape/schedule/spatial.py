@@ -18,6 +18,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
+import pandas as pd
 from numpy.typing import NDArray
 
 from yieldscape.adjacency import Adjacency
@@ -110,3 +111,47 @@ class SpatialRules:
         for s, a in self._cut.items():
             self.last_cut[s] = self._t
             self.open_area[s] += a
+
+
+def openings_table(
+    event_stand: NDArray,
+    event_time_years: NDArray,
+    event_area_ha: NDArray,
+    harvest_times_years: NDArray,
+    adjacency: Adjacency,
+    greenup_years: float,
+) -> pd.DataFrame:
+    """Openings at each period's harvest, rebuilt from the harvest events (their stand, time
+    since the start [years] and area): stands cut within the green-up window, grouped by
+    adjacency; an opening's area is the area cut in the window."""
+    rows = []
+    for p, t in enumerate(harvest_times_years):  # per period, a handful of vectorised calls
+        window = (event_time_years <= t + 1e-9) & (t - event_time_years < greenup_years - 1e-9)
+        area = np.bincount(event_stand[window], event_area_ha[window], adjacency.n)
+        labels = adjacency.components(area > 0)
+        if (labels >= 0).any():
+            lab = labels[labels >= 0]
+            sizes = np.bincount(lab, area[labels >= 0])
+            counts = np.bincount(lab)
+            rows.append(
+                pd.DataFrame(
+                    {
+                        "period": p + 1,
+                        "opening_id": np.arange(1, len(sizes) + 1),
+                        "area_ha": sizes,
+                        "n_stands": counts,
+                    }
+                )
+            )
+    cols = ["period", "opening_id", "area_ha", "n_stands"]
+    return pd.concat(rows, ignore_index=True) if rows else pd.DataFrame(columns=cols)
+
+
+def check_openings(openings: pd.DataFrame, max_opening_ha: float | None) -> None:
+    """The rules hold in the output: a breach here is a bug, never a user's error."""
+    if max_opening_ha:
+        bad = openings[openings["area_ha"] > max_opening_ha * (1 + 1e-9)]
+    else:
+        bad = openings[openings["n_stands"] > 1]
+    if len(bad):
+        raise RuntimeError(f"spatial rules broken in the schedule: {bad.head().to_dict('records')}")

@@ -1,0 +1,83 @@
+"""What the library's calls return: a checked inventory, a run, a curves report. The
+orchestration (:mod:`yieldscape.pipeline`) fills them and the writer (:mod:`yieldscape.publish`)
+writes them; both import this module, and neither imports the other's objects from the
+other."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import geopandas as gpd
+import pandas as pd
+
+from yieldscape.growth.rules import SiteSummary
+from yieldscape.inventory import CheckReport
+from yieldscape.landbase import Netdown
+from yieldscape.reporting.indicators import Verdict
+from yieldscape.schedule.flow import FlowResult
+
+
+@dataclass(frozen=True)
+class CheckResult:
+    """A checked inventory with its land base: stands (with netdown columns), report, netdown."""
+
+    stands: gpd.GeoDataFrame
+    report: CheckReport
+    netdown: Netdown
+
+    def summary(self) -> str:
+        lines = [self.report.summary(), "land base netdown (ha):"]
+        for row in self.netdown.table.itertuples(index=False):
+            step = "" if pd.isna(row.step) else f"{row.step:>2}"
+            removed = "" if pd.isna(row.removed_ha) else f"{row.removed_ha:>12,.1f}"
+            lines.append(
+                f"  {step:>2} {row.label:<30} {removed:>12} {row.percent_of_gross:>6.1f}%"
+                f" {row.remaining_ha:>12,.1f}"
+            )
+        lines += [f"note: {n}" for n in self.netdown.notes]
+        return "\n".join(lines)
+
+
+@dataclass
+class RunResult:
+    """What a run produced: the tables in memory and where the files went."""
+
+    out_dir: Path | None
+    inventory: CheckResult
+    flow: FlowResult
+    wood_flow: pd.DataFrame
+    stands: gpd.GeoDataFrame
+    harvests: gpd.GeoDataFrame
+    products: pd.DataFrame
+    verdict: Verdict | None = None  # is the flow sustainable, and why
+    indicators: pd.DataFrame | None = None  # one row per indicator over the horizon
+    timings_s: dict[str, float] = field(default_factory=dict)
+    write_harvestable_layer: bool = False
+    long_term_sustained_yield: dict[str, float] = field(default_factory=dict)  # m3/year
+    openings: pd.DataFrame | None = None  # with spatial rules
+    lp: dict | None = None  # the harvest LP: solver, status, objective, gap
+    cover: pd.DataFrame | None = None  # cover targets per period
+    monte_carlo: pd.DataFrame | None = None  # percentiles over disturbance replicates
+    cases: dict[str, RunResult] = field(default_factory=dict)  # sensitivity cases by name
+    age_classes: pd.DataFrame | None = None  # area by year, zone and age class
+    stand_ages: pd.DataFrame | None = None  # each stand's age at the report years
+    harvest_breakdown: pd.DataFrame | None = None  # harvest by period, zone and species
+    regulated_hlb_stock_m3: float = float("nan")  # a regulated forest's, harvestable land
+    curves: pd.DataFrame | None = None  # the curves report table (per species and site)
+    curve_summaries: dict[str, list[SiteSummary]] = field(default_factory=dict)  # by species
+    log: list[str] = field(default_factory=list)  # the run's log lines (run.log)
+    warnings: tuple[str, ...] = ()  # what the run warned of (also in run.log and the report)
+
+    @property
+    def level_m3_per_year(self) -> float:
+        return self.flow.level_m3_per_year
+
+
+@dataclass
+class CurvesResult:
+    """The curves report: the table, its notes, and the files written (if any)."""
+
+    table: pd.DataFrame
+    notes: list[str]
+    files: list[Path]
