@@ -12,9 +12,9 @@ Strata group the harvestable area of the stands by species, site class, age clas
 Rows: each stratum's area is conserved; the area cut from group g in period i is the area that
 regenerates in i and is cut again later or never; harvest H_p is the volume of every cut in
 period p; flow rows tie consecutive H_p (even: equal, or within a band; non-declining:
-H_p >= H_{p-1}; none: no flow rows); the ending growing stock (including the area outside the
-harvestable land base, which is never cut) is at least ``ending_stock`` x the initial; an
-optional area cap.
+H_p >= H_{p-1}; none: no flow rows; ``FLOW_ROWS`` picks them by policy); the ending growing
+stock (including the area outside the harvestable land base, which is never cut) is at least
+``ending_stock`` x the initial; an optional area cap.
 Objectives: ``max-even-flow`` maximises H_1 under the flow rows; ``max-volume`` the sum of H_p.
 
 The solution is mapped back to stands by cutting, within each stratum, stands in stand-id order
@@ -26,6 +26,7 @@ aggregation into strata costs or adds.
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import highspy
@@ -199,9 +200,9 @@ def build_lp(
     """The Model II LP of the module docstring as a matrix model.
 
     Columns: :func:`lp_columns` (x and y), then H_1..H_P. Rows, in this order: the stratum
-    areas, the regeneration balances (G x P), the harvest definitions (P), the flow rows of the
-    policy, the ending stock, the cover rows (rule x period), the area cap
-    (P).
+    areas, the regeneration balances (G x P), the harvest definitions (P), the flow rows of
+    the policy (:data:`FLOW_ROWS`), the ending stock, the cover rows (rule x period), the area
+    cap (P).
     """
     P = periods.count
     cols = lp_columns(strata, curves, periods)
@@ -212,7 +213,9 @@ def build_lp(
     balance0 = _regeneration_rows(m, strata, cols, surv, P)
     _disturbed_regrowth(m, strata, cols, surv, balance0, P)
     _harvest_rows(m, cols, surv, h_col)
-    flow_rows = _flow_rows(m, h_col, policy, band)
+    # a name without an entry takes the even rows, as before (the pipeline itself passes the
+    # rule-based "stepdown" and "targets" as "even")
+    flow_rows = FLOW_ROWS.get(policy, even_flow_rows)(m, h_col, band)
     ending_row = _ending_stock_row(m, stands, curves, periods, cols, surv, ending_stock)
     if cover is not None:
         _cover_rows(m, stands, strata, periods, cols, surv, cover, stand_zone)
@@ -463,19 +466,42 @@ def _harvest_rows(m: MatrixBuilder, cols: Columns, surv: _Survival, h_col: NDArr
     m.put(first + np.arange(len(h_col)), h_col, -1.0)
 
 
-def _flow_rows(m: MatrixBuilder, h_col: NDArray, policy: str, band: float) -> list[int]:
-    """Flow rows on consecutive H_p, returned (their duals are reported): ``nondeclining``:
-    H_p - H_(p-1) >= 0; ``none``: none; otherwise even within ``band``,
-    H_p - (1 - band) H_(p-1) >= 0 and H_p - (1 + band) H_(p-1) <= 0."""
+def even_flow_rows(m: MatrixBuilder, h_col: NDArray, band: float) -> list[int]:
+    """Even flow: every period within ``band`` of the one before, H_p - (1 - band) H_(p-1) >= 0
+    and H_p - (1 + band) H_(p-1) <= 0 (with no band, one common level)."""
     rows = []
-    for p in range(2, len(h_col) + 1 if policy != "none" else 2):
+    for p in range(2, len(h_col) + 1):
         pair = np.array([h_col[p - 1], h_col[p - 2]])
-        if policy == "nondeclining":
-            rows.append(m.add_row(pair, np.array([1.0, -1.0]), 0.0, INF))
-        else:
-            rows.append(m.add_row(pair, np.array([1.0, -(1 - band)]), 0.0, INF))
-            rows.append(m.add_row(pair, np.array([1.0, -(1 + band)]), -INF, 0.0))
+        rows.append(m.add_row(pair, np.array([1.0, -(1 - band)]), 0.0, INF))
+        rows.append(m.add_row(pair, np.array([1.0, -(1 + band)]), -INF, 0.0))
     return rows
+
+
+def nondeclining_rows(m: MatrixBuilder, h_col: NDArray, band: float) -> list[int]:
+    """Non-declining flow: every period at least the one before, H_p - H_(p-1) >= 0 (the band
+    does not apply)."""
+    rows = []
+    for p in range(2, len(h_col) + 1):
+        pair = np.array([h_col[p - 1], h_col[p - 2]])
+        rows.append(m.add_row(pair, np.array([1.0, -1.0]), 0.0, INF))
+    return rows
+
+
+def no_flow_rows(m: MatrixBuilder, h_col: NDArray, band: float) -> list[int]:
+    """No flow policy: the H_p are free of each other."""
+    return []
+
+
+FlowRows = Callable[[MatrixBuilder, NDArray, float], list[int]]
+
+FLOW_ROWS: dict[str, FlowRows] = {
+    "even": even_flow_rows,
+    "nondeclining": nondeclining_rows,
+    "none": no_flow_rows,
+}
+"""The LP's part of the flow-policy registry: per policy name, the function that adds its flow
+rows on the H_p columns (``h_col``) with the scenario's band and returns their indices (the
+duals of these rows are reported). A new flow policy adds its LP rows by one entry here."""
 
 
 def _ending_stock_row(
