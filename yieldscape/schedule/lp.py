@@ -12,9 +12,9 @@ Strata group the harvestable area of the stands by species, site class, age clas
 Rows: each stratum's area is conserved; the area cut from group g in period i is the area that
 regenerates in i and is cut again later or never; harvest H_p is the volume of every cut in
 period p; flow rows tie consecutive H_p (even: equal, or within a band; non-declining:
-H_p >= H_{p-1}; none: no flow rows); the ending growing stock (including the area outside the
-harvestable land base, which is never cut) is at least ``ending_stock`` x the initial; an
-optional area cap.
+H_p >= H_{p-1}; none: no flow rows; ``FLOW_ROWS`` picks them by policy); the ending growing
+stock (including the area outside the harvestable land base, which is never cut) is at least
+``ending_stock`` x the initial; an optional area cap.
 Objectives: ``max-even-flow`` maximises H_1 under the flow rows; ``max-volume`` the sum of H_p.
 
 The solution is mapped back to stands by cutting, within each stratum, stands in stand-id order
@@ -26,18 +26,19 @@ aggregation into strata costs or adds.
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import highspy
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
-from scipy.sparse import coo_matrix
+from scipy.sparse import coo_matrix, csc_matrix
 
 from yieldscape.errors import InputError
 from yieldscape.growth.economics import growth_factor
 from yieldscape.projection import CurveSet, Periods, StandArrays
-from yieldscape.schedule.cover import CoverRules
+from yieldscape.schedule.cover import CoverRule, CoverRules
 
 INF = highspy.kHighsInf
 
@@ -64,6 +65,11 @@ class Strata:
     @property
     def n(self) -> int:
         return len(self.area_ha)
+
+    @property
+    def groups(self) -> int:
+        """The number of regeneration groups."""
+        return int(self.group.max()) + 1 if self.n else 0
 
 
 def make_strata(
@@ -191,209 +197,44 @@ def build_lp(
     stand_zone: NDArray | None = None,
     disturbance: float = 0.0,
 ) -> LPModel:
-    """The Model II LP of the module docstring as a matrix model."""
-    P, L, off = periods.count, float(periods.period_years), periods.offset_years
-    S, G = strata.n, int(strata.group.max()) + 1 if strata.n else 0
-    # columns, built per period as arrays: kind (0 x, 1 y), a (stratum or group), b (period
-    # cut: x first cut / y established), c (y period cut again; 0 never), volume, end volume
-    parts = []
-    for p in range(1, P + 1):
-        age_h = strata.age_years + (p - 1) * L + off
-        ok = np.flatnonzero(age_h >= strata.min_age - 1e-9)
-        v = curves.volume_m3_ha(strata.species_idx[ok], age_h[ok], strata.site_index[ok])
-        parts.append(
-            (np.zeros(len(ok)), ok, np.full(len(ok), p), np.zeros(len(ok)), v, np.zeros(len(ok)))
-        )
-    v_end = curves.volume_m3_ha(strata.species_idx, strata.age_years + P * L, strata.site_index)
-    parts.append((np.zeros(S), np.arange(S), np.zeros(S), np.zeros(S), np.zeros(S), v_end))
-    for i in range(1, P + 1):
-        for j in range(i + 1, P + 1):
-            age = (j - i) * L - strata.group_delay
-            ok = np.flatnonzero(age >= strata.group_min_age - 1e-9)
-            v = curves.volume_m3_ha(strata.group_species[ok], age[ok], strata.group_site[ok])
-            parts.append(
-                (
-                    np.ones(len(ok)),
-                    ok,
-                    np.full(len(ok), i),
-                    np.full(len(ok), j),
-                    v,
-                    np.zeros(len(ok)),
-                )
-            )
-        age = (P - i) * L + (L - off) - strata.group_delay
-        v = curves.volume_m3_ha(strata.group_species, age, strata.group_site)
-        parts.append((np.ones(G), np.arange(G), np.full(G, i), np.zeros(G), np.zeros(G), v))
-    kind, a_, b_, c_, vol_a, end_a = (np.concatenate(col) for col in zip(*parts, strict=True))
-    vol_a[vol_a < 1e-6] = 0.0  # below a millilitre per hectare: nothing to a solver
-    end_a[end_a < 1e-6] = 0.0
-    a_, b_, c_ = a_.astype(np.int64), b_.astype(np.int64), c_.astype(np.int64)
-    xs, ys = kind == 0, kind == 1
-    nvar = len(kind)
-    h_col = nvar + np.arange(P)  # H_p variables
-    cols_idx = np.arange(nvar)
+    """The Model II LP of the module docstring as a matrix model.
 
-    # expected disturbance: a share dist of the standing area each period (after its harvest)
-    dist = 1.0 - (1.0 - disturbance) ** L if disturbance > 0 else 0.0
-    keep = 1.0 - dist
-    start = np.where(xs, 0, b_)  # exposed from the period after establishment (x: from 1)
-    surv_cut = np.where(
-        period_cut_all(xs, b_, c_) > 0,
-        keep ** np.maximum(period_cut_all(xs, b_, c_) - start - 1, 0),
-        0.0,
-    )
-    surv_end = keep ** (P - start)
-
-    def surv_at(p: int) -> NDArray:
-        """Share of each column's area still standing at period p's harvest moment."""
-        return keep ** np.maximum(p - start - 1, 0)
-
-    # rows: [0, S) stratum areas; then G*P regeneration balances; then P harvest definitions
-    reg0 = S
-    harv0 = S + G * P
-    ri: list[NDArray] = []
-    cj: list[NDArray] = []
-    vv: list[NDArray] = []
-
-    def put(rows: NDArray, cols: NDArray, values: NDArray | float) -> None:
-        """Add matrix entries (rows[k], cols[k]) = values[k]."""
-        ri.append(np.asarray(rows))
-        cj.append(np.asarray(cols))
-        vv.append(np.broadcast_to(np.asarray(values, dtype=np.float64), np.shape(cols)))
-
-    put(a_[xs], cols_idx[xs], 1.0)  # stratum areas
-    # y established in period b_ leaves the balance of (g, b_); cut again in c_ it enters
-    # the balance of (g, c_); existing area cut in b_ enters the balance of (group, b_)
-    put(reg0 + a_[ys] * P + (b_[ys] - 1), cols_idx[ys], 1.0)
-    yi = ys & (c_ > 0)
-    put(reg0 + a_[yi] * P + (c_[yi] - 1), cols_idx[yi], -surv_cut[yi])
-    xi = xs & (b_ > 0)
-    put(reg0 + strata.group[a_[xi]] * P + (b_[xi] - 1), cols_idx[xi], -surv_cut[xi])
-    if dist > 0:  # disturbed standing area regrows in its group from that period
-        group_of = np.where(xs, strata.group[np.clip(a_, 0, max(S - 1, 0))], a_)
-        last = np.where(period_cut_all(xs, b_, c_) > 0, period_cut_all(xs, b_, c_), P + 1)
-        for k in range(1, P + 1):  # periods
-            exposed = (k > start) & (k < last)
-            frac = keep ** (k - start[exposed] - 1) * dist
-            put(reg0 + group_of[exposed] * P + (k - 1), cols_idx[exposed], -frac)
-    period_cut = np.where(xs, b_, c_)  # period in which a column cuts (0: none)
-    hv = (period_cut > 0) & (vol_a > 0)
-    put(harv0 + period_cut[hv] - 1, cols_idx[hv], vol_a[hv] * surv_cut[hv])  # harvest ...
-    put(harv0 + np.arange(P), h_col, -1.0)  # ... minus H_p is 0
-    lo = [*strata.area_ha, *np.zeros(G * P), *np.zeros(P)]
-    hi = [*strata.area_ha, *np.zeros(G * P), *np.zeros(P)]
-    nrow = harv0 + P
-
-    def add_row(cidx: NDArray, cval: NDArray, rlo: float, rhi: float) -> int:
-        nonlocal nrow
-        put(np.full(len(cidx), nrow), cidx, cval)
-        lo.append(rlo)
-        hi.append(rhi)
-        nrow += 1
-        return nrow - 1
-
-    flow_rows = []
-    for p in range(2, P + 1 if policy != "none" else 2):  # flow rows on consecutive H_p
-        pair = np.array([h_col[p - 1], h_col[p - 2]])
-        if policy == "nondeclining":
-            flow_rows.append(add_row(pair, np.array([1.0, -1.0]), 0.0, INF))
-        else:
-            flow_rows.append(add_row(pair, np.array([1.0, -(1 - band)]), 0.0, INF))
-            flow_rows.append(add_row(pair, np.array([1.0, -(1 + band)]), -INF, 0.0))
-    reserved_end = reserved_stock(stands, curves, periods, dist)
-    initial = float(
-        np.dot(
-            curves.volume_m3_ha(stands.species_idx, stands.age_years, stands.site_index),
-            stands.area_ha,
-        )
-    )
-    idx = np.flatnonzero(end_a > 0)
-    ending_row = add_row(
-        idx, end_a[idx] * surv_end[idx], ending_stock * initial - reserved_end, INF
-    )
-    if cover is not None:  # old- and young-forest shares per zone at each harvest moment
-        zone_col = np.where(
-            xs,
-            strata.zone[np.clip(a_, 0, max(S - 1, 0))],
-            strata.group_zone[np.clip(a_, 0, max(G - 1, 0))],
-        )
-        x_age0 = strata.age_years[np.clip(a_, 0, max(S - 1, 0))]
-        y_delay = strata.group_delay[np.clip(a_, 0, max(G - 1, 0))]
-        reserved = stands.area_ha - (
-            stands.harvestable_ha if stands.harvestable_ha is not None else stands.area_ha
-        )
-        sz = stand_zone if stand_zone is not None else np.zeros(stands.n, dtype=np.int64)
-        for rule in cover.rules:  # a handful of rules x periods
-            inz = np.ones(nvar, bool) if rule.zone < 0 else zone_col == rule.zone
-            rz = np.ones(stands.n, bool) if rule.zone < 0 else sz == rule.zone
-            for p in range(1, P + 1):
-                t = (p - 1) * L + off
-                # standing at p's harvest moment, after its cut: existing area not yet cut,
-                # and regrowth established at or before p and not cut again by then
-                x_up = xs & ((b_ > p) | (b_ == 0))
-                y_up = ys & (b_ <= p) & ((c_ > p) | (c_ == 0))
-                age = np.where(xs, x_age0 + t, (p - b_) * L - y_delay)
-                hit = np.flatnonzero((x_up | y_up) & inz & rule.counts(age))
-                fixed = reserved_cover(
-                    reserved[rz],
-                    stands.age_years[rz],
-                    p,
-                    L,
-                    off,
-                    dist,
-                    stands.regen_delay_years[rz],
-                    rule,
-                )
-                bound = rule.share * cover.area_of(rule) - fixed
-                # old forest: at least the target share; young forest: at most
-                lo_, hi_ = (bound, INF) if rule.kind == "old" else (-INF, bound)
-                add_row(hit, surv_at(p)[hit], lo_, hi_)
+    Columns: :func:`lp_columns` (x and y), then H_1..H_P. Rows, in this order: the stratum
+    areas, the regeneration balances (G x P), the harvest definitions (P), the flow rows of
+    the policy (:data:`FLOW_ROWS`), the ending stock, the cover rows (rule x period), the area
+    cap (P).
+    """
+    P = periods.count
+    cols = lp_columns(strata, curves, periods)
+    surv = _survival(cols, periods, disturbance)
+    h_col = cols.n + np.arange(P)  # H_p variables
+    m = MatrixBuilder()
+    _area_rows(m, strata, cols)
+    balance0 = _regeneration_rows(m, strata, cols, surv, P)
+    _disturbed_regrowth(m, strata, cols, surv, balance0, P)
+    _harvest_rows(m, cols, surv, h_col)
+    # a name without an entry takes the even rows, as before (the pipeline itself passes the
+    # rule-based "stepdown" and "targets" as "even")
+    flow_rows = FLOW_ROWS.get(policy, even_flow_rows)(m, h_col, band)
+    ending_row = _ending_stock_row(m, stands, curves, periods, cols, surv, ending_stock)
+    if cover is not None:
+        _cover_rows(m, stands, strata, periods, cols, surv, cover, stand_zone)
     if max_area_ha is not None:
-        for p in range(1, P + 1):
-            idx = np.flatnonzero(period_cut == p)
-            add_row(idx, surv_cut[idx], -INF, max_area_ha)
-    rows_i, rows_j, vals = ri, cj, vv
-    ncol = nvar + P
-    cost = np.zeros(ncol)
-    if objective == "max-volume":
-        cost[h_col] = -1.0
-    elif objective == "max-npv":
-        if economics is None:
-            raise InputError("flow.objective = 'max-npv' needs prices and a discount rate")
-        sp = np.where(
-            xs,
-            strata.species_idx[np.clip(a_, 0, max(S - 1, 0))],
-            strata.group_species[np.clip(a_, 0, max(G - 1, 0))],
-        )
-        t_cut = (period_cut - 1) * L + off
-        disc = 1.0 / growth_factor(t_cut, economics.rate, economics.compounding)
-        npv = np.where(
-            period_cut > 0, (economics.price[sp] * vol_a - economics.regen_cost[sp]) * disc, 0.0
-        )
-        if economics.terminal_value == "standing":
-            npv = npv + economics.price[sp] * end_a / growth_factor(
-                np.full(nvar, P * L), economics.rate, economics.compounding
-            )
-        cost[:nvar] = -npv
-    else:
-        cost[h_col[0]] = -1.0
-    A = coo_matrix(
-        (np.concatenate(vals), (np.concatenate(rows_i), np.concatenate(rows_j))), shape=(nrow, ncol)
-    ).tocsc()
-    xcol = xs & (b_ > 0)
-    x_stratum = np.where(xcol, a_, -1)
-    x_period = np.where(xcol, b_, 0)
+        _area_cap_rows(m, cols, surv, max_area_ha, P)
+    cost = _lp_costs(objective, cols, strata, periods, economics, h_col)
+    matrix, row_lo, row_hi = m.build(len(cost))
+    first_cut = cols.is_x & (cols.first > 0)
     return LPModel(
         cost,
-        A,
-        np.array(lo, dtype=np.float64),
-        np.array(hi, dtype=np.float64),
+        matrix,
+        row_lo,
+        row_hi,
         h_col,
         ending_row,
         flow_rows,
-        np.r_[x_stratum, np.full(P, -1)],
-        np.r_[x_period, np.zeros(P, dtype=np.int64)],
-        S,
+        np.r_[np.where(first_cut, cols.index, -1), np.full(P, -1)],
+        np.r_[np.where(first_cut, cols.first, 0), np.zeros(P, dtype=np.int64)],
+        strata.n,
         periods=P,
         context={
             "ending_stock": ending_stock,
@@ -402,6 +243,392 @@ def build_lp(
             "cover": cover is not None,
         },
     )
+
+
+@dataclass(frozen=True)
+class Columns:
+    """The area columns of the LP, in column order (the H_p columns follow them), all [ha].
+
+    ``is_x``: a column of an existing stratum (x), else of a regeneration group (y);
+    ``index``: its stratum or group; ``first``: x, the period of its first cut (0: never cut),
+    y, the period its regrowth was established; ``again``: y, the period it is cut again (0:
+    never; always 0 for x); ``volume_m3_ha``: what a cut yields (0 where nothing is cut);
+    ``end_volume_m3_ha``: what stands at the horizon's end (never-cut columns only).
+    """
+
+    is_x: NDArray
+    index: NDArray
+    first: NDArray
+    again: NDArray
+    volume_m3_ha: NDArray
+    end_volume_m3_ha: NDArray
+
+    @property
+    def n(self) -> int:
+        return len(self.is_x)
+
+    @property
+    def is_y(self) -> NDArray:
+        return ~self.is_x
+
+    @property
+    def cut_period(self) -> NDArray:
+        """Period in which each column cuts (0: never)."""
+        return np.where(self.is_x, self.first, self.again)
+
+    def take(self, values: NDArray) -> NDArray:
+        """Per column, ``values[index]``: a per-stratum array read on the x columns, or a
+        per-group one on the y columns (the other kind's index is clipped into range)."""
+        return values[np.clip(self.index, 0, max(len(values) - 1, 0))]
+
+    def per_column(self, of_stratum: NDArray, of_group: NDArray) -> NDArray:
+        """Per column, its stratum's value (x) or its group's (y)."""
+        return np.where(self.is_x, self.take(of_stratum), self.take(of_group))
+
+
+def lp_columns(strata: Strata, curves: CurveSet, periods: Periods) -> Columns:
+    """The columns of each stratum and regeneration group, and their volumes.
+
+    Per period p, then never: x[s, p] where stratum s reaches its minimum harvest age at p's
+    harvest moment (its volume at that age), x[s, 0] (its volume at the horizon's end). Then per
+    establishment period i: y[g, i, j] for j > i where the regrowth, (j - i) periods old less the
+    regeneration delay, reaches the group's minimum age, and y[g, i, 0] (its volume at the
+    horizon's end). Volumes below a millilitre per hectare are 0: nothing to a solver.
+    """
+    P, L, off = periods.count, float(periods.period_years), periods.offset_years
+    S, G = strata.n, strata.groups
+    blocks = []  # per block: is_x, index, first, again, volume, end volume
+    for p in range(1, P + 1):
+        age_h = strata.age_years + (p - 1) * L + off
+        ok = np.flatnonzero(age_h >= strata.min_age - 1e-9)
+        v = curves.volume_m3_ha(strata.species_idx[ok], age_h[ok], strata.site_index[ok])
+        blocks.append(_block(True, ok, p, 0, v, np.zeros(len(ok))))
+    v_end = curves.volume_m3_ha(strata.species_idx, strata.age_years + P * L, strata.site_index)
+    blocks.append(_block(True, np.arange(S), 0, 0, np.zeros(S), v_end))
+    for i in range(1, P + 1):
+        for j in range(i + 1, P + 1):
+            age = (j - i) * L - strata.group_delay
+            ok = np.flatnonzero(age >= strata.group_min_age - 1e-9)
+            v = curves.volume_m3_ha(strata.group_species[ok], age[ok], strata.group_site[ok])
+            blocks.append(_block(False, ok, i, j, v, np.zeros(len(ok))))
+        age = (P - i) * L + (L - off) - strata.group_delay
+        v = curves.volume_m3_ha(strata.group_species, age, strata.group_site)
+        blocks.append(_block(False, np.arange(G), i, 0, np.zeros(G), v))
+    is_x, index, first, again, volume, end = (
+        np.concatenate(part) for part in zip(*blocks, strict=True)
+    )
+    volume[volume < 1e-6] = 0.0
+    end[end < 1e-6] = 0.0
+    return Columns(is_x, index.astype(np.int64), first, again, volume, end)
+
+
+def _block(
+    is_x: bool, index: NDArray, first: int, again: int, volume: NDArray, end: NDArray
+) -> tuple[NDArray, ...]:
+    """One block of columns of :func:`lp_columns` as its six arrays."""
+    n = len(index)
+    return (
+        np.full(n, is_x),
+        index,
+        np.full(n, first, dtype=np.int64),
+        np.full(n, again, dtype=np.int64),
+        volume,
+        end,
+    )
+
+
+@dataclass(frozen=True)
+class _Survival:
+    """Expected disturbance: a share ``dist`` of each column's standing area is disturbed every
+    period after its harvest (``dist = 1 - (1 - annual rate)^L``, ``keep = 1 - dist``). A column
+    stands exposed from the period after its establishment (x: from period 1); per column,
+    ``cut``: the share still standing when it is cut (0: never cut), ``end``: at the horizon's
+    end. Without disturbance every share is 1."""
+
+    dist: float
+    keep: float
+    start: NDArray  # period of establishment (x: 0)
+    cut: NDArray
+    end: NDArray
+
+    def at(self, p: int) -> NDArray:
+        """Share of each column's area still standing at period p's harvest moment."""
+        return self.keep ** np.maximum(p - self.start - 1, 0)
+
+
+def _survival(cols: Columns, periods: Periods, disturbance: float) -> _Survival:
+    """The :class:`_Survival` of the columns under an annual disturbance rate."""
+    P, L = periods.count, float(periods.period_years)
+    dist = 1.0 - (1.0 - disturbance) ** L if disturbance > 0 else 0.0
+    keep = 1.0 - dist
+    start = np.where(cols.is_x, 0, cols.first)
+    cut_p = cols.cut_period
+    cut = np.where(cut_p > 0, keep ** np.maximum(cut_p - start - 1, 0), 0.0)
+    return _Survival(dist, keep, start, cut, keep ** (P - start))
+
+
+class MatrixBuilder:
+    """The LP's rows as they are added: sparse entries (row, column, value), in blocks, and
+    each row's bounds. Rows are numbered in the order they are added."""
+
+    def __init__(self) -> None:
+        self.n_rows = 0
+        self._rows: list[NDArray] = []
+        self._cols: list[NDArray] = []
+        self._values: list[NDArray] = []
+        self._lo: list[NDArray] = []
+        self._hi: list[NDArray] = []
+
+    def add_rows(self, count: int, lo: NDArray | float, hi: NDArray | float) -> int:
+        """Add ``count`` rows with these bounds (scalars or one per row); the first's index."""
+        first = self.n_rows
+        self._lo.append(np.broadcast_to(np.asarray(lo, dtype=np.float64), count))
+        self._hi.append(np.broadcast_to(np.asarray(hi, dtype=np.float64), count))
+        self.n_rows += count
+        return first
+
+    def put(self, rows: NDArray, cols: NDArray, values: NDArray | float) -> None:
+        """Add matrix entries (rows[k], cols[k]) = values[k] to rows already added."""
+        self._rows.append(np.asarray(rows))
+        self._cols.append(np.asarray(cols))
+        self._values.append(np.broadcast_to(np.asarray(values, dtype=np.float64), np.shape(cols)))
+
+    def add_row(self, cols: NDArray, values: NDArray, lo: float, hi: float) -> int:
+        """Add one row, lo <= sum values[k] x[cols[k]] <= hi; its index."""
+        row = self.add_rows(1, lo, hi)
+        self.put(np.full(len(cols), row), cols, values)
+        return row
+
+    def build(self, n_cols: int) -> tuple[csc_matrix, NDArray, NDArray]:
+        """The matrix (CSC) and the row bounds."""
+        matrix = coo_matrix(
+            (
+                np.concatenate(self._values),
+                (np.concatenate(self._rows), np.concatenate(self._cols)),
+            ),
+            shape=(self.n_rows, n_cols),
+        ).tocsc()
+        return matrix, np.concatenate(self._lo), np.concatenate(self._hi)
+
+
+def _area_rows(m: MatrixBuilder, strata: Strata, cols: Columns) -> None:
+    """Each stratum's area is first cut in one period or never: sum_p x[s, p] + x[s, 0] = A_s
+    (rows 0..S-1)."""
+    first = m.add_rows(strata.n, strata.area_ha, strata.area_ha)
+    x = np.flatnonzero(cols.is_x)
+    m.put(first + cols.index[x], x, 1.0)
+
+
+def _regeneration_rows(
+    m: MatrixBuilder, strata: Strata, cols: Columns, surv: _Survival, P: int
+) -> int:
+    """Per regeneration group g and period p (row ``first + g P + p - 1``), the area
+    established equals the area cut: sum_j y[g, p, j] + y[g, p, 0] - sum_i keep y[g, i, p] -
+    sum_(s in g) keep x[s, p] = 0, with ``keep`` the share still standing at the cut
+    (:class:`_Survival`). Returns the first row."""
+    first = m.add_rows(strata.groups * P, 0.0, 0.0)
+    col = np.arange(cols.n)
+    ys = cols.is_y
+    m.put(first + cols.index[ys] * P + (cols.first[ys] - 1), col[ys], 1.0)
+    again = ys & (cols.again > 0)
+    m.put(first + cols.index[again] * P + (cols.again[again] - 1), col[again], -surv.cut[again])
+    cut = cols.is_x & (cols.first > 0)
+    group = strata.group[cols.index[cut]]
+    m.put(first + group * P + (cols.first[cut] - 1), col[cut], -surv.cut[cut])
+    return first
+
+
+def _disturbed_regrowth(
+    m: MatrixBuilder, strata: Strata, cols: Columns, surv: _Survival, first: int, P: int
+) -> None:
+    """The share of a column's area disturbed in period k (after k's harvest, while it stands:
+    from the period after its establishment until its cut) regrows in its group from k: it
+    enters the regeneration balance of (group, k) of :func:`_regeneration_rows`, whose first
+    row is ``first``."""
+    if surv.dist <= 0:
+        return
+    group = cols.per_column(strata.group, np.arange(strata.groups))
+    cut_p = cols.cut_period
+    last = np.where(cut_p > 0, cut_p, P + 1)
+    col = np.arange(cols.n)
+    for k in range(1, P + 1):  # periods
+        exposed = (k > surv.start) & (k < last)
+        share = surv.keep ** (k - surv.start[exposed] - 1) * surv.dist
+        m.put(first + group[exposed] * P + (k - 1), col[exposed], -share)
+
+
+def _harvest_rows(m: MatrixBuilder, cols: Columns, surv: _Survival, h_col: NDArray) -> None:
+    """H_p is the volume of every cut in period p: sum v keep x + sum v keep y - H_p = 0."""
+    first = m.add_rows(len(h_col), 0.0, 0.0)
+    cut_p = cols.cut_period
+    cut = np.flatnonzero((cut_p > 0) & (cols.volume_m3_ha > 0))
+    m.put(first + cut_p[cut] - 1, cut, cols.volume_m3_ha[cut] * surv.cut[cut])
+    m.put(first + np.arange(len(h_col)), h_col, -1.0)
+
+
+def even_flow_rows(m: MatrixBuilder, h_col: NDArray, band: float) -> list[int]:
+    """Even flow: every period within ``band`` of the one before, H_p - (1 - band) H_(p-1) >= 0
+    and H_p - (1 + band) H_(p-1) <= 0 (with no band, one common level)."""
+    rows = []
+    for p in range(2, len(h_col) + 1):
+        pair = np.array([h_col[p - 1], h_col[p - 2]])
+        rows.append(m.add_row(pair, np.array([1.0, -(1 - band)]), 0.0, INF))
+        rows.append(m.add_row(pair, np.array([1.0, -(1 + band)]), -INF, 0.0))
+    return rows
+
+
+def nondeclining_rows(m: MatrixBuilder, h_col: NDArray, band: float) -> list[int]:
+    """Non-declining flow: every period at least the one before, H_p - H_(p-1) >= 0 (the band
+    does not apply)."""
+    rows = []
+    for p in range(2, len(h_col) + 1):
+        pair = np.array([h_col[p - 1], h_col[p - 2]])
+        rows.append(m.add_row(pair, np.array([1.0, -1.0]), 0.0, INF))
+    return rows
+
+
+def no_flow_rows(m: MatrixBuilder, h_col: NDArray, band: float) -> list[int]:
+    """No flow policy: the H_p are free of each other."""
+    return []
+
+
+FlowRows = Callable[[MatrixBuilder, NDArray, float], list[int]]
+
+FLOW_ROWS: dict[str, FlowRows] = {
+    "even": even_flow_rows,
+    "nondeclining": nondeclining_rows,
+    "none": no_flow_rows,
+}
+"""The LP's part of the flow-policy registry: per policy name, the function that adds its flow
+rows on the H_p columns (``h_col``) with the scenario's band and returns their indices (the
+duals of these rows are reported). A new flow policy adds its LP rows by one entry here."""
+
+
+def _ending_stock_row(
+    m: MatrixBuilder,
+    stands: StandArrays,
+    curves: CurveSet,
+    periods: Periods,
+    cols: Columns,
+    surv: _Survival,
+    ending_stock: float,
+) -> int:
+    """The growing stock at the horizon's end, on the never-cut columns still standing plus the
+    area outside the harvestable land base (:func:`reserved_stock`), is at least
+    ``ending_stock`` x the initial stock of all stands."""
+    reserved_end = reserved_stock(stands, curves, periods, surv.dist)
+    initial = float(
+        np.dot(
+            curves.volume_m3_ha(stands.species_idx, stands.age_years, stands.site_index),
+            stands.area_ha,
+        )
+    )
+    end = np.flatnonzero(cols.end_volume_m3_ha > 0)
+    return m.add_row(
+        end,
+        cols.end_volume_m3_ha[end] * surv.end[end],
+        ending_stock * initial - reserved_end,
+        INF,
+    )
+
+
+def _cover_rows(
+    m: MatrixBuilder,
+    stands: StandArrays,
+    strata: Strata,
+    periods: Periods,
+    cols: Columns,
+    surv: _Survival,
+    cover: CoverRules,
+    stand_zone: NDArray | None,
+) -> None:
+    """Per cover rule and period, the old (or young) area of the rule's zone standing at the
+    period's harvest moment after its cut: the columns not cut yet whose age the rule counts,
+    plus the area outside the harvestable land base (:func:`reserved_cover`), at least (old)
+    or at most (young) the rule's share of the zone's area."""
+    P, L, off = periods.count, float(periods.period_years), periods.offset_years
+    zone = cols.per_column(strata.zone, strata.group_zone)
+    x_age0 = cols.take(strata.age_years)
+    y_delay = cols.take(strata.group_delay)
+    harvestable = stands.harvestable_ha if stands.harvestable_ha is not None else stands.area_ha
+    reserved = stands.area_ha - harvestable
+    sz = stand_zone if stand_zone is not None else np.zeros(stands.n, dtype=np.int64)
+    xs, ys, b_, c_ = cols.is_x, cols.is_y, cols.first, cols.again
+    for rule in cover.rules:  # a handful of rules x periods
+        inz = np.ones(cols.n, bool) if rule.zone < 0 else zone == rule.zone
+        rz = np.ones(stands.n, bool) if rule.zone < 0 else sz == rule.zone
+        for p in range(1, P + 1):
+            t = (p - 1) * L + off
+            # standing at p's harvest moment, after its cut: existing area not yet cut,
+            # and regrowth established at or before p and not cut again by then
+            x_up = xs & ((b_ > p) | (b_ == 0))
+            y_up = ys & (b_ <= p) & ((c_ > p) | (c_ == 0))
+            age = np.where(xs, x_age0 + t, (p - b_) * L - y_delay)
+            hit = np.flatnonzero((x_up | y_up) & inz & rule.counts(age))
+            fixed = reserved_cover(
+                reserved[rz],
+                stands.age_years[rz],
+                p,
+                L,
+                off,
+                surv.dist,
+                stands.regen_delay_years[rz],
+                rule,
+            )
+            bound = rule.share * cover.area_of(rule) - fixed
+            lo, hi = (bound, INF) if rule.kind == "old" else (-INF, bound)
+            m.add_row(hit, surv.at(p)[hit], lo, hi)
+
+
+def _area_cap_rows(
+    m: MatrixBuilder, cols: Columns, surv: _Survival, max_area_ha: float, P: int
+) -> None:
+    """The area cut in each period, as it stands at the cut, is at most ``max_area_ha``."""
+    cut_p = cols.cut_period
+    for p in range(1, P + 1):
+        cut = np.flatnonzero(cut_p == p)
+        m.add_row(cut, surv.cut[cut], -INF, max_area_ha)
+
+
+def _lp_costs(
+    objective: str,
+    cols: Columns,
+    strata: Strata,
+    periods: Periods,
+    economics: Economics | None,
+    h_col: NDArray,
+) -> NDArray:
+    """The costs of a minimisation: ``max-volume``: -sum H_p; ``max-npv``: -NPV of each area
+    column (:func:`_npv_per_ha`); otherwise (``max-even-flow``) -H_1."""
+    cost = np.zeros(cols.n + len(h_col))
+    if objective == "max-volume":
+        cost[h_col] = -1.0
+    elif objective == "max-npv":
+        if economics is None:
+            raise InputError("flow.objective = 'max-npv' needs prices and a discount rate")
+        cost[: cols.n] = -_npv_per_ha(cols, strata, periods, economics)
+    else:
+        cost[h_col[0]] = -1.0
+    return cost
+
+
+def _npv_per_ha(cols: Columns, strata: Strata, periods: Periods, economics: Economics) -> NDArray:
+    """Per area column, the net present value of a hectare: price x volume less the
+    regeneration cost, discounted from the harvest moment of its cut; with ``terminal_value =
+    "standing"`` also its standing volume at the horizon's end at the net price, discounted
+    from then."""
+    P, L, off = periods.count, float(periods.period_years), periods.offset_years
+    species = cols.per_column(strata.species_idx, strata.group_species)
+    price, regen_cost = economics.price[species], economics.regen_cost[species]
+    cut_p = cols.cut_period
+    t_cut = (cut_p - 1) * L + off
+    disc = 1.0 / growth_factor(t_cut, economics.rate, economics.compounding)
+    npv = np.where(cut_p > 0, (price * cols.volume_m3_ha - regen_cost) * disc, 0.0)
+    if economics.terminal_value == "standing":
+        npv = npv + price * cols.end_volume_m3_ha / growth_factor(
+            np.full(cols.n, P * L), economics.rate, economics.compounding
+        )
+    return npv
 
 
 def _new_highs() -> highspy.Highs:
@@ -471,14 +698,16 @@ def solve_highs(model: LPModel, t0: float | None = None) -> LPResult:
     )
 
 
-def period_cut_all(xs: NDArray, b_: NDArray, c_: NDArray) -> NDArray:
-    """Period in which each column cuts (0: never)."""
-    return np.where(xs, b_, c_)
-
-
 def reserved_cover(
-    area: NDArray, age0: NDArray, p: int, L: float, off: float, dist: float, delay: NDArray, rule
-) -> float:  # noqa: ANN001
+    area: NDArray,
+    age0: NDArray,
+    p: int,
+    L: float,
+    off: float,
+    dist: float,
+    delay: NDArray,
+    rule: CoverRule,
+) -> float:
     """Expected old (or young) area at period p's harvest moment outside the harvestable land
     base, under the expected disturbance: never disturbed since the start, or last disturbed
     in period k < p (at its midpoint) and regrown since."""
