@@ -13,6 +13,7 @@ LAYER = {
     "versions": 0,
     "geometry": 0,
     "policies": 0,
+    "runlog": 0,
     "config": 1,
     "growth": 1,
     "io": 2,
@@ -94,3 +95,30 @@ def test_no_import_cycles():
         if m not in state:
             visit(m, [m])
     assert not cycles, cycles
+
+
+def test_functions_a_reader_can_hold_in_mind():
+    # House style: under about 60 lines is the norm, 100 the limit (docstrings included).
+    long = []
+    for mod, path in _modules().items():
+        for node in ast.walk(ast.parse(path.read_text())):
+            if isinstance(node, ast.FunctionDef | ast.AsyncFunctionDef):
+                n = node.end_lineno - node.lineno + 1
+                if n > 100:
+                    long.append(f"{mod}.{node.name}: {n} lines")
+    assert not long, long
+
+
+def test_the_pipeline_only_orchestrates():
+    lines = (PKG / "pipeline.py").read_text().count("\n")
+    assert lines <= 400, f"pipeline.py has {lines} lines"
+
+
+def test_every_flow_policy_has_its_search_and_every_choice_its_entry():
+    # One registry per kind of choice; the modules that act on a choice key their tables by it.
+    from yieldscape.policies import FLOW_POLICIES
+    from yieldscape.schedule.flow import SEARCHES
+    from yieldscape.schedule.lp import FLOW_ROWS
+
+    assert set(SEARCHES) == set(FLOW_POLICIES)
+    assert {p.name for p in FLOW_POLICIES.values() if p.in_lp} <= set(FLOW_ROWS)

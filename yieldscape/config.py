@@ -971,93 +971,22 @@ def _parse(
     for name in ("scenario", "inventory", "species"):
         if name not in raw:
             raise ScenarioError(f"{where}: missing section [{name}]")
-
     info = ScenarioInfo(**_take(raw["scenario"], "scenario", where))
     _check_horizon(info, where)
-
-    inv_raw = _table(raw["inventory"], "inventory", where)
-    inv_vals = _take(
-        {k: v for k, v in inv_raw.items() if k not in ("fields", "from_raster")}, "inventory", where
-    )
-    if "fields" not in inv_raw:
-        raise ScenarioError(f"{where}: missing table [inventory.fields]")
-    fields = FieldMap(**_take(inv_raw["fields"], "inventory.fields", where))
-    rasters = _take(inv_raw.get("from_raster", {}), "inventory.from_raster", where)
-    site_raster = rasters["site_index"]
-    inventory = InventoryConfig(
-        **{
-            **inv_vals,
-            "path": (base_dir / inv_vals["path"]).resolve(),
-            "fields": fields,
-            "from_raster": RasterFill(
-                (base_dir / site_raster).resolve() if site_raster else None, rasters["band"]
-            ),
-        }
-    )
-
+    inventory = _inventory(_table(raw["inventory"], "inventory", where), base_dir, where)
     species_raw = _table(raw["species"], "species", where)
     if not species_raw:
         raise ScenarioError(f"{where}: [species] lists no species; add a [species.<CODE>] table")
-    harvest = HarvestConfig(**_take(raw.get("harvest", {}), "harvest", where))
-    if harvest.max_opening_ha is not None and harvest.greenup_years <= 0:
-        note(
-            f"{where}: [harvest] max_opening_ha = {harvest.max_opening_ha:g} has no effect: "
-            "greenup_years = 0 switches the spatial rules off (give greenup_years > 0, the "
-            "window in which cut area counts as open, to keep them)"
-        )
-    horizon = info.periods * info.period_years
-    if harvest.greenup_years > horizon:
-        raise ScenarioError(
-            f"{where}: [harvest] greenup_years = {harvest.greenup_years:g} is "
-            f"longer than the horizon ({horizon} years)"
-        )
-    flow = FlowConfig(**_take(raw.get("flow", {}), "flow", where))
-    if flow.policy == "targets":
-        if flow.targets_m3 is None:
-            raise ScenarioError(
-                f"{where}: [flow] policy = 'targets' needs targets_m3 (one value per period)"
-            )
-        if len(flow.targets_m3) != info.periods:
-            raise ScenarioError(
-                f"{where}: [flow] targets_m3 has {len(flow.targets_m3)} values "
-                f"for scenario.periods = {info.periods}"
-            )
-        if any(v < 0 for v in flow.targets_m3):
-            raise ScenarioError(f"{where}: [flow] targets_m3 values must be >= 0")
-    elif flow.targets_m3 is not None:
-        raise ScenarioError(f"{where}: [flow] targets_m3 applies to policy = 'targets' only")
-    if flow.method == "optimize" and flow.policy not in ("even", "nondeclining"):
-        raise ScenarioError(
-            f"{where}: [flow] method = 'optimize' takes policy 'even' or "
-            f"'nondeclining', not {flow.policy!r}"
-        )
-    if flow.long_term_periods is not None and flow.long_term_periods > info.periods:
-        raise ScenarioError(
-            f"{where}: [flow] long_term_periods = {flow.long_term_periods} is "
-            f"longer than the horizon ({info.periods} periods)"
-        )
+    harvest = _harvest(raw.get("harvest", {}), info, where)
+    flow = _flow(raw.get("flow", {}), info, where)
     economics = EconomicsConfig(**_take(raw.get("economics", {}), "economics", where))
     growth = GrowthConfig(**_take(raw.get("growth", {}), "growth", where))
     species = {
         str(code): _species(code, tbl, base_dir, where, economics)
         for code, tbl in species_raw.items()
     }
-    landbase = _landbase(raw.get("landbase", {}), base_dir, where)
-    cover = _cover(raw.get("cover", []), where)
-    if flow.objective == "max-npv":
-        if economics.discount_rate is None:
-            raise ScenarioError(
-                f"{where}: [flow] objective = 'max-npv' needs [economics] discount_rate"
-            )
-        unpriced = sorted(c for c, sp in species.items() if sp.price_per_m3 is None)
-        if unpriced:
-            raise ScenarioError(
-                f"{where}: [flow] objective = 'max-npv' needs price_per_m3 for "
-                f"every species; missing for: {', '.join(unpriced)}"
-            )
+    _check_npv(flow, economics, species, where)
     disturbance = DisturbanceConfig(**_take(raw.get("disturbance", {}), "disturbance", where))
-    report = _report(raw.get("report", {}), info, where)
-    cases = _sensitivity(raw, base_dir, where, source)
     if disturbance.replicates and disturbance.annual_rate <= 0:
         raise ScenarioError(
             f"{where}: [disturbance] replicates = {disturbance.replicates} needs annual_rate > 0"
@@ -1070,14 +999,91 @@ def _parse(
         flow,
         economics,
         growth,
-        landbase,
-        cover,
+        _landbase(raw.get("landbase", {}), base_dir, where),
+        _cover(raw.get("cover", []), where),
         disturbance,
-        report,
+        _report(raw.get("report", {}), info, where),
         source,
         overrides,
-        cases,
+        _sensitivity(raw, base_dir, where, source),
     )
+
+
+def _inventory(inv_raw: dict[str, Any], base_dir: Path, where: str) -> InventoryConfig:
+    """``[inventory]`` with its ``fields`` and ``from_raster`` tables; paths resolved."""
+    vals = _take(
+        {k: v for k, v in inv_raw.items() if k not in ("fields", "from_raster")}, "inventory", where
+    )
+    if "fields" not in inv_raw:
+        raise ScenarioError(f"{where}: missing table [inventory.fields]")
+    fields = FieldMap(**_take(inv_raw["fields"], "inventory.fields", where))
+    rasters = _take(inv_raw.get("from_raster", {}), "inventory.from_raster", where)
+    site = rasters["site_index"]
+    fill = RasterFill((base_dir / site).resolve() if site else None, rasters["band"])
+    path = (base_dir / vals["path"]).resolve()
+    return InventoryConfig(**{**vals, "path": path, "fields": fields, "from_raster": fill})
+
+
+def _harvest(raw: Any, info: ScenarioInfo, where: str) -> HarvestConfig:
+    harvest = HarvestConfig(**_take(raw, "harvest", where))
+    if harvest.max_opening_ha is not None and harvest.greenup_years <= 0:
+        note(
+            f"{where}: [harvest] max_opening_ha = {harvest.max_opening_ha:g} has no effect: "
+            "greenup_years = 0 switches the spatial rules off (give greenup_years > 0, the "
+            "window in which cut area counts as open, to keep them)"
+        )
+    horizon = info.periods * info.period_years
+    if harvest.greenup_years > horizon:
+        raise ScenarioError(
+            f"{where}: [harvest] greenup_years = {harvest.greenup_years:g} is "
+            f"longer than the horizon ({horizon} years)"
+        )
+    return harvest
+
+
+def _flow(raw: Any, info: ScenarioInfo, where: str) -> FlowConfig:
+    flow = FlowConfig(**_take(raw, "flow", where))
+    if flow.policy == "targets":
+        if flow.targets_m3 is None:
+            raise ScenarioError(
+                f"{where}: [flow] policy = 'targets' needs targets_m3 (one value per period)"
+            )
+        if len(flow.targets_m3) != info.periods:
+            raise ScenarioError(
+                f"{where}: [flow] targets_m3 has {len(flow.targets_m3)} values "
+                f"for scenario.periods = {info.periods}"
+            )
+    elif flow.targets_m3 is not None:
+        raise ScenarioError(f"{where}: [flow] targets_m3 applies to policy = 'targets' only")
+    if flow.method == "optimize" and not FLOW_POLICIES[flow.policy].in_lp:
+        modelled = [p.name for p in FLOW_POLICIES.values() if p.in_lp]
+        raise ScenarioError(
+            f"{where}: [flow] method = 'optimize' takes policy "
+            f"{' or '.join(repr(m) for m in modelled)}, not {flow.policy!r}"
+        )
+    if flow.long_term_periods is not None and flow.long_term_periods > info.periods:
+        raise ScenarioError(
+            f"{where}: [flow] long_term_periods = {flow.long_term_periods} is "
+            f"longer than the horizon ({info.periods} periods)"
+        )
+    return flow
+
+
+def _check_npv(
+    flow: FlowConfig, economics: EconomicsConfig, species: Mapping[str, SpeciesConfig], where: str
+) -> None:
+    if flow.objective != "max-npv":
+        return
+    if economics.discount_rate is None:
+        raise ScenarioError(
+            f"{where}: [flow] objective = 'max-npv' needs [economics] discount_rate"
+        )
+    unpriced = sorted(c for c, sp in species.items() if sp.price_per_m3 is None)
+    if unpriced:
+        raise ScenarioError(
+            f"{where}: [flow] objective = 'max-npv' needs price_per_m3 for "
+            f"every species; missing for: {', '.join(unpriced)}"
+        )
 
 
 def _check_horizon(info: ScenarioInfo, where: str) -> None:

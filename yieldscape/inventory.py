@@ -72,6 +72,26 @@ class Inventory:
 SiteFill = Callable[[np.ndarray, pyproj.CRS], np.ndarray]
 
 
+@dataclass
+class _Rows:
+    """The rows of the layer being checked, for messages: 1-based feature positions (as GIS
+    viewers count), stand ids, the file and layer; and the warnings found so far."""
+
+    row: np.ndarray
+    ids: pd.Series | None
+    where: str
+    warnings: list[str] = field(default_factory=list)
+
+    def fail(self, bad: np.ndarray, what: str, values: object = None, fmt=lambda v: f"{v:g}"):
+        _fail_rows(bad, self.row, self.ids, self.where, what, values, fmt)
+
+    def warn(self, odd: np.ndarray, values: object, text: str, fmt=lambda v: f"{v:g}") -> None:
+        """A warning quoting the first rows of ``odd`` with their values, then ``text``."""
+        if odd.any():
+            quoted = _rows_text(odd, self.row, self.ids, values, fmt)
+            self.warnings.append(f"{self.where}: {quoted}: {int(odd.sum())} {text}")
+
+
 def prepare_inventory(
     frame: gpd.GeoDataFrame,
     scenario: Scenario,
@@ -82,13 +102,55 @@ def prepare_inventory(
     """Check a stand layer against the scenario and build the standard stand table.
 
     ``where`` names the file and layer in messages. With ``strict`` an invalid geometry is an
-    error; otherwise it is repaired with ``shapely.make_valid`` and counted in the report.
+    error; otherwise it is repaired with ``shapely.make_valid`` and a warning names it.
     ``site_fill(geoms, crs)`` gives a raster site index per stand (NaN where it has none); it
     fills missing values, or replaces all with ``inventory.raster_wins``.
     """
     fields = scenario.inventory.fields
     if len(frame) == 0:
         raise InventoryError(f"{where}: the layer is empty (no stands)")
+    mapping = _mapped_fields(frame, fields, where)
+    rows = _Rows(np.arange(1, len(frame) + 1), None, where)
+    ids = frame[fields.stand_id]
+    rows.fail(ids.isna().to_numpy(), f"field {fields.stand_id!r}: null id")
+    rows.ids = ids
+    rows.fail(ids.duplicated(keep=False).to_numpy(), f"field {fields.stand_id!r}: duplicate id")
+    crs = _crs(frame, scenario, where)
+    geoms, repaired = _geometries(frame.geometry.to_numpy(), rows, strict)
+    area_ha, method = _areas(geoms, crs, rows)
+    age = _ages(frame[fields.age], fields.age, rows, scenario.growth.max_age_years)
+    species = _species(frame[fields.species], fields.species, rows, scenario)
+    notes: list[str] = []
+    fill = None if site_fill is None else site_fill(geoms, crs)
+    si, source = _site_index(frame[fields.site_index], fields.site_index, rows, fill, scenario)
+    if fill is not None:
+        how = "raster wins" if scenario.inventory.raster_wins else "gaps filled"
+        notes.append(
+            f"site index from {scenario.inventory.from_raster.site_index}: "
+            f"{int((source == 'raster').sum())} stands ({how})"
+        )
+    _site_ranges(si, species, fields.site_index, rows, scenario)
+    table = pd.DataFrame(
+        {
+            "stand_id": ids.to_numpy(),
+            "species": species.to_numpy(dtype=object),
+            "site_index": si,
+            "age_years": age,
+            "zone": _zones(frame, fields.zone),
+            "area_ha": area_ha,
+            "site_index_source": source,
+        }
+    )
+    for col in [c for c in frame.columns if c != frame.geometry.name]:
+        if col not in mapping.values():  # the layer's other attributes follow ours
+            table[col if col not in table.columns else f"input_{col}"] = frame[col].to_numpy()
+    stands = gpd.GeoDataFrame(table, geometry=gpd.GeoSeries(geoms, crs=crs).values, crs=crs)
+    report = _report(stands, crs, method, repaired, notes, rows.warnings)
+    return Inventory(stands, report)
+
+
+def _mapped_fields(frame: gpd.GeoDataFrame, fields, where: str) -> dict[str, str]:  # noqa: ANN001
+    """Our names -> the layer's, every one present in the layer."""
     mapping = {
         "stand_id": fields.stand_id,
         "species": fields.species,
@@ -104,188 +166,165 @@ def prepare_inventory(
                 f"{where}: field {theirs!r} (inventory.fields.{ours}) is not in the layer; "
                 f"its fields are: {', '.join(have)}"
             )
+    return mapping
 
-    row = np.arange(1, len(frame) + 1)  # 1-based feature position, as GIS viewers count
-    ids = frame[fields.stand_id]
-    _fail_rows(ids.isna().to_numpy(), row, None, where, f"field {fields.stand_id!r}: null id")
-    dup = ids.duplicated(keep=False).to_numpy()
-    _fail_rows(dup, row, ids, where, f"field {fields.stand_id!r}: duplicate id")
 
-    crs = _crs(frame, scenario, where)
-    geoms = geoms_in = frame.geometry.to_numpy()
+def _geometries(geoms: np.ndarray, rows: _Rows, strict: bool) -> tuple[np.ndarray, int]:
+    """Present, polygonal and valid geometries (invalid ones repaired, or an error with
+    ``strict``), and how many were repaired."""
     empty = shapely.is_missing(geoms) | shapely.is_empty(geoms)
-    _fail_rows(empty, row, ids, where, "empty or missing geometry")
+    rows.fail(empty, "empty or missing geometry")
     gtype = shapely.get_type_id(geoms)
     polygonal = (gtype == 3) | (gtype == 6)  # Polygon, MultiPolygon
-    _fail_rows(
-        ~polygonal,
-        row,
-        ids,
-        where,
-        "geometry is not a polygon",
-        values=shapely.get_type_id(geoms),
-        fmt=_type_name,
-    )
+    rows.fail(~polygonal, "geometry is not a polygon", values=gtype, fmt=_type_name)
     invalid = invalid_mask(geoms)
     repaired = int(invalid.sum())
-    notes: list[str] = []
-    warnings: list[str] = []
-    if repaired:
-        if strict:
-            _fail_rows(
-                invalid,
-                row,
-                ids,
-                where,
-                "invalid geometry (--strict)",
-                values=shapely.is_valid_reason(geoms),
-                fmt=str,
-            )
-        geoms = repair(geoms, invalid)
-        lost = shapely.is_empty(geoms) | (shapely.area(geoms) <= 0)
-        _fail_rows(lost, row, ids, where, "invalid geometry with no area left after repair")
-        warnings.append(
-            f"{where}: {_rows_text(invalid, row, ids, shapely.is_valid_reason(geoms_in), str)}: "
-            f"{repaired} invalid geometries repaired with make_valid (their areas are those "
-            "of the repaired shapes; mend them in the source, or use --strict to reject them)"
-        )
+    if not repaired:
+        return geoms, 0
+    reasons = shapely.is_valid_reason(geoms)
+    if strict:
+        rows.fail(invalid, "invalid geometry (--strict)", values=reasons, fmt=str)
+    fixed = repair(geoms, invalid)
+    lost = shapely.is_empty(fixed) | (shapely.area(fixed) <= 0)
+    rows.fail(lost, "invalid geometry with no area left after repair")
+    rows.warn(
+        invalid,
+        reasons,
+        "invalid geometries repaired with make_valid (their areas are those of the repaired "
+        "shapes; mend them in the source, or use --strict to reject them)",
+        fmt=str,
+    )
+    return fixed, repaired
 
+
+def _areas(geoms: np.ndarray, crs: pyproj.CRS, rows: _Rows) -> tuple[np.ndarray, str]:
     area_ha, method = _area_ha(geoms, crs)
-    zero = ~(area_ha > 0)
-    _fail_rows(zero, row, ids, where, "polygon has zero area")
-    _fail_rows(~np.isfinite(area_ha), row, ids, where, "polygon area is not finite", values=area_ha)
-    sliver = area_ha < SLIVER_HA
-    if sliver.any():
-        warnings.append(
-            f"{where}: {_rows_text(sliver, row, ids, area_ha, lambda v: f'{v:.3g} ha')}: "
-            f"{int(sliver.sum())} stands are smaller than {SLIVER_HA:g} ha (slivers of a GIS "
-            "overlay?); they are kept, and cut only as whole stands"
-        )
-
-    age = _numeric(frame[fields.age], fields.age, row, ids, where)
-    _fail_rows(np.isnan(age), row, ids, where, f"field {fields.age!r}: null age")
-    _fail_rows(
-        age < 0,
-        row,
-        ids,
-        where,
-        f"field {fields.age!r}: negative age; ages must be >= 0",
-        values=age,
+    rows.fail(~(area_ha > 0), "polygon has zero area")
+    rows.fail(~np.isfinite(area_ha), "polygon area is not finite", values=area_ha)
+    rows.warn(
+        area_ha < SLIVER_HA,
+        area_ha,
+        f"stands are smaller than {SLIVER_HA:g} ha (slivers of a GIS overlay?); they are kept, "
+        "and cut only as whole stands",
+        fmt=lambda v: f"{v:.3g} ha",
     )
-    _fail_rows(np.isinf(age), row, ids, where, f"field {fields.age!r}: not a finite number")
-    _fail_rows(
+    return area_ha, method
+
+
+def _ages(col: pd.Series, name: str, rows: _Rows, max_age_years: float) -> np.ndarray:
+    """Ages: numbers, present, finite, >= 0 and no older than any tree; a warning beyond the
+    ages the curves are searched to."""
+    age = _numeric(col, name, rows.row, rows.ids, rows.where)
+    rows.fail(np.isnan(age), f"field {name!r}: null age")
+    rows.fail(age < 0, f"field {name!r}: negative age; ages must be >= 0", values=age)
+    rows.fail(np.isinf(age), f"field {name!r}: not a finite number")
+    rows.fail(
         age > MAX_AGE_YEARS,
-        row,
-        ids,
-        where,
-        f"field {fields.age!r}: age above {MAX_AGE_YEARS:g} years, older than any tree known",
+        f"field {name!r}: age above {MAX_AGE_YEARS:g} years, older than any tree known",
         values=age,
     )
-    oldest = scenario.growth.max_age_years
-    old = age > oldest
-    if old.any():
-        warnings.append(
-            f"{where}: {_rows_text(old, row, ids, age)}: {int(old.sum())} stands are older "
-            f"than growth.max_age_years = {oldest:g}, the oldest age the curves are searched "
-            f"to; check field {fields.age!r}, or raise growth.max_age_years if such ages are real"
-        )
-
-    species = frame[fields.species]
-    _fail_rows(
-        species.isna().to_numpy(), row, ids, where, f"field {fields.species!r}: null species"
+    rows.warn(
+        age > max_age_years,
+        age,
+        f"stands are older than growth.max_age_years = {max_age_years:g}, the oldest age the "
+        f"curves are searched to; check field {name!r}, or raise growth.max_age_years if such "
+        "ages are real",
     )
-    species = species.astype(str)
+    return age
+
+
+def _species(col: pd.Series, name: str, rows: _Rows, scenario: Scenario) -> pd.Series:
+    """Species codes as text, each with a [species.<CODE>] table."""
+    rows.fail(col.isna().to_numpy(), f"field {name!r}: null species")
+    species = col.astype(str)
     known = set(scenario.species)
     unknown = ~species.isin(known).to_numpy()
     if unknown.any():
         codes = sorted(set(species[unknown]))
+        first = int(np.flatnonzero(unknown)[0])
+        assert rows.ids is not None
         raise InventoryError(
-            f"{where}, field {fields.species!r}: {int(unknown.sum())} stands have species not in "
+            f"{rows.where}, field {name!r}: {int(unknown.sum())} stands have species not in "
             f"the scenario: {', '.join(map(repr, codes[:_SHOW]))}"
-            f"{' ...' if len(codes) > _SHOW else ''} (first at row {row[unknown][0]}, stand "
-            f"{_plain(ids.iloc[int(np.flatnonzero(unknown)[0])])!r}); the scenario has "
+            f"{' ...' if len(codes) > _SHOW else ''} (first at row {rows.row[first]}, stand "
+            f"{_plain(rows.ids.iloc[first])!r}); the scenario has "
             f"[species] {', '.join(sorted(known))}"
         )
+    return species
 
-    si = _numeric(frame[fields.site_index], fields.site_index, row, ids, where)
+
+def _site_index(
+    col: pd.Series, name: str, rows: _Rows, fill: np.ndarray | None, scenario: Scenario
+) -> tuple[np.ndarray, np.ndarray]:
+    """Site indices (the layer's, filled or replaced from a raster's ``fill``) and where each
+    came from: present, finite, > 0 and no taller than any tree; a warning above the usual."""
+    si = _numeric(col, name, rows.row, rows.ids, rows.where)
     source = np.full(len(si), "layer", dtype=object)
     hint = ""
-    if site_fill is not None:
-        raster_si = site_fill(geoms, crs)
-        use = np.isfinite(raster_si) & (scenario.inventory.raster_wins | np.isnan(si))
-        si = np.where(use, raster_si, si)
+    if fill is not None:
+        use = np.isfinite(fill) & (scenario.inventory.raster_wins | np.isnan(si))
+        si = np.where(use, fill, si)
         source[use] = "raster"
         source[np.isnan(si)] = "none"
         hint = " and no site index raster value"
-        how = "raster wins" if scenario.inventory.raster_wins else "gaps filled"
-        notes.append(
-            f"site index from {scenario.inventory.from_raster.site_index}: "
-            f"{int(use.sum())} stands ({how})"
-        )
-    _fail_rows(np.isnan(si), row, ids, where, f"field {fields.site_index!r}: null site index{hint}")
-    _fail_rows(
-        si <= 0, row, ids, where, f"field {fields.site_index!r}: site index must be > 0", values=si
-    )
-    _fail_rows(np.isinf(si), row, ids, where, f"field {fields.site_index!r}: not a finite number")
-    _fail_rows(
+    rows.fail(np.isnan(si), f"field {name!r}: null site index{hint}")
+    rows.fail(si <= 0, f"field {name!r}: site index must be > 0", values=si)
+    rows.fail(np.isinf(si), f"field {name!r}: not a finite number")
+    rows.fail(
         si > MAX_SITE_INDEX_M,
-        row,
-        ids,
-        where,
-        f"field {fields.site_index!r}: site index above {MAX_SITE_INDEX_M:g} m, taller than any "
-        "tree; site index is in metres",
+        f"field {name!r}: site index above {MAX_SITE_INDEX_M:g} m, taller than any tree; site "
+        "index is in metres",
         values=si,
     )
-    tall = si > USUAL_SITE_INDEX_M
-    if tall.any():
-        warnings.append(
-            f"{where}: {_rows_text(tall, row, ids, si)}: {int(tall.sum())} stands have a site "
-            f"index above {USUAL_SITE_INDEX_M:g} m, rare even on the best sites; site index "
-            f"is in metres (field {fields.site_index!r} in feet?)"
-        )
-    for code, cfg in scenario.species.items():
+    rows.warn(
+        si > USUAL_SITE_INDEX_M,
+        si,
+        f"stands have a site index above {USUAL_SITE_INDEX_M:g} m, rare even on the best "
+        f"sites; site index is in metres (field {name!r} in feet?)",
+    )
+    return si, source
+
+
+def _site_ranges(
+    si: np.ndarray, species: pd.Series, name: str, rows: _Rows, scenario: Scenario
+) -> None:
+    """Each stand's site index inside its species' curve range, where one is given."""
+    for code, cfg in scenario.species.items():  # per species
         mine = (species == code).to_numpy()
         lo = -np.inf if cfg.site_index_min_m is None else cfg.site_index_min_m
         hi = np.inf if cfg.site_index_max_m is None else cfg.site_index_max_m
-        out = mine & ((si < lo) | (si > hi))
-        _fail_rows(
-            out,
-            row,
-            ids,
-            where,
-            f"field {fields.site_index!r}: site index outside the range of the "
+        rows.fail(
+            mine & ((si < lo) | (si > hi)),
+            f"field {name!r}: site index outside the range of the "
             f"{code!r} curve [{cfg.site_index_min_m}, {cfg.site_index_max_m}] m "
             f"(species.{code}.site_index_min_m / site_index_max_m)",
             values=si,
         )
 
-    if fields.zone is not None:
-        zone = frame[fields.zone].astype(object).where(frame[fields.zone].notna(), None)
-        zone = zone.map(lambda z: None if z is None else str(z))
-    else:
-        zone = pd.Series([None] * len(frame), dtype=object)
 
-    table = pd.DataFrame(
-        {
-            "stand_id": ids.to_numpy(),
-            "species": species.to_numpy(dtype=object),
-            "site_index": si,
-            "age_years": age,
-            "zone": zone.to_numpy(dtype=object),
-            "area_ha": area_ha,
-            "site_index_source": source,
-        }
-    )
-    others = [c for c in have if c not in mapping.values()]
-    for col in others:
-        name = col if col not in table.columns else f"input_{col}"
-        table[name] = frame[col].to_numpy()
-    stands = gpd.GeoDataFrame(table, geometry=gpd.GeoSeries(geoms, crs=crs).values, crs=crs)
+def _zones(frame: gpd.GeoDataFrame, field_name: str | None) -> np.ndarray:
+    """Zone names as text (None where missing, or without a zone field)."""
+    if field_name is None:
+        return np.array([None] * len(frame), dtype=object)
+    col = frame[field_name]
+    zone = col.astype(object).where(col.notna(), None)
+    return zone.map(lambda z: None if z is None else str(z)).to_numpy(dtype=object)
 
+
+def _report(
+    stands: gpd.GeoDataFrame,
+    crs: pyproj.CRS,
+    method: str,
+    repaired: int,
+    notes: list[str],
+    warnings: list[str],
+) -> CheckReport:
+    area_ha = stands["area_ha"].to_numpy()
     by_species = stands.groupby("species")["area_ha"].sum()
+    age = stands["age_years"].to_numpy()
     cls = (np.floor(age / AGE_CLASS_YEARS) * AGE_CLASS_YEARS).astype(int)
     by_class = pd.Series(area_ha).groupby(cls).sum().sort_index()
-    report = CheckReport(
+    return CheckReport(
         stands=len(stands),
         area_ha=float(area_ha.sum()),
         crs=crs.to_string(),
@@ -298,7 +337,6 @@ def prepare_inventory(
             f"{k}-{k + AGE_CLASS_YEARS - 1}": float(v) for k, v in by_class.items()
         },
     )
-    return Inventory(stands, report)
 
 
 def _crs(frame: gpd.GeoDataFrame, scenario: Scenario, where: str) -> pyproj.CRS:

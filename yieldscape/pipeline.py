@@ -13,9 +13,6 @@ the run's log, and gives the results to the writer (:mod:`yieldscape.publish`).
 from __future__ import annotations
 
 import logging
-import time
-from collections.abc import Iterator
-from contextlib import contextmanager
 from dataclasses import dataclass, replace
 from pathlib import Path
 
@@ -64,6 +61,7 @@ from yieldscape.reporting.indicators import (
     stand_ages_table,
 )
 from yieldscape.results import CheckResult, CurvesResult, RunResult
+from yieldscape.runlog import Timer, captured_log, named_lines
 from yieldscape.schedule import HarvestRules, SpatialRules, lp_plan, schedule, stable_periods_for
 from yieldscape.schedule.cover import CoverRules, cover_report, cover_rules
 from yieldscape.schedule.eligibility import never_cut_warnings, too_large_for_openings
@@ -72,19 +70,6 @@ from yieldscape.schedule.montecarlo import monte_carlo_table
 from yieldscape.schedule.spatial import check_openings, openings_table
 
 log = logging.getLogger("yieldscape")
-
-
-class _Timer:
-    def __init__(self) -> None:
-        self.timings: dict[str, float] = {}
-
-    @contextmanager
-    def stage(self, name: str) -> Iterator[None]:
-        log.info("%s ...", name)
-        t0 = time.perf_counter()
-        yield
-        self.timings[name] = round(time.perf_counter() - t0, 4)
-        log.info("%s done in %.2f s", name, self.timings[name])
 
 
 def _warn(messages: list[str] | tuple[str, ...]) -> None:
@@ -171,7 +156,7 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
             raise InputError(f"[[sensitivity]] name {name!r} is the name of an output file")
     if out is not None:
         check_output_dir(out, MANAGED)  # before the long stages, not after
-    with _captured_log() as capture:
+    with captured_log() as capture:
         result = _project(scenario, strict)
         result.out_dir, result.log = out, capture.lines
         result.warnings = tuple(capture.warnings)  # this run's own, not its cases'
@@ -195,7 +180,7 @@ def _run_cases(scenario: Scenario, result: RunResult, strict: bool) -> None:
                 ", ".join(f"{k} = {v!r}" for k, v in sets.items()),
             )
         log.info("sensitivity case %r (%d of %d) ...", name, n, len(scenario.sensitivity))
-        with _named_lines(f"case {name!r}: "):
+        with named_lines(f"case {name!r}: "):
             result.cases[name] = run(case, None, strict=strict)
 
 
@@ -220,7 +205,7 @@ class _Schedule:
 
 def _project(scenario: Scenario, strict: bool) -> RunResult:
     """Everything of a run but writing: check, project, schedule, tables, indicators."""
-    timer = _Timer()
+    timer = Timer()
     with timer.stage("read and check inventory"):
         inventory = check(scenario, strict=strict)
     model = _model(scenario, inventory)
@@ -273,7 +258,7 @@ def _harvest_rules(scenario: Scenario, inventory: CheckResult, periods: Periods)
     h = scenario.harvest
     spatial = None
     if h.spatial:
-        with _Timer().stage("adjacency graph"):
+        with Timer().stage("adjacency graph"):
             inv = scenario.inventory
             adj, hit = stand_adjacency(
                 inventory.stands, inv.path, inv.layer, h.adjacency, h.separation_m
@@ -290,9 +275,7 @@ def _harvest_rules(scenario: Scenario, inventory: CheckResult, periods: Periods)
     )
 
 
-def _schedule(
-    scenario: Scenario, inventory: CheckResult, model: _Model, timer: _Timer
-) -> _Schedule:
+def _schedule(scenario: Scenario, inventory: CheckResult, model: _Model, timer: Timer) -> _Schedule:
     """The flow policy's schedule (or the LP's plan mapped onto stands), the LP beside it,
     what the spatial rules cost and the openings they leave."""
     rules = _harvest_rules(scenario, inventory, model.periods)
@@ -380,63 +363,6 @@ def _indicators(scenario: Scenario, model: _Model, sched: _Schedule, result: Run
     result.curves, result.curve_summaries = curves_table(scenario, stands)
 
 
-# ----------------------------------------------------------------------------- the run's log
-@contextmanager
-def _named_lines(prefix: str) -> Iterator[None]:
-    """Begin every yieldscape log line with ``prefix`` while the block runs, so that a
-    sensitivity case's lines (its warnings, its verdict) say whose they are."""
-
-    def name(record: logging.LogRecord) -> bool:
-        record.msg, record.args = prefix + record.getMessage(), ()
-        return True
-
-    logger = logging.getLogger("yieldscape")
-    logger.addFilter(name)
-    try:
-        yield
-    finally:
-        logger.removeFilter(name)
-
-
-class _LogLines(logging.Handler):
-    """Keeps the formatted records of a run in a list."""
-
-    def __init__(self) -> None:
-        super().__init__(logging.INFO)
-        self.lines: list[str] = []
-        self.warnings: list[str] = []  # the messages of WARNING records and above
-        self.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
-
-    def emit(self, record: logging.LogRecord) -> None:
-        self.lines.append(self.format(record))
-        if record.levelno >= logging.WARNING:
-            self.warnings.append(record.getMessage())
-
-
-@contextmanager
-def _captured_log() -> Iterator[_LogLines]:
-    """Collect the yieldscape logger's INFO and higher records while the block runs. A library
-    caller who configured no logging still sees warnings on stderr, as without capture."""
-    logger = logging.getLogger("yieldscape")
-    capture = _LogLines()
-    extra: list[logging.Handler] = [capture]
-    if not logger.handlers and not logging.getLogger().handlers:
-        warn = logging.StreamHandler()
-        warn.setLevel(logging.WARNING)
-        extra.append(warn)
-    level = logger.level
-    if logger.getEffectiveLevel() > logging.INFO:
-        logger.setLevel(logging.INFO)
-    for h in extra:
-        logger.addHandler(h)
-    try:
-        yield capture
-    finally:
-        for h in extra:
-            logger.removeHandler(h)
-        logger.setLevel(level)
-
-
 # ----------------------------------------------------------------------------- curves, compare
 def curves(
     scenario: Scenario, out_dir: str | Path | None = None, site_step_m: float = 1.0
@@ -447,7 +373,7 @@ def curves(
     if out is not None:
         check_files_dir(out)
     inventory = check(scenario)
-    with _Timer().stage("curves report"):
+    with Timer().stage("curves report"):
         table, summaries = curves_table(scenario, inventory.stands, site_step_m)
     files = write_curves(out, scenario, table, summaries) if out is not None else []
     return CurvesResult(table, curve_notes(table), files)

@@ -297,11 +297,6 @@ def regulated_growing_stock_m3(
     return float(np.dot(np.bincount(inv.ravel(), area_ha[ok], len(uniq)), mean_v))
 
 
-def ages_by_period(age_years: NDArray, periods: Periods) -> NDArray[np.float64]:
-    """Ages of unharvested stands at each period start and at the horizon end, shape (n, P+1)."""
-    return age_years[:, None] + periods.period_years * np.arange(periods.count + 1)[None, :]
-
-
 def zone_codes(stands: pd.DataFrame) -> NDArray[np.int64]:
     """Integer code of each stand's zone, in sorted order of the zone names ('' for none)."""
     names = stands["zone"].fillna("").astype(str).to_numpy()

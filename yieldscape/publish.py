@@ -257,19 +257,33 @@ def write_rasters(result: RunResult, scenario: Scenario, directory: Path) -> Non
         )
 
 
+class _Figures(dict):
+    """The run's figures by key, each a PNG in ``directory`` with its title and caption."""
+
+    def __init__(self, directory: Path) -> None:
+        super().__init__()
+        self.directory = directory
+
+    def add(self, key: str, title: str, caption: str) -> Path:
+        path = self.directory / f"{key}.png"
+        self[key] = Figure(path, title, caption)
+        return path
+
+
 def write_figures(result: RunResult, scenario: Scenario, directory: Path) -> dict[str, Figure]:
     """The run's figures as PNG files; returns them by key with title and caption."""
     directory.mkdir(exist_ok=True)
-    wf = result.wood_flow
-    verdict = result.verdict
+    figs = _Figures(directory)
+    _flow_figures(result, scenario, figs)
+    _structure_figures(result, scenario, figs)
+    _other_figures(result, scenario, figs)
+    return dict(figs)
+
+
+def _flow_figures(result: RunResult, scenario: Scenario, figs: _Figures) -> None:
+    """The harvest forecast and the growing stock."""
+    wf, verdict, add = result.wood_flow, result.verdict, figs.add
     assert verdict is not None
-    figs: dict[str, Figure] = {}
-
-    def add(key: str, title: str, caption: str) -> Path:
-        path = directory / f"{key}.png"
-        figs[key] = Figure(path, title, caption)
-        return path
-
     f = scenario.flow
     show_range = f.policy == "even" and f.band > 0 and f.method == "rules"
     failing = next(
@@ -302,6 +316,11 @@ def write_figures(result: RunResult, scenario: Scenario, directory: Path) -> dic
         wf,
         result.regulated_hlb_stock_m3,
     )
+
+
+def _structure_figures(result: RunResult, scenario: Scenario, figs: _Figures) -> None:
+    """Age classes, cover targets and the map of when each stand is first cut."""
+    wf, add = result.wood_flow, figs.add
     age_class_figure(
         add(
             "age_classes",
@@ -346,6 +365,11 @@ def write_figures(result: RunResult, scenario: Scenario, directory: Path) -> dic
     )
     if note:
         figs["harvest_map"] = Figure(path, "Where and when", f"{caption} {note}")
+
+
+def _other_figures(result: RunResult, scenario: Scenario, figs: _Figures) -> None:
+    """The disturbance replicates and the yield curves."""
+    wf, add = result.wood_flow, figs.add
     if result.monte_carlo is not None:
         monte_carlo_figure(
             add(
@@ -375,7 +399,6 @@ def write_figures(result: RunResult, scenario: Scenario, directory: Path) -> dic
             summary,
             age,
         )
-    return figs
 
 
 def _stand_grid_for_map(result: RunResult):  # noqa: ANN202

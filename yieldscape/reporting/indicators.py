@@ -371,52 +371,65 @@ def judge(
     """
     wf = wood_flow
     P = len(wf)
-    L = scenario.scenario.period_years
-    policy = flow_policy(flow.policy).label
-    checks: list[Check] = []
+    k = max(1, min(long_term_periods, P))
+    checks = [
+        _policy_check(wf, flow),
+        _ending_check(wf, scenario.flow.ending_stock),
+        _stock_check(wf, k, regulated_hlb_stock_m3),
+        _ltsy_check(wf, k, ltsy_m3_per_year),
+    ]
+    if cover is not None and len(cover):
+        checks.append(_cover_check(cover))
+    return _verdict(checks, wf, flow, P * scenario.scenario.period_years)
 
+
+def _policy_check(wf: pd.DataFrame, flow: FlowResult) -> Check:
+    """Every period meets what the flow policy requires of it."""
+    P = len(wf)
+    policy = flow_policy(flow.policy).label
     short = ~wf["meets_policy"].to_numpy(dtype=bool)
     if short.any():
         p = int(np.flatnonzero(short)[0])
         row = wf.iloc[p]
-        checks.append(
-            Check(
-                "flow_policy_held",
-                False,
-                f"the harvest falls short of the {policy} in {int(short.sum())} of {P} "
-                f"periods, first in period {p + 1} ({int(row['start_year'])}-"
-                f"{int(row['end_year'])}): {row['harvest_m3']:,.0f} m3 of the "
-                f"{row['policy_required_m3']:,.0f} m3 required",
-                p + 1,
-            )
+        return Check(
+            "flow_policy_held",
+            False,
+            f"the harvest falls short of the {policy} in {int(short.sum())} of {P} "
+            f"periods, first in period {p + 1} ({int(row['start_year'])}-"
+            f"{int(row['end_year'])}): {row['harvest_m3']:,.0f} m3 of the "
+            f"{row['policy_required_m3']:,.0f} m3 required",
+            p + 1,
         )
     else:
-        checks.append(
-            Check(
-                "flow_policy_held",
-                True,
-                f"the harvest meets the {policy} in all {P} periods "
-                f"({wf['harvest_m3_per_year'].min():,.0f} to "
-                f"{wf['harvest_m3_per_year'].max():,.0f} m3/year)",
-            )
+        return Check(
+            "flow_policy_held",
+            True,
+            f"the harvest meets the {policy} in all {P} periods "
+            f"({wf['harvest_m3_per_year'].min():,.0f} to "
+            f"{wf['harvest_m3_per_year'].max():,.0f} m3/year)",
         )
 
+
+def _ending_check(wf: pd.DataFrame, need: float) -> Check:
+    """The ending growing stock meets flow.ending_stock."""
+    P = len(wf)
     gs0 = float(wf["growing_stock_start_m3"].iloc[0])
     gs1 = float(wf["growing_stock_end_m3"].iloc[-1])
-    need = scenario.flow.ending_stock
     ratio = gs1 / gs0 if gs0 > 0 else float("nan")
     ok = gs1 >= need * gs0 * (1 - 1e-6)
-    checks.append(
-        Check(
-            "ending_growing_stock",
-            bool(ok),
-            f"the growing stock ends at {gs1:,.0f} m3, {100 * ratio:.1f}% of the initial "
-            f"{gs0:,.0f} m3 (flow.ending_stock requires {100 * need:.0f}%)",
-            None if ok else P,
-        )
+    return Check(
+        "ending_growing_stock",
+        bool(ok),
+        f"the growing stock ends at {gs1:,.0f} m3, {100 * ratio:.1f}% of the initial "
+        f"{gs0:,.0f} m3 (flow.ending_stock requires {100 * need:.0f}%)",
+        None if ok else P,
     )
 
-    k = max(1, min(long_term_periods, P))
+
+def _stock_check(wf: pd.DataFrame, k: int, regulated_hlb_stock_m3: float) -> Check:
+    """The harvestable stock is not falling over the last k periods, or ends at least at a
+    regulated forest's."""
+    P = len(wf)
     hlb = wf["hlb_growing_stock_end_m3"].to_numpy()
     ref = float(wf["hlb_growing_stock_start_m3"].iloc[P - k])
     change = hlb[-1] / ref - 1 if ref > 0 else 0.0
@@ -437,55 +450,57 @@ def judge(
     below = np.flatnonzero(
         (hlb < regulated_hlb_stock_m3 * (1 - STOCK_TOLERANCE)) & (np.r_[np.inf, hlb[:-1]] > hlb)
     )
-    checks.append(
-        Check(
-            "harvestable_stock_kept",
-            bool(ok),
-            detail,
-            None if ok else int(below[0] + 1) if len(below) else P,
-        )
+    return Check(
+        "harvestable_stock_kept",
+        bool(ok),
+        detail,
+        None if ok else int(below[0] + 1) if len(below) else P,
     )
 
+
+def _ltsy_check(wf: pd.DataFrame, k: int, ltsy_m3_per_year: float) -> Check:
+    """The harvest of the last k periods is within the long-term sustained yield."""
+    P = len(wf)
     lt = wf["harvest_m3_per_year"].to_numpy()[P - k :]
     lt_mean = float(lt.mean())
     ok = lt_mean <= ltsy_m3_per_year * (1 + 1e-6)
     over = np.flatnonzero(lt > ltsy_m3_per_year * (1 + 1e-6))
     share = lt_mean / ltsy_m3_per_year if ltsy_m3_per_year > 0 else float("inf")
-    checks.append(
-        Check(
-            "within_long_term_sustained_yield",
-            bool(ok),
-            f"the harvest of the last {k} periods, {lt_mean:,.0f} m3/year, is "
-            f"{100 * share:.0f}% of the long-term sustained yield of "
-            f"{ltsy_m3_per_year:,.0f} m3/year"
-            + ("" if ok else ", so it cannot be held beyond the horizon"),
-            None if ok or not len(over) else int(P - k + over[0] + 1),
-        )
+    return Check(
+        "within_long_term_sustained_yield",
+        bool(ok),
+        f"the harvest of the last {k} periods, {lt_mean:,.0f} m3/year, is "
+        f"{100 * share:.0f}% of the long-term sustained yield of "
+        f"{ltsy_m3_per_year:,.0f} m3/year"
+        + ("" if ok else ", so it cannot be held beyond the horizon"),
+        None if ok or not len(over) else int(P - k + over[0] + 1),
     )
 
-    if cover is not None and len(cover):
-        bad = cover[~cover["met"].astype(bool)]
-        if len(bad):
-            first = bad.sort_values("period").iloc[0]
-            checks.append(
-                Check(
-                    "cover_targets_met",
-                    False,
-                    f"{len(bad)} target-periods miss their cover target, first in period "
-                    f"{int(first['period'])}: zone {first['zone']} {first['rule']} reaches "
-                    f"{100 * first['share']:.1f}%",
-                    int(first["period"]),
-                )
-            )
-        else:
-            n = int(len(cover.groupby(["zone", "rule"])))
-            which = {1: "the cover target holds", 2: "both cover targets hold"}.get(
-                n, f"all {n} cover targets hold"
-            )
-            checks.append(Check("cover_targets_met", True, f"{which} in every period"))
 
+def _cover_check(cover: pd.DataFrame) -> Check:
+    """Every cover target holds in every period."""
+    bad = cover[~cover["met"].astype(bool)]
+    if len(bad):
+        first = bad.sort_values("period").iloc[0]
+        return Check(
+            "cover_targets_met",
+            False,
+            f"{len(bad)} target-periods miss their cover target, first in period "
+            f"{int(first['period'])}: zone {first['zone']} {first['rule']} reaches "
+            f"{100 * first['share']:.1f}%",
+            int(first["period"]),
+        )
+    n = int(len(cover.groupby(["zone", "rule"])))
+    which = {1: "the cover target holds", 2: "both cover targets hold"}.get(
+        n, f"all {n} cover targets hold"
+    )
+    return Check("cover_targets_met", True, f"{which} in every period")
+
+
+def _verdict(checks: list[Check], wf: pd.DataFrame, flow: FlowResult, horizon: int) -> Verdict:
+    """The headline and the statement from the checks."""
+    policy = flow_policy(flow.policy).label
     sustainable = all(c.holds for c in checks)
-    horizon = P * L
     level = (
         f"the {policy} of {flow.level_m3_per_year:,.0f} m3/year"
         if flow.policy in ("even", "optimize")
@@ -527,7 +542,6 @@ def horizon_indicators(
     P = len(wf)
     L = scenario.scenario.period_years
     h = wf["harvest_m3"].to_numpy()
-    ha = wf["harvest_ha"].to_numpy()
     rows: list[tuple[str, float, str]] = [
         ("horizon_years", P * L, "years"),
         ("gross_area_ha", gross_ha, "ha"),
@@ -539,6 +553,24 @@ def horizon_indicators(
         rows.append(
             (f"{name}_m3_per_year", float(wf["harvest_m3_per_year"].iloc[rows_].mean()), "m3/year")
         )
+    rows += _harvest_rows(wf, flow, ltsy)
+    rows += _stock_rows(wf, regulated_hlb_stock_m3, verdict)
+    rows += _optional_rows(wf, flow, L, lp, monte_carlo)
+    frame = pd.DataFrame(rows, columns=["indicator", "value", "unit"])
+    frame["meaning"] = frame["indicator"].map(MEANINGS)
+    frame["label"] = frame["indicator"].map(LABELS)
+    return frame
+
+
+Row = tuple[str, float, str]
+
+
+def _harvest_rows(wf: pd.DataFrame, flow: FlowResult, ltsy: dict[str, float]) -> list[Row]:
+    """Harvest totals and means, against the long-term sustained yield; the largest change."""
+    P = len(wf)
+    h = wf["harvest_m3"].to_numpy()
+    ha = wf["harvest_ha"].to_numpy()
+    rows: list[Row] = []
     culm = ltsy.get("at_culmination", float("nan"))
     rows += [
         ("total_harvest_m3", float(h.sum()), "m3"),
@@ -569,12 +601,18 @@ def horizon_indicators(
             ("largest_drop_period", float(j + 1) if drop > 0 else np.nan, "period"),
             ("largest_increase", rise if rise > 1e-9 else 0.0, "fraction"),
         ]
+    return rows
+
+
+def _stock_rows(wf: pd.DataFrame, regulated_hlb_stock_m3: float, verdict: Verdict) -> list[Row]:
+    """Growing stock at the start and the end, growth, disturbance and the verdict."""
+    h = wf["harvest_m3"].to_numpy()
     gs0 = float(wf["growing_stock_start_m3"].iloc[0])
     gs1 = float(wf["growing_stock_end_m3"].iloc[-1])
     hlb0 = float(wf["hlb_growing_stock_start_m3"].iloc[0])
     hlb1 = float(wf["hlb_growing_stock_end_m3"].iloc[-1])
     growth = float(wf["net_growth_m3"].sum())
-    rows += [
+    return [
         ("initial_growing_stock_m3", gs0, "m3"),
         ("ending_growing_stock_m3", gs1, "m3"),
         ("ending_to_initial_growing_stock", gs1 / gs0 if gs0 > 0 else np.nan, "fraction"),
@@ -589,6 +627,19 @@ def horizon_indicators(
         ("periods_meeting_policy", float(wf["meets_policy"].sum()), "periods"),
         ("sustainable", float(verdict.sustainable), "1 = yes"),
     ]
+
+
+def _optional_rows(
+    wf: pd.DataFrame,
+    flow: FlowResult,
+    L: int,
+    lp: dict | None,
+    monte_carlo: pd.DataFrame | None,
+) -> list[Row]:
+    """Revenue, the spatial rules' cost, the LP and the disturbance risk, where they apply
+    (``L``: the period length [years])."""
+    P = len(wf)
+    rows: list[Row] = []
     if wf["net_revenue"].notna().all():
         rows.append(("total_net_revenue", float(wf["net_revenue"].sum()), "currency"))
     if wf["discounted_net_revenue"].notna().all():
@@ -614,7 +665,4 @@ def horizon_indicators(
                 "fraction",
             )
         )
-    frame = pd.DataFrame(rows, columns=["indicator", "value", "unit"])
-    frame["meaning"] = frame["indicator"].map(MEANINGS)
-    frame["label"] = frame["indicator"].map(LABELS)
-    return frame
+    return rows

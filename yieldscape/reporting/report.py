@@ -10,6 +10,7 @@ from __future__ import annotations
 import base64
 import html
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -359,27 +360,14 @@ def sections(data: ReportData) -> list[Section]:
     verdict, the key numbers and the caution, then the run's warnings; the checks and the
     rest follow."""
     v = data.verdict
-    first: list[Block] = [
-        v.headline,
-        f"What stops a higher level: {v.limited_by}.",
-        Table(key_numbers(data), "Key numbers (indicators.csv has them all).", boxed=True),
-    ]
-    first.append(CAUTION)
-    if data.warnings:  # after the caution, which the first screen must hold
-        first.append(Items("Warnings", tuple(data.warnings)))
-    out = [Section("Verdict", first)]
+    out = [_first_screen(data)]
     out.append(
         Section(
             "Checks of the verdict",
             [Table(_shown(v.table(), CHECK_SHOWN), "Methods: docs/methods.md, the verdict.")],
         )
     )
-    figs = data.figures
-    main = Section("Harvest and growing stock")
-    for key in ("harvest_forecast", "growing_stock"):
-        if key in figs:
-            main.blocks.append(figs[key])
-    out.append(main)
+    out.append(_figures("Harvest and growing stock", data, ("harvest_forecast", "growing_stock")))
     out.append(Section("Scenario", [Table(_scenario_table(data))]))
     out.append(
         Section(
@@ -392,71 +380,14 @@ def sections(data: ReportData) -> list[Section]:
             ],
         )
     )
-    out.append(
-        Section(
-            "Growth curves and rotations",
-            [
-                Table(
-                    data.rotations.rename(columns=ROTATION_HEADERS),
-                    "Per species, area-weighted over the site index values in use "
-                    "(ages in years, MAI in m3/ha/yr).",
-                ),
-                Table(
-                    data.curves.rename(columns=ROTATION_HEADERS),
-                    "Per species and site index (1 m steps; curves.csv has the same columns).",
-                    collapsed=True,
-                ),
-            ],
-        )
-    )
-    shown = data.wood_flow[[c for c in WOOD_FLOW_SHOWN if c in data.wood_flow]]
-    if shown["discounted_net_revenue"].isna().all():
-        shown = shown.drop(columns="discounted_net_revenue")
-    out.append(
-        Section(
-            "Indicators",
-            [
-                Table(
-                    _shown(data.indicators, INDICATORS_SHOWN),
-                    "Over the whole horizon (indicators.csv).",
-                ),
-                Table(
-                    shown.rename(columns=WOOD_FLOW_SHOWN),
-                    "By period, years from and to inclusive (wood_flow.csv has every column).",
-                ),
-            ],
-        )
-    )
-    forest = Section("Forest structure")
-    for key in ("age_classes", "cover_targets", "harvest_map"):
-        if key in figs:
-            forest.blocks.append(figs[key])
-    if data.breakdown is not None and len(data.breakdown):
-        by = (
-            data.breakdown.groupby(["zone", "species"], dropna=False)[["harvest_ha", "harvest_m3"]]
-            .sum()
-            .reset_index()
-        )
-        forest.blocks.append(
-            Table(_shown(by, BREAKDOWN_SHOWN), "Harvest over the horizon by zone and species.")
-        )
-    out.append(forest)
-    if "monte_carlo" in figs:
-        out.append(Section("Disturbance risk", [figs["monte_carlo"]]))
+    out.append(_rotations(data))
+    out.append(_indicator_tables(data))
+    out.append(_structure(data))
+    if "monte_carlo" in data.figures:
+        out.append(Section("Disturbance risk", [data.figures["monte_carlo"]]))
     if data.comparison is not None:
-        block: list[Block] = [
-            Table(
-                _shown(data.comparison, CASES_SHOWN),
-                "The base case and each [[sensitivity]] case, with its verdict.",
-            )
-        ]
-        if "comparison" in figs:
-            block.append(figs["comparison"])
-        out.append(Section("Sensitivity cases", block))
-    curves = Section("Growth curves")
-    for key, fig in figs.items():
-        if key.startswith("curves_"):
-            curves.blocks.append(fig)
+        out.append(_cases(data))
+    curves = _figures("Growth curves", data, [k for k in data.figures if k.startswith("curves_")])
     if curves.blocks:
         out.append(curves)
     out.append(
@@ -471,6 +402,88 @@ def sections(data: ReportData) -> list[Section]:
         )
     )
     return out
+
+
+def _first_screen(data: ReportData) -> Section:
+    v = data.verdict
+    first: list[Block] = [
+        v.headline,
+        f"What stops a higher level: {v.limited_by}.",
+        Table(key_numbers(data), "Key numbers (indicators.csv has them all).", boxed=True),
+        CAUTION,
+    ]
+    if data.warnings:  # after the caution, which the first screen must hold
+        first.append(Items("Warnings", tuple(data.warnings)))
+    return Section("Verdict", first)
+
+
+def _figures(title: str, data: ReportData, keys: Sequence[str]) -> Section:
+    """A section of the figures of ``keys`` the run drew, in that order."""
+    return Section(title, [data.figures[k] for k in keys if k in data.figures])
+
+
+def _rotations(data: ReportData) -> Section:
+    return Section(
+        "Growth curves and rotations",
+        [
+            Table(
+                data.rotations.rename(columns=ROTATION_HEADERS),
+                "Per species, area-weighted over the site index values in use "
+                "(ages in years, MAI in m3/ha/yr).",
+            ),
+            Table(
+                data.curves.rename(columns=ROTATION_HEADERS),
+                "Per species and site index (1 m steps; curves.csv has the same columns).",
+                collapsed=True,
+            ),
+        ],
+    )
+
+
+def _indicator_tables(data: ReportData) -> Section:
+    shown = data.wood_flow[[c for c in WOOD_FLOW_SHOWN if c in data.wood_flow]]
+    if shown["discounted_net_revenue"].isna().all():
+        shown = shown.drop(columns="discounted_net_revenue")
+    return Section(
+        "Indicators",
+        [
+            Table(
+                _shown(data.indicators, INDICATORS_SHOWN),
+                "Over the whole horizon (indicators.csv).",
+            ),
+            Table(
+                shown.rename(columns=WOOD_FLOW_SHOWN),
+                "By period, years from and to inclusive (wood_flow.csv has every column).",
+            ),
+        ],
+    )
+
+
+def _structure(data: ReportData) -> Section:
+    forest = _figures("Forest structure", data, ("age_classes", "cover_targets", "harvest_map"))
+    if data.breakdown is not None and len(data.breakdown):
+        by = (
+            data.breakdown.groupby(["zone", "species"], dropna=False)[["harvest_ha", "harvest_m3"]]
+            .sum()
+            .reset_index()
+        )
+        forest.blocks.append(
+            Table(_shown(by, BREAKDOWN_SHOWN), "Harvest over the horizon by zone and species.")
+        )
+    return forest
+
+
+def _cases(data: ReportData) -> Section:
+    assert data.comparison is not None
+    block: list[Block] = [
+        Table(
+            _shown(data.comparison, CASES_SHOWN),
+            "The base case and each [[sensitivity]] case, with its verdict.",
+        )
+    ]
+    if "comparison" in data.figures:
+        block.append(data.figures["comparison"])
+    return Section("Sensitivity cases", block)
 
 
 STYLE = """

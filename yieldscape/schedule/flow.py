@@ -304,10 +304,10 @@ class FlowSettings(Protocol):
     long_term_periods: int | None
 
 
-Search = Callable[[StandArrays, CurveSet, Periods, HarvestRules, FlowSettings], FlowResult]
+FlowSearch = Callable[[StandArrays, CurveSet, Periods, HarvestRules, FlowSettings], FlowResult]
 
 # The searches of the flow-policy registry, by policy name (a test checks they match it).
-SEARCHES: dict[str, Search] = {
+SEARCHES: dict[str, FlowSearch] = {
     "even": lambda s, c, p, r, f: find_even_flow(s, c, p, r, f.band, f.ending_stock),
     "nondeclining": lambda s, c, p, r, f: find_nondeclining(s, c, p, r, f.ending_stock),
     "stepdown": lambda s, c, p, r, f: find_step_down(

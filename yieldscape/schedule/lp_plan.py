@@ -39,7 +39,7 @@ def harvest_lp(
     the stands' zone codes, ``cover`` the cover targets over them."""
     f = scenario.flow
     strata = make_strata(arrays, zones, f.lp_site_class_m, f.lp_age_class_years)
-    policy = "nondeclining" if f.policy == "nondeclining" else "even"
+    policy = f.policy  # wanted(): a policy of the registry the LP models (lp.FLOW_ROWS)
     # beside a rule-based run the LP bounds the schedule's total volume under the same flow rows
     objective = f.objective if f.method == "optimize" else "max-volume"
     econ = None
