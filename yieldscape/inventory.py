@@ -19,9 +19,18 @@ import shapely
 
 from yieldscape.config import MAX_AGE_YEARS, Scenario
 from yieldscape.errors import InventoryError
+from yieldscape.expressions import evaluate_where
 from yieldscape.geometry import invalid_mask, repair
 
-STANDARD_COLUMNS = ("stand_id", "species", "site_index", "age_years", "zone", "area_ha")
+STANDARD_COLUMNS = (
+    "stand_id",
+    "species",
+    "analysis_unit",
+    "site_index",
+    "age_years",
+    "zone",
+    "area_ha",
+)
 AGE_CLASS_YEARS = 20
 _SHOW = 5  # offending rows quoted in a message
 # A site index is a height at a base age: the tallest trees measured are about 116 m (from
@@ -119,7 +128,10 @@ def prepare_inventory(
     geoms, repaired = _geometries(frame.geometry.to_numpy(), rows, strict)
     area_ha, method = _areas(geoms, crs, rows)
     age = _ages(frame[fields.age], fields.age, rows, scenario.growth.max_age_years)
-    species = _species(frame[fields.species], fields.species, rows, scenario)
+    rows.fail(frame[fields.species].isna().to_numpy(), f"field {fields.species!r}: null species")
+    species = frame[fields.species].astype(str)
+    unit = _analysis_units(frame, mapping, species, age, scenario, where)
+    _known_codes(unit, fields.species, rows, scenario)
     notes: list[str] = []
     fill = None if site_fill is None else site_fill(geoms, crs)
     si, source = _site_index(frame[fields.site_index], fields.site_index, rows, fill, scenario)
@@ -129,11 +141,12 @@ def prepare_inventory(
             f"site index from {scenario.inventory.from_raster.site_index}: "
             f"{int((source == 'raster').sum())} stands ({how})"
         )
-    _site_ranges(si, species, fields.site_index, rows, scenario)
+    _site_ranges(si, unit, fields.site_index, rows, scenario)
     table = pd.DataFrame(
         {
             "stand_id": ids.to_numpy(),
             "species": species.to_numpy(dtype=object),
+            "analysis_unit": unit.to_numpy(dtype=object),
             "site_index": si,
             "age_years": age,
             "zone": _zones(frame, fields.zone),
@@ -233,14 +246,39 @@ def _ages(col: pd.Series, name: str, rows: _Rows, max_age_years: float) -> np.nd
     return age
 
 
-def _species(col: pd.Series, name: str, rows: _Rows, scenario: Scenario) -> pd.Series:
-    """Species codes as text, each with a [species.<CODE>] table."""
-    rows.fail(col.isna().to_numpy(), f"field {name!r}: null species")
-    species = col.astype(str)
+def _analysis_units(
+    frame: gpd.GeoDataFrame,
+    mapping: dict[str, str],
+    species: pd.Series,
+    age: np.ndarray,
+    scenario: Scenario,
+    where: str,
+) -> pd.Series:
+    """The code each stand grows as: that of the first ``[[inventory.analysis_units]]`` rule
+    it matches, else its species field's. Rules see the layer's fields and the standard names
+    (``species`` as text, ``age_years``)."""
+    units = scenario.inventory.analysis_units
+    code = species.copy()
+    if not units:
+        return code
+    fields = {c: frame[c] for c in frame.columns if c != frame.geometry.name}
+    fields |= {"species": species, "age_years": pd.Series(age, index=frame.index)}
+    for ours, theirs in mapping.items():
+        fields.setdefault(ours, frame[theirs])
+    taken = np.zeros(len(frame), dtype=bool)
+    for n, u in enumerate(units, start=1):  # in order: the first match wins
+        hit = evaluate_where(u.where, fields, f"{where}: [[inventory.analysis_units]] #{n}")
+        code[hit & ~taken] = u.species
+        taken |= hit
+    return code
+
+
+def _known_codes(code: pd.Series, name: str, rows: _Rows, scenario: Scenario) -> None:
+    """Every stand's code (its analysis unit, else its species) has a [species.<CODE>] table."""
     known = set(scenario.species)
-    unknown = ~species.isin(known).to_numpy()
+    unknown = ~code.isin(known).to_numpy()
     if unknown.any():
-        codes = sorted(set(species[unknown]))
+        codes = sorted(set(code[unknown]))
         first = int(np.flatnonzero(unknown)[0])
         assert rows.ids is not None
         raise InventoryError(
@@ -250,7 +288,6 @@ def _species(col: pd.Series, name: str, rows: _Rows, scenario: Scenario) -> pd.S
             f"{_plain(rows.ids.iloc[first])!r}); the scenario has "
             f"[species] {', '.join(sorted(known))}"
         )
-    return species
 
 
 def _site_index(
@@ -286,18 +323,18 @@ def _site_index(
 
 
 def _site_ranges(
-    si: np.ndarray, species: pd.Series, name: str, rows: _Rows, scenario: Scenario
+    si: np.ndarray, code: pd.Series, name: str, rows: _Rows, scenario: Scenario
 ) -> None:
-    """Each stand's site index inside its species' curve range, where one is given."""
-    for code, cfg in scenario.species.items():  # per species
-        mine = (species == code).to_numpy()
+    """Each stand's site index inside its code's curve range, where one is given."""
+    for c, cfg in scenario.species.items():  # per code
+        mine = (code == c).to_numpy()
         lo = -np.inf if cfg.site_index_min_m is None else cfg.site_index_min_m
         hi = np.inf if cfg.site_index_max_m is None else cfg.site_index_max_m
         rows.fail(
             mine & ((si < lo) | (si > hi)),
             f"field {name!r}: site index outside the range of the "
-            f"{code!r} curve [{cfg.site_index_min_m}, {cfg.site_index_max_m}] m "
-            f"(species.{code}.site_index_min_m / site_index_max_m)",
+            f"{c!r} curve [{cfg.site_index_min_m}, {cfg.site_index_max_m}] m "
+            f"(species.{c}.site_index_min_m / site_index_max_m)",
             values=si,
         )
 

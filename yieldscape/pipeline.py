@@ -60,6 +60,7 @@ from yieldscape.reporting.indicators import (
     revenue_by_period,
     stand_ages_table,
 )
+from yieldscape.reporting.tables import regeneration_table
 from yieldscape.results import CheckResult, CurvesResult, RunResult
 from yieldscape.runlog import Timer, captured_log, named_lines
 from yieldscape.schedule import HarvestRules, SpatialRules, lp_plan, schedule, stable_periods_for
@@ -300,11 +301,12 @@ def _schedule(scenario: Scenario, inventory: CheckResult, model: _Model, timer: 
             flow.details["spatial_cost_m3_per_period"] = aspatial - flow.level_m3_per_period
         sim = flow.simulation
         times = p.harvest_years - p.start_year
-        ev_t = times[sim.event_period - 1] if len(sim.event_period) else np.zeros(0)
+        clear = sim.event_treatment == 0  # thinnings open nothing
+        ev_t = times[sim.event_period[clear] - 1] if clear.any() else np.zeros(0)
         openings = openings_table(
-            sim.event_stand,
+            sim.event_stand[clear],
             ev_t,
-            sim.event_area_ha,
+            sim.event_area_ha[clear],
             times,
             rules.spatial.adjacency,
             rules.spatial.greenup_years,
@@ -326,7 +328,8 @@ def _tables(
         flow=flow,
         wood_flow=wood_flow_table(flow, p, lp_bound, revenue),
         stands=stands_layer(flow, inventory.stands, s, c, p),
-        harvests=harvests_layer(flow, inventory.stands, p),
+        harvests=harvests_layer(flow, inventory.stands, p, c.codes),
+        regeneration=regeneration_table(flow, c.codes),
         products=wood_flow_by_product(flow, s, c, scenario),
         write_harvestable_layer=scenario.landbase.write_harvestable_layer,
         long_term_sustained_yield=long_term_sustained_yield(c, s, scenario.growth.search()),
@@ -359,7 +362,7 @@ def _indicators(scenario: Scenario, model: _Model, sched: _Schedule, result: Run
         snaps, stands, p, rep.age_class_years, rep.age_class_width_years
     )
     result.stand_ages = stand_ages_table(snaps, stands, p, rep.age_class_years)
-    result.harvest_breakdown = harvest_breakdown(flow, stands, p)
+    result.harvest_breakdown = harvest_breakdown(flow, stands, p, model.curves.codes)
     result.curves, result.curve_summaries = curves_table(scenario, stands)
 
 

@@ -23,6 +23,7 @@ from yieldscape.config import Scenario
 from yieldscape.growth import TableYield, YieldCurve
 from yieldscape.growth.curves import _Parametric
 from yieldscape.growth.rules import Search, max_mai, min_harvest_ages
+from yieldscape.regimes import Regimes
 
 TIMING_OFFSET = {"start": 0.0, "midpoint": 0.5, "end": 1.0}  # share of a period
 
@@ -142,6 +143,10 @@ class CurveSet:
             max_age_years=max_age_years,
         )
 
+    def first_row(self, i: int) -> int:
+        """Row of code ``i``'s lowest site class in the tabulated curves."""
+        return self._first_row[i]
+
     def index(self, species: Sequence[str] | NDArray) -> NDArray[np.int32]:
         """Species codes -> positions in :attr:`codes`."""
         lookup = {c: i for i, c in enumerate(self.codes)}
@@ -222,6 +227,9 @@ class StandArrays:
     id_rank: NDArray[np.int64]  # rank of the stand id, the tie-breaker of every priority rule
     harvestable_ha: NDArray[np.float64] | None = None  # None: all of area_ha may be cut
     zone_idx: NDArray[np.int64] | None = None  # zone code per stand (cover targets)
+    regimes: Regimes | None = None  # transitions and thinnings (None: regrow as before)
+    # each code's minimum harvest age at each stand's site (codes x stands), for regrowth
+    min_age_by_code: NDArray[np.float64] | None = None
 
     @property
     def n(self) -> int:
@@ -230,7 +238,8 @@ class StandArrays:
     @classmethod
     def from_table(cls, stands: pd.DataFrame, scenario: Scenario, curves: CurveSet) -> StandArrays:
         """Build the arrays from a stand table with the standard columns."""
-        idx = curves.index(stands["species"].to_numpy())
+        code = stands["analysis_unit"] if "analysis_unit" in stands else stands["species"]
+        idx = curves.index(code.to_numpy())
         site = stands["site_index"].to_numpy(dtype=np.float64)
         delay = np.array([scenario.species[c].regen_delay_years for c in curves.codes])
         min_age = np.zeros(len(stands))
@@ -245,6 +254,8 @@ class StandArrays:
                     sp.money(scenario.economics),
                     scenario.growth.search(),
                 )
+        regimes = Regimes.from_scenario(scenario, curves)
+        by_code = regimes.min_age_by_code(scenario, curves, site) if regimes.changes else None
         ids = stands["stand_id"].to_numpy()
         rank = np.empty(len(ids), dtype=np.int64)
         rank[np.argsort(ids, kind="stable")] = np.arange(len(ids))
@@ -262,6 +273,8 @@ class StandArrays:
                 else None
             ),
             zone_idx=zone_codes(stands),
+            regimes=regimes if regimes.changes or regimes.thins else None,
+            min_age_by_code=by_code,
         )
 
 

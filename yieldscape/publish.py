@@ -51,6 +51,7 @@ INDICATORS_CSV = "indicators.csv"
 VERDICT_CSV = "verdict.csv"
 AGE_CLASSES_CSV = "age_classes.csv"
 BREAKDOWN_CSV = "harvest_by_zone_species.csv"
+REGENERATION_CSV = "regeneration.csv"
 COMPARISON_CSV = "comparison.csv"
 COMPARISON_PNG = "comparison.png"
 REPORT_HTML = "report.html"
@@ -74,6 +75,7 @@ MANAGED = frozenset(
         VERDICT_CSV,
         AGE_CLASSES_CSV,
         BREAKDOWN_CSV,
+        REGENERATION_CSV,
         COMPARISON_CSV,
         REPORT_HTML,
         REPORT_MD,
@@ -157,6 +159,7 @@ def write_tables(result: RunResult, directory: Path) -> None:
         (result.verdict.table(), "verdict", VERDICT_CSV),
         (result.age_classes, "age_classes", AGE_CLASSES_CSV),
         (result.harvest_breakdown, "harvest_by_zone_species", BREAKDOWN_CSV),
+        (result.regeneration, "regeneration", REGENERATION_CSV),
         (result.stand_ages, "stand_ages", None),
     ]
     for table, layer, csv in tables:

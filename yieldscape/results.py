@@ -50,6 +50,7 @@ class RunResult:
     stands: gpd.GeoDataFrame
     harvests: gpd.GeoDataFrame
     products: pd.DataFrame
+    regeneration: pd.DataFrame | None = None  # area regrown from each code into each code
     verdict: Verdict | None = None  # is the flow sustainable, and why
     indicators: pd.DataFrame | None = None  # one row per indicator over the horizon
     timings_s: dict[str, float] = field(default_factory=dict)

@@ -55,6 +55,7 @@ def test_sample_run_writes_its_outputs(sample_run):
         "openings.csv",
         "projection.gpkg",
         "rasters",
+        "regeneration.csv",
         "report.html",
         "report.md",
         "run.json",

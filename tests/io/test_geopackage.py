@@ -91,7 +91,7 @@ def test_layers_read_back_with_pyogrio(run_dir):
     gpkg = run_dir / "projection.gpkg"
     layers = dict(pyogrio.list_layers(gpkg))
     tables = {"wood_flow", "wood_flow_by_product", "netdown", "indicators", "verdict"}
-    tables |= {"age_classes", "harvest_by_zone_species", "stand_ages"}
+    tables |= {"age_classes", "harvest_by_zone_species", "stand_ages", "regeneration"}
     assert {name for name, kind in layers.items() if kind is None} == tables
     assert {"stands", "harvests", "harvests_period_01", "stands_age_2130"} <= set(layers)
     stands = pyogrio.read_dataframe(gpkg, layer="stands")
@@ -150,6 +150,7 @@ YEAR_COLUMNS = {  # every calendar-year and period column of the GeoPackage's ta
     "stand_ages": ("year",),
     "age_classes": ("year",),
     "harvest_by_zone_species": ("period", "start_year"),
+    "regeneration": ("period",),
     "verdict": ("first_failing_period",),
 }
 

@@ -9,6 +9,8 @@ from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from yieldscape.config.keys import (
     _EXPONENT_USUAL,
     _SITE_USUAL,
@@ -62,7 +64,7 @@ SECTIONS = (
 STEP_KINDS = ("where", "layer", "raster", "percent")
 _ALL_PARAMETERS = {k for keys in CURVE_PARAMETERS.values() for k in keys}
 _SITE_KEYS = {"site_index_ref_m", "site_exponent_a", "site_exponent_k"}
-_TABLE_KEYS = {"ages", "volumes_m3_ha", "table_csv", "site_classes_m"}
+_TABLE_KEYS = {"ages", "volumes_m3_ha", "table_csv", "site_classes_m", "thinning_m3_ha"}
 _TABLE_PARAMS = {"ages", "volumes_m3_ha", "site_classes_m"}  # what a table curve is built of
 
 
@@ -124,6 +126,16 @@ class RasterFill:
 
 
 @dataclass(frozen=True)
+class AnalysisUnit:
+    """``[[inventory.analysis_units]]``: stands matching ``where`` grow as ``species``."""
+
+    where: str = key(
+        "str", doc="Attribute rule over the stand layer's fields (as a land base where rule)."
+    )
+    species: str = key("str", doc="The code (a [species.<CODE>] table) the matching stands take.")
+
+
+@dataclass(frozen=True)
 class InventoryConfig:
     """``[inventory]``: the stand layer and how its fields map onto the tool's."""
 
@@ -137,6 +149,8 @@ class InventoryConfig:
         "bool", False, "", "Raster values replace layer values (else they fill gaps)."
     )
     from_raster: RasterFill = field(default_factory=RasterFill)
+    # [[inventory.analysis_units]], in order: a stand takes the code of the first it matches
+    analysis_units: tuple[AnalysisUnit, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -346,6 +360,43 @@ class GrowthConfig:
 
 
 @dataclass(frozen=True)
+class Regeneration:
+    """What a clearcut part of a code regrows as: ``kind`` "as" (one code), "split" (the cut
+    area splits in ``shares``) or "choice" (the harvest LP chooses among ``codes``; the
+    rule-based scheduler takes the first)."""
+
+    kind: str
+    codes: tuple[str, ...]
+    shares: tuple[float, ...]
+
+    def default_shares(self) -> tuple[tuple[str, float], ...]:
+        """(code, share) pairs the rule-based scheduler regrows a cut into."""
+        if self.kind == "choice":
+            return ((self.codes[0], 1.0),)
+        return tuple(zip(self.codes, self.shares, strict=True))
+
+
+@dataclass(frozen=True)
+class Thinning:
+    """``[[species.<CODE>.thinnings]]``: at ``age_years`` a share of the standing volume is
+    removed; the stand keeps its curve's gross increment (constant-increment assumption)."""
+
+    age_years: float = key(
+        "float",
+        unit="years",
+        doc="Age at which the stand is thinned.",
+        check=Range(0, MAX_AGE_YEARS, lo_open=True),
+    )
+    removal_share: float = key(
+        "float",
+        unit="fraction",
+        doc="Share of the standing volume the thinning removes.",
+        check=Range(0, 1, lo_open=True, hi_open=True),
+        usual=Usual(Range(0.05, 0.5), "thinnings take about 10% to 40% of the standing volume"),
+    )
+
+
+@dataclass(frozen=True)
 class SpeciesConfig:
     """``[species.<CODE>]``: a species' (or analysis unit's) curve, rules, costs, products."""
 
@@ -514,12 +565,42 @@ class SpeciesConfig:
     products: ProductSplit | None = key(
         "table", None, "", "Product split by age: ages and one share array per product."
     )
+    regenerate_as: Regeneration | None = key(
+        "regeneration",
+        None,
+        "",
+        "What a clearcut part regrows as: a code, a table of code = share, or an array of "
+        "codes for the harvest LP to choose among (default: this code).",
+    )
+    thinning_m3_ha: tuple[tuple[float, ...], ...] | None = key(
+        "volumes",
+        None,
+        "m3/ha",
+        "Table curve: volume removed by thinning at each age (one array per site class).",
+        check=_non_negative,
+        usual=_VOLUME_USUAL,
+    )
+    thinnings: tuple[Thinning, ...] = key(
+        "thinnings", (), "", "Thinnings by age ([[species.<CODE>.thinnings]])."
+    )
 
     def yield_curve(self) -> YieldCurve:
-        """The yield curve this table describes (a family of growth.curves.FAMILIES)."""
+        """The yield curve this table describes (a family of growth.curves.FAMILIES): the
+        gross (total) yield, standing volume plus everything thinned so far. A table with
+        removals lists the stand after thinning; its total yield adds the removals up to each
+        age (as published yield tables of managed stands give total production)."""
         params = {name: getattr(self, name) for name in _CURVE_FIELDS}
+        if self.thinning_m3_ha is not None:
+            params["volumes_m3_ha"] = tuple(
+                tuple(float(v) for v in np.asarray(vols) + np.cumsum(thin))
+                for vols, thin in zip(self.volumes_m3_ha or (), self.thinning_m3_ha, strict=True)
+            )
         site = SiteScaling(self.site_index_ref_m, self.site_exponent_a, self.site_exponent_k)
         return make_curve(self.curve, params, site)
+
+    @property
+    def thinned(self) -> bool:
+        return bool(self.thinnings) or self.thinning_m3_ha is not None
 
     def age_rules(self) -> AgeRules:
         return AgeRules(
@@ -666,12 +747,14 @@ KEYS: dict[str, dict[str, KeySpec]] = {
     "inventory": keys_of(InventoryConfig),
     "inventory.from_raster": keys_of(RasterFill),
     "inventory.fields": keys_of(FieldMap),
+    "inventory.analysis_units": keys_of(AnalysisUnit),
     "landbase": keys_of(LandbaseConfig),
     "landbase.steps": keys_of(NetdownStep),
     "cover": keys_of(CoverTarget),
     "disturbance": keys_of(DisturbanceConfig),
     "report": keys_of(ReportConfig),
     "species.*": keys_of(SpeciesConfig),
+    "species.*.thinnings": keys_of(Thinning),
     "economics": keys_of(EconomicsConfig),
     "growth": keys_of(GrowthConfig),
     "harvest": keys_of(HarvestConfig),

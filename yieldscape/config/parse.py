@@ -27,6 +27,7 @@ from yieldscape.config.model import (
     MAX_HORIZON_YEARS,
     SECTIONS,
     STEP_KINDS,
+    AnalysisUnit,
     BufferBy,
     CoverTarget,
     DisturbanceConfig,
@@ -39,10 +40,12 @@ from yieldscape.config.model import (
     LandbaseConfig,
     NetdownStep,
     RasterFill,
+    Regeneration,
     ReportConfig,
     Scenario,
     ScenarioInfo,
     SpeciesConfig,
+    Thinning,
 )
 from yieldscape.errors import ScenarioError
 from yieldscape.growth.products import ProductSplit
@@ -187,9 +190,10 @@ def _parse(
     economics = EconomicsConfig(**_take(raw.get("economics", {}), "economics", where))
     growth = GrowthConfig(**_take(raw.get("growth", {}), "growth", where))
     species = {
-        str(code): _species(code, tbl, base_dir, where, economics)
+        str(code): _species(code, tbl, base_dir, where, economics, growth.max_age_years)
         for code, tbl in species_raw.items()
     }
+    _check_codes(species, inventory.analysis_units, where)
     _check_npv(flow, economics, species, where)
     disturbance = DisturbanceConfig(**_take(raw.get("disturbance", {}), "disturbance", where))
     if disturbance.replicates and disturbance.annual_rate <= 0:
@@ -216,9 +220,8 @@ def _parse(
 
 def _inventory(inv_raw: dict[str, Any], base_dir: Path, where: str) -> InventoryConfig:
     """``[inventory]`` with its ``fields`` and ``from_raster`` tables; paths resolved."""
-    vals = _take(
-        {k: v for k, v in inv_raw.items() if k not in ("fields", "from_raster")}, "inventory", where
-    )
+    tables = ("fields", "from_raster", "analysis_units")
+    vals = _take({k: v for k, v in inv_raw.items() if k not in tables}, "inventory", where)
     if "fields" not in inv_raw:
         raise ScenarioError(f"{where}: missing table [inventory.fields]")
     fields = FieldMap(**_take(inv_raw["fields"], "inventory.fields", where))
@@ -226,7 +229,20 @@ def _inventory(inv_raw: dict[str, Any], base_dir: Path, where: str) -> Inventory
     site = rasters["site_index"]
     fill = RasterFill((base_dir / site).resolve() if site else None, rasters["band"])
     path = (base_dir / vals["path"]).resolve()
-    return InventoryConfig(**{**vals, "path": path, "fields": fields, "from_raster": fill})
+    units_raw = inv_raw.get("analysis_units", [])
+    if not isinstance(units_raw, list):
+        raise ScenarioError(
+            f"{where}: analysis units are an array of tables: [[inventory.analysis_units]]"
+        )
+    units = tuple(
+        AnalysisUnit(
+            **_take(t, "inventory.analysis_units", where, f"inventory.analysis_units #{n}")
+        )
+        for n, t in enumerate(units_raw, start=1)
+    )
+    return InventoryConfig(
+        **{**vals, "path": path, "fields": fields, "from_raster": fill, "analysis_units": units}
+    )
 
 
 def _harvest(raw: Any, info: ScenarioInfo, where: str) -> HarvestConfig:
@@ -497,7 +513,12 @@ def _buffer_by(raw: dict[str, Any], where: str) -> BufferBy:
 
 
 def _species(
-    code: str, raw: Any, base_dir: Path, where: str, economics: EconomicsConfig
+    code: str,
+    raw: Any,
+    base_dir: Path,
+    where: str,
+    economics: EconomicsConfig,
+    max_age_years: float,
 ) -> SpeciesConfig:
     sect = f"species.{code}"
     vals = _take(raw, "species.*", where, shown=sect)
@@ -540,19 +561,105 @@ def _species(
         )
     if vals["products"] is not None:
         vals["products"] = _products(vals["products"], f"{where}: [{sect}.products]")
+    if vals["thinning_m3_ha"] is not None and curve != "table":
+        raise ScenarioError(f"{where}: [{sect}] thinning_m3_ha applies to curve 'table' only")
+    vals["thinnings"] = _thinnings(vals["thinnings"], vals, sect, where, max_age_years)
+    if vals["regenerate_as"] is not None:
+        vals["regenerate_as"] = _regeneration(vals["regenerate_as"], f"{where}: [{sect}]")
     return SpeciesConfig(code=str(code), **vals)
+
+
+def _thinnings(
+    raw: tuple, vals: dict[str, Any], sect: str, where: str, max_age_years: float
+) -> tuple[Thinning, ...]:
+    """[[species.<CODE>.thinnings]]: ages strictly increasing, inside the curve's range."""
+    out = []
+    for n, tbl in enumerate(raw, start=1):
+        out.append(
+            Thinning(**_take(tbl, "species.*.thinnings", where, shown=f"{sect}.thinnings #{n}"))
+        )
+    if not out:
+        return ()
+    if vals["thinning_m3_ha"] is not None:
+        raise ScenarioError(
+            f"{where}: [{sect}] give thinning_m3_ha (the table's removals) or "
+            "[[thinnings]] (shares of the standing volume), not both"
+        )
+    ages = [t.age_years for t in out]
+    if any(b <= a for a, b in zip(ages, ages[1:], strict=False)):
+        raise ScenarioError(f"{where}: [[{sect}.thinnings]] ages must increase strictly: {ages}")
+    last = vals["ages"][-1] if vals["curve"] == "table" else max_age_years
+    if ages[-1] > last:
+        what = "the table's last age" if vals["curve"] == "table" else "growth.max_age_years"
+        raise ScenarioError(
+            f"{where}: [[{sect}.thinnings]] age_years = {ages[-1]:g} is beyond the curve "
+            f"({what} is {last:g})"
+        )
+    return tuple(out)
+
+
+def _regeneration(raw: Any, where: str) -> Regeneration:
+    """regenerate_as: a code, a table of code = share (adding up to 1), or an array of codes
+    (a choice for the harvest LP). Whether the codes exist is checked with every species."""
+    key = f"{where} regenerate_as = {raw!r}"
+    if isinstance(raw, str) and raw:
+        return Regeneration("as", (raw,), (1.0,))
+    if isinstance(raw, list):
+        if not raw or not all(isinstance(c, str) and c for c in raw):
+            raise ScenarioError(f"{key}: a choice needs at least one code (an array of strings)")
+        if len(set(raw)) != len(raw):
+            raise ScenarioError(f"{key}: a choice lists a code twice")
+        return Regeneration("choice", tuple(raw), tuple(1.0 / len(raw) for _ in raw))
+    if isinstance(raw, dict) and raw:
+        shares = []
+        for code, share in raw.items():
+            ok = isinstance(share, int | float) and not isinstance(share, bool)
+            if not ok or not math.isfinite(share) or not 0 < share <= 1:
+                raise ScenarioError(f"{key}: the share of {code!r} must be a number in (0, 1]")
+            shares.append(float(share))
+        if abs(sum(shares) - 1.0) > 1e-6:
+            raise ScenarioError(f"{key}: the shares add up to {sum(shares):g}, not 1")
+        return Regeneration("split", tuple(map(str, raw)), tuple(shares))
+    raise ScenarioError(
+        f'{key}: give a code ("spruce_planted"), a table of shares '
+        "({ spruce = 0.7, birch = 0.3 }) or an array of codes to choose among"
+    )
+
+
+def _check_codes(species: Mapping[str, SpeciesConfig], units: Sequence[Any], where: str) -> None:
+    """Every code a transition or an analysis unit names has its [species.<CODE>] table."""
+    known = sorted(species)
+    for code, sp in species.items():
+        for target in sp.regenerate_as.codes if sp.regenerate_as else ():
+            if target not in species:
+                raise ScenarioError(
+                    f"{where}: [species.{code}] regenerate_as names {target!r}, which has no "
+                    f"[species.{target}] table; codes: {', '.join(known)}"
+                )
+    for n, unit in enumerate(units, start=1):
+        if unit.species not in species:
+            raise ScenarioError(
+                f"{where}: [[inventory.analysis_units]] #{n} species = {unit.species!r} has no "
+                f"[species.{unit.species}] table; codes: {', '.join(known)}"
+            )
 
 
 def _table_curve(vals: dict[str, Any], sect: str, base_dir: Path, where: str) -> None:
     """Resolve a table curve's ages, volumes (one row per class) and classes in place."""
     if vals["table_csv"] is not None:
-        if any(vals[k] is not None for k in ("ages", "volumes_m3_ha", "site_classes_m")):
+        given = ("ages", "volumes_m3_ha", "site_classes_m", "thinning_m3_ha")
+        if any(vals[k] is not None for k in given):
             raise ScenarioError(
                 f"{where}: [{sect}] give either table_csv or ages and volumes_m3_ha, not both"
             )
         csv_path = (base_dir / vals["table_csv"]).resolve()
         vals["table_csv"] = csv_path
-        vals["ages"], vals["volumes_m3_ha"], vals["site_classes_m"] = _read_table_csv(csv_path)
+        (
+            vals["ages"],
+            vals["volumes_m3_ha"],
+            vals["site_classes_m"],
+            vals["thinning_m3_ha"],
+        ) = _read_table_csv(csv_path)
         table_where = str(csv_path)
     else:
         if vals["ages"] is None or vals["volumes_m3_ha"] is None:
@@ -576,6 +683,7 @@ def _table_curve(vals: dict[str, Any], sect: str, base_dir: Path, where: str) ->
                 f"has {len(rows)} rows"
             )
         vals["volumes_m3_ha"] = rows
+        vals["thinning_m3_ha"] = _rows_like(vals["thinning_m3_ha"], rows, table_where)
     classes = vals["site_classes_m"]
     if classes is not None:
         for c0, c1 in zip(classes, classes[1:], strict=False):
@@ -589,6 +697,34 @@ def _table_curve(vals: dict[str, Any], sect: str, base_dir: Path, where: str) ->
             vals["site_index_max_m"] = classes[-1]
     for row in vals["volumes_m3_ha"]:
         _check_table(vals["ages"], row, table_where)
+    if vals["thinning_m3_ha"] is not None:
+        _check_removals(vals["ages"], vals["volumes_m3_ha"], vals["thinning_m3_ha"], table_where)
+
+
+def _rows_like(thin: Any, rows: Rows, where: str) -> Rows | None:
+    """thinning_m3_ha as one row per site class, shaped as volumes_m3_ha."""
+    if thin is None:
+        return None
+    thin = thin if isinstance(thin[0], tuple) else (thin,)
+    if len(thin) != len(rows) or any(len(t) != len(r) for t, r in zip(thin, rows, strict=False)):
+        raise ScenarioError(
+            f"{where}: thinning_m3_ha must have the shape of volumes_m3_ha "
+            f"({len(rows)} row(s) of {len(rows[0])} values)"
+        )
+    return thin
+
+
+def _check_removals(ages: Sequence[float], vols: Rows, thins: Rows, where: str) -> None:
+    """A removal may not exceed the standing volume left after it (a thinning takes less than
+    half the stand; a heavier cut is a regeneration felling)."""
+    for vrow, trow in zip(vols, thins, strict=True):
+        for age, v, t in zip(ages, vrow, trow, strict=True):
+            if t > v:
+                raise ScenarioError(
+                    f"{where}: thinning_m3_ha = {t:g} at age {age:g} is larger than the "
+                    f"standing volume {v:g} m3/ha left after it (volumes_m3_ha is the stand "
+                    "after thinning); a thinning takes less than half the stand"
+                )
 
 
 def _products(raw: Any, where: str) -> ProductSplit:
@@ -615,10 +751,15 @@ def _products(raw: Any, where: str) -> ProductSplit:
     return ProductSplit(ages, shares)
 
 
+Rows = tuple[tuple[float, ...], ...]
+_UNITS = "inventory.analysis_units"
+
+
 def _read_table_csv(
     path: Path,
-) -> tuple[tuple[float, ...], tuple[tuple[float, ...], ...], tuple[float, ...] | None]:
-    """Read a yield table CSV: age_years, volume_m3_ha and optionally site_index_m (long form)."""
+) -> tuple[tuple[float, ...], Rows, tuple[float, ...] | None, Rows | None]:
+    """Read a yield table CSV: age_years, volume_m3_ha and optionally site_index_m and
+    thinning_m3_ha (long form: one row per site class and age)."""
     # A yield table is a small text file named by the scenario, so it is read with the scenario.
     try:
         data = path.read_bytes()
@@ -638,31 +779,34 @@ def _read_table_csv(
         have = ", ".join(rows[0]) if rows else "no rows"
         raise ScenarioError(f"{path}: a yield table needs columns {need} (found: {have})")
     with_site = "site_index_m" in rows[0]
-    table: dict[float, list[tuple[float, float]]] = {}
+    with_thinning = "thinning_m3_ha" in rows[0]
+    table: dict[float, list[tuple[float, float, float]]] = {}
     for n, row in enumerate(rows, start=2):
         try:
             site = float(row["site_index_m"]) if with_site else 1.0
             age, vol = float(row["age_years"]), float(row["volume_m3_ha"])
+            thin = float(row["thinning_m3_ha"] or 0.0) if with_thinning else 0.0
         except (TypeError, ValueError):
             raise ScenarioError(
                 f"{path}, line {n}: {dict(row)} holds a value that is not a number"
             ) from None
-        if not all(math.isfinite(v) for v in (site, age, vol)) or site <= 0:
+        if not all(math.isfinite(v) for v in (site, age, vol, thin)) or site <= 0 or thin < 0:
             raise ScenarioError(
                 f"{path}, line {n}: {dict(row)}: every value must be a finite number "
-                "(and a site index > 0)"
+                "(a site index > 0, a thinning volume >= 0)"
             )
-        table.setdefault(site, []).append((age, vol))
+        table.setdefault(site, []).append((age, vol, thin))
     classes = sorted(table)
-    ages = tuple(a for a, _ in table[classes[0]])
+    ages = tuple(a for a, _, _ in table[classes[0]])
     for site in classes:
-        if tuple(a for a, _ in table[site]) != ages:
+        if tuple(a for a, _, _ in table[site]) != ages:
             raise ScenarioError(
                 f"{path}: site class {site:g} lists other ages than class {classes[0]:g}; "
                 "every class needs the same ages"
             )
-    vols = tuple(tuple(v for _, v in table[site]) for site in classes)
-    return ages, vols, (tuple(classes) if with_site else None)
+    vols = tuple(tuple(v for _, v, _ in table[site]) for site in classes)
+    thins = tuple(tuple(t for _, _, t in table[site]) for site in classes)
+    return ages, vols, (tuple(classes) if with_site else None), (thins if with_thinning else None)
 
 
 def _check_table(ages: Sequence[float], vols: Sequence[float], where: str) -> None:
@@ -716,7 +860,7 @@ def _take(raw: Any, spec_name: str, where: str, shown: str | None = None) -> dic
     sect = shown or spec_name
     raw = _table(raw, sect, where)
     spec = KEYS[spec_name]
-    extra = {"fields", "from_raster"} if spec_name == "inventory" else set()
+    extra = {"fields", "from_raster", "analysis_units"} if spec_name == "inventory" else set()
     _reject_unknown({k: v for k, v in raw.items() if k not in extra}, list(spec), where, sect)
     out: dict[str, Any] = {}
     for key, ks in spec.items():
@@ -758,6 +902,10 @@ def _coerce(value: Any, ks: KeySpec, where: str) -> Any:
     elif ks.kind == "table":
         if not isinstance(value, dict):
             raise ScenarioError(f"{where}: must be a table")
+    elif ks.kind == "thinnings":
+        if not isinstance(value, list) or not all(isinstance(v, dict) for v in value):
+            raise ScenarioError(f"{where}: must be an array of tables ([[...thinnings]])")
+        value = tuple(value)
     elif ks.kind == "volumes":
         if isinstance(value, list) and value and all(isinstance(v, list) for v in value):
             value = tuple(_coerce(v, KeySpec("floats"), where) for v in value)

@@ -224,8 +224,12 @@ def stand_ages_table(
     return pd.concat(frames, ignore_index=True)
 
 
-def harvest_breakdown(flow: FlowResult, stands: pd.DataFrame, periods: Periods) -> pd.DataFrame:
-    """Harvest by period, zone and species: area, volume, per year, mean age and m3/ha."""
+def harvest_breakdown(
+    flow: FlowResult, stands: pd.DataFrame, periods: Periods, curve_codes: tuple[str, ...]
+) -> pd.DataFrame:
+    """Harvest by period, zone and species (the code cut: a species or an analysis unit):
+    area, volume, per year, mean age and m3/ha. Thinnings count in the volume, clearcuts in
+    the area and the age."""
     sim = flow.simulation
     cols = [
         "period",
@@ -242,15 +246,16 @@ def harvest_breakdown(flow: FlowResult, stands: pd.DataFrame, periods: Periods) 
     if not len(sim.event_stand):
         return pd.DataFrame(columns=cols)
     codes, names = _zone_names(stands)
-    species = stands["species"].astype(str).to_numpy()
+    species = np.array(curve_codes, dtype=object)[sim.event_code.astype(np.int64)]
+    clear = sim.event_treatment == 0
     ev = pd.DataFrame(
         {
             "period": sim.event_period.astype(np.int64),
             "zone_code": codes[sim.event_stand],
-            "species": species[sim.event_stand],
-            "harvest_ha": sim.event_area_ha,
+            "species": species,
+            "harvest_ha": np.where(clear, sim.event_area_ha, 0.0),
             "harvest_m3": sim.event_volume_m3,
-            "age_area": sim.event_age_years * sim.event_area_ha,
+            "age_area": np.where(clear, sim.event_age_years * sim.event_area_ha, 0.0),
         }
     )
     g = ev.groupby(["period", "zone_code", "species"], as_index=False, sort=True).sum()
@@ -279,8 +284,9 @@ def revenue_by_period(
     scenario: Scenario,
     periods: Periods,
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Net revenue of each period's harvest (price x volume minus regeneration cost x area cut,
-    per species) and its value discounted to ``start_year`` from the harvest moment, with
+    """Net revenue of each period's harvest (price x volume of clearcuts and thinnings, per
+    code cut, minus the regeneration cost x area of the code each cut regrows as) and its
+    value discounted to ``start_year`` from the harvest moment, with
     ``economics.discount_rate``. NaN where a species has no price (or, for the discounted
     value, without a discount rate)."""
     P = periods.count
@@ -291,9 +297,11 @@ def revenue_by_period(
     sim = flow.simulation
     price = np.array([c.price_per_m3 for c in cfg], dtype=np.float64)
     regen = np.array([c.regen_cost_per_ha for c in cfg], dtype=np.float64)
-    sp = arrays.species_idx[sim.event_stand]
-    value = price[sp] * sim.event_volume_m3 - regen[sp] * sim.event_area_ha
+    value = price[sim.event_code] * sim.event_volume_m3
+    cost = regen[sim.regen_to] * sim.regen_area_ha  # paid by the code regrown into
     net = np.bincount(sim.event_period - 1, value, P) if len(value) else np.zeros(P)
+    if len(cost):
+        net = net - np.bincount(sim.regen_period - 1, cost, P)
     rate = scenario.economics.discount_rate
     if rate is None:
         return net, nan

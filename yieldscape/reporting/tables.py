@@ -40,9 +40,11 @@ def wood_flow_table(
     sim = flow.simulation
     P, L = periods.count, periods.period_years
     h, ha = sim.harvest_m3, sim.harvest_ha
+    thin = sim.thinning_m3 if len(sim.thinning_m3) else np.zeros(P)
+    final = h - thin
     with np.errstate(invalid="ignore", divide="ignore"):
         mean_age = np.where(ha > 0, sim.harvest_age_area / np.where(ha > 0, ha, 1.0), np.nan)
-        per_ha = np.where(ha > 0, h / np.where(ha > 0, ha, 1.0), np.nan)
+        per_ha = np.where(ha > 0, final / np.where(ha > 0, ha, 1.0), np.nan)
         change = np.r_[
             np.nan, np.where(h[:-1] > 0, h[1:] / np.where(h[:-1] > 0, h[:-1], 1) - 1, np.nan)
         ]
@@ -63,6 +65,9 @@ def wood_flow_table(
             "harvest_year": calendar_years(periods.harvest_years),
             "harvest_m3": h,
             "harvest_m3_per_year": h / L,
+            "final_harvest_m3": final,
+            "thinning_m3": thin,
+            "thinning_ha": sim.thinning_ha if len(sim.thinning_ha) else np.zeros(P),
             "harvest_ha": ha,
             "harvest_ha_per_year": ha / L,
             "harvest_volume_m3_ha": per_ha,
@@ -87,26 +92,33 @@ def wood_flow_table(
     )
 
 
+TREATMENTS = ("clearcut", "thinning")  # Simulation.event_treatment 0, 1
+
+
 def harvests_layer(
-    flow: FlowResult, stands: gpd.GeoDataFrame, periods: Periods
+    flow: FlowResult, stands: gpd.GeoDataFrame, periods: Periods, codes: tuple[str, ...]
 ) -> gpd.GeoDataFrame:
     """One polygon row per stand and period in which (part of) the stand is cut.
 
     The geometry is the whole stand; ``area_ha`` is the area cut, which is less than the
     stand's area for a partial cut. Two parts of one stand cut in one period are one row, with
-    the area-weighted age.
+    the area-weighted age. A thinning is a row of its own (``treatment``), as is each code
+    (``analysis_unit``) a stand's parts grow as when cut.
     """
     sim = flow.simulation
     ev = pd.DataFrame(
         {
             "stand": sim.event_stand.astype(np.int64),
             "period": sim.event_period.astype(np.int64),
+            "treatment": sim.event_treatment.astype(np.int64),
+            "code": sim.event_code.astype(np.int64),
             "age_area": sim.event_age_years * sim.event_area_ha,
             "area_ha": sim.event_area_ha,
             "volume_m3": sim.event_volume_m3,
         }
     )
-    agg = ev.groupby(["period", "stand"], sort=True).sum().reset_index()
+    keys = ["period", "stand", "treatment", "code"]
+    agg = ev.groupby(keys, sort=True).sum().reset_index()
     pos = agg["stand"].to_numpy()
     # a cut is partial when it takes less than the stand's harvestable area
     limit = "harvestable_ha" if "harvestable_ha" in stands else "area_ha"
@@ -116,7 +128,9 @@ def harvests_layer(
         {
             "stand_id": stands["stand_id"].to_numpy()[pos],
             "species": stands["species"].to_numpy()[pos],
+            "analysis_unit": np.array(codes, dtype=object)[agg["code"].to_numpy()],
             "zone": stands["zone"].to_numpy()[pos],
+            "treatment": np.array(TREATMENTS, dtype=object)[agg["treatment"].to_numpy()],
             "period": agg["period"].to_numpy(),
             "start_year": periods.start_years[agg["period"].to_numpy() - 1],
             "harvest_year": calendar_years(periods.harvest_years[agg["period"].to_numpy() - 1]),
@@ -124,7 +138,7 @@ def harvests_layer(
             "area_ha": area,
             "volume_m3": agg["volume_m3"].to_numpy(),
             "volume_m3_ha": agg["volume_m3"].to_numpy() / area,
-            "partial": area < stand_area * (1 - 1e-9),
+            "partial": (area < stand_area * (1 - 1e-9)) & (agg["treatment"].to_numpy() == 0),
         }
     )
     geom = stands.geometry.to_numpy()[pos]
@@ -144,19 +158,18 @@ def stands_layer(
     sim = flow.simulation
     n = len(stands)
     out = stands.copy()
-    out["volume_m3_ha"] = curves.volume_m3_ha(
-        arrays.species_idx, arrays.age_years, arrays.site_index
-    )
+    out["volume_m3_ha"] = start_volume_m3_ha(arrays, curves)
+    clear = sim.event_treatment == 0
+    stand, period = sim.event_stand[clear], sim.event_period[clear]
+    age, area = sim.event_age_years[clear], sim.event_area_ha[clear]
     first = np.full(n, np.iinfo(np.int64).max)
-    np.minimum.at(first, sim.event_stand, sim.event_period)
+    np.minimum.at(first, stand, period)
     cut = first < np.iinfo(np.int64).max
     first_age = np.full(n, np.nan)
-    is_first = sim.event_period == first[sim.event_stand]
-    # area-weighted age of what is cut in the first harvest period
-    w_age = np.bincount(
-        sim.event_stand[is_first], sim.event_age_years[is_first] * sim.event_area_ha[is_first], n
-    )
-    w = np.bincount(sim.event_stand[is_first], sim.event_area_ha[is_first], n)
+    is_first = period == first[stand]
+    # area-weighted age of what is clearcut in the first harvest period
+    w_age = np.bincount(stand[is_first], age[is_first] * area[is_first], n)
+    w = np.bincount(stand[is_first], area[is_first], n)
     first_age[cut] = w_age[cut] / w[cut]
     out["first_harvest_period"] = pd.array(np.where(cut, first, 0), dtype="Int64")
     out.loc[~cut, "first_harvest_period"] = pd.NA
@@ -165,14 +178,12 @@ def stands_layer(
         np.where(cut, years[np.where(cut, first, 1) - 1], np.nan)
     )
     out["first_harvest_age_years"] = first_age
-    pairs = (
-        np.unique(np.c_[sim.event_stand, sim.event_period], axis=0)
-        if len(sim.event_stand)
-        else np.zeros((0, 2), dtype=np.int64)
-    )
+    pairs = np.unique(np.c_[stand, period], axis=0) if len(stand) else np.zeros((0, 2), np.int64)
     out["harvest_count"] = np.bincount(pairs[:, 0].astype(np.int64), minlength=n)
-    out["harvested_area_ha"] = np.bincount(sim.event_stand, sim.event_area_ha, n)
-    out["harvested_volume_m3"] = np.bincount(sim.event_stand, sim.event_volume_m3, n)
+    out["harvested_area_ha"] = np.bincount(stand, area, n)
+    out["harvested_volume_m3"] = np.bincount(stand, sim.event_volume_m3[clear], n)
+    thin = ~clear
+    out["thinned_volume_m3"] = np.bincount(sim.event_stand[thin], sim.event_volume_m3[thin], n)
     geom_col = out.geometry.name
     cols = [c for c in out.columns if c != geom_col] + [geom_col]
     return out[cols]
@@ -183,11 +194,12 @@ def wood_flow_by_product(
 ) -> pd.DataFrame:
     """Harvested volume per period, species and product (long form).
 
-    Each harvest event's volume is split by its species' product shares at the age it was
-    cut (:mod:`yieldscape.growth.products`); the products of a period add up to its harvest.
+    Each harvest event's volume (clearcut or thinning) is split by its code's product
+    shares at the age it was cut (:mod:`yieldscape.growth.products`); the products of a
+    period add up to its harvest.
     """
     sim = flow.simulation
-    sp = arrays.species_idx[sim.event_stand] if len(sim.event_stand) else np.zeros(0, int)
+    sp = sim.event_code
     parts = []
     for i, code in enumerate(curves.codes):  # per species and product: a handful
         mine = sp == i
@@ -210,3 +222,33 @@ def wood_flow_by_product(
     )
     out = frame.groupby(["period", "species", "product"], as_index=False)["volume_m3"].sum()
     return out.sort_values(["period", "species", "product"], ignore_index=True)
+
+
+def start_volume_m3_ha(arrays: StandArrays, curves: CurveSet) -> np.ndarray:
+    """Each stand's standing volume [m3/ha] at the start: its code's gross yield at its age,
+    less the thinnings of that age on the harvestable land base."""
+    v = curves.volume_m3_ha(arrays.species_idx, arrays.age_years, arrays.site_index)
+    reg = arrays.regimes
+    if reg is None or not reg.thins:
+        return v
+    terms = curves.site_terms(arrays.species_idx, arrays.site_index)
+    removed = reg.removed(
+        arrays.species_idx, reg.removals(curves, arrays.species_idx, terms), arrays.age_years
+    )
+    thinned = arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
+    return np.where(thinned > 0, v - removed, v)
+
+
+def regeneration_table(flow: FlowResult, codes: tuple[str, ...]) -> pd.DataFrame:
+    """Per period, the area clearcut from each code and regrowing as each code."""
+    sim = flow.simulation
+    frame = pd.DataFrame(
+        {
+            "period": sim.regen_period.astype(np.int64),
+            "from_species": np.array(codes, dtype=object)[sim.regen_from.astype(np.int64)],
+            "to_species": np.array(codes, dtype=object)[sim.regen_to.astype(np.int64)],
+            "area_ha": sim.regen_area_ha,
+        }
+    )
+    keys = ["period", "from_species", "to_species"]
+    return frame.groupby(keys, as_index=False, sort=True)["area_ha"].sum()

@@ -21,6 +21,7 @@ from numpy.typing import NDArray
 
 from yieldscape.policies import TargetRule, cut_order
 from yieldscape.projection import CurveSet, Periods, SiteTerms, StandArrays, growing_stock_m3
+from yieldscape.regimes import Regimes
 from yieldscape.schedule.cover import CoverRules
 from yieldscape.schedule.picker import sequential_pick
 from yieldscape.schedule.spatial import SpatialRules
@@ -80,6 +81,16 @@ class Simulation:
     event_age_years: NDArray = field(default_factory=lambda: np.zeros(0))
     event_area_ha: NDArray = field(default_factory=lambda: np.zeros(0))
     event_volume_m3: NDArray = field(default_factory=lambda: np.zeros(0))
+    event_code: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    event_treatment: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int8))
+    # of the harvest above: what thinnings took each period (their volume and area)
+    thinning_m3: NDArray = field(default_factory=lambda: np.zeros(0))
+    thinning_ha: NDArray = field(default_factory=lambda: np.zeros(0))
+    # regeneration after clearcuts (record=True only): period, from code, to code, area
+    regen_period: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    regen_from: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    regen_to: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    regen_area_ha: NDArray = field(default_factory=lambda: np.zeros(0))
 
 
 @dataclass(frozen=True)
@@ -92,6 +103,7 @@ class PartsSnapshot:
     age_years: NDArray[np.float64]
     area_ha: NDArray[np.float64]
     in_hlb: NDArray[np.bool_]
+    code: NDArray[np.int64] | None = None  # the code (CurveSet index) each part grows as
 
 
 def _pick_prefix(
@@ -136,6 +148,10 @@ class _Parts:
     rank: NDArray[np.int64]
     zone: NDArray[np.int64]
     in_hlb: NDArray[np.bool_]
+    # thinning: each part's removal [m3/ha] at each of its code's thinnings (parts x
+    # thinnings; zero width without thinnings) and the age up to which they have been taken
+    thin_r: NDArray[np.float64]
+    thinned_to: NDArray[np.float64]
 
     @classmethod
     def of(cls, stands: StandArrays, curves: CurveSet) -> _Parts:
@@ -158,21 +174,38 @@ class _Parts:
             if stands.zone_idx is not None
             else np.zeros(len(stand), dtype=np.int64)
         )
+        si = curves.site_terms(sp, stands.site_index[stand])  # site terms, worked out once
+        age = stands.age_years[stand]
+        reg = stands.regimes
+        thin_r = np.zeros((len(stand), 0))
+        if reg is not None and reg.thins:
+            thin_r = reg.removals(curves, sp, si)
+        # an existing stand has had the thinnings of its age; land off the base is never thinned
+        thinned_to = np.where(in_hlb, age, -np.inf)
         return cls(
             stand,
             area,
             min_age,
             sp,
-            curves.site_terms(sp, stands.site_index[stand]),  # site terms, worked out once
-            stands.age_years[stand],
+            si,
+            age,
             stands.regen_delay_years[stand],
             stands.id_rank[stand],
             zone,
             in_hlb,
+            thin_r,
+            thinned_to,
         )
 
-    def extend(self, src: NDArray | int, age: NDArray | float, area: NDArray | float) -> None:
-        """Append copies of the parts ``src`` with new ages and areas."""
+    def extend(
+        self,
+        src: NDArray | int,
+        age: NDArray | float,
+        area: NDArray | float,
+        thinned_to: NDArray | float = 0.0,
+    ) -> None:
+        """Append copies of the parts ``src`` with new ages and areas (and the age up to which
+        their thinnings count as taken: 0 for a new stand)."""
         self.stand = np.r_[self.stand, self.stand[src]]
         self.sp, self.si = np.r_[self.sp, self.sp[src]], self.si.append(src)
         self.min_age, self.delay = (
@@ -183,40 +216,78 @@ class _Parts:
         self.in_hlb = np.r_[self.in_hlb, self.in_hlb[src]]
         self.age = np.r_[self.age, age]
         self.area = np.r_[self.area, area]
+        self.thin_r = np.r_[self.thin_r, self.thin_r[np.atleast_1d(src)]]
+        n_new = len(self.age) - len(self.thinned_to)
+        taken = np.broadcast_to(np.asarray(thinned_to, dtype=np.float64), (n_new,))
+        self.thinned_to = np.r_[self.thinned_to, np.where(self.in_hlb[-n_new:], taken, -np.inf)]
 
-    def stock(self, curves: CurveSet, hlb_only: bool = False) -> float:
+    def volume(self, curves: CurveSet, idx: NDArray, age: NDArray, reg: Regimes | None) -> NDArray:
+        """Standing volume [m3/ha] of parts ``idx`` at ages ``age``: the code's gross yield
+        less the thinnings taken (see :mod:`yieldscape.regimes`)."""
+        v = curves.volume_m3_ha(self.sp[idx], age, terms=self.si.take(idx))
+        if reg is not None and reg.thins:
+            taken = np.minimum(age, self.thinned_to[idx])
+            v -= reg.removed(self.sp[idx], self.thin_r[idx], taken)
+        return v
+
+    def stock(self, curves: CurveSet, reg: Regimes | None, hlb_only: bool = False) -> float:
         """Growing stock [m3] of all parts, or of those on the harvestable land base."""
-        if not hlb_only:
-            return growing_stock_m3(curves, self.sp, self.age, self.si, self.area)
-        m = self.in_hlb
-        return growing_stock_m3(curves, self.sp[m], self.age[m], self.si.take(m), self.area[m])
+        if reg is None or not reg.thins:
+            if not hlb_only:
+                return growing_stock_m3(curves, self.sp, self.age, self.si, self.area)
+            m = self.in_hlb
+            return growing_stock_m3(curves, self.sp[m], self.age[m], self.si.take(m), self.area[m])
+        idx = np.flatnonzero(self.in_hlb) if hlb_only else np.arange(len(self.age))
+        return float(np.dot(self.volume(curves, idx, self.age[idx], reg), self.area[idx]))
 
     def snapshot(self) -> PartsSnapshot:
         return PartsSnapshot(
-            self.stand.copy(), self.age.copy(), self.area.copy(), self.in_hlb.copy()
+            self.stand.copy(),
+            self.age.copy(),
+            self.area.copy(),
+            self.in_hlb.copy(),
+            self.sp.astype(np.int64),
         )
 
 
 @dataclass
 class _Cut:
-    """One period's cut: parts cut whole, the part cut partly (-1: none) and its share, the
-    totals, the per-part volumes per ha of the candidates taken, the rules that refused
-    candidates, and whether every eligible part was taken."""
+    """One period's cut: parts clearcut whole, the part clearcut partly (-1: none) and its
+    share, the totals (``volume_m3`` is clearcuts plus thinnings), the rules that refused
+    candidates, whether every eligible part was taken, and the events when recorded."""
 
     full: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.intp))
     part: int = -1
     frac: float = 0.0
     volume_m3: float = 0.0
+    thinning_m3: float = 0.0
+    thinning_ha: float = 0.0
     area_ha: float = 0.0
     age_area: float = 0.0
     blocked: str = ""
     all_taken: bool = True
-    events: tuple[NDArray, ...] | None = None  # stand, age, area, volume of each cut part
+    # stand, age, area, volume, code and treatment (0 clearcut, 1 thinning) of each event
+    events: tuple[NDArray, ...] | None = None
+
+
+def _thinnings_due(
+    parts: _Parts, age_h: NDArray, reg: Regimes | None
+) -> tuple[NDArray, NDArray, NDArray]:
+    """Parts on the harvestable land base whose thinnings fall due by the harvest moment:
+    their positions, removals [m3/ha] and the age of the (last) thinning."""
+    empty = np.zeros(0, dtype=np.intp), np.zeros(0), np.zeros(0)
+    if reg is None or not reg.thins:
+        return empty
+    live = np.flatnonzero(parts.in_hlb & (parts.area > 0))
+    vol, age = reg.due(parts.sp[live], parts.thin_r[live], parts.thinned_to[live], age_h[live])
+    hit = vol > 0
+    return live[hit], vol[hit], age[hit]
 
 
 def _cut_period(
     parts: _Parts,
     curves: CurveSet,
+    reg: Regimes | None,
     rules: HarvestRules,
     spatial: SpatialRules | None,
     t: float,
@@ -225,25 +296,64 @@ def _cut_period(
     planned_first: NDArray | None,
     record: bool,
 ) -> _Cut:
-    """Rank the eligible parts (age at the harvest moment ``age_h``) and cut up to the
+    """Rank the eligible parts (age at the harvest moment ``age_h``) and clearcut up to the
     target and the area cap, the last part partly; rules of the sequential pick skip parts
-    that would break them."""
+    that would break them. Thinnings due this period are taken on the parts not clearcut
+    and count toward the target: a clearcut takes its part's standing volume, thinnings
+    pending included, so it adds its volume less those thinnings to the period's total."""
     cut = _Cut()
+    thin, thin_ha, thin_age = _thinnings_due(parts, age_h, reg)
+    pending = np.zeros(len(parts.age))
+    pending[thin] = thin_ha
+    thin_total = float(np.dot(thin_ha, parts.area[thin]))
     elig = np.flatnonzero((age_h >= parts.min_age - 1e-9) & (parts.area > 0))
-    vol_ha = curves.volume_m3_ha(parts.sp[elig], age_h[elig], terms=parts.si.take(elig))
+    vol_ha = parts.volume(curves, elig, age_h[elig], reg)
     keep = vol_ha > 0
     elig, vol_ha = elig[keep], vol_ha[keep]
-    if not (target > 0 and len(elig)):
+    cand, v_cand = elig[:0], vol_ha[:0]
+    full_pos = part_pos = np.zeros(0, dtype=np.intp)
+    if target > thin_total and len(elig):
+        first = None if planned_first is None else planned_first[parts.stand[elig]]
+        order = cut_order(
+            rules.priority,
+            age_h[elig],
+            parts.min_age[elig],
+            vol_ha,
+            parts.rank[elig],
+            None if first is None else first.astype(np.int8),
+        )
+        cand, v_cand = elig[order], vol_ha[order]
+        goal = target - thin_total
+        full_pos, part_pos = _pick(
+            cut, parts, rules, spatial, t, age_h, cand, v_cand, pending, goal
+        )
+    else:
         cut.all_taken = len(elig) == 0
-        return cut
-    first = None if planned_first is None else planned_first[parts.stand[elig]].astype(np.int8)
-    order = cut_order(
-        rules.priority, age_h[elig], parts.min_age[elig], vol_ha, parts.rank[elig], first
-    )
-    cand = elig[order]
-    v_ha = vol_ha[order]
+    _tally(cut, parts, age_h, cand, v_cand, full_pos, part_pos)
+    _take_thinnings(cut, parts, thin, thin_ha)
+    if record:
+        cut.events = _events(
+            cut, parts, age_h, cand, v_cand, full_pos, part_pos, thin, thin_ha, thin_age
+        )
+    return cut
+
+
+def _pick(
+    cut: _Cut,
+    parts: _Parts,
+    rules: HarvestRules,
+    spatial: SpatialRules | None,
+    t: float,
+    age_h: NDArray,
+    cand: NDArray,
+    v_ha: NDArray,
+    pending: NDArray,
+    target: float,
+) -> tuple[NDArray, NDArray]:
+    """The candidates cut whole and the one cut partly (positions in ``cand``), by volume net
+    of the thinnings a clearcut forgoes."""
     area = parts.area
-    vol = v_ha * area[cand]
+    vol = (v_ha - pending[cand]) * area[cand]
     cap = np.inf if rules.max_area_ha is None else float(rules.max_area_ha)
     pick: list = [spatial] if spatial is not None else []
     if rules.cover is not None:
@@ -257,22 +367,81 @@ def _cut_period(
         names = [r.name for r, n in zip(pick, refused, strict=True) if n]
         cut.blocked = " and ".join(dict.fromkeys(names))
     cut.full = cand[full_pos]
-    cut.part = part = int(cand[part_pos]) if part_pos >= 0 else -1
+    cut.part = int(cand[part_pos]) if part_pos >= 0 else -1
     cut.frac = frac
-    cut.volume_m3 = vol[full_pos].sum() + (frac * vol[part_pos] if part >= 0 else 0.0)
+    cut.all_taken = len(cut.full) + (cut.part >= 0) == len(cand)
+    return full_pos, (np.array([part_pos]) if part_pos >= 0 else np.zeros(0, dtype=np.intp))
+
+
+def _tally(
+    cut: _Cut,
+    parts: _Parts,
+    age_h: NDArray,
+    cand: NDArray,
+    v_ha: NDArray,
+    full_pos: NDArray,
+    part_pos: NDArray,
+) -> None:
+    """The clearcut volume, area and area-weighted age of the period."""
+    area = parts.area
+    if not len(cand):
+        return
+    vol = v_ha * area[cand]
+    part, frac = cut.part, cut.frac
+    cut.volume_m3 = vol[full_pos].sum() + (frac * vol[part_pos[0]] if part >= 0 else 0.0)
     cut.area_ha = area[cut.full].sum() + (frac * area[part] if part >= 0 else 0.0)
     cut.age_area = np.dot(age_h[cut.full], area[cut.full]) + (
         frac * area[part] * age_h[part] if part >= 0 else 0.0
     )
-    cut.all_taken = len(cut.full) + (part >= 0) == len(elig)
-    if record:
-        ev_parts = cut.full if part < 0 else np.r_[cut.full, part]
-        ev_area = area[ev_parts].copy()
-        if part >= 0:
-            ev_area[-1] *= frac
-        ev_pos = full_pos if part < 0 else np.r_[full_pos, part_pos]
-        cut.events = (parts.stand[ev_parts], age_h[ev_parts], ev_area, v_ha[ev_pos] * ev_area)
-    return cut
+
+
+def _take_thinnings(cut: _Cut, parts: _Parts, thin: NDArray, thin_ha: NDArray) -> None:
+    """Thin the due parts not clearcut (the partly cut part on its uncut rest); add the
+    removals to the period's volume."""
+    if not len(thin):
+        return
+    share = np.ones(len(thin))
+    share[np.isin(thin, cut.full)] = 0.0
+    if cut.part >= 0:
+        share[thin == cut.part] = 1.0 - cut.frac
+    area = share * parts.area[thin]
+    cut.thinning_m3 = float(np.dot(thin_ha, area))
+    cut.thinning_ha = float(area.sum())
+    cut.volume_m3 += cut.thinning_m3
+
+
+def _events(
+    cut: _Cut,
+    parts: _Parts,
+    age_h: NDArray,
+    cand: NDArray,
+    v_ha: NDArray,
+    full_pos: NDArray,
+    part_pos: NDArray,
+    thin: NDArray,
+    thin_ha: NDArray,
+    thin_age: NDArray,
+) -> tuple[NDArray, ...]:
+    """The period's events: each clearcut part and each thinned part."""
+    area = parts.area
+    ev_parts = cut.full if cut.part < 0 else np.r_[cut.full, cut.part]
+    ev_area = area[ev_parts].copy()
+    if cut.part >= 0:
+        ev_area[-1] *= cut.frac
+    ev_pos = np.r_[full_pos, part_pos].astype(np.intp)
+    ev_vol = v_ha[ev_pos] * ev_area if len(ev_pos) else np.zeros(0)
+    kept = ~np.isin(thin, cut.full)
+    th, th_area = thin[kept], area[thin[kept]].copy()
+    if cut.part >= 0:
+        th_area[th == cut.part] *= 1.0 - cut.frac
+    return (
+        np.r_[parts.stand[ev_parts], parts.stand[th]],
+        np.r_[age_h[ev_parts], thin_age[kept]],
+        np.r_[ev_area, th_area],
+        np.r_[ev_vol, thin_ha[kept] * th_area],
+        np.r_[parts.sp[ev_parts], parts.sp[th]].astype(np.int64),
+        np.r_[np.zeros(len(ev_parts), np.int8), np.ones(len(th), np.int8)],
+    )
 
 
 def _cover_after(parts: _Parts, cover: CoverRules, age_h: NDArray, cut: _Cut) -> NDArray:
@@ -289,26 +458,83 @@ def _cover_after(parts: _Parts, cover: CoverRules, age_h: NDArray, cut: _Cut) ->
     return cover.measure(zones, after_age, after_area)
 
 
-def _regrow(parts: _Parts, cut: _Cut, L: float, off: float) -> int:
-    """Age the parts a period; cut parts restart after their delay, the partly cut part
-    splitting into its uncut rest and a regenerating part. Returns the part count before."""
-    regrown = L - off - parts.delay
-    new_age = parts.age + L
-    new_age[cut.full] = regrown[cut.full]
+def _regrow(
+    parts: _Parts,
+    cut: _Cut,
+    L: float,
+    off: float,
+    forest: StandArrays,
+    curves: CurveSet,
+    shares: NDArray | None,
+) -> tuple[int, tuple[NDArray, NDArray, NDArray]]:
+    """Age the parts a period; the partly cut part splits into its uncut rest and a
+    regenerating part; every cut part regrows as its code's regeneration says (``shares``:
+    codes x codes, the share of a cut of code i regrowing as j; None: as itself) and restarts
+    after that code's delay. Returns the part count before and the period's regeneration
+    (from code, to code, area of each regenerating part)."""
     n_before = len(parts.age)
+    new_age = parts.age + L
+    cut_parts = cut.full
     if cut.part >= 0:
         cut_area = cut.frac * parts.area[cut.part]
         parts.area[cut.part] -= cut_area
         parts.age = new_age
-        parts.extend(cut.part, regrown[cut.part], cut_area)
+        parts.extend(cut.part, 0.0, cut_area)
+        cut_parts = np.r_[cut.full, len(parts.age) - 1].astype(np.intp)
     else:
         parts.age = new_age
-    return n_before
+    if shares is None:
+        parts.age[cut_parts] = L - off - parts.delay[cut_parts]
+        parts.thinned_to[cut_parts] = np.where(parts.in_hlb[cut_parts], 0.0, -np.inf)
+        sp = parts.sp[cut_parts]
+        return n_before, (sp, sp, parts.area[cut_parts].copy())
+    return n_before, _regenerate(parts, cut_parts, L - off, forest, curves, shares)
+
+
+def _regenerate(
+    parts: _Parts,
+    cut_parts: NDArray,
+    start: float,
+    forest: StandArrays,
+    curves: CurveSet,
+    shares: NDArray,
+) -> tuple[NDArray, NDArray, NDArray]:
+    """The cut parts regrow as their codes' regeneration says: the first target code in
+    place, the others as new parts with their shares of the area; each takes its new code's
+    curve, site terms, minimum harvest age, delay and thinnings, and restarts at ``start``
+    less its delay."""
+    reg = forest.regimes
+    assert reg is not None and forest.min_age_by_code is not None
+    src_code = parts.sp[cut_parts]
+    row, to = np.nonzero(shares[src_code])
+    first = np.r_[True, row[1:] != row[:-1]] if len(row) else np.zeros(0, dtype=bool)
+    area = parts.area[cut_parts[row]] * shares[src_code[row], to]
+    extra = ~first
+    n0 = len(parts.age)
+    if extra.any():
+        parts.extend(cut_parts[row[extra]], 0.0, area[extra])
+    changed = np.r_[cut_parts, np.arange(n0, len(parts.age))].astype(np.intp)
+    new_code = np.r_[to[first], to[extra]]
+    parts.area[cut_parts] = area[first]
+    parts.sp[changed] = new_code
+    stand = parts.stand[changed]
+    terms = curves.site_terms(new_code, forest.site_index[stand])
+    parts.si.row[changed], parts.si.scale_v[changed] = terms.row, terms.scale_v
+    parts.si.scale_t[changed], parts.si.blend[changed] = terms.scale_t, terms.blend
+    hlb = parts.in_hlb[changed]
+    parts.min_age[changed] = np.where(hlb, forest.min_age_by_code[new_code, stand], np.inf)
+    parts.delay[changed] = reg.delay[new_code]
+    parts.age[changed] = start - parts.delay[changed]
+    parts.thinned_to[changed] = np.where(hlb, 0.0, -np.inf)
+    if reg.thins:
+        parts.thin_r[changed] = reg.removals(curves, new_code, terms)
+    return np.r_[src_code, src_code[row[extra]]], new_code, parts.area[changed].copy()
 
 
 def _disturb(
     parts: _Parts,
     curves: CurveSet,
+    reg: Regimes | None,
     rate: float,
     L: float,
     n_before: int,
@@ -327,7 +553,7 @@ def _disturb(
     if rng is None:
         idx = np.flatnonzero(exposed)
         lost = share * parts.area[idx]
-        vol = curves.volume_m3_ha(parts.sp[idx], parts.age[idx] - L / 2, terms=parts.si.take(idx))
+        vol = parts.volume(curves, idx, parts.age[idx] - L / 2, reg)
         out = lost.sum(), float(np.dot(vol, lost))
         key = parts.stand[idx] * 2 + parts.in_hlb[idx]
         _, first, inv = np.unique(key, return_index=True, return_inverse=True)
@@ -337,9 +563,10 @@ def _disturb(
         return out
     burn = rng.random(n_stands) < share
     hit = np.flatnonzero(exposed & burn[parts.stand])
-    vol = curves.volume_m3_ha(parts.sp[hit], parts.age[hit] - L / 2, terms=parts.si.take(hit))
+    vol = parts.volume(curves, hit, parts.age[hit] - L / 2, reg)
     out = parts.area[hit].sum(), float(np.dot(vol, parts.area[hit]))
     parts.age[hit] = L / 2 - parts.delay[hit]
+    parts.thinned_to[hit] = np.where(parts.in_hlb[hit], 0.0, -np.inf)
     return out
 
 
@@ -363,6 +590,7 @@ def simulate(
     record: bool = False,
     planned: NDArray | None = None,
     rng: np.random.Generator | None = None,
+    regen_shares: NDArray | None = None,
 ) -> Simulation:
     """Run the horizon under a target ``rule`` (a :mod:`yieldscape.policies` rule: each
     period's target and floor) and the harvest ``rules``.
@@ -377,13 +605,19 @@ def simulate(
     mapping of an LP schedule onto stands). Disturbance (``rules.disturbance``) is applied
     as expected area fractions, or, with ``rng``, as whole stands drawn at random (Monte
     Carlo). With ``record``, ``rules.snapshots`` names the period boundaries at which the
-    stand parts are kept; cover targets need ``stands.zone_idx``.
+    stand parts are kept; cover targets need ``stands.zone_idx``. Cut parts regrow as
+    ``stands.regimes`` says, or, with ``regen_shares`` (periods x codes x codes), in the
+    shares given for each period (the LP's choices mapped onto stands); thinnings due are
+    taken each period (see :func:`_cut_period`).
     """
     spatial = rules.spatial.fresh() if rules.spatial is not None else None
     P, L, off = periods.count, float(periods.period_years), periods.offset_years
     parts = _Parts.of(stands, curves)
+    reg = stands.regimes
+    if regen_shares is None and reg is not None and reg.changes:
+        regen_shares = np.broadcast_to(reg.transitions, (P, *reg.transitions.shape))
     sim = Simulation()
-    sim.initial_stock_m3 = parts.stock(curves)
+    sim.initial_stock_m3 = parts.stock(curves, reg)
     out = _Totals.empty(P)
     kept_at = set(rules.snapshots) if record else set()
     for p in range(P):
@@ -394,31 +628,38 @@ def simulate(
         target, floor = rule.bounds(p, out.h[p - 1] if p else 0.0)
         out.target[p], out.floor[p] = target, floor
         if record or p == P - stable_periods:
-            out.hlb_start[p] = parts.stock(curves, hlb_only=True)
+            out.hlb_start[p] = parts.stock(curves, reg, hlb_only=True)
         age_h = parts.age + off
         first = None if planned is None else planned > p + 1
-        cut = _cut_period(parts, curves, rules, spatial, p * L + off, age_h, target, first, record)
+        t = p * L + off
+        cut = _cut_period(parts, curves, reg, rules, spatial, t, age_h, target, first, record)
         out.h[p], out.ha[p], out.age_area[p] = cut.volume_m3, cut.area_ha, cut.age_area
+        out.thin_m3[p], out.thin_ha[p] = cut.thinning_m3, cut.thinning_ha
         if cut.events is not None:
-            out.events.append(
-                cut.events[:1] + (np.full(len(cut.events[0]), p + 1),) + cut.events[1:]
-            )
+            period = np.full(len(cut.events[0]), p + 1)
+            out.events.append(cut.events[:1] + (period,) + cut.events[1:])
         if record and rules.cover is not None:
             out.cover.append(_cover_after(parts, rules.cover, age_h, cut))
         if out.h[p] < floor * (1 - _REL) and sim.feasible:
             sim.feasible, sim.fail_period, sim.fail_reason = False, p + 1, _fail_reason(cut)
             if not record:
                 break
-        n_before = _regrow(parts, cut, L, off)
+        if reg is not None and reg.thins:  # the thinnings due are taken (a cut part restarts)
+            taken = np.where(parts.in_hlb, np.maximum(parts.thinned_to, age_h), -np.inf)
+            parts.thinned_to = taken
+        shares = None if regen_shares is None else regen_shares[p]
+        n_before, regen = _regrow(parts, cut, L, off, stands, curves, shares)
+        if record:
+            out.regen.append((np.full(len(regen[0]), p + 1), *regen))
         if rules.disturbance > 0:
             out.dist_ha[p], out.dist_m3[p] = _disturb(
-                parts, curves, rules.disturbance, L, n_before, cut.full, rng, stands.n
+                parts, curves, reg, rules.disturbance, L, n_before, cut.full, rng, stands.n
             )
         if record or p == P - 1:
-            out.gs_end[p] = parts.stock(curves)
+            out.gs_end[p] = parts.stock(curves, reg)
             if p == P - 1:
                 sim.ending_stock_m3 = out.gs_end[p]
-                sim.ending_hlb_stock_m3 = parts.stock(curves, hlb_only=True)
+                sim.ending_hlb_stock_m3 = parts.stock(curves, reg, hlb_only=True)
     _judge_end(sim, ending_stock, stable_periods, out.hlb_start, P)
     if P in kept_at:
         sim.snapshots[P] = parts.snapshot()
@@ -457,8 +698,11 @@ class _Totals:
     floor: NDArray
     dist_ha: NDArray
     dist_m3: NDArray
+    thin_m3: NDArray
+    thin_ha: NDArray
     events: list[tuple[NDArray, ...]] = field(default_factory=list)
     cover: list[NDArray] = field(default_factory=list)
+    regen: list[tuple[NDArray, ...]] = field(default_factory=list)
 
     @classmethod
     def empty(cls, P: int) -> _Totals:
@@ -470,6 +714,8 @@ class _Totals:
             nan.copy(),
             nan.copy(),
             nan.copy(),
+            np.zeros(P),
+            np.zeros(P),
             np.zeros(P),
             np.zeros(P),
             np.zeros(P),
@@ -487,6 +733,7 @@ class _Totals:
             sim.cover_area_ha = np.vstack(self.cover)
         sim.harvest_m3, sim.harvest_ha, sim.harvest_age_area = self.h, self.ha, self.age_area
         sim.growing_stock_start_m3, sim.growing_stock_end_m3 = self.gs_start, self.gs_end
+        sim.thinning_m3, sim.thinning_ha = self.thin_m3, self.thin_ha
         if self.events:
             cols = [np.concatenate(c) for c in zip(*self.events, strict=True)]
             (
@@ -495,4 +742,9 @@ class _Totals:
                 sim.event_age_years,
                 sim.event_area_ha,
                 sim.event_volume_m3,
+                sim.event_code,
+                sim.event_treatment,
             ) = cols
+        if self.regen:
+            cols = [np.concatenate(c) for c in zip(*self.regen, strict=True)]
+            sim.regen_period, sim.regen_from, sim.regen_to, sim.regen_area_ha = cols
