@@ -19,18 +19,16 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pyproj
-import shapely
 
 from yieldscape.adjacency import stand_adjacency
 from yieldscape.config import Scenario
 from yieldscape.errors import InputError, OutputError
-from yieldscape.geometry import metres_per_unit, metric_geometries
 from yieldscape.inventory import prepare_inventory
 from yieldscape.io.outputs import check_files_dir, check_output_dir, read_run, staged_output
 from yieldscape.io.readers import raster_site_index, read_overlay, read_step_raster
 from yieldscape.io.vector import read_layer
 from yieldscape.landbase import apply_netdown, where_fields, with_netdown_columns
-from yieldscape.limits import check_run_size
+from yieldscape.limits import check_run_size, stand_extent_m
 from yieldscape.projection import (
     CurveSet,
     Periods,
@@ -53,6 +51,7 @@ from yieldscape.reporting.curves import curves_table
 from yieldscape.reporting.curves import notes as curve_notes
 from yieldscape.reporting.indicators import (
     age_class_table,
+    analysis_unit_table,
     boundary_index,
     harvest_breakdown,
     horizon_indicators,
@@ -119,7 +118,7 @@ def check(scenario: Scenario, strict: bool = False) -> CheckResult:
     _warn((*inventory.report.warnings, *netdown.warnings, *netdown.notes))
     stands = with_netdown_columns(inventory.stands, netdown, scenario.landbase.steps)
     _cover(scenario, stands)  # a target naming an unknown zone is an input error now
-    check_run_size(scenario, len(stands), _extent_m(stands, scenario), _where(scenario))
+    check_run_size(scenario, len(stands), stand_extent_m(stands, scenario), _where(scenario))
     if scenario.harvest.spatial and scenario.harvest.max_opening_ha:
         _warn(too_large_for_openings(netdown.harvestable_ha, scenario.harvest.max_opening_ha))
     return CheckResult(stands, inventory.report, netdown)
@@ -127,15 +126,6 @@ def check(scenario: Scenario, strict: bool = False) -> CheckResult:
 
 def _where(scenario: Scenario) -> str:
     return f"{scenario.source}: " if scenario.source is not None else ""
-
-
-def _extent_m(stands: pd.DataFrame, scenario: Scenario) -> tuple[float, float]:
-    """Width and height of the stands in metres (only needed for the GeoTIFF size check)."""
-    if not scenario.report.raster_cell_m:
-        return 0.0, 0.0
-    geoms, wcrs = metric_geometries(stands)
-    x0, y0, x1, y1 = shapely.total_bounds(geoms)
-    return (x1 - x0) * metres_per_unit(wcrs), (y1 - y0) * metres_per_unit(wcrs)
 
 
 def _cover(scenario: Scenario, stands: pd.DataFrame) -> CoverRules | None:
@@ -362,6 +352,7 @@ def _indicators(scenario: Scenario, model: _Model, sched: _Schedule, result: Run
         snaps, stands, p, rep.age_class_years, rep.age_class_width_years
     )
     result.stand_ages = stand_ages_table(snaps, stands, p, rep.age_class_years)
+    result.analysis_units = analysis_unit_table(snaps, p, rep.age_class_years, model.curves.codes)
     result.harvest_breakdown = harvest_breakdown(flow, stands, p, model.curves.codes)
     result.curves, result.curve_summaries = curves_table(scenario, stands)
 

@@ -285,29 +285,66 @@ def growing_stock_m3(
     return float(np.dot(curves.volume_m3_ha(species_idx, age_years, terms=terms), area_ha))
 
 
+def long_run_codes(arrays: StandArrays) -> list[tuple[int, NDArray, NDArray]]:
+    """What each stand's harvestable land grows as in the long run (after the regeneration
+    chain has settled, :meth:`Regimes.long_run`): per code, the share of each stand's area on
+    it and the code's minimum harvest age at the stand's site. Without transitions every
+    stand stays its own code."""
+    reg = arrays.regimes
+    if reg is None or not reg.changes:
+        out = []
+        for i in np.unique(arrays.species_idx):
+            share = (arrays.species_idx == i).astype(np.float64)
+            out.append((int(i), share, arrays.min_harvest_age))
+        return out
+    assert arrays.min_age_by_code is not None
+    pi = reg.long_run()[arrays.species_idx]  # stands x codes
+    return [
+        (int(j), pi[:, j], arrays.min_age_by_code[j])
+        for j in np.flatnonzero(pi.max(axis=0) > 1e-12)
+    ]
+
+
+def standing_m3_ha(
+    curves: CurveSet, code: NDArray, age: NDArray, site: NDArray, reg: Regimes | None
+) -> NDArray[np.float64]:
+    """Standing volume [m3/ha] of thinned stands at these ages: the gross yield less the
+    thinnings taken up to each age (the gross yield where a code is not thinned)."""
+    v = curves.volume_m3_ha(code, age, site)
+    if reg is None or not reg.thins:
+        return v
+    terms = curves.site_terms(code, site)
+    return v - reg.removed(code, reg.removals(curves, code, terms), age)
+
+
 def regulated_growing_stock_m3(
     curves: CurveSet, stands: StandArrays, area_ha: NDArray, nodes: int = 65
 ) -> float:
-    """Growing stock [m3] of the same area as a fully regulated (normal) forest cut at each
-    stand's minimum harvest age R: equal area in every age from 0 to R, so a stand holds
-    area x (1/R) * integral_0^R V(t) dt. The integral is Simpson's rule on ``nodes`` ages,
-    worked out once per distinct (species, site index, R). Stands never eligible (R infinite
-    or 0) hold no regulated stock of their own and are left out."""
-    r = stands.min_harvest_age
-    ok = np.isfinite(r) & (r > 0) & (area_ha > 0)
-    if not ok.any():
-        return 0.0
-    keys = np.c_[stands.species_idx[ok], stands.site_index[ok], r[ok]]
-    uniq, inv = np.unique(keys, axis=0, return_inverse=True)
-    sp, si, rr = uniq[:, 0].astype(np.int64), uniq[:, 1], uniq[:, 2]
+    """Growing stock [m3] of the same area as a fully regulated (normal) forest cut at the
+    minimum harvest age R of the codes it grows as in the long run: equal area in every age
+    from 0 to R, so a hectare holds (1/R) * integral_0^R S(t) dt, S the standing volume
+    (thinnings taken). The integral is Simpson's rule on ``nodes`` ages, worked out once per
+    distinct (code, site index, R). Land never eligible (R infinite or 0) holds no regulated
+    stock of its own and is left out."""
+    total = 0.0
     x = np.linspace(0.0, 1.0, nodes)  # nodes odd: Simpson weights 1 4 2 4 ... 4 1
     w = np.ones(nodes)
     w[1:-1:2], w[2:-1:2] = 4.0, 2.0
     w /= w.sum()
-    t = rr[:, None] * x[None, :]
-    v = curves.volume_m3_ha(np.repeat(sp, nodes), t.ravel(), np.repeat(si, nodes))
-    mean_v = v.reshape(len(uniq), nodes) @ w  # (1/R) integral_0^R V
-    return float(np.dot(np.bincount(inv.ravel(), area_ha[ok], len(uniq)), mean_v))
+    for j, share, r in long_run_codes(stands):  # per code
+        weight = area_ha * share
+        ok = np.isfinite(r) & (r > 0) & (weight > 0)
+        if not ok.any():
+            continue
+        keys = np.c_[stands.site_index[ok], r[ok]]
+        uniq, inv = np.unique(keys, axis=0, return_inverse=True)
+        si, rr = uniq[:, 0], uniq[:, 1]
+        t = rr[:, None] * x[None, :]
+        code = np.full(t.size, j, dtype=np.int64)
+        v = standing_m3_ha(curves, code, t.ravel(), np.repeat(si, nodes), stands.regimes)
+        mean_v = v.reshape(len(uniq), nodes) @ w  # (1/R) integral_0^R S
+        total += float(np.dot(np.bincount(inv.ravel(), weight[ok], len(uniq)), mean_v))
+    return total
 
 
 def zone_codes(stands: pd.DataFrame) -> NDArray[np.int64]:
@@ -324,18 +361,20 @@ def zone_names(stands: pd.DataFrame) -> list[str]:
 def long_term_sustained_yield(
     curves: CurveSet, arrays: StandArrays, search: Search
 ) -> dict[str, float]:
-    """Harvestable area times MAI, summed over stands [m3/year]: at each stand's MAI
-    culmination, and at its minimum harvest age (the rotation the rules use)."""
+    """Harvestable area times MAI of total yield (final felling plus thinnings), summed over
+    stands [m3/year], on the curves the land regrows into in the long run
+    (:func:`long_run_codes`): at each code's MAI culmination, and at its minimum harvest age
+    (the rotation the rules use)."""
     area = arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
     at_cul = np.zeros(arrays.n)
-    for i in range(len(curves.codes)):  # per species; per distinct site inside
-        mine = arrays.species_idx == i
-        if mine.any():
-            at_cul[mine] = max_mai(curves.curves[i], arrays.site_index[mine], search)
-    r = arrays.min_harvest_age
-    ok = np.isfinite(r) & (r > 0)
     at_rot = np.zeros(arrays.n)
-    at_rot[ok] = curves.volume_m3_ha(arrays.species_idx[ok], r[ok], arrays.site_index[ok]) / r[ok]
+    for j, share, r in long_run_codes(arrays):  # per code; per distinct site inside
+        mine = share > 0
+        at_cul[mine] += share[mine] * max_mai(curves.curves[j], arrays.site_index[mine], search)
+        ok = mine & np.isfinite(r) & (r > 0)
+        code = np.full(int(ok.sum()), j)
+        gross = curves.volume_m3_ha(code, r[ok], arrays.site_index[ok])
+        at_rot[ok] += share[ok] * gross / r[ok]
     return {
         "at_culmination": float(np.dot(area, at_cul)),
         "at_min_harvest_age": float(np.dot(area, at_rot)),

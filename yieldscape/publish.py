@@ -52,6 +52,7 @@ VERDICT_CSV = "verdict.csv"
 AGE_CLASSES_CSV = "age_classes.csv"
 BREAKDOWN_CSV = "harvest_by_zone_species.csv"
 REGENERATION_CSV = "regeneration.csv"
+UNITS_CSV = "area_by_analysis_unit.csv"
 COMPARISON_CSV = "comparison.csv"
 COMPARISON_PNG = "comparison.png"
 REPORT_HTML = "report.html"
@@ -76,6 +77,7 @@ MANAGED = frozenset(
         AGE_CLASSES_CSV,
         BREAKDOWN_CSV,
         REGENERATION_CSV,
+        UNITS_CSV,
         COMPARISON_CSV,
         REPORT_HTML,
         REPORT_MD,
@@ -160,6 +162,7 @@ def write_tables(result: RunResult, directory: Path) -> None:
         (result.age_classes, "age_classes", AGE_CLASSES_CSV),
         (result.harvest_breakdown, "harvest_by_zone_species", BREAKDOWN_CSV),
         (result.regeneration, "regeneration", REGENERATION_CSV),
+        (result.analysis_units, "area_by_analysis_unit", UNITS_CSV),
         (result.stand_ages, "stand_ages", None),
     ]
     for table, layer, csv in tables:
@@ -456,6 +459,7 @@ def report_data(
         binding=result.flow.binding,
         cover=result.cover,
         breakdown=result.harvest_breakdown,
+        analysis_units=result.analysis_units,
         comparison=comparison,
         lp=result.lp,
         case=case,

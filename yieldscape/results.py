@@ -62,6 +62,7 @@ class RunResult:
     monte_carlo: pd.DataFrame | None = None  # percentiles over disturbance replicates
     cases: dict[str, RunResult] = field(default_factory=dict)  # sensitivity cases by name
     age_classes: pd.DataFrame | None = None  # area by year, zone and age class
+    analysis_units: pd.DataFrame | None = None  # area by year and code grown as
     stand_ages: pd.DataFrame | None = None  # each stand's age at the report years
     harvest_breakdown: pd.DataFrame | None = None  # harvest by period, zone and species
     regulated_hlb_stock_m3: float = float("nan")  # a regulated forest's, harvestable land

@@ -29,13 +29,14 @@ def _put(path: str, value):
     return edit
 
 
-def _table_species(ages, volumes):
+def _table_species(ages, volumes, **more):
     def edit(raw, tmp_path):
         raw["species"]["pine"] = {
             "curve": "table",
             "ages": ages,
             "volumes_m3_ha": volumes,
             "min_harvest_age": 40,
+            **more,
         }
 
     return edit
@@ -385,6 +386,77 @@ CASES = {
         None,
         ["--strict"],
         r"#1 'reserves': 1 invalid overlay geometries \(--strict\): feature 1: Self-intersection",
+    ),
+    # regimes: regeneration, thinning, analysis units
+    "regrowth as an unknown code": (
+        _put("species.pine.regenerate_as", "ghost"),
+        None,
+        [],
+        r"\[species.pine\] regenerate_as names 'ghost', which has no \[species.ghost\] table",
+    ),
+    "regrowth shares not adding to 1": (
+        _put("species.pine.regenerate_as", {"pine": 0.5, "pine2": 0.2}),
+        None,
+        [],
+        r"regenerate_as = .*the shares add up to 0.7, not 1",
+    ),
+    "an empty choice": (
+        _put("species.pine.regenerate_as", []),
+        None,
+        [],
+        r"regenerate_as = \[\]: a choice needs at least one code",
+    ),
+    "a thinning share above one": (
+        _put("species.pine.thinnings", [{"age_years": 30, "removal_share": 1.5}]),
+        None,
+        [],
+        r"\[species.pine.thinnings #1\] removal_share = 1.5: must be > 0 and < 1",
+    ),
+    "a thinning share of zero": (
+        _put("species.pine.thinnings", [{"age_years": 30, "removal_share": 0}]),
+        None,
+        [],
+        r"removal_share = 0: must be > 0 and < 1",
+    ),
+    "a thinning age beyond the curve": (
+        _put("species.pine.thinnings", [{"age_years": 450, "removal_share": 0.2}]),
+        None,
+        [],
+        r"age_years = 450 is beyond the curve \(growth.max_age_years is 400\)",
+    ),
+    "a thinning age beyond the table": (
+        _table_species(
+            [0.0, 50.0, 100.0],
+            [0.0, 150.0, 300.0],
+            thinnings=[{"age_years": 120, "removal_share": 0.2}],
+        ),
+        None,
+        [],
+        r"age_years = 120 is beyond the curve \(the table's last age is 100\)",
+    ),
+    "removals larger than the stand": (
+        _table_species([0.0, 50.0, 100.0], [0.0, 150.0, 300.0], thinning_m3_ha=[0.0, 200.0, 0.0]),
+        None,
+        [],
+        r"thinning_m3_ha = 200 at age 50 is larger than the standing volume 150",
+    ),
+    "table removals on a parametric curve": (
+        _put("species.pine.thinning_m3_ha", [10.0, 20.0]),
+        None,
+        [],
+        r"key 'thinning_m3_ha' does not apply to curve 'chapman-richards'",
+    ),
+    "an analysis unit of an unknown code": (
+        _put("inventory.analysis_units", [{"where": "AGE > 50", "species": "ghost"}]),
+        None,
+        [],
+        r"\[\[inventory.analysis_units\]\] #1 species = 'ghost' has no \[species.ghost\] table",
+    ),
+    "an analysis unit naming an unknown field": (
+        _put("inventory.analysis_units", [{"where": "ORIGIN == 'planted'", "species": "pine"}]),
+        None,
+        [],
+        r"\[\[inventory.analysis_units\]\] #1: where = .* names field 'ORIGIN'",
     ),
     # the stand layer
     "age inf": (

@@ -44,6 +44,7 @@ def test_sample_run_writes_its_outputs(sample_run):
     # the sample has spatial rules, cover targets, rasters, a Markdown report and two cases
     assert sorted(p.name for p in out.iterdir()) == [
         "age_classes.csv",
+        "area_by_analysis_unit.csv",
         "comparison.csv",
         "cover.csv",
         "figures",

@@ -92,6 +92,7 @@ def test_layers_read_back_with_pyogrio(run_dir):
     layers = dict(pyogrio.list_layers(gpkg))
     tables = {"wood_flow", "wood_flow_by_product", "netdown", "indicators", "verdict"}
     tables |= {"age_classes", "harvest_by_zone_species", "stand_ages", "regeneration"}
+    tables |= {"area_by_analysis_unit"}
     assert {name for name, kind in layers.items() if kind is None} == tables
     assert {"stands", "harvests", "harvests_period_01", "stands_age_2130"} <= set(layers)
     stands = pyogrio.read_dataframe(gpkg, layer="stands")
@@ -151,6 +152,7 @@ YEAR_COLUMNS = {  # every calendar-year and period column of the GeoPackage's ta
     "age_classes": ("year",),
     "harvest_by_zone_species": ("period", "start_year"),
     "regeneration": ("period",),
+    "area_by_analysis_unit": ("year",),
     "verdict": ("first_failing_period",),
 }
 

@@ -31,16 +31,21 @@ COLUMNS = [
 ]
 
 
-def site_values(stands: pd.DataFrame, step_m: float) -> dict[str, pd.DataFrame]:
-    """Per species: the site index values in use (rounded to ``step_m``), stands and area."""
+def site_values(
+    stands: pd.DataFrame, step_m: float, scenario: Scenario | None = None
+) -> dict[str, pd.DataFrame]:
+    """Per code: the site index values in use (rounded to ``step_m``), stands and area. A
+    code counts a stand that grows as it now (its analysis unit, else its species) or may
+    regrow as it after a clearcut (``regenerate_as``, followed along its chain)."""
     rounded = np.round(stands["site_index"].to_numpy() / step_m) * step_m
+    own = stands["analysis_unit"] if "analysis_unit" in stands else stands["species"]
     frame = pd.DataFrame(
-        {
-            "species": stands["species"].to_numpy(),
-            "site_index": rounded,
-            "area_ha": stands["area_ha"].to_numpy(),
-        }
+        {"species": own.to_numpy(), "site_index": rounded, "area_ha": stands["area_ha"].to_numpy()}
     )
+    if scenario is not None:
+        reach = reachable_codes(scenario)
+        frame = frame.assign(species=[sorted(reach[c]) for c in frame["species"]])
+        frame = frame.explode("species", ignore_index=True)
     grouped = (
         frame.groupby(["species", "site_index"])
         .agg(stands=("area_ha", "size"), area_ha=("area_ha", "sum"))
@@ -49,13 +54,30 @@ def site_values(stands: pd.DataFrame, step_m: float) -> dict[str, pd.DataFrame]:
     return {str(sp): g.reset_index(drop=True) for sp, g in grouped.groupby("species")}
 
 
+def reachable_codes(scenario: Scenario) -> dict[str, set[str]]:
+    """Each code and every code its clearcuts may regrow as, along the chain (any option)."""
+    nxt = {
+        code: set(sp.regenerate_as.codes) if sp.regenerate_as else set()
+        for code, sp in scenario.species.items()
+    }
+    out = {}
+    for code in scenario.species:  # a handful of codes
+        seen, todo = {code}, [code]
+        while todo:
+            for to in nxt[todo.pop()] - seen:
+                seen.add(to)
+                todo.append(to)
+        out[code] = seen
+    return out
+
+
 def curves_table(
     scenario: Scenario, stands: pd.DataFrame, step_m: float = 1.0
 ) -> tuple[pd.DataFrame, dict[str, list[SiteSummary]]]:
     """One row per species and site value used; the summaries behind the rows by species."""
     rows = []
     summaries: dict[str, list[SiteSummary]] = {}
-    for code, sites in site_values(stands, step_m).items():
+    for code, sites in site_values(stands, step_m, scenario).items():
         cfg = scenario.species[code]
         curve = cfg.yield_curve()
         summaries[code] = []

@@ -183,6 +183,36 @@ def age_class_table(
     return pd.concat(frames, ignore_index=True)
 
 
+def analysis_unit_table(
+    snapshots: dict[int, PartsSnapshot],
+    periods: Periods,
+    years: tuple[int, ...],
+    codes: tuple[str, ...],
+) -> pd.DataFrame:
+    """Area [ha] by report year and the code it grows as (its analysis unit, or the code it
+    regrew as), on the whole forest and on the harvestable land base: how regeneration
+    changes the forest over time."""
+    n = len(codes)
+    frames = []
+    for year in years:
+        snap = snapshots[boundary_index(periods, year)]
+        code = snap.code if snap.code is not None else np.zeros(len(snap.stand), np.int64)
+        total = np.bincount(code, snap.area_ha, n)
+        on_hlb = np.bincount(code[snap.in_hlb], snap.area_ha[snap.in_hlb], n)
+        frames.append(
+            pd.DataFrame(
+                {
+                    "year": year,
+                    "analysis_unit": np.array(codes, dtype=object),
+                    "area_ha": total,
+                    "harvestable_ha": on_hlb,
+                }
+            )
+        )
+    out = pd.concat(frames, ignore_index=True)
+    return out[out.groupby("analysis_unit")["area_ha"].transform("max") > 0].reset_index(drop=True)
+
+
 def stand_ages_table(
     snapshots: dict[int, PartsSnapshot],
     stands: pd.DataFrame,

@@ -91,6 +91,7 @@ class ReportData:
     binding: str
     cover: pd.DataFrame | None = None
     breakdown: pd.DataFrame | None = None
+    analysis_units: pd.DataFrame | None = None  # area by report year and code
     comparison: pd.DataFrame | None = None
     lp: dict | None = None
     case: tuple[str, dict] | None = None  # a sensitivity case: its name and the keys it sets
@@ -230,10 +231,47 @@ def _scenario_table(data: ReportData) -> pd.DataFrame:
                 for code, sp in s.species.items()
             ),
         ),
+        ("regeneration", _regeneration_text(s)),
+        ("thinnings", _thinning_text(s)),
     ]
     if s.overrides:
         rows.append(("overrides (--set)", ", ".join(s.overrides)))
     return pd.DataFrame(rows, columns=["item", "value"])
+
+
+def _regeneration_text(s: Scenario) -> str:
+    """What each code's clearcuts regrow as, in words."""
+    parts = []
+    for code, sp in s.species.items():
+        r = sp.regenerate_as
+        if r is None:
+            continue
+        if r.kind == "as":
+            parts.append(f"{code} regrows as {r.codes[0]}")
+        elif r.kind == "split":
+            shares = ", ".join(f"{100 * q:g}% {c}" for c, q in zip(r.codes, r.shares, strict=True))
+            parts.append(f"{code} regrows as {shares}")
+        else:
+            parts.append(
+                f"{code}: the harvest LP chooses among {', '.join(r.codes)} (the rules take "
+                f"{r.codes[0]})"
+            )
+    return "; ".join(parts) or "each code regrows as itself"
+
+
+def _thinning_text(s: Scenario) -> str:
+    """Each thinned code's thinnings, in words."""
+    parts = []
+    for code, sp in s.species.items():
+        if sp.thinnings:
+            each = ", ".join(f"{100 * t.removal_share:g}% at {t.age_years:g}" for t in sp.thinnings)
+            parts.append(f"{code}: {each} years (shares of the standing volume)")
+        elif sp.thinning_m3_ha is not None and sp.ages is not None:
+            ages = [a for a, *r in zip(sp.ages, *sp.thinning_m3_ha, strict=True) if max(r) > 0]
+            parts.append(
+                f"{code}: the yield table's removals at {', '.join(f'{a:g}' for a in ages)} years"
+            )
+    return "; ".join(parts) or "none"
 
 
 ROTATION_HEADERS = {
@@ -469,6 +507,16 @@ def _structure(data: ReportData) -> Section:
         )
         forest.blocks.append(
             Table(_shown(by, BREAKDOWN_SHOWN), "Harvest over the horizon by zone and species.")
+        )
+    units = data.analysis_units
+    if units is not None and units["analysis_unit"].nunique() > 1:
+        wide = units.pivot(index="year", columns="analysis_unit", values="area_ha").reset_index()
+        forest.blocks.append(
+            Table(
+                wide,
+                "Area (ha) by analysis unit at the report years: what the forest grows as, "
+                "regeneration included (area_by_analysis_unit.csv).",
+            )
         )
     return forest
 

@@ -214,8 +214,9 @@ class _Parts:
         )
         self.rank, self.zone = np.r_[self.rank, self.rank[src]], np.r_[self.zone, self.zone[src]]
         self.in_hlb = np.r_[self.in_hlb, self.in_hlb[src]]
-        self.age = np.r_[self.age, age]
-        self.area = np.r_[self.area, area]
+        k = len(np.atleast_1d(src))
+        self.age = np.r_[self.age, np.broadcast_to(age, (k,))]
+        self.area = np.r_[self.area, np.broadcast_to(area, (k,))]
         self.thin_r = np.r_[self.thin_r, self.thin_r[np.atleast_1d(src)]]
         n_new = len(self.age) - len(self.thinned_to)
         taken = np.broadcast_to(np.asarray(thinned_to, dtype=np.float64), (n_new,))
