@@ -124,6 +124,13 @@ def scenario_dict(inventory: Path, **sections: dict[str, Any]) -> dict[str, Any]
     return raw
 
 
+def small_case_files(directory: Path) -> tuple[Path, Path]:
+    """Twenty 1-ha pine stands aged 0..95 and a scenario over them: (layer, scenario)."""
+    n = 20
+    layer = write_layer(directory / "stands.gpkg", squares(n), stand_attrs(n, np.arange(n) * 5))
+    return layer, write_scenario(directory / "scenario.toml", scenario_dict(layer))
+
+
 def dump_toml(raw: dict[str, Any]) -> str:
     """Enough TOML for test scenarios: tables, arrays, arrays of tables, inline tables."""
 
