@@ -5,8 +5,6 @@ import contextlib
 import io
 import json
 import re
-import subprocess
-import sys
 from pathlib import Path
 
 import numpy as np
@@ -46,22 +44,24 @@ X0, Y0 = 500_000.0, 6_700_000.0
 # -- the committed sample region, run once ---------------------------------------------------
 
 
+def run_command(args):
+    """The command as a user runs it, its terminal output kept: (stdout, stderr)."""
+    stdout, stderr = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(stdout), contextlib.redirect_stderr(stderr):
+        code = main(args)
+    assert code == 0, stderr.getvalue()
+    return stdout.getvalue(), stderr.getvalue()
+
+
 @pytest.fixture(scope="module")
 def sample_run(tmp_path_factory):
-    """The README's quick start on the committed sample, base case only, in a process of its own."""
+    """The README's quick start on the committed sample, base case only: (out, stdout, stderr)."""
     out = tmp_path_factory.mktemp("sample") / "results"
-    proc = subprocess.run(
-        [sys.executable, "-m", "yieldscape.cli.main", "run", str(SCENARIO), "--out", str(out)]
-        + BASE_ONLY,
-        capture_output=True,
-        text=True,
-    )
-    assert proc.returncode == 0, proc.stderr
-    return out, proc
+    return out, *run_command(["run", str(SCENARIO), "--out", str(out), *BASE_ONLY])
 
 
 def test_the_sample_runs_and_says_what_it_found(sample_run):
-    out, proc = sample_run
+    out, stdout, stderr = sample_run
     # the sample has spatial rules, cover targets, rasters and a Markdown report
     assert sorted(p.name for p in out.iterdir()) == [
         "age_classes.csv",
@@ -81,10 +81,10 @@ def test_the_sample_runs_and_says_what_it_found(sample_run):
         "wood_flow.csv",
         "wood_flow_by_product.csv",
     ]
-    assert "even-flow level" in proc.stdout and "limited by" in proc.stdout
-    assert "verdict: Sustainable" in proc.stdout
-    assert "planning estimates" in proc.stdout
-    assert "project and schedule" in proc.stderr  # progress per stage on stderr
+    assert "even-flow level" in stdout and "limited by" in stdout
+    assert "verdict: Sustainable" in stdout
+    assert "planning estimates" in stdout
+    assert "project and schedule" in stderr  # progress per stage on stderr
     # the log file holds the stages with their times, whatever the terminal showed
     log = (out / "run.log").read_text(encoding="utf-8")
     for line in ("read and check inventory done in", "project and schedule done in", "verdict:"):
@@ -92,8 +92,8 @@ def test_the_sample_runs_and_says_what_it_found(sample_run):
 
 
 def test_sample_keeps_its_spatial_rules_and_cover_targets(sample_run):
-    out, proc = sample_run
-    assert "no rule is broken" in proc.stdout and "the schedule is" in proc.stdout
+    out, stdout, _ = sample_run
+    assert "no rule is broken" in stdout and "the schedule is" in stdout
     openings = pd.read_csv(out / "openings.csv")
     assert openings["area_ha"].max() <= 60 + 1e-6  # harvest.max_opening_ha of the sample
     cover = pd.read_csv(out / "cover.csv")
@@ -106,7 +106,7 @@ def test_sample_keeps_its_spatial_rules_and_cover_targets(sample_run):
 
 
 def test_the_sample_has_a_realistic_netdown(sample_run):
-    out, _ = sample_run
+    out, _, _ = sample_run
     nd = pd.read_csv(out / "netdown.csv")
     stands = pyogrio.read_dataframe(out / "projection.gpkg", layer="stands", read_geometry=False)
     share = nd["remaining_ha"].iloc[-1] / stands["gross_ha"].sum()
@@ -227,15 +227,9 @@ def small_forest(d: Path) -> Path:
 
 @pytest.fixture(scope="module")
 def forest_run(tmp_path_factory):
-    """The small forest run once through the command, its terminal output kept."""
-    d = tmp_path_factory.mktemp("forest")
-    scenario = small_forest(d)
-    out = d / "results"
-    stdout, stderr = io.StringIO(), io.StringIO()
-    with contextlib.redirect_stdout(stdout), contextlib.redirect_stderr(stderr):
-        code = main(["run", str(scenario), "--out", str(out)])
-    assert code == 0, stderr.getvalue()
-    return out, stdout.getvalue(), stderr.getvalue()
+    """The small forest run once through the command: (out, stdout, stderr)."""
+    out = tmp_path_factory.mktemp("forest") / "results"
+    return out, *run_command(["run", str(small_forest(out.parent)), "--out", str(out)])
 
 
 def test_a_run_writes_the_outputs_its_options_ask_for(forest_run):
