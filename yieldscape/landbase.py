@@ -94,6 +94,13 @@ def evaluate_where(expr: str, fields: Mapping[str, pd.Series], where: str) -> np
     comparisons ``== != < <= > >=`` (chains allowed); ``in [...]`` / ``not in [...]``;
     ``and``, ``or``, ``not``; ``+ - * /`` and parentheses; ``isnull(FIELD)``,
     ``notnull(FIELD)``. A comparison with a null value is false.
+
+    >>> import pandas as pd
+    >>> fields = {"COVER": pd.Series(["forest", "rock", None]), "AGE": pd.Series([80, 30, 120])}
+    >>> evaluate_where("COVER in ['wetland', 'rock'] or AGE > 100", fields, "step 1").tolist()
+    [False, True, True]
+    >>> evaluate_where("COVER == 'forest'", fields, "step 1").tolist()  # null: false
+    [True, False, False]
     """
     try:
         tree = ast.parse(expr, mode="eval")
