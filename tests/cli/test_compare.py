@@ -115,6 +115,7 @@ def test_compare_of_the_cases_names_each_cases_change(cases_run, tmp_path):
     assert level[1] >= level[0] >= level[3]
     # the run's own comparison (written with the base) says the same
     own = pd.read_csv(out / "comparison.csv")
+    assert list(own.columns) == list(table.columns)  # so the docs check above covers both
     assert own["run"].tolist() == ["base", "loose", "late", "openings-2ha"]
     assert own["differences"].iloc[1:].tolist() == table["differences"].iloc[1:].tolist()
     np.testing.assert_allclose(own["level_m3_per_year"], table["level_m3_per_year"])
