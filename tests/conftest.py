@@ -2,13 +2,12 @@ import os
 import sys
 from pathlib import Path
 
-import numpy as np
 import pytest
 from hypothesis import settings
 
 sys.path.insert(0, str(Path(__file__).parent))
 
-from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario  # noqa: E402
+from helpers import small_case_files  # noqa: E402
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -16,9 +15,7 @@ ROOT = Path(__file__).resolve().parents[1]
 @pytest.fixture
 def small_case(tmp_path):
     """Twenty 1-ha pine stands aged 0..95 and a scenario over them, written to tmp_path."""
-    n = 20
-    layer = write_layer(tmp_path / "stands.gpkg", squares(n), stand_attrs(n, ages=np.arange(n) * 5))
-    scenario = write_scenario(tmp_path / "scenario.toml", scenario_dict(layer))
+    layer, scenario = small_case_files(tmp_path)
     return tmp_path, layer, scenario
 
 

@@ -40,6 +40,36 @@ def write_layer(
     return path
 
 
+def write_raster(
+    path: Path,
+    values: np.ndarray,
+    x0: float = 500_000.0,
+    y0: float = 6_701_000.0,
+    cell: float = 10.0,
+    crs: str | None = "EPSG:32633",
+    nodata: float = -9999.0,
+) -> Path:
+    """Write a one-band float32 GeoTIFF (north up, upper left corner at x0, y0) with rasterio."""
+    import rasterio
+    from rasterio.transform import from_origin
+
+    prof = {
+        "driver": "GTiff",
+        "width": values.shape[1],
+        "height": values.shape[0],
+        "count": 1,
+        "dtype": "float32",
+        "transform": from_origin(x0, y0, cell, cell),
+        "nodata": nodata,
+        "compress": "deflate",
+    }
+    if crs is not None:
+        prof["crs"] = crs
+    with rasterio.open(path, "w", **prof) as dst:
+        dst.write(values.astype("float32"), 1)
+    return path
+
+
 def stand_attrs(n: int, ages: Any, species: Any = "pine", site: Any = 18.0) -> dict[str, Any]:
     return {
         "ID": np.arange(1, n + 1),
@@ -92,6 +122,13 @@ def scenario_dict(inventory: Path, **sections: dict[str, Any]) -> dict[str, Any]
         else:
             raw[name] = table
     return raw
+
+
+def small_case_files(directory: Path) -> tuple[Path, Path]:
+    """Twenty 1-ha pine stands aged 0..95 and a scenario over them: (layer, scenario)."""
+    n = 20
+    layer = write_layer(directory / "stands.gpkg", squares(n), stand_attrs(n, np.arange(n) * 5))
+    return layer, write_scenario(directory / "scenario.toml", scenario_dict(layer))
 
 
 def dump_toml(raw: dict[str, Any]) -> str:

@@ -18,27 +18,16 @@ from yieldscape.cli.main import main
 from yieldscape.io.rasters import RasterData
 from yieldscape.zonal import zonal
 
-from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
+from helpers import (
+    scenario_dict,
+    squares,
+    stand_attrs,
+    write_layer,
+    write_raster,
+    write_scenario,
+)
 
 X0, Y0 = 500_000.0, 6_700_000.0
-
-
-def write_raster(path, values, x0=X0, y0=Y0 + 1000, cell=10.0, crs="EPSG:32633", nodata=-9999.0):
-    prof = {
-        "driver": "GTiff",
-        "width": values.shape[1],
-        "height": values.shape[0],
-        "count": 1,
-        "dtype": "float32",
-        "transform": from_origin(x0, y0, cell, cell),
-        "nodata": nodata,
-        "compress": "deflate",
-    }
-    if crs is not None:
-        prof["crs"] = crs
-    with rasterio.open(path, "w", **prof) as dst:
-        dst.write(values.astype("float32"), 1)
-    return path
 
 
 def layer_case(tmp_path, geoms, steps, attrs=None, extra_layers=()):

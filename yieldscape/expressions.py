@@ -49,7 +49,16 @@ def evaluate_where(expr: str, fields: Mapping[str, pd.Series], where: str) -> np
     Syntax (a safe subset of Python expressions): field names; numbers and quoted strings;
     comparisons ``== != < <= > >=`` (chains allowed); ``in [...]`` / ``not in [...]``;
     ``and``, ``or``, ``not``; ``+ - * /`` and parentheses; ``isnull(FIELD)``,
-    ``notnull(FIELD)``. A comparison with a null value is false.
+    ``notnull(FIELD)``. A comparison with a null value is false (``!=`` too).
+
+    >>> import pandas as pd
+    >>> fields = {"COVER": pd.Series(["forest", "rock", None]), "AGE": pd.Series([80, 30, 120])}
+    >>> evaluate_where("COVER in ['wetland', 'rock'] or AGE > 100", fields, "step 1").tolist()
+    [False, True, True]
+    >>> evaluate_where("COVER == 'forest'", fields, "step 1").tolist()  # null: false
+    [True, False, False]
+    >>> evaluate_where("COVER != 'forest'", fields, "step 1").tolist()  # null: false
+    [False, True, False]
     """
     try:
         tree = ast.parse(expr, mode="eval")
@@ -165,7 +174,11 @@ class _Rule:
                 raise self.error(" compares two constants; name a field")
         except TypeError:
             raise self.error(": cannot compare text with a number") from None
-        return pd.Series(res).fillna(False).to_numpy(dtype=bool)
+        out = pd.Series(res).fillna(False).to_numpy(dtype=bool)
+        for side in (left, right):  # a null compares false, != included
+            if isinstance(side, pd.Series):
+                out = out & side.notna().to_numpy()
+        return out
 
 
 def _truth(value):  # noqa: ANN001, ANN202

@@ -1,6 +1,8 @@
 """[[sensitivity]] cases in one run, and `yieldscape compare` on their outputs."""
 
+import io
 import json
+from contextlib import redirect_stderr, redirect_stdout
 
 import numpy as np
 import pandas as pd
@@ -12,25 +14,38 @@ from yieldscape.errors import ScenarioError
 
 from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
 
+# as the sample's cases: a looser ending stock, smaller openings; and a species key
+CASES = [
+    {"name": "loose", "set": {"flow.ending_stock": 0.2}},
+    {"name": "late", "set": {"species.pine.min_harvest_age": 80}},
+    {"name": "openings-2ha", "set": {"harvest.max_opening_ha": 2.0}},
+]
+
 
 def case_scenario(tmp_path, sensitivity):
     layer = write_layer(tmp_path / "s.gpkg", squares(30), stand_attrs(30, ages=np.arange(30) * 6))
-    raw = scenario_dict(layer, flow={"ending_stock": 0.5})
+    raw = scenario_dict(
+        layer, flow={"ending_stock": 0.5}, harvest={"greenup_years": 20, "max_opening_ha": 3.0}
+    )
     raw["sensitivity"] = sensitivity
     return write_scenario(tmp_path / "scn.toml", raw)
 
 
-def test_cases_run_with_the_base_and_compare_names_the_one_difference(tmp_path, capsys):
-    scn = case_scenario(
-        tmp_path,
-        [
-            {"name": "loose", "set": {"flow.ending_stock": 0.2}},
-            {"name": "late", "set": {"species.pine.min_harvest_age": 80}},
-        ],
-    )
-    out = tmp_path / "out"
-    assert main(["run", str(scn), "--out", str(out), "-q"]) == 0
-    for name in ("loose", "late"):
+@pytest.fixture(scope="module")
+def cases_run(tmp_path_factory):
+    """The base and its three cases, run once through the command: (out, stdout, stderr)."""
+    tmp = tmp_path_factory.mktemp("cases")
+    out = tmp / "out"
+    stdout, stderr = io.StringIO(), io.StringIO()
+    with redirect_stdout(stdout), redirect_stderr(stderr):
+        code = main(["run", str(case_scenario(tmp, CASES)), "--out", str(out)])
+    assert code == 0, stderr.getvalue()
+    return out, stdout.getvalue(), stderr.getvalue()
+
+
+def test_cases_run_with_the_base_and_compare_names_the_one_difference(cases_run, tmp_path):
+    out, _, _ = cases_run
+    for name in [case["name"] for case in CASES]:
         assert (out / name / "projection.gpkg").is_file()
         rec = json.loads((out / name / "run.json").read_text())
         assert rec["scenario"]["sensitivity"] == []
@@ -57,19 +72,10 @@ def test_cases_run_with_the_base_and_compare_names_the_one_difference(tmp_path, 
         assert f"| `{col}` |" in docs, col
 
 
-def test_a_run_with_cases_logs_no_line_twice_and_names_each_cases_lines(tmp_path, capsys):
-    cases = ["loose", "late"]
-    scn = case_scenario(
-        tmp_path,
-        [
-            {"name": "loose", "set": {"flow.ending_stock": 0.2}},
-            {"name": "late", "set": {"species.pine.min_harvest_age": 80}},
-        ],
-    )
-    out = tmp_path / "out"
-    capsys.readouterr()
-    assert main(["run", str(scn), "--out", str(out)]) == 0
-    lines = capsys.readouterr().err.splitlines()
+def test_a_run_with_cases_logs_no_line_twice_and_names_each_cases_lines(cases_run):
+    out, stdout, stderr = cases_run
+    cases = [case["name"] for case in CASES]
+    lines = stderr.splitlines()
     assert len(lines) == len(set(lines)), [x for x in lines if lines.count(x) > 1]
     # the write of the whole output (the cases' folders included) is logged once
     assert sum("write outputs done" in x for x in lines) == 1
@@ -79,6 +85,10 @@ def test_a_run_with_cases_logs_no_line_twice_and_names_each_cases_lines(tmp_path
     assert verdicts[0].startswith("yieldscape: verdict: ")
     for name, line in zip(cases, verdicts[1:], strict=True):
         assert line.startswith(f"yieldscape: case {name!r}: verdict: ")
+    # each case's progress on stderr, and its level beside the base's on stdout
+    for i, name in enumerate(cases, start=1):
+        assert f"sensitivity case {name!r} ({i} of {len(cases)})" in stderr
+        assert f"sensitivity case {name!r}: " in stdout
     # run.log holds the same lines (INFO and above), with a time stamp and a level
     logged = [x.split(" ", 3)[3] for x in (out / "run.log").read_text().splitlines()]
     assert logged == [x.removeprefix("yieldscape: ") for x in lines]
@@ -86,6 +96,29 @@ def test_a_run_with_cases_logs_no_line_twice_and_names_each_cases_lines(tmp_path
     own = (out / "late" / "run.log").read_text().splitlines()
     assert sum("verdict: " in x for x in own) == 1
     assert all(" case 'late': " in x for x in own)
+
+
+def test_compare_of_the_cases_names_each_cases_change(cases_run, tmp_path):
+    out, _, _ = cases_run
+    cmp = tmp_path / "cmp"
+    runs = [str(out)] + [str(out / case["name"]) for case in CASES]
+    assert main(["compare", *runs, "--out", str(cmp), "-q"]) == 0
+    table = pd.read_csv(cmp / "comparison.csv")
+    assert table["differences"].iloc[1:].tolist() == [
+        "flow.ending_stock: 0.5 -> 0.2",
+        "species.pine.min_harvest_age: 60.0 -> 80.0",
+        "harvest.max_opening_ha: 3.0 -> 2.0",
+    ]
+    # a lower ending stock never lowers the level; smaller openings do not raise it here (the
+    # pick is sequential: a law for this forest, not for every forest)
+    level = table["level_m3_per_year"].to_numpy()
+    assert level[1] >= level[0] >= level[3]
+    # the run's own comparison (written with the base) says the same
+    own = pd.read_csv(out / "comparison.csv")
+    assert list(own.columns) == list(table.columns)  # so the docs check above covers both
+    assert own["run"].tolist() == ["base", "loose", "late", "openings-2ha"]
+    assert own["differences"].iloc[1:].tolist() == table["differences"].iloc[1:].tolist()
+    np.testing.assert_allclose(own["level_m3_per_year"], table["level_m3_per_year"])
 
 
 def test_compare_prints_each_runs_verdict_and_its_figure_names_it(tmp_path, capsys, monkeypatch):

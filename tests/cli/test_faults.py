@@ -233,10 +233,8 @@ def test_a_bug_while_writing_is_still_a_bug_and_leaves_nothing(small_case, capsy
 
 
 @pytest.mark.parametrize("command", ["curves", "compare"])
-def test_a_full_disk_in_curves_and_compare(small_case, capsys, monkeypatch, command):
-    tmp_path, _, scenario = small_case
-    if command == "compare":
-        assert main(["run", str(scenario), "--out", str(tmp_path / "run"), "-q"]) == 0
+def test_a_full_disk_in_curves_and_compare(earlier, capsys, monkeypatch, command):
+    tmp_path, scenario, run = earlier  # the small case and a run of it to compare
 
     def full(path, *args):
         path.write_bytes(b"half")
@@ -245,7 +243,7 @@ def test_a_full_disk_in_curves_and_compare(small_case, capsys, monkeypatch, comm
     figure = {"curves": "curve_figure", "compare": "comparison_figure"}[command]
     monkeypatch.setattr(f"yieldscape.publish.{figure}", full)  # the writer draws them
     out = tmp_path / "cmp"
-    args = [str(scenario)] if command == "curves" else [str(tmp_path / "run")]
+    args = [str(scenario)] if command == "curves" else [str(run)]
     png = "curves_pine.png" if command == "curves" else "comparison.png"
     fails(
         capsys,
@@ -259,8 +257,11 @@ def test_a_full_disk_in_curves_and_compare(small_case, capsys, monkeypatch, comm
 
 # The real command in a process of its own, with the figure writer held up inside the staged
 # write until the signal comes (it marks the moment with a file), so the test does not race.
+# Ctrl-C raises KeyboardInterrupt as in a terminal, also where the suite itself was started in
+# the background, which starts it (and so this process) with SIGINT ignored.
 HELD_WRITE = """
-import sys, time
+import signal, sys, time
+signal.signal(signal.SIGINT, signal.default_int_handler)
 import yieldscape.publish as publish
 def held(result, scenario, figures):
     figures.mkdir(exist_ok=True)

@@ -19,10 +19,14 @@ from pyproj import CRS
 
 from yieldscape.cli.main import main
 
+from helpers import small_case_files
 
-@pytest.fixture
-def run_dir(small_case):
-    tmp, _, scenario = small_case
+
+@pytest.fixture(scope="module")
+def run_dir(tmp_path_factory):
+    """A run of the small case (tests/conftest.py), made once: the tests only read it."""
+    tmp = tmp_path_factory.mktemp("gpkg")
+    _, scenario = small_case_files(tmp)
     out = tmp / "out"
     assert main(["run", str(scenario), "--out", str(out), "-q"]) == 0
     return out

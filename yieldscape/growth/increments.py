@@ -14,7 +14,11 @@ VolumeFn = Callable[[NDArray], NDArray]  # age [years] -> volume [m3/ha], vector
 
 
 def mai(age_years: ArrayLike, volume: ArrayLike) -> NDArray[np.float64]:
-    """Mean annual increment V(t) / t [volume per year]; 0 at age 0."""
+    """Mean annual increment V(t) / t [volume per year]; 0 at age 0.
+
+    >>> mai([0, 50, 100], [0.0, 250.0, 400.0]).tolist()
+    [0.0, 5.0, 4.0]
+    """
     t = np.asarray(age_years, dtype=np.float64)
     v = np.asarray(volume, dtype=np.float64)
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -38,6 +42,11 @@ def table_culmination(ages: ArrayLike, volumes: ArrayLike) -> Culmination:
 
     The earliest age wins a tie. If the maximum is at the last age, MAI has not been shown
     to culminate within the table.
+
+    >>> table_culmination([20, 40, 60, 80, 100], [40, 140, 228, 278, 296])
+    Culmination(age_years=60.0, mai=3.8, culminated=True)
+    >>> table_culmination([20, 40, 60], [40, 140, 228]).culminated  # still rising at 60
+    False
     """
     t = np.asarray(ages, dtype=np.float64)
     m = mai(t, volumes)
@@ -86,6 +95,11 @@ def chapman_richards_culmination_age(k: float, c: float) -> float:
     Setting d(V/t)/dt = 0 gives c x = e^x - 1 with x = k t, independent of a; the positive
     root is found by Brent's method. For c <= 1, MAI falls from age 0 and there is no
     interior maximum (ValueError).
+
+    >>> round(chapman_richards_culmination_age(0.03, 3.0), 2)  # x = 1.9038: 3 x = e^x - 1
+    63.46
+    >>> round(chapman_richards_culmination_age(0.06, 3.0), 2)  # twice the rate, half the age
+    31.73
     """
     if c <= 1:
         raise ValueError(f"c = {c}: MAI of a Chapman-Richards curve culminates only for c > 1")
@@ -100,6 +114,9 @@ def yield_class(max_mai: float, step: float = 2.0) -> float:
     """Maximum MAI rounded to the nearest multiple of ``step`` [m3/ha/yr], halves rounded up.
 
     British usage (Forestry Commission): yield class is the maximum MAI in steps of 2.
+
+    >>> yield_class(13.0), yield_class(12.99)  # 13 is half a step: up
+    (14.0, 12.0)
     """
     return float(step * math.floor(max_mai / step + 0.5))
 
