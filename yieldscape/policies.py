@@ -11,7 +11,8 @@ Flow policies work through *target rules*: for each period, the volume to aim fo
 floor below which the flow level fails, given the harvest of the period before.
 
 - ``EvenFlow(level, band)``: period 1 takes the level; later periods aim at
-  min(level, (1 + band) h_prev) and may not fall below (1 - band) h_prev.
+  min(level, (1 + band) h_prev) and may not fall below (1 - band) min(h_prev, level) (a
+  harvest above the level, which mandatory thinnings can bring, raises no floor).
 - ``Sequence(fixed, level)``: the periods in ``fixed`` take those targets, every later one
   the level (a non-declining flow is built from these, one period at a time).
 - ``StepDown(level, hold, step, long_term)``: the level for ``hold`` periods, then down by at
@@ -46,7 +47,10 @@ class EvenFlow:
     def bounds(self, p: int, h_prev: float) -> tuple[float, float]:
         if p == 0:
             return self.level, self.level
-        return min(self.level, (1 + self.band) * h_prev), (1 - self.band) * h_prev
+        # the floor follows the previous harvest, but never above the level: thinnings, which
+        # are taken whatever the target, may carry a period's harvest past it
+        floor = (1 - self.band) * min(h_prev, self.level)
+        return min(self.level, (1 + self.band) * h_prev), floor
 
 
 @dataclass(frozen=True)
