@@ -158,10 +158,10 @@ class CurveSet:
         n = len(site_index)
         row = np.zeros(n, dtype=np.intp)
         scale_v, scale_t, blend = np.ones(n), np.ones(n), np.zeros(n)
-        for i, curve in enumerate(self.curves):  # per species, not per stand
+        present = np.bincount(species_idx, minlength=len(self.curves)) > 0
+        for i in np.flatnonzero(present):  # per species, not per stand
+            curve = self.curves[i]
             mask = species_idx == i
-            if not mask.any():
-                continue
             si = site_index[mask]
             if isinstance(curve, _Parametric):
                 row[mask] = self._first_row[i]
@@ -242,10 +242,15 @@ class StandArrays:
         idx = curves.index(code.to_numpy())
         site = stands["site_index"].to_numpy(dtype=np.float64)
         delay = np.array([scenario.species[c].regen_delay_years for c in curves.codes])
+        regimes = Regimes.from_scenario(scenario, curves)
+        by_code = regimes.min_age_by_code(scenario, curves, site) if regimes.changes else None
+        done = np.zeros(len(curves.codes), bool) if by_code is None else ~np.isnan(by_code).all(1)
         min_age = np.zeros(len(stands))
         for i, code in enumerate(curves.codes):  # per species; rules run per distinct site
             mine = idx == i
-            if mine.any():
+            if done[i]:
+                min_age[mine] = by_code[i, mine]  # a code regrown into: worked out already
+            elif mine.any():
                 sp = scenario.species[code]
                 min_age[mine] = min_harvest_ages(
                     curves.curves[i],
@@ -254,8 +259,6 @@ class StandArrays:
                     sp.money(scenario.economics),
                     scenario.growth.search(),
                 )
-        regimes = Regimes.from_scenario(scenario, curves)
-        by_code = regimes.min_age_by_code(scenario, curves, site) if regimes.changes else None
         ids = stands["stand_id"].to_numpy()
         rank = np.empty(len(ids), dtype=np.int64)
         rank[np.argsort(ids, kind="stable")] = np.arange(len(ids))
@@ -278,11 +281,18 @@ class StandArrays:
         )
 
 
+def area_sum(per_ha: NDArray, area_ha: NDArray) -> float:
+    """Sum of per-hectare values times areas [ha]. numpy's einsum loop, not a BLAS dot: a
+    multithreaded BLAS stalls on a busy machine (``docs/performance.md``), and these sums run
+    every period of every trial horizon."""
+    return float(np.einsum("i,i->", per_ha, area_ha))
+
+
 def growing_stock_m3(
     curves: CurveSet, species_idx: NDArray, age_years: NDArray, terms: SiteTerms, area_ha: NDArray
 ) -> float:
     """Standing volume [m3] summed over stands (or stand parts), from their site terms."""
-    return float(np.dot(curves.volume_m3_ha(species_idx, age_years, terms=terms), area_ha))
+    return area_sum(curves.volume_m3_ha(species_idx, age_years, terms=terms), area_ha)
 
 
 def long_run_codes(arrays: StandArrays) -> list[tuple[int, NDArray, NDArray]]:

@@ -23,6 +23,7 @@ the harvestable land base is never thinned and stands at G.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 from typing import Any
 
 import numpy as np
@@ -128,22 +129,51 @@ class Regimes:
         out[:, : table.shape[1]] = lo + terms.blend[:, None] * (hi - lo)
         return out
 
+    @cached_property
+    def first_thin(self) -> NDArray[np.float64]:
+        """Each code's first thinning age [years] (inf: never thinned)."""
+        if not self.thins:
+            return np.full(len(self.delay), np.inf)
+        return self.thin_ages.min(axis=1)
+
     def removed(self, sp: NDArray, amounts: NDArray, upto: NDArray) -> NDArray[np.float64]:
         """Removals [m3/ha] of each element's thinnings at ages up to ``upto``."""
+        out = np.zeros(len(sp))
         if not self.thins:
-            return np.zeros(len(sp))
-        return (amounts * (self.thin_ages[sp] <= upto[:, None] + 1e-9)).sum(axis=1)
+            return out
+        # the thinnings x elements test only where the first thinning is reached
+        m = np.flatnonzero(upto >= self.first_thin[sp] - 1e-9)
+        if len(m):
+            hit = self.thin_ages[sp[m]] <= upto[m, None] + 1e-9
+            out[m] = (amounts[m] * hit).sum(axis=1)
+        return out
+
+    def next_after(self, sp: NDArray, after: NDArray) -> NDArray[np.float64]:
+        """The age [years] of each element's first thinning after ``after`` (inf: none)."""
+        if not self.thins:
+            return np.full(len(sp), np.inf)
+        t = self.thin_ages[sp]
+        return np.where(t > after[:, None] + 1e-9, t, np.inf).min(axis=1)
 
     def due(
         self, sp: NDArray, amounts: NDArray, after: NDArray, upto: NDArray
-    ) -> tuple[NDArray, NDArray]:
-        """Removals [m3/ha] of each element's thinnings in (after, upto], and the age of the
-        last of them (NaN where none is due)."""
+    ) -> tuple[NDArray, NDArray, NDArray]:
+        """Removals [m3/ha] of each element's thinnings in (after, upto], the age of the last
+        of them (NaN where none is due) and the age of the next thinning after ``upto`` (inf:
+        none). Meant for the few elements that may have one due (the caller picks them)."""
         t = self.thin_ages[sp]
-        hit = (t > after[:, None] + 1e-9) & (t <= upto[:, None] + 1e-9)
+        later = t > upto[:, None] + 1e-9
+        hit = (t > after[:, None] + 1e-9) & ~later
         vol = (amounts * hit).sum(axis=1)
-        age = np.where(hit, t, -np.inf).max(axis=1)
-        return vol, np.where(np.isfinite(age), age, np.nan)
+        last = np.where(hit, t, -np.inf).max(axis=1)
+        nxt = np.where(later, t, np.inf).min(axis=1)
+        return vol, np.where(np.isfinite(last), last, np.nan), nxt
+
+    def targets(self) -> NDArray[np.intp]:
+        """The codes that cut land may regrow as (by the rules or as an LP option)."""
+        targets = np.flatnonzero(self.transitions.sum(axis=0) > 0)
+        options = [c for opts in self.choices if opts for c in opts]
+        return np.union1d(targets, options).astype(np.intp)
 
     def min_age_by_code(
         self, scenario: Scenario, curves: CurveSet, site_index: NDArray
@@ -153,9 +183,7 @@ class Regimes:
         worked out (per distinct site); the others are NaN."""
         n = len(curves.codes)
         out = np.full((n, len(site_index)), np.nan)
-        targets = np.flatnonzero(self.transitions.sum(axis=0) > 0)
-        targets = np.union1d(targets, [c for opts in self.choices if opts for c in opts])
-        for j in targets.astype(int):  # per code
+        for j in self.targets():  # per code
             sp = scenario.species[curves.codes[j]]
             out[j] = min_harvest_ages(
                 curves.curves[j],

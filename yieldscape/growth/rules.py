@@ -104,29 +104,13 @@ def summarise_site(
     vol, cai = _curve_fns(curve, site)
     max_age = search.max_age_years
     cul = culmination(vol, cai, max_age)
-    ages: dict[str, float] = {}
-    if rules.fixed_years is not None:
-        ages["fixed"] = float(rules.fixed_years)
-    if rules.mai_share is not None:
-        ages["mai_share"] = _first_mai_share(vol, cul, rules.mai_share)
-    if rules.volume_m3_ha is not None:
-        ages["volume"] = _first_volume(vol, rules.volume_m3_ha, max_age)
     faus = fish = None
     lev = None
     if money.discount_rate is not None and money.price_per_m3 is not None:
-        args = (
-            vol,
-            money.price_per_m3,
-            money.regen_cost_per_ha,
-            money.discount_rate,
-            money.compounding,
-        )
-        faus = faustmann_rotation(*args, annual_cost=money.annual_cost_per_ha, max_age=max_age)
-        fish = fisher_rotation(*args, max_age=max_age)
+        faus = _faustmann(vol, money, max_age)
+        fish = fisher_rotation(*_money_args(vol, money), max_age=max_age)
         lev = faus.value
-    if rules.economic:
-        assert faus is not None, "checked when the scenario was loaded"
-        ages["economic"] = faus.age_years
+    ages = _rule_ages(vol, cul, rules, money, max_age, faus)
     msy_s = msy_g = None
     collapses = False
     if isinstance(curve, StockGrowth):
@@ -147,6 +131,51 @@ def summarise_site(
         msy_growth_m3_ha_yr=msy_g,
         collapses=collapses,
     )
+
+
+def _money_args(vol, money: Money) -> tuple:
+    assert money.price_per_m3 is not None and money.discount_rate is not None
+    return vol, money.price_per_m3, money.regen_cost_per_ha, money.discount_rate, money.compounding
+
+
+def _faustmann(vol, money: Money, max_age: float) -> Rotation:
+    return faustmann_rotation(
+        *_money_args(vol, money), annual_cost=money.annual_cost_per_ha, max_age=max_age
+    )
+
+
+def _rule_ages(
+    vol,
+    cul: Culmination | None,
+    rules: AgeRules,
+    money: Money,
+    max_age: float,
+    faus: Rotation | None = None,
+) -> dict[str, float]:
+    """The age [years] each of the species' rules gives at one site (the Faustmann rotation
+    worked out here unless given; the culmination is needed by the MAI share rule only)."""
+    ages: dict[str, float] = {}
+    if rules.fixed_years is not None:
+        ages["fixed"] = float(rules.fixed_years)
+    if rules.mai_share is not None:
+        assert cul is not None
+        ages["mai_share"] = _first_mai_share(vol, cul, rules.mai_share)
+    if rules.volume_m3_ha is not None:
+        ages["volume"] = _first_volume(vol, rules.volume_m3_ha, max_age)
+    if rules.economic:
+        ages["economic"] = (faus or _faustmann(vol, money, max_age)).age_years
+    return ages
+
+
+def _min_age_at(
+    curve: YieldCurve, site: float, rules: AgeRules, money: Money, search: Search
+) -> float:
+    """The minimum harvest age [years] at one site: the oldest of the rules' ages (only what
+    the rules need is worked out; the curves report's summary has the rest)."""
+    vol, cai = _curve_fns(curve, site)
+    max_age = search.max_age_years
+    cul = culmination(vol, cai, max_age) if rules.mai_share is not None else None
+    return max(_rule_ages(vol, cul, rules, money, max_age).values())
 
 
 def site_summaries(
@@ -180,8 +209,11 @@ def min_harvest_ages(
     site_index = np.asarray(site_index, dtype=np.float64)
     if not rules.per_site:
         return np.full(site_index.shape, float(rules.fixed_years or 0.0))
-    sums, inverse = site_summaries("", curve, site_index, rules, money, search)
-    return np.array([s.min_harvest_age_years for s in sums])[inverse]
+    step = search.site_step_m
+    rounded = np.round(site_index / step) * step
+    unique, inverse = np.unique(rounded, return_inverse=True)
+    ages = [_min_age_at(curve, float(s), rules, money, search) for s in unique]  # per site
+    return np.array(ages)[inverse]
 
 
 def max_mai(

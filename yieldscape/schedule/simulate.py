@@ -20,7 +20,14 @@ import numpy as np
 from numpy.typing import NDArray
 
 from yieldscape.policies import TargetRule, cut_order
-from yieldscape.projection import CurveSet, Periods, SiteTerms, StandArrays, growing_stock_m3
+from yieldscape.projection import (
+    CurveSet,
+    Periods,
+    SiteTerms,
+    StandArrays,
+    area_sum,
+    growing_stock_m3,
+)
 from yieldscape.regimes import Regimes
 from yieldscape.schedule.cover import CoverRules
 from yieldscape.schedule.picker import sequential_pick
@@ -131,12 +138,38 @@ def _pick_prefix(
     return np.arange(n), -1, 0.0
 
 
+# the per-part columns of _Parts (and of its site terms), grown together by _Parts.extend
+_COLUMNS = (
+    "stand",
+    "area",
+    "min_age",
+    "sp",
+    "age",
+    "delay",
+    "rank",
+    "zone",
+    "in_hlb",
+    "thin_r",
+    "thinned_to",
+    "thin_taken",
+    "thin_next",
+)
+_TERMS = ("row", "scale_v", "scale_t", "blend")
+
+
 @dataclass
 class _Parts:
     """The stand parts of one horizon, one element each: the stand (row of the stand table),
     area [ha], minimum harvest age (inf outside the harvestable land base), species, site
     terms, age [years], regeneration delay, tie-breaking rank, zone, and whether on the
-    harvestable land base. Cuts and disturbance append parts; nothing is removed."""
+    harvestable land base. Cuts and disturbance append parts; nothing is removed.
+
+    Thinning state: ``thin_r`` each part's removal [m3/ha] at each of its code's thinnings,
+    ``thinned_to`` the age up to which they count as taken (-inf off the land base),
+    ``thin_taken`` what they add up to (the removals up to ``thinned_to``, kept so that the
+    standing volume needs no thinnings x parts pass) and ``thin_next`` a lower bound of the age
+    of the next thinning not taken (inf: none), which keeps the per-period test for thinnings
+    due to the few parts that reach one."""
 
     stand: NDArray[np.int64]
     area: NDArray[np.float64]
@@ -148,10 +181,12 @@ class _Parts:
     rank: NDArray[np.int64]
     zone: NDArray[np.int64]
     in_hlb: NDArray[np.bool_]
-    # thinning: each part's removal [m3/ha] at each of its code's thinnings (parts x
-    # thinnings; zero width without thinnings) and the age up to which they have been taken
-    thin_r: NDArray[np.float64]
+    reg: Regimes | None
+    thin_r: NDArray[np.float64]  # parts x thinnings (zero width without thinnings)
     thinned_to: NDArray[np.float64]
+    thin_taken: NDArray[np.float64]
+    thin_next: NDArray[np.float64]
+    _buf: dict[str, NDArray] = field(default_factory=dict, repr=False)  # see _reserve
 
     @classmethod
     def of(cls, stands: StandArrays, curves: CurveSet) -> _Parts:
@@ -180,9 +215,8 @@ class _Parts:
         thin_r = np.zeros((len(stand), 0))
         if reg is not None and reg.thins:
             thin_r = reg.removals(curves, sp, si)
-        # an existing stand has had the thinnings of its age; land off the base is never thinned
-        thinned_to = np.where(in_hlb, age, -np.inf)
-        return cls(
+        n = len(stand)
+        parts = cls(
             stand,
             area,
             min_age,
@@ -193,53 +227,102 @@ class _Parts:
             stands.id_rank[stand],
             zone,
             in_hlb,
+            reg,
             thin_r,
-            thinned_to,
+            np.full(n, -np.inf),
+            np.zeros(n),
+            np.full(n, np.inf),
         )
+        # an existing stand has had the thinnings of its age; land off the base is never thinned
+        parts.thin_to(np.flatnonzero(in_hlb), age[in_hlb])
+        return parts
 
-    def extend(
-        self,
-        src: NDArray | int,
-        age: NDArray | float,
-        area: NDArray | float,
-        thinned_to: NDArray | float = 0.0,
-    ) -> None:
-        """Append copies of the parts ``src`` with new ages and areas (and the age up to which
-        their thinnings count as taken: 0 for a new stand)."""
-        self.stand = np.r_[self.stand, self.stand[src]]
-        self.sp, self.si = np.r_[self.sp, self.sp[src]], self.si.append(src)
-        self.min_age, self.delay = (
-            np.r_[self.min_age, self.min_age[src]],
-            np.r_[self.delay, self.delay[src]],
-        )
-        self.rank, self.zone = np.r_[self.rank, self.rank[src]], np.r_[self.zone, self.zone[src]]
-        self.in_hlb = np.r_[self.in_hlb, self.in_hlb[src]]
-        k = len(np.atleast_1d(src))
-        self.age = np.r_[self.age, np.broadcast_to(age, (k,))]
-        self.area = np.r_[self.area, np.broadcast_to(area, (k,))]
-        self.thin_r = np.r_[self.thin_r, self.thin_r[np.atleast_1d(src)]]
-        n_new = len(self.age) - len(self.thinned_to)
-        taken = np.broadcast_to(np.asarray(thinned_to, dtype=np.float64), (n_new,))
-        self.thinned_to = np.r_[self.thinned_to, np.where(self.in_hlb[-n_new:], taken, -np.inf)]
+    def thin_to(self, idx: NDArray, to: NDArray | float) -> None:
+        """The thinnings of parts ``idx`` (on the land base) count as taken up to age ``to``."""
+        if self.reg is None or not self.reg.thins or not len(idx):
+            return
+        to = np.broadcast_to(np.asarray(to, dtype=np.float64), idx.shape)
+        thinned = np.isfinite(self.reg.first_thin[self.sp[idx]])  # codes that are thinned
+        idx, to = idx[thinned], to[thinned]
+        sp, r = self.sp[idx], self.thin_r[idx]
+        self.thinned_to[idx] = to
+        self.thin_taken[idx] = self.reg.removed(sp, r, to)
+        self.thin_next[idx] = self.reg.next_after(sp, to)
+
+    def restart(self, idx: NDArray) -> None:
+        """Parts ``idx`` start as new stands of their (current) code: no thinning taken."""
+        hlb = self.in_hlb[idx]
+        self.thinned_to[idx] = np.where(hlb, 0.0, -np.inf)
+        self.thin_taken[idx] = 0.0
+        self.thin_next[idx] = np.inf
+        if self.reg is not None and self.reg.thins:
+            self.thin_next[idx] = np.where(hlb, self.reg.first_thin[self.sp[idx]], np.inf)
+
+    def removed(self, idx: NDArray, age: NDArray) -> NDArray[np.float64]:
+        """Removals [m3/ha] of the thinnings of parts ``idx`` taken by ages ``age``."""
+        out = self.thin_taken[idx]
+        early = np.flatnonzero(age < self.thinned_to[idx])  # an age before the last taken
+        if len(early) and self.reg is not None:
+            j = idx[early]
+            out[early] = self.reg.removed(self.sp[j], self.thin_r[j], age[early])
+        return out
+
+    def extend(self, src: NDArray | int, age: NDArray | float, area: NDArray | float) -> None:
+        """Append copies of the parts ``src`` with new ages and areas, as new stands (no
+        thinning taken)."""
+        src = np.atleast_1d(np.asarray(src, dtype=np.intp))
+        n, k = len(self.age), len(src)
+        self._reserve(n + k)
+        for col in self._buf.values():
+            col[n : n + k] = col[src]
+        self._buf["age"][n : n + k] = age
+        self._buf["area"][n : n + k] = area
+        self._view(n + k)
+        self.restart(np.arange(n, n + k))
+
+    def _reserve(self, m: int) -> None:
+        """Room for ``m`` parts. The columns live in buffers that grow by half again when full
+        and the attributes are views of their first rows, so appending a few parts a period
+        costs what is appended, not a copy of every column."""
+        if self._buf and len(self._buf["age"]) >= m:
+            return
+        n = len(self.age)
+        cap = max(m, n * 3 // 2 + 16)
+        cols = {name: getattr(self, name) for name in _COLUMNS}
+        cols.update({"si." + name: getattr(self.si, name) for name in _TERMS})
+        self._buf = {}
+        for name, col in cols.items():
+            buf = np.empty((cap, *col.shape[1:]), dtype=col.dtype)
+            buf[:n] = col
+            self._buf[name] = buf
+        self._view(n)
+
+    def _view(self, n: int) -> None:
+        for name in _COLUMNS:
+            setattr(self, name, self._buf[name][:n])
+        self.si = SiteTerms(*(self._buf["si." + name][:n] for name in _TERMS))
 
     def volume(self, curves: CurveSet, idx: NDArray, age: NDArray, reg: Regimes | None) -> NDArray:
         """Standing volume [m3/ha] of parts ``idx`` at ages ``age``: the code's gross yield
         less the thinnings taken (see :mod:`yieldscape.regimes`)."""
         v = curves.volume_m3_ha(self.sp[idx], age, terms=self.si.take(idx))
         if reg is not None and reg.thins:
-            taken = np.minimum(age, self.thinned_to[idx])
-            v -= reg.removed(self.sp[idx], self.thin_r[idx], taken)
+            v -= self.removed(idx, age)
         return v
 
     def stock(self, curves: CurveSet, reg: Regimes | None, hlb_only: bool = False) -> float:
         """Growing stock [m3] of all parts, or of those on the harvestable land base."""
-        if reg is None or not reg.thins:
-            if not hlb_only:
-                return growing_stock_m3(curves, self.sp, self.age, self.si, self.area)
-            m = self.in_hlb
-            return growing_stock_m3(curves, self.sp[m], self.age[m], self.si.take(m), self.area[m])
-        idx = np.flatnonzero(self.in_hlb) if hlb_only else np.arange(len(self.age))
-        return float(np.dot(self.volume(curves, idx, self.age[idx], reg), self.area[idx]))
+        if not hlb_only:
+            gross = growing_stock_m3(curves, self.sp, self.age, self.si, self.area)
+            if reg is None or not reg.thins:
+                return gross
+            if (self.age < self.thinned_to).any():
+                taken = self.removed(np.arange(len(self.age)), self.age)
+            else:  # the usual case: no part is younger than its last thinning
+                taken = self.thin_taken
+            return gross - area_sum(taken, self.area)
+        idx = np.flatnonzero(self.in_hlb)
+        return area_sum(self.volume(curves, idx, self.age[idx], reg), self.area[idx])
 
     def snapshot(self) -> PartsSnapshot:
         return PartsSnapshot(
@@ -269,20 +352,31 @@ class _Cut:
     all_taken: bool = True
     # stand, age, area, volume, code and treatment (0 clearcut, 1 thinning) of each event
     events: tuple[NDArray, ...] | None = None
+    # the parts checked for thinnings due and their removals [m3/ha] (0 where none is due)
+    # and the harvest-moment age and next thinning age of each (see _thinned)
+    checked: tuple[NDArray, ...] = (np.zeros(0, dtype=np.intp), *(np.zeros(0),) * 3)
 
 
-def _thinnings_due(
-    parts: _Parts, age_h: NDArray, reg: Regimes | None
-) -> tuple[NDArray, NDArray, NDArray]:
-    """Parts on the harvestable land base whose thinnings fall due by the harvest moment:
-    their positions, removals [m3/ha] and the age of the (last) thinning."""
-    empty = np.zeros(0, dtype=np.intp), np.zeros(0), np.zeros(0)
+def _thinnings_due(parts: _Parts, age_h: NDArray, reg: Regimes | None) -> tuple[NDArray, ...]:
+    """The parts that may have a thinning due by the harvest moment (their next thinning
+    age is reached): their positions, removals [m3/ha] due (0: none after all), the age of
+    the (last) thinning, the harvest-moment age and the age of the thinning after it."""
     if reg is None or not reg.thins:
-        return empty
-    live = np.flatnonzero(parts.in_hlb & (parts.area > 0))
-    vol, age = reg.due(parts.sp[live], parts.thin_r[live], parts.thinned_to[live], age_h[live])
-    hit = vol > 0
-    return live[hit], vol[hit], age[hit]
+        return np.zeros(0, dtype=np.intp), *(np.zeros(0),) * 4
+    live = np.flatnonzero(parts.thin_next - 1e-9 <= age_h)
+    live = live[parts.area[live] > 0]
+    upto = age_h[live]
+    vol, age, nxt = reg.due(parts.sp[live], parts.thin_r[live], parts.thinned_to[live], upto)
+    return live, vol, age, upto, nxt
+
+
+def _thinned(parts: _Parts, cut: _Cut, age_h: NDArray) -> None:
+    """After the period's cut: the thinnings of the parts checked for them count as taken
+    up to the harvest moment (a clearcut part restarts afterwards anyway)."""
+    live, vol, upto, nxt = cut.checked
+    parts.thin_taken[live] += vol
+    parts.thinned_to[live] = upto
+    parts.thin_next[live] = nxt
 
 
 def _cut_period(
@@ -303,10 +397,13 @@ def _cut_period(
     and count toward the target: a clearcut takes its part's standing volume, thinnings
     pending included, so it adds its volume less those thinnings to the period's total."""
     cut = _Cut()
-    thin, thin_ha, thin_age = _thinnings_due(parts, age_h, reg)
+    live, due_ha, due_age, upto, nxt = _thinnings_due(parts, age_h, reg)
+    cut.checked = live, due_ha, upto, nxt
+    hit = due_ha > 0
+    thin, thin_ha, thin_age = live[hit], due_ha[hit], due_age[hit]
     pending = np.zeros(len(parts.age))
     pending[thin] = thin_ha
-    thin_total = float(np.dot(thin_ha, parts.area[thin]))
+    thin_total = area_sum(thin_ha, parts.area[thin])
     elig = np.flatnonzero((age_h >= parts.min_age - 1e-9) & (parts.area > 0))
     vol_ha = parts.volume(curves, elig, age_h[elig], reg)
     keep = vol_ha > 0
@@ -391,9 +488,16 @@ def _tally(
     part, frac = cut.part, cut.frac
     cut.volume_m3 = vol[full_pos].sum() + (frac * vol[part_pos[0]] if part >= 0 else 0.0)
     cut.area_ha = area[cut.full].sum() + (frac * area[part] if part >= 0 else 0.0)
-    cut.age_area = np.dot(age_h[cut.full], area[cut.full]) + (
+    cut.age_area = area_sum(age_h[cut.full], area[cut.full]) + (
         frac * area[part] * age_h[part] if part >= 0 else 0.0
     )
+
+
+def _mask(n: int, idx: NDArray) -> NDArray[np.bool_]:
+    """A boolean mask of length ``n``, true at ``idx`` (cheaper than np.isin per period)."""
+    m = np.zeros(n, dtype=bool)
+    m[idx] = True
+    return m
 
 
 def _take_thinnings(cut: _Cut, parts: _Parts, thin: NDArray, thin_ha: NDArray) -> None:
@@ -401,12 +505,11 @@ def _take_thinnings(cut: _Cut, parts: _Parts, thin: NDArray, thin_ha: NDArray) -
     removals to the period's volume."""
     if not len(thin):
         return
-    share = np.ones(len(thin))
-    share[np.isin(thin, cut.full)] = 0.0
+    share = (~_mask(len(parts.area), cut.full)[thin]).astype(np.float64)
     if cut.part >= 0:
         share[thin == cut.part] = 1.0 - cut.frac
     area = share * parts.area[thin]
-    cut.thinning_m3 = float(np.dot(thin_ha, area))
+    cut.thinning_m3 = area_sum(thin_ha, area)
     cut.thinning_ha = float(area.sum())
     cut.volume_m3 += cut.thinning_m3
 
@@ -431,7 +534,7 @@ def _events(
         ev_area[-1] *= cut.frac
     ev_pos = np.r_[full_pos, part_pos].astype(np.intp)
     ev_vol = v_ha[ev_pos] * ev_area if len(ev_pos) else np.zeros(0)
-    kept = ~np.isin(thin, cut.full)
+    kept = ~_mask(len(area), cut.full)[thin]
     th, th_area = thin[kept], area[thin[kept]].copy()
     if cut.part >= 0:
         th_area[th == cut.part] *= 1.0 - cut.frac
@@ -474,19 +577,16 @@ def _regrow(
     after that code's delay. Returns the part count before and the period's regeneration
     (from code, to code, area of each regenerating part)."""
     n_before = len(parts.age)
-    new_age = parts.age + L
+    parts.age += L
     cut_parts = cut.full
     if cut.part >= 0:
         cut_area = cut.frac * parts.area[cut.part]
         parts.area[cut.part] -= cut_area
-        parts.age = new_age
         parts.extend(cut.part, 0.0, cut_area)
         cut_parts = np.r_[cut.full, len(parts.age) - 1].astype(np.intp)
-    else:
-        parts.age = new_age
     if shares is None:
         parts.age[cut_parts] = L - off - parts.delay[cut_parts]
-        parts.thinned_to[cut_parts] = np.where(parts.in_hlb[cut_parts], 0.0, -np.inf)
+        parts.restart(cut_parts)
         sp = parts.sp[cut_parts]
         return n_before, (sp, sp, parts.area[cut_parts].copy())
     return n_before, _regenerate(parts, cut_parts, L - off, forest, curves, shares)
@@ -507,29 +607,47 @@ def _regenerate(
     reg = forest.regimes
     assert reg is not None and forest.min_age_by_code is not None
     src_code = parts.sp[cut_parts]
-    row, to = np.nonzero(shares[src_code])
-    first = np.r_[True, row[1:] != row[:-1]] if len(row) else np.zeros(0, dtype=bool)
+    if ((shares > 0).sum(axis=1) <= 1).all():  # every code regrows as one: no split
+        row, to = np.arange(len(cut_parts)), shares.argmax(axis=1)[src_code]
+    else:
+        row, to = np.nonzero(shares[src_code])
+    first = np.ones(len(row), dtype=bool)
+    first[1:] = row[1:] != row[:-1]
     area = parts.area[cut_parts[row]] * shares[src_code[row], to]
     extra = ~first
     n0 = len(parts.age)
     if extra.any():
         parts.extend(cut_parts[row[extra]], 0.0, area[extra])
-    changed = np.r_[cut_parts, np.arange(n0, len(parts.age))].astype(np.intp)
-    new_code = np.r_[to[first], to[extra]]
+    changed = np.concatenate([cut_parts, np.arange(n0, len(parts.age))]).astype(np.intp)
+    new_code = np.concatenate([to[first], to[extra]])
     parts.area[cut_parts] = area[first]
-    parts.sp[changed] = new_code
-    stand = parts.stand[changed]
-    terms = curves.site_terms(new_code, forest.site_index[stand])
-    parts.si.row[changed], parts.si.scale_v[changed] = terms.row, terms.scale_v
-    parts.si.scale_t[changed], parts.si.blend[changed] = terms.scale_t, terms.blend
-    hlb = parts.in_hlb[changed]
-    parts.min_age[changed] = np.where(hlb, forest.min_age_by_code[new_code, stand], np.inf)
-    parts.delay[changed] = reg.delay[new_code]
+    # what depends on the code is worked out again only where the code changes
+    moved = np.flatnonzero(parts.sp[changed] != new_code)
+    if len(moved):
+        _recode(parts, changed[moved], new_code[moved], forest, curves)
     parts.age[changed] = start - parts.delay[changed]
-    parts.thinned_to[changed] = np.where(hlb, 0.0, -np.inf)
+    parts.restart(changed)
+    from_code = np.concatenate([src_code, src_code[row[extra]]])
+    return from_code, new_code, parts.area[changed].copy()
+
+
+def _recode(
+    parts: _Parts, idx: NDArray, code: NDArray, forest: StandArrays, curves: CurveSet
+) -> None:
+    """Parts ``idx`` grow as ``code`` from now on: its curve and site terms at the stand's
+    site index, its minimum harvest age there (inf off the land base), delay and thinnings."""
+    reg = forest.regimes
+    assert reg is not None and forest.min_age_by_code is not None
+    parts.sp[idx] = code
+    stand = parts.stand[idx]
+    terms = curves.site_terms(code, forest.site_index[stand])
+    for name in _TERMS:
+        getattr(parts.si, name)[idx] = getattr(terms, name)
+    hlb = parts.in_hlb[idx]
+    parts.min_age[idx] = np.where(hlb, forest.min_age_by_code[code, stand], np.inf)
+    parts.delay[idx] = reg.delay[code]
     if reg.thins:
-        parts.thin_r[changed] = reg.removals(curves, new_code, terms)
-    return np.r_[src_code, src_code[row[extra]]], new_code, parts.area[changed].copy()
+        parts.thin_r[idx] = reg.removals(curves, code, terms)
 
 
 def _disturb(
@@ -555,7 +673,7 @@ def _disturb(
         idx = np.flatnonzero(exposed)
         lost = share * parts.area[idx]
         vol = parts.volume(curves, idx, parts.age[idx] - L / 2, reg)
-        out = lost.sum(), float(np.dot(vol, lost))
+        out = lost.sum(), area_sum(vol, lost)
         key = parts.stand[idx] * 2 + parts.in_hlb[idx]
         _, first, inv = np.unique(key, return_index=True, return_inverse=True)
         rep = idx[first]
@@ -565,9 +683,9 @@ def _disturb(
     burn = rng.random(n_stands) < share
     hit = np.flatnonzero(exposed & burn[parts.stand])
     vol = parts.volume(curves, hit, parts.age[hit] - L / 2, reg)
-    out = parts.area[hit].sum(), float(np.dot(vol, parts.area[hit]))
+    out = parts.area[hit].sum(), area_sum(vol, parts.area[hit])
     parts.age[hit] = L / 2 - parts.delay[hit]
-    parts.thinned_to[hit] = np.where(parts.in_hlb[hit], 0.0, -np.inf)
+    parts.restart(hit)
     return out
 
 
@@ -645,9 +763,7 @@ def simulate(
             sim.feasible, sim.fail_period, sim.fail_reason = False, p + 1, _fail_reason(cut)
             if not record:
                 break
-        if reg is not None and reg.thins:  # the thinnings due are taken (a cut part restarts)
-            taken = np.where(parts.in_hlb, np.maximum(parts.thinned_to, age_h), -np.inf)
-            parts.thinned_to = taken
+        _thinned(parts, cut, age_h)  # the thinnings due are taken (a cut part restarts)
         shares = None if regen_shares is None else regen_shares[p]
         n_before, regen = _regrow(parts, cut, L, off, stands, curves, shares)
         if record:

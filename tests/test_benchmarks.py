@@ -1,0 +1,44 @@
+"""The benchmark scripts run (at a tiny size): a benchmark that no longer matches the library
+fails here, not on the day its figures are needed. Their timings are not checked."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import pytest
+
+BENCH = Path(__file__).resolve().parents[1] / "benchmarks"
+
+
+@pytest.fixture(scope="module")
+def bench():
+    sys.path.insert(0, str(BENCH))
+    try:
+        import bench_pipeline
+        import bench_regimes
+
+        yield bench_pipeline, bench_regimes
+    finally:
+        sys.path.remove(str(BENCH))
+
+
+def test_pipeline_benchmark_reports_every_stage(bench):
+    row = bench[0].one_size(300)
+    stages = ("read_check_s", "project_schedule_s", "tables_s", "indicators_s", "write_s")
+    assert all(row[k] > 0 for k in stages)
+    assert row["total_s"] == pytest.approx(sum(row[k] for k in stages))
+    assert row["stands"] == 300 and row["harvest_rows"] > 0
+
+
+def test_regimes_benchmark_variants_differ_as_described(bench, tmp_path):
+    pipeline, regimes = bench
+    gpkg = tmp_path / "region.gpkg"
+    pipeline.build_region(300, gpkg)
+    got = {v: regimes.one_run(regimes.scenario(gpkg, 300, v), None) for v in regimes.VARIANTS}
+    # thinnings only where the variant keeps them; the analysis unit's planted spruce is
+    # thinned even without transitions
+    assert got["plain"]["thinning_m3"] == 0 and got["transitions"]["thinning_m3"] == 0
+    assert got["thinnings"]["thinning_m3"] > 0
+    assert got["regimes"]["thinning_m3"] > got["thinnings"]["thinning_m3"]
+    assert all(r["steps"] > 0 and r["total_s"] > r["project_schedule_s"] for r in got.values())
