@@ -274,8 +274,7 @@ def _schedule(scenario: Scenario, inventory: CheckResult, model: _Model, timer: 
     lp = strata = None
     if lp_plan.wanted(scenario):
         with timer.stage("harvest LP"):
-            zones = zone_codes(inventory.stands)
-            lp, strata = lp_plan.harvest_lp(scenario, s, c, p, zones, rules.cover)
+            lp, strata = lp_plan.harvest_lp(scenario, s, c, p, rules.cover)
     f = scenario.flow
     if f.method == "optimize":
         assert lp is not None and strata is not None

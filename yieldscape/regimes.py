@@ -160,7 +160,8 @@ class Regimes:
     ) -> tuple[NDArray, NDArray, NDArray]:
         """Removals [m3/ha] of each element's thinnings in (after, upto], the age of the last
         of them (NaN where none is due) and the age of the next thinning after ``upto`` (inf:
-        none). Meant for the few elements that may have one due (the caller picks them)."""
+        none). Right for any elements; the simulation calls it on the few parts whose next
+        thinning age is reached."""
         t = self.thin_ages[sp]
         later = t > upto[:, None] + 1e-9
         hit = (t > after[:, None] + 1e-9) & ~later

@@ -1,19 +1,38 @@
 """The harvest LP (Model II, HiGHS) against an independent solver and known optima."""
 
+import json
 import warnings
+from dataclasses import replace
+from types import SimpleNamespace
 
 import numpy as np
+import pandas as pd
 import pulp
 import pytest
 
+import yieldscape
 from yieldscape.errors import InputError
-from yieldscape.growth import ChapmanRichards, chapman_richards_culmination_age
-from yieldscape.policies import EvenFlow
+from yieldscape.growth import (
+    ChapmanRichards,
+    SiteScaling,
+    TableYield,
+    chapman_richards_culmination_age,
+)
+from yieldscape.policies import EvenFlow, Targets
 from yieldscape.projection import CurveSet, Periods, StandArrays
+from yieldscape.regimes import Regimes
 from yieldscape.schedule import HarvestRules, find_even_flow, simulate
-from yieldscape.schedule.lp import INF, build_lp, lp_columns, make_strata, solve_lp
+from yieldscape.schedule.lp import (
+    INF,
+    build_lp,
+    choice_columns,
+    lp_columns,
+    make_strata,
+    solve_lp,
+)
+from yieldscape.schedule.lp_plan import lp_schedule
 
-from helpers import gap_forest
+from helpers import gap_forest, scenario_dict, squares, stand_attrs, write_layer, write_scenario
 
 CURVE = ChapmanRichards(450.0, 0.035, 3.0)
 CURVES = CurveSet(["pine"], [CURVE])
@@ -37,6 +56,11 @@ def test_highs_matches_cbc_on_the_same_model(objective, band, cap):
     st = forest()
     model = build_lp(st, CURVES, PERIODS, stand_strata(st), objective, "even", band, 0.8, cap)
     ours = solve_lp(st, CURVES, PERIODS, stand_strata(st), objective, "even", band, 0.8, cap)
+    assert cbc_objective(model) == pytest.approx(ours.objective, rel=1e-6)
+
+
+def cbc_objective(model):
+    """The optimum of the same matrix model solved by CBC through PuLP (maximised)."""
     A = model.matrix.tocsr()
     prob = pulp.LpProblem("harvest", pulp.LpMinimize)
     x = [prob.add_variable(f"x{i}", lowBound=0) for i in range(A.shape[1])]
@@ -58,7 +82,7 @@ def test_highs_matches_cbc_on_the_same_model(objective, band, cap):
         warnings.simplefilter("ignore", DeprecationWarning)
         prob.solve(pulp.PULP_CBC_CMD(msg=False))
     assert pulp.LpStatus[prob.status] == "Optimal"
-    assert -pulp.value(prob.objective) == pytest.approx(ours.objective, rel=1e-6)
+    return -pulp.value(prob.objective)
 
 
 def test_lp_optimum_bounds_the_rule_based_forecast():
@@ -570,3 +594,392 @@ def test_a_new_flow_policy_is_one_registry_entry(monkeypatch):
     st, strata = three_strata()
     res = solve_lp(st, CURVES, HAND_PERIODS, strata, "max-volume", "at-most-first")
     assert (res.harvest_m3[1:] <= res.harvest_m3[0] * (1 + 1e-9)).all()
+
+
+# ---------------------------------------------------------------- management regimes in the LP
+# Three codes: natural stands, and two codes they may regrow as (planted, mixed). Every curve is
+# a code's gross yield; thinnings take a share of the standing volume (yieldscape.regimes).
+
+NATURAL = ChapmanRichards(450.0, 0.035, 3.0, SiteScaling(20.0, 1.0, 0.3))
+PLANTED = ChapmanRichards(560.0, 0.045, 3.0, SiteScaling(20.0, 1.0, 0.3))
+MIXED = ChapmanRichards(700.0, 0.03, 3.0, SiteScaling(20.0, 1.5, 0.2))  # slower, larger
+R_CURVES = CurveSet(["natural", "planted", "mixed"], [NATURAL, PLANTED, MIXED])
+NAT, PLA, MIX = 0, 1, 2
+LONG = Periods(2030, 10, 16, "midpoint")  # long enough for regrowth to be cut again
+
+
+def regime_forest(
+    n=40,
+    seed=3,
+    transitions=((0, 1, 0), (0, 1, 0), (0, 0, 1)),
+    choices=(None, None, None),
+    thinnings=((), (), ()),
+    delay=(0.0, 2.0, 1.0),
+    sites=None,
+):
+    """Stands of natural forest (a few planted ones) with the regimes given: ``transitions``
+    (codes x codes), ``choices`` (per code the options, or None), ``thinnings`` (per code
+    (age, share) pairs). Minimum harvest ages 60, 40 and 50 years, 5 years less on sites of
+    22 m and more (what StandArrays.from_table gives per code and site, made by hand)."""
+    rng = np.random.default_rng(seed)
+    sp = np.where(rng.random(n) < 0.85, NAT, PLA).astype(np.int32)
+    site = rng.uniform(16.0, 24.0, n) if sites is None else np.resize(sites, n)
+    ages = np.where(rng.random(n) < 0.6, rng.uniform(60, 140, n), rng.uniform(0, 40, n))
+    by_code = np.array([60.0, 40.0, 50.0])[:, None] - 5.0 * (site >= 22.0)[None, :]
+    K = max(len(t) for t in thinnings)
+    thin_ages, thin_share = np.full((3, K), np.inf), np.full((3, K), np.nan)
+    for i, sched in enumerate(thinnings):
+        for k, (age, share) in enumerate(sched):
+            thin_ages[i, k], thin_share[i, k] = age, share
+    reg = Regimes(
+        np.asarray(transitions, dtype=np.float64),
+        tuple(choices),
+        thin_ages,
+        thin_share,
+        {},
+        np.asarray(delay, dtype=np.float64),
+    )
+    return StandArrays(
+        sp,
+        site,
+        ages,
+        rng.uniform(5, 30, n),
+        by_code[sp, np.arange(n)],
+        reg.delay[sp],
+        np.arange(n),
+        regimes=reg,
+        min_age_by_code=by_code,
+    )
+
+
+def regime_strata(st, disturbed=False):
+    return make_strata(st, np.zeros(st.n, int), 1e-6, 1e-6, disturbed)
+
+
+def test_model_without_regimes_is_unchanged_by_them():
+    # identity transitions and no thinnings: the same matrix as without regimes at all
+    st = regime_forest(transitions=np.eye(3))
+    plain = replace(st, regimes=None, min_age_by_code=None)
+    a = build_lp(st, R_CURVES, PERIODS, regime_strata(st), "max-volume", "even", 0.1, 0.8)
+    b = build_lp(plain, R_CURVES, PERIODS, regime_strata(plain), "max-volume", "even", 0.1, 0.8)
+    assert (a.matrix != b.matrix).nnz == 0
+    np.testing.assert_array_equal(a.cost, b.cost)
+    np.testing.assert_array_equal(a.row_lo, b.row_lo)
+
+
+def schedule_as_solution(st, strata, model, sim, periods):
+    """The LP solution of a simulated schedule, on strata of one stand each whose regrowth,
+    whatever its generation, stays in one group per stand (A -> B -> B): the area of each
+    stand first cut in p (told by the age at the cut), of its regrowth established in i and
+    cut again in j (i from the age and the delay), and what is never cut. The H_p are left at
+    0, so A x gives each period's harvest in the harvest rows."""
+    P, L, off = periods.count, float(periods.period_years), periods.offset_years
+    cols = lp_columns(strata, R_CURVES, periods)
+    at = {
+        (bool(a), int(b), int(c), int(d)): k
+        for k, (a, b, c, d) in enumerate(
+            zip(cols.is_x, cols.index, cols.first, cols.again, strict=True)
+        )
+    }
+    stratum = strata.of_stand
+    _, group, share = strata.regrowth.of(stratum)
+    assert len(group) == st.n and (share == 1).all()  # one target per stand
+    _, again, _ = strata.regrowth.of(strata.n + group)
+    assert (again == group).all()  # B -> B: regrowth stays in its group
+    x = np.zeros(model.matrix.shape[1])
+    cut_in = np.zeros((st.n, P + 1))
+    clear = sim.event_treatment == 0
+    events = zip(
+        sim.event_stand[clear],
+        sim.event_period[clear],
+        sim.event_age_years[clear],
+        sim.event_area_ha[clear],
+        sim.event_code[clear],
+        strict=True,
+    )
+    for s, p, age, area, code in events:
+        cut_in[s, p] += area
+        if np.isclose(age, st.age_years[s] + (p - 1) * L + off):
+            x[at[(True, stratum[s], p, 0)]] += area
+        else:
+            i = p - round((age + st.regimes.delay[code]) / L)
+            x[at[(False, group[s], i, p)]] += area
+    for s in range(st.n):
+        first = [
+            at[(True, stratum[s], p, 0)] for p in range(1, P + 1) if (True, stratum[s], p, 0) in at
+        ]
+        x[at[(True, stratum[s], 0, 0)]] = st.area_ha[s] - x[first].sum()
+        for i in range(1, P + 1):
+            later = [
+                at[(False, group[s], i, j)]
+                for j in range(i + 1, P + 1)
+                if (False, group[s], i, j) in at
+            ]
+            x[at[(False, group[s], i, 0)]] = cut_in[s, i] - x[later].sum()
+    return x, cols
+
+
+@pytest.mark.parametrize("timing", ["start", "midpoint", "end"])
+def test_lp_harvest_of_a_schedule_with_thinnings_is_the_simulation_harvest(timing):
+    # The LP's bookkeeping against the rule-based simulation (yieldscape.regimes: a thinning is
+    # taken in the period in which the stand reaches its age, unless the stand is clearcut
+    # then; a clearcut takes the gross yield less the thinnings taken before): on strata of
+    # one stand each, a simulated schedule (natural -> planted -> planted, thinnings on both,
+    # partial cuts) put into the LP's columns meets every area and regeneration row and gives
+    # the simulation's harvest, thinnings and ending stock in every period.
+    st = regime_forest(thinnings=(((70, 0.2),), ((25, 0.3), (35, 0.2)), ()))
+    strata = regime_strata(st)
+    periods = replace(LONG, timing=timing)
+    model = build_lp(st, R_CURVES, periods, strata, "max-volume", "none", 0.0, 1.0)
+    sim = simulate(st, R_CURVES, periods, Targets((30000.0,) * 16), record=True)
+    assert sim.thinning_m3.sum() > 0.1 * sim.harvest_m3.sum()
+    x, cols = schedule_as_solution(st, strata, model, sim, periods)
+    assert (x >= -1e-9).all()
+    assert x[: cols.n][cols.is_y & (cols.again > 0)].sum() > 100.0  # regrowth cut again
+    assert len(np.unique(sim.event_area_ha)) > 10  # partial cuts
+    ax = model.matrix @ x
+    h_rows = [int(model.matrix[:, h].indices[0]) for h in model.h_col]
+    np.testing.assert_allclose(ax[h_rows], sim.harvest_m3, rtol=1e-9)
+    thin = np.bincount(cols.thin_period - 1, cols.thin_m3_ha * x[cols.thin_col], 16)
+    np.testing.assert_allclose(thin, sim.thinning_m3, rtol=1e-9)
+    assert ax[model.ending_row] == pytest.approx(sim.ending_stock_m3, rel=1e-9)
+    assert model.row_lo[model.ending_row] == pytest.approx(sim.initial_stock_m3, rel=1e-12)
+    x[model.h_col] = sim.harvest_m3
+    ax = model.matrix @ x
+    rows = np.r_[0 : model.ending_row]
+    rows = rows[~np.isin(rows, model.flow_rows)]
+    assert (ax[rows] >= model.row_lo[rows] - 1e-6).all()
+    assert (ax[rows] <= model.row_hi[rows] + 1e-6).all()
+
+
+CHOICE = ((0, 1, 0), (0, 1, 0), (0, 0, 1))  # natural: a choice (the rules take planted first)
+
+
+@pytest.mark.parametrize("objective", ["max-even-flow", "max-npv"])
+def test_lp_with_a_choice_matches_cbc_on_the_same_model(objective):
+    # Independent solver: the LP with a regime choice (natural -> planted or mixed), thinnings
+    # and a chain, solved by CBC through PuLP on the same matrix; with max-npv each option
+    # pays its own regeneration cost and thinnings earn their price.
+    from yieldscape.schedule.lp import Economics
+
+    st = regime_forest(
+        n=25, choices=((PLA, MIX), None, None), thinnings=((), ((25, 0.3),), ((30, 0.2),))
+    )
+    strata = make_strata(st, np.zeros(st.n, int), 2.0, 20.0)
+    econ = Economics(
+        np.array([20.0, 25.0, 22.0]), np.array([500.0, 1500.0, 800.0]), 0.03, "continuous"
+    )
+    # strict even flow holding the stock: the choice beats either option alone (both objectives)
+    args = (st, R_CURVES, PERIODS, strata, objective, "even", 0.0, 1.0, None, econ)
+    model = build_lp(*args)
+    ours = solve_lp(*args)
+    assert strata.regrowth.choices > 0
+    assert set(ours.regeneration()["to_species"]) == {"planted", "mixed"}
+    assert cbc_objective(model) == pytest.approx(ours.objective, rel=1e-6)
+    if objective == "max-npv":  # a choice column pays its option's cost, e^(-r t) at its cut
+        z = choice_columns(strata, 10)
+        t = (z.period - 1) * 10.0 + 5.0
+        cost = econ.regen_cost[z.code] * np.exp(-0.03 * t)
+        np.testing.assert_allclose(model.cost[len(model.cost) - z.n :], cost, rtol=1e-12)
+
+
+def test_adding_an_option_never_lowers_the_lp_objective():
+    # A larger choice only adds columns (Model II with Model I-style choices, Johnson &
+    # Scheurman 1977, For. Sci. Monogr. 18): on random forests the optimum of max-even-flow and
+    # of max-volume cannot fall, and a choice of one option is the plain transition.
+    gains = []
+    for seed in range(1, 6):
+        rng = np.random.default_rng(seed)
+        thin = ((), ((float(rng.uniform(20, 35)), 0.25),), ((float(rng.uniform(20, 35)), 0.2),))
+        kw = {"n": 30, "seed": seed, "thinnings": thin}
+        forests = [
+            regime_forest(**kw),
+            regime_forest(**kw, choices=((PLA,), None, None)),
+            regime_forest(**kw, choices=((PLA, MIX), None, None)),
+            regime_forest(**kw, choices=((PLA, MIX, NAT), None, None)),
+        ]
+        for objective, policy in (("max-even-flow", "even"), ("max-volume", "nondeclining")):
+            got = [
+                solve_lp(
+                    st,
+                    R_CURVES,
+                    PERIODS,
+                    make_strata(st, np.zeros(30, int), 2.0, 10.0),
+                    objective,
+                    policy,
+                    0.05,
+                    0.7,
+                ).objective
+                for st in forests
+            ]
+            assert got[1] == pytest.approx(got[0], rel=1e-7)
+            assert got[2] >= got[1] * (1 - 1e-7) and got[3] >= got[2] * (1 - 1e-7)
+            gains.append(got[3] / got[1] - 1)
+    assert max(gains) > 0.01  # the choice matters somewhere
+
+
+def test_lp_choice_mapped_onto_stands_follows_the_lp():
+    # The rule-based run with the LP's choice mapped onto stands (lp_schedule passes the LP's
+    # shares per period and code to simulate): on strata of one stand each, all on one site so
+    # that a share per code is all the LP chose, the mapped schedule takes the LP's volume and
+    # regrows each period's natural area in the LP's shares.
+    thin = ((), ((25, 0.3),), ((30, 0.2),))
+    st = regime_forest(choices=((PLA, MIX), None, None), thinnings=thin, sites=[20.0])
+    strata = regime_strata(st)
+    # holding the ending stock, the choice beats either option alone: the LP needs both
+    lp = solve_lp(st, R_CURVES, PERIODS, strata, "max-even-flow", "even", 0.0, 1.0)
+    chosen = lp.regeneration()
+    natural = chosen[chosen["from_species"] == "natural"]
+    assert set(natural["to_species"]) == {"planted", "mixed"}
+    # lp_schedule reads the objective and the ending stock of the scenario's flow section
+    flow_keys = SimpleNamespace(objective="max-even-flow", ending_stock=1.0)
+    flow = lp_schedule(
+        lp, strata, st, R_CURVES, PERIODS, SimpleNamespace(flow=flow_keys), HarvestRules()
+    )
+    sim = flow.simulation
+    assert sim.harvest_m3.sum() == pytest.approx(lp.harvest_m3.sum(), rel=1e-3)
+    for p in range(1, 11):
+        cut = (sim.regen_period == p) & (sim.regen_from == NAT)
+        lp_p = lp.regen_area_ha[p - 1, NAT]
+        if cut.any() and lp_p.sum() > 1e-6:
+            to = np.bincount(sim.regen_to[cut], sim.regen_area_ha[cut], 3)
+            np.testing.assert_allclose(to / to.sum(), lp_p / lp_p.sum(), atol=1e-9)
+
+
+def conversion_forest(R=60.0, L=10.0, a=5.0, choice=False, thin=()):
+    """A fully regulated forest on curve N (one age class of ``a`` ha per period of the
+    rotation R, each reaching R at its period's midpoint harvest) converted to curve M: both
+    tables flat past R, minimum harvest age R, no delay."""
+    n = int(R / L)
+    ages = R - np.arange(n) * L - L / 2
+    by_code = np.full((2, n), R)
+    reg = Regimes(
+        np.array([[0.0, 1.0], [0.0, 1.0]]),
+        ((0, 1) if choice else None, None),
+        np.array([[np.inf] * len(thin), [t for t, _ in thin]]).reshape(2, len(thin)),
+        np.array([[np.nan] * len(thin), [q for _, q in thin]]).reshape(2, len(thin)),
+        {},
+        np.zeros(2),
+    )
+    return StandArrays(
+        np.zeros(n, np.int32),
+        np.full(n, 20.0),
+        ages,
+        np.full(n, a),
+        np.full(n, R),
+        np.zeros(n),
+        np.arange(n),
+        regimes=reg,
+        min_age_by_code=by_code,
+    )
+
+
+N_TABLE = TableYield.single((20.0, 40.0, 60.0), (80.0, 220.0, 330.0))
+M_TABLE = TableYield.single((20.0, 40.0, 60.0), (120.0, 300.0, 420.0))
+NM = CurveSet(["natural", "planted"], [N_TABLE, M_TABLE])
+
+
+@pytest.mark.parametrize(("choice", "thinned"), [(False, False), (True, False), (True, True)])
+def test_conversion_of_a_regulated_forest_follows_area_control(choice, thinned):
+    # A fully regulated forest on curve N converted to curve M at rotation R: (A/R) N(R) a year
+    # for the first rotation, then (A/R) M(R) (the area-control identity: Davis & Johnson,
+    # Forest Management, from memory; Bettinger et al. 2009, Ch. 11). With the area cut a
+    # period held to A L / R and curves flat past R, no period can yield more, so the
+    # max-volume LP (non-declining or free flow) gives exactly that; a choice between N and M
+    # chooses M. Thinned at 30 years (a quarter of M(30)), the steady state is still (A/R) M(R),
+    # clearcut plus the removals up to R (M is the gross yield), and the first rotation gains
+    # the removals of the regrowth that reaches 30. Under strict even flow the first rotation
+    # sets the level of every period.
+    st = conversion_forest(choice=choice, thin=((30.0, 0.25),) if thinned else ())
+    strata = make_strata(st, np.zeros(st.n, int), 1.0, 1e-6)
+    periods = Periods(2030, 10, 12, "midpoint")
+    a, nr, mr = 5.0, 330.0, 420.0  # ha a period (A L / R), N(R), M(R)
+    removal = 0.25 * float(M_TABLE.volume_m3_ha(30.0, 20.0)) if thinned else 0.0
+    expected = np.r_[np.full(6, a * nr), np.full(6, a * mr)]
+    expected[3:6] += a * removal  # regrowth of periods 1-3 thinned in periods 4-6
+    for policy in ("nondeclining", "none"):
+        lp = solve_lp(st, NM, periods, strata, "max-volume", policy, 0.0, 0.0, a)
+        np.testing.assert_allclose(lp.harvest_m3, expected, rtol=1e-7)
+    to = lp.regeneration().groupby("to_species")["area_ha"].sum()
+    assert to.to_dict() == pytest.approx({"planted": 12 * a})
+    even = solve_lp(st, NM, periods, strata, "max-even-flow", "even", 0.0, 0.0, a)
+    assert even.objective == pytest.approx(a * nr, rel=1e-7)
+
+
+def test_lp_stock_with_regimes_and_disturbance_matches_the_simulation():
+    # As test_lp_disturbance_accounting_matches_the_simulation, with transitions and thinnings:
+    # uncut stands are still thinned, disturbed area regrows as its own code (planted stands
+    # in their own group, which no cut regrows into and make_strata keeps when disturbed),
+    # and, as a clearcut only lowers the stock (planted stands regrow as natural, a lower
+    # curve), the largest ending stock the LP can require is the simulation's expected stock
+    # without clearcuts.
+    to_natural = ((1, 0, 0), (1, 0, 0), (0, 0, 1))
+    base = regime_forest(n=30, transitions=to_natural, thinnings=(((70, 0.2),), ((25, 0.3),), ()))
+    st = replace(base, harvestable_ha=base.area_ha * np.where(np.arange(30) % 2, 1.0, 0.4))
+    rules = HarvestRules(disturbance=0.01)
+    calm = simulate(st, R_CURVES, PERIODS, Targets((0.0,) * 10), rules, record=True)
+    assert calm.thinning_m3.sum() > 0
+    ratio = calm.ending_stock_m3 / calm.initial_stock_m3
+    strata = regime_strata(st, disturbed=True)
+    args = (st, R_CURVES, PERIODS, strata, "max-volume", "none", 0.0)
+    kw = {"disturbance": 0.01}
+    assert solve_lp(*args, ratio * (1 - 1e-6), **kw).status == "Optimal"
+    with pytest.raises(InputError, match="infeasible"):
+        solve_lp(*args, ratio * (1 + 1e-4), **kw)
+    with pytest.raises(ValueError, match="disturbed=True"):
+        solve_lp(st, R_CURVES, PERIODS, regime_strata(st), disturbance=0.01)
+
+
+def test_optimised_run_reports_and_follows_the_lp_choice(tmp_path):
+    # Through the scenario, the pipeline and the writer: natural stands whose regeneration is
+    # a choice (planted, thinned at 25, or mixed); flow.method = "optimize" maps the LP's
+    # choice onto stands. run.json lp.regeneration holds the LP's areas from code to code,
+    # regeneration.csv the written schedule's, which regrows each code's cut in the LP's
+    # shares of its period (a code with no cut in the LP's period takes the first option).
+    n = 30
+    ages = np.r_[np.arange(20) * 6.0 + 1.0, np.arange(10) * 4.0 + 80.0]
+    layer = write_layer(
+        tmp_path / "stands.gpkg", squares(n), stand_attrs(n, ages, "natural", site=20.0)
+    )
+
+    def code(a, k, min_age, **rest):
+        return {
+            "curve": "chapman-richards",
+            "a": a,
+            "k": k,
+            "c": 3.0,
+            "min_harvest_age": min_age,
+            "regen_delay_years": 1,
+            **rest,
+        }
+
+    raw = scenario_dict(
+        layer,
+        species={
+            "natural": code(400.0, 0.03, 60, regenerate_as=["planted", "mixed"]),
+            "planted": code(520.0, 0.045, 40, thinnings=[{"age_years": 25, "removal_share": 0.25}]),
+            "mixed": code(700.0, 0.03, 50),
+        },
+        # strict even flow holding the stock: the choice beats either option alone (1,662
+        # m3 a period against 1,572 planted and 1,510 mixed), so the LP uses both
+        flow={"method": "optimize", "policy": "even", "band": 0.0, "ending_stock": 1.0},
+    )
+    out = tmp_path / "out"
+    yieldscape.run(yieldscape.load_scenario(write_scenario(tmp_path / "s.toml", raw)), out)
+    lp = json.loads((out / "run.json").read_text())["lp"]
+    chosen = pd.DataFrame(lp["regeneration"])
+    assert list(chosen.columns) == ["period", "from_species", "to_species", "area_ha"]
+    natural = chosen[chosen["from_species"] == "natural"]
+    assert set(natural["to_species"]) == {"planted", "mixed"}
+    written = pd.read_csv(out / "regeneration.csv")
+    for p, lp_rows in natural.groupby("period"):
+        sim = written[(written["period"] == p) & (written["from_species"] == "natural")]
+        if len(sim):
+            want = lp_rows.set_index("to_species")["area_ha"]
+            got = sim.groupby("to_species")["area_ha"].sum()
+            pd.testing.assert_series_equal(
+                (got / got.sum()).sort_index(),
+                (want / want.sum()).sort_index(),
+                check_names=False,
+                atol=1e-9,
+            )

@@ -1,21 +1,28 @@
 """Harvest scheduling as a linear programme (Model II; Johnson & Scheurman 1977), solved by HiGHS.
 
-Strata group the harvestable area of the stands by species, site class, age class and zone
-(area-weighted mean age and site). Variables, all areas [ha]:
+Strata group the harvestable area of the stands by species (code), site class, age class and
+zone (area-weighted mean age and site). Variables, all areas [ha]:
 
 - ``x[s, p]``: area of existing stratum s first cut in period p (only where its age at the
   harvest moment reaches the minimum harvest age), and ``x[s, 0]``: never cut;
-- ``y[g, i, j]``: area of regeneration group g (species x site class) that was cut in period i
-  and is cut again in period j > i (where its new age reaches the minimum), ``y[g, i, 0]``:
-  not cut again.
+- ``y[g, i, j]``: area of regeneration group g that was established in period i and is cut
+  again in period j > i (where its new age reaches the minimum), ``y[g, i, 0]``: not cut
+  again. A group is keyed by the code the area regrows as (its curve, delay and thinnings),
+  the site class, that code's minimum harvest age there and the zone
+  (:mod:`yieldscape.schedule.lp_regimes`);
+- ``z[n, p, o]``: where a code's regeneration is a choice (``regenerate_as`` an array), the
+  area cut in period p from the sources of choice n that regrows as option o.
 
-Rows: each stratum's area is conserved; the area cut from group g in period i is the area that
-regenerates in i and is cut again later or never; harvest H_p is the volume of every cut in
-period p; flow rows tie consecutive H_p (even: equal, or within a band; non-declining:
-H_p >= H_{p-1}; none: no flow rows; ``FLOW_ROWS`` picks them by policy); the ending growing
-stock (including the area outside the harvestable land base, which is never cut) is at least
-``ending_stock`` x the initial; an optional area cap.
+Rows: each stratum's area is conserved; the area established in group g in period i is what
+the cuts of period i send to g (each cut regrows as its code's transitions say, in their
+shares; a choice's cut is split among its options by the z); harvest H_p is the volume of
+every cut in period p (the standing volume: gross less the thinnings taken) plus the
+thinnings taken in p on the area standing uncut; flow rows tie consecutive H_p (even: equal,
+or within a band; non-declining: H_p >= H_{p-1}; none: no flow rows; ``FLOW_ROWS`` picks them
+by policy); the ending growing stock (including the area outside the harvestable land base,
+which is never cut) is at least ``ending_stock`` x the initial; an optional area cap.
 Objectives: ``max-even-flow`` maximises H_1 under the flow rows; ``max-volume`` the sum of H_p.
+Without transitions and thinnings every cut regrows in its own stratum's group, as before.
 
 The solution is mapped back to stands by cutting, within each stratum, stands in stand-id order
 until each period's stratum area is used (the last stand partly), and the volume of that
@@ -27,25 +34,33 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import highspy
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
-from scipy.sparse import coo_matrix, csc_matrix
+from scipy.sparse import coo_matrix, csc_matrix, csr_matrix
 
 from yieldscape.errors import InputError
 from yieldscape.growth.economics import growth_factor
 from yieldscape.projection import CurveSet, Periods, StandArrays
+from yieldscape.regimes import Regimes
 from yieldscape.schedule.cover import CoverRule, CoverRules
+from yieldscape.schedule.lp_regimes import (
+    Regrowth,
+    Removals,
+    regeneration_groups,
+    thinnings_by_period,
+)
 
 INF = highspy.kHighsInf
 
 
 @dataclass
 class Strata:
-    """Strata of the harvestable area: per stratum species, site, mean age, area, min age."""
+    """Strata of the harvestable area: per stratum species, site, mean age, area, min age; the
+    regeneration groups (:mod:`yieldscape.schedule.lp_regimes`) and where each cut regrows."""
 
     species_idx: NDArray
     site_index: NDArray
@@ -53,7 +68,7 @@ class Strata:
     area_ha: NDArray
     min_age: NDArray
     regen_delay: NDArray
-    group: NDArray  # regeneration group (species x site class)
+    group: NDArray  # each stratum's own group (its code, site class, zone; -1: none)
     of_stand: NDArray  # stratum of each stand (-1: no harvestable area)
     group_species: NDArray
     group_site: NDArray
@@ -61,6 +76,8 @@ class Strata:
     group_delay: NDArray
     zone: NDArray  # zone code of each stratum
     group_zone: NDArray  # zone code of each regeneration group
+    regrowth: Regrowth  # the groups (or choice) the area cut from each stratum and group enters
+    regimes: Regimes | None = None  # the stands' transitions and thinnings
 
     @property
     def n(self) -> int:
@@ -69,13 +86,19 @@ class Strata:
     @property
     def groups(self) -> int:
         """The number of regeneration groups."""
-        return int(self.group.max()) + 1 if self.n else 0
+        return len(self.group_species)
 
 
 def make_strata(
-    stands: StandArrays, zone_codes: NDArray, site_step: float, age_step: float
+    stands: StandArrays,
+    zone_codes: NDArray,
+    site_step: float,
+    age_step: float,
+    disturbed: bool = False,
 ) -> Strata:
-    """Group stands with harvestable area by species, site class, age class and zone."""
+    """Group stands with harvestable area by species, site class, age class and zone, and
+    find the regeneration groups they regrow into (with ``disturbed`` each stratum's own group
+    too: disturbed area regrows as its own code)."""
     area = stands.harvestable_ha if stands.harvestable_ha is not None else stands.area_ha
     live = area > 0
     site_cls = np.round(stands.site_index / site_step).astype(np.int64)
@@ -101,18 +124,12 @@ def make_strata(
     first = np.zeros(n, dtype=np.int64)
     first[codes[::-1]] = np.flatnonzero(live)[::-1]  # a representative stand per stratum
     site = mean(stands.site_index)
-    gkey = pd.DataFrame(
-        {
-            "sp": stands.species_idx[first],
-            "si": site_cls[first],
-            "min": stands.min_harvest_age[first],
-            "zone": zone_codes[first],  # regrowth stays in its zone (cover targets)
-        }
-    )
-    group = gkey.groupby(list(gkey.columns), sort=True).ngroup().to_numpy()
-    ng = int(group.max()) + 1 if n else 0
-    gfirst = np.zeros(ng, dtype=np.int64)
-    gfirst[group[::-1]] = np.arange(n)[::-1]
+    zone = np.asarray(zone_codes)[first]
+    sources = pd.DataFrame(
+        {"sp": stands.species_idx[first], "si": site_cls[first], "zone": zone}
+    ).assign(rep=first, site=site)
+    groups = regeneration_groups(stands, sources, disturbed)
+    g = groups.frame
     return Strata(
         species_idx=stands.species_idx[first],
         site_index=site,
@@ -120,14 +137,16 @@ def make_strata(
         area_ha=np.bincount(codes, w, n),
         min_age=stands.min_harvest_age[first],
         regen_delay=stands.regen_delay_years[first],
-        group=group,
+        group=groups.own,
         of_stand=of_stand,
-        group_species=stands.species_idx[first][gfirst],
-        group_site=site[gfirst],
-        group_min_age=stands.min_harvest_age[first][gfirst],
-        group_delay=stands.regen_delay_years[first][gfirst],
-        zone=np.asarray(zone_codes)[first],
-        group_zone=np.asarray(zone_codes)[first][gfirst],
+        group_species=g["sp"].to_numpy(np.int64),
+        group_site=g["site"].to_numpy(np.float64),
+        group_min_age=g["min"].to_numpy(np.float64),
+        group_delay=g["delay"].to_numpy(np.float64),
+        zone=zone,
+        group_zone=g["zone"].to_numpy(np.int64),  # regrowth stays in its zone (cover targets)
+        regrowth=groups.regrowth,
+        regimes=stands.regimes,
     )
 
 
@@ -147,6 +166,11 @@ class LPModel:
     strata: int
     periods: int = 0
     context: dict = field(default_factory=dict)  # what an infeasibility message needs
+    codes: tuple[str, ...] = ()  # the CurveSet codes
+    regimes: bool = False  # transitions or thinnings in the model
+    # takes a solution to the area regrowing from each code into each, per period (rows
+    # (p - 1) C^2 + from C + to; C codes)
+    regeneration: object = None  # scipy.sparse.csr_matrix
 
 
 @dataclass
@@ -160,6 +184,23 @@ class LPResult:
     strata: int
     duals: dict[str, float] = field(default_factory=dict)
     cut_area: NDArray = field(default_factory=lambda: np.zeros(0))  # (strata, periods)
+    # area [ha] cut in each period from each code and regrowing as each (periods x codes x
+    # codes: the transitions' shares and the LP's choices), and the codes
+    regen_area_ha: NDArray = field(default_factory=lambda: np.zeros((0, 0, 0)))
+    codes: tuple[str, ...] = ()
+
+    def regeneration(self) -> pd.DataFrame:
+        """The LP's regeneration as a table: ``period``, ``from_species``, ``to_species``,
+        ``area_ha`` (rows with an area)."""
+        p, i, j = np.nonzero(self.regen_area_ha > 1e-6)
+        return pd.DataFrame(
+            {
+                "period": (p + 1).astype(np.int64),
+                "from_species": [self.codes[k] for k in i],
+                "to_species": [self.codes[k] for k in j],
+                "area_ha": self.regen_area_ha[p, i, j],
+            }
+        )
 
 
 @dataclass(frozen=True)
@@ -199,18 +240,22 @@ def build_lp(
 ) -> LPModel:
     """The Model II LP of the module docstring as a matrix model.
 
-    Columns: :func:`lp_columns` (x and y), then H_1..H_P. Rows, in this order: the stratum
-    areas, the regeneration balances (G x P), the harvest definitions (P), the flow rows of
-    the policy (:data:`FLOW_ROWS`), the ending stock, the cover rows (rule x period), the area
-    cap (P).
+    Columns: :func:`lp_columns` (x and y), then H_1..H_P, then the choice columns z
+    (:func:`choice_columns`). Rows, in this order: the stratum areas, the regeneration
+    balances (G x P) and the choices' split rows (choices x P), the harvest definitions (P),
+    the flow rows of the policy (:data:`FLOW_ROWS`), the ending stock, the cover rows (rule x
+    period), the area cap (P).
     """
     P = periods.count
     cols = lp_columns(strata, curves, periods)
     surv = _survival(cols, periods, disturbance)
+    choices = choice_columns(strata, P)
     h_col = cols.n + np.arange(P)  # H_p variables
+    z_col = cols.n + P + np.arange(choices.n)  # choice variables
+    regrow = _cuts_regrow(strata, cols, surv)
     m = MatrixBuilder()
     _area_rows(m, strata, cols)
-    balance0 = _regeneration_rows(m, strata, cols, surv, P)
+    balance0 = _regeneration_rows(m, strata, cols, regrow, choices, z_col, P)
     _disturbed_regrowth(m, strata, cols, surv, balance0, P)
     _harvest_rows(m, cols, surv, h_col)
     # a name without an entry takes the even rows, as before (the pipeline itself passes the
@@ -221,9 +266,12 @@ def build_lp(
         _cover_rows(m, stands, strata, periods, cols, surv, cover, stand_zone)
     if max_area_ha is not None:
         _area_cap_rows(m, cols, surv, max_area_ha, P)
-    cost = _lp_costs(objective, cols, strata, periods, economics, h_col)
+    cost = _lp_costs(objective, cols, strata, periods, economics, h_col, choices, surv)
     matrix, row_lo, row_hi = m.build(len(cost))
-    first_cut = cols.is_x & (cols.first > 0)
+    C = len(curves.codes)
+    regen = _regeneration_map(strata, cols, regrow, choices, z_col, P, C, len(cost))
+    context = {"ending_stock": ending_stock, "max_area_ha": max_area_ha, "policy": policy}
+    context["cover"] = cover is not None
     return LPModel(
         cost,
         matrix,
@@ -232,16 +280,56 @@ def build_lp(
         h_col,
         ending_row,
         flow_rows,
-        np.r_[np.where(first_cut, cols.index, -1), np.full(P, -1)],
-        np.r_[np.where(first_cut, cols.first, 0), np.zeros(P, dtype=np.int64)],
+        *_first_cuts(cols, P + choices.n),
         strata.n,
         periods=P,
-        context={
-            "ending_stock": ending_stock,
-            "max_area_ha": max_area_ha,
-            "policy": policy,
-            "cover": cover is not None,
-        },
+        context=context,
+        codes=tuple(curves.codes),
+        regeneration=regen,
+        regimes=strata.regimes is not None and (strata.regimes.changes or strata.regimes.thins),
+    )
+
+
+def _first_cuts(cols: Columns, rest: int) -> tuple[NDArray, NDArray]:
+    """Per column (the area columns, then ``rest`` more), the stratum and period of an x
+    column's first cut (-1 and 0 otherwise)."""
+    first_cut = cols.is_x & (cols.first > 0)
+    return (
+        np.r_[np.where(first_cut, cols.index, -1), np.full(rest, -1)],
+        np.r_[np.where(first_cut, cols.first, 0), np.zeros(rest, dtype=np.int64)],
+    )
+
+
+@dataclass(frozen=True)
+class Choices:
+    """The choice columns z[n, p, o], in column order: the area cut in period p that choice n
+    sends to its option o (a Model I-style choice of regime inside Model II; Johnson &
+    Scheurman 1977, For. Sci. Monogr. 18). Per column: the choice, the period, the option's
+    group and code, and the code cut."""
+
+    choice: NDArray
+    period: NDArray
+    group: NDArray
+    code: NDArray
+    code_cut: NDArray
+
+    @property
+    def n(self) -> int:
+        return len(self.choice)
+
+
+def choice_columns(strata: Strata, P: int) -> Choices:
+    """A column per choice, period and option, periods outermost."""
+    r = strata.regrowth
+    T = len(r.option_group)
+    opt = np.tile(np.arange(T), P)
+    choice = np.repeat(np.arange(r.choices), np.diff(r.option_start))[opt]
+    return Choices(
+        choice,
+        np.repeat(np.arange(1, P + 1), T),
+        r.option_group[opt],
+        r.option_code[opt],
+        r.choice_code[choice],
     )
 
 
@@ -253,7 +341,8 @@ class Columns:
     ``index``: its stratum or group; ``first``: x, the period of its first cut (0: never cut),
     y, the period its regrowth was established; ``again``: y, the period it is cut again (0:
     never; always 0 for x); ``volume_m3_ha``: what a cut yields (0 where nothing is cut);
-    ``end_volume_m3_ha``: what stands at the horizon's end (never-cut columns only).
+    ``end_volume_m3_ha``: what stands at the horizon's end (never-cut columns only); the
+    ``thin_*`` entries: what thinnings take in each period in which a column stands uncut.
     """
 
     is_x: NDArray
@@ -262,6 +351,10 @@ class Columns:
     again: NDArray
     volume_m3_ha: NDArray
     end_volume_m3_ha: NDArray
+    # thinnings while a column stands uncut: per entry its column, period and removal [m3/ha]
+    thin_col: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    thin_period: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    thin_m3_ha: NDArray = field(default_factory=lambda: np.zeros(0))
 
     @property
     def n(self) -> int:
@@ -293,39 +386,50 @@ def lp_columns(strata: Strata, curves: CurveSet, periods: Periods) -> Columns:
     harvest moment (its volume at that age), x[s, 0] (its volume at the horizon's end). Then per
     establishment period i: y[g, i, j] for j > i where the regrowth, (j - i) periods old less the
     regeneration delay, reaches the group's minimum age, and y[g, i, 0] (its volume at the
-    horizon's end). Volumes below a millilitre per hectare are 0: nothing to a solver.
+    horizon's end). With thinnings the volumes are what stands (:func:`_thinned`). Volumes
+    below a millilitre per hectare are 0: nothing to a solver.
     """
     P, L, off = periods.count, float(periods.period_years), periods.offset_years
     S, G = strata.n, strata.groups
-    blocks = []  # per block: is_x, index, first, again, volume, end volume
+    blocks = []  # per block: is_x, index, first, again, volume, end volume, age
     for p in range(1, P + 1):
         age_h = strata.age_years + (p - 1) * L + off
         ok = np.flatnonzero(age_h >= strata.min_age - 1e-9)
         v = curves.volume_m3_ha(strata.species_idx[ok], age_h[ok], strata.site_index[ok])
-        blocks.append(_block(True, ok, p, 0, v, np.zeros(len(ok))))
-    v_end = curves.volume_m3_ha(strata.species_idx, strata.age_years + P * L, strata.site_index)
-    blocks.append(_block(True, np.arange(S), 0, 0, np.zeros(S), v_end))
+        blocks.append(_block(True, ok, p, 0, v, np.zeros(len(ok)), age_h[ok]))
+    age_end = strata.age_years + P * L
+    v_end = curves.volume_m3_ha(strata.species_idx, age_end, strata.site_index)
+    blocks.append(_block(True, np.arange(S), 0, 0, np.zeros(S), v_end, age_end))
     for i in range(1, P + 1):
         for j in range(i + 1, P + 1):
             age = (j - i) * L - strata.group_delay
             ok = np.flatnonzero(age >= strata.group_min_age - 1e-9)
             v = curves.volume_m3_ha(strata.group_species[ok], age[ok], strata.group_site[ok])
-            blocks.append(_block(False, ok, i, j, v, np.zeros(len(ok))))
+            blocks.append(_block(False, ok, i, j, v, np.zeros(len(ok)), age[ok]))
         age = (P - i) * L + (L - off) - strata.group_delay
         v = curves.volume_m3_ha(strata.group_species, age, strata.group_site)
-        blocks.append(_block(False, np.arange(G), i, 0, np.zeros(G), v))
-    is_x, index, first, again, volume, end = (
+        blocks.append(_block(False, np.arange(G), i, 0, np.zeros(G), v, age))
+    is_x, index, first, again, volume, end, age = (
         np.concatenate(part) for part in zip(*blocks, strict=True)
     )
-    volume[volume < 1e-6] = 0.0
-    end[end < 1e-6] = 0.0
-    return Columns(is_x, index.astype(np.int64), first, again, volume, end)
+    cols = Columns(is_x, index.astype(np.int64), first, again, volume, end)
+    if strata.regimes is not None and strata.regimes.thins:
+        cols = _thinned(cols, age, strata, curves, periods)
+    cols.volume_m3_ha[cols.volume_m3_ha < 1e-6] = 0.0
+    cols.end_volume_m3_ha[cols.end_volume_m3_ha < 1e-6] = 0.0
+    return cols
 
 
 def _block(
-    is_x: bool, index: NDArray, first: int, again: int, volume: NDArray, end: NDArray
+    is_x: bool,
+    index: NDArray,
+    first: int,
+    again: int,
+    volume: NDArray,
+    end: NDArray,
+    age: NDArray,
 ) -> tuple[NDArray, ...]:
-    """One block of columns of :func:`lp_columns` as its six arrays."""
+    """One block of columns of :func:`lp_columns` as its seven arrays."""
     n = len(index)
     return (
         np.full(n, is_x),
@@ -334,6 +438,51 @@ def _block(
         np.full(n, again, dtype=np.int64),
         volume,
         end,
+        age,
+    )
+
+
+def _thinned(
+    cols: Columns, age: NDArray, strata: Strata, curves: CurveSet, periods: Periods
+) -> Columns:
+    """The columns with thinnings, taken as the simulation takes them (yieldscape.regimes): a
+    cut takes the gross volume at ``age`` less the thinnings taken before its period (an
+    existing stratum has had those of its present age), the horizon's end finds the gross
+    less those taken by period P's harvest moment, and in each period in which a column stands
+    uncut the thinnings due then are taken (the ``thin_*`` entries)."""
+    assert strata.regimes is not None
+    P, L, off = periods.count, float(periods.period_years), periods.offset_years
+    S = strata.n
+    rem = Removals.of(
+        strata.regimes,
+        curves,
+        np.r_[strata.species_idx, strata.group_species].astype(np.int64),
+        np.r_[strata.site_index, strata.group_site],
+    )
+    unit = np.where(cols.is_x, cols.index, S + cols.index)
+    age0 = cols.take(strata.age_years)
+    cut = cols.cut_period > 0
+    prev = np.where(cols.is_x, np.maximum(age - L, age0), age - L)  # the previous moment
+    volume = np.where(cut, cols.volume_m3_ha - rem.taken(unit, prev), 0.0)
+    end = np.where(cut, 0.0, cols.end_volume_m3_ha - rem.taken(unit, age - (L - off)))
+    due_x, due_y = thinnings_by_period(rem, strata.age_years, strata.group_delay, periods)
+    last = np.where(cut, cols.cut_period, P + 1)  # the column stands before this period
+    col, period, m3 = [], [], []
+    for k in range(1, P + 1):  # periods
+        on_x = np.flatnonzero(cols.is_x & (k < last))
+        on_y = np.flatnonzero(cols.is_y & (cols.first < k) & (k < last))
+        idx = np.r_[on_x, on_y]
+        v = np.r_[due_x[cols.index[on_x], k - 1], due_y[cols.index[on_y], k - cols.first[on_y] - 1]]
+        col.append(idx[v > 0])
+        period.append(np.full(int((v > 0).sum()), k))
+        m3.append(v[v > 0])
+    return replace(
+        cols,
+        volume_m3_ha=volume,
+        end_volume_m3_ha=end,
+        thin_col=np.concatenate(col),
+        thin_period=np.concatenate(period),
+        thin_m3_ha=np.concatenate(m3),
     )
 
 
@@ -419,23 +568,70 @@ def _area_rows(m: MatrixBuilder, strata: Strata, cols: Columns) -> None:
     m.put(first + cols.index[x], x, 1.0)
 
 
+def _cuts_regrow(
+    strata: Strata, cols: Columns, surv: _Survival
+) -> tuple[NDArray, NDArray, NDArray]:
+    """Where the area of each cutting column regrows (:class:`~yieldscape.schedule.lp_regimes.
+    Regrowth`): per entry the column, the target (a group, or G + a choice) and the area per
+    hectare of the column, its share of the area still standing at the cut."""
+    col = np.flatnonzero(cols.cut_period > 0)
+    source = np.where(cols.is_x[col], cols.index[col], strata.n + cols.index[col])
+    pos, target, share = strata.regrowth.of(source)
+    return col[pos], target, surv.cut[col[pos]] * share
+
+
 def _regeneration_rows(
-    m: MatrixBuilder, strata: Strata, cols: Columns, surv: _Survival, P: int
+    m: MatrixBuilder,
+    strata: Strata,
+    cols: Columns,
+    regrow: tuple[NDArray, NDArray, NDArray],
+    choices: Choices,
+    z_col: NDArray,
+    P: int,
 ) -> int:
     """Per regeneration group g and period p (row ``first + g P + p - 1``), the area
-    established equals the area cut: sum_j y[g, p, j] + y[g, p, 0] - sum_i keep y[g, i, p] -
-    sum_(s in g) keep x[s, p] = 0, with ``keep`` the share still standing at the cut
-    (:class:`_Survival`). Returns the first row."""
-    first = m.add_rows(strata.groups * P, 0.0, 0.0)
+    established equals the area cut that regrows into g: sum_j y[g, p, j] + y[g, p, 0] - sum
+    share keep c[p] - sum_o z[n, p, o] = 0 over the cutting columns c of the sources regrowing
+    into g in their shares (:func:`_cuts_regrow`; ``keep``: the share still standing at the
+    cut, :class:`_Survival`) and the choice columns whose option is g. Per choice n and period
+    p (row ``first + (G + n) P + p - 1``) the choice columns take what the sources choosing n
+    cut: sum_o z[n, p, o] - sum keep c[p] = 0. Returns the first row."""
+    G = strata.groups
+    first = m.add_rows((G + strata.regrowth.choices) * P, 0.0, 0.0)
     col = np.arange(cols.n)
     ys = cols.is_y
     m.put(first + cols.index[ys] * P + (cols.first[ys] - 1), col[ys], 1.0)
-    again = ys & (cols.again > 0)
-    m.put(first + cols.index[again] * P + (cols.again[again] - 1), col[again], -surv.cut[again])
-    cut = cols.is_x & (cols.first > 0)
-    group = strata.group[cols.index[cut]]
-    m.put(first + group * P + (cols.first[cut] - 1), col[cut], -surv.cut[cut])
+    cut, target, area = regrow
+    m.put(first + target * P + (cols.cut_period[cut] - 1), cut, -area)
+    if choices.n:
+        m.put(first + (G + choices.choice) * P + choices.period - 1, z_col, 1.0)
+        m.put(first + choices.group * P + choices.period - 1, z_col, -1.0)
     return first
+
+
+def _regeneration_map(
+    strata: Strata,
+    cols: Columns,
+    regrow: tuple[NDArray, NDArray, NDArray],
+    choices: Choices,
+    z_col: NDArray,
+    P: int,
+    C: int,
+    n_cols: int,
+) -> csr_matrix:
+    """The matrix that takes a solution to the area cut in each period from each code and
+    regrowing as each (rows (p - 1) C^2 + from C + to): the fixed shares of the cutting
+    columns, and the choice columns (C codes)."""
+    cut, target, area = regrow
+    fixed = target < strata.groups
+    cut, target, area = cut[fixed], target[fixed], area[fixed]
+    code_cut = cols.per_column(strata.species_idx, strata.group_species)[cut]
+    rows = (cols.cut_period[cut] - 1) * C * C + code_cut * C + strata.group_species[target]
+    z_rows = (choices.period - 1) * C * C + choices.code_cut * C + choices.code
+    return coo_matrix(
+        (np.r_[area, np.ones(choices.n)], (np.r_[rows, z_rows], np.r_[cut, z_col])),
+        shape=(P * C * C, n_cols),
+    ).tocsr()
 
 
 def _disturbed_regrowth(
@@ -447,6 +643,8 @@ def _disturbed_regrowth(
     row is ``first``."""
     if surv.dist <= 0:
         return
+    if (strata.group < 0).any():
+        raise ValueError("disturbed area regrows in its own group: make_strata(disturbed=True)")
     group = cols.per_column(strata.group, np.arange(strata.groups))
     cut_p = cols.cut_period
     last = np.where(cut_p > 0, cut_p, P + 1)
@@ -458,11 +656,15 @@ def _disturbed_regrowth(
 
 
 def _harvest_rows(m: MatrixBuilder, cols: Columns, surv: _Survival, h_col: NDArray) -> None:
-    """H_p is the volume of every cut in period p: sum v keep x + sum v keep y - H_p = 0."""
+    """H_p is the volume of every cut in period p and of the thinnings taken in it on the
+    columns standing uncut: sum v keep x + sum v keep y + sum r keep c - H_p = 0."""
     first = m.add_rows(len(h_col), 0.0, 0.0)
     cut_p = cols.cut_period
     cut = np.flatnonzero((cut_p > 0) & (cols.volume_m3_ha > 0))
     m.put(first + cut_p[cut] - 1, cut, cols.volume_m3_ha[cut] * surv.cut[cut])
+    if len(cols.thin_col):
+        keep = surv.keep ** np.maximum(cols.thin_period - surv.start[cols.thin_col] - 1, 0)
+        m.put(first + cols.thin_period - 1, cols.thin_col, cols.thin_m3_ha * keep)
     m.put(first + np.arange(len(h_col)), h_col, -1.0)
 
 
@@ -523,6 +725,14 @@ def _ending_stock_row(
             stands.area_ha,
         )
     )
+    reg = stands.regimes
+    if reg is not None and reg.thins:  # the harvestable area has had its thinnings so far
+        sp = stands.species_idx
+        amounts = reg.removals(curves, sp, curves.site_terms(sp, stands.site_index))
+        hlb = stands.area_ha
+        if stands.harvestable_ha is not None:
+            hlb = np.minimum(stands.harvestable_ha, stands.area_ha)
+        initial -= float(np.dot(reg.removed(sp, amounts, stands.age_years), hlb))
     end = np.flatnonzero(cols.end_volume_m3_ha > 0)
     return m.add_row(
         end,
@@ -597,38 +807,68 @@ def _lp_costs(
     periods: Periods,
     economics: Economics | None,
     h_col: NDArray,
+    choices: Choices,
+    surv: _Survival,
 ) -> NDArray:
     """The costs of a minimisation: ``max-volume``: -sum H_p; ``max-npv``: -NPV of each area
-    column (:func:`_npv_per_ha`); otherwise (``max-even-flow``) -H_1."""
-    cost = np.zeros(cols.n + len(h_col))
+    column (:func:`_npv_per_ha`) and the regeneration cost of each choice column, discounted;
+    otherwise (``max-even-flow``) -H_1."""
+    cost = np.zeros(cols.n + len(h_col) + choices.n)
     if objective == "max-volume":
         cost[h_col] = -1.0
     elif objective == "max-npv":
         if economics is None:
             raise InputError("flow.objective = 'max-npv' needs prices and a discount rate")
-        cost[: cols.n] = -_npv_per_ha(cols, strata, periods, economics)
+        cost[: cols.n] = -_npv_per_ha(cols, strata, periods, economics, surv)
+        L, off = float(periods.period_years), periods.offset_years
+        t = (choices.period - 1) * L + off
+        disc = 1.0 / growth_factor(t, economics.rate, economics.compounding)
+        cost[cols.n + len(h_col) :] = economics.regen_cost[choices.code] * disc
     else:
         cost[h_col[0]] = -1.0
     return cost
 
 
-def _npv_per_ha(cols: Columns, strata: Strata, periods: Periods, economics: Economics) -> NDArray:
+def _npv_per_ha(
+    cols: Columns, strata: Strata, periods: Periods, economics: Economics, surv: _Survival
+) -> NDArray:
     """Per area column, the net present value of a hectare: price x volume less the
-    regeneration cost, discounted from the harvest moment of its cut; with ``terminal_value =
-    "standing"`` also its standing volume at the horizon's end at the net price, discounted
-    from then."""
+    regeneration cost (of the codes it regrows as, in their shares; a choice's columns pay
+    their own), discounted from the harvest moment of its cut, and price x the volume of
+    each thinning it takes, discounted from then; with ``terminal_value = "standing"`` also
+    its standing volume at the horizon's end at the net price, discounted from then."""
     P, L, off = periods.count, float(periods.period_years), periods.offset_years
     species = cols.per_column(strata.species_idx, strata.group_species)
-    price, regen_cost = economics.price[species], economics.regen_cost[species]
+    price, regen_cost = economics.price[species], _regen_cost(strata, economics)[species]
     cut_p = cols.cut_period
     t_cut = (cut_p - 1) * L + off
     disc = 1.0 / growth_factor(t_cut, economics.rate, economics.compounding)
     npv = np.where(cut_p > 0, (price * cols.volume_m3_ha - regen_cost) * disc, 0.0)
+    if len(cols.thin_col):
+        c, k = cols.thin_col, cols.thin_period
+        keep = surv.keep ** np.maximum(k - surv.start[c] - 1, 0)
+        t = (k - 1) * L + off
+        value = price[c] * cols.thin_m3_ha * keep
+        npv += np.bincount(
+            c, value / growth_factor(t, economics.rate, economics.compounding), cols.n
+        )
     if economics.terminal_value == "standing":
         npv = npv + price * cols.end_volume_m3_ha / growth_factor(
             np.full(cols.n, P * L), economics.rate, economics.compounding
         )
     return npv
+
+
+def _regen_cost(strata: Strata, economics: Economics) -> NDArray:
+    """Regeneration cost [per ha cut] of each code: that of the codes it regrows as, in their
+    shares (paid by the code regrown into, as in the revenue figures); 0 where the code's
+    regeneration is a choice, whose columns pay it."""
+    reg = strata.regimes
+    if reg is None:
+        return economics.regen_cost
+    shares = reg.transitions.copy()
+    shares[[i for i, c in enumerate(reg.choices) if c]] = 0.0
+    return shares @ economics.regen_cost
 
 
 def _new_highs() -> highspy.Highs:
@@ -650,14 +890,17 @@ def _new_highs() -> highspy.Highs:
 
 
 def solve_highs(model: LPModel, t0: float | None = None) -> LPResult:
-    """Solve with HiGHS (interior point for large models); explain an infeasible model."""
+    """Solve with HiGHS (interior point for large models and models with regimes); explain an
+    infeasible model."""
     A = model.matrix
     ncol, nrow = A.shape[1], A.shape[0]
     P = model.periods
     t0 = time.perf_counter() if t0 is None else t0
     h = _new_highs()
-    if model.strata * P > 20_000:
-        h.setOptionValue("solver", "ipm")  # far faster than simplex on large harvest LPs
+    # interior point is far faster than simplex on large harvest LPs, and with regimes on all
+    # but tiny ones (1,000 strata with a choice and thinnings, 20 periods: 0.7 s against 6.8)
+    if model.strata * P > 20_000 or model.regimes:
+        h.setOptionValue("solver", "ipm")
     lp = highspy.HighsLp()
     lp.num_col_, lp.num_row_ = ncol, nrow
     lp.col_cost_ = model.cost
@@ -682,6 +925,8 @@ def solve_highs(model: LPModel, t0: float | None = None) -> LPResult:
     m = model.x_stratum >= 0
     np.add.at(cut, (model.x_stratum[m], model.x_period[m] - 1), x[m])
     # HiGHS reports duals of a minimisation; the objective here is maximised (cost = -volume)
+    C = len(model.codes)
+    regen = np.zeros((P, C, C)) if model.regeneration is None else model.regeneration @ x
     duals = {"ending_stock_m3_per_m3": float(-dual[model.ending_row])}
     if model.flow_rows:
         duals["flow_rows_m3_per_m3"] = float(-dual[model.flow_rows].sum())
@@ -695,6 +940,8 @@ def solve_highs(model: LPModel, t0: float | None = None) -> LPResult:
         model.strata,
         duals,
         cut,
+        np.reshape(regen, (P, C, C)),
+        model.codes,
     )
 
 

@@ -11,6 +11,7 @@ from numpy.typing import NDArray
 from yieldscape.config import Scenario
 from yieldscape.policies import Targets, flow_policy
 from yieldscape.projection import CurveSet, Periods, StandArrays
+from yieldscape.regimes import Regimes
 from yieldscape.schedule.cover import CoverRules
 from yieldscape.schedule.flow import FlowResult
 from yieldscape.schedule.lp import Economics, LPResult, Strata, make_strata, solve_lp
@@ -32,13 +33,14 @@ def harvest_lp(
     arrays: StandArrays,
     curves: CurveSet,
     periods: Periods,
-    zones: NDArray,
     cover: CoverRules | None,
 ) -> tuple[LPResult, Strata]:
-    """The Model II harvest LP of the scenario (aspatial), solved with HiGHS; ``zones`` are
-    the stands' zone codes, ``cover`` the cover targets over them."""
+    """The Model II harvest LP of the scenario (aspatial), solved with HiGHS; ``cover`` are the
+    cover targets over the stands' zones (``arrays.zone_idx``)."""
     f = scenario.flow
-    strata = make_strata(arrays, zones, f.lp_site_class_m, f.lp_age_class_years)
+    zones = arrays.zone_idx if arrays.zone_idx is not None else np.zeros(arrays.n, np.int64)
+    disturbed = scenario.disturbance.annual_rate > 0
+    strata = make_strata(arrays, zones, f.lp_site_class_m, f.lp_age_class_years, disturbed)
     policy = f.policy  # wanted(): a policy of the registry the LP models (lp.FLOW_ROWS)
     # beside a rule-based run the LP bounds the schedule's total volume under the same flow rows
     objective = f.objective if f.method == "optimize" else "max-volume"
@@ -102,7 +104,14 @@ def lp_schedule(
         p = np.searchsorted(cum_cut[s], mid * (1 - 1e-9))  # first period covering the stand
         planned[members] = np.where(p < P, p + 1, P + 1)
     sim = simulate(
-        arrays, curves, periods, Targets(tuple(lp.harvest_m3)), rules, record=True, planned=planned
+        arrays,
+        curves,
+        periods,
+        Targets(tuple(lp.harvest_m3)),
+        rules,
+        record=True,
+        planned=planned,
+        regen_shares=lp_regen_shares(lp, arrays.regimes),
     )
     got, want = float(sim.harvest_m3.sum()), float(lp.harvest_m3.sum())
     gap = (want - got) / want if want > 0 else 0.0
@@ -128,8 +137,24 @@ def lp_schedule(
     )
 
 
+def lp_regen_shares(lp: LPResult, reg: Regimes | None) -> NDArray | None:
+    """The LP's choices as ``simulate``'s ``regen_shares`` (periods x codes x codes): per period,
+    the shares in which the LP sends the area cut from a code with a choice to each option,
+    over all its strata (a code the LP does not cut in a period takes its first option); the
+    other codes regrow in their transitions' shares. None without a choice."""
+    if reg is None or not any(reg.choices):
+        return None
+    area = np.where(lp.regen_area_ha > 1e-9, lp.regen_area_ha, 0.0)  # solver noise off
+    total = area.sum(axis=2, keepdims=True)
+    fixed = np.broadcast_to(reg.transitions, area.shape)
+    shares = np.where(total > 0, area / np.where(total > 0, total, 1.0), fixed)
+    choice = np.array([bool(c) for c in reg.choices])
+    return np.where(choice[None, :, None], shares, fixed)
+
+
 def lp_record(lp: LPResult | None, flow: FlowResult, scenario: Scenario) -> dict | None:
-    """What run.json says of the LP: solver, status, size, objective, duals, gap."""
+    """What run.json says of the LP: solver, status, size, objective, duals, gap, and the area
+    it regenerates from each code into each (its choices)."""
     if lp is None:
         return None
     total = float(lp.harvest_m3.sum())
@@ -162,4 +187,13 @@ def lp_record(lp: LPResult | None, flow: FlowResult, scenario: Scenario) -> dict
         "duals": lp.duals,
         "total_harvest_m3": total,
         "gap_of_schedule_to_lp": (total - got) / total if total > 0 else 0.0,
+        "regeneration": [
+            {
+                "period": int(r.period),
+                "from_species": str(r.from_species),
+                "to_species": str(r.to_species),
+                "area_ha": float(r.area_ha),
+            }
+            for r in lp.regeneration().itertuples(index=False)
+        ],
     }
