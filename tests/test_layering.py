@@ -120,7 +120,9 @@ def test_every_flow_policy_has_its_search_and_every_choice_its_entry():
     # One registry per kind of choice; the modules that act on a choice key their tables by it.
     from yieldscape.policies import FLOW_POLICIES
     from yieldscape.schedule.flow import SEARCHES
-    from yieldscape.schedule.lp import FLOW_ROWS
+    from yieldscape.schedule.lp import BOUND_ROWS, FLOW_ROWS
 
     assert set(SEARCHES) == set(FLOW_POLICIES)
     assert {p.name for p in FLOW_POLICIES.values() if p.in_lp} <= set(FLOW_ROWS)
+    # the bound beside a rule-based run states each such policy's search limits as rows
+    assert {p.name for p in FLOW_POLICIES.values() if p.in_lp} == set(BOUND_ROWS)

@@ -462,6 +462,7 @@ def report_data(
         analysis_units=result.analysis_units,
         comparison=comparison,
         lp=result.lp,
+        flow_details=dict(result.flow.details),
         case=case,
         warnings=result.warnings,
     )

@@ -95,16 +95,28 @@ def test_the_sample_runs_and_says_what_it_found(sample_run):
 
 def test_sample_keeps_its_spatial_rules_and_cover_targets(sample_run):
     out, stdout, _ = sample_run
-    assert "no rule is broken" in stdout and "the schedule is" in stdout
+    assert "no rule is broken" in stdout and "the schedule's lowest period is" in stdout
     openings = pd.read_csv(out / "openings.csv")
     assert openings["area_ha"].max() <= 60 + 1e-6  # harvest.max_opening_ha of the sample
     cover = pd.read_csv(out / "cover.csv")
     assert cover["met"].all() and set(cover["zone"]) == {"*", "valley"}
+    # the kept schedule meets every requirement, read from the written outputs: the level in
+    # every period and the ending growing stock (flow.ending_stock = 1)
+    wf = pd.read_csv(out / "wood_flow.csv")
     rec = json.loads((out / "run.json").read_text())
-    assert rec["lp"]["status"] == "Optimal"
-    assert rec["lp"]["total_harvest_m3"] >= pd.read_csv(out / "wood_flow.csv")[
-        "harvest_m3"
-    ].sum() * (1 - 1e-9)  # the LP bounds the rule-based schedule
+    level = rec["flow"]["level_m3_per_period"]
+    assert (wf["harvest_m3"] >= level * (1 - 1e-9)).all()
+    assert wf["growing_stock_end_m3"].iloc[-1] >= wf["growing_stock_start_m3"].iloc[0] * (1 - 1e-9)
+    # the bound of the same problem is at least the schedule's smallest harvest, and the
+    # schedule is within 2% of it but for the measured cost of the spatial rules (issue target)
+    lp = rec["lp"]
+    assert lp["status"] == "Optimal" and lp["objective_name"] == "max-level"
+    assert lp["level_m3_per_period"] >= wf["harvest_m3"].min() * (1 - 1e-9)
+    assert (wf["lp_bound_m3"] >= lp["level_m3_per_period"] * (1 - 1e-6)).all()
+    assert lp["gap_explained"]["rest_m3_per_period"] <= 0.02 * lp["level_m3_per_period"]
+    # the better of the two orders is kept
+    f = rec["flow"]
+    assert level == max(f["priority_order_level_m3_per_period"], f["lp_guided_level_m3_per_period"])
 
 
 def test_the_sample_has_a_realistic_netdown(sample_run):

@@ -6,6 +6,7 @@ import argparse
 
 import yieldscape
 from yieldscape.policies import flow_policy
+from yieldscape.reporting.bound import lp_sentences
 
 
 def add_parser(sub, common: argparse.ArgumentParser) -> None:  # noqa: ANN001
@@ -48,18 +49,9 @@ def handle(args: argparse.Namespace) -> int:
                 f"spatial rules cost {cost:,.0f} m3/year against the same policy without "
                 f"them; largest opening {big:,.1f} ha; no rule is broken"
             )
-        if result.lp is not None:
-            gap = result.lp["gap_of_schedule_to_lp"]
-            print(
-                f"harvest LP ({result.lp['status'].lower()}, {result.lp['strata']} strata): "
-                f"{result.lp['total_harvest_m3'] / (len(wf) * scenario.scenario.period_years):,.0f}"
-                f" m3/year over the horizon; the schedule is {100 * gap:.2f}% below it"
-            )
-            if result.lp["leaves_out"]:
-                print(
-                    f"  (the LP leaves out {', '.join(result.lp['leaves_out'])}; "
-                    "the schedule keeps them)"
-                )
+        lines = lp_sentences(result.lp, result.flow.details, scenario.scenario.period_years)
+        for k, line in enumerate(lines):
+            print(line if k == 0 else f"  {line}")
         ltsy = result.long_term_sustained_yield
         print(
             f"long-term sustained yield for comparison: {ltsy['at_culmination']:,.0f} m3/year "

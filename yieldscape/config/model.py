@@ -724,7 +724,12 @@ class FlowConfig:
         "max-npv: value of the standing forest at the horizon's end.",
         choices=TERMINAL_VALUES,
     )
-    lp_bound: bool = key("bool", True, "", "rules: also solve the LP as an upper bound.")
+    lp_bound: bool = key(
+        "bool",
+        True,
+        "",
+        "rules: also solve the LP of the same problem as a bound, and search in its order.",
+    )
     lp_site_class_m: float = key(
         "float", 1.0, "m", "LP strata: site index class width.", check=_positive
     )

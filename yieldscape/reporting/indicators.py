@@ -65,7 +65,8 @@ MEANINGS = {
     "net_present_value": "Net revenue discounted to the start year.",
     "spatial_cost_m3_per_year": "Flow level lost to the green-up and opening rules.",
     "lp_harvest_m3_per_year": "The harvest LP's mean harvest per year.",
-    "gap_to_lp": "Share of the LP's total harvest the schedule does not reach.",
+    "lp_level_m3_per_year": "The level every period of the harvest LP holds (its bound).",
+    "gap_to_lp": "Gap of the schedule's smallest harvest to the LP's level (else its total).",
     "max_shortfall_probability": "Highest share of disturbance replicates short of a "
     "period's target.",
 }
@@ -107,6 +108,7 @@ LABELS = {
     "net_present_value": "Net present value",
     "spatial_cost_m3_per_year": "Cost of the spatial rules",
     "lp_harvest_m3_per_year": "Harvest of the harvest LP",
+    "lp_level_m3_per_year": "Level of the harvest LP",
     "gap_to_lp": "Gap to the harvest LP",
     "max_shortfall_probability": "Highest shortfall probability",
 }
@@ -694,6 +696,8 @@ def _optional_rows(
         rows.append(
             ("lp_harvest_m3_per_year", lp["total_harvest_m3"] / (P * L), "m3/year"),
         )
+        if lp.get("level_m3_per_period") is not None:
+            rows.append(("lp_level_m3_per_year", lp["level_m3_per_period"] / L, "m3/year"))
         rows.append(("gap_to_lp", lp["gap_of_schedule_to_lp"], "fraction"))
     if monte_carlo is not None and len(monte_carlo):
         rows.append(

@@ -20,6 +20,7 @@ import pandas as pd
 
 from yieldscape.config import Scenario
 from yieldscape.policies import flow_policy
+from yieldscape.reporting.bound import lp_sentences
 from yieldscape.reporting.indicators import Verdict
 
 CAUTION = (
@@ -94,6 +95,7 @@ class ReportData:
     analysis_units: pd.DataFrame | None = None  # area by report year and code
     comparison: pd.DataFrame | None = None
     lp: dict | None = None
+    flow_details: dict[str, float] = field(default_factory=dict)  # the flow result's details
     case: tuple[str, dict] | None = None  # a sensitivity case: its name and the keys it sets
     warnings: tuple[str, ...] = ()  # what the run warned of, one sentence each
 
@@ -402,7 +404,10 @@ def sections(data: ReportData) -> list[Section]:
     out.append(
         Section(
             "Checks of the verdict",
-            [Table(_shown(v.table(), CHECK_SHOWN), "Methods: docs/methods.md, the verdict.")],
+            [
+                Table(_shown(v.table(), CHECK_SHOWN), "Methods: docs/methods.md, the verdict."),
+                *_lp_paragraph(data),
+            ],
         )
     )
     out.append(_figures("Harvest and growing stock", data, ("harvest_forecast", "growing_stock")))
@@ -453,6 +458,14 @@ def _first_screen(data: ReportData) -> Section:
     if data.warnings:  # after the caution, which the first screen must hold
         first.append(Items("Warnings", tuple(data.warnings)))
     return Section("Verdict", first)
+
+
+def _lp_paragraph(data: ReportData) -> list[Block]:
+    """The harvest LP beside the run, in one paragraph (none without an LP)."""
+    said = lp_sentences(data.lp, data.flow_details, data.scenario.scenario.period_years)
+    if not said:
+        return []
+    return ["Against the harvest LP: " + "; ".join(said) + "."]
 
 
 def _figures(title: str, data: ReportData, keys: Sequence[str]) -> Section:
