@@ -117,6 +117,9 @@ def test_sample_keeps_its_spatial_rules_and_cover_targets(sample_run):
     # the better of the two orders is kept
     f = rec["flow"]
     assert level == max(f["priority_order_level_m3_per_period"], f["lp_guided_level_m3_per_period"])
+    # the sample's LP-guided order wins, and the report's scenario table says so
+    assert f["lp_guided_level_m3_per_period"] > f["priority_order_level_m3_per_period"]
+    assert "LP-guided order, which held the higher level" in (out / "report.html").read_text()
 
 
 def test_the_sample_has_a_realistic_netdown(sample_run):

@@ -187,6 +187,12 @@ def _scenario_table(data: ReportData) -> pd.DataFrame:
             "harvest order",
             f"{h.priority} first"
             + (
+                "; the stands the harvest LP cuts by each period ahead of the others (the "
+                "LP-guided order, which held the higher level)"
+                if _guided_won(data.flow_details)
+                else ""
+            )
+            + (
                 f"; at most {h.max_area_ha_per_period:,.0f} ha per period"
                 if h.max_area_ha_per_period
                 else ""
@@ -239,6 +245,13 @@ def _scenario_table(data: ReportData) -> pd.DataFrame:
     if s.overrides:
         rows.append(("overrides (--set)", ", ".join(s.overrides)))
     return pd.DataFrame(rows, columns=["item", "value"])
+
+
+def _guided_won(details: dict[str, float]) -> bool:
+    """Whether the run kept the LP-guided order (its level above the priority order's)."""
+    guided = details.get("lp_guided_level_m3_per_period")
+    ordered = details.get("priority_order_level_m3_per_period")
+    return guided is not None and ordered is not None and guided > ordered
 
 
 def _regeneration_text(s: Scenario) -> str:
