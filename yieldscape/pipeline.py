@@ -278,9 +278,16 @@ def _schedule(scenario: Scenario, inventory: CheckResult, model: _Model, timer: 
     f = scenario.flow
     if f.method == "optimize":
         assert lp is not None and strata is not None
-        flow = lp_plan.lp_schedule(lp, strata, s, c, p, scenario, rules)
+        rules = lp_plan.guided(lp, strata, s, p, rules)
+        flow = lp_plan.lp_schedule(lp, s, c, p, scenario, rules)
     else:
         flow = schedule(s, c, p, f, f.policy, rules)
+        if lp is not None and strata is not None:  # the LP's plan as the cutting order too
+            with timer.stage("LP-guided search"):
+                lp_rules = lp_plan.guided(lp, strata, s, p, rules)
+                flow, won = lp_plan.better(flow, schedule(s, c, p, f, f.policy, lp_rules))
+            rules = lp_rules if won else rules
+            log.info("schedule: %s order", "the LP-guided" if won else "the priority")
     openings = None
     if rules.spatial is not None:
         if f.method == "rules":

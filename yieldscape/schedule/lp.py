@@ -21,7 +21,13 @@ thinnings taken in p on the area standing uncut; flow rows tie consecutive H_p (
 or within a band; non-declining: H_p >= H_{p-1}; none: no flow rows; ``FLOW_ROWS`` picks them
 by policy); the ending growing stock (including the area outside the harvestable land base,
 which is never cut) is at least ``ending_stock`` x the initial; an optional area cap.
-Objectives: ``max-even-flow`` maximises H_1 under the flow rows; ``max-volume`` the sum of H_p.
+Objectives: ``max-even-flow`` maximises the level M that every period's harvest reaches (H_p >=
+M: the max-min flow; the band rows limit the change between periods, never lift the level);
+``max-volume`` the sum of H_p;
+``max-npv`` the net present value. ``max-level`` is the bound of a rule-based run: its flow
+rows are the limits the rule-based search obeys (``BOUND_ROWS``, on a level column M and the
+clearcut volumes C_p beside H_p), and the LP maximises the level M that every period's harvest
+reaches (the max-min even flow), with the total harvest as a tie-break.
 Without transitions and thinnings every cut regrows in its own stratum's group, as before.
 
 The solution is mapped back to stands by cutting, within each stratum, stands in stand-id order
@@ -55,6 +61,8 @@ from yieldscape.schedule.lp_regimes import (
 )
 
 INF = highspy.kHighsInf
+LEVEL_OBJECTIVES = ("max-even-flow", "max-level")  # the objectives on a level column M
+TIE_BREAK = 1e-7  # their weight on each period's harvest beside the level's 1
 
 
 @dataclass
@@ -171,6 +179,7 @@ class LPModel:
     # takes a solution to the area regrowing from each code into each, per period (rows
     # (p - 1) C^2 + from C + to; C codes)
     regeneration: object = None  # scipy.sparse.csr_matrix
+    level_col: int = -1  # the level column M (max-even-flow, max-level), -1 otherwise
 
 
 @dataclass
@@ -188,6 +197,7 @@ class LPResult:
     # codes: the transitions' shares and the LP's choices), and the codes
     regen_area_ha: NDArray = field(default_factory=lambda: np.zeros((0, 0, 0)))
     codes: tuple[str, ...] = ()
+    level_m3: float | None = None  # the level M [m3 per period] (max-even-flow, max-level)
 
     def regeneration(self) -> pd.DataFrame:
         """The LP's regeneration as a table: ``period``, ``from_species``, ``to_species``,
@@ -252,21 +262,40 @@ def build_lp(
     choices = choice_columns(strata, P)
     h_col = cols.n + np.arange(P)  # H_p variables
     z_col = cols.n + P + np.arange(choices.n)  # choice variables
+    bound = objective == "max-level"
+    # the level M every period holds (max-even-flow and the bound), then the bound's
+    # clearcut volumes C_p, after the choices
+    level_col = cols.n + P + choices.n if objective in LEVEL_OBJECTIVES else -1
+    c_col = level_col + 1 + np.arange(P) if bound else np.zeros(0, dtype=np.int64)
     regrow = _cuts_regrow(strata, cols, surv)
     m = MatrixBuilder()
     _area_rows(m, strata, cols)
     balance0 = _regeneration_rows(m, strata, cols, regrow, choices, z_col, P)
     _disturbed_regrowth(m, strata, cols, surv, balance0, P)
     _harvest_rows(m, cols, surv, h_col)
-    # a name without an entry takes the even rows, as before (the pipeline itself passes the
-    # rule-based "stepdown" and "targets" as "even")
-    flow_rows = FLOW_ROWS.get(policy, even_flow_rows)(m, h_col, band)
+    if bound:
+        if policy not in BOUND_ROWS:
+            raise ValueError(f"no bound rows for flow policy {policy!r}")
+        _clearcut_rows(m, cols, surv, c_col)
+        flow_rows = BOUND_ROWS[policy](m, h_col, c_col, level_col, band)
+    else:
+        # a name without an entry takes the even rows, as before (the pipeline itself passes
+        # the rule-based "stepdown" and "targets" as "even")
+        flow_rows = FLOW_ROWS.get(policy, even_flow_rows)(m, h_col, band)
+        if level_col >= 0:  # every period at least the level
+            flow_rows += [_pair(m, h, level_col, -1.0, 0.0, INF) for h in h_col]
     ending_row = _ending_stock_row(m, stands, curves, periods, cols, surv, ending_stock)
     if cover is not None:
         _cover_rows(m, stands, strata, periods, cols, surv, cover, stand_zone)
     if max_area_ha is not None:
         _area_cap_rows(m, cols, surv, max_area_ha, P)
     cost = _lp_costs(objective, cols, strata, periods, economics, h_col, choices, surv)
+    if level_col >= 0:
+        cost = np.r_[cost, np.zeros(1 + len(c_col))]
+        cost[level_col] = -1.0
+        # tie-break: of the schedules at the highest level, the one with the most volume (a
+        # weight far too small to trade any level for volume)
+        cost[h_col] = -TIE_BREAK
     matrix, row_lo, row_hi = m.build(len(cost))
     C = len(curves.codes)
     regen = _regeneration_map(strata, cols, regrow, choices, z_col, P, C, len(cost))
@@ -280,13 +309,14 @@ def build_lp(
         h_col,
         ending_row,
         flow_rows,
-        *_first_cuts(cols, P + choices.n),
+        *_first_cuts(cols, len(cost) - cols.n),
         strata.n,
         periods=P,
         context=context,
         codes=tuple(curves.codes),
         regeneration=regen,
         regimes=strata.regimes is not None and (strata.regimes.changes or strata.regimes.thins),
+        level_col=level_col,
     )
 
 
@@ -668,6 +698,16 @@ def _harvest_rows(m: MatrixBuilder, cols: Columns, surv: _Survival, h_col: NDArr
     m.put(first + np.arange(len(h_col)), h_col, -1.0)
 
 
+def _clearcut_rows(m: MatrixBuilder, cols: Columns, surv: _Survival, c_col: NDArray) -> None:
+    """C_p is the volume of every cut in period p (the harvest rows without the thinnings
+    taken on the area standing uncut): sum v keep x + sum v keep y - C_p = 0."""
+    first = m.add_rows(len(c_col), 0.0, 0.0)
+    cut_p = cols.cut_period
+    cut = np.flatnonzero((cut_p > 0) & (cols.volume_m3_ha > 0))
+    m.put(first + cut_p[cut] - 1, cut, cols.volume_m3_ha[cut] * surv.cut[cut])
+    m.put(first + np.arange(len(c_col)), c_col, -1.0)
+
+
 def even_flow_rows(m: MatrixBuilder, h_col: NDArray, band: float) -> list[int]:
     """Even flow: every period within ``band`` of the one before, H_p - (1 - band) H_(p-1) >= 0
     and H_p - (1 + band) H_(p-1) <= 0 (with no band, one common level)."""
@@ -704,6 +744,56 @@ FLOW_ROWS: dict[str, FlowRows] = {
 """The LP's part of the flow-policy registry: per policy name, the function that adds its flow
 rows on the H_p columns (``h_col``) with the scenario's band and returns their indices (the
 duals of these rows are reported). A new flow policy adds its LP rows by one entry here."""
+
+
+def _pair(m: MatrixBuilder, a: int, b: int, wb: float, lo: float, hi: float) -> int:
+    """The row lo <= x_a + wb x_b <= hi."""
+    return m.add_row(np.array([a, b]), np.array([1.0, wb]), lo, hi)
+
+
+def even_bound_rows(
+    m: MatrixBuilder, h_col: NDArray, c_col: NDArray, level: int, band: float
+) -> list[int]:
+    """The rule-based even flow (:class:`yieldscape.policies.EvenFlow`) as rows on the common
+    level M, the harvests H_p and the clearcut volumes C_p: every H_p >= M, and with a band
+    the rules' own limits on the change between periods. The rules give each later period the
+    target min(L, (1 + band) H_(p-1)) and the floor (1 - band) min(H_(p-1), L); a period that
+    clears anything takes at most its target, and thinnings alone may carry it past (then
+    C_p = 0). So every schedule the rules accept meets C_p <= (1 + band) H_(p-1) and
+    H_p >= (1 - band) C_(p-1) (as C_(p-1) <= min(H_(p-1), L)), with M its smallest harvest:
+    the LP over these rows is a relaxation of the search, and its highest M bounds the level
+    the schedule holds in every period. With no band and no thinnings that level is the
+    search's, exactly."""
+    rows = [_pair(m, h_col[p], level, -1.0, 0.0, INF) for p in range(len(h_col))]
+    if band > 0:
+        for p in range(1, len(h_col)):
+            rows.append(_pair(m, h_col[p], c_col[p - 1], -(1 - band), 0.0, INF))
+            rows.append(_pair(m, c_col[p], h_col[p - 1], -(1 + band), -INF, 0.0))
+    return rows
+
+
+def nondeclining_bound_rows(
+    m: MatrixBuilder, h_col: NDArray, c_col: NDArray, level: int, band: float
+) -> list[int]:
+    """The rule-based non-declining flow as rows: each period takes a target that is also its
+    floor and is never below the one before
+    (:func:`yieldscape.schedule.flow.find_nondeclining`), so H_p >= M, and H_p >= C_(p-1) for
+    p > 1 (a period's clearcuts stay within its target, thinnings alone may pass it); the LP's
+    highest M bounds the schedule's smallest harvest, its period 1."""
+    rows = [_pair(m, h_col[p], level, -1.0, 0.0, INF) for p in range(len(h_col))]
+    for p in range(1, len(h_col)):
+        rows.append(_pair(m, h_col[p], c_col[p - 1], -1.0, 0.0, INF))
+    return rows
+
+
+BoundRows = Callable[[MatrixBuilder, NDArray, NDArray, int, float], list[int]]
+
+BOUND_ROWS: dict[str, BoundRows] = {
+    "even": even_bound_rows,
+    "nondeclining": nondeclining_bound_rows,
+}
+"""The bound's part of the flow-policy registry: per policy the LP models, the rows that state
+the rule-based search's limits on M, H_p and C_p (objective ``max-level``)."""
 
 
 def _ending_stock_row(
@@ -812,10 +902,12 @@ def _lp_costs(
 ) -> NDArray:
     """The costs of a minimisation: ``max-volume``: -sum H_p; ``max-npv``: -NPV of each area
     column (:func:`_npv_per_ha`) and the regeneration cost of each choice column, discounted;
-    otherwise (``max-even-flow``) -H_1."""
+    ``max-even-flow`` and ``max-level``: none here (build_lp adds the level column's)."""
     cost = np.zeros(cols.n + len(h_col) + choices.n)
     if objective == "max-volume":
         cost[h_col] = -1.0
+    elif objective in LEVEL_OBJECTIVES:
+        pass  # on the level column, which build_lp adds
     elif objective == "max-npv":
         if economics is None:
             raise InputError("flow.objective = 'max-npv' needs prices and a discount rate")
@@ -825,7 +917,7 @@ def _lp_costs(
         disc = 1.0 / growth_factor(t, economics.rate, economics.compounding)
         cost[cols.n + len(h_col) :] = economics.regen_cost[choices.code] * disc
     else:
-        cost[h_col[0]] = -1.0
+        raise ValueError(f"unknown LP objective {objective!r}")
     return cost
 
 
@@ -930,9 +1022,10 @@ def solve_highs(model: LPModel, t0: float | None = None) -> LPResult:
     duals = {"ending_stock_m3_per_m3": float(-dual[model.ending_row])}
     if model.flow_rows:
         duals["flow_rows_m3_per_m3"] = float(-dual[model.flow_rows].sum())
+    level = float(x[model.level_col]) if model.level_col >= 0 else None
     return LPResult(
         status,
-        float(-h.getInfo().objective_function_value),
+        level if level is not None else float(-h.getInfo().objective_function_value),
         x[model.h_col],
         time.perf_counter() - t0,
         ncol,
@@ -942,6 +1035,7 @@ def solve_highs(model: LPModel, t0: float | None = None) -> LPResult:
         cut,
         np.reshape(regen, (P, C, C)),
         model.codes,
+        level,
     )
 
 

@@ -4,18 +4,19 @@ stands, and what run.json says of it."""
 from __future__ import annotations
 
 import logging
+from dataclasses import replace
 
 import numpy as np
 from numpy.typing import NDArray
 
 from yieldscape.config import Scenario
-from yieldscape.policies import Targets, flow_policy
+from yieldscape.policies import FixedTargets, flow_policy
 from yieldscape.projection import CurveSet, Periods, StandArrays
 from yieldscape.regimes import Regimes
 from yieldscape.schedule.cover import CoverRules
 from yieldscape.schedule.flow import FlowResult
 from yieldscape.schedule.lp import Economics, LPResult, Strata, make_strata, solve_lp
-from yieldscape.schedule.simulate import HarvestRules, simulate
+from yieldscape.schedule.simulate import HarvestRules, Plan, Simulation, simulate
 from yieldscape.versions import library_versions
 
 log = logging.getLogger("yieldscape")
@@ -41,9 +42,8 @@ def harvest_lp(
     zones = arrays.zone_idx if arrays.zone_idx is not None else np.zeros(arrays.n, np.int64)
     disturbed = scenario.disturbance.annual_rate > 0
     strata = make_strata(arrays, zones, f.lp_site_class_m, f.lp_age_class_years, disturbed)
-    policy = f.policy  # wanted(): a policy of the registry the LP models (lp.FLOW_ROWS)
-    # beside a rule-based run the LP bounds the schedule's total volume under the same flow rows
-    objective = f.objective if f.method == "optimize" else "max-volume"
+    policy = f.policy  # wanted(): a policy of the registry the LP models (lp.BOUND_ROWS)
+    objective = objective_of(scenario)
     econ = None
     if objective == "max-npv":
         sp = [scenario.species[c] for c in curves.codes]
@@ -80,61 +80,106 @@ def harvest_lp(
     return lp, strata
 
 
+def objective_of(scenario: Scenario) -> str:
+    """The LP's objective: the scenario's when the LP schedules; beside a rule-based run the
+    bound of the same problem, the highest level every period holds under the limits the
+    rule-based search obeys (``max-level``, :data:`yieldscape.schedule.lp.BOUND_ROWS`)."""
+    f = scenario.flow
+    return f.objective if f.method == "optimize" else "max-level"
+
+
+def planned_periods(lp: LPResult, strata: Strata, arrays: StandArrays, P: int) -> NDArray:
+    """Per stand, the period in which the LP first cuts it (``P + 1``: not cut): each
+    stratum's stands, oldest first (ties by stand id), take the stratum's cut area of each
+    period in turn, a stand going to the period that covers its middle."""
+    planned = np.full(arrays.n, P + 1, dtype=np.int64)
+    area = arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
+    cum_cut = np.cumsum(lp.cut_area, axis=1)
+    for s in range(strata.n):  # per stratum, not per stand
+        members = np.flatnonzero(strata.of_stand == s)
+        members = members[np.lexsort((arrays.id_rank[members], -arrays.age_years[members]))]
+        mid = np.cumsum(area[members]) - area[members] / 2
+        p = np.searchsorted(cum_cut[s], mid * (1 - 1e-9))  # first period covering the stand
+        planned[members] = np.where(p < P, p + 1, P + 1)
+    return planned
+
+
+def plan_of(lp: LPResult, strata: Strata, arrays: StandArrays, periods: Periods) -> Plan:
+    """The LP's plan on the stands: each stand's first cut (:func:`planned_periods`) and the
+    LP's regeneration choices (:func:`lp_regen_shares`)."""
+    return Plan(
+        planned_periods(lp, strata, arrays, periods.count), lp_regen_shares(lp, arrays.regimes)
+    )
+
+
+def guided(
+    lp: LPResult, strata: Strata, arrays: StandArrays, periods: Periods, rules: HarvestRules
+) -> HarvestRules:
+    """The harvest rules with the LP's plan: in each period the stands the LP cuts by then
+    come first, the priority rule ordering each group, and cut area regrows as the LP chose
+    (an LP-guided order in the spirit of Hoganson & Rose 1984, For. Sci. 30:220-238, with
+    the LP's cuts in place of its dual prices)."""
+    return replace(rules, plan=plan_of(lp, strata, arrays, periods))
+
+
+def better(ordered: FlowResult, guided_flow: FlowResult) -> tuple[FlowResult, bool]:
+    """Of the rule-based search in priority order and in the LP-guided order, the one that
+    holds the higher level (both meet every rule and the ending stock: each is a search's
+    feasible result); ties keep the priority order. Both levels go into ``details``; the
+    flag says whether the LP-guided order won."""
+    won = guided_flow.level_m3_per_period > ordered.level_m3_per_period * (1 + 1e-9)
+    best = guided_flow if won else ordered
+    details = dict(best.details)
+    details["priority_order_level_m3_per_period"] = ordered.level_m3_per_period
+    details["lp_guided_level_m3_per_period"] = guided_flow.level_m3_per_period
+    steps = ordered.steps + guided_flow.steps
+    return replace(best, details=details, steps=steps), won
+
+
 def lp_schedule(
     lp: LPResult,
-    strata: Strata,
     arrays: StandArrays,
     curves: CurveSet,
     periods: Periods,
     scenario: Scenario,
     rules: HarvestRules,
 ) -> FlowResult:
-    """Map the LP onto stands: each stratum's stands (in id order) are planned for the periods
-    in which the LP cuts the stratum's area, and the scheduler then takes the LP's harvest of
-    each period as its target, planned stands first. The rules the LP does not model (spatial
-    rules, whole stands) are applied here, so the gap shows what they cost."""
-    P = periods.count
-    planned = np.full(arrays.n, P + 1, dtype=np.int64)
-    area = arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
-    cum_cut = np.cumsum(lp.cut_area, axis=1)
-    for s in range(strata.n):  # per stratum, not per stand
-        members = np.flatnonzero(strata.of_stand == s)
-        members = members[np.argsort(arrays.id_rank[members], kind="stable")]
-        mid = np.cumsum(area[members]) - area[members] / 2
-        p = np.searchsorted(cum_cut[s], mid * (1 - 1e-9))  # first period covering the stand
-        planned[members] = np.where(p < P, p + 1, P + 1)
-    sim = simulate(
-        arrays,
-        curves,
-        periods,
-        Targets(tuple(lp.harvest_m3)),
-        rules,
-        record=True,
-        planned=planned,
-        regen_shares=lp_regen_shares(lp, arrays.regimes),
-    )
-    got, want = float(sim.harvest_m3.sum()), float(lp.harvest_m3.sum())
-    gap = (want - got) / want if want > 0 else 0.0
+    """The LP's schedule on the stands: with the LP's plan (``rules.plan``, :func:`guided`),
+    each period takes the LP's harvest as its target and floor, under every rule the LP leaves out
+    (spatial rules, whole stands). Where the mapped plan misses a target or the ending
+    growing stock, every target is lowered by one factor, found by bisection, until the
+    schedule holds them all and the ending stock; the schedule then meets every requirement
+    and the factor says what the mapping cost."""
+    need = scenario.flow.ending_stock
+
+    def trial(scale: float, record: bool = False) -> Simulation:
+        targets = FixedTargets(tuple(scale * lp.harvest_m3))
+        return simulate(arrays, curves, periods, targets, rules, ending_stock=need, record=record)
+
+    scale, steps = 1.0, 1
+    if not trial(1.0).feasible:
+        lo, hi = 0.0, 1.0
+        while hi - lo > 1e-6:
+            mid = 0.5 * (lo + hi)
+            lo, hi = (mid, hi) if trial(mid).feasible else (lo, mid)
+            steps += 1
+        scale = lo
+    sim = trial(scale, record=True)
     why = (
         f"the LP ({lp.status.lower()}, objective {scenario.flow.objective}) on {lp.strata} "
-        f"strata; mapped onto stands the schedule takes {100 * (1 - gap):.2f}% of the LP's "
-        "volume"
+        f"strata; mapped onto stands the schedule holds {100 * scale:.2f}% of the LP's "
+        "harvest in every period"
     )
-    need = scenario.flow.ending_stock * sim.initial_stock_m3
-    if sim.ending_stock_m3 < need * (1 - 1e-6):
+    if scale < 1.0:
+        why += " (lowered until every target and the ending growing stock hold)"
         log.warning(
-            "the optimised schedule, mapped onto stands, leaves the ending growing stock "
-            "%.2f%% below flow.ending_stock",
-            100 * (1 - sim.ending_stock_m3 / need),
-        )
-        why += (
-            f"; on the stands the ending growing stock is {sim.ending_stock_m3:,.0f} m3, "
-            f"{100 * (1 - sim.ending_stock_m3 / need):.2f}% short of flow.ending_stock"
+            "the LP's schedule, mapped onto stands, holds %.2f%% of the LP's harvest: at "
+            "more it misses a target or the ending growing stock",
+            100 * scale,
         )
     level = float(sim.harvest_m3[0])
-    return FlowResult(
-        level, level / periods.period_years, sim, why, 1, "optimize", {"disaggregation_gap": gap}
-    )
+    details = {"disaggregation_gap": 1.0 - scale}
+    return FlowResult(level, level / periods.period_years, sim, why, steps, "optimize", details)
 
 
 def lp_regen_shares(lp: LPResult, reg: Regimes | None) -> NDArray | None:
@@ -153,40 +198,41 @@ def lp_regen_shares(lp: LPResult, reg: Regimes | None) -> NDArray | None:
 
 
 def lp_record(lp: LPResult | None, flow: FlowResult, scenario: Scenario) -> dict | None:
-    """What run.json says of the LP: solver, status, size, objective, duals, gap, and the area
-    it regenerates from each code into each (its choices)."""
+    """What run.json says of the LP: solver, status, size, objective, duals, the gap of the
+    schedule to it and what of that gap is measured, and the area it regenerates from each
+    code into each (its choices).
+
+    Beside a rule-based run the LP is the bound of the same problem: ``level_m3_per_period``
+    is the highest level every period can hold, and the gap is that of the schedule's lowest
+    period to it; with ``flow.method = "optimize"`` it is the shortfall of the mapped
+    schedule's total from the LP's."""
     if lp is None:
         return None
     total = float(lp.harvest_m3.sum())
-    got = float(flow.simulation.harvest_m3.sum())
-    f = scenario.flow
-    objective = f.objective if f.method == "optimize" else "max-volume"
+    h = flow.simulation.harvest_m3
+    objective = objective_of(scenario)
+    if lp.level_m3 is not None:
+        bound, held = lp.level_m3, float(h.min()) if len(h) else 0.0
+        gap = (bound - held) / bound if bound > 0 else 0.0
+    else:
+        got = float(h.sum())
+        gap = (total - got) / total if total > 0 else 0.0
     return {
         "solver": f"HiGHS {library_versions().get('highspy', '')}",
         "status": lp.status,
         "objective": lp.objective,
         "objective_name": objective,
         "objective_unit": "currency (net present value)" if objective == "max-npv" else "m3",
-        "leaves_out": [
-            name
-            for name, on in (
-                ("spatial rules", scenario.harvest.spatial),
-                (
-                    "the exact timing of disturbed regrowth (off by half a period unless "
-                    "scenario.harvest_timing = 'midpoint')",
-                    scenario.disturbance.annual_rate > 0
-                    and scenario.scenario.harvest_timing != "midpoint",
-                ),
-            )
-            if on
-        ],
+        "leaves_out": leaves_out(scenario),
         "seconds": round(lp.seconds, 3),
         "strata": lp.strata,
         "columns": lp.columns,
         "rows": lp.rows,
         "duals": lp.duals,
         "total_harvest_m3": total,
-        "gap_of_schedule_to_lp": (total - got) / total if total > 0 else 0.0,
+        "level_m3_per_period": lp.level_m3,
+        "gap_of_schedule_to_lp": gap,
+        "gap_explained": _gap_explained(lp, flow, scenario) if lp.level_m3 is not None else None,
         "regeneration": [
             {
                 "period": int(r.period),
@@ -196,4 +242,38 @@ def lp_record(lp: LPResult | None, flow: FlowResult, scenario: Scenario) -> dict
             }
             for r in lp.regeneration().itertuples(index=False)
         ],
+    }
+
+
+def leaves_out(scenario: Scenario) -> list[str]:
+    """What the LP does not model that the schedule keeps."""
+    always = ["whole-stand cuts (the LP cuts any share of a stratum)"]
+    return always + [
+        name
+        for name, on in (
+            ("spatial rules", scenario.harvest.spatial),
+            (
+                "the exact timing of disturbed regrowth (off by half a period unless "
+                "scenario.harvest_timing = 'midpoint')",
+                scenario.disturbance.annual_rate > 0
+                and scenario.scenario.harvest_timing != "midpoint",
+            ),
+        )
+        if on
+    ]
+
+
+def _gap_explained(lp: LPResult, flow: FlowResult, scenario: Scenario) -> dict[str, float]:
+    """The gap of the schedule's lowest period to the bound [m3 per period], and the part of
+    it that is measured: what the spatial rules cost (the same search without them). The rest
+    is the schedule's whole stands and cutting order and the LP's strata (stands averaged
+    into classes), which no run here separates."""
+    h = flow.simulation.harvest_m3
+    bound = float(lp.level_m3 or 0.0)
+    gap = bound - float(h.min()) if len(h) else bound
+    spatial = float(flow.details.get("spatial_cost_m3_per_period", 0.0))
+    return {
+        "gap_m3_per_period": gap,
+        "spatial_rules_m3_per_period": spatial,
+        "rest_m3_per_period": gap - spatial,
     }

@@ -38,11 +38,24 @@ _MIN_PART_HA = 1e-9  # a smaller partial cut (<= ~1e-6 m3) is not worth a split
 
 
 @dataclass(frozen=True)
+class Plan:
+    """An LP's plan mapped onto stands (:mod:`yieldscape.schedule.lp_plan`): per stand the
+    period of its first cut (periods + 1: none), which puts the stands planned for a period
+    or earlier ahead of the others in the queue (the priority rule ordering each group), and
+    per period the shares in which each code's cut area regrows as each code (periods x codes
+    x codes: the LP's regeneration choices; None: the regimes' own transitions)."""
+
+    period: NDArray[np.int64]
+    regen_shares: NDArray | None = None
+
+
+@dataclass(frozen=True)
 class HarvestRules:
     """The rules every simulated horizon of a run shares, travelling as one value: the
     priority rule, the area cap [ha per period], the green-up and opening rules, the cover
     targets, the stand-replacing disturbance rate [1/year], and the period boundaries at which
-    a recorded run keeps the stand parts (0 .. periods)."""
+    a recorded run keeps the stand parts (0 .. periods), and an LP's plan to follow (its
+    cutting order and regeneration choices)."""
 
     priority: str = "oldest"
     max_area_ha: float | None = None
@@ -50,6 +63,7 @@ class HarvestRules:
     cover: CoverRules | None = None
     disturbance: float = 0.0
     snapshots: tuple[int, ...] = ()
+    plan: Plan | None = field(default=None, compare=False)
 
 
 NO_RULES = HarvestRules()  # oldest first, no cap, no spatial or cover rules, no disturbance
@@ -707,9 +721,7 @@ def simulate(
     ending_stock: float = 0.0,
     stable_periods: int = 0,
     record: bool = False,
-    planned: NDArray | None = None,
     rng: np.random.Generator | None = None,
-    regen_shares: NDArray | None = None,
 ) -> Simulation:
     """Run the horizon under a target ``rule`` (a :mod:`yieldscape.policies` rule: each
     period's target and floor) and the harvest ``rules``.
@@ -719,20 +731,20 @@ def simulate(
     first missed floor (the flow search only needs the verdict). The run also fails when the
     ending growing stock is below ``ending_stock`` x the initial, and, with
     ``stable_periods`` = K > 0, unless the growing stock on the harvestable land base at the
-    end is at least its value K periods before the end. ``planned`` (per stand, a period)
-    puts stands planned for the period or earlier ahead of the others in the queue (the
-    mapping of an LP schedule onto stands). Disturbance (``rules.disturbance``) is applied
+    end is at least its value K periods before the end. An LP's plan (``rules.plan``) sets
+    the cutting order and the regeneration choices. Disturbance (``rules.disturbance``) is applied
     as expected area fractions, or, with ``rng``, as whole stands drawn at random (Monte
     Carlo). With ``record``, ``rules.snapshots`` names the period boundaries at which the
     stand parts are kept; cover targets need ``stands.zone_idx``. Cut parts regrow as
-    ``stands.regimes`` says, or, with ``regen_shares`` (periods x codes x codes), in the
-    shares given for each period (the LP's choices mapped onto stands); thinnings due are
-    taken each period (see :func:`_cut_period`).
+    ``stands.regimes`` says, or in the shares of the plan's choices; thinnings due are taken
+    each period (see :func:`_cut_period`).
     """
     spatial = rules.spatial.fresh() if rules.spatial is not None else None
     P, L, off = periods.count, float(periods.period_years), periods.offset_years
     parts = _Parts.of(stands, curves)
     reg = stands.regimes
+    planned = rules.plan.period if rules.plan is not None else None
+    regen_shares = rules.plan.regen_shares if rules.plan is not None else None
     if regen_shares is None and reg is not None and reg.changes:
         regen_shares = np.broadcast_to(reg.transitions, (P, *reg.transitions.shape))
     sim = Simulation()
