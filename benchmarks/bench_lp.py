@@ -1,8 +1,15 @@
-"""Build and solve the harvest LP (Model II) with 1k and 10k strata x 20 periods, plain and with
+"""Build and solve the harvest LP (Model II) at a few sizes x 20 periods, plain and with
 management regimes (spruce regrowing as a thinned planted code, pine a choice between itself
-and that code).
+and that code), for the max-even-flow and max-level objectives; beside it, a bare HiGHS solve
+of the same matrix (passModel of the CSC matrix built once, then run), with dual simplex and
+with interior point.
 
-python benchmarks/bench_lp.py [--strata 1000 10000] [--regimes]
+Printed per case: our build + solve and the bare solve for each solver (interior point the
+fastest of --repeat alternating runs), the ratios ours/bare, the ratio simplex/ipm (above 1:
+interior point faster) and the solver lp_solver picks.
+
+python benchmarks/bench_lp.py [--strata 300 1000 3000 10000] [--regimes] [--disturbance 0.005]
+    [--objectives max-even-flow max-level] [--simplex-max 3000] [--repeat 3]
 """
 
 from __future__ import annotations
@@ -11,12 +18,23 @@ import argparse
 import time
 from dataclasses import replace
 
+import highspy
 import numpy as np
+from numpy.typing import NDArray
 
 from yieldscape.growth import ChapmanRichards, SiteScaling
 from yieldscape.projection import CurveSet, Periods, StandArrays
 from yieldscape.regimes import Regimes
-from yieldscape.schedule.lp import make_strata, solve_lp
+from yieldscape.schedule.lp import (
+    INF,
+    LPModel,
+    build_lp,
+    lp_solver,
+    make_strata,
+    solve_highs,
+)
+
+SOLVERS = ("simplex", "ipm")
 
 
 def with_regimes(st: StandArrays) -> StandArrays:
@@ -34,10 +52,90 @@ def with_regimes(st: StandArrays) -> StandArrays:
     return replace(st, regimes=reg, min_age_by_code=by_code)
 
 
+def bare_highs(model: LPModel, solver: str) -> tuple[float, float]:
+    """The floor: a bare HiGHS solve of the model's matrix (arrays prepared before the clock);
+    seconds for passModel + run, and the objective."""
+    A = model.matrix
+    lp = highspy.HighsLp()
+    lp.num_col_, lp.num_row_ = A.shape[1], A.shape[0]
+    lp.col_cost_ = model.cost
+    lp.col_lower_ = np.zeros(A.shape[1])
+    lp.col_upper_ = np.full(A.shape[1], INF)
+    lp.row_lower_, lp.row_upper_ = model.row_lo, model.row_hi
+    lp.a_matrix_.format_ = highspy.MatrixFormat.kColwise
+    lp.a_matrix_.start_ = A.indptr.astype(np.int32)
+    lp.a_matrix_.index_ = A.indices.astype(np.int32)
+    lp.a_matrix_.value_ = A.data
+    h = highspy.Highs()
+    h.setOptionValue("output_flag", False)
+    h.setOptionValue("solver", solver)
+    t0 = time.perf_counter()
+    h.passModel(lp)
+    h.run()
+    seconds = time.perf_counter() - t0
+    assert h.getModelStatus() == highspy.HighsModelStatus.kOptimal
+    return seconds, h.getInfo().objective_function_value
+
+
+def stands(n: int, regimes: bool) -> tuple[StandArrays, NDArray]:
+    """n stands (one stratum each: ages differ) and their regeneration groups."""
+    rng = np.random.default_rng(2)
+    old = rng.random(n) < 0.57
+    ages = np.where(old, rng.uniform(91, 220, n), rng.uniform(1, 40, n))
+    st = StandArrays(
+        rng.integers(0, 2, n).astype(np.int32),
+        rng.uniform(14, 26, n),
+        ages,
+        rng.uniform(1, 80, n),
+        np.full(n, 70.0),
+        np.full(n, 2.0),
+        np.arange(n),
+    )
+    # regeneration groups by code x 1-m site class
+    return (with_regimes(st) if regimes else st), rng.integers(0, 3, n)
+
+
+def one_case(curves: CurveSet, n: int, objective: str, args: argparse.Namespace) -> None:
+    """Time ours (build_lp + solve_highs) and the bare solve, per solver; print one line."""
+    st, groups = stands(n, args.regimes)
+    strata = make_strata(st, groups, 1.0, 1e-9, args.disturbance > 0)
+    build = dict(objective=objective, policy="even", band=0.1, ending_stock=1.0)
+    build["disturbance"] = args.disturbance
+    model = build_lp(st, curves, Periods(2027, 10, 20), strata, **build)
+    ours: dict[str, float] = {}
+    bare: dict[str, float] = {}
+    level: dict[str, float] = {}
+    for solver in SOLVERS if n <= args.simplex_max else ("ipm",):
+        # the fastest of a few alternating runs each (interior point; simplex once: 5-15x)
+        ours[solver] = bare[solver] = np.inf
+        for _ in range(args.repeat if solver == "ipm" else 1):
+            t0 = time.perf_counter()
+            m = build_lp(st, curves, Periods(2027, 10, 20), strata, **build)
+            lp = solve_highs(m, t0, solver)
+            ours[solver] = min(ours[solver], time.perf_counter() - t0)
+            bare[solver] = min(bare[solver], bare_highs(model, solver)[0])
+        level[solver] = lp.objective
+    ratios = " ".join(f"{s} {ours[s]:.2f}/{bare[s]:.2f} s = {ours[s] / bare[s]:.2f}x" for s in ours)
+    versus = f"simplex/ipm {bare['simplex'] / bare['ipm']:.1f}x, " if "simplex" in bare else ""
+    agree = max(abs(v - level["ipm"]) / abs(level["ipm"]) for v in level.values())
+    print(
+        f"{n:,} strata{' regimes' if args.regimes else ''}"
+        f"{f' disturbance {args.disturbance}' if args.disturbance else ''} {objective}: "
+        f"{model.matrix.shape[1]:,} cols {model.matrix.shape[0]:,} rows; ours/bare {ratios}; "
+        f"{versus}picks {lp_solver(model)}; level {level['ipm'] / 10:,.0f} m3/year "
+        f"(solvers agree to {agree:.1e})",
+        flush=True,
+    )
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--strata", type=int, nargs="+", default=[1000, 10_000])
+    ap.add_argument("--strata", type=int, nargs="+", default=[300, 1000, 3000, 10_000])
     ap.add_argument("--regimes", action="store_true", help="with transitions, thinnings, a choice")
+    ap.add_argument("--disturbance", type=float, default=0.0, help="share lost a year")
+    ap.add_argument("--objectives", nargs="+", default=["max-even-flow", "max-level"])
+    ap.add_argument("--repeat", type=int, default=3, help="interior-point runs, fastest kept")
+    ap.add_argument("--simplex-max", type=int, default=3000, help="no simplex above this size")
     args = ap.parse_args()
     curves = CurveSet(
         ["spruce", "pine", "spruce_planted"],
@@ -48,30 +146,8 @@ def main() -> None:
         ],
     )
     for n in args.strata:
-        rng = np.random.default_rng(2)
-        old = rng.random(n) < 0.57
-        ages = np.where(old, rng.uniform(91, 220, n), rng.uniform(1, 40, n))
-        st = StandArrays(
-            rng.integers(0, 2, n).astype(np.int32),
-            rng.uniform(14, 26, n),
-            ages,
-            rng.uniform(1, 80, n),
-            np.full(n, 70.0),
-            np.full(n, 2.0),
-            np.arange(n),
-        )
-        if args.regimes:
-            st = with_regimes(st)
-        # one stratum a stand (ages differ); regeneration groups by code x 1-m site class
-        strata = make_strata(st, rng.integers(0, 3, n), 1.0, 1e-9)
-        t0 = time.perf_counter()
-        lp = solve_lp(st, curves, Periods(2027, 10, 20), strata, "max-even-flow", "even", 0.1, 1.0)
-        print(
-            f"{lp.strata:,} strata x 20 periods{' with regimes' if args.regimes else ''}: "
-            f"{lp.columns:,} columns, {lp.rows:,} rows, {lp.status}, built and solved in "
-            f"{time.perf_counter() - t0:.1f} s (level {lp.objective / 10:,.0f} m3/year)",
-            flush=True,
-        )
+        for objective in args.objectives:
+            one_case(curves, n, objective, args)
 
 
 if __name__ == "__main__":

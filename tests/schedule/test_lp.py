@@ -28,6 +28,7 @@ from yieldscape.schedule.lp import (
     choice_columns,
     lp_columns,
     make_strata,
+    solve_highs,
     solve_lp,
 )
 from yieldscape.schedule.lp_plan import guided, lp_schedule
@@ -57,6 +58,17 @@ def test_highs_matches_cbc_on_the_same_model(objective, band, cap):
     model = build_lp(st, CURVES, PERIODS, stand_strata(st), objective, "even", band, 0.8, cap)
     ours = solve_lp(st, CURVES, PERIODS, stand_strata(st), objective, "even", band, 0.8, cap)
     assert cbc_objective(model) == pytest.approx(ours.objective, rel=1e-6)
+
+
+@pytest.mark.parametrize("objective", ["max-even-flow", "max-level", "max-volume"])
+def test_interior_point_and_simplex_agree(objective):
+    # Two algorithms on the same model: HiGHS dual simplex against interior point with
+    # crossover (the one lp_solver picks for all but the smallest models).
+    st = forest()
+    model = build_lp(st, CURVES, PERIODS, stand_strata(st), objective, "even", 0.1, 0.8)
+    simplex, ipm = (solve_highs(model, solver=s) for s in ("simplex", "ipm"))
+    assert ipm.objective == pytest.approx(simplex.objective, rel=1e-6)
+    assert ipm.harvest_m3 == pytest.approx(simplex.harvest_m3, rel=1e-6)
 
 
 def cbc_objective(model):

@@ -61,6 +61,8 @@ from yieldscape.schedule.lp_regimes import (
 )
 
 INF = highspy.kHighsInf
+# strata x periods from which interior point solves the LP (:func:`lp_solver`)
+LP_IPM_FROM = 500
 LEVEL_OBJECTIVES = ("max-even-flow", "max-level")  # the objectives on a level column M
 TIE_BREAK = 1e-7  # their weight on each period's harvest beside the level's 1
 
@@ -981,30 +983,44 @@ def _new_highs() -> highspy.Highs:
     return h
 
 
-def solve_highs(model: LPModel, t0: float | None = None) -> LPResult:
-    """Solve with HiGHS (interior point for large models and models with regimes); explain an
-    infeasible model."""
+def lp_solver(model: LPModel) -> str:
+    """The HiGHS solver for this model: interior point ("ipm", crossover on by default, so the
+    solution is a vertex) but for the smallest models without regimes, dual simplex there."""
+    # benchmarks/bench_lp.py, 20 periods, one stratum a stand: interior point 1.0-2.0x faster
+    # at 30 strata, 2-8x at 100-300, 9-12x at 1,000; within the noise either way at 10-20
+    # (hundredths of a second); with regimes 1.7x at 30 strata (docs/performance.md)
+    return "ipm" if model.strata * model.periods >= LP_IPM_FROM or model.regimes else "simplex"
+
+
+def solve_highs(model: LPModel, t0: float | None = None, solver: str | None = None) -> LPResult:
+    """Solve with HiGHS (``solver``: "simplex" or "ipm"; by default :func:`lp_solver`); explain
+    an infeasible model."""
     A = model.matrix
     ncol, nrow = A.shape[1], A.shape[0]
     P = model.periods
     t0 = time.perf_counter() if t0 is None else t0
     h = _new_highs()
-    # interior point is far faster than simplex on large harvest LPs, and with regimes on all
-    # but tiny ones (1,000 strata with a choice and thinnings, 20 periods: 0.7 s against 6.8)
-    if model.strata * P > 20_000 or model.regimes:
-        h.setOptionValue("solver", "ipm")
-    lp = highspy.HighsLp()
-    lp.num_col_, lp.num_row_ = ncol, nrow
-    lp.col_cost_ = model.cost
-    lp.col_lower_ = np.zeros(ncol)
-    lp.col_upper_ = np.full(ncol, INF)
-    lp.row_lower_ = model.row_lo
-    lp.row_upper_ = model.row_hi
-    lp.a_matrix_.format_ = highspy.MatrixFormat.kColwise
-    lp.a_matrix_.start_ = A.indptr.astype(np.int32)
-    lp.a_matrix_.index_ = A.indices.astype(np.int32)
-    lp.a_matrix_.value_ = A.data
-    if h.passModel(lp) not in (highspy.HighsStatus.kOk, highspy.HighsStatus.kWarning):
+    h.setOptionValue("solver", solver or lp_solver(model))
+    # the arrays overload: a HighsLp's attributes copy each array once more, ~10x the time of
+    # this whole call (an empty integrality array is refused: zeros, all continuous)
+    status = h.passModel(
+        ncol,
+        nrow,
+        A.nnz,
+        int(highspy.MatrixFormat.kColwise),
+        int(highspy.ObjSense.kMinimize),
+        0.0,
+        model.cost,
+        np.zeros(ncol),
+        np.full(ncol, INF),
+        model.row_lo,
+        model.row_hi,
+        A.indptr.astype(np.int32, copy=False),
+        A.indices.astype(np.int32, copy=False),
+        A.data,
+        np.zeros(ncol, dtype=np.int32),
+    )
+    if status not in (highspy.HighsStatus.kOk, highspy.HighsStatus.kWarning):
         raise RuntimeError("HiGHS did not accept the harvest LP")
     h.run()
     status = h.modelStatusToString(h.getModelStatus())
