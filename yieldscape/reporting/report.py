@@ -183,21 +183,7 @@ def _scenario_table(data: ReportData) -> pd.DataFrame:
             + f"; ending growing stock at least {100 * f.ending_stock:g}% of the initial"
             + ("; schedule from the harvest LP" if f.method == "optimize" else ""),
         ),
-        (
-            "harvest order",
-            f"{h.priority} first"
-            + (
-                "; the stands the harvest LP cuts by each period ahead of the others (the "
-                "LP-guided order, which held the higher level)"
-                if _guided_won(data.flow_details)
-                else ""
-            )
-            + (
-                f"; at most {h.max_area_ha_per_period:,.0f} ha per period"
-                if h.max_area_ha_per_period
-                else ""
-            ),
-        ),
+        ("harvest order", _harvest_order_text(data)),
         (
             "spatial rules",
             (
@@ -245,6 +231,25 @@ def _scenario_table(data: ReportData) -> pd.DataFrame:
     if s.overrides:
         rows.append(("overrides (--set)", ", ".join(s.overrides)))
     return pd.DataFrame(rows, columns=["item", "value"])
+
+
+def _harvest_order_text(data: ReportData) -> str:
+    """The priority rule, the LP-guided order where it won, and the area cap."""
+    h = data.scenario.harvest
+    return (
+        f"{h.priority} first"
+        + (
+            "; the stands the harvest LP cuts by each period ahead of the others (the "
+            "LP-guided order, which held the higher level)"
+            if _guided_won(data.flow_details)
+            else ""
+        )
+        + (
+            f"; at most {h.max_area_ha_per_period:,.0f} ha per period"
+            if h.max_area_ha_per_period
+            else ""
+        )
+    )
 
 
 def _guided_won(details: dict[str, float]) -> bool:
