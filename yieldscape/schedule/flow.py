@@ -68,13 +68,16 @@ def find_even_flow(
     stable_periods: int = 0,
     fixed: tuple[float, ...] = (),
     start: Start | None = None,
+    record: bool = True,
 ) -> FlowResult:
     """The highest feasible even-flow level, to the search tolerance (see the module docstring).
 
     ``stable_periods`` adds the requirement that the harvestable growing stock does not fall
     over the last that many periods. With ``fixed`` the first periods take those harvests and
     the level applies to the periods after them (band not used). ``start``: the stands' parts
-    at the start (:meth:`Start.of` these stands and curves), when the caller has them.
+    at the start (:meth:`Start.of` these stands and curves), when the caller has them. With
+    ``record=False`` (a search inside another, which keeps only the level) the result's
+    simulation is the feasible trial at the level, its verdict and totals, not re-run recorded.
     """
     start = start if start is not None else Start.of(stands, curves)  # the same for every trial
 
@@ -100,24 +103,29 @@ def find_even_flow(
     base = fixed[-1] if fixed else 0.0  # the lowest level asked for, feasible or nothing is
     low = trial(base)
     steps = 2
+
+    def kept(level: float, tried: Simulation) -> tuple[Simulation, int]:
+        """The run to keep at the level found (tried there already) and the trial count."""
+        return (trial(level, True), steps + 1) if record else (tried, steps)
+
     if not low.feasible or upper <= base:
         if fixed and low.feasible:  # nothing above the last fixed period: hold it
-            final = trial(base, record=True)
-            return _result(base, periods, final, _why_top(final, rules.max_area_ha), steps + 1)
+            final, steps = kept(base, low)
+            return _result(base, periods, final, _why_top(final, rules.max_area_ha), steps)
         if fixed:
             raise RuntimeError(f"flow search: the fixed periods fail ({low.fail_reason})")
-        final = trial(0.0, record=True)
-        return _result(0.0, periods, final, _why_none(low, final, ending_stock), steps + 1)
+        final, steps = kept(0.0, low)
+        return _result(0.0, periods, final, _why_none(low, final, ending_stock), steps)
     top = trial(upper)
     steps += 1
     if top.feasible:
-        final = trial(upper, record=True)
-        return _result(upper, periods, final, _why_top(final, rules.max_area_ha), steps + 1)
+        final, steps = kept(upper, top)
+        return _result(upper, periods, final, _why_top(final, rules.max_area_ha), steps)
     margin = _Margin(ending_stock, stable_periods, periods.count)
-    bracket = _Bracket(base, upper, top)
+    bracket = _Bracket(base, upper, low, top)
     bracket.add(base, margin(low), low)
     bracket.add(upper, margin(top), top)
-    final, steps = _narrow(bracket, trial, margin, periods.period_years, steps)
+    final, steps = _narrow(bracket, trial, margin, periods.period_years, steps, record)
     why = _why(bracket.hi_sim, bracket.hi, periods, ending_stock)
     return _result(bracket.lo, periods, final, why, steps)
 
@@ -128,9 +136,10 @@ def _narrow(
     margin: _Margin,
     period_years: float,
     steps: int,
+    record: bool,
 ) -> tuple[Simulation, int]:
-    """Narrow the bracket to the search tolerance; the recorded run at its low end, checked
-    feasible, and the trial count."""
+    """Narrow the bracket to the search tolerance; the run at its low end, checked feasible
+    (recorded with ``record``), and the trial count."""
 
     def tol(level: float) -> float:
         return search_tolerance_m3(level, period_years)
@@ -139,12 +148,14 @@ def _narrow(
     while bracket.hi - bracket.lo > tol(bracket.lo) and steps < MAX_STEPS:
         level, below = bracket.next_level(tol(bracket.lo))
         # a level expected to hold and to close the bracket is recorded: the run to keep
-        last = below and bracket.hi - level <= tol(level)
+        last = record and below and bracket.hi - level <= tol(level)
         sim = trial(level, last)
         steps += 1
         bracket.add(level, margin(sim), sim)
         final = sim if last and sim.feasible else None
-    if final is None or bracket.hi - bracket.lo > tol(bracket.lo):
+    if not record:
+        final = bracket.lo_sim
+    elif final is None or bracket.hi - bracket.lo > tol(bracket.lo):
         final = trial(bracket.lo, True)
         steps += 1
     if not final.feasible:  # a non-monotone case: never report an infeasible level
@@ -177,8 +188,8 @@ class _Margin:
 
 @dataclass
 class _Bracket:
-    """The levels bracketing the highest feasible one: ``lo`` feasible, ``hi`` not, the trial
-    at ``hi``, and every level tried whose horizon got to its end, with its margin (see
+    """The levels bracketing the highest feasible one: ``lo`` feasible, ``hi`` not, the trials
+    there, and every level tried whose horizon got to its end, with its margin (see
     :class:`_Margin`).
 
     The next level is where the margin crosses zero: interpolated (inverse quadratic) through
@@ -192,6 +203,7 @@ class _Bracket:
 
     lo: float
     hi: float
+    lo_sim: Simulation
     hi_sim: Simulation
     margins: dict[float, float] = field(default_factory=dict)  # level -> margin, in order
     widths: list[float] = field(default_factory=list)
@@ -231,7 +243,7 @@ class _Bracket:
         if margin is not None:
             self.margins[level] = margin
         if sim.feasible:
-            self.lo = level
+            self.lo, self.lo_sim = level, sim
         else:
             self.hi, self.hi_sim = level, sim
 
@@ -305,7 +317,7 @@ def find_step_down(
     plain = replace(rules, snapshots=())  # the searches inside keep no parts
     start = Start.of(stands, curves)
     base = find_even_flow(
-        stands, curves, periods, plain, 0.0, ending_stock, stable_periods, start=start
+        stands, curves, periods, plain, 0.0, ending_stock, stable_periods, start=start, record=False
     )
     lt = base.level_m3_per_period
     steps = base.steps
@@ -409,13 +421,23 @@ def find_nondeclining(
     """
     plain = replace(rules, snapshots=())  # the searches inside keep no parts
     start = Start.of(stands, curves)
-    first = find_even_flow(stands, curves, periods, plain, 0.0, ending_stock, start=start)
+    first = find_even_flow(
+        stands, curves, periods, plain, 0.0, ending_stock, start=start, record=False
+    )
     fixed = [first.level_m3_per_period]
     steps = first.steps
     last = first
     for _ in range(1, periods.count):
         nxt = find_even_flow(
-            stands, curves, periods, plain, 0.0, ending_stock, fixed=tuple(fixed), start=start
+            stands,
+            curves,
+            periods,
+            plain,
+            0.0,
+            ending_stock,
+            fixed=tuple(fixed),
+            start=start,
+            record=False,
         )
         steps += nxt.steps
         fixed.append(max(nxt.level_m3_per_period, fixed[-1]))

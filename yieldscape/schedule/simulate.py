@@ -26,7 +26,6 @@ from yieldscape.projection import (
     SiteTerms,
     StandArrays,
     area_sum,
-    growing_stock_m3,
 )
 from yieldscape.regimes import Regimes
 from yieldscape.schedule.cover import CoverRules
@@ -335,19 +334,21 @@ class _Parts:
             v -= self.removed(idx, age)
         return v
 
-    def stock(self, curves: CurveSet, reg: Regimes | None, hlb_only: bool = False) -> float:
-        """Growing stock [m3] of all parts, or of those on the harvestable land base."""
-        if not hlb_only:
-            gross = growing_stock_m3(curves, self.sp, self.age, self.si, self.area)
-            if reg is None or not reg.thins:
-                return gross
+    def stocks(self, curves: CurveSet, reg: Regimes | None) -> tuple[float, float]:
+        """Growing stock [m3] of all parts and of those on the harvestable land base, from
+        one reading of the curves."""
+        gross_ha = curves.volume_m3_ha(self.sp, self.age, terms=self.si)
+        total = area_sum(gross_ha, self.area)
+        idx = np.flatnonzero(self.in_hlb)
+        v = gross_ha[idx]
+        if reg is not None and reg.thins:
             if (self.age < self.thinned_to).any():
                 taken = self.removed(np.arange(len(self.age)), self.age)
             else:  # the usual case: no part is younger than its last thinning
                 taken = self.thin_taken
-            return gross - area_sum(taken, self.area)
-        idx = np.flatnonzero(self.in_hlb)
-        return area_sum(self.volume(curves, idx, self.age[idx], reg), self.area[idx])
+            total -= area_sum(taken, self.area)
+            v -= taken[idx]
+        return total, area_sum(v, self.area[idx])
 
     def snapshot(self) -> PartsSnapshot:
         return PartsSnapshot(
@@ -361,16 +362,18 @@ class _Parts:
 
 @dataclass(frozen=True)
 class Start:
-    """The stand parts at the start of a horizon and their growing stock [m3]: the same for
+    """The stand parts at the start of a horizon and their growing stock [m3], all and on the
+    harvestable land base: the same for
     every trial horizon of a flow search, so worked out once (``simulate(start=...)``)."""
 
     parts: _Parts
     stock_m3: float
+    hlb_stock_m3: float  # on the harvestable land base
 
     @classmethod
     def of(cls, stands: StandArrays, curves: CurveSet) -> Start:
         parts = _Parts.of(stands, curves)
-        return cls(parts, parts.stock(curves, stands.regimes))
+        return cls(parts, *parts.stocks(curves, stands.regimes))
 
 
 @dataclass
@@ -826,6 +829,7 @@ def simulate(
     out = _Totals.empty(P)
     kept_at = set(rules.snapshots) if record else set()
     queue_size = max(len(parts.age) // 4, _QUEUE_MIN)
+    hlb_stock = start.hlb_stock_m3  # at the start of the period (the end of the last)
     for p in range(P):
         if p in kept_at:
             sim.snapshots[p] = parts.snapshot()
@@ -834,7 +838,7 @@ def simulate(
         target, floor = rule.bounds(p, out.h[p - 1] if p else 0.0)
         out.target[p], out.floor[p] = target, floor
         if record or p == P - stable_periods:
-            out.hlb_start[p] = parts.stock(curves, reg, hlb_only=True)
+            out.hlb_start[p] = hlb_stock
         age_h = parts.age + off
         first = None if planned is None else planned > p + 1
         t = p * L + off
@@ -862,11 +866,12 @@ def simulate(
             out.dist_ha[p], out.dist_m3[p] = _disturb(
                 parts, curves, reg, rules.disturbance, L, n_before, cut.full, rng, stands.n
             )
-        if record or p == P - 1:
-            out.gs_end[p] = parts.stock(curves, reg)
+        if record or p == P - 1 or p + 1 == P - stable_periods:
+            total, hlb_stock = parts.stocks(curves, reg)
+            if record or p == P - 1:
+                out.gs_end[p] = total
             if p == P - 1:
-                sim.ending_stock_m3 = out.gs_end[p]
-                sim.ending_hlb_stock_m3 = parts.stock(curves, reg, hlb_only=True)
+                sim.ending_stock_m3, sim.ending_hlb_stock_m3 = total, hlb_stock
     _judge_end(sim, ending_stock, stable_periods, out.hlb_start, P)
     if P in kept_at:
         sim.snapshots[P] = parts.snapshot()
