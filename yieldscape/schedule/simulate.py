@@ -453,8 +453,8 @@ def _cut_period(
     full_pos = part_pos = np.zeros(0, dtype=np.intp)
     if target > thin_total and len(elig):
         first = None if planned_first is None else planned_first[parts.stand[elig]]
-        if spatial is not None or rules.cover is not None or first is not None:
-            queue_size = len(elig)  # the sequential pick and a plan's order rank them all
+        if spatial is not None or rules.cover is not None:
+            queue_size = len(elig)  # the sequential pick is given the whole queue
         goal = target - thin_total
         while True:  # rank more of the queue until the pick is decided within it
             cand, v_cand, whole = _queue(
@@ -491,21 +491,21 @@ def _queue(
     size: int,
 ) -> tuple[NDArray, NDArray, bool]:
     """The first of the period's queue: the eligible parts ``elig`` whose priority key is at
-    least the ``size``-th highest (ties all in, so they are exactly the queue's first ones),
-    with some volume standing, in priority order; their volumes [m3/ha]; whether that is the
-    whole queue. Ranking a few times what a period cuts instead of every eligible part saves
+    least the ``size``-th highest (ties all in, so they are exactly the queue's first ones;
+    with ``first``, a plan's order, the parts it puts first come before the others), with some
+    volume standing, in priority order; their volumes [m3/ha]; whether that is the whole
+    queue. Ranking a few times what a period cuts instead of every eligible part saves
     most of the sort, and, where the key does not read the volume, most of the volume."""
     rule = PRIORITIES[priority]
-    whole = size >= len(elig) or first is not None
+    whole = size >= len(elig)
     vol = None
     if rule.by_volume or whole:
         vol = parts.volume(curves, elig, age_h[elig], reg)
     if not whole:
-        key = rule.key(age_h[elig], parts.min_age[elig], vol)
-        at = len(key) - size
-        top = key >= np.partition(key, at)[at]
+        top = _first_by_key(rule.key(age_h[elig], parts.min_age[elig], vol), first, size)
         elig = elig[top]
         vol = vol[top] if vol is not None else parts.volume(curves, elig, age_h[elig], reg)
+        first = first[top] if first is not None else None
     keep = vol > 0
     elig, vol = elig[keep], vol[keep]
     if first is not None:
@@ -519,6 +519,21 @@ def _queue(
         None if first is None else first.astype(np.int8),
     )
     return elig[order], vol[order], whole
+
+
+def _first_by_key(key: NDArray, later: NDArray | None, size: int) -> NDArray[np.bool_]:
+    """Which elements are among the first ``size`` (fewer than all) by ``key``, descending,
+    ties at the last one included; with ``later`` (a plan's order), the elements not later
+    come first."""
+    if later is None:
+        at = len(key) - size
+        return key >= np.partition(key, at)[at]
+    now = ~later.astype(bool)
+    group = now if int(now.sum()) >= size else ~now
+    k = size if group is now else size - int(now.sum())
+    n = int(group.sum())
+    chosen = group if k >= n else group & (key >= np.partition(key[group], n - k)[n - k])
+    return chosen if group is now else now | chosen
 
 
 def _pick(
