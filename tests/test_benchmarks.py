@@ -17,8 +17,9 @@ def bench():
     try:
         import bench_pipeline
         import bench_regimes
+        import bench_search
 
-        yield bench_pipeline, bench_regimes
+        yield bench_pipeline, bench_regimes, bench_search
     finally:
         sys.path.remove(str(BENCH))
 
@@ -32,7 +33,7 @@ def test_pipeline_benchmark_reports_every_stage(bench):
 
 
 def test_regimes_benchmark_variants_differ_as_described(bench, tmp_path):
-    pipeline, regimes = bench
+    pipeline, regimes, _ = bench
     gpkg = tmp_path / "region.gpkg"
     pipeline.build_region(300, gpkg)
     got = {v: regimes.one_run(regimes.scenario(gpkg, 300, v), None) for v in regimes.VARIANTS}
@@ -42,3 +43,9 @@ def test_regimes_benchmark_variants_differ_as_described(bench, tmp_path):
     assert got["thinnings"]["thinning_m3"] > 0
     assert got["regimes"]["thinning_m3"] > got["thinnings"]["thinning_m3"]
     assert all(r["steps"] > 0 and r["total_s"] > r["project_schedule_s"] for r in got.values())
+
+
+def test_search_benchmark_times_the_search_and_one_simulation(bench):
+    row = bench[2].one_size(300, 1)
+    assert row["search_s"] > row["simulation_s"] > 0 and row["trials"] >= 3
+    assert row["ratio"] == pytest.approx(row["search_s"] / row["simulation_s"])

@@ -149,6 +149,7 @@ class Priority:
     name: str
     label: str
     key: PriorityKey
+    by_volume: bool = False  # the key reads the volume (else it is worked out only where cut)
 
 
 PRIORITIES: dict[str, Priority] = {
@@ -160,7 +161,12 @@ PRIORITIES: dict[str, Priority] = {
             "largest age above the species' minimum harvest age first",
             lambda age, min_age, vol: age - min_age,
         ),
-        Priority("highest_volume", "highest volume per hectare first", lambda a, m, vol: vol),
+        Priority(
+            "highest_volume",
+            "highest volume per hectare first",
+            lambda a, m, vol: vol,
+            by_volume=True,
+        ),
     )
 }
 

@@ -1,11 +1,19 @@
 """The flow searches: the highest flow level the rule-based scheduler can hold, per policy.
 
-Even flow: the level H [m3 per period] is found by bisection on [0, U], where U is the volume
-eligible in period 1 (period 1 must yield H, so no level above U can hold). Each step runs the
-vectorised simulation of :mod:`yieldscape.schedule.simulate`, which stops at the first missed
-period. Bisection assumes feasibility falls with H, which holds for a queue that always cuts in
-the same order; the final level is re-run in full and its feasibility is checked, never
-assumed. The other policies build on it (see each function).
+Even flow: the level H [m3 per period] lies in [0, U], where U is the volume eligible in
+period 1 (period 1 must yield H, so no level above U can hold). Each trial runs the vectorised
+simulation of :mod:`yieldscape.schedule.simulate`, which stops at the first missed floor. A
+trial that gets to the end also says how far it is from failing there (its *margin*: the
+ending growing stock above the requirement), so the search interpolates the level at which
+the margin reaches zero (inverse quadratic through three trials, a secant through two, the
+midpoint where neither lands inside the bracket or the bracket fails to halve in two steps, as
+in Brent's method) and stops once the highest level that held and the lowest that failed are
+within the tolerance: ``REL_TOL`` of the level or ``ABS_TOL_M3_PER_YEAR``, whichever is looser.
+The search assumes feasibility falls with H, which holds for a queue that always cuts in the
+same order (the sequential pick of the spatial rules can break it by a few m3 near the level;
+then the level found holds and one within the tolerance above it failed, and no more is
+claimed); the final level's run is recorded and its feasibility checked, never assumed. The
+other policies build on it (see each function).
 
 :data:`SEARCHES` is this module's part of the flow-policy registry
 (:data:`yieldscape.policies.FLOW_POLICIES`): one search per policy name.
@@ -21,10 +29,20 @@ import numpy as np
 
 from yieldscape.policies import EvenFlow, Sequence, StepDown, Targets
 from yieldscape.projection import CurveSet, Periods, StandArrays
-from yieldscape.schedule.simulate import NO_RULES, HarvestRules, Simulation, simulate
+from yieldscape.schedule.simulate import NO_RULES, HarvestRules, Simulation, Start, simulate
 
-REL_TOL = 1e-7
+# The search's tolerance: it stops when the level found (feasible) and the lowest level known
+# to fail are within REL_TOL of the level or ABS_TOL_M3_PER_YEAR, whichever is looser; so the
+# level found is feasible and, feasibility falling as the level rises, the level plus that
+# tolerance is not (tests/schedule/test_flow_search.py checks both).
+REL_TOL = 1e-4  # 0.01% of the level
+ABS_TOL_M3_PER_YEAR = 1.0
 MAX_STEPS = 80
+
+
+def search_tolerance_m3(level_m3_per_period: float, period_years: float) -> float:
+    """The search's tolerance [m3 per period] at a level [m3 per period]."""
+    return max(REL_TOL * level_m3_per_period, ABS_TOL_M3_PER_YEAR * period_years)
 
 
 @dataclass(frozen=True)
@@ -49,13 +67,19 @@ def find_even_flow(
     ending_stock: float = 1.0,
     stable_periods: int = 0,
     fixed: tuple[float, ...] = (),
+    start: Start | None = None,
+    record: bool = True,
 ) -> FlowResult:
-    """Bisection for the highest feasible even-flow level (see the module docstring).
+    """The highest feasible even-flow level, to the search tolerance (see the module docstring).
 
     ``stable_periods`` adds the requirement that the harvestable growing stock does not fall
     over the last that many periods. With ``fixed`` the first periods take those harvests and
-    the level applies to the periods after them (band not used).
+    the level applies to the periods after them (band not used). ``start``: the stands' parts
+    at the start (:meth:`Start.of` these stands and curves), when the caller has them. With
+    ``record=False`` (a search inside another, which keeps only the level) the result's
+    simulation is the feasible trial at the level, its verdict and totals, not re-run recorded.
     """
+    start = start if start is not None else Start.of(stands, curves)  # the same for every trial
 
     def trial(level: float, record: bool = False) -> Simulation:
         rule = Sequence(fixed, level) if fixed else EvenFlow(level, band)
@@ -68,35 +92,160 @@ def find_even_flow(
             ending_stock=ending_stock,
             stable_periods=stable_periods,
             record=record,
+            start=start,
         )
 
     # U: what the first free period could yield if every eligible stand were cut, within the
-    # area cap (later periods cannot hold more than that).
-    upper = float(trial(float("inf"), record=True).harvest_m3[len(fixed)])
-    zero = trial(0.0)
+    # area cap (later periods cannot hold more than that). The run stops there, its floor
+    # (inf) missed, or before it where the fixed periods fail (then U = 0 and so does every
+    # level).
+    upper = float(trial(float("inf")).harvest_m3[len(fixed)])
+    base = fixed[-1] if fixed else 0.0  # the lowest level asked for, feasible or nothing is
+    low = trial(base)
     steps = 2
-    if not zero.feasible or upper <= 0:
-        final = trial(0.0, record=True)
-        return _result(0.0, periods, final, _why_none(zero, final, ending_stock), steps)
+
+    def kept(level: float, tried: Simulation) -> tuple[Simulation, int]:
+        """The run to keep at the level found (tried there already) and the trial count."""
+        return (trial(level, True), steps + 1) if record else (tried, steps)
+
+    if not low.feasible or upper <= base:
+        if fixed and low.feasible:  # nothing above the last fixed period: hold it
+            final, steps = kept(base, low)
+            return _result(base, periods, final, _why_top(final, rules.max_area_ha), steps)
+        if fixed:
+            raise RuntimeError(f"flow search: the fixed periods fail ({low.fail_reason})")
+        final, steps = kept(0.0, low)
+        return _result(0.0, periods, final, _why_none(low, final, ending_stock), steps)
     top = trial(upper)
     steps += 1
     if top.feasible:
-        final = trial(upper, record=True)
-        return _result(upper, periods, final, _why_top(final, rules.max_area_ha), steps + 1)
-    lo, hi, hi_sim = (fixed[-1] if fixed else 0.0), upper, top
-    while hi - lo > REL_TOL * hi and steps < MAX_STEPS:
-        mid = 0.5 * (lo + hi)
-        sim = trial(mid)
+        final, steps = kept(upper, top)
+        return _result(upper, periods, final, _why_top(final, rules.max_area_ha), steps)
+    margin = _Margin(ending_stock, stable_periods, periods.count)
+    bracket = _Bracket(base, upper, low, top)
+    bracket.add(base, margin(low), low)
+    bracket.add(upper, margin(top), top)
+    final, steps = _narrow(bracket, trial, margin, periods.period_years, steps, record)
+    why = _why(bracket.hi_sim, bracket.hi, periods, ending_stock)
+    return _result(bracket.lo, periods, final, why, steps)
+
+
+def _narrow(
+    bracket: _Bracket,
+    trial: Callable[[float, bool], Simulation],
+    margin: _Margin,
+    period_years: float,
+    steps: int,
+    record: bool,
+) -> tuple[Simulation, int]:
+    """Narrow the bracket to the search tolerance; the run at its low end, checked feasible
+    (recorded with ``record``), and the trial count."""
+
+    def tol(level: float) -> float:
+        return search_tolerance_m3(level, period_years)
+
+    final = None
+    while bracket.hi - bracket.lo > tol(bracket.lo) and steps < MAX_STEPS:
+        level, below = bracket.next_level(tol(bracket.lo))
+        # a level expected to hold and to close the bracket is recorded: the run to keep
+        last = record and below and bracket.hi - level <= tol(level)
+        sim = trial(level, last)
         steps += 1
-        if sim.feasible:
-            lo = mid
-        else:
-            hi, hi_sim = mid, sim
-    final = trial(lo, record=True)
-    steps += 1
+        bracket.add(level, margin(sim), sim)
+        final = sim if last and sim.feasible else None
+    if not record:
+        final = bracket.lo_sim
+    elif final is None or bracket.hi - bracket.lo > tol(bracket.lo):
+        final = trial(bracket.lo, True)
+        steps += 1
     if not final.feasible:  # a non-monotone case: never report an infeasible level
-        raise RuntimeError(f"flow search ended on an infeasible level {lo} ({final.fail_reason})")
-    return _result(lo, periods, final, _why(hi_sim, hi, periods, ending_stock), steps)
+        raise RuntimeError(
+            f"flow search ended on an infeasible level {bracket.lo} ({final.fail_reason})"
+        )
+    return final, steps
+
+
+@dataclass(frozen=True)
+class _Margin:
+    """How far a trial horizon is from failing at its end [m3]: the ending growing stock above
+    the requirement and, with stable periods, the growing stock on the harvestable land base
+    above its value that many periods before the end, whichever is less (negative: it fails
+    there); None for a horizon that missed a period's floor (it never got to the end)."""
+
+    ending_stock: float
+    stable_periods: int
+    periods: int
+
+    def __call__(self, sim: Simulation) -> float | None:
+        if sim.fail_period is not None:
+            return None
+        out = sim.ending_stock_m3 - self.ending_stock * sim.initial_stock_m3
+        if self.stable_periods > 0:
+            ref = sim.hlb_stock_start_m3[self.periods - self.stable_periods]
+            out = min(out, sim.ending_hlb_stock_m3 - ref)
+        return float(out)
+
+
+@dataclass
+class _Bracket:
+    """The levels bracketing the highest feasible one: ``lo`` feasible, ``hi`` not, the trials
+    there, and every level tried whose horizon got to its end, with its margin (see
+    :class:`_Margin`).
+
+    The next level is where the margin crosses zero: interpolated (inverse quadratic) through
+    the two ends and the latest other levels with a margin, linearly through two of them
+    where a third is missing, or the midpoint where that falls outside the bracket, where
+    fewer than two margins are known, or where the bracket did not halve over the last two
+    steps (as in Brent's method). Once the estimate is near, the level tried is put a quarter
+    of the tolerance past it, toward the farther end, so that one or two trials close the
+    bracket.
+    """
+
+    lo: float
+    hi: float
+    lo_sim: Simulation
+    hi_sim: Simulation
+    margins: dict[float, float] = field(default_factory=dict)  # level -> margin, in order
+    widths: list[float] = field(default_factory=list)
+
+    def next_level(self, tol: float) -> tuple[float, bool]:
+        """The next level to try, and whether it lies below the estimate (likely to hold)."""
+        lo, hi = self.lo, self.hi
+        self.widths.append(hi - lo)
+        stalled = len(self.widths) > 2 and hi - lo > 0.5 * self.widths[-3]
+        guess = float("nan") if stalled else self._estimate()
+        if not lo < guess < hi:
+            return 0.5 * (lo + hi), False
+        nearer_lo = guess - lo < hi - guess
+        level = guess + (0.25 * tol if nearer_lo else -0.25 * tol)
+        step = min(0.5 * tol, 0.25 * (hi - lo))
+        level = min(max(level, lo + step), hi - step)
+        return level, level < guess
+
+    def _estimate(self) -> float:
+        """Where the margin is zero, from the ends and the latest other levels tried."""
+        pts = [x for x in (self.lo, self.hi) if x in self.margins]
+        pts += [x for x in reversed(self.margins) if x not in (self.lo, self.hi)][: 3 - len(pts)]
+        ms = [self.margins[x] for x in pts]
+        if len(pts) == 3 and len(set(ms)) == 3:
+            (x0, x1, x2), (f0, f1, f2) = pts, ms
+            return (
+                x0 * f1 * f2 / ((f0 - f1) * (f0 - f2))
+                + x1 * f0 * f2 / ((f1 - f0) * (f1 - f2))
+                + x2 * f0 * f1 / ((f2 - f0) * (f2 - f1))
+            )
+        if len(pts) >= 2 and ms[0] != ms[1]:
+            (x0, x1), (f0, f1) = pts[:2], ms[:2]
+            return x0 - f0 * (x1 - x0) / (f1 - f0)
+        return float("nan")
+
+    def add(self, level: float, margin: float | None, sim: Simulation) -> None:
+        if margin is not None:
+            self.margins[level] = margin
+        if sim.feasible:
+            self.lo, self.lo_sim = level, sim
+        else:
+            self.hi, self.hi_sim = level, sim
 
 
 def _why_none(zero: Simulation, final: Simulation, ending_stock: float) -> str:
@@ -161,12 +310,15 @@ def find_step_down(
 
     The long-term level is the highest even flow that leaves the harvestable growing stock
     stable over the last ``stable_periods`` periods (and meets the ending stock). Then, by
-    bisection on the initial level H0 >= that level: H0 is feasible when some hold of k >= 1
-    periods at H0 followed by the step-down is; the longest such k is found by bisection too
-    (holding longer is never easier).
+    bisection on the initial level H0 >= that level (to the search tolerance): H0 is feasible
+    when some hold of k >= 1 periods at H0 followed by the step-down is; the longest such k is
+    found by bisection too (holding longer is never easier).
     """
     plain = replace(rules, snapshots=())  # the searches inside keep no parts
-    base = find_even_flow(stands, curves, periods, plain, 0.0, ending_stock, stable_periods)
+    start = Start.of(stands, curves)
+    base = find_even_flow(
+        stands, curves, periods, plain, 0.0, ending_stock, stable_periods, start=start, record=False
+    )
     lt = base.level_m3_per_period
     steps = base.steps
 
@@ -182,6 +334,7 @@ def find_step_down(
             ending_stock=ending_stock,
             stable_periods=stable_periods,
             record=record,
+            start=start,
         )
 
     def longest_hold(h0: float) -> int:
@@ -195,10 +348,10 @@ def find_step_down(
             lo, hi = (mid, hi) if run(h0, mid).feasible else (lo, mid)
         return lo
 
-    every = simulate(stands, curves, periods, EvenFlow(float("inf")), rules, record=True)
+    every = simulate(stands, curves, periods, EvenFlow(float("inf")), rules, start=start)
     lo, hi = lt, max(float(every.harvest_m3[0]), lt)
     best_hold = periods.count
-    while hi - lo > 1e-6 * max(hi, 1.0):
+    while hi - lo > search_tolerance_m3(lo, periods.period_years):
         mid = 0.5 * (lo + hi)
         k = longest_hold(mid)
         if k:
@@ -267,12 +420,25 @@ def find_nondeclining(
     period's harvest is thus the most that can be held from then on without a decline.
     """
     plain = replace(rules, snapshots=())  # the searches inside keep no parts
-    first = find_even_flow(stands, curves, periods, plain, 0.0, ending_stock)
+    start = Start.of(stands, curves)
+    first = find_even_flow(
+        stands, curves, periods, plain, 0.0, ending_stock, start=start, record=False
+    )
     fixed = [first.level_m3_per_period]
     steps = first.steps
     last = first
     for _ in range(1, periods.count):
-        nxt = find_even_flow(stands, curves, periods, plain, 0.0, ending_stock, fixed=tuple(fixed))
+        nxt = find_even_flow(
+            stands,
+            curves,
+            periods,
+            plain,
+            0.0,
+            ending_stock,
+            fixed=tuple(fixed),
+            start=start,
+            record=False,
+        )
         steps += nxt.steps
         fixed.append(max(nxt.level_m3_per_period, fixed[-1]))
         last = nxt
@@ -284,6 +450,7 @@ def find_nondeclining(
         rules,
         ending_stock=ending_stock,
         record=True,
+        start=start,
     )
     if not final.feasible:
         raise RuntimeError(f"non-declining search ended infeasible ({final.fail_reason})")

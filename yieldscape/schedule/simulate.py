@@ -19,14 +19,13 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import NDArray
 
-from yieldscape.policies import TargetRule, cut_order
+from yieldscape.policies import PRIORITIES, TargetRule, cut_order
 from yieldscape.projection import (
     CurveSet,
     Periods,
     SiteTerms,
     StandArrays,
     area_sum,
-    growing_stock_m3,
 )
 from yieldscape.regimes import Regimes
 from yieldscape.schedule.cover import CoverRules
@@ -35,6 +34,7 @@ from yieldscape.schedule.spatial import SpatialRules
 
 _REL = 1e-9  # relative tolerance on volume targets
 _MIN_PART_HA = 1e-9  # a smaller partial cut (<= ~1e-6 m3) is not worth a split
+_QUEUE_MIN = 1024  # the fewest parts the aspatial pick ranks at first (see _queue)
 
 
 @dataclass(frozen=True)
@@ -129,10 +129,13 @@ class PartsSnapshot:
 
 def _pick_prefix(
     vol: NDArray, area: NDArray, target: float, cap: float
-) -> tuple[NDArray, int, float]:
+) -> tuple[NDArray, int, float, bool]:
     """Aspatial pick: candidates in order until the target or the cap; the last one partly.
 
-    Returns the positions cut whole, the position cut partly (-1: none) and its fraction.
+    Returns the positions cut whole, the position cut partly (-1: none), its fraction, and
+    whether the pick is decided within these candidates: the target is within their volume
+    and the pick stops short of the last two, so that more candidates after them would
+    change nothing (the queue may be only the first part of the period's queue).
     """
     cum_v = np.cumsum(vol)
     cum_a = np.cumsum(area)
@@ -143,13 +146,14 @@ def _pick_prefix(
             np.searchsorted(cum_a, cap * (1 + _REL), side="right"),
         )
     )
+    decided = goal == target and n < len(vol) - 1
     got_v = cum_v[n - 1] if n else 0.0
     got_a = cum_a[n - 1] if n else 0.0
     if n < len(vol) and goal - got_v > _REL * goal:
         frac = min((goal - got_v) / vol[n], (cap - got_a) / area[n], 1.0)
         if frac * area[n] > _MIN_PART_HA:
-            return np.arange(n), n, frac
-    return np.arange(n), -1, 0.0
+            return np.arange(n), n, frac, decided
+    return np.arange(n), -1, 0.0, decided
 
 
 # the per-part columns of _Parts (and of its site terms), grown together by _Parts.extend
@@ -251,6 +255,12 @@ class _Parts:
         parts.thin_to(np.flatnonzero(in_hlb), age[in_hlb])
         return parts
 
+    def copy(self) -> _Parts:
+        """A copy to run a horizon on (the columns copied, the regimes shared)."""
+        cols = {name: getattr(self, name).copy() for name in _COLUMNS}
+        si = SiteTerms(*(getattr(self.si, name).copy() for name in _TERMS))
+        return _Parts(**cols, si=si, reg=self.reg)
+
     def thin_to(self, idx: NDArray, to: NDArray | float) -> None:
         """The thinnings of parts ``idx`` (on the land base) count as taken up to age ``to``."""
         if self.reg is None or not self.reg.thins or not len(idx):
@@ -324,19 +334,21 @@ class _Parts:
             v -= self.removed(idx, age)
         return v
 
-    def stock(self, curves: CurveSet, reg: Regimes | None, hlb_only: bool = False) -> float:
-        """Growing stock [m3] of all parts, or of those on the harvestable land base."""
-        if not hlb_only:
-            gross = growing_stock_m3(curves, self.sp, self.age, self.si, self.area)
-            if reg is None or not reg.thins:
-                return gross
+    def stocks(self, curves: CurveSet, reg: Regimes | None) -> tuple[float, float]:
+        """Growing stock [m3] of all parts and of those on the harvestable land base, from
+        one reading of the curves."""
+        gross_ha = curves.volume_m3_ha(self.sp, self.age, terms=self.si)
+        total = area_sum(gross_ha, self.area)
+        idx = np.flatnonzero(self.in_hlb)
+        v = gross_ha[idx]
+        if reg is not None and reg.thins:
             if (self.age < self.thinned_to).any():
                 taken = self.removed(np.arange(len(self.age)), self.age)
             else:  # the usual case: no part is younger than its last thinning
                 taken = self.thin_taken
-            return gross - area_sum(taken, self.area)
-        idx = np.flatnonzero(self.in_hlb)
-        return area_sum(self.volume(curves, idx, self.age[idx], reg), self.area[idx])
+            total -= area_sum(taken, self.area)
+            v -= taken[idx]
+        return total, area_sum(v, self.area[idx])
 
     def snapshot(self) -> PartsSnapshot:
         return PartsSnapshot(
@@ -346,6 +358,22 @@ class _Parts:
             self.in_hlb.copy(),
             self.sp.astype(np.int64),
         )
+
+
+@dataclass(frozen=True)
+class Start:
+    """The stand parts at the start of a horizon and their growing stock [m3], all and on the
+    harvestable land base: the same for
+    every trial horizon of a flow search, so worked out once (``simulate(start=...)``)."""
+
+    parts: _Parts
+    stock_m3: float
+    hlb_stock_m3: float  # on the harvestable land base
+
+    @classmethod
+    def of(cls, stands: StandArrays, curves: CurveSet) -> Start:
+        parts = _Parts.of(stands, curves)
+        return cls(parts, *parts.stocks(curves, stands.regimes))
 
 
 @dataclass
@@ -404,12 +432,14 @@ def _cut_period(
     target: float,
     planned_first: NDArray | None,
     record: bool,
+    queue_size: int,
 ) -> _Cut:
     """Rank the eligible parts (age at the harvest moment ``age_h``) and clearcut up to the
     target and the area cap, the last part partly; rules of the sequential pick skip parts
     that would break them. Thinnings due this period are taken on the parts not clearcut
     and count toward the target: a clearcut takes its part's standing volume, thinnings
-    pending included, so it adds its volume less those thinnings to the period's total."""
+    pending included, so it adds its volume less those thinnings to the period's total.
+    The aspatial pick ranks only about ``queue_size`` parts first (see :func:`_queue`)."""
     cut = _Cut()
     live, due_ha, due_age, upto, nxt = _thinnings_due(parts, age_h, reg)
     cut.checked = live, due_ha, upto, nxt
@@ -419,28 +449,28 @@ def _cut_period(
     pending[thin] = thin_ha
     thin_total = area_sum(thin_ha, parts.area[thin])
     elig = np.flatnonzero((age_h >= parts.min_age - 1e-9) & (parts.area > 0))
-    vol_ha = parts.volume(curves, elig, age_h[elig], reg)
-    keep = vol_ha > 0
-    elig, vol_ha = elig[keep], vol_ha[keep]
-    cand, v_cand = elig[:0], vol_ha[:0]
+    cand, v_cand = elig[:0], np.zeros(0)
     full_pos = part_pos = np.zeros(0, dtype=np.intp)
     if target > thin_total and len(elig):
         first = None if planned_first is None else planned_first[parts.stand[elig]]
-        order = cut_order(
-            rules.priority,
-            age_h[elig],
-            parts.min_age[elig],
-            vol_ha,
-            parts.rank[elig],
-            None if first is None else first.astype(np.int8),
-        )
-        cand, v_cand = elig[order], vol_ha[order]
+        if spatial is not None or rules.cover is not None:
+            queue_size = len(elig)  # the sequential pick is given the whole queue
         goal = target - thin_total
-        full_pos, part_pos = _pick(
-            cut, parts, rules, spatial, t, age_h, cand, v_cand, pending, goal
-        )
+        while True:  # rank more of the queue until the pick is decided within it
+            cand, v_cand, whole = _queue(
+                parts, curves, reg, rules.priority, age_h, elig, first, queue_size
+            )
+            if len(cand):
+                full_pos, part_pos, decided = _pick(
+                    cut, parts, rules, spatial, t, age_h, cand, v_cand, pending, goal
+                )
+                if whole or decided:
+                    break
+            elif whole:
+                break
+            queue_size *= 4
     else:
-        cut.all_taken = len(elig) == 0
+        cut.all_taken = not (parts.volume(curves, elig, age_h[elig], reg) > 0).any()
     _tally(cut, parts, age_h, cand, v_cand, full_pos, part_pos)
     _take_thinnings(cut, parts, thin, thin_ha)
     if record:
@@ -448,6 +478,62 @@ def _cut_period(
             cut, parts, age_h, cand, v_cand, full_pos, part_pos, thin, thin_ha, thin_age
         )
     return cut
+
+
+def _queue(
+    parts: _Parts,
+    curves: CurveSet,
+    reg: Regimes | None,
+    priority: str,
+    age_h: NDArray,
+    elig: NDArray,
+    first: NDArray | None,
+    size: int,
+) -> tuple[NDArray, NDArray, bool]:
+    """The first of the period's queue: the eligible parts ``elig`` whose priority key is at
+    least the ``size``-th highest (ties all in, so they are exactly the queue's first ones;
+    with ``first``, a plan's order, the parts it puts first come before the others), with some
+    volume standing, in priority order; their volumes [m3/ha]; whether that is the whole
+    queue. Ranking a few times what a period cuts instead of every eligible part saves
+    most of the sort, and, where the key does not read the volume, most of the volume."""
+    rule = PRIORITIES[priority]
+    whole = size >= len(elig)
+    vol = None
+    if rule.by_volume or whole:
+        vol = parts.volume(curves, elig, age_h[elig], reg)
+    if not whole:
+        top = _first_by_key(rule.key(age_h[elig], parts.min_age[elig], vol), first, size)
+        elig = elig[top]
+        vol = vol[top] if vol is not None else parts.volume(curves, elig, age_h[elig], reg)
+        first = first[top] if first is not None else None
+    keep = vol > 0
+    elig, vol = elig[keep], vol[keep]
+    if first is not None:
+        first = first[keep]
+    order = cut_order(
+        priority,
+        age_h[elig],
+        parts.min_age[elig],
+        vol,
+        parts.rank[elig],
+        None if first is None else first.astype(np.int8),
+    )
+    return elig[order], vol[order], whole
+
+
+def _first_by_key(key: NDArray, later: NDArray | None, size: int) -> NDArray[np.bool_]:
+    """Which elements are among the first ``size`` (fewer than all) by ``key``, descending,
+    ties at the last one included; with ``later`` (a plan's order), the elements not later
+    come first."""
+    if later is None:
+        at = len(key) - size
+        return key >= np.partition(key, at)[at]
+    now = ~later.astype(bool)
+    group = now if int(now.sum()) >= size else ~now
+    k = size if group is now else size - int(now.sum())
+    n = int(group.sum())
+    chosen = group if k >= n else group & (key >= np.partition(key[group], n - k)[n - k])
+    return chosen if group is now else now | chosen
 
 
 def _pick(
@@ -461,17 +547,19 @@ def _pick(
     v_ha: NDArray,
     pending: NDArray,
     target: float,
-) -> tuple[NDArray, NDArray]:
+) -> tuple[NDArray, NDArray, bool]:
     """The candidates cut whole and the one cut partly (positions in ``cand``), by volume net
-    of the thinnings a clearcut forgoes."""
+    of the thinnings a clearcut forgoes, and whether the pick is decided within ``cand``
+    (always for the sequential pick, which is given the whole queue)."""
     area = parts.area
     vol = (v_ha - pending[cand]) * area[cand]
     cap = np.inf if rules.max_area_ha is None else float(rules.max_area_ha)
     pick: list = [spatial] if spatial is not None else []
     if rules.cover is not None:
         pick.append(rules.cover.budgets(parts.zone[cand], age_h[cand], parts.zone, age_h, area))
+    decided = True
     if not pick:
-        full_pos, part_pos, frac = _pick_prefix(vol, area[cand], target, cap)
+        full_pos, part_pos, frac, decided = _pick_prefix(vol, area[cand], target, cap)
     else:
         full_pos, part_pos, frac, refused = sequential_pick(
             t, parts.stand[cand], vol, area[cand], target, cap, pick
@@ -482,7 +570,8 @@ def _pick(
     cut.part = int(cand[part_pos]) if part_pos >= 0 else -1
     cut.frac = frac
     cut.all_taken = len(cut.full) + (cut.part >= 0) == len(cand)
-    return full_pos, (np.array([part_pos]) if part_pos >= 0 else np.zeros(0, dtype=np.intp))
+    part = np.array([part_pos]) if part_pos >= 0 else np.zeros(0, dtype=np.intp)
+    return full_pos, part, decided
 
 
 def _tally(
@@ -722,6 +811,7 @@ def simulate(
     stable_periods: int = 0,
     record: bool = False,
     rng: np.random.Generator | None = None,
+    start: Start | None = None,
 ) -> Simulation:
     """Run the horizon under a target ``rule`` (a :mod:`yieldscape.policies` rule: each
     period's target and floor) and the harvest ``rules``.
@@ -737,20 +827,24 @@ def simulate(
     Carlo). With ``record``, ``rules.snapshots`` names the period boundaries at which the
     stand parts are kept; cover targets need ``stands.zone_idx``. Cut parts regrow as
     ``stands.regimes`` says, or in the shares of the plan's choices; thinnings due are taken
-    each period (see :func:`_cut_period`).
+    each period (see :func:`_cut_period`). ``start`` (:meth:`Start.of` the same stands and
+    curves) saves working out the starting parts again.
     """
     spatial = rules.spatial.fresh() if rules.spatial is not None else None
     P, L, off = periods.count, float(periods.period_years), periods.offset_years
-    parts = _Parts.of(stands, curves)
+    start = start if start is not None else Start.of(stands, curves)
+    parts = start.parts.copy()
     reg = stands.regimes
     planned = rules.plan.period if rules.plan is not None else None
     regen_shares = rules.plan.regen_shares if rules.plan is not None else None
     if regen_shares is None and reg is not None and reg.changes:
         regen_shares = np.broadcast_to(reg.transitions, (P, *reg.transitions.shape))
     sim = Simulation()
-    sim.initial_stock_m3 = parts.stock(curves, reg)
+    sim.initial_stock_m3 = start.stock_m3
     out = _Totals.empty(P)
     kept_at = set(rules.snapshots) if record else set()
+    queue_size = max(len(parts.age) // 4, _QUEUE_MIN)
+    hlb_stock = start.hlb_stock_m3  # at the start of the period (the end of the last)
     for p in range(P):
         if p in kept_at:
             sim.snapshots[p] = parts.snapshot()
@@ -759,11 +853,14 @@ def simulate(
         target, floor = rule.bounds(p, out.h[p - 1] if p else 0.0)
         out.target[p], out.floor[p] = target, floor
         if record or p == P - stable_periods:
-            out.hlb_start[p] = parts.stock(curves, reg, hlb_only=True)
+            out.hlb_start[p] = hlb_stock
         age_h = parts.age + off
         first = None if planned is None else planned > p + 1
         t = p * L + off
-        cut = _cut_period(parts, curves, reg, rules, spatial, t, age_h, target, first, record)
+        cut = _cut_period(
+            parts, curves, reg, rules, spatial, t, age_h, target, first, record, queue_size
+        )
+        queue_size = max(2 * (len(cut.full) + 1), _QUEUE_MIN)  # this period's cut, twice
         out.h[p], out.ha[p], out.age_area[p] = cut.volume_m3, cut.area_ha, cut.age_area
         out.thin_m3[p], out.thin_ha[p] = cut.thinning_m3, cut.thinning_ha
         if cut.events is not None:
@@ -784,11 +881,12 @@ def simulate(
             out.dist_ha[p], out.dist_m3[p] = _disturb(
                 parts, curves, reg, rules.disturbance, L, n_before, cut.full, rng, stands.n
             )
-        if record or p == P - 1:
-            out.gs_end[p] = parts.stock(curves, reg)
+        if record or p == P - 1 or p + 1 == P - stable_periods:
+            total, hlb_stock = parts.stocks(curves, reg)
+            if record or p == P - 1:
+                out.gs_end[p] = total
             if p == P - 1:
-                sim.ending_stock_m3 = out.gs_end[p]
-                sim.ending_hlb_stock_m3 = parts.stock(curves, reg, hlb_only=True)
+                sim.ending_stock_m3, sim.ending_hlb_stock_m3 = total, hlb_stock
     _judge_end(sim, ending_stock, stable_periods, out.hlb_start, P)
     if P in kept_at:
         sim.snapshots[P] = parts.snapshot()
