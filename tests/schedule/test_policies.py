@@ -80,3 +80,16 @@ def test_regulated_forest_is_held_by_every_policy(policy):
     )
     expected = n * 25.0 / R * float(CURVES.curves[0].volume_m3_ha(R, 20.0)) * L
     np.testing.assert_allclose(res.simulation.harvest_m3, expected, rtol=1e-6)
+
+
+@pytest.mark.parametrize("count", [1, 2, 3])
+def test_stepdown_on_a_horizon_shorter_than_its_stability_window(count):
+    # the default stability window is a quarter of the horizon, at least 2 periods, and never
+    # longer than the horizon: a one-period step-down compares the end with the start
+    periods = Periods(2030, 10, count, "midpoint")
+    cfg = FlowConfig(policy="stepdown", ending_stock=0.5)
+    res = schedule(forest(), CURVES, periods, cfg, cfg.policy, NO_RULES)
+    window = min(2, count)
+    sim = res.simulation
+    assert sim.feasible and res.level_m3_per_period > 0
+    assert sim.ending_hlb_stock_m3 >= sim.hlb_stock_start_m3[count - window] * (1 - 1e-6)

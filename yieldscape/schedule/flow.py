@@ -292,8 +292,11 @@ def _result(level: float, periods: Periods, sim: Simulation, why: str, steps: in
 
 
 def stable_periods_for(periods: Periods, configured: int | None) -> int:
-    """Periods over which the long-term level must hold the harvestable growing stock."""
-    return configured if configured is not None else max(2, periods.count // 4)
+    """Periods over which the long-term level must hold the harvestable growing stock: the
+    configured number, else a quarter of the horizon, at least 2 and at most the horizon."""
+    if configured is not None:
+        return configured
+    return min(max(2, periods.count // 4), periods.count)
 
 
 def find_step_down(
