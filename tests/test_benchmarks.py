@@ -18,8 +18,9 @@ def bench():
         import bench_pipeline
         import bench_regimes
         import bench_search
+        import bench_spatial
 
-        yield bench_pipeline, bench_regimes, bench_search
+        yield bench_pipeline, bench_regimes, bench_search, bench_spatial
     finally:
         sys.path.remove(str(BENCH))
 
@@ -33,7 +34,7 @@ def test_pipeline_benchmark_reports_every_stage(bench):
 
 
 def test_regimes_benchmark_variants_differ_as_described(bench, tmp_path):
-    pipeline, regimes, _ = bench
+    pipeline, regimes = bench[:2]
     gpkg = tmp_path / "region.gpkg"
     pipeline.build_region(300, gpkg)
     got = {v: regimes.one_run(regimes.scenario(gpkg, 300, v), None) for v in regimes.VARIANTS}
@@ -49,3 +50,12 @@ def test_search_benchmark_times_the_search_and_one_simulation(bench):
     row = bench[2].one_size(300, 1)
     assert row["search_s"] > row["simulation_s"] > 0 and row["trials"] >= 3
     assert row["ratio"] == pytest.approx(row["search_s"] / row["simulation_s"])
+
+
+def test_spatial_benchmark_times_three_variants_side_by_side(bench):
+    row = bench[3].one_size(300, 1)
+    assert all(row[f"{v}_s"] > 0 for v in ("aspatial", "unit", "openings"))
+    assert row["unit_ratio"] == pytest.approx(row["unit_s"] / row["aspatial_s"])
+    # the rules only take cuts away: a spatial level is never above the aspatial one
+    assert row["unit_level"] <= row["aspatial_level"] * (1 + 1e-6)
+    assert row["openings_level"] <= row["aspatial_level"] * (1 + 1e-6)
