@@ -66,7 +66,8 @@ class SpatialRules:
         self._parent = list(range(n_labels))
         self._label = labels.tolist()
         self._open = open_now.tolist()
-        self._cut: dict[int, float] = {}
+        self._cut_s: list[int] = []  # stands cut and the areas, in order
+        self._cut_a: list[float] = []
         self._pending: tuple[set[int], float] = (set(), 0.0)
 
     def _find(self, x: int) -> int:
@@ -105,12 +106,17 @@ class SpatialRules:
             self._parent[r] = new
         self._label[s] = new
         self._open[s] = True
-        self._cut[s] = self._cut.get(s, 0.0) + a
+        self._cut_s.append(s)
+        self._cut_a.append(a)
 
     def end(self) -> None:
-        for s, a in self._cut.items():
-            self.last_cut[s] = self._t
-            self.open_area[s] += a
+        # the area cut per stand, summed in the order cut (np.bincount adds in input order)
+        cut = np.asarray(self._cut_s, dtype=np.intp)
+        if len(cut):
+            total = np.bincount(cut, np.asarray(self._cut_a, dtype=float), self.adjacency.n)
+            cut = np.unique(cut)
+            self.last_cut[cut] = self._t
+            self.open_area[cut] += total[cut]
 
 
 def openings_table(
