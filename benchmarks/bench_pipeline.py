@@ -5,8 +5,10 @@ stands (1-30 ha, shared edges) with random species, site index and ages, writes 
 GeoPackage, then runs ``yieldscape.run`` on it (the sample's species and rules, aspatial, no
 cover targets, no LP bound, no sensitivity cases) and reports its stage timings: reading and
 checking, the projection and even-flow scheduling, building the output tables, the indicators,
-and writing every output (GeoPackage with its map layers, CSV, figures, report). Prints one
-line per size and, with --markdown, a table for docs/performance.md.
+and writing every output (GeoPackage with its map layers, CSV, figures, report). Beside it, the
+floor: pyogrio reading the same stand layer (``use_arrow=True``) and writing it to a new
+GeoPackage, each time in a fresh process (median of three), and the ratio of the run's total
+to that floor. Prints one line per size and, with --markdown, a table for docs/performance.md.
 
     python benchmarks/bench_pipeline.py                 # 10k, 100k, 1M
     python benchmarks/bench_pipeline.py --sizes 10000 100000
@@ -17,9 +19,11 @@ from __future__ import annotations
 import argparse
 import json
 import resource
+import statistics
 import subprocess
 import sys
 import tempfile
+import time
 from pathlib import Path
 
 import numpy as np
@@ -27,6 +31,7 @@ import numpy as np
 HERE = Path(__file__).resolve().parent
 SCENARIO = HERE.parent / "sample_region" / "scenario.toml"
 SEED = 7
+FLOOR_ROUNDS = 3
 
 
 def build_region(n: int, path: Path) -> None:
@@ -75,6 +80,35 @@ def synthetic_scenario(gpkg: Path, n: int):
     return parse_scenario(raw, base_dir=SCENARIO.parent, where=str(SCENARIO))
 
 
+def floor_once(gpkg: Path) -> float:
+    """Seconds for pyogrio to read the stand layer of ``gpkg`` and write it to a new
+    GeoPackage beside it (arrow on both sides, as the tool reads and writes), imports excluded."""
+    import pyogrio
+
+    out = gpkg.with_name("floor.gpkg")
+    out.unlink(missing_ok=True)
+    t0 = time.perf_counter()
+    frame = pyogrio.read_dataframe(gpkg, layer="stands", use_arrow=True)
+    pyogrio.write_dataframe(frame, out, layer="stands", driver="GPKG", use_arrow=True)
+    seconds = time.perf_counter() - t0
+    out.unlink()
+    return seconds
+
+
+def floor(gpkg: Path, rounds: int = FLOOR_ROUNDS) -> float:
+    """Median over ``rounds`` fresh processes of :func:`floor_once`."""
+    times = []
+    for _ in range(rounds):
+        proc = subprocess.run(
+            [sys.executable, __file__, "--floor", str(gpkg)],
+            capture_output=True,
+            text=True,
+            check=True,
+        )
+        times.append(float(proc.stdout.strip().splitlines()[-1]))
+    return statistics.median(times)
+
+
 def one_size(n: int) -> dict:
     import yieldscape
 
@@ -82,6 +116,7 @@ def one_size(n: int) -> dict:
         tmp = Path(tmp)
         gpkg = tmp / "region.gpkg"
         build_region(n, gpkg)
+        floor_s = floor(gpkg)
         scn = synthetic_scenario(gpkg, n)
         result = yieldscape.run(scn, tmp / "out")
         # the stage timings with the writing, as run.json records them
@@ -94,6 +129,8 @@ def one_size(n: int) -> dict:
             "write_s": st["write outputs"],
         }
         t["total_s"] = sum(t.values())
+        t["floor_s"] = floor_s
+        t["ratio"] = t["total_s"] / floor_s
         t["search_steps"] = result.flow.steps
         t["harvest_rows"] = len(result.harvests)
         t["peak_rss_gb"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024**2
@@ -106,8 +143,12 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--sizes", type=int, nargs="+", default=[10_000, 100_000, 1_000_000])
     ap.add_argument("--one", type=int, help=argparse.SUPPRESS)  # child process
+    ap.add_argument("--floor", type=Path, help=argparse.SUPPRESS)  # child process
     ap.add_argument("--markdown", action="store_true")
     args = ap.parse_args()
+    if args.floor:
+        print(floor_once(args.floor))
+        return
     if args.one:
         print(json.dumps(one_size(args.one)))
         return
@@ -124,20 +165,22 @@ def main() -> None:
             f"search steps), tables {row['tables_s']:.2f} s, indicators "
             f"{row['indicators_s']:.2f} s, write {row['write_s']:.2f} s "
             f"({row['harvest_rows']:,} harvest rows), total {row['total_s']:.1f} s, "
-            f"peak RSS {row['peak_rss_gb']:.2f} GB",
+            f"peak RSS {row['peak_rss_gb']:.2f} GB; pyogrio read + write {row['floor_s']:.2f} s, "
+            f"ratio {row['ratio']:.1f}x",
             flush=True,
         )
     if args.markdown:
         print(
             "\n| stands | read + check s | project + schedule s | tables s | indicators s | "
-            "write s | total s | peak RSS GB |"
+            "write s | total s | peak RSS GB | pyogrio read + write s | total / floor |"
         )
-        print("|---:|---:|---:|---:|---:|---:|---:|---:|")
+        print("|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|")
         for r in rows:
             print(
                 f"| {r['stands']:,} | {r['read_check_s']:.2f} | {r['project_schedule_s']:.2f} |"
                 f" {r['tables_s']:.2f} | {r['indicators_s']:.2f} | {r['write_s']:.2f} |"
-                f" {r['total_s']:.1f} | {r['peak_rss_gb']:.2f} |"
+                f" {r['total_s']:.1f} | {r['peak_rss_gb']:.2f} | {r['floor_s']:.2f} |"
+                f" {r['ratio']:.1f}x |"
             )
 
 

@@ -31,6 +31,9 @@ def test_pipeline_benchmark_reports_every_stage(bench):
     assert all(row[k] > 0 for k in stages)
     assert row["total_s"] == pytest.approx(sum(row[k] for k in stages))
     assert row["stands"] == 300 and row["harvest_rows"] > 0
+    # the floor beside it: pyogrio's read plus write of the same layer, and the ratio to it
+    assert row["floor_s"] > 0
+    assert row["ratio"] == pytest.approx(row["total_s"] / row["floor_s"])
 
 
 def test_regimes_benchmark_variants_differ_as_described(bench, tmp_path):

@@ -20,7 +20,7 @@ from yieldscape.geometry import metres_per_unit, metric_geometries
 from yieldscape.growth.rules import SiteSummary
 from yieldscape.io.outputs import replace_file, sha256_file, write_json
 from yieldscape.io.rasters import write_geotiff
-from yieldscape.io.vector import add_feature_views, write_gpkg_layer
+from yieldscape.io.vector import add_feature_views, unsynced_gpkg, write_gpkg_layer
 from yieldscape.reporting.compare import comparison_figure, comparison_table
 from yieldscape.reporting.curves import rotation_summary
 from yieldscape.reporting.figures import (
@@ -41,6 +41,7 @@ log = logging.getLogger("yieldscape")
 
 
 GPKG_NAME = "projection.gpkg"
+HARVEST_EVENTS = "harvest_events"  # the table under the harvests view
 WOOD_FLOW_CSV = "wood_flow.csv"
 PRODUCTS_CSV = "wood_flow_by_product.csv"
 NETDOWN_CSV = "netdown.csv"
@@ -102,10 +103,11 @@ def write_outputs(
     cases' outputs into ``directory/<name>/`` with a comparison of them; ``case`` (name and
     keys set) marks the run as one of those cases. Returns what run.json holds."""
     t0 = time.perf_counter()
-    write_tables(result, directory)
     rep = scenario.report
-    if rep.map_layers:
-        write_map_layers(result, scenario, directory / GPKG_NAME)
+    with unsynced_gpkg(directory / GPKG_NAME):
+        write_tables(result, directory)
+        if rep.map_layers:
+            write_map_layers(result, scenario, directory / GPKG_NAME)
     if rep.raster_cell_m:
         write_rasters(result, scenario, directory / RASTERS_DIR)
     record = run_record(result, scenario)
@@ -146,7 +148,7 @@ def write_tables(result: RunResult, directory: Path) -> None:
     """The GeoPackage layers and tables, and the same tables as CSV."""
     gpkg = directory / GPKG_NAME
     write_gpkg_layer(gpkg, result.stands, "stands")
-    write_gpkg_layer(gpkg, result.harvests, "harvests")
+    write_harvests(result, gpkg)
     if result.write_harvestable_layer:
         write_gpkg_layer(gpkg, harvestable_layer(result.inventory), "harvestable")
     assert result.verdict is not None
@@ -171,6 +173,31 @@ def write_tables(result: RunResult, directory: Path) -> None:
         write_gpkg_layer(gpkg, table, layer, spatial=False)
         if csv is not None:
             table.to_csv(directory / csv, index=False)
+
+
+def write_harvests(result: RunResult, gpkg: Path) -> None:
+    """The ``harvests`` layer as a table of the events (``harvest_events``, attributes only)
+    and a view joining each event to its stand's polygon, registered as a feature table: the
+    same columns and rows as a layer of its own, without a copy of a stand's polygon for each
+    of its cuts. ``stand_id`` is unique and never null (inventory checks), so the join keeps
+    every event once; CROSS JOIN makes SQLite walk the events in their order, looking each
+    stand up in the index on ``stands(stand_id)``."""
+    frame = result.harvests
+    geom = frame.geometry.name
+    write_gpkg_layer(gpkg, frame.drop(columns=geom), HARVEST_EVENTS, spatial=False)
+    cols = ", ".join(
+        ['e."fid" AS "fid"', 's."{geom}" AS "{geom}"']
+        + [f'e."{c}" AS "{c}"' for c in frame.columns if c != geom]
+    )
+    select = (
+        f'SELECT {cols} FROM "{HARVEST_EVENTS}" AS e CROSS JOIN "stands" AS s '
+        'ON s."stand_id" = e."stand_id"'
+    )
+    add_feature_views(
+        gpkg,
+        [("harvests", select, "stands", "Stands cut, one row per stand and period with a cut")],
+        indexes=[("stands", ("stand_id",))],
+    )
 
 
 def write_map_layers(result: RunResult, scenario: Scenario, gpkg: Path) -> None:
@@ -210,7 +237,7 @@ def write_map_layers(result: RunResult, scenario: Scenario, gpkg: Path) -> None:
     add_feature_views(
         gpkg,
         views,
-        indexes=[("harvests", ("period",)), ("stand_ages", ("year", "stand_id"))],
+        indexes=[(HARVEST_EVENTS, ("period",)), ("stand_ages", ("year", "stand_id"))],
     )
 
 

@@ -13,8 +13,10 @@ import sys
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pyogrio
 import pytest
+import shapely
 from pyproj import CRS
 
 from yieldscape.cli.main import main
@@ -77,9 +79,11 @@ def test_geopackage_core_requirements(run_dir):
         # the feature tables and the map layers (views over them: OGC 12-128r15 Req 14,
         # a gpkg_contents row names "a SQLite table or view")
         views = {n for (n,) in con.execute("SELECT name FROM sqlite_master WHERE type='view'")}
-        assert views == {f"harvests_period_{p:02d}" for p in range(1, 11)} | {
+        assert views == {"harvests"} | {f"harvests_period_{p:02d}" for p in range(1, 11)} | {
             f"stands_age_{y}" for y in (2030, 2050, 2080, 2110, 2130)
         }
+        # harvests is a view of the events table joined to the stands' polygons
+        assert contents["harvest_events"][0] == "attributes"
         assert set(geom) == {"stands", "harvests"} | views
         for layer, (column, gtype, srs_id) in geom.items():
             assert gtype in {"POLYGON", "MULTIPOLYGON", "GEOMETRY"}
@@ -96,7 +100,7 @@ def test_layers_read_back_with_pyogrio(run_dir):
     layers = dict(pyogrio.list_layers(gpkg))
     tables = {"wood_flow", "wood_flow_by_product", "netdown", "indicators", "verdict"}
     tables |= {"age_classes", "harvest_by_zone_species", "stand_ages", "regeneration"}
-    tables |= {"area_by_analysis_unit"}
+    tables |= {"area_by_analysis_unit", "harvest_events"}
     assert {name for name, kind in layers.items() if kind is None} == tables
     assert {"stands", "harvests", "harvests_period_01", "stands_age_2130"} <= set(layers)
     stands = pyogrio.read_dataframe(gpkg, layer="stands")
@@ -125,6 +129,46 @@ def test_layers_read_back_with_pyogrio(run_dir):
     got = stands.set_index("stand_id")["first_harvest_period"]
     np.testing.assert_array_equal(got.loc[first.index].to_numpy(), first.to_numpy())
     assert got.drop(first.index).isna().all()
+
+
+# the columns of the harvests layer (docs/outputs.md, "Layer harvests"), in order: a contract
+HARVEST_COLUMNS = [
+    "stand_id",
+    "species",
+    "analysis_unit",
+    "zone",
+    "treatment",
+    "period",
+    "start_year",
+    "harvest_year",
+    "age_years",
+    "area_ha",
+    "volume_m3",
+    "volume_m3_ha",
+    "partial",
+]
+
+
+def test_harvests_is_a_view_gdal_lists_with_the_stands_geometry(run_dir):
+    gpkg = run_dir / "projection.gpkg"
+    # GDAL lists it as a polygon layer, with the documented columns in order
+    info = pyogrio.read_info(gpkg, layer="harvests")
+    assert info["geometry_type"] in {"Polygon", "MultiPolygon", "Unknown"}
+    assert list(info["fields"]) == HARVEST_COLUMNS
+    assert pyogrio.read_info(gpkg, layer="harvest_events")["geometry_type"] is None
+    harvests = pyogrio.read_dataframe(gpkg, layer="harvests", fid_as_index=True)
+    events = pyogrio.read_dataframe(gpkg, layer="harvest_events", fid_as_index=True)
+    # one row per event, the same attributes, and each row's polygon is its stand's
+    assert len(harvests) == len(events) > 0
+    assert harvests.index.equals(events.index)
+    pd.testing.assert_frame_equal(pd.DataFrame(harvests.drop(columns="geometry")), events)
+    stands = pyogrio.read_dataframe(gpkg, layer="stands").set_index("stand_id")
+    want = stands.geometry.loc[harvests["stand_id"]].to_numpy()
+    assert shapely.equals(harvests.geometry.to_numpy(), want).all()
+    # the geometry is not copied: the file holds one polygon per stand
+    with sqlite3.connect(gpkg) as con:
+        kinds = dict(con.execute("SELECT name, type FROM sqlite_master").fetchall())
+    assert kinds["harvests"] == "view" and kinds["harvest_events"] == "table"
 
 
 def _run(small_case, name: str, *sets: str) -> Path:

@@ -3,8 +3,10 @@ register SQL views as feature layers (sqlite3, the GeoPackage being an SQLite da
 
 from __future__ import annotations
 
+import os
 import sqlite3
-from contextlib import closing
+from collections.abc import Iterator
+from contextlib import closing, contextmanager
 from pathlib import Path
 
 import geopandas as gpd
@@ -78,6 +80,31 @@ def write_gpkg_layer(path: Path, frame: pd.DataFrame, layer: str, spatial: bool 
     )
 
 
+@contextmanager
+def unsynced_gpkg(path: Path) -> Iterator[None]:
+    """Write a GeoPackage without SQLite's sync after each transaction
+    (``OGR_SQLITE_SYNCHRONOUS=OFF`` for GDAL, ``PRAGMA synchronous = OFF`` in
+    :func:`add_feature_views`), then sync the file once when the block ends without error.
+
+    Safe here because a run writes into a staged directory that is moved into place only when
+    every output is whole (:func:`yieldscape.io.outputs.staged_output`): SQLite without sync
+    still survives the process failing, and only a crash of the machine itself could leave a
+    broken file, in a staged directory nobody reads; the one sync at the end makes the file
+    durable before it is moved into place."""
+    old = pyogrio.get_gdal_config_option("OGR_SQLITE_SYNCHRONOUS")
+    pyogrio.set_gdal_config_options({"OGR_SQLITE_SYNCHRONOUS": "OFF"})
+    try:
+        yield
+    finally:
+        pyogrio.set_gdal_config_options({"OGR_SQLITE_SYNCHRONOUS": old})
+    if path.exists():
+        fd = os.open(path, os.O_RDONLY)
+        try:
+            os.fsync(fd)
+        finally:
+            os.close(fd)
+
+
 def add_feature_views(
     path: Path,
     views: list[tuple[str, str, str, str]],
@@ -93,6 +120,7 @@ def add_feature_views(
     (table, columns) that the views filter by.
     """
     with closing(sqlite3.connect(path)) as con, con:
+        con.execute("PRAGMA synchronous = OFF")  # synced once by the writer (unsynced_gpkg)
         for table, cols in indexes:
             name = f"idx_{table}_{'_'.join(cols)}"
             listed = ", ".join(f'"{c}"' for c in cols)
