@@ -63,11 +63,11 @@ from yieldscape.reporting.tables import regeneration_table
 from yieldscape.results import CheckResult, CurvesResult, RunResult
 from yieldscape.runlog import Timer, captured_log, named_lines
 from yieldscape.schedule import HarvestRules, SpatialRules, lp_plan, schedule, stable_periods_for
+from yieldscape.schedule import spatial as arm
 from yieldscape.schedule.cover import CoverRules, cover_report, cover_rules
 from yieldscape.schedule.eligibility import never_cut_warnings, too_large_for_openings
 from yieldscape.schedule.flow import FlowResult
 from yieldscape.schedule.montecarlo import monte_carlo_table
-from yieldscape.schedule.spatial import check_openings, openings_table
 
 log = logging.getLogger("yieldscape")
 
@@ -271,10 +271,11 @@ def _schedule(scenario: Scenario, inventory: CheckResult, model: _Model, timer: 
     what the spatial rules cost and the openings they leave."""
     rules = _harvest_rules(scenario, inventory, model.periods)
     s, c, p = model.arrays, model.curves, model.periods
+    known = arm.without_never_cut(s, rules.spatial)  # for the LP and the comparison
     lp = strata = None
     if lp_plan.wanted(scenario):
         with timer.stage("harvest LP"):
-            lp, strata = lp_plan.harvest_lp(scenario, s, c, p, rules.cover)
+            lp, strata = lp_plan.harvest_lp(scenario, known, c, p, rules.cover)
     f = scenario.flow
     if f.method == "optimize":
         assert lp is not None and strata is not None
@@ -292,14 +293,15 @@ def _schedule(scenario: Scenario, inventory: CheckResult, model: _Model, timer: 
     if rules.spatial is not None:
         if f.method == "rules":
             plain = replace(rules, spatial=None, snapshots=())
-            aspatial = schedule(s, c, p, f, f.policy, plain).level_m3_per_period
+            aspatial = schedule(known, c, p, f, f.policy, plain).level_m3_per_period
             flow.details["aspatial_level_m3_per_period"] = aspatial
             flow.details["spatial_cost_m3_per_period"] = aspatial - flow.level_m3_per_period
+            flow.details["never_cut_harvestable_ha"] = arm.never_cut_area_ha(s, rules.spatial)
         sim = flow.simulation
         times = p.harvest_years - p.start_year
         clear = sim.event_treatment == 0  # thinnings open nothing
         ev_t = times[sim.event_period[clear] - 1] if clear.any() else np.zeros(0)
-        openings = openings_table(
+        openings = arm.openings_table(
             sim.event_stand[clear],
             ev_t,
             sim.event_area_ha[clear],
@@ -307,7 +309,7 @@ def _schedule(scenario: Scenario, inventory: CheckResult, model: _Model, timer: 
             rules.spatial.adjacency,
             rules.spatial.greenup_years,
         )
-        check_openings(openings, scenario.harvest.max_opening_ha)
+        arm.check_openings(openings, scenario.harvest.max_opening_ha)
     return _Schedule(flow, rules, lp, openings)
 
 

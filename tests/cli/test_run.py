@@ -114,8 +114,18 @@ def test_sample_keeps_its_spatial_rules_and_cover_targets(sample_run):
     assert lp["level_m3_per_period"] >= wf["harvest_m3"].min() * (1 - 1e-9)
     assert (wf["lp_bound_m3"] >= lp["level_m3_per_period"] * (1 - 1e-6)).all()
     assert lp["gap_explained"]["rest_m3_per_period"] <= 0.02 * lp["level_m3_per_period"]
-    # the better of the two orders is kept
+    # the stands larger than the maximum opening, which no schedule cuts, from the written
+    # stands layer: in no harvest, and their area in run.json and in the report's sentences
     f = rec["flow"]
+    stands = pyogrio.read_dataframe(out / "projection.gpkg", layer="stands", read_geometry=False)
+    cut = pyogrio.read_dataframe(out / "projection.gpkg", layer="harvest_events")
+    big = stands["harvestable_ha"] > 60 * (1 + 1e-9)
+    assert big.sum() > 0
+    assert f["never_cut_harvestable_ha"] == pytest.approx(stands["harvestable_ha"][big].sum())
+    clear = cut[cut["treatment"] == "clearcut"]
+    assert not clear["stand_id"].isin(stands["stand_id"][big]).any()
+    assert "larger than the maximum opening" in (out / "report.html").read_text()
+    # the better of the two orders is kept
     assert level == max(f["priority_order_level_m3_per_period"], f["lp_guided_level_m3_per_period"])
     # the sample's LP-guided order wins, and the report's scenario table says so
     assert f["lp_guided_level_m3_per_period"] > f["priority_order_level_m3_per_period"]

@@ -7,6 +7,7 @@ schedule, its level M is at least the smallest harvest of any schedule the rules
 relaxation (Model II, Johnson & Scheurman 1977; max-min even flow as in Bettinger et al. 2009,
 *Forest Management and Planning*, Ch. 11)."""
 
+from dataclasses import replace
 from types import SimpleNamespace
 
 import numpy as np
@@ -26,10 +27,14 @@ from test_lp import (
     stand_strata,
 )
 
+from yieldscape.adjacency import build_adjacency
 from yieldscape.schedule import HarvestRules, find_even_flow
 from yieldscape.schedule.flow import find_nondeclining
 from yieldscape.schedule.lp import solve_lp
 from yieldscape.schedule.lp_plan import better, guided, lp_schedule
+from yieldscape.schedule.spatial import SpatialRules, never_cut_area_ha, without_never_cut
+
+from helpers import squares
 
 
 @settings(max_examples=12, deadline=None)
@@ -127,3 +132,34 @@ def test_optimised_schedule_is_lowered_until_it_holds_the_ending_stock():
 
         more = FixedTargets(tuple((held + 2e-6) * lp.harvest_m3))
         assert not simulate(stands, R_CURVES, PERIODS, more, rules, ending_stock=1.0).feasible
+
+
+def test_stands_larger_than_the_maximum_opening_stay_uncut_in_the_bound():
+    # Area restriction model with whole-stand cuts (Murray 1999, For. Sci. 45:45-52): a stand
+    # whose harvestable area alone is above max_opening_ha is never cut, so the bound leaves it
+    # uncut (an infinite minimum harvest age). Its LP then equals the LP with those stands
+    # wholly outside the harvestable land base (counted by reserved_stock, another code path),
+    # lies below the LP that may cut them, and still bounds the spatial schedule.
+    stands = forest(40, 11)
+    rules = SpatialRules(build_adjacency(squares(40, per_row=8), "edge"), 20.0, 20.0)
+    never = stands.area_ha > 20.0
+    assert 0 < never.sum() < 40
+    known = without_never_cut(stands, rules)
+    assert np.isinf(known.min_harvest_age[never]).all()
+    np.testing.assert_array_equal(known.min_harvest_age[~never], stands.min_harvest_age[~never])
+    assert never_cut_area_ha(stands, rules) == pytest.approx(stands.area_ha[never].sum())
+
+    def bound(st):
+        return solve_lp(st, CURVES, PERIODS, stand_strata(st), "max-level", "even", 0.0, 0.9)
+
+    reserved = replace(stands, harvestable_ha=np.where(never, 0.0, stands.area_ha))
+    assert bound(known).level_m3 == pytest.approx(bound(reserved).level_m3, rel=1e-6)
+    assert bound(known).level_m3 < bound(stands).level_m3
+    flow = find_even_flow(stands, CURVES, PERIODS, HarvestRules(spatial=rules), 0.0, 0.9)
+    sim = flow.simulation
+    assert not np.isin(sim.event_stand, np.flatnonzero(never)).any()
+    assert len(sim.event_stand) > 0
+    assert bound(known).level_m3 >= float(sim.harvest_m3.min()) * (1 - 1e-6)
+    # under the unit restriction nothing is too large
+    urm = SpatialRules(rules.adjacency, 20.0, 0.0)
+    assert without_never_cut(stands, urm) is stands

@@ -32,6 +32,12 @@ def lp_sentences(lp: dict | None, details: dict[str, float], period_years: int) 
     ]
     spatial = explained["spatial_rules_m3_per_period"] / L
     rest = explained["rest_m3_per_period"] / L
+    never = details.get("never_cut_harvestable_ha", 0.0)
+    if never > 0:
+        out.append(
+            f"the bound and the search without spatial rules leave the stands larger than "
+            f"the maximum opening ({never:,.0f} ha harvestable) uncut, as the rules do"
+        )
     if spatial:
         out.append(
             f"of that gap, the spatial rules cost {spatial:,.0f} m3/year (measured: the same "

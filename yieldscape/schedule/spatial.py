@@ -15,13 +15,14 @@ connected-components call and grow through a union-find as stands are cut.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
 from yieldscape.adjacency import Adjacency
+from yieldscape.projection import StandArrays
 
 _REL = 1e-9
 _MIN_PART_HA = 1e-9
@@ -47,6 +48,13 @@ class SpatialRules:
             np.full(n, -np.inf),
             np.zeros(n),
         )
+
+    def never_cut(self, harvestable_ha: NDArray) -> NDArray[np.bool_]:
+        """Stands the opening rule never lets be cut: their harvestable area alone is larger
+        than the maximum opening (none under the unit restriction)."""
+        if self.max_opening_ha <= 0:
+            return np.zeros(len(harvestable_ha), dtype=bool)
+        return harvestable_ha > self.max_opening_ha * (1 + _REL)
 
     def is_open(self, t: float) -> NDArray[np.bool_]:
         return (t - self.last_cut) < self.greenup_years - 1e-9
@@ -117,6 +125,26 @@ class SpatialRules:
             cut = np.unique(cut)
             self.last_cut[cut] = self._t
             self.open_area[cut] += total[cut]
+
+
+def never_cut_area_ha(arrays: StandArrays, spatial: SpatialRules) -> float:
+    """The harvestable area of the stands the opening rule never lets be cut [ha]."""
+    area = arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
+    return float(area[spatial.never_cut(area)].sum())
+
+
+def without_never_cut(arrays: StandArrays, spatial: SpatialRules | None) -> StandArrays:
+    """The stands with those the opening rule never lets be cut (:meth:`SpatialRules.never_cut`)
+    given an infinite minimum harvest age: still grown, thinned and counted in every stock, never
+    clearcut. The LP bound and the aspatial comparison take these, so that neither counts on a
+    cut no schedule under the rules can make."""
+    if spatial is None:
+        return arrays
+    area = arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
+    never = spatial.never_cut(area)
+    if not never.any():
+        return arrays
+    return replace(arrays, min_harvest_age=np.where(never, np.inf, arrays.min_harvest_age))
 
 
 def openings_table(
