@@ -181,7 +181,8 @@ def cut_order(
 ) -> NDArray[np.intp]:
     """Positions sorted by the rule's key, descending, ties broken by ascending stand id.
 
-    ``first`` (0 or 1 per position) puts the 0s ahead of the 1s, the rule ordering each group.
+    ``first`` (an integer rank per position, such as a plan's) puts lower ranks ahead of
+    higher ones, the rule ordering each rank.
     """
     key = PRIORITIES[rule].key(age, min_age, vol)
     if first is None:

@@ -55,7 +55,8 @@ def lp_sentences(lp: dict | None, details: dict[str, float], period_years: int) 
         if guided > ordered:
             out.append(
                 f"the schedule follows the LP-guided order (the stands the LP cuts by each "
-                f"period first, its regeneration choices): {guided:,.0f} m3/year, "
+                f"period first, then those it cuts soonest after; its regeneration choices): "
+                f"{guided:,.0f} m3/year, "
                 f"{guided - ordered:,.0f} more than the priority order's {ordered:,.0f}"
             )
         else:

@@ -116,7 +116,8 @@ def guided(
     lp: LPResult, strata: Strata, arrays: StandArrays, periods: Periods, rules: HarvestRules
 ) -> HarvestRules:
     """The harvest rules with the LP's plan: in each period the stands the LP cuts by then
-    come first, the priority rule ordering each group, and cut area regrows as the LP chose
+    come first, then those it cuts in the next period, the one after, and so on (the priority
+    rule ordering each group), and cut area regrows as the LP chose
     (an LP-guided order in the spirit of Hoganson & Rose 1984, For. Sci. 30:220-238, with
     the LP's cuts in place of its dual prices)."""
     return replace(rules, plan=plan_of(lp, strata, arrays, periods))

@@ -40,8 +40,9 @@ _QUEUE_MIN = 1024  # the fewest parts the aspatial pick ranks at first (see _que
 @dataclass(frozen=True)
 class Plan:
     """An LP's plan mapped onto stands (:mod:`yieldscape.schedule.lp_plan`): per stand the
-    period of its first cut (periods + 1: none), which puts the stands planned for a period
-    or earlier ahead of the others in the queue (the priority rule ordering each group), and
+    period of its first cut (periods + 1: none), which ranks the queue of each period: the
+    stands planned for it or earlier first, then those planned for the next period, the one
+    after, and so on, the stands it never cuts last (the priority rule ordering each group), and
     per period the shares in which each code's cut area regrows as each code (periods x codes
     x codes: the LP's regeneration choices; None: the regimes' own transitions)."""
 
@@ -492,7 +493,7 @@ def _queue(
 ) -> tuple[NDArray, NDArray, bool]:
     """The first of the period's queue: the eligible parts ``elig`` whose priority key is at
     least the ``size``-th highest (ties all in, so they are exactly the queue's first ones;
-    with ``first``, a plan's order, the parts it puts first come before the others), with some
+    with ``first``, a plan's rank per part, lower ranks come before higher ones), with some
     volume standing, in priority order; their volumes [m3/ha]; whether that is the whole
     queue. Ranking a few times what a period cuts instead of every eligible part saves
     most of the sort, and, where the key does not read the volume, most of the volume."""
@@ -516,24 +517,25 @@ def _queue(
         parts.min_age[elig],
         vol,
         parts.rank[elig],
-        None if first is None else first.astype(np.int8),
+        first,
     )
     return elig[order], vol[order], whole
 
 
-def _first_by_key(key: NDArray, later: NDArray | None, size: int) -> NDArray[np.bool_]:
+def _first_by_key(key: NDArray, rank: NDArray | None, size: int) -> NDArray[np.bool_]:
     """Which elements are among the first ``size`` (fewer than all) by ``key``, descending,
-    ties at the last one included; with ``later`` (a plan's order), the elements not later
-    come first."""
-    if later is None:
+    ties at the last one included; with ``rank`` (a plan's rank, integers from 0), lower
+    ranks come first and the key orders each rank."""
+    if rank is None:
         at = len(key) - size
         return key >= np.partition(key, at)[at]
-    now = ~later.astype(bool)
-    group = now if int(now.sum()) >= size else ~now
-    k = size if group is now else size - int(now.sum())
-    n = int(group.sum())
+    counts = np.bincount(rank)
+    g = int(np.searchsorted(np.cumsum(counts), size))  # the rank in which the size-th falls
+    k = size - int(counts[:g].sum())  # how many of rank g
+    group = rank == g
+    n = int(counts[g])
     chosen = group if k >= n else group & (key >= np.partition(key[group], n - k)[n - k])
-    return chosen if group is now else now | chosen
+    return (rank < g) | chosen
 
 
 def _pick(
@@ -855,7 +857,8 @@ def simulate(
         if record or p == P - stable_periods:
             out.hlb_start[p] = hlb_stock
         age_h = parts.age + off
-        first = None if planned is None else planned > p + 1
+        # a plan's rank of each stand this period: 0 planned by now, k planned k periods later
+        first = None if planned is None else np.maximum(planned - (p + 1), 0)
         t = p * L + off
         cut = _cut_period(
             parts, curves, reg, rules, spatial, t, age_h, target, first, record, queue_size
