@@ -115,6 +115,8 @@ def scenario_dict(inventory: Path, **sections: dict[str, Any]) -> dict[str, Any]
         },
         "harvest": {"priority": "oldest"},
         "flow": {"policy": "even", "band": 0.0, "ending_stock": 0.0},
+        # figures take most of a small run's time: drawn only where a test is about them
+        "report": {"figures": False},
     }
     for name, table in sections.items():
         if isinstance(table, dict) and isinstance(raw.get(name), dict):

@@ -120,10 +120,11 @@ def write_outputs(
             runs.append((name, sub_record, sub.wood_flow))
         comparison = comparison_table(runs)
         comparison.to_csv(directory / COMPARISON_CSV, index=False)
-        (directory / FIGURES_DIR).mkdir(exist_ok=True)
-        comparison_figure(directory / FIGURES_DIR / COMPARISON_PNG, runs)
-    figures = write_figures(result, scenario, directory / FIGURES_DIR)
-    if comparison is not None:
+        if rep.figures:
+            (directory / FIGURES_DIR).mkdir(exist_ok=True)
+            comparison_figure(directory / FIGURES_DIR / COMPARISON_PNG, runs)
+    figures = write_figures(result, scenario, directory / FIGURES_DIR) if rep.figures else {}
+    if comparison is not None and rep.figures:
         figures["comparison"] = Figure(
             directory / FIGURES_DIR / COMPARISON_PNG,
             "Sensitivity cases",

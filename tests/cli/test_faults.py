@@ -21,7 +21,28 @@ import pytest
 from yieldscape.cli.main import main
 from yieldscape.publish import MANAGED
 
-from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
+from helpers import (
+    scenario_dict,
+    small_case_files,
+    squares,
+    stand_attrs,
+    write_layer,
+    write_scenario,
+)
+
+DRAWN = {"figures": True}  # faults while writing the figures are among the cases
+
+
+@pytest.fixture
+def small_case(tmp_path):
+    """The shared small case (conftest), drawing its figures."""
+    layer, _ = small_case_files(tmp_path)
+    return (
+        tmp_path,
+        layer,
+        write_scenario(tmp_path / "scenario.toml", scenario_dict(layer, report=DRAWN)),
+    )
+
 
 STAGED = (".partial", ".old", ".probe")
 
@@ -61,7 +82,7 @@ def _earlier_template(tmp_path_factory):
     """The small forest's files and a run of it, with a case, into results/: made once."""
     root = tmp_path_factory.mktemp("earlier")
     layer = write_layer(root / "stands.gpkg", squares(20), stand_attrs(20, ages=np.arange(20) * 5))
-    write_scenario(root / "scenario.toml", scenario_dict(layer))
+    write_scenario(root / "scenario.toml", scenario_dict(layer, report=DRAWN))
     assert main(["run", str(with_a_case(root, layer)), "--out", str(root / "results"), "-q"]) == 0
     return root
 
@@ -352,7 +373,7 @@ def test_a_signal_while_moving_into_place_waits_until_the_output_is_whole(earlie
 
 
 def with_a_case(tmp_path, layer):
-    raw = scenario_dict(layer)
+    raw = scenario_dict(layer, report=DRAWN)
     raw["sensitivity"] = [{"name": "late", "set": {"species.pine.min_harvest_age": 80}}]
     return write_scenario(tmp_path / "cases.toml", raw)
 
@@ -499,7 +520,7 @@ def test_a_nul_byte_in_the_paths_of_the_command(small_case, capsys):
 def test_a_nul_byte_in_a_path_of_the_scenario(small_case, capsys, edit, set_, pattern):
     tmp_path, layer, scenario = small_case
     if edit is not None:
-        raw = scenario_dict(layer)
+        raw = scenario_dict(layer, report=DRAWN)
         section, key, value = edit
         raw[section][key] = value
         write_scenario(scenario, raw)
@@ -577,7 +598,7 @@ def test_names_that_are_not_utf8(small_case, capsys):
     folder = non_utf8_name(tmp_path, "r\xe9gion")
     folder.mkdir()
     shutil.copy(layer, folder / "stands.gpkg")
-    write_scenario(folder / "scenario.toml", scenario_dict(Path("stands.gpkg")))
+    write_scenario(folder / "scenario.toml", scenario_dict(Path("stands.gpkg"), report=DRAWN))
     fails(
         capsys,
         ["check", str(folder / "scenario.toml")],
@@ -734,7 +755,7 @@ def test_bare_land_with_a_case_runs_and_compares(tmp_path, capsys):
     # Every stand aged 0 on a curve through the origin: no growing stock at the start, so the
     # ending-to-initial ratio has no value (as indicators.csv has it), instead of a failure.
     layer = write_layer(tmp_path / "bare.gpkg", squares(6), stand_attrs(6, ages=0))
-    raw = scenario_dict(layer)
+    raw = scenario_dict(layer, report=DRAWN)
     raw["sensitivity"] = [{"name": "late", "set": {"species.pine.min_harvest_age": 80}}]
     scenario = write_scenario(tmp_path / "bare.toml", raw)
     out = tmp_path / "out"
@@ -765,7 +786,7 @@ TABLE = "age_years,volume_m3_ha\n0,0\n20,40\n40,150\n60,260\n80,320\n100,350\n"
 
 
 def table_scenario(tmp_path, layer, table_csv):
-    raw = scenario_dict(layer)
+    raw = scenario_dict(layer, report=DRAWN)
     raw["species"]["pine"] = {
         "curve": "table",
         "table_csv": str(table_csv),

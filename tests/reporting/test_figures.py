@@ -17,6 +17,8 @@ from yieldscape.reporting import figures
 
 from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
 
+DRAW = ("--set", "report.figures=true")  # tests' scenarios draw none by default
+
 
 @pytest.fixture
 def drawn(monkeypatch):
@@ -54,7 +56,7 @@ def metres(label: str) -> float:
 
 def test_map_of_a_run_has_a_true_scale_bar_a_north_arrow_and_named_axes(small_case, drawn):
     tmp, _, scenario = small_case
-    assert main(["run", str(scenario), "--out", str(tmp / "out"), "-q"]) == 0
+    assert main(["run", str(scenario), "--out", str(tmp / "out"), "-q", *DRAW]) == 0
     ax = drawn["harvest_map.png"].axes[0]
     width, label = scale_bar(ax)
     length = metres(label)
@@ -99,7 +101,7 @@ def test_a_map_in_degrees_has_no_scale_bar_and_the_caption_says_so(tmp_path, dra
     geoms = squares(n, side_m=0.002, x0=15.0, y0=60.0)
     layer = write_layer(tmp_path / "s.gpkg", geoms, stand_attrs(n, np.arange(n) * 5), "EPSG:4326")
     scn = write_scenario(tmp_path / "scn.toml", scenario_dict(layer))
-    assert main(["run", str(scn), "--out", str(tmp_path / "out"), "-q"]) == 0
+    assert main(["run", str(scn), "--out", str(tmp_path / "out"), "-q", *DRAW]) == 0
     ax = drawn["harvest_map.png"].axes[0]
     assert not [a for a in ax.artists if isinstance(a, AnchoredSizeBar)]
     assert north(ax) == 0.0
@@ -113,7 +115,7 @@ def test_a_cover_target_over_all_zones_is_titled_so(small_case, drawn):
     tmp, layer, _ = small_case
     raw = scenario_dict(layer, cover=[{"zone": "*", "older_than_years": 80, "min_share": 0.1}])
     scn = write_scenario(tmp / "cover.toml", raw)
-    assert main(["run", str(scn), "--out", str(tmp / "out"), "-q"]) == 0
+    assert main(["run", str(scn), "--out", str(tmp / "out"), "-q", *DRAW]) == 0
     titles = [ax.get_title(loc="left") for ax in drawn["cover_targets.png"].axes]
     assert titles[0].startswith("all zones: ") and not any("*" in t for t in titles)
 
@@ -126,7 +128,7 @@ def test_no_identifier_in_any_title_label_or_legend(small_case, drawn):
         disturbance={"annual_rate": 0.002, "replicates": 3},
     )
     scn = write_scenario(tmp / "all.toml", raw)
-    assert main(["run", str(scn), "--out", str(tmp / "out"), "-q"]) == 0
+    assert main(["run", str(scn), "--out", str(tmp / "out"), "-q", *DRAW]) == 0
     assert len(drawn) >= 7
     for name, fig in drawn.items():
         texts = [t.get_text() for t in fig.findobj(lambda a: hasattr(a, "get_text"))]

@@ -40,7 +40,7 @@ def out(tmp_path_factory):
         flow={"ending_stock": 0.5},
         cover=[{"zone": "east", "older_than_years": 80, "min_share": 0.1}],
         disturbance={"annual_rate": 0.002, "replicates": 5},
-        report={"markdown": True},
+        report={"markdown": True, "figures": True},
     )
     raw["sensitivity"] = [{"name": "looser", "set": {"flow.ending_stock": 0.3}}]
     scn = write_scenario(tmp / "scn.toml", raw)
@@ -332,3 +332,18 @@ def test_report_renders_in_a_real_browser(out, tmp_path):
     sizes = sorted(png_size(p.read_bytes()) for p in files)
     assert sorted((w, h) for _, w, h, _ in images) == sizes  # every image decoded
     assert all(done and shown > 300 for done, _, _, shown in images)  # and laid out
+
+
+def test_without_figures_no_figure_is_written_and_the_report_says_so(small_case):
+    # report.figures = false (the tests' own default): no figures/ folder, no image in the
+    # page, and the harvest section says why
+    tmp, _, scn = small_case
+    assert "figures = false" in scn.read_text()
+    out = tmp / "out"
+    assert main(["run", str(scn), "--out", str(out), "-q"]) == 0
+    assert not (out / "figures").exists()
+    root, sections = page(out / "report.html")
+    assert not root.findall(".//img")
+    text = " ".join(" ".join(el.itertext()) for el in sections["Harvest and growing stock"])
+    assert "No figures were drawn (report.figures = false)." in text
+    assert "figures" not in json.loads((out / "run.json").read_text())["outputs"]

@@ -313,6 +313,12 @@ class ReportConfig:
         usual=Usual(Range(1, 1000), "stand maps are drawn at cells of metres to tens of metres"),
     )
     markdown: bool = key("bool", False, "", "Also write the report as Markdown.")
+    figures: bool = key(
+        "bool",
+        True,
+        "",
+        "Draw the figures (figures/, embedded in the report); false for quick batch runs.",
+    )
 
 
 @dataclass(frozen=True)

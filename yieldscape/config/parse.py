@@ -359,6 +359,7 @@ def _report(raw: Any, info: ScenarioInfo, where: str) -> ReportConfig:
         vals["map_layers"],
         vals["raster_cell_m"],
         vals["markdown"],
+        vals["figures"],
     )
 
 

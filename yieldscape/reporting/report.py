@@ -428,7 +428,10 @@ def sections(data: ReportData) -> list[Section]:
             ],
         )
     )
-    out.append(_figures("Harvest and growing stock", data, ("harvest_forecast", "growing_stock")))
+    flow = _figures("Harvest and growing stock", data, ("harvest_forecast", "growing_stock"))
+    if not data.scenario.report.figures:
+        flow = Section(flow.title, ["No figures were drawn (report.figures = false)."])
+    out.append(flow)
     out.append(Section("Scenario", [Table(_scenario_table(data))]))
     out.append(
         Section(
