@@ -432,15 +432,23 @@ def lp_columns(strata: Strata, curves: CurveSet, periods: Periods) -> Columns:
     age_end = strata.age_years + P * L
     v_end = curves.volume_m3_ha(strata.species_idx, age_end, strata.site_index)
     blocks.append(_block(True, np.arange(S), 0, 0, np.zeros(S), v_end, age_end))
+    # a regrowth's volume depends on its age only: per lag j - i of a cut (1 .. P - 1) and
+    # per establishment period i at the end, each worked out once for every group
+    lag = np.arange(1, P)[:, None] * L - strata.group_delay[None, :]  # (P - 1, G)
+    v_lag = curves.volume_m3_ha(
+        np.tile(strata.group_species, P - 1), lag.ravel(), np.tile(strata.group_site, P - 1)
+    ).reshape(lag.shape)
+    ok_lag = lag >= strata.group_min_age[None, :] - 1e-9
+    at_end = (P - np.arange(1, P + 1))[:, None] * L + (L - off) - strata.group_delay[None, :]
+    v_end_y = curves.volume_m3_ha(
+        np.tile(strata.group_species, P), at_end.ravel(), np.tile(strata.group_site, P)
+    ).reshape(at_end.shape)
     for i in range(1, P + 1):
         for j in range(i + 1, P + 1):
-            age = (j - i) * L - strata.group_delay
-            ok = np.flatnonzero(age >= strata.group_min_age - 1e-9)
-            v = curves.volume_m3_ha(strata.group_species[ok], age[ok], strata.group_site[ok])
-            blocks.append(_block(False, ok, i, j, v, np.zeros(len(ok)), age[ok]))
-        age = (P - i) * L + (L - off) - strata.group_delay
-        v = curves.volume_m3_ha(strata.group_species, age, strata.group_site)
-        blocks.append(_block(False, np.arange(G), i, 0, np.zeros(G), v, age))
+            ok = np.flatnonzero(ok_lag[j - i - 1])
+            age = lag[j - i - 1, ok]
+            blocks.append(_block(False, ok, i, j, v_lag[j - i - 1, ok], np.zeros(len(ok)), age))
+        blocks.append(_block(False, np.arange(G), i, 0, np.zeros(G), v_end_y[i - 1], at_end[i - 1]))
     is_x, index, first, again, volume, end, age = (
         np.concatenate(part) for part in zip(*blocks, strict=True)
     )
