@@ -29,7 +29,7 @@ from yieldscape.projection import (
 )
 from yieldscape.regimes import Regimes
 from yieldscape.schedule.cover import CoverRules
-from yieldscape.schedule.picker import sequential_pick
+from yieldscape.schedule.picker import block_pick
 from yieldscape.schedule.spatial import SpatialRules
 
 _REL = 1e-9  # relative tolerance on volume targets
@@ -561,7 +561,7 @@ def _pick(
     if not pick:
         full_pos, part_pos, frac, decided = _pick_prefix(vol, area[cand], target, cap)
     else:
-        full_pos, part_pos, frac, refused = sequential_pick(
+        full_pos, part_pos, frac, refused = block_pick(
             t, parts.stand[cand], vol, area[cand], target, cap, pick
         )
         names = [r.name for r, n in zip(pick, refused, strict=True) if n]

@@ -110,13 +110,196 @@ class SpatialRules:
         self._cut_a.append(a)
 
     def end(self) -> None:
+        self._close(self._t, np.asarray(self._cut_s, dtype=np.intp), self._cut_a)
+
+    def _close(self, t: float, cut: NDArray, cut_area: NDArray | list) -> None:
         # the area cut per stand, summed in the order cut (np.bincount adds in input order)
-        cut = np.asarray(self._cut_s, dtype=np.intp)
         if len(cut):
-            total = np.bincount(cut, np.asarray(self._cut_a, dtype=float), self.adjacency.n)
+            total = np.bincount(cut, np.asarray(cut_area, dtype=float), self.adjacency.n)
             cut = np.unique(cut)
-            self.last_cut[cut] = self._t
+            self.last_cut[cut] = t
             self.open_area[cut] += total[cut]
+
+    def block(self, t: float, stands: NDArray, area: NDArray) -> OpeningsBlock:
+        """The state of one period's block pick (:func:`~yieldscape.schedule.picker.block_pick`)
+        over these candidates (their stands and areas [ha], in priority order)."""
+        return OpeningsBlock(self, t, stands, area)
+
+
+_NONE = np.iinfo(np.int64).max  # no writer yet (see OpeningsBlock.unsure)
+
+
+class OpeningsBlock:
+    """The green-up and opening rules of one period's pick, in arrays for the block picker.
+
+    The open stands, and for openings (ARM) each open stand's opening as a label in a
+    union-find over numpy arrays with the opening's area per label. Candidates are positions in
+    the period's priority order; blocks are position ranges ``lo:hi``.
+    """
+
+    def __init__(self, rules: SpatialRules, t: float, stands: NDArray, area: NDArray):
+        adj = rules.adjacency
+        self.rules, self.t = rules, t
+        self.indptr, self.indices = adj.indptr, adj.indices
+        self.stands = np.asarray(stands, dtype=np.int64)
+        self.area = np.asarray(area, dtype=float)
+        open_now = rules.is_open(t)
+        rules.open_area[~open_now] = 0.0
+        self.open = open_now.copy()
+        self.urm = rules.max_opening_ha <= 0
+        self.limit = rules.max_opening_ha * (1 + _REL)
+        n_keys = adj.n
+        if not self.urm:  # the openings at the start, as in SpatialRules.begin
+            self.label = adj.components(open_now)
+            n_labels = int(self.label.max()) + 1 if (self.label >= 0).any() else 0
+            size = n_labels + len(stands) + 1  # a cut makes one new label
+            self.comp = np.zeros(size)
+            if n_labels:
+                lab = self.label[open_now]
+                self.comp[:n_labels] = np.bincount(lab, rules.open_area[open_now], n_labels)
+            self.parent = np.arange(size)
+            self.next = n_labels
+            n_keys += size
+        self.writer = np.full(n_keys, _NONE, dtype=np.int64)  # scratch of unsure()
+        self._pending: tuple[NDArray, float] = (np.zeros(0, dtype=np.int64), 0.0)
+
+    def _find(self, labels: NDArray) -> NDArray:
+        """Root label of each label (pointer jumping; the paths are compressed)."""
+        r = self.parent[labels]
+        while True:
+            up = self.parent[r]
+            if np.array_equal(up, r):
+                break
+            r = up
+        self.parent[labels] = r
+        return r
+
+    def _neighbour_pairs(self, s: NDArray) -> tuple[NDArray, NDArray]:
+        """(candidate in the block, neighbour stand) pairs of the block's stands."""
+        start = self.indptr[s]
+        deg = self.indptr[s + 1] - start
+        owner = np.repeat(np.arange(len(s)), deg)
+        offset = np.arange(int(deg.sum())) - np.repeat(np.cumsum(deg) - deg, deg)
+        return owner, self.indices[np.repeat(start, deg) + offset]
+
+    def screen(self, lo: int, hi: int) -> NDArray[np.bool_]:
+        """Refused at the block start at full area (final for the period: open neighbours
+        stay open and openings only grow)."""
+        s = self.stands[lo:hi]
+        m = len(s)
+        owner, nb = self._neighbour_pairs(s)
+        keep = nb != s[owner]
+        owner, nb = owner[keep], nb[keep]
+        self._lo, self._s, self._owner, self._nb = lo, s, owner, nb
+        if self.urm:
+            return np.bincount(owner[self.open[nb]], minlength=m) > 0
+        area = self.area[lo:hi]
+        # the openings each candidate would join: its open neighbours' and its own
+        who, st = np.r_[owner, np.arange(m)], np.r_[nb, s]
+        o = self.open[st]
+        who, roots = who[o], self._find(self.label[st[o]])
+        size = len(self.parent)
+        key = np.unique(who * size + roots)
+        self._who, self._roots = key // size, key % size
+        self._total = area + np.bincount(self._who, self.comp[self._roots], minlength=m)
+        return (area > self.limit) | (self._total > self.limit)
+
+    def _keys(self, active: NDArray[np.bool_]) -> tuple[NDArray, ...]:
+        """What a cut of each ``active`` candidate changes (keys, positions) and what each
+        candidate's answer reads: stands (URM: the neighbours; ARM: and its own) and, for
+        ARM, the openings at the block start (keys after the stands)."""
+        m = len(active)
+        act = np.flatnonzero(active)
+        s = self._s
+        w_key, w_pos = s[act], act
+        r_key, r_pos = self._nb, self._owner
+        if not self.urm:
+            n = len(self.open)
+            mine = (self._who < m) & active[np.minimum(self._who, m - 1)]
+            w_key = np.r_[w_key, n + self._roots[mine]]
+            w_pos = np.r_[w_pos, self._who[mine]]
+            r_key = np.r_[r_key, s, n + self._roots]
+            r_pos = np.r_[r_pos, np.arange(len(s)), self._who]
+        return w_key, w_pos, r_key, r_pos
+
+    def unsure(self, active: NDArray[np.bool_]) -> NDArray[np.bool_]:
+        """Candidates of the screened block (its first ``len(active)``) whose answer a cut of
+        an earlier ``active`` one could change: a neighbour (URM, ARM), the same stand or an
+        opening touched by both (ARM)."""
+        w_key, w_pos, r_key, r_pos = self._keys(active)
+        writer = self.writer
+        np.minimum.at(writer, w_key, w_pos)
+        hit = writer[r_key] < r_pos
+        writer[w_key] = _NONE
+        return (np.bincount(r_pos[hit], minlength=len(self._s)) > 0)[: len(active)]
+
+    def ahead(self, active: NDArray[np.bool_], held: NDArray[np.bool_]) -> NDArray[np.bool_]:
+        """The ``active`` candidates whose cut would change the answer of an earlier ``held``
+        one (settled one at a time, after the sure cuts are made: see :meth:`accept`)."""
+        m = len(active)
+        w_key, w_pos, r_key, r_pos = self._keys(active)
+        inside = r_pos < m
+        r_key, r_pos = r_key[inside], r_pos[inside]
+        keep = held[r_pos]
+        reader = self.writer  # the same scratch, for the first held reader of each key
+        np.minimum.at(reader, r_key[keep], r_pos[keep])
+        hit = reader[w_key] < w_pos
+        reader[r_key[keep]] = _NONE
+        return np.bincount(w_pos[hit], minlength=m) > 0
+
+    def accept(self, idx: NDArray) -> None:
+        """Cut these candidates of the block, decided at its start (no two interact)."""
+        s = self._s[idx]
+        self.open[s] = True
+        if self.urm or not len(idx):
+            return
+        new = self.next + np.arange(len(idx))
+        at = np.full(len(self._s), -1)
+        at[idx] = np.arange(len(idx))
+        joins = at[self._who]
+        j = joins >= 0
+        self.parent[self._roots[j]] = new[joins[j]]
+        self.comp[new] = self._total[idx]
+        self.label[s] = new
+        self.next += len(idx)
+
+    def allows(self, k: int, full_area: float, a: float) -> bool:
+        """The scalar test of :meth:`SpatialRules.allows` on the arrays."""
+        s = int(self.stands[k])
+        nb = self.indices[self.indptr[s] : self.indptr[s + 1]]
+        nb = nb[self.open[nb] & (nb != s)]
+        if self.urm:
+            return not len(nb)
+        if full_area > self.limit:
+            return False
+        labels = self.label[nb]
+        if self.open[s]:
+            labels = np.r_[labels, self.label[s]]
+        roots = np.unique(self._find(labels))
+        total = a + sum(self.comp[roots].tolist())
+        if total > self.limit:
+            return False
+        self._pending = (roots, total)
+        return True
+
+    def commit(self, k: int, a: float) -> None:
+        s = int(self.stands[k])
+        self.open[s] = True
+        if self.urm:
+            return
+        roots, total = self._pending
+        new = self.next
+        self.parent[roots] = new
+        self.comp[new] = total
+        self.label[s] = new
+        self.next += 1
+
+    def flush(self) -> None:
+        pass
+
+    def finish(self, cut: NDArray, cut_area: NDArray) -> None:
+        """The period's cuts (positions in order, areas cut [ha]) into the rules' state."""
+        self.rules._close(self.t, self.stands[cut], cut_area)
 
 
 def openings_table(

@@ -1,0 +1,154 @@
+"""The block picker against the sequential one, its definition (schedule/picker.py).
+
+The reference is ``sequential_pick`` with the scalar rules (``SpatialRules.allows/commit``,
+``PeriodBudgets.allows/commit``): one candidate at a time, as the rules are written. The block
+picker must return the same stands, the same partial cut and the same refusal counts per rule,
+and leave the rules in the same state, on random small forests: grid adjacency with some edges
+dropped and some diagonals added (planar-ish), parts of one stand among the candidates, areas,
+volumes, targets, caps and budgets in eighths so that every sum is exact in binary.
+"""
+
+import copy
+
+import numpy as np
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from yieldscape.adjacency import Adjacency
+from yieldscape.schedule.cover import CoverRule, CoverRules, PeriodBudgets
+from yieldscape.schedule.picker import block_pick, sequential_pick
+from yieldscape.schedule.spatial import SpatialRules
+
+T = 30.0  # the period's harvest time [years since the start]
+
+
+def grid_graph(rng, w, h, diagonals):
+    idx = np.arange(w * h).reshape(h, w)
+    i = [idx[:, :-1].ravel(), idx[:-1].ravel()]
+    j = [idx[:, 1:].ravel(), idx[1:].ravel()]
+    if diagonals:
+        i.append(idx[:-1, :-1].ravel())
+        j.append(idx[1:, 1:].ravel())
+    i, j = np.concatenate(i), np.concatenate(j)
+    keep = rng.random(len(i)) < 0.85
+    return Adjacency.from_pairs(w * h, i[keep], j[keep])
+
+
+@st.composite
+def picks(draw, both=False):
+    """A period's pick: the rules' state at its start, the candidates in order, target, cap
+    (``both``: spatial rules and cover budgets together, the budgets often short)."""
+    seed = draw(st.integers(0, 2**32 - 1))
+    rng = np.random.default_rng(seed)
+    w, h = draw(st.integers(1, 12)), draw(st.integers(1, 12))
+    n = w * h
+    rules = []
+    if both or draw(st.sampled_from([True, True, True, False])):
+        adj = grid_graph(rng, w, h, draw(st.booleans()))
+        greenup = draw(st.sampled_from([10.0, 20.0, 30.0]))
+        max_opening = draw(st.sampled_from([0.0, 0.0, 1.0, 2.5, 4.0, 7.5]))  # 0: unit rule
+        spatial = SpatialRules(adj, greenup, max_opening).fresh()
+        was = rng.random(n) < draw(st.sampled_from([0.0, 0.2, 0.5]))
+        spatial.last_cut[was] = T - rng.integers(0, 4, was.sum()) * 10.0  # some still open
+        spatial.open_area[was] = rng.integers(1, 40, was.sum()) / 8
+        rules.append(spatial)
+    m = draw(st.integers(1, 3 * n))
+    if draw(st.booleans()):  # some stands twice (two parts), in any order
+        stands = rng.integers(0, n, m)
+    else:
+        stands = rng.permutation(n)[:m]
+    m = len(stands)
+    area = rng.integers(1, 40, m) / 8
+    vol = rng.integers(1, 400, m) / 8
+    if both or draw(st.booleans()) or not rules:
+        k = draw(st.integers(1, 3))
+        cover = CoverRules(
+            tuple(
+                CoverRule(
+                    int(rng.integers(-1, 3)),
+                    "z",
+                    str(rng.choice(["old", "young"])),
+                    float(rng.integers(1, 10) * 10),
+                    0.5,
+                )
+                for _ in range(k)
+            ),
+            rng.integers(8, 800, 3) / 8,
+        )
+        budget = rng.integers(-40, draw(st.sampled_from([40, 400] if not both else [8, 40])), k) / 8
+        rules.append(
+            PeriodBudgets(cover, budget, rng.integers(0, 3, m), rng.integers(0, 100, m) * 1.0)
+        )
+    share_v = draw(st.sampled_from([None, 0.0, 0.1, 0.5, 0.9]))
+    target = np.inf if share_v is None else np.floor(share_v * vol.sum() * 8) / 8
+    share_a = draw(st.sampled_from([None, 0.05, 0.3, 1.0]))
+    cap = np.inf if share_a is None else np.floor(share_a * area.sum() * 8) / 8
+    first_block = draw(st.integers(1, 40))
+    return rules, stands, vol, area, float(target), float(cap), first_block
+
+
+def state(rules):
+    out = []
+    for r in rules:
+        if isinstance(r, SpatialRules):
+            out += [r.last_cut.copy(), r.open_area.copy()]
+        else:
+            out.append(r.budget.copy())
+    return out
+
+
+@settings(max_examples=300, deadline=None)
+@given(picks())
+def test_block_pick_is_the_sequential_pick(pick):
+    same_pick(*pick)
+
+
+@settings(max_examples=300, deadline=None)
+@given(picks(both=True))
+def test_block_pick_counts_refusals_as_the_sequential_pick_with_both_rules(pick):
+    # a candidate over a cover budget may also have a neighbour cut earlier in its block: the
+    # refusal counts against the spatial rules, which come first
+    same_pick(*pick)
+
+
+def same_pick(rules, stands, vol, area, target, cap, first_block):
+    ref_rules, blk_rules = copy.deepcopy(rules), copy.deepcopy(rules)
+    full, part, frac, refused = sequential_pick(T, stands, vol, area, target, cap, ref_rules)
+    b_full, b_part, b_frac, b_refused = block_pick(
+        T, stands, vol, area, target, cap, blk_rules, first_block=first_block
+    )
+    np.testing.assert_array_equal(b_full, full)
+    assert (b_part, b_frac) == (part, frac)
+    assert b_refused == refused
+    for got, want in zip(state(blk_rules), state(ref_rules), strict=True):
+        np.testing.assert_array_equal(got, want)
+
+
+def test_block_pick_refuses_what_the_sequential_pick_refuses_on_a_known_case():
+    # A 1 x 3 row, unit restriction, stands 0 and 2 open: stand 1 is refused, the others cut;
+    # then stand 1 again (a second part): refused again, and counted twice.
+    adj = Adjacency.from_pairs(3, np.array([0, 1]), np.array([1, 2]))
+    rules = SpatialRules(adj, 20.0, 0.0).fresh()
+    stands = np.array([0, 1, 2, 1])
+    one = np.ones(4)
+    full, part, frac, refused = block_pick(T, stands, one, one, np.inf, np.inf, [rules])
+    np.testing.assert_array_equal(full, [0, 2])
+    assert (part, refused) == (-1, [2])
+    np.testing.assert_array_equal(rules.last_cut, [T, -np.inf, T])
+
+
+def test_a_refusal_counts_against_the_first_rule_that_refuses_in_order():
+    # A row 0-1-2-3, unit restriction, candidates in stand order, each 1 ha; only stand 2 is
+    # old and the old-forest budget is spent, so the cover target refuses it. In order: 0 is
+    # cut, 1 is refused by the spatial rules (0 is open), 2 passes the spatial rules (1 and 3
+    # are not open) and is refused by the cover target, 3 is cut. A block picker that cut 3
+    # ahead of settling 2 would count 2 against the spatial rules.
+    adj = Adjacency.from_pairs(4, np.array([0, 1, 2]), np.array([1, 2, 3]))
+    old = CoverRules((CoverRule(-1, "*", "old", 50.0, 0.5),), np.array([8.0]))
+    budget = PeriodBudgets(old, np.zeros(1), np.zeros(4, int), np.array([10.0, 10, 100, 10]))
+    stands, one = np.arange(4), np.ones(4)
+    for pick in (sequential_pick, block_pick):
+        rules = [SpatialRules(adj, 20.0, 0.0).fresh(), copy.deepcopy(budget)]
+        full, part, _, refused = pick(T, stands, one, one, np.inf, np.inf, rules)
+        np.testing.assert_array_equal(full, [0, 3])
+        assert (part, refused) == (-1, [1, 1])
