@@ -84,7 +84,8 @@ def picks(draw, both=False):
     share_a = draw(st.sampled_from([None, 0.05, 0.3, 1.0]))
     cap = np.inf if share_a is None else np.floor(share_a * area.sum() * 8) / 8
     first_block = draw(st.integers(1, 40))
-    return rules, stands, vol, area, float(target), float(cap), first_block
+    shown = draw(st.integers(1, m))  # the first of the queue, given alone (see below)
+    return rules, stands, vol, area, float(target), float(cap), first_block, shown
 
 
 def state(rules):
@@ -111,17 +112,34 @@ def test_block_pick_counts_refusals_as_the_sequential_pick_with_both_rules(pick)
     same_pick(*pick)
 
 
-def same_pick(rules, stands, vol, area, target, cap, first_block):
-    ref_rules, blk_rules = copy.deepcopy(rules), copy.deepcopy(rules)
-    full, part, frac, refused = sequential_pick(T, stands, vol, area, target, cap, ref_rules)
-    b_full, b_part, b_frac, b_refused = block_pick(
-        T, stands, vol, area, target, cap, blk_rules, first_block=first_block
-    )
-    np.testing.assert_array_equal(b_full, full)
-    assert (b_part, b_frac) == (part, frac)
-    assert b_refused == refused
-    for got, want in zip(state(blk_rules), state(ref_rules), strict=True):
-        np.testing.assert_array_equal(got, want)
+def same_pick(rules, stands, vol, area, target, cap, first_block, shown):
+    ref_rules = copy.deepcopy(rules)
+    want = sequential_pick(T, stands, vol, area, target, cap, ref_rules)
+    blk_rules = copy.deepcopy(rules)
+    got = block_pick(T, stands, vol, area, target, cap, blk_rules, first_block=first_block)
+    same(got, blk_rules, want, ref_rules)
+    # given only the first of the queue, the block pick answers (the whole queue's pick) only
+    # when the rest could not change it, and otherwise leaves the rules as they were
+    s = slice(0, shown)
+    blk_rules = [
+        PeriodBudgets(r.rules, r.budget.copy(), r.cand_zone[s], r.cand_age[s])
+        if isinstance(r, PeriodBudgets)
+        else copy.deepcopy(r)
+        for r in rules
+    ]
+    got = block_pick(T, stands[s], vol[s], area[s], target, cap, blk_rules, whole=False)
+    if got is None:
+        for a, b in zip(state(blk_rules), state(rules), strict=True):
+            np.testing.assert_array_equal(a, b)
+    else:
+        same(got, blk_rules, want, ref_rules)
+
+
+def same(got, got_rules, want, want_rules):
+    np.testing.assert_array_equal(got[0], want[0])
+    assert got[1:] == want[1:]  # the partial cut, its fraction, the refusals per rule
+    for a, b in zip(state(got_rules), state(want_rules), strict=True):
+        np.testing.assert_array_equal(a, b)
 
 
 def test_block_pick_refuses_what_the_sequential_pick_refuses_on_a_known_case():

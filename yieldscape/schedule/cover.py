@@ -128,7 +128,8 @@ class BudgetBlock:
 
     def __init__(self, budgets: PeriodBudgets, area: NDArray):
         rules = budgets.rules
-        self.budget = budgets.budget  # spent in place, as PeriodBudgets.commit spends it
+        self.budgets = budgets
+        self.budget = budgets.budget.copy()  # spent as PeriodBudgets.commit spends it
         self.area = np.asarray(area, dtype=float)
         self.draws = np.zeros((len(area), len(rules.rules)), dtype=bool)
         for i, r in enumerate(rules.rules):  # as in PeriodBudgets.allows
@@ -175,7 +176,7 @@ class BudgetBlock:
         for i in range(len(self.budget)):
             take = self.area[pos[self.draws[pos, i]]]
             if len(take):  # b - a1 - a2 ... in sequence, as the loop subtracts
-                self.budget[i] = np.cumsum(np.r_[self.budget[i], -take])[-1]
+                self.budget[i] = np.cumsum(np.concatenate(([self.budget[i]], -take)))[-1]
 
     def allows(self, k: int, full_area: float, a: float) -> bool:
         """The scalar test of :meth:`PeriodBudgets.allows` on the budgets at candidate k."""
@@ -194,7 +195,7 @@ class BudgetBlock:
         self._spend(len(self.area) + 1)
 
     def finish(self, cut: NDArray, cut_area: NDArray) -> None:
-        pass
+        self.budgets.budget[:] = self.budget
 
 
 def cover_rules(

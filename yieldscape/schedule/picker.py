@@ -39,6 +39,7 @@ _REL = 1e-9
 _MIN_PART_HA = 1e-9
 _SAFE = 1e-7  # margin of the block's stop bound over float rounding (relative)
 _FIRST_BLOCK, _MIN_BLOCK, _MAX_BLOCK = 256, 32, 8192
+_SHRINK, _GROW = 10, 30  # halve the block when over 1/10 of it is settled, double under 1/30
 
 
 def sequential_pick(
@@ -101,8 +102,8 @@ class _Pick:
         """Cut these positions whole (in order): the sums go on in sequence, as in the loop."""
         if len(pos):
             self.chunks.append(pos)
-            self.got_v = float(np.cumsum(np.r_[self.got_v, self.vol[pos]])[-1])
-            self.got_a = float(np.cumsum(np.r_[self.got_a, self.area[pos]])[-1])
+            self.got_v = _add_in_order(self.got_v, self.vol[pos])
+            self.got_a = _add_in_order(self.got_a, self.area[pos])
 
     def safe_prefix(self, lo: int, hi: int, active: NDArray) -> int:
         """How many candidates from ``lo`` are sure to be tested whole and not to stop the
@@ -141,6 +142,11 @@ class _Pick:
         return np.concatenate(self.chunks) if self.chunks else np.zeros(0, dtype=np.intp)
 
 
+def _add_in_order(start: float, values: NDArray) -> float:
+    """start + v0 + v1 + ... added in sequence (np.cumsum adds in order; np.sum does not)."""
+    return float(np.cumsum(np.concatenate(([start], values)))[-1])
+
+
 def _settle(k: int, full_area: float, a: float, blocks: list) -> int:
     """Candidate k against each rule in turn on its current state; the first rule to refuse
     it (-1: cut, and committed to every rule)."""
@@ -160,18 +166,23 @@ def block_pick(
     target: float,
     cap: float,
     rules: list,
+    whole: bool = True,
     first_block: int = _FIRST_BLOCK,
-) -> tuple[NDArray, int, float, list[int]]:
+) -> tuple[NDArray, int, float, list[int]] | None:
     """The result of :func:`sequential_pick`, decided in blocks of candidates (see the module
     docstring), the first of ``first_block`` candidates. Each rule's ``block(t, stands, area)``
     returns its state for the pick, with ``screen(lo, hi)``, ``unsure(active)``,
-    ``accept(idx)``, ``allows(k, full_area, a)``, ``commit(k, a)``, ``flush()`` and
-    ``finish(cut, cut_area)``."""
+    ``ahead(active, held)``, ``accept(idx)``, ``allows(k, full_area, a)``, ``commit(k, a)``,
+    ``flush()`` and ``finish(cut, cut_area)``.
+
+    Unless the candidates are ``whole`` (the first of the period's queue only), None when
+    more candidates could change the pick: it ran through them all, or stopped at the last,
+    or the target exceeds their volume. The rules' state is then left as it was."""
     if not all(hasattr(r, "block") for r in rules):
         return sequential_pick(t, stands, vol, area, target, cap, rules)
     blocks = [r.block(t, stands, area) for r in rules]
     pick = _Pick(vol, area, target, cap, len(rules))
-    n, lo, size = len(stands), 0, first_block
+    n, lo, size, stop = len(stands), 0, first_block, -1
     smallest = min(_MIN_BLOCK, first_block)
     while lo < n:
         hi = min(n, lo + size)
@@ -180,15 +191,18 @@ def block_pick(
         m = pick.safe_prefix(lo, hi, first < 0)
         if m == 0:  # the stop may be here: this candidate alone, exactly
             if not pick.step(lo, stands, blocks):
+                stop = lo
                 break
             lo += 1
             continue
         settled = _block(pick, blocks, lo, first[:m])
-        if settled * 10 > m:  # many answers depend on each other: smaller blocks
+        if settled * _SHRINK > m:  # many answers depend on each other: smaller blocks
             size = max(smallest, size // 2)
-        elif settled * 30 < m and lo + m == hi:
+        elif settled * _GROW < m and lo + m == hi:
             size = min(_MAX_BLOCK, size * 2)
         lo += m
+    if not whole and not (0 <= stop < n - 1 and pick.goal == target):
+        return None
     full = pick.full()
     cut = full if pick.part < 0 else np.r_[full, pick.part]
     cut_area = area[cut].astype(float)

@@ -144,8 +144,7 @@ class OpeningsBlock:
         self.stands = np.asarray(stands, dtype=np.int64)
         self.area = np.asarray(area, dtype=float)
         open_now = rules.is_open(t)
-        rules.open_area[~open_now] = 0.0
-        self.open = open_now.copy()
+        self.open_now, self.open = open_now, open_now.copy()
         self.urm = rules.max_opening_ha <= 0
         self.limit = rules.max_opening_ha * (1 + _REL)
         n_keys = adj.n
@@ -161,6 +160,9 @@ class OpeningsBlock:
             self.next = n_labels
             n_keys += size
         self.writer = np.full(n_keys, _NONE, dtype=np.int64)  # scratch of unsure()
+        if self.urm:  # the stands with an open neighbour: refused for the rest of the period
+            self.near = np.zeros(adj.n, dtype=bool)
+            self._opened(np.flatnonzero(open_now))
         self._pending: tuple[NDArray, float] = (np.zeros(0, dtype=np.int64), 0.0)
 
     def _find(self, labels: NDArray) -> NDArray:
@@ -182,20 +184,31 @@ class OpeningsBlock:
         offset = np.arange(int(deg.sum())) - np.repeat(np.cumsum(deg) - deg, deg)
         return owner, self.indices[np.repeat(start, deg) + offset]
 
+    def _opened(self, stands: NDArray) -> None:
+        """URM: these stands are open now; their neighbours may not be cut this period."""
+        owner, nb = self._neighbour_pairs(stands)
+        self.near[nb[nb != stands[owner]]] = True
+
     def screen(self, lo: int, hi: int) -> NDArray[np.bool_]:
         """Refused at the block start at full area (final for the period: open neighbours
         stay open and openings only grow)."""
         s = self.stands[lo:hi]
         m = len(s)
-        owner, nb = self._neighbour_pairs(s)
+        if self.urm:  # the neighbours of the candidates still allowed (see unsure)
+            refused = self.near[s]
+            ok = np.flatnonzero(~refused)
+            owner, nb = self._neighbour_pairs(s[ok])
+            owner = ok[owner]
+        else:
+            owner, nb = self._neighbour_pairs(s)
         keep = nb != s[owner]
         owner, nb = owner[keep], nb[keep]
         self._lo, self._s, self._owner, self._nb = lo, s, owner, nb
         if self.urm:
-            return np.bincount(owner[self.open[nb]], minlength=m) > 0
+            return refused
         area = self.area[lo:hi]
         # the openings each candidate would join: its open neighbours' and its own
-        who, st = np.r_[owner, np.arange(m)], np.r_[nb, s]
+        who, st = np.concatenate((owner, np.arange(m))), np.concatenate((nb, s))
         o = self.open[st]
         who, roots = who[o], self._find(self.label[st[o]])
         size = len(self.parent)
@@ -216,10 +229,10 @@ class OpeningsBlock:
         if not self.urm:
             n = len(self.open)
             mine = (self._who < m) & active[np.minimum(self._who, m - 1)]
-            w_key = np.r_[w_key, n + self._roots[mine]]
-            w_pos = np.r_[w_pos, self._who[mine]]
-            r_key = np.r_[r_key, s, n + self._roots]
-            r_pos = np.r_[r_pos, np.arange(len(s)), self._who]
+            w_key = np.concatenate((w_key, n + self._roots[mine]))
+            w_pos = np.concatenate((w_pos, self._who[mine]))
+            r_key = np.concatenate((r_key, s, n + self._roots))
+            r_pos = np.concatenate((r_pos, np.arange(len(s)), self._who))
         return w_key, w_pos, r_key, r_pos
 
     def unsure(self, active: NDArray[np.bool_]) -> NDArray[np.bool_]:
@@ -251,7 +264,10 @@ class OpeningsBlock:
         """Cut these candidates of the block, decided at its start (no two interact)."""
         s = self._s[idx]
         self.open[s] = True
-        if self.urm or not len(idx):
+        if self.urm:
+            self._opened(s)
+            return
+        if not len(idx):
             return
         new = self.next + np.arange(len(idx))
         at = np.full(len(self._s), -1)
@@ -266,26 +282,36 @@ class OpeningsBlock:
     def allows(self, k: int, full_area: float, a: float) -> bool:
         """The scalar test of :meth:`SpatialRules.allows` on the arrays."""
         s = int(self.stands[k])
-        nb = self.indices[self.indptr[s] : self.indptr[s + 1]]
-        nb = nb[self.open[nb] & (nb != s)]
         if self.urm:
-            return not len(nb)
+            return not self.near[s]
+        nb = self.indices[self.indptr[s] : self.indptr[s + 1]]
+        nb = nb[self.open[nb]].tolist()
         if full_area > self.limit:
             return False
-        labels = self.label[nb]
+        find = self._root
+        roots = {find(x) for x in self.label[nb].tolist()}
         if self.open[s]:
-            labels = np.r_[labels, self.label[s]]
-        roots = np.unique(self._find(labels))
-        total = a + sum(self.comp[roots].tolist())
+            roots.add(find(int(self.label[s])))
+        total = a + sum(float(self.comp[r]) for r in roots)
         if total > self.limit:
             return False
-        self._pending = (roots, total)
+        self._pending = (np.fromiter(roots, dtype=np.int64, count=len(roots)), total)
         return True
+
+    def _root(self, x: int) -> int:
+        parent = self.parent
+        r = x
+        while (up := int(parent[r])) != r:
+            r = up
+        parent[x] = r
+        return r
 
     def commit(self, k: int, a: float) -> None:
         s = int(self.stands[k])
         self.open[s] = True
         if self.urm:
+            nb = self.indices[self.indptr[s] : self.indptr[s + 1]]
+            self.near[nb[nb != s]] = True
             return
         roots, total = self._pending
         new = self.next
@@ -299,6 +325,7 @@ class OpeningsBlock:
 
     def finish(self, cut: NDArray, cut_area: NDArray) -> None:
         """The period's cuts (positions in order, areas cut [ha]) into the rules' state."""
+        self.rules.open_area[~self.open_now] = 0.0  # as SpatialRules.begin
         self.rules._close(self.t, self.stands[cut], cut_area)
 
 
