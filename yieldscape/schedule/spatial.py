@@ -116,7 +116,7 @@ class SpatialRules:
         # the area cut per stand, summed in the order cut (np.bincount adds in input order)
         if len(cut):
             total = np.bincount(cut, np.asarray(cut_area, dtype=float), self.adjacency.n)
-            cut = np.unique(cut)
+            cut = _unique(cut)
             self.last_cut[cut] = t
             self.open_area[cut] += total[cut]
 
@@ -124,6 +124,15 @@ class SpatialRules:
         """The state of one period's block pick (:func:`~yieldscape.schedule.picker.block_pick`)
         over these candidates (their stands and areas [ha], in priority order)."""
         return OpeningsBlock(self, t, stands, area)
+
+
+def _unique(a: NDArray) -> NDArray:
+    """np.unique of integers by a sort (numpy 2.4's hashing np.unique is about 10x slower on
+    the few thousand values of a block)."""
+    a = np.sort(a)
+    keep = np.ones(len(a), dtype=bool)
+    keep[1:] = a[1:] != a[:-1]
+    return a[keep]
 
 
 _NONE = np.iinfo(np.int64).max  # no writer yet (see OpeningsBlock.unsure)
@@ -181,8 +190,8 @@ class OpeningsBlock:
         start = self.indptr[s]
         deg = self.indptr[s + 1] - start
         owner = np.repeat(np.arange(len(s)), deg)
-        offset = np.arange(int(deg.sum())) - np.repeat(np.cumsum(deg) - deg, deg)
-        return owner, self.indices[np.repeat(start, deg) + offset]
+        shift = np.repeat(start - (np.cumsum(deg) - deg), deg)  # row start less owner's offset
+        return owner, self.indices[np.arange(len(owner)) + shift]
 
     def _opened(self, stands: NDArray) -> None:
         """URM: these stands are open now; their neighbours may not be cut this period."""
@@ -212,7 +221,7 @@ class OpeningsBlock:
         o = self.open[st]
         who, roots = who[o], self._find(self.label[st[o]])
         size = len(self.parent)
-        key = np.unique(who * size + roots)
+        key = _unique(who * size + roots)
         self._who, self._roots = key // size, key % size
         self._total = area + np.bincount(self._who, self.comp[self._roots], minlength=m)
         return (area > self.limit) | (self._total > self.limit)
@@ -264,8 +273,10 @@ class OpeningsBlock:
         """Cut these candidates of the block, decided at its start (no two interact)."""
         s = self._s[idx]
         self.open[s] = True
-        if self.urm:
-            self._opened(s)
+        if self.urm:  # their neighbours, from the screen's pairs
+            cut = np.zeros(len(self._s), dtype=bool)
+            cut[idx] = True
+            self.near[self._nb[cut[self._owner]]] = True
             return
         if not len(idx):
             return
