@@ -18,15 +18,23 @@ stands, same partial cut, same refusal counts) in blocks of candidates:
    together could overdraw). The others are decided at the block start: they are accepted
    together in arrays. The few left are settled one at a time, in order, with the scalar logic
    on the arrays. A refused candidate is settled too when an earlier rule's answer could change,
-   so that the refusal is counted against the same rule.
+   so that the refusal is counted against the same rule; a cut that would change the answer of
+   such a candidate is then settled after it rather than made ahead of it (``ahead``).
 4. The candidate at which the block stopped is taken alone with the sequential logic (the exact
    stop and the partial fraction), then the next block starts. The block grows while few
    candidates need settling and shrinks when many do.
 
+Given only the first of the period's queue (``whole=False``), the pick answers when the rest
+of the queue could not change it (it stopped before the last candidate, on a target within
+their volume) and otherwise returns None with the rules untouched, so that the caller ranks
+more of the queue, as for the aspatial pick.
+
 The state sums (cut volume and area, cover budgets) are accumulated in candidate order with
-``np.cumsum``, which adds in sequence as the loop does, so they match it bit for bit; an
-opening's area sums its parts in another order when three or more openings merge at once
-(a difference of an ulp, and none on areas exact in binary). Rules without the block interface
+``np.cumsum``, which adds in sequence as the loop does, so they match it bit for bit. The one
+sum in another order: a cut that joins three or more openings adds their areas in label order
+where the loop adds them in the order of a Python set (a difference of an ulp at most, which
+could flip a test only on an opening within an ulp of the maximum; none on areas exact in
+binary, as in the tests). Rules without the block interface
 (``block(t, stands, area)``) are picked with :func:`sequential_pick`.
 """
 

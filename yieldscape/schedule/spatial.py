@@ -8,9 +8,19 @@ neighbours may be open at once. Candidates are taken in priority order; a stand 
 a rule is skipped and the next one taken. A stand whose harvestable area alone exceeds the
 maximum opening is never cut (yieldscape does not split stands into several cut blocks).
 
-The pick is sequential by nature (each cut changes what its neighbours may do): see
-:mod:`yieldscape.schedule.picker`; openings at the start of a period come from one vectorised
-connected-components call and grow through a union-find as stands are cut.
+The pick is sequential by definition (each cut changes what its neighbours may do):
+:class:`SpatialRules` gives the scalar test of one candidate (``allows``/``commit``) used by
+:func:`~yieldscape.schedule.picker.sequential_pick`, the reference. :class:`OpeningsBlock` holds
+the same state in arrays for :func:`~yieldscape.schedule.picker.block_pick`, which decides
+candidates in blocks: ``screen`` refuses, at the block start, a candidate with an open neighbour
+(URM; a per-period flag of the stands next to an open one) or whose opening would exceed the
+maximum (ARM: its area plus the openings it touches, found through the union-find for the whole
+block at once); ``unsure`` names the candidates an earlier one of the block could affect (a
+neighbour; for ARM also the same stand or an opening touched by both); the others are cut
+together (``accept``: one new label per cut, its openings' labels pointed at it), and the few
+unsure ones are settled in order with the scalar test on the arrays. Openings at the start of a
+period come from one vectorised connected-components call and grow through the union-find
+(parents and areas in numpy arrays) as stands are cut.
 """
 
 from __future__ import annotations
