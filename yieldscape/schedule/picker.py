@@ -242,10 +242,9 @@ def _block(pick: _Pick, blocks: list, lo: int, first: NDArray) -> int:
     no = first[sure & ~active]
     pick.skipped += np.bincount(no, minlength=len(blocks))
     todo = np.flatnonzero(unsure)
-    area = pick.area
-    for q in todo.tolist():  # the few whose answer depends on an earlier one of the block
-        k = lo + q
-        r = _settle(k, float(area[k]), float(area[k]), blocks)
+    areas = pick.area[lo + todo].tolist()
+    for q, a in zip(todo.tolist(), areas, strict=True):  # the few that depend on earlier ones
+        r = _settle(lo + q, a, a, blocks)
         if r >= 0:
             pick.skipped[r] += 1
         else:

@@ -167,22 +167,39 @@ class OpeningsBlock:
         self.urm = rules.max_opening_ha <= 0
         self.limit = rules.max_opening_ha * (1 + _REL)
         n_keys = adj.n
-        if not self.urm:  # the openings at the start, as in SpatialRules.begin
-            self.label = adj.components(open_now)
-            n_labels = int(self.label.max()) + 1 if (self.label >= 0).any() else 0
-            size = n_labels + len(stands) + 1  # a cut makes one new label
-            self.comp = np.zeros(size)
-            if n_labels:
-                lab = self.label[open_now]
-                self.comp[:n_labels] = np.bincount(lab, rules.open_area[open_now], n_labels)
-            self.parent = np.arange(size)
-            self.next = n_labels
-            n_keys += size
+        if not self.urm:
+            n_keys += self._openings(open_now, rules.open_area, len(stands))
         self.writer = np.full(n_keys, _NONE, dtype=np.int64)  # scratch of unsure()
         if self.urm:  # the stands with an open neighbour: refused for the rest of the period
             self.near = np.zeros(adj.n, dtype=bool)
             self._opened(np.flatnonzero(open_now))
-        self._pending: tuple[NDArray, float] = (np.zeros(0, dtype=np.int64), 0.0)
+        self._pending: tuple[set[int], float] = (set(), 0.0)
+
+    def _openings(self, open_now: NDArray, open_area: NDArray, n_cand: int) -> int:
+        """The openings at the start of the pick in the union-find: a label per open stand
+        (its place among them), the labels of neighbours hooked together, each opening's area
+        summed in stand order (as SpatialRules.begin sums it); the number of labels there is
+        room for (a cut makes one new label)."""
+        idx = np.flatnonzero(open_now)
+        size = len(idx) + n_cand + 1
+        self.label = np.full(len(open_now), -1, dtype=np.int64)
+        self.label[idx] = np.arange(len(idx))
+        self.parent = parent = np.arange(size)
+        owner, nb = self._neighbour_pairs(idx)
+        keep = open_now[nb]
+        u, v = owner[keep], self.label[nb[keep]]
+        keep = u < v  # each pair once
+        u, v = u[keep], v[keep]
+        while len(u):  # hook the larger root under the smaller until no pair spans two roots
+            ru, rv = self._find(u), self._find(v)
+            apart = ru != rv
+            u, v, ru, rv = u[apart], v[apart], ru[apart], rv[apart]
+            np.minimum.at(parent, np.maximum(ru, rv), np.minimum(ru, rv))
+        roots = self._find(np.arange(len(idx)))
+        self.comp = np.zeros(size)
+        self.comp[: len(idx)] = np.bincount(roots, open_area[idx], len(idx))
+        self.next = len(idx)
+        return size
 
     def _find(self, labels: NDArray) -> NDArray:
         """Root label of each label (pointer jumping; the paths are compressed)."""
@@ -305,18 +322,18 @@ class OpeningsBlock:
         s = int(self.stands[k])
         if self.urm:
             return not self.near[s]
-        nb = self.indices[self.indptr[s] : self.indptr[s + 1]]
-        nb = nb[self.open[nb]].tolist()
         if full_area > self.limit:
             return False
+        nb = self.indices[self.indptr[s] : self.indptr[s + 1]]
         find = self._root
-        roots = {find(x) for x in self.label[nb].tolist()}
+        roots = {find(x) for x in self.label[nb[self.open[nb]]].tolist()}
         if self.open[s]:
             roots.add(find(int(self.label[s])))
-        total = a + sum(float(self.comp[r]) for r in roots)
+        comp = self.comp
+        total = a + sum(float(comp[r]) for r in roots)
         if total > self.limit:
             return False
-        self._pending = (np.fromiter(roots, dtype=np.int64, count=len(roots)), total)
+        self._pending = (roots, total)
         return True
 
     def _root(self, x: int) -> int:
@@ -336,7 +353,8 @@ class OpeningsBlock:
             return
         roots, total = self._pending
         new = self.next
-        self.parent[roots] = new
+        for r in roots:
+            self.parent[r] = new
         self.comp[new] = total
         self.label[s] = new
         self.next += 1
