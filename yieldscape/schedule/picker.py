@@ -47,7 +47,7 @@ _REL = 1e-9
 _MIN_PART_HA = 1e-9
 _SAFE = 1e-7  # margin of the block's stop bound over float rounding (relative)
 _FIRST_BLOCK, _MIN_BLOCK, _MAX_BLOCK = 256, 32, 8192
-_SHRINK, _GROW = 10, 30  # halve the block when over 1/10 of it is settled, double under 1/30
+_BLOCK_US, _SETTLE_US = 100.0, 5.0  # cost model of the block size (see _resize), measured
 
 
 def sequential_pick(
@@ -150,6 +150,21 @@ class _Pick:
         return np.concatenate(self.chunks) if self.chunks else np.zeros(0, dtype=np.intp)
 
 
+def _resize(
+    size: int, last: tuple[int, float], m: int, settled: int, smallest: int
+) -> tuple[int, tuple[int, float]]:
+    """The next block size, by hill climbing on a cost model per candidate: a fixed cost per
+    block and one per candidate settled alone. Settling grows with the block where candidates
+    in priority order are scattered (and smaller blocks pay), but not where each touches the
+    one before it (a cluster cut in order, where larger blocks pay)."""
+    cost = (_BLOCK_US + _SETTLE_US * settled) / m
+    direction, before = last
+    if cost > before * 1.05:  # the last move made it worse: turn back
+        direction = -direction
+    new = min(_MAX_BLOCK, max(smallest, size * 2 if direction > 0 else size // 2))
+    return new, (direction, cost)
+
+
 def _add_in_order(start: float, values: NDArray) -> float:
     """start + v0 + v1 + ... added in sequence (np.cumsum adds in order; np.sum does not)."""
     return float(np.cumsum(np.concatenate(([start], values)))[-1])
@@ -191,6 +206,7 @@ def block_pick(
     blocks = [r.block(t, stands, area) for r in rules]
     pick = _Pick(vol, area, target, cap, len(rules))
     n, lo, size, stop = len(stands), 0, first_block, -1
+    step = (1, np.inf)  # the last resize (x2 or /2) and the cost per candidate before it
     smallest = min(_MIN_BLOCK, first_block)
     while lo < n:
         hi = min(n, lo + size)
@@ -204,10 +220,8 @@ def block_pick(
             lo += 1
             continue
         settled = _block(pick, blocks, lo, first[:m])
-        if settled * _SHRINK > m:  # many answers depend on each other: smaller blocks
-            size = max(smallest, size // 2)
-        elif settled * _GROW < m and lo + m == hi:
-            size = min(_MAX_BLOCK, size * 2)
+        if lo + m == hi:  # a whole block: its size moves toward the cheapest
+            size, step = _resize(size, step, m, settled, smallest)
         lo += m
     if not whole and not (0 <= stop < n - 1 and pick.goal == target):
         return None
