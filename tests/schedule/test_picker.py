@@ -9,15 +9,22 @@ volumes, targets, caps and budgets in eighths so that every sum is exact in bina
 """
 
 import copy
+import importlib
 
 import numpy as np
+import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from yieldscape.adjacency import Adjacency
+from yieldscape.growth import ChapmanRichards
+from yieldscape.projection import CurveSet, Periods, StandArrays
+from yieldscape.schedule import HarvestRules, find_even_flow
 from yieldscape.schedule.cover import CoverRule, CoverRules, PeriodBudgets
 from yieldscape.schedule.picker import block_pick, sequential_pick
 from yieldscape.schedule.spatial import SpatialRules
+
+simulate_module = importlib.import_module("yieldscape.schedule.simulate")
 
 T = 30.0  # the period's harvest time [years since the start]
 
@@ -170,3 +177,49 @@ def test_a_refusal_counts_against_the_first_rule_that_refuses_in_order():
         full, part, _, refused = pick(T, stands, one, one, np.inf, np.inf, rules)
         np.testing.assert_array_equal(full, [0, 3])
         assert (part, refused) == (-1, [1, 1])
+
+
+@pytest.mark.parametrize(
+    "max_opening, cover", [(0.0, False), (4.0, False), (4.0, True), (None, True)]
+)
+def test_the_schedule_is_the_one_of_the_sequential_pick_on_the_whole_queue(
+    monkeypatch, max_opening, cover
+):
+    # End to end: the even-flow search with the block pick on the first of each period's queue
+    # (8 parts and more) against the same search with the sequential pick given the whole
+    # queue (as before the block pick). A 10 x 10 grid, ages from four values (ties broken by
+    # stand id, so that neighbours come one after the other), areas in eighths, green-up of
+    # two periods.
+    rng = np.random.default_rng(4)
+    n = 100
+    adj = grid_graph(rng, 10, 10, diagonals=False)
+    stands = StandArrays(
+        np.zeros(n, np.int32),
+        np.full(n, 20.0),
+        rng.choice([60.0, 80.0, 100.0, 120.0], n),
+        rng.integers(4, 24, n) / 8,
+        np.full(n, 60.0),
+        np.zeros(n),
+        np.arange(n),
+        zone_idx=np.zeros(n, np.int64),
+    )
+    rules = HarvestRules(
+        spatial=None if max_opening is None else SpatialRules(adj, 20.0, max_opening),
+        cover=CoverRules((CoverRule(-1, "*", "old", 90.0, 0.3),), np.array([stands.area_ha.sum()]))
+        if cover
+        else None,
+    )
+    curves = CurveSet(["pine"], [ChapmanRichards(450.0, 0.035, 3.0)])
+    periods = Periods(2030, 10, 6, "midpoint")
+    monkeypatch.setattr(simulate_module, "_QUEUE_MIN", 8)  # queues shorter than the forest
+    flow = find_even_flow(stands, curves, periods, rules, 0.1, 0.5)
+
+    def whole_queue_only(t, stands, vol, area, target, cap, rules, whole=True):
+        return sequential_pick(t, stands, vol, area, target, cap, rules) if whole else None
+
+    monkeypatch.setattr(simulate_module, "block_pick", whole_queue_only)
+    ref = find_even_flow(stands, curves, periods, rules, 0.1, 0.5)
+    assert flow.level_m3_per_period == ref.level_m3_per_period > 0
+    a, b = flow.simulation, ref.simulation
+    for got, want in [(a.event_stand, b.event_stand), (a.event_area_ha, b.event_area_ha)]:
+        np.testing.assert_array_equal(got, want)

@@ -125,7 +125,7 @@ class _Pick:
         ok &= before_a + a < self.cap * (1 - _SAFE)
         return len(ok) if ok.all() else int(np.argmin(ok))
 
-    def step(self, k: int, stands: NDArray, blocks: list) -> bool:
+    def step(self, k: int, blocks: list) -> bool:
         """Candidate k with the sequential logic; whether the pick goes on."""
         vol, area, goal, cap = self.vol, self.area, self.goal, self.cap
         if self.got_v >= goal * (1 - _REL) or self.got_a >= cap * (1 - _REL):
@@ -206,7 +206,7 @@ def block_pick(
     blocks = [r.block(t, stands, area) for r in rules]
     pick = _Pick(vol, area, target, cap, len(rules))
     n, lo, size, stop = len(stands), 0, first_block, -1
-    step = (1, np.inf)  # the last resize (x2 or /2) and the cost per candidate before it
+    trend = (1, np.inf)  # the last resize (x2 or /2) and the cost per candidate before it
     smallest = min(_MIN_BLOCK, first_block)
     while lo < n:
         hi = min(n, lo + size)
@@ -214,15 +214,17 @@ def block_pick(
         first = np.where(refused.any(axis=0), np.argmax(refused, axis=0), -1)
         m = pick.safe_prefix(lo, hi, first < 0)
         if m == 0:  # the stop may be here: this candidate alone, exactly
-            if not pick.step(lo, stands, blocks):
+            if not pick.step(lo, blocks):
                 stop = lo
                 break
             lo += 1
             continue
         settled = _block(pick, blocks, lo, first[:m])
         if lo + m == hi:  # a whole block: its size moves toward the cheapest
-            size, step = _resize(size, step, m, settled, smallest)
+            size, trend = _resize(size, trend, m, settled, smallest)
         lo += m
+    # the pick is the whole queue's when it stopped short of the end on the target itself (a
+    # stop at the last candidate would read "all taken" where the queue has more)
     if not whole and not (0 <= stop < n - 1 and pick.goal == target):
         return None
     full = pick.full()
