@@ -63,10 +63,14 @@ class Adjacency:
             return out
         pos = np.full(self.n, -1, dtype=np.int64)
         pos[idx] = np.arange(len(idx))
-        rows = np.repeat(np.arange(self.n), np.diff(self.indptr))
-        keep = members[rows] & members[self.indices]
+        # the members' rows only (the same pairs, in the same order, as a pass over all rows)
+        start = self.indptr[idx]
+        deg = self.indptr[idx + 1] - start
+        rows = np.repeat(np.arange(len(idx)), deg)
+        cols = self.indices[np.repeat(start - np.cumsum(deg) + deg, deg) + np.arange(len(rows))]
+        keep = members[cols]
         sub = coo_matrix(
-            (np.ones(int(keep.sum()), dtype=np.int8), (pos[rows[keep]], pos[self.indices[keep]])),
+            (np.ones(int(keep.sum()), dtype=np.int8), (rows[keep], pos[cols[keep]])),
             shape=(len(idx), len(idx)),
         )
         _, labels = connected_components(sub, directed=False)

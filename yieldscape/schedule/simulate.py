@@ -29,7 +29,7 @@ from yieldscape.projection import (
 )
 from yieldscape.regimes import Regimes
 from yieldscape.schedule.cover import CoverRules
-from yieldscape.schedule.picker import sequential_pick
+from yieldscape.schedule.picker import block_pick
 from yieldscape.schedule.spatial import SpatialRules
 
 _REL = 1e-9  # relative tolerance on volume targets
@@ -393,6 +393,7 @@ class _Cut:
     age_area: float = 0.0
     blocked: str = ""
     all_taken: bool = True
+    tested: int = 0  # candidates a rule-based pick went through (cut or refused)
     # stand, age, area, volume, code and treatment (0 clearcut, 1 thinning) of each event
     events: tuple[NDArray, ...] | None = None
     # the parts checked for thinnings due and their removals [m3/ha] (0 where none is due)
@@ -440,7 +441,7 @@ def _cut_period(
     that would break them. Thinnings due this period are taken on the parts not clearcut
     and count toward the target: a clearcut takes its part's standing volume, thinnings
     pending included, so it adds its volume less those thinnings to the period's total.
-    The aspatial pick ranks only about ``queue_size`` parts first (see :func:`_queue`)."""
+    The pick ranks only about ``queue_size`` parts first (see :func:`_queue`)."""
     cut = _Cut()
     live, due_ha, due_age, upto, nxt = _thinnings_due(parts, age_h, reg)
     cut.checked = live, due_ha, upto, nxt
@@ -454,8 +455,6 @@ def _cut_period(
     full_pos = part_pos = np.zeros(0, dtype=np.intp)
     if target > thin_total and len(elig):
         first = None if planned_first is None else planned_first[parts.stand[elig]]
-        if spatial is not None or rules.cover is not None:
-            queue_size = len(elig)  # the sequential pick is given the whole queue
         goal = target - thin_total
         while True:  # rank more of the queue until the pick is decided within it
             cand, v_cand, whole = _queue(
@@ -463,7 +462,7 @@ def _cut_period(
             )
             if len(cand):
                 full_pos, part_pos, decided = _pick(
-                    cut, parts, rules, spatial, t, age_h, cand, v_cand, pending, goal
+                    cut, parts, rules, spatial, t, age_h, cand, v_cand, pending, goal, whole
                 )
                 if whole or decided:
                     break
@@ -549,10 +548,11 @@ def _pick(
     v_ha: NDArray,
     pending: NDArray,
     target: float,
+    whole: bool,
 ) -> tuple[NDArray, NDArray, bool]:
     """The candidates cut whole and the one cut partly (positions in ``cand``), by volume net
     of the thinnings a clearcut forgoes, and whether the pick is decided within ``cand``
-    (always for the sequential pick, which is given the whole queue)."""
+    (the first of the period's queue unless ``whole``)."""
     area = parts.area
     vol = (v_ha - pending[cand]) * area[cand]
     cap = np.inf if rules.max_area_ha is None else float(rules.max_area_ha)
@@ -563,9 +563,12 @@ def _pick(
     if not pick:
         full_pos, part_pos, frac, decided = _pick_prefix(vol, area[cand], target, cap)
     else:
-        full_pos, part_pos, frac, refused = sequential_pick(
-            t, parts.stand[cand], vol, area[cand], target, cap, pick
-        )
+        picked = block_pick(t, parts.stand[cand], vol, area[cand], target, cap, pick, whole)
+        if picked is None:  # more of the queue could change the pick: rank more
+            none = np.zeros(0, dtype=np.intp)
+            return none, none, False
+        full_pos, part_pos, frac, refused = picked
+        cut.tested = len(full_pos) + (part_pos >= 0) + sum(refused)
         names = [r.name for r, n in zip(pick, refused, strict=True) if n]
         cut.blocked = " and ".join(dict.fromkeys(names))
     cut.full = cand[full_pos]
@@ -863,7 +866,8 @@ def simulate(
         cut = _cut_period(
             parts, curves, reg, rules, spatial, t, age_h, target, first, record, queue_size
         )
-        queue_size = max(2 * (len(cut.full) + 1), _QUEUE_MIN)  # this period's cut, twice
+        # this period's cut (and the candidates the rules refused), twice
+        queue_size = max(2 * (len(cut.full) + 1), 2 * cut.tested, _QUEUE_MIN)
         out.h[p], out.ha[p], out.age_area[p] = cut.volume_m3, cut.area_ha, cut.age_area
         out.thin_m3[p], out.thin_ha[p] = cut.thinning_m3, cut.thinning_ha
         if cut.events is not None:
