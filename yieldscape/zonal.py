@@ -157,23 +157,43 @@ def _pixel_edges(
     polys: np.ndarray, transform: rasterio.Affine
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Every ring edge of ``polys`` in pixel coordinates (the inverse geotransform applied as
-    GDAL applies it) and the index of its polygon."""
-    parts, part_of = shapely.get_parts(polys, return_index=True)
-    rings, ring_of = shapely.get_rings(parts, return_index=True)
-    xy, vertex_of = shapely.get_coordinates(rings, return_index=True)
+    GDAL applies it), each ring walked clockwise, and the index of its polygon."""
+    xy, ring, owner = _rings(polys)
     # GDALInvGeoTransform for a north-up transform, then x' = g0 + x * g1, y' = g3 + y * g5
     g0, g1 = -transform.c / transform.a, 1.0 / transform.a
     g3, g5 = -transform.f / transform.e, 1.0 / transform.e
     px = g0 + xy[:, 0] * g1
     py = g3 + xy[:, 1] * g5
-    same = vertex_of[1:] == vertex_of[:-1]  # consecutive vertices of one ring
-    ring = vertex_of[1:][same]
+    same = ring[1:] == ring[:-1]  # consecutive vertices of one ring
+    edge_ring = ring[1:][same]
     x1, y1, x2, y2 = px[:-1][same], py[:-1][same], px[1:][same], py[1:][same]
-    # GDAL 3.10 fills an edge on a row centre as if every ring ran clockwise (in x, y)
-    ccw = shapely.is_ccw(rings)[ring]
+    # GDAL 3.10 fills an edge on a row centre as if every ring ran clockwise (in x, y): the
+    # sign of the ring's area (shoelace, about its first vertex) tells which ones to turn
+    first = np.flatnonzero(np.r_[True, ~same])
+    ox, oy = xy[first, 0][edge_ring], xy[first, 1][edge_ring]
+    x, y = xy[:, 0], xy[:, 1]
+    cross = (x[:-1][same] - ox) * (y[1:][same] - oy) - (x[1:][same] - ox) * (y[:-1][same] - oy)
+    ccw = (np.bincount(edge_ring, cross, minlength=len(first)) > 0)[edge_ring]
     x1, x2 = np.where(ccw, x2, x1), np.where(ccw, x1, x2)
     y1, y2 = np.where(ccw, y2, y1), np.where(ccw, y1, y2)
-    return x1, y1, x2, y2, part_of[ring_of[ring]]
+    return x1, y1, x2, y2, owner[edge_ring]
+
+
+def _rings(polys: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The vertices of every ring of ``polys`` (each ring closed), the ring of each vertex
+    (rings numbered in order) and the polygon of each ring. A polygon without holes is one
+    ring: its coordinates are read as they are, with no shapely object made for it."""
+    simple = (shapely.get_type_id(polys) == 3) & (shapely.get_num_interior_rings(polys) == 0)
+    one = np.flatnonzero(simple)
+    xy_one, of_one = shapely.get_coordinates(polys[one], return_index=True)
+    rest = np.flatnonzero(~simple)
+    parts, part_of = shapely.get_parts(polys[rest], return_index=True)
+    rings, ring_of = shapely.get_rings(parts, return_index=True)
+    xy_rest, of_rest = shapely.get_coordinates(rings, return_index=True)
+    xy = np.concatenate([xy_one, xy_rest])
+    ring = np.concatenate([of_one, of_rest + len(one)])
+    owner = np.concatenate([one, rest[part_of[ring_of]]])
+    return xy, ring, owner
 
 
 def _crossing_spans(x1, y1, x2, y2, owner, label, height):  # noqa: ANN001, ANN202
