@@ -47,7 +47,9 @@ def test_each_cell_takes_the_stand_holding_its_centre(stands):
 
 @pytest.mark.parametrize("cell", [3.3, 37.0, 100.0])
 @pytest.mark.parametrize("origin", [(0.0, 1500.0), (-13.7, 1504.6), (200.0, 1300.0)])
-def test_burn_labels_is_gdal_on_irregular_stands(stands, cell, origin):
+@pytest.mark.parametrize("chunk", [7, 100_000])  # polygons a chunk: several, one
+def test_burn_labels_is_gdal_on_irregular_stands(stands, cell, origin, chunk, monkeypatch):
+    monkeypatch.setattr(zonal, "_CHUNK", chunk)
     transform = rasterio.transform.from_origin(*origin, cell, cell)
     shape = (int(1600 / cell), int(2100 / cell))  # past the stands on two sides
     np.testing.assert_array_equal(

@@ -123,14 +123,15 @@ def burn_labels(
     keep = np.flatnonzero(~(shapely.is_empty(geoms) | shapely.is_missing(geoms)))
     if not len(keep) or not width or not height:
         return out
-    x1, y1, x2, y2, owner = _pixel_edges(geoms[keep], transform)
-    label = (keep + 1).astype(np.int32)
-    row, start, end, lab = _crossing_spans(x1, y1, x2, y2, owner, label, height)
-    flat = _flat_spans(x1, y1, x2, y2, owner, label, height)
-    row = np.concatenate([row, flat[0]])
-    start = np.clip(np.concatenate([start, flat[1]]), 0, width)
-    end = np.clip(np.concatenate([end, flat[2]]), 0, width)
-    lab = np.concatenate([lab, flat[3]])
+    spans = []
+    for i in range(0, len(keep), _CHUNK):  # a chunk of polygons at a time: bounded memory
+        part = keep[i : i + _CHUNK]
+        x1, y1, x2, y2, owner = _pixel_edges(geoms[part], transform)
+        label = (part + 1).astype(np.int32)
+        spans.append(_crossing_spans(x1, y1, x2, y2, owner, label, height))
+        spans.append(_flat_spans(x1, y1, x2, y2, owner, label, height))
+    row, start, end, lab = (np.concatenate(column) for column in zip(*spans, strict=True))
+    start, end = np.clip(start, 0, width), np.clip(end, 0, width)
     some = start < end
     row, start, end, lab = row[some], start[some], end[some], lab[some]
     order = np.lexsort((start, row))
@@ -147,6 +148,9 @@ def burn_labels(
         first = np.repeat(row * width + start - np.cumsum(length) + length, length)
         np.maximum.at(out.ravel(), first + np.arange(len(first)), np.repeat(lab, length))
     return out
+
+
+_CHUNK = 100_000  # polygons whose edges are held at once (about 60 MB for squares)
 
 
 def _north_up(transform: rasterio.Affine) -> bool:

@@ -15,6 +15,7 @@ import pyogrio
 from pyogrio.errors import DataLayerError, DataSourceError
 
 from yieldscape.errors import InventoryError
+from yieldscape.runlog import release_freed_memory
 
 
 def read_layer(
@@ -78,6 +79,7 @@ def write_gpkg_layer(path: Path, frame: pd.DataFrame, layer: str, spatial: bool 
         append=not create,
         dataset_options={"VERSION": GPKG_VERSION} if create else None,
     )
+    release_freed_memory()  # the Arrow copy of a large layer, before the next one
 
 
 @contextmanager
