@@ -106,45 +106,78 @@ def harvests_layer(
     (``analysis_unit``) a stand's parts grow as when cut.
     """
     sim = flow.simulation
-    ev = pd.DataFrame(
-        {
-            "stand": sim.event_stand.astype(np.int64),
-            "period": sim.event_period.astype(np.int64),
-            "treatment": sim.event_treatment.astype(np.int64),
-            "code": sim.event_code.astype(np.int64),
-            "age_area": sim.event_age_years * sim.event_area_ha,
-            "area_ha": sim.event_area_ha,
-            "volume_m3": sim.event_volume_m3,
-        }
+    period, stand = sim.event_period.astype(np.int64), sim.event_stand.astype(np.int64)
+    treatment, code = sim.event_treatment.astype(np.int64), sim.event_code.astype(np.int64)
+    # the events grouped by (period, stand, treatment, code) in that order, each group's
+    # events in the order cut: as DataFrame.groupby(sort=True) without its frames
+    order = np.lexsort((code, treatment, stand, period))
+    keys = [k[order] for k in (period, stand, treatment, code)]
+    same = np.ones(len(order), dtype=bool)  # as the event before it in every key
+    for k in keys:
+        same[1:] &= k[1:] == k[:-1]
+    new = ~same
+    new[:1] = True
+    group = np.cumsum(new) - 1
+    age_area, area, volume = group_sums(
+        group,
+        [
+            (sim.event_age_years * sim.event_area_ha)[order],
+            sim.event_area_ha[order],
+            sim.event_volume_m3[order],
+        ],
     )
-    keys = ["period", "stand", "treatment", "code"]
-    agg = ev.groupby(keys, sort=True).sum().reset_index()
-    pos = agg["stand"].to_numpy()
+    period, pos, treatment, code = (k[new] for k in keys)
     # a cut is partial when it takes less than the stand's harvestable area
     limit = "harvestable_ha" if "harvestable_ha" in stands else "area_ha"
     stand_area = stands[limit].to_numpy()[pos]
-    area = agg["area_ha"].to_numpy()
+    # text columns taken from Arrow-backed arrays by position: no Python string per row
+    units = pd.Series(np.array(codes, dtype=object)).array
+    kinds = pd.Series(np.array(TREATMENTS, dtype=object)).array
     frame = pd.DataFrame(
         {
-            "stand_id": stands["stand_id"].to_numpy()[pos],
-            "species": stands["species"].to_numpy()[pos],
-            "analysis_unit": np.array(codes, dtype=object)[agg["code"].to_numpy()],
-            "zone": stands["zone"].to_numpy()[pos],
-            "treatment": np.array(TREATMENTS, dtype=object)[agg["treatment"].to_numpy()],
-            "period": agg["period"].to_numpy(),
-            "start_year": periods.start_years[agg["period"].to_numpy() - 1],
-            "harvest_year": calendar_years(periods.harvest_years[agg["period"].to_numpy() - 1]),
-            "age_years": agg["age_area"].to_numpy() / area,
+            "stand_id": stands["stand_id"].array.take(pos),
+            "species": stands["species"].array.take(pos),
+            "analysis_unit": units.take(code),
+            "zone": stands["zone"].array.take(pos),
+            "treatment": kinds.take(treatment),
+            "period": period,
+            "start_year": periods.start_years[period - 1],
+            "harvest_year": calendar_years(periods.harvest_years[period - 1]),
+            "age_years": age_area / area,
             "area_ha": area,
-            "volume_m3": agg["volume_m3"].to_numpy(),
-            "volume_m3_ha": agg["volume_m3"].to_numpy() / area,
-            "partial": (area < stand_area * (1 - 1e-9)) & (agg["treatment"].to_numpy() == 0),
+            "volume_m3": volume,
+            "volume_m3_ha": volume / area,
+            "partial": (area < stand_area * (1 - 1e-9)) & (treatment == 0),
         }
     )
     geom = stands.geometry.to_numpy()[pos]
     return gpd.GeoDataFrame(
         frame, geometry=gpd.GeoSeries(geom, crs=stands.crs).values, crs=stands.crs
     )
+
+
+def group_sums(group: np.ndarray, columns: list[np.ndarray]) -> list[np.ndarray]:
+    """Per group, the sum of each column's values, ``group`` being sorted (0, 0, 1, 2, 2, ...)
+    and each group's values in the order to add them; NaN skipped. The sums are pandas'
+    ``groupby().sum()`` to the last bit: Kahan-compensated addition in that order
+    (``pandas/_libs/groupby.pyx``, ``group_sum``), one pass per rank within a group."""
+    n = int(group[-1]) + 1 if len(group) else 0
+    starts = np.flatnonzero(np.r_[True, group[1:] != group[:-1]]) if len(group) else group
+    rank = np.arange(len(group)) - starts[group] if len(group) else group
+    out = []
+    for values in columns:
+        total, comp = np.zeros(n), np.zeros(n)
+        for k in range(int(rank.max()) + 1 if len(rank) else 0):
+            at = np.flatnonzero((rank == k) & ~np.isnan(values))
+            g, v = group[at], values[at]
+            with np.errstate(invalid="ignore"):  # inf - inf: the NaN dropped below
+                y = v - comp[g]
+                t = total[g] + y
+                c = t - total[g] - y
+            comp[g] = np.where(np.isnan(c), 0.0, c)  # an infinite sum stays infinite
+            total[g] = t
+        out.append(total)
+    return out
 
 
 def stands_layer(
