@@ -329,3 +329,39 @@ def test_gdal_of_the_system_opens_every_layer_without_a_word(run_dir):
         name: pyogrio.read_info(gpkg, layer=name)["features"]
         for name, _ in pyogrio.list_layers(gpkg)
     }
+
+
+def test_a_long_table_written_in_batches_is_the_table_pyogrio_writes_whole(tmp_path, monkeypatch):
+    # the reference: pyogrio.write_dataframe writing the whole frame in one Arrow table
+    import geopandas as gpd
+
+    from yieldscape.io import vector
+
+    frame = pd.DataFrame(
+        {
+            "stand_id": np.arange(10, dtype=np.int64),
+            "species": pd.Series(list("abcdefghij"), dtype="str"),
+            "year": pd.array([None] * 3 + [2027] * 7, dtype="Int64"),  # the first batch all NA
+            "age_years": np.linspace(0, 90, 10),
+            "partial": np.arange(10) % 3 == 0,
+        }
+    )
+    stands = gpd.GeoDataFrame({"a": [1]}, geometry=[shapely.box(0, 0, 1, 1)], crs="EPSG:3006")
+    files = {}
+    for batch in (3, 10**6):
+        monkeypatch.setattr(vector, "BATCH_ROWS", batch)
+        path = files[batch] = tmp_path / f"{batch}.gpkg"
+        vector.write_gpkg_layer(path, stands, "stands")
+        vector.write_gpkg_layer(path, frame, "table", spatial=False)
+    got, want = (
+        pyogrio.read_dataframe(files[b], layer="table", fid_as_index=True) for b in (3, 10**6)
+    )
+    pd.testing.assert_frame_equal(got, want, check_exact=True)
+    assert (
+        pyogrio.read_info(files[3], layer="table")["dtypes"].tolist()
+        == pyogrio.read_info(files[10**6], layer="table")["dtypes"].tolist()
+    )
+    with sqlite3.connect(files[3]) as a, sqlite3.connect(files[10**6]) as b:
+        query = "SELECT sql FROM sqlite_master WHERE name = 'table'"
+        assert a.execute(query).fetchall() == b.execute(query).fetchall()
+    assert got["year"].isna().sum() == 3

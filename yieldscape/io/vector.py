@@ -10,7 +10,9 @@ from contextlib import closing, contextmanager
 from pathlib import Path
 
 import geopandas as gpd
+import numpy as np
 import pandas as pd
+import pyarrow as pa
 import pyogrio
 from pyogrio.errors import DataLayerError, DataSourceError
 
@@ -68,18 +70,44 @@ GPKG_VERSION = "1.2"
 
 def write_gpkg_layer(path: Path, frame: pd.DataFrame, layer: str, spatial: bool = True) -> None:
     """Write (or add) one layer to a GeoPackage; ``spatial=False`` writes an attribute table
-    (``gpkg_contents.data_type = 'attributes'``). The file is created at :data:`GPKG_VERSION`."""
+    (``gpkg_contents.data_type = 'attributes'``). The file is created at :data:`GPKG_VERSION`.
+    A long attribute table added to a file goes in batches of :data:`BATCH_ROWS` rows (one
+    layer, one write), so that only a batch at a time is held as Arrow."""
     create = not path.exists()
-    pyogrio.write_dataframe(
-        frame if spatial else pd.DataFrame(frame),
-        path,
-        layer=layer,
-        driver="GPKG",
-        use_arrow=True,
-        append=not create,
-        dataset_options={"VERSION": GPKG_VERSION} if create else None,
-    )
+    if spatial or create or len(frame) <= BATCH_ROWS or not _arrow_typed(frame):
+        pyogrio.write_dataframe(
+            frame if spatial else pd.DataFrame(frame),
+            path,
+            layer=layer,
+            driver="GPKG",
+            use_arrow=True,
+            append=not create,
+            dataset_options={"VERSION": GPKG_VERSION} if create else None,
+        )
+    else:
+        table = pd.DataFrame(frame)
+        schema = pa.Schema.from_pandas(table, preserve_index=False)
+        batches = (
+            batch
+            for i in range(0, len(table), BATCH_ROWS)
+            for batch in pa.Table.from_pandas(
+                table.iloc[i : i + BATCH_ROWS], schema=schema, preserve_index=False
+            ).to_batches()
+        )
+        reader = pa.RecordBatchReader.from_batches(schema, batches)
+        pyogrio.write_arrow(reader, path, layer=layer, driver="GPKG", append=True)
     release_freed_memory()  # the Arrow copy of a large layer, before the next one
+
+
+BATCH_ROWS = 250_000
+
+
+def _arrow_typed(frame: pd.DataFrame) -> bool:
+    """Whether every column converts to one Arrow type whatever its rows (as pyogrio would
+    convert the whole frame): no object or time-zoned columns, which it treats specially."""
+    return not any(
+        dtype == np.dtype(object) or isinstance(dtype, pd.DatetimeTZDtype) for dtype in frame.dtypes
+    )
 
 
 @contextmanager

@@ -253,7 +253,8 @@ def stand_ages_table(
             "stand_id": stands["stand_id"].array.take(np.tile(np.arange(n), k)),
             "year": np.repeat(np.asarray(years, dtype=np.int64), n),
             **cols,
-        }
+        },
+        copy=False,  # the columns as they are, not consolidated into a copy
     )
 
 

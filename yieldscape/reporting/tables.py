@@ -106,27 +106,28 @@ def harvests_layer(
     (``analysis_unit``) a stand's parts grow as when cut.
     """
     sim = flow.simulation
-    period, stand = sim.event_period.astype(np.int64), sim.event_stand.astype(np.int64)
-    treatment, code = sim.event_treatment.astype(np.int64), sim.event_code.astype(np.int64)
     # the events grouped by (period, stand, treatment, code) in that order, each group's
-    # events in the order cut: as DataFrame.groupby(sort=True) without its frames
-    order = np.lexsort((code, treatment, stand, period))
-    keys = [k[order] for k in (period, stand, treatment, code)]
-    same = np.ones(len(order), dtype=bool)  # as the event before it in every key
-    for k in keys:
-        same[1:] &= k[1:] == k[:-1]
-    new = ~same
-    new[:1] = True
-    group = np.cumsum(new) - 1
+    # events in the order cut, as DataFrame.groupby(sort=True) has them: one stable sort of
+    # the four keys packed into one integer
+    n_stands, n_kinds, n_codes = len(stands), len(TREATMENTS), max(len(codes), 1)
+    key = sim.event_period.astype(np.int64) * n_stands + sim.event_stand
+    key = (key * n_kinds + sim.event_treatment) * n_codes + sim.event_code
+    order = np.argsort(key, kind="stable")
+    key = key[order]
+    new = np.r_[True, key[1:] != key[:-1]] if len(key) else np.zeros(0, dtype=bool)
     age_area, area, volume = group_sums(
-        group,
+        np.cumsum(new) - 1,
         [
             (sim.event_age_years * sim.event_area_ha)[order],
             sim.event_area_ha[order],
             sim.event_volume_m3[order],
         ],
     )
-    period, pos, treatment, code = (k[new] for k in keys)
+    del order
+    key = key[new]
+    key, code = np.divmod(key, n_codes)
+    key, treatment = np.divmod(key, n_kinds)
+    period, pos = np.divmod(key, n_stands)
     # a cut is partial when it takes less than the stand's harvestable area
     limit = "harvestable_ha" if "harvestable_ha" in stands else "area_ha"
     stand_area = stands[limit].to_numpy()[pos]
@@ -148,7 +149,8 @@ def harvests_layer(
             "volume_m3": volume,
             "volume_m3_ha": volume / area,
             "partial": (area < stand_area * (1 - 1e-9)) & (treatment == 0),
-        }
+        },
+        copy=False,  # the new arrays as they are, not consolidated into a copy
     )
     geom = stands.geometry.to_numpy()[pos]
     return gpd.GeoDataFrame(
@@ -190,7 +192,7 @@ def stands_layer(
     """The input stands with their start volume and what the schedule does to each."""
     sim = flow.simulation
     n = len(stands)
-    out = stands.copy()
+    out = stands.copy(deep=False)  # copy-on-write: the new columns leave ``stands`` alone
     out["volume_m3_ha"] = start_volume_m3_ha(arrays, curves)
     clear = sim.event_treatment == 0
     stand, period = sim.event_stand[clear], sim.event_period[clear]
