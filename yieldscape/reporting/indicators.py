@@ -280,13 +280,16 @@ def harvest_breakdown(
     if not len(sim.event_stand):
         return pd.DataFrame(columns=cols)
     codes, names = _zone_names(stands)
-    species = np.array(curve_codes, dtype=object)[sim.event_code.astype(np.int64)]
+    # group by each code's place among the codes in name order, not by its name: the same
+    # groups in the same order, without a string per event
+    by_name = sorted(curve_codes)
+    rank = np.array([by_name.index(c) for c in curve_codes], dtype=np.int64)
     clear = sim.event_treatment == 0
     ev = pd.DataFrame(
         {
             "period": sim.event_period.astype(np.int64),
             "zone_code": codes[sim.event_stand],
-            "species": species,
+            "species": rank[sim.event_code.astype(np.int64)],
             "harvest_ha": np.where(clear, sim.event_area_ha, 0.0),
             "harvest_m3": sim.event_volume_m3,
             "age_area": np.where(clear, sim.event_age_years * sim.event_area_ha, 0.0),
@@ -299,7 +302,7 @@ def harvest_breakdown(
             "period": g["period"],
             "start_year": periods.start_years[g["period"].to_numpy() - 1],
             "zone": np.array(names, dtype=object)[g["zone_code"].to_numpy()],
-            "species": g["species"],
+            "species": np.array(by_name, dtype=object)[g["species"].to_numpy()],
             "harvest_ha": g["harvest_ha"],
             "harvest_m3": g["harvest_m3"],
             "harvest_ha_per_year": g["harvest_ha"] / L,

@@ -160,9 +160,12 @@ def harvests_layer(
 
 def group_sums(group: np.ndarray, columns: list[np.ndarray]) -> list[np.ndarray]:
     """Per group, the sum of each column's values, ``group`` being sorted (0, 0, 1, 2, 2, ...)
-    and each group's values in the order to add them; NaN skipped. The sums are pandas'
-    ``groupby().sum()`` to the last bit: Kahan-compensated addition in that order
-    (``pandas/_libs/groupby.pyx``, ``group_sum``), one pass per rank within a group."""
+    and each group's values in the order to add them; NaN skipped. Kahan's compensated
+    summation in that order (Kahan 1965, *Further remarks on reducing truncation errors*,
+    Comm. ACM 8:40), as pandas' ``groupby().sum()`` adds (``pandas/_libs/groupby.pyx``,
+    ``group_sum``), done for all groups at once, one pass per rank within a group. The
+    harvests built with it equal those of the pandas groupby it replaced, at 100k stands and
+    on the sample region."""
     n = int(group[-1]) + 1 if len(group) else 0
     starts = np.flatnonzero(np.r_[True, group[1:] != group[:-1]]) if len(group) else group
     rank = np.arange(len(group)) - starts[group] if len(group) else group
@@ -235,27 +238,38 @@ def wood_flow_by_product(
     """
     sim = flow.simulation
     sp = sim.event_code
-    parts = []
+    parts, products = [], []
     for i, code in enumerate(curves.codes):  # per species and product: a handful
         mine = sp == i
+        period = sim.event_period[mine].astype(np.int64)
         shares = product_shares(scenario.species[code].products, sim.event_age_years[mine])
         for product, share in shares.items():
-            parts.append(
-                pd.DataFrame(
-                    {
-                        "period": sim.event_period[mine].astype(np.int64),
-                        "species": code,
-                        "product": product,
-                        "volume_m3": sim.event_volume_m3[mine] * share,
-                    }
-                )
-            )
-    frame = (
-        pd.concat(parts, ignore_index=True)
-        if parts
-        else pd.DataFrame(columns=["period", "species", "product", "volume_m3"])
+            if product not in products:
+                products.append(product)
+            volume = sim.event_volume_m3[mine] * share
+            parts.append((period, i, products.index(product), volume))
+    # species and products as their places in name order (small integers, not a string per
+    # event): the same groups in the same order as grouping by the names
+    species = sorted(curves.codes)
+    s_rank = np.array([species.index(c) for c in curves.codes], dtype=np.int64)
+    by_name = sorted(products)
+    p_rank = np.array([by_name.index(p) for p in products], dtype=np.int64)
+    frame = pd.DataFrame(
+        {
+            "period": np.concatenate([p[0] for p in parts]) if parts else np.zeros(0, np.int64),
+            "species": np.concatenate([np.full(len(p[0]), s_rank[p[1]]) for p in parts])
+            if parts
+            else np.zeros(0, np.int64),
+            "product": np.concatenate([np.full(len(p[0]), p_rank[p[2]]) for p in parts])
+            if parts
+            else np.zeros(0, np.int64),
+            "volume_m3": np.concatenate([p[3] for p in parts]) if parts else np.zeros(0),
+        }
     )
+    del parts
     out = frame.groupby(["period", "species", "product"], as_index=False)["volume_m3"].sum()
+    out["species"] = np.array(species, dtype=object)[out["species"].to_numpy()]
+    out["product"] = np.array(by_name, dtype=object)[out["product"].to_numpy()]
     return out.sort_values(["period", "species", "product"], ignore_index=True)
 
 
