@@ -10,6 +10,7 @@ import sys
 import time
 from collections.abc import Iterator
 from contextlib import contextmanager
+from typing import TypeVar
 
 log = logging.getLogger("yieldscape")
 
@@ -47,6 +48,15 @@ def release_freed_memory() -> None:
     returns the free pages (a few ms); elsewhere this does nothing."""
     if _TRIM is not None:
         _TRIM(0)
+
+
+T = TypeVar("T")
+
+
+def released(value: T) -> T:
+    """``value``, once the memory freed while making it is back with the system."""
+    release_freed_memory()
+    return value
 
 
 @contextmanager
