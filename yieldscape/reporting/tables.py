@@ -237,36 +237,29 @@ def wood_flow_by_product(
     period add up to its harvest.
     """
     sim = flow.simulation
-    sp = sim.event_code
-    parts, products = [], []
-    for i, code in enumerate(curves.codes):  # per species and product: a handful
-        mine = sp == i
-        period = sim.event_period[mine].astype(np.int64)
-        shares = product_shares(scenario.species[code].products, sim.event_age_years[mine])
-        for product, share in shares.items():
-            if product not in products:
-                products.append(product)
-            volume = sim.event_volume_m3[mine] * share
-            parts.append((period, i, products.index(product), volume))
+    mine = [np.flatnonzero(sim.event_code == i) for i in range(len(curves.codes))]
+    shares = [
+        product_shares(scenario.species[code].products, sim.event_age_years[m])
+        for code, m in zip(curves.codes, mine, strict=True)
+    ]
+    products = list(dict.fromkeys(p for s in shares for p in s))
     # species and products as their places in name order (small integers, not a string per
-    # event): the same groups in the same order as grouping by the names
-    species = sorted(curves.codes)
-    s_rank = np.array([species.index(c) for c in curves.codes], dtype=np.int64)
-    by_name = sorted(products)
-    p_rank = np.array([by_name.index(p) for p in products], dtype=np.int64)
-    frame = pd.DataFrame(
-        {
-            "period": np.concatenate([p[0] for p in parts]) if parts else np.zeros(0, np.int64),
-            "species": np.concatenate([np.full(len(p[0]), s_rank[p[1]]) for p in parts])
-            if parts
-            else np.zeros(0, np.int64),
-            "product": np.concatenate([np.full(len(p[0]), p_rank[p[2]]) for p in parts])
-            if parts
-            else np.zeros(0, np.int64),
-            "volume_m3": np.concatenate([p[3] for p in parts]) if parts else np.zeros(0),
-        }
-    )
-    del parts
+    # event): the same groups in the same order as grouping by the names; one preallocated
+    # column each, filled species after species and product after product
+    species, by_name = sorted(curves.codes), sorted(products)
+    rows = sum(len(m) * len(s) for m, s in zip(mine, shares, strict=True))
+    cols = {"period": np.empty(rows, np.int64), "species": np.empty(rows, np.int64)}
+    cols |= {"product": np.empty(rows, np.int64), "volume_m3": np.empty(rows)}
+    at = 0
+    for i, (m, s) in enumerate(zip(mine, shares, strict=True)):
+        for product, share in s.items():
+            part = slice(at, at + len(m))
+            cols["period"][part] = sim.event_period[m]
+            cols["species"][part] = species.index(curves.codes[i])
+            cols["product"][part] = by_name.index(product)
+            cols["volume_m3"][part] = sim.event_volume_m3[m] * share
+            at += len(m)
+    frame = pd.DataFrame(cols, copy=False)
     out = frame.groupby(["period", "species", "product"], as_index=False)["volume_m3"].sum()
     out["species"] = np.array(species, dtype=object)[out["species"].to_numpy()]
     out["product"] = np.array(by_name, dtype=object)[out["product"].to_numpy()]
