@@ -61,7 +61,7 @@ from yieldscape.reporting.indicators import (
 )
 from yieldscape.reporting.tables import regeneration_table
 from yieldscape.results import CheckResult, CurvesResult, RunResult
-from yieldscape.runlog import Timer, captured_log, named_lines
+from yieldscape.runlog import Timer, captured_log, named_lines, released
 from yieldscape.schedule import HarvestRules, SpatialRules, lp_plan, schedule, stable_periods_for
 from yieldscape.schedule import spatial as arm
 from yieldscape.schedule.cover import CoverRules, cover_report, cover_rules
@@ -320,15 +320,15 @@ def _tables(
     flow, s, c, p = sched.flow, model.arrays, model.curves, model.periods
     revenue = revenue_by_period(flow, s, c, scenario, p)
     lp_bound = None if sched.lp is None else sched.lp.harvest_m3
-    return RunResult(
+    return RunResult(  # released: each big table's temporaries freed before the next one's
         out_dir=None,
         inventory=inventory,
         flow=flow,
         wood_flow=wood_flow_table(flow, p, lp_bound, revenue),
-        stands=stands_layer(flow, inventory.stands, s, c, p),
-        harvests=harvests_layer(flow, inventory.stands, p, c.codes),
+        stands=released(stands_layer(flow, inventory.stands, s, c, p)),
+        harvests=released(harvests_layer(flow, inventory.stands, p, c.codes)),
         regeneration=regeneration_table(flow, c.codes),
-        products=wood_flow_by_product(flow, s, c, scenario),
+        products=released(wood_flow_by_product(flow, s, c, scenario)),
         write_harvestable_layer=scenario.landbase.write_harvestable_layer,
         long_term_sustained_yield=long_term_sustained_yield(c, s, scenario.growth.search()),
         openings=sched.openings,
@@ -356,12 +356,12 @@ def _indicators(scenario: Scenario, model: _Model, sched: _Schedule, result: Run
         wf, flow, scenario, gross, hlb, ltsy, regulated, verdict, result.lp, result.monte_carlo
     )
     rep, snaps = scenario.report, flow.simulation.snapshots
-    result.age_classes = age_class_table(
-        snaps, stands, p, rep.age_class_years, rep.age_class_width_years
+    result.age_classes = released(
+        age_class_table(snaps, stands, p, rep.age_class_years, rep.age_class_width_years)
     )
-    result.stand_ages = stand_ages_table(snaps, stands, p, rep.age_class_years)
+    result.stand_ages = released(stand_ages_table(snaps, stands, p, rep.age_class_years))
     result.analysis_units = analysis_unit_table(snaps, p, rep.age_class_years, model.curves.codes)
-    result.harvest_breakdown = harvest_breakdown(flow, stands, p, model.curves.codes)
+    result.harvest_breakdown = released(harvest_breakdown(flow, stands, p, model.curves.codes))
     result.curves, result.curve_summaries = curves_table(scenario, stands)
 
 

@@ -185,7 +185,9 @@ def write_harvests(result: RunResult, gpkg: Path) -> None:
     stand up in the index on ``stands(stand_id)``."""
     frame = result.harvests
     geom = frame.geometry.name
-    write_gpkg_layer(gpkg, frame.drop(columns=geom), HARVEST_EVENTS, spatial=False)
+    # the columns as they are (drop() would copy them all into new blocks)
+    events = pd.DataFrame({c: frame[c] for c in frame.columns if c != geom}, copy=False)
+    write_gpkg_layer(gpkg, events, HARVEST_EVENTS, spatial=False)
     cols = ", ".join(
         ['e."fid" AS "fid"', 's."{geom}" AS "{geom}"']
         + [f'e."{c}" AS "{c}"' for c in frame.columns if c != geom]

@@ -4,10 +4,13 @@ decides what reaches the terminal."""
 
 from __future__ import annotations
 
+import ctypes
 import logging
+import sys
 import time
 from collections.abc import Iterator
 from contextlib import contextmanager
+from typing import TypeVar
 
 log = logging.getLogger("yieldscape")
 
@@ -25,6 +28,35 @@ class Timer:
         yield
         self.timings[name] = round(time.perf_counter() - t0, 4)
         log.info("%s done in %.2f s", name, self.timings[name])
+        release_freed_memory()
+
+
+def _malloc_trim():  # noqa: ANN202
+    try:
+        return ctypes.CDLL(None).malloc_trim  # glibc only
+    except (AttributeError, OSError):
+        return None
+
+
+_TRIM = _malloc_trim() if sys.platform.startswith("linux") else None
+
+
+def release_freed_memory() -> None:
+    """Hand the memory a stage freed back to the system. glibc keeps freed blocks below its
+    (self-raising) mmap threshold in the heap: at 1M stands a stage's temporaries left
+    0.4-0.6 GB of resident memory that the next stage's peak stacked on. ``malloc_trim(0)``
+    returns the free pages (a few ms); elsewhere this does nothing."""
+    if _TRIM is not None:
+        _TRIM(0)
+
+
+T = TypeVar("T")
+
+
+def released(value: T) -> T:
+    """``value``, once the memory freed while making it is back with the system."""
+    release_freed_memory()
+    return value
 
 
 @contextmanager

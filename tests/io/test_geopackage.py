@@ -329,3 +329,86 @@ def test_gdal_of_the_system_opens_every_layer_without_a_word(run_dir):
         name: pyogrio.read_info(gpkg, layer=name)["features"]
         for name, _ in pyogrio.list_layers(gpkg)
     }
+
+
+def test_a_long_table_written_in_batches_is_the_table_pyogrio_writes_whole(tmp_path, monkeypatch):
+    # the reference: pyogrio.write_dataframe writing the whole frame in one Arrow table
+    import geopandas as gpd
+
+    from yieldscape.io import vector
+
+    frame = pd.DataFrame(
+        {
+            "stand_id": np.arange(10, dtype=np.int64),
+            "species": pd.Series(list("abcdefghij"), dtype="str"),
+            "year": pd.array([None] * 3 + [2027] * 7, dtype="Int64"),  # the first batch all NA
+            "age_years": np.linspace(0, 90, 10),
+            "partial": np.arange(10) % 3 == 0,
+        }
+    )
+    stands = gpd.GeoDataFrame({"a": [1]}, geometry=[shapely.box(0, 0, 1, 1)], crs="EPSG:3006")
+    files = {}
+    for batch in (3, 10**6):
+        monkeypatch.setattr(vector, "BATCH_ROWS", batch)
+        path = files[batch] = tmp_path / f"{batch}.gpkg"
+        vector.write_gpkg_layer(path, stands, "stands")
+        vector.write_gpkg_layer(path, frame, "table", spatial=False)
+    got, want = (
+        pyogrio.read_dataframe(files[b], layer="table", fid_as_index=True) for b in (3, 10**6)
+    )
+    pd.testing.assert_frame_equal(got, want, check_exact=True)
+    assert (
+        pyogrio.read_info(files[3], layer="table")["dtypes"].tolist()
+        == pyogrio.read_info(files[10**6], layer="table")["dtypes"].tolist()
+    )
+    with sqlite3.connect(files[3]) as a, sqlite3.connect(files[10**6]) as b:
+        query = "SELECT sql FROM sqlite_master WHERE name = 'table'"
+        assert a.execute(query).fetchall() == b.execute(query).fetchall()
+    assert got["year"].isna().sum() == 3
+
+
+@pytest.mark.parametrize("multi_every", [0, 1, 3])  # polygons, multipolygons, both (promoted)
+def test_a_long_layer_written_in_batches_is_the_layer_pyogrio_writes_whole(
+    tmp_path, monkeypatch, multi_every
+):
+    # the reference: pyogrio.write_dataframe converting the whole GeoDataFrame at once
+    import geopandas as gpd
+
+    from yieldscape.io import vector
+
+    xs = np.arange(10.0)
+    geoms = shapely.box(xs, 0, xs + 1, 1)
+    if multi_every:
+        geoms[::multi_every] = shapely.multipolygons(np.atleast_2d(geoms[::multi_every]), axis=0)
+    frame = gpd.GeoDataFrame(
+        {"stand_id": np.arange(10), "species": pd.Series(list("abcdefghij"), dtype="str")},
+        geometry=geoms,
+        crs="EPSG:3006",
+    )
+    files = {}
+    for batch in (3, 10**6):
+        monkeypatch.setattr(vector, "BATCH_ROWS", batch)
+        files[batch] = tmp_path / f"{batch}.gpkg"
+        vector.write_gpkg_layer(files[batch], frame, "stands")
+    got, want = (pyogrio.read_dataframe(files[b], fid_as_index=True) for b in (3, 10**6))
+    assert (
+        shapely.to_wkb(got.geometry.values).tolist()
+        == shapely.to_wkb(want.geometry.values).tolist()
+    )
+    pd.testing.assert_frame_equal(
+        pd.DataFrame(got.drop(columns="geometry")),
+        pd.DataFrame(want.drop(columns="geometry")),
+        check_exact=True,
+    )
+    meta = (
+        "SELECT name, sql FROM sqlite_master ORDER BY name",
+        "SELECT table_name, data_type, min_x, min_y, max_x, max_y, srs_id FROM gpkg_contents",
+        "SELECT * FROM gpkg_geometry_columns",
+        "SELECT srs_id, organization_coordsys_id FROM gpkg_spatial_ref_sys ORDER BY 1",
+    )
+    with sqlite3.connect(files[3]) as a, sqlite3.connect(files[10**6]) as b:
+        for query in meta:
+            assert a.execute(query).fetchall() == b.execute(query).fetchall()
+    assert pyogrio.read_info(files[3])["geometry_type"] == (
+        "Polygon" if not multi_every else "MultiPolygon"
+    )

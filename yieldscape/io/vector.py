@@ -7,14 +7,19 @@ import os
 import sqlite3
 from collections.abc import Iterator
 from contextlib import closing, contextmanager
+from dataclasses import dataclass
 from pathlib import Path
 
 import geopandas as gpd
+import numpy as np
 import pandas as pd
+import pyarrow as pa
 import pyogrio
+import shapely
 from pyogrio.errors import DataLayerError, DataSourceError
 
 from yieldscape.errors import InventoryError
+from yieldscape.runlog import release_freed_memory
 
 
 def read_layer(
@@ -67,17 +72,108 @@ GPKG_VERSION = "1.2"
 
 def write_gpkg_layer(path: Path, frame: pd.DataFrame, layer: str, spatial: bool = True) -> None:
     """Write (or add) one layer to a GeoPackage; ``spatial=False`` writes an attribute table
-    (``gpkg_contents.data_type = 'attributes'``). The file is created at :data:`GPKG_VERSION`."""
+    (``gpkg_contents.data_type = 'attributes'``). The file is created at :data:`GPKG_VERSION`.
+
+    A long layer goes in batches of :data:`BATCH_ROWS` rows (one layer, one write), so that
+    only a batch at a time is held as Arrow and WKB: the rows, types, geometry type and CRS
+    pyogrio's ``write_dataframe`` writes from the whole frame, where the batches can hold to
+    them (a table of Arrow-typed columns; polygons, 2D, none empty); else that writer."""
     create = not path.exists()
-    pyogrio.write_dataframe(
-        frame if spatial else pd.DataFrame(frame),
-        path,
-        layer=layer,
-        driver="GPKG",
-        use_arrow=True,
-        append=not create,
-        dataset_options={"VERSION": GPKG_VERSION} if create else None,
+    geometry = _polygon_layer(frame) if spatial else None
+    dtypes = frame.dtypes.drop(geometry.name) if geometry is not None else frame.dtypes
+    if len(frame) <= BATCH_ROWS or not _arrow_typed(dtypes) or (spatial and geometry is None):
+        pyogrio.write_dataframe(
+            frame if spatial else pd.DataFrame(frame),
+            path,
+            layer=layer,
+            driver="GPKG",
+            use_arrow=True,
+            append=not create,
+            dataset_options={"VERSION": GPKG_VERSION} if create else None,
+        )
+    else:
+        pyogrio.write_arrow(
+            _batches(pd.DataFrame(frame, copy=False), geometry),
+            path,
+            layer=layer,
+            driver="GPKG",
+            geometry_name=geometry.name if geometry else None,
+            geometry_type=geometry.kind if geometry else None,
+            crs=geometry.crs if geometry else None,
+            append=not create,
+            dataset_options={"VERSION": GPKG_VERSION} if create else None,
+        )
+    release_freed_memory()  # the Arrow copy of a large layer, before the next one
+
+
+BATCH_ROWS = 250_000
+
+
+def _arrow_typed(dtypes: pd.Series) -> bool:
+    """Whether every column converts to one Arrow type whatever its rows (as pyogrio would
+    convert the whole frame): no object or time-zoned columns, which it treats specially."""
+    return not any(
+        dtype == np.dtype(object) or isinstance(dtype, pd.DatetimeTZDtype) for dtype in dtypes
     )
+
+
+@dataclass(frozen=True)
+class _Polygons:
+    """A layer's geometry as pyogrio's write_dataframe would declare it."""
+
+    name: str  # the geometry column
+    kind: str  # "Polygon" or "MultiPolygon"
+    promote: bool  # polygons written as one-part multipolygons (mixed single and multi)
+    crs: str | None
+
+
+def _polygon_layer(frame: gpd.GeoDataFrame) -> _Polygons | None:
+    """pyogrio's choice of geometry type and CRS for a layer of 2D polygons and
+    multipolygons, none empty (``pyogrio.geopandas.write_dataframe``: one type as it is; both
+    promoted to MultiPolygon, as the GPKG driver mixes no single and multi types); None for
+    any other layer."""
+    geoms = frame.geometry.to_numpy()
+    kind = shapely.get_type_id(geoms)
+    if (
+        not len(geoms)
+        or ((kind != 3) & (kind != 6)).any()
+        or shapely.is_empty(geoms).any()
+        or shapely.has_z(geoms).any()
+    ):
+        return None
+    kinds = set(np.unique(kind).tolist())
+    crs = frame.crs
+    if crs is not None:
+        epsg = crs.to_epsg()
+        crs = f"EPSG:{epsg}" if epsg else crs.to_wkt("WKT1_GDAL")
+    return _Polygons(
+        frame.geometry.name, "Polygon" if kinds == {3} else "MultiPolygon", kinds == {3, 6}, crs
+    )
+
+
+def _batches(frame: pd.DataFrame, geometry: _Polygons | None) -> pa.RecordBatchReader:
+    """``frame`` as Arrow record batches of BATCH_ROWS rows, made one at a time, the geometry
+    as WKB in its own place (as pyogrio converts a whole frame)."""
+
+    def chunk(rows: pd.DataFrame) -> pa.Table:
+        if geometry is not None:
+            geoms = rows[geometry.name].to_numpy()
+            if geometry.promote:
+                one = shapely.get_type_id(geoms) == 3
+                geoms = geoms.copy()
+                geoms[one] = shapely.multipolygons(np.atleast_2d(geoms[one]), axis=0)
+            rows = rows.copy(deep=False)
+            rows[geometry.name] = shapely.to_wkb(geoms)
+        return pa.Table.from_pandas(rows, schema=schema, preserve_index=False)
+
+    schema = None
+    schema = chunk(frame.iloc[:1]).schema
+    parts = (
+        batch
+        for i in range(0, len(frame), BATCH_ROWS)
+        for batch in chunk(frame.iloc[i : i + BATCH_ROWS]).to_batches()
+    )
+    return pa.RecordBatchReader.from_batches(schema, parts)
 
 
 @contextmanager

@@ -39,13 +39,26 @@ def site_values(
     regrow as it after a clearcut (``regenerate_as``, followed along its chain)."""
     rounded = np.round(stands["site_index"].to_numpy() / step_m) * step_m
     own = stands["analysis_unit"] if "analysis_unit" in stands else stands["species"]
+    code, names = pd.factorize(own, use_na_sentinel=False)  # no Python string per stand
+    area = stands["area_ha"].to_numpy()
+    if scenario is None:
+        reach = [[name] for name in names]
+    else:
+        chains = reachable_codes(scenario)
+        reach = [sorted(chains[name]) for name in names]
+    # a row per stand and code it counts for, stand after stand, codes in name order: the
+    # frame DataFrame.explode made of a list per stand, built from a small table of names
+    count = np.array([len(r) for r in reach], dtype=np.int64)[code]
+    stand = np.repeat(np.arange(len(code)), count)
+    rank = np.arange(len(stand)) - np.repeat(np.cumsum(count) - count, count)
+    table = np.array([r + [None] * (max(map(len, reach)) - len(r)) for r in reach], dtype=object)
     frame = pd.DataFrame(
-        {"species": own.to_numpy(), "site_index": rounded, "area_ha": stands["area_ha"].to_numpy()}
+        {
+            "species": pd.Series(table[code[stand], rank], dtype=object),
+            "site_index": rounded[stand],
+            "area_ha": area[stand],
+        }
     )
-    if scenario is not None:
-        reach = reachable_codes(scenario)
-        frame = frame.assign(species=[sorted(reach[c]) for c in frame["species"]])
-        frame = frame.explode("species", ignore_index=True)
     grouped = (
         frame.groupby(["species", "site_index"])
         .agg(stands=("area_ha", "size"), area_ha=("area_ha", "sum"))

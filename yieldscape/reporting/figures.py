@@ -353,8 +353,11 @@ def harvest_map_figure(
     table[1:] = [0.85, 0.85, 0.85, 1.0]
     cut = first_period > 0
     table[1:][cut] = colours[first_period[cut] - 1]
+    # colours as bytes, converted as matplotlib converts float RGBA (x * 255, truncated), so
+    # the cells come out the same at an eighth of the memory (46 MB -> 6 MB at 1M stands)
+    rgba = (table * 255).astype(np.uint8)
     fig, ax = plt.subplots(figsize=SIZES["map"], layout="constrained")
-    ax.imshow(table[labels], extent=extent, interpolation="nearest")
+    ax.imshow(rgba[labels], extent=extent, interpolation="nearest")
     cmap = ListedColormap(colours)
     norm = BoundaryNorm(np.arange(0.5, periods + 1.5), cmap.N)
     bar = fig.colorbar(

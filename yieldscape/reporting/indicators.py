@@ -224,36 +224,38 @@ def stand_ages_table(
     """Per stand and year: the age of its largest part and its area-weighted mean age [years]
     (negative ages of area not yet regenerated count as 0), and the share of its area younger
     than at the start would make it, i.e. cut or disturbed since."""
-    n = len(stands)
-    ids = stands["stand_id"].to_numpy()
-    frames = []
-    for year in years:
+    n, k = len(stands), len(years)
+    # one preallocated column each (year after year, stands in order), not a frame per year
+    # and their concatenation: half the peak memory at 1M stands x 5 years
+    cols = {name: np.empty(n * k) for name in ("age_years", "mean_age_years", "renewed_share")}
+    start_age = stands["age_years"].to_numpy(dtype=np.float64)
+    for i, year in enumerate(years):
         snap = snapshots[boundary_index(periods, year)]
         age = np.maximum(snap.age_years, 0.0)
         order = np.lexsort((-snap.area_ha, snap.stand))  # by stand, largest part first
         s = snap.stand[order]
         first = np.r_[True, s[1:] != s[:-1]] if len(s) else np.zeros(0, bool)
-        main = np.full(n, np.nan)
+        main = cols["age_years"][i * n : (i + 1) * n]
+        main[:] = np.nan
         main[s[first]] = age[order][first]
         area = np.bincount(snap.stand, snap.area_ha, n)
-        mean = np.bincount(snap.stand, age * snap.area_ha, n) / np.where(area > 0, area, 1.0)
-        elapsed = year - periods.start_year
-        start_age = stands["age_years"].to_numpy(dtype=np.float64) + elapsed
-        renewed = np.bincount(
-            snap.stand, snap.area_ha * (snap.age_years < start_age[snap.stand] - 1e-6), n
-        ) / np.where(area > 0, area, 1.0)
-        frames.append(
-            pd.DataFrame(
-                {
-                    "stand_id": ids,
-                    "year": year,
-                    "age_years": main,
-                    "mean_age_years": mean,
-                    "renewed_share": renewed,
-                }
-            )
+        per_area = np.where(area > 0, area, 1.0)
+        cols["mean_age_years"][i * n : (i + 1) * n] = (
+            np.bincount(snap.stand, age * snap.area_ha, n) / per_area
         )
-    return pd.concat(frames, ignore_index=True)
+        then = start_age + (year - periods.start_year)
+        young = snap.age_years < then[snap.stand] - 1e-6
+        cols["renewed_share"][i * n : (i + 1) * n] = (
+            np.bincount(snap.stand, snap.area_ha * young, n) / per_area
+        )
+    return pd.DataFrame(
+        {
+            "stand_id": stands["stand_id"].array.take(np.tile(np.arange(n), k)),
+            "year": np.repeat(np.asarray(years, dtype=np.int64), n),
+            **cols,
+        },
+        copy=False,  # the columns as they are, not consolidated into a copy
+    )
 
 
 def harvest_breakdown(
@@ -278,13 +280,16 @@ def harvest_breakdown(
     if not len(sim.event_stand):
         return pd.DataFrame(columns=cols)
     codes, names = _zone_names(stands)
-    species = np.array(curve_codes, dtype=object)[sim.event_code.astype(np.int64)]
+    # group by each code's place among the codes in name order, not by its name: the same
+    # groups in the same order, without a string per event
+    by_name = sorted(curve_codes)
+    rank = np.array([by_name.index(c) for c in curve_codes], dtype=np.int64)
     clear = sim.event_treatment == 0
     ev = pd.DataFrame(
         {
             "period": sim.event_period.astype(np.int64),
             "zone_code": codes[sim.event_stand],
-            "species": species,
+            "species": rank[sim.event_code.astype(np.int64)],
             "harvest_ha": np.where(clear, sim.event_area_ha, 0.0),
             "harvest_m3": sim.event_volume_m3,
             "age_area": np.where(clear, sim.event_age_years * sim.event_area_ha, 0.0),
@@ -297,7 +302,7 @@ def harvest_breakdown(
             "period": g["period"],
             "start_year": periods.start_years[g["period"].to_numpy() - 1],
             "zone": np.array(names, dtype=object)[g["zone_code"].to_numpy()],
-            "species": g["species"],
+            "species": np.array(by_name, dtype=object)[g["species"].to_numpy()],
             "harvest_ha": g["harvest_ha"],
             "harvest_m3": g["harvest_m3"],
             "harvest_ha_per_year": g["harvest_ha"] / L,

@@ -106,45 +106,83 @@ def harvests_layer(
     (``analysis_unit``) a stand's parts grow as when cut.
     """
     sim = flow.simulation
-    ev = pd.DataFrame(
-        {
-            "stand": sim.event_stand.astype(np.int64),
-            "period": sim.event_period.astype(np.int64),
-            "treatment": sim.event_treatment.astype(np.int64),
-            "code": sim.event_code.astype(np.int64),
-            "age_area": sim.event_age_years * sim.event_area_ha,
-            "area_ha": sim.event_area_ha,
-            "volume_m3": sim.event_volume_m3,
-        }
+    # the events grouped by (period, stand, treatment, code) in that order, each group's
+    # events in the order cut, as DataFrame.groupby(sort=True) has them: one stable sort of
+    # the four keys packed into one integer
+    n_stands, n_kinds, n_codes = len(stands), len(TREATMENTS), max(len(codes), 1)
+    key = sim.event_period.astype(np.int64) * n_stands + sim.event_stand
+    key = (key * n_kinds + sim.event_treatment) * n_codes + sim.event_code
+    order = np.argsort(key, kind="stable")
+    key = key[order]
+    new = np.r_[True, key[1:] != key[:-1]] if len(key) else np.zeros(0, dtype=bool)
+    age_area, area, volume = group_sums(
+        np.cumsum(new) - 1,
+        [
+            (sim.event_age_years * sim.event_area_ha)[order],
+            sim.event_area_ha[order],
+            sim.event_volume_m3[order],
+        ],
     )
-    keys = ["period", "stand", "treatment", "code"]
-    agg = ev.groupby(keys, sort=True).sum().reset_index()
-    pos = agg["stand"].to_numpy()
+    del order
+    key = key[new]
+    key, code = np.divmod(key, n_codes)
+    key, treatment = np.divmod(key, n_kinds)
+    period, pos = np.divmod(key, n_stands)
     # a cut is partial when it takes less than the stand's harvestable area
     limit = "harvestable_ha" if "harvestable_ha" in stands else "area_ha"
     stand_area = stands[limit].to_numpy()[pos]
-    area = agg["area_ha"].to_numpy()
+    # text columns taken from Arrow-backed arrays by position: no Python string per row
+    units = pd.Series(np.array(codes, dtype=object)).array
+    kinds = pd.Series(np.array(TREATMENTS, dtype=object)).array
     frame = pd.DataFrame(
         {
-            "stand_id": stands["stand_id"].to_numpy()[pos],
-            "species": stands["species"].to_numpy()[pos],
-            "analysis_unit": np.array(codes, dtype=object)[agg["code"].to_numpy()],
-            "zone": stands["zone"].to_numpy()[pos],
-            "treatment": np.array(TREATMENTS, dtype=object)[agg["treatment"].to_numpy()],
-            "period": agg["period"].to_numpy(),
-            "start_year": periods.start_years[agg["period"].to_numpy() - 1],
-            "harvest_year": calendar_years(periods.harvest_years[agg["period"].to_numpy() - 1]),
-            "age_years": agg["age_area"].to_numpy() / area,
+            "stand_id": stands["stand_id"].array.take(pos),
+            "species": stands["species"].array.take(pos),
+            "analysis_unit": units.take(code),
+            "zone": stands["zone"].array.take(pos),
+            "treatment": kinds.take(treatment),
+            "period": period,
+            "start_year": periods.start_years[period - 1],
+            "harvest_year": calendar_years(periods.harvest_years[period - 1]),
+            "age_years": age_area / area,
             "area_ha": area,
-            "volume_m3": agg["volume_m3"].to_numpy(),
-            "volume_m3_ha": agg["volume_m3"].to_numpy() / area,
-            "partial": (area < stand_area * (1 - 1e-9)) & (agg["treatment"].to_numpy() == 0),
-        }
+            "volume_m3": volume,
+            "volume_m3_ha": volume / area,
+            "partial": (area < stand_area * (1 - 1e-9)) & (treatment == 0),
+        },
+        copy=False,  # the new arrays as they are, not consolidated into a copy
     )
     geom = stands.geometry.to_numpy()[pos]
     return gpd.GeoDataFrame(
         frame, geometry=gpd.GeoSeries(geom, crs=stands.crs).values, crs=stands.crs
     )
+
+
+def group_sums(group: np.ndarray, columns: list[np.ndarray]) -> list[np.ndarray]:
+    """Per group, the sum of each column's values, ``group`` being sorted (0, 0, 1, 2, 2, ...)
+    and each group's values in the order to add them; NaN skipped. Kahan's compensated
+    summation in that order (Kahan 1965, *Further remarks on reducing truncation errors*,
+    Comm. ACM 8:40), as pandas' ``groupby().sum()`` adds (``pandas/_libs/groupby.pyx``,
+    ``group_sum``), done for all groups at once, one pass per rank within a group. The
+    harvests built with it equal those of the pandas groupby it replaced, at 100k stands and
+    on the sample region."""
+    n = int(group[-1]) + 1 if len(group) else 0
+    starts = np.flatnonzero(np.r_[True, group[1:] != group[:-1]]) if len(group) else group
+    rank = np.arange(len(group)) - starts[group] if len(group) else group
+    out = []
+    for values in columns:
+        total, comp = np.zeros(n), np.zeros(n)
+        for k in range(int(rank.max()) + 1 if len(rank) else 0):
+            at = np.flatnonzero((rank == k) & ~np.isnan(values))
+            g, v = group[at], values[at]
+            with np.errstate(invalid="ignore"):  # inf - inf: the NaN dropped below
+                y = v - comp[g]
+                t = total[g] + y
+                c = t - total[g] - y
+            comp[g] = np.where(np.isnan(c), 0.0, c)  # an infinite sum stays infinite
+            total[g] = t
+        out.append(total)
+    return out
 
 
 def stands_layer(
@@ -157,7 +195,7 @@ def stands_layer(
     """The input stands with their start volume and what the schedule does to each."""
     sim = flow.simulation
     n = len(stands)
-    out = stands.copy()
+    out = stands.copy(deep=False)  # copy-on-write: the new columns leave ``stands`` alone
     out["volume_m3_ha"] = start_volume_m3_ha(arrays, curves)
     clear = sim.event_treatment == 0
     stand, period = sim.event_stand[clear], sim.event_period[clear]
@@ -199,28 +237,32 @@ def wood_flow_by_product(
     period add up to its harvest.
     """
     sim = flow.simulation
-    sp = sim.event_code
-    parts = []
-    for i, code in enumerate(curves.codes):  # per species and product: a handful
-        mine = sp == i
-        shares = product_shares(scenario.species[code].products, sim.event_age_years[mine])
-        for product, share in shares.items():
-            parts.append(
-                pd.DataFrame(
-                    {
-                        "period": sim.event_period[mine].astype(np.int64),
-                        "species": code,
-                        "product": product,
-                        "volume_m3": sim.event_volume_m3[mine] * share,
-                    }
-                )
-            )
-    frame = (
-        pd.concat(parts, ignore_index=True)
-        if parts
-        else pd.DataFrame(columns=["period", "species", "product", "volume_m3"])
-    )
+    mine = [np.flatnonzero(sim.event_code == i) for i in range(len(curves.codes))]
+    shares = [
+        product_shares(scenario.species[code].products, sim.event_age_years[m])
+        for code, m in zip(curves.codes, mine, strict=True)
+    ]
+    products = list(dict.fromkeys(p for s in shares for p in s))
+    # species and products as their places in name order (small integers, not a string per
+    # event): the same groups in the same order as grouping by the names; one preallocated
+    # column each, filled species after species and product after product
+    species, by_name = sorted(curves.codes), sorted(products)
+    rows = sum(len(m) * len(s) for m, s in zip(mine, shares, strict=True))
+    cols = {"period": np.empty(rows, np.int64), "species": np.empty(rows, np.int64)}
+    cols |= {"product": np.empty(rows, np.int64), "volume_m3": np.empty(rows)}
+    at = 0
+    for i, (m, s) in enumerate(zip(mine, shares, strict=True)):
+        for product, share in s.items():
+            part = slice(at, at + len(m))
+            cols["period"][part] = sim.event_period[m]
+            cols["species"][part] = species.index(curves.codes[i])
+            cols["product"][part] = by_name.index(product)
+            cols["volume_m3"][part] = sim.event_volume_m3[m] * share
+            at += len(m)
+    frame = pd.DataFrame(cols, copy=False)
     out = frame.groupby(["period", "species", "product"], as_index=False)["volume_m3"].sum()
+    out["species"] = np.array(species, dtype=object)[out["species"].to_numpy()]
+    out["product"] = np.array(by_name, dtype=object)[out["product"].to_numpy()]
     return out.sort_values(["period", "species", "product"], ignore_index=True)
 
 
