@@ -49,10 +49,18 @@ def _span(values: np.ndarray) -> str:
     return f"{lo:,.0f}" if round(lo) == round(hi) else f"{lo:,.0f} to {hi:,.0f}"
 
 
+def larger_than_opening(harvestable_ha: np.ndarray, max_opening_ha: float) -> np.ndarray:
+    """Stands whose harvestable area alone is larger than the maximum opening: the opening
+    rule never lets them be cut (none under the unit restriction, ``max_opening_ha = 0``)."""
+    if max_opening_ha <= 0:
+        return np.zeros(len(harvestable_ha), dtype=bool)
+    return harvestable_ha > max_opening_ha * (1 + 1e-9)
+
+
 def too_large_for_openings(harvestable_ha: np.ndarray, max_opening_ha: float) -> list[str]:
     """A warning when stands are larger than the maximum opening: they are never cut (the
     tool does not split a stand into several cut blocks)."""
-    big = harvestable_ha > max_opening_ha * (1 + 1e-9)
+    big = larger_than_opening(harvestable_ha, max_opening_ha)
     if not big.any():
         return []
     return [

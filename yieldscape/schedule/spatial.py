@@ -33,6 +33,7 @@ from numpy.typing import NDArray
 
 from yieldscape.adjacency import Adjacency
 from yieldscape.projection import StandArrays
+from yieldscape.schedule.eligibility import larger_than_opening
 
 _REL = 1e-9
 _MIN_PART_HA = 1e-9
@@ -62,9 +63,7 @@ class SpatialRules:
     def never_cut(self, harvestable_ha: NDArray) -> NDArray[np.bool_]:
         """Stands the opening rule never lets be cut: their harvestable area alone is larger
         than the maximum opening (none under the unit restriction)."""
-        if self.max_opening_ha <= 0:
-            return np.zeros(len(harvestable_ha), dtype=bool)
-        return harvestable_ha > self.max_opening_ha * (1 + _REL)
+        return larger_than_opening(harvestable_ha, self.max_opening_ha)
 
     def is_open(self, t: float) -> NDArray[np.bool_]:
         return (t - self.last_cut) < self.greenup_years - 1e-9
