@@ -97,3 +97,24 @@ def test_a_binding_ending_stock_is_found_in_few_trials(band):
     flow = find_even_flow(gap_forest(300, 4), curves, periods, band=band, ending_stock=1.0)
     assert "ending growing stock" in flow.binding
     assert flow.steps <= 12
+
+
+def test_a_level_the_first_free_period_caps_names_that_period():
+    # With the first period held fixed, the most the level can be is what the next period
+    # yields under the area cap: the binding reason names period 2, not period 1.
+    n = 10
+    stands = StandArrays(
+        np.zeros(n, np.int32),
+        np.full(n, 20.0),
+        np.full(n, 100.0),
+        np.full(n, 10.0),
+        np.full(n, 60.0),
+        np.zeros(n),
+        np.arange(n),
+    )
+    periods = Periods(2030, 10, 4, "midpoint")
+    rules = HarvestRules(max_area_ha=20.0)
+    flow = find_even_flow(stands, CURVES, periods, rules, 0.0, 0.0, fixed=(1000.0,))
+    v = float(CURVES.volume_m3_ha(np.zeros(1, np.int32), np.array([115.0]), np.array([20.0]))[0])
+    assert flow.level_m3_per_period == pytest.approx(20.0 * v)
+    assert flow.binding.startswith("period 2: the area cap (harvest.max_area_ha_per_period = 20")

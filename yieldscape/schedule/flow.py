@@ -111,7 +111,9 @@ def find_even_flow(
     if not low.feasible or upper <= base:
         if fixed and low.feasible:  # nothing above the last fixed period: hold it
             final, steps = kept(base, low)
-            return _result(base, periods, final, _why_top(final, rules.max_area_ha), steps)
+            return _result(
+                base, periods, final, _why_top(final, rules.max_area_ha, len(fixed)), steps
+            )
         if fixed:
             raise RuntimeError(f"flow search: the fixed periods fail ({low.fail_reason})")
         final, steps = kept(0.0, low)
@@ -120,7 +122,7 @@ def find_even_flow(
     steps += 1
     if top.feasible:
         final, steps = kept(upper, top)
-        return _result(upper, periods, final, _why_top(final, rules.max_area_ha), steps)
+        return _result(upper, periods, final, _why_top(final, rules.max_area_ha, len(fixed)), steps)
     margin = _Margin(ending_stock, stable_periods, periods.count)
     bracket = _Bracket(base, upper, low, top)
     bracket.add(base, margin(low), low)
@@ -258,13 +260,16 @@ def _why_none(zero: Simulation, final: Simulation, ending_stock: float) -> str:
     return "no stand is eligible for harvest in period 1"
 
 
-def _why_top(sim: Simulation, max_area_ha: float | None) -> str:
-    if max_area_ha is not None and sim.harvest_ha[0] >= max_area_ha * (1 - 1e-9):
+def _why_top(sim: Simulation, max_area_ha: float | None, first: int = 0) -> str:
+    """Why the level is the most the first free period (index ``first``: after the periods
+    held fixed) can give: the area cap, or every stand eligible then cut."""
+    p = first + 1
+    if max_area_ha is not None and sim.harvest_ha[first] >= max_area_ha * (1 - 1e-9):
         return (
-            f"period 1: the area cap (harvest.max_area_ha_per_period = {max_area_ha:g} ha) "
+            f"period {p}: the area cap (harvest.max_area_ha_per_period = {max_area_ha:g} ha) "
             "is reached at this level"
         )
-    return "period 1: every stand eligible in period 1 is cut at this level"
+    return f"period {p}: every stand eligible in period {p} is cut at this level"
 
 
 def _why(sim: Simulation, level: float, periods: Periods, ending_stock: float) -> str:
