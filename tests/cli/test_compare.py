@@ -19,6 +19,7 @@ CASES = [
     {"name": "loose", "set": {"flow.ending_stock": 0.2}},
     {"name": "late", "set": {"species.pine.min_harvest_age": 80}},
     {"name": "openings-2ha", "set": {"harvest.max_opening_ha": 2.0}},
+    {"name": "banded", "set": {"flow.band": 0.3, "flow.ending_stock": 0.2}},
 ]
 
 
@@ -89,6 +90,13 @@ def test_a_run_with_cases_logs_no_line_twice_and_names_each_cases_lines(cases_ru
     for i, name in enumerate(cases, start=1):
         assert f"sensitivity case {name!r} ({i} of {len(cases)})" in stderr
         assert f"sensitivity case {name!r}: " in stdout
+        # a case whose harvest dips below its level (a flow band) says how low, from its table
+        (line,) = [x for x in stdout.splitlines() if x.startswith(f"sensitivity case {name!r}: ")]
+        wf = pd.read_csv(out / name / "wood_flow.csv")
+        level = json.loads((out / name / "run.json").read_text())["flow"]["level_m3_per_year"]
+        low = wf["harvest_m3_per_year"].min()
+        said = f"its lowest period {low:,.0f} m3/year (the flow band)"
+        assert (said in line) == (low < level * (1 - 1e-6)), line
     # run.log holds the same lines (INFO and above), with a time stamp and a level
     logged = [x.split(" ", 3)[3] for x in (out / "run.log").read_text().splitlines()]
     assert logged == [x.removeprefix("yieldscape: ") for x in lines]
@@ -108,6 +116,7 @@ def test_compare_of_the_cases_names_each_cases_change(cases_run, tmp_path):
         "flow.ending_stock: 0.5 -> 0.2",
         "species.pine.min_harvest_age: 60.0 -> 80.0",
         "harvest.max_opening_ha: 3.0 -> 2.0",
+        "flow.band: 0.0 -> 0.3; flow.ending_stock: 0.5 -> 0.2",
     ]
     # a lower ending stock never lowers the level; smaller openings do not raise it here (the
     # pick is sequential: a law for this forest, not for every forest)
@@ -116,7 +125,7 @@ def test_compare_of_the_cases_names_each_cases_change(cases_run, tmp_path):
     # the run's own comparison (written with the base) says the same
     own = pd.read_csv(out / "comparison.csv")
     assert list(own.columns) == list(table.columns)  # so the docs check above covers both
-    assert own["run"].tolist() == ["base", "loose", "late", "openings-2ha"]
+    assert own["run"].tolist() == ["base", *(case["name"] for case in CASES)]
     assert own["differences"].iloc[1:].tolist() == table["differences"].iloc[1:].tolist()
     np.testing.assert_allclose(own["level_m3_per_year"], table["level_m3_per_year"])
 

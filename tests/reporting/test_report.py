@@ -182,6 +182,11 @@ def test_first_screen_verdict_then_key_numbers_then_caution(out):
         f"{gs1:,.0f} m3, {100 * gs1 / gs0:.1f}% of the initial {gs0:,.0f} m3; "
         "at least 50% required"  # flow.ending_stock = 0.5 in the fixture
     )
+    wf = pd.read_csv(out / "wood_flow.csv")  # the harvestable land base's own stock
+    h0, h1 = wf["hlb_growing_stock_start_m3"].iloc[0], wf["hlb_growing_stock_end_m3"].iloc[-1]
+    assert rows["Growing stock on the harvestable land base"] == (
+        f"{h0:,.0f} m3 at the start, {h1:,.0f} m3 at the end ({100 * (h1 / h0 - 1):+.0f}%)"
+    )
     level = case["flow"]["level_m3_per_year"]
     judged = "sustainable" if case["verdict"]["sustainable"] else "not sustainable"
     assert rows["Sensitivity case looser"] == (

@@ -58,17 +58,28 @@ def handle(args: argparse.Namespace) -> int:
             f"at MAI culmination, {ltsy['at_min_harvest_age']:,.0f} m3/year at the minimum "
             "harvest ages (harvestable area x MAI)"
         )
+        hlb0, hlb1 = (
+            wf["hlb_growing_stock_start_m3"].iloc[0],
+            wf["hlb_growing_stock_end_m3"].iloc[-1],
+        )
         print(
             f"growing stock: {wf['growing_stock_start_m3'].iloc[0]:,.0f} m3 at start, "
-            f"{wf['growing_stock_end_m3'].iloc[-1]:,.0f} m3 at the end"
+            f"{wf['growing_stock_end_m3'].iloc[-1]:,.0f} m3 at the end; on the harvestable "
+            f"land base {hlb0:,.0f} m3 at start, {hlb1:,.0f} m3 at the end ({_change(hlb0, hlb1)})"
         )
         print(f"verdict: {result.verdict.headline} (report.html has the checks)")
         for name, case in result.cases.items():
             diff = case.level_m3_per_year - result.level_m3_per_year
             judged = "sustainable" if case.verdict.sustainable else "NOT sustainable"
+            low = float(case.wood_flow["harvest_m3_per_year"].min())
+            dips = (
+                f"; its lowest period {low:,.0f} m3/year (the flow band)"
+                if low < case.level_m3_per_year * (1 - 1e-6)
+                else ""
+            )
             print(
                 f"sensitivity case {name!r}: {case.level_m3_per_year:,.0f} m3/year "
-                f"({diff:+,.0f} against the base), {judged}"
+                f"({diff:+,.0f} against the base{dips}), {judged}"
             )
         print(
             f"outputs in {result.out_dir}: report.html (open it in a browser), "
@@ -79,3 +90,8 @@ def handle(args: argparse.Namespace) -> int:
             "licensed professionals."
         )
     return 0
+
+
+def _change(start: float, end: float) -> str:
+    """The change from start to end in words, e.g. "-28%"."""
+    return f"{100 * (end / start - 1):+.0f}%" if start > 0 else "none at start"

@@ -364,7 +364,8 @@ def _shown(frame: pd.DataFrame, headers: dict[str, str]) -> pd.DataFrame:
 def key_numbers(data: ReportData) -> pd.DataFrame:
     """The numbers a reader needs first, in words: the flow level, the harvestable land base,
     the long-term sustained yield, the ending growing stock against the initial and the
-    requirement, and each sensitivity case's level and verdict."""
+    requirement, the growing stock on the harvestable land base at the start and the end, and
+    each sensitivity case's level and verdict."""
     ind = data.indicators.set_index("indicator")["value"]
     f = data.scenario.flow
     policy = flow_policy("optimize" if f.method == "optimize" else f.policy).level_label
@@ -398,6 +399,17 @@ def key_numbers(data: ReportData) -> pd.DataFrame:
             + (f"; at least {100 * need:g}% required" if need > 0 else "; no minimum required"),
         ),
     ]
+    wf = data.wood_flow
+    if len(wf) and "hlb_growing_stock_start_m3" in wf:
+        h0 = float(wf["hlb_growing_stock_start_m3"].iloc[0])
+        h1 = float(wf["hlb_growing_stock_end_m3"].iloc[-1])
+        rows.append(
+            (
+                "Growing stock on the harvestable land base",
+                f"{h0:,.0f} m3 at the start, {h1:,.0f} m3 at the end"
+                + (f" ({100 * (h1 / h0 - 1):+.0f}%)" if h0 > 0 else ""),
+            )
+        )
     if data.comparison is not None:
         for row in data.comparison.iloc[1:].itertuples(index=False):
             judged = {True: "sustainable", False: "not sustainable"}.get(
