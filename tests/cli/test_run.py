@@ -60,6 +60,18 @@ def sample_run(tmp_path_factory):
     return out, *run_command(["run", str(SCENARIO), "--out", str(out), *BASE_ONLY])
 
 
+def assert_says_harvestable_stock(out, stdout):
+    """stdout gives the stock on the harvestable land base beside the whole forest's, as
+    wood_flow.csv has it."""
+    wf = pd.read_csv(out / "wood_flow.csv")
+    hlb0, hlb1 = wf["hlb_growing_stock_start_m3"].iloc[0], wf["hlb_growing_stock_end_m3"].iloc[-1]
+    change = f"{100 * (hlb1 / hlb0 - 1):+.0f}%"
+    assert (
+        f"on the harvestable land base {hlb0:,.0f} m3 at start, {hlb1:,.0f} m3 at the end "
+        f"({change})" in stdout
+    )
+
+
 def test_the_sample_runs_and_says_what_it_found(sample_run):
     out, stdout, stderr = sample_run
     # the sample has spatial rules, cover targets, rasters and a Markdown report
@@ -86,14 +98,7 @@ def test_the_sample_runs_and_says_what_it_found(sample_run):
     assert "even flow: " in stdout and "limited by" in stdout
     assert "verdict: Sustainable" in stdout
     assert "planning estimates" in stdout
-    # the stock on the harvestable land base beside the whole forest's, from wood_flow.csv
-    wf = pd.read_csv(out / "wood_flow.csv")
-    hlb0, hlb1 = wf["hlb_growing_stock_start_m3"].iloc[0], wf["hlb_growing_stock_end_m3"].iloc[-1]
-    change = f"{100 * (hlb1 / hlb0 - 1):+.0f}%"
-    assert (
-        f"on the harvestable land base {hlb0:,.0f} m3 at start, {hlb1:,.0f} m3 at the end "
-        f"({change})" in stdout
-    )
+    assert_says_harvestable_stock(out, stdout)
     assert "project and schedule" in stderr  # progress per stage on stderr
     # the log file holds the stages with their times, whatever the terminal showed
     log = (out / "run.log").read_text(encoding="utf-8")
@@ -294,14 +299,7 @@ def test_a_run_writes_the_outputs_its_options_ask_for(forest_run):
     assert "even flow: " in stdout and "limited by" in stdout
     assert "verdict: Sustainable" in stdout
     assert "planning estimates" in stdout
-    # the stock on the harvestable land base beside the whole forest's, from wood_flow.csv
-    wf = pd.read_csv(out / "wood_flow.csv")
-    hlb0, hlb1 = wf["hlb_growing_stock_start_m3"].iloc[0], wf["hlb_growing_stock_end_m3"].iloc[-1]
-    change = f"{100 * (hlb1 / hlb0 - 1):+.0f}%"
-    assert (
-        f"on the harvestable land base {hlb0:,.0f} m3 at start, {hlb1:,.0f} m3 at the end "
-        f"({change})" in stdout
-    )
+    assert_says_harvestable_stock(out, stdout)
     assert "project and schedule" in stderr  # progress per stage on stderr
     # the log file holds the stages with their times, whatever the terminal showed
     log = (out / "run.log").read_text(encoding="utf-8")
