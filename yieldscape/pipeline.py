@@ -338,7 +338,7 @@ def _tables(
 def _indicators(scenario: Scenario, model: _Model, sched: _Schedule, result: RunResult) -> None:
     """The verdict, the concerns worth a warning, the indicators and the structure tables."""
     flow, s, p, stands = sched.flow, model.arrays, model.periods, result.inventory.stands
-    area = s.harvestable_ha if s.harvestable_ha is not None else s.area_ha
+    area = s.cuttable_ha
     regulated = regulated_growing_stock_m3(model.curves, s, area)
     ltsy = result.long_term_sustained_yield
     long_term = stable_periods_for(p, scenario.flow.long_term_periods)

@@ -232,6 +232,12 @@ class StandArrays:
     min_age_by_code: NDArray[np.float64] | None = None
 
     @property
+    def cuttable_ha(self) -> NDArray[np.float64]:
+        """The area of each stand the schedule may cut: its harvestable area, or its whole
+        area without a netdown."""
+        return self.harvestable_ha if self.harvestable_ha is not None else self.area_ha
+
+    @property
     def n(self) -> int:
         return len(self.area_ha)
 
@@ -375,7 +381,7 @@ def long_term_sustained_yield(
     stands [m3/year], on the curves the land regrows into in the long run
     (:func:`long_run_codes`): at each code's MAI culmination, and at its minimum harvest age
     (the rotation the rules use)."""
-    area = arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
+    area = arrays.cuttable_ha
     at_cul = np.zeros(arrays.n)
     at_rot = np.zeros(arrays.n)
     for j, share, r in long_run_codes(arrays):  # per code; per distinct site inside

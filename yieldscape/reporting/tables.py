@@ -277,7 +277,7 @@ def start_volume_m3_ha(arrays: StandArrays, curves: CurveSet) -> np.ndarray:
     removed = reg.removed(
         arrays.species_idx, reg.removals(curves, arrays.species_idx, terms), arrays.age_years
     )
-    thinned = arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
+    thinned = arrays.cuttable_ha
     return np.where(thinned > 0, v - removed, v)
 
 

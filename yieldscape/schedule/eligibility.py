@@ -13,7 +13,7 @@ from yieldscape.projection import CurveSet, StandArrays
 
 def never_cut(stands: StandArrays, max_age_years: float) -> np.ndarray:
     """Stands with harvestable area whose minimum harvest age is beyond ``max_age_years``."""
-    area = stands.harvestable_ha if stands.harvestable_ha is not None else stands.area_ha
+    area = stands.cuttable_ha
     return (area > 0) & ~(stands.min_harvest_age <= max_age_years)
 
 
@@ -22,7 +22,7 @@ def never_cut_warnings(stands: StandArrays, curves: CurveSet, max_age_years: flo
     mask = never_cut(stands, max_age_years)
     if not mask.any():
         return []
-    area = stands.harvestable_ha if stands.harvestable_ha is not None else stands.area_ha
+    area = stands.cuttable_ha
     parts = []
     for i, code in enumerate(curves.codes):  # per species
         mine = mask & (stands.species_idx == i)

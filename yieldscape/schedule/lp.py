@@ -109,7 +109,7 @@ def make_strata(
     """Group stands with harvestable area by species, site class, age class and zone, and
     find the regeneration groups they regrow into (with ``disturbed`` each stratum's own group
     too: disturbed area regrows as its own code)."""
-    area = stands.harvestable_ha if stands.harvestable_ha is not None else stands.area_ha
+    area = stands.cuttable_ha
     live = area > 0
     site_cls = np.round(stands.site_index / site_step).astype(np.int64)
     age_cls = np.floor(stands.age_years / age_step).astype(np.int64)
@@ -860,7 +860,7 @@ def _cover_rows(
     zone = cols.per_column(strata.zone, strata.group_zone)
     x_age0 = cols.take(strata.age_years)
     y_delay = cols.take(strata.group_delay)
-    harvestable = stands.harvestable_ha if stands.harvestable_ha is not None else stands.area_ha
+    harvestable = stands.cuttable_ha
     reserved = stands.area_ha - harvestable
     sz = stand_zone if stand_zone is not None else np.zeros(stands.n, dtype=np.int64)
     xs, ys, b_, c_ = cols.is_x, cols.is_y, cols.first, cols.again

@@ -93,7 +93,7 @@ def planned_periods(lp: LPResult, strata: Strata, arrays: StandArrays, P: int) -
     stratum's stands, oldest first (ties by stand id), take the stratum's cut area of each
     period in turn, a stand going to the period that covers its middle."""
     planned = np.full(arrays.n, P + 1, dtype=np.int64)
-    area = arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
+    area = arrays.cuttable_ha
     cum_cut = np.cumsum(lp.cut_area, axis=1)
     for s in range(strata.n):  # per stratum, not per stand
         members = np.flatnonzero(strata.of_stand == s)

@@ -377,7 +377,7 @@ class OpeningsBlock:
 
 def never_cut_area_ha(arrays: StandArrays, spatial: SpatialRules) -> float:
     """The harvestable area of the stands the opening rule never lets be cut [ha]."""
-    area = arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
+    area = arrays.cuttable_ha
     return float(area[spatial.never_cut(area)].sum())
 
 
@@ -388,7 +388,7 @@ def without_never_cut(arrays: StandArrays, spatial: SpatialRules | None) -> Stan
     cut no schedule under the rules can make."""
     if spatial is None:
         return arrays
-    area = arrays.harvestable_ha if arrays.harvestable_ha is not None else arrays.area_ha
+    area = arrays.cuttable_ha
     never = spatial.never_cut(area)
     if not never.any():
         return arrays
