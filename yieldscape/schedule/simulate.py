@@ -379,13 +379,14 @@ class Start:
 
 @dataclass
 class _Cut:
-    """One period's cut: parts clearcut whole, the part clearcut partly (-1: none) and its
-    share, the totals (``volume_m3`` is clearcuts plus thinnings), the rules that refused
-    candidates, whether every eligible part was taken, and the events when recorded."""
+    """One period's cut: parts clearcut whole, the parts clearcut partly (at most one per
+    pick) and their shares, the totals (``volume_m3`` is clearcuts plus thinnings), the rules
+    that refused candidates, whether every eligible part was taken, and the events when
+    recorded."""
 
     full: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.intp))
-    part: int = -1
-    frac: float = 0.0
+    part: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.intp))
+    frac: NDArray = field(default_factory=lambda: np.zeros(0))
     volume_m3: float = 0.0
     thinning_m3: float = 0.0
     thinning_ha: float = 0.0
@@ -572,10 +573,10 @@ def _pick(
         names = [r.name for r, n in zip(pick, refused, strict=True) if n]
         cut.blocked = " and ".join(dict.fromkeys(names))
     cut.full = cand[full_pos]
-    cut.part = int(cand[part_pos]) if part_pos >= 0 else -1
-    cut.frac = frac
-    cut.all_taken = len(cut.full) + (cut.part >= 0) == len(cand)
     part = np.array([part_pos]) if part_pos >= 0 else np.zeros(0, dtype=np.intp)
+    cut.part = cand[part]
+    cut.frac = np.full(len(part), frac)
+    cut.all_taken = len(cut.full) + len(cut.part) == len(cand)
     return full_pos, part, decided
 
 
@@ -594,10 +595,10 @@ def _tally(
         return
     vol = v_ha * area[cand]
     part, frac = cut.part, cut.frac
-    cut.volume_m3 = vol[full_pos].sum() + (frac * vol[part_pos[0]] if part >= 0 else 0.0)
-    cut.area_ha = area[cut.full].sum() + (frac * area[part] if part >= 0 else 0.0)
-    cut.age_area = area_sum(age_h[cut.full], area[cut.full]) + (
-        frac * area[part] * age_h[part] if part >= 0 else 0.0
+    cut.volume_m3 = vol[full_pos].sum() + (frac * vol[part_pos]).sum()
+    cut.area_ha = area[cut.full].sum() + (frac * area[part]).sum()
+    cut.age_area = (
+        area_sum(age_h[cut.full], area[cut.full]) + (frac * area[part] * age_h[part]).sum()
     )
 
 
@@ -614,8 +615,8 @@ def _take_thinnings(cut: _Cut, parts: _Parts, thin: NDArray, thin_ha: NDArray) -
     if not len(thin):
         return
     share = (~_mask(len(parts.area), cut.full)[thin]).astype(np.float64)
-    if cut.part >= 0:
-        share[thin == cut.part] = 1.0 - cut.frac
+    for part, frac in zip(cut.part, cut.frac, strict=True):
+        share[thin == part] = 1.0 - frac
     area = share * parts.area[thin]
     cut.thinning_m3 = area_sum(thin_ha, area)
     cut.thinning_ha = float(area.sum())
@@ -636,16 +637,15 @@ def _events(
 ) -> tuple[NDArray, ...]:
     """The period's events: each clearcut part and each thinned part."""
     area = parts.area
-    ev_parts = cut.full if cut.part < 0 else np.r_[cut.full, cut.part]
+    ev_parts = np.r_[cut.full, cut.part].astype(np.intp)
     ev_area = area[ev_parts].copy()
-    if cut.part >= 0:
-        ev_area[-1] *= cut.frac
+    ev_area[len(cut.full) :] *= cut.frac
     ev_pos = np.r_[full_pos, part_pos].astype(np.intp)
     ev_vol = v_ha[ev_pos] * ev_area if len(ev_pos) else np.zeros(0)
     kept = ~_mask(len(area), cut.full)[thin]
     th, th_area = thin[kept], area[thin[kept]].copy()
-    if cut.part >= 0:
-        th_area[th == cut.part] *= 1.0 - cut.frac
+    for part, frac in zip(cut.part, cut.frac, strict=True):
+        th_area[th == part] *= 1.0 - frac
     return (
         np.r_[parts.stand[ev_parts], parts.stand[th]],
         np.r_[age_h[ev_parts], thin_age[kept]],
@@ -662,8 +662,8 @@ def _cover_after(parts: _Parts, cover: CoverRules, age_h: NDArray, cut: _Cut) ->
     after_area = parts.area.copy()
     after_age[cut.full] = 0.0
     zones = parts.zone
-    if cut.part >= 0:  # the cut share of the last part restarts; the rest stays
-        after_age = np.r_[after_age, 0.0]
+    if len(cut.part):  # the cut share of a partly cut part restarts; the rest stays
+        after_age = np.r_[after_age, np.zeros(len(cut.part))]
         after_area = np.r_[after_area, cut.frac * parts.area[cut.part]]
         after_area[cut.part] -= cut.frac * parts.area[cut.part]
         zones = np.r_[zones, zones[cut.part]]
@@ -687,11 +687,12 @@ def _regrow(
     n_before = len(parts.age)
     parts.age += L
     cut_parts = cut.full
-    if cut.part >= 0:
+    if len(cut.part):
         cut_area = cut.frac * parts.area[cut.part]
         parts.area[cut.part] -= cut_area
         parts.extend(cut.part, 0.0, cut_area)
-        cut_parts = np.r_[cut.full, len(parts.age) - 1].astype(np.intp)
+        new = np.arange(len(parts.age) - len(cut.part), len(parts.age))
+        cut_parts = np.r_[cut.full, new].astype(np.intp)
     if shares is None:
         parts.age[cut_parts] = L - off - parts.delay[cut_parts]
         parts.restart(cut_parts)
