@@ -19,7 +19,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import NDArray
 
-from yieldscape.policies import PRIORITIES, TargetRule, cut_order
+from yieldscape.policies import PRIORITIES, PerUnit, TargetRule, cut_order
 from yieldscape.projection import (
     CurveSet,
     Periods,
@@ -28,7 +28,7 @@ from yieldscape.projection import (
     area_sum,
 )
 from yieldscape.regimes import Regimes
-from yieldscape.schedule.cover import CoverRules
+from yieldscape.schedule.cover import CoverRules, PeriodBudgets
 from yieldscape.schedule.picker import block_pick
 from yieldscape.schedule.spatial import SpatialRules
 
@@ -65,6 +65,9 @@ class HarvestRules:
     disturbance: float = 0.0
     snapshots: tuple[int, ...] = ()
     plan: Plan | None = field(default=None, compare=False)
+    # the management unit of each stand (codes 0 .. U-1; None: one flow for the region),
+    # whose flows a :class:`~yieldscape.policies.PerUnit` target rule sets
+    units: NDArray | None = field(default=None, compare=False)
 
 
 NO_RULES = HarvestRules()  # oldest first, no cap, no spatial or cover rules, no disturbance
@@ -113,6 +116,21 @@ class Simulation:
     regen_from: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
     regen_to: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
     regen_area_ha: NDArray = field(default_factory=lambda: np.zeros(0))
+    # management units (HarvestRules.units): per period and unit the harvest, target and
+    # floor [m3]; per unit the first period whose floor it missed (0: none) or the reason it
+    # failed at the end, and its initial and ending growing stock [m3]
+    unit_harvest_m3: NDArray = field(default_factory=lambda: np.zeros((0, 0)))
+    unit_target_m3: NDArray = field(default_factory=lambda: np.zeros((0, 0)))
+    unit_floor_m3: NDArray = field(default_factory=lambda: np.zeros((0, 0)))
+    unit_fail_period: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    unit_fail_reason: list[str] = field(default_factory=list)
+    unit_initial_stock_m3: NDArray = field(default_factory=lambda: np.zeros(0))
+    unit_ending_stock_m3: NDArray = field(default_factory=lambda: np.zeros(0))
+
+    @property
+    def unit_feasible(self) -> NDArray[np.bool_]:
+        """Per management unit, whether its flow held (every floor and its ending stock)."""
+        return np.array([not r for r in self.unit_fail_reason], dtype=bool)
 
 
 @dataclass(frozen=True)
@@ -351,6 +369,10 @@ class _Parts:
             v -= taken[idx]
         return total, area_sum(v, self.area[idx])
 
+    def unit_stocks(self, curves: CurveSet, reg: Regimes | None) -> NDArray:
+        """Growing stock [m3] of each part (management units sum it by unit)."""
+        return self.volume(curves, np.arange(len(self.age)), self.age, reg) * self.area
+
     def snapshot(self) -> PartsSnapshot:
         return PartsSnapshot(
             self.stand.copy(),
@@ -395,6 +417,12 @@ class _Cut:
     blocked: str = ""
     all_taken: bool = True
     tested: int = 0  # candidates a rule-based pick went through (cut or refused)
+    # management units: each unit's harvest [m3] and why its pick stopped; the cover budgets
+    # a pick left (for the next unit's); the thinning volume of each thinned part [m3]
+    unit_m3: NDArray | None = None
+    unit_reasons: list[str] = field(default_factory=list)
+    cover_left: NDArray | None = None
+    thin_m3_by_part: NDArray = field(default_factory=lambda: np.zeros(0))
     # stand, age, area, volume, code and treatment (0 clearcut, 1 thinning) of each event
     events: tuple[NDArray, ...] | None = None
     # the parts checked for thinnings due and their removals [m3/ha] (0 where none is due)
@@ -432,17 +460,20 @@ def _cut_period(
     spatial: SpatialRules | None,
     t: float,
     age_h: NDArray,
-    target: float,
+    target: float | NDArray,
     planned_first: NDArray | None,
     record: bool,
     queue_size: int,
+    unit_of_part: NDArray | None = None,
 ) -> _Cut:
     """Rank the eligible parts (age at the harvest moment ``age_h``) and clearcut up to the
     target and the area cap, the last part partly; rules of the sequential pick skip parts
     that would break them. Thinnings due this period are taken on the parts not clearcut
     and count toward the target: a clearcut takes its part's standing volume, thinnings
     pending included, so it adds its volume less those thinnings to the period's total.
-    The pick ranks only about ``queue_size`` parts first (see :func:`_queue`)."""
+    The pick ranks only about ``queue_size`` parts first (see :func:`_queue`). With
+    ``unit_of_part`` (management units) ``target`` holds one target per unit, and each
+    unit's parts are picked in turn toward its own target (:func:`_pick_units`)."""
     cut = _Cut()
     live, due_ha, due_age, upto, nxt = _thinnings_due(parts, age_h, reg)
     cut.checked = live, due_ha, upto, nxt
@@ -450,20 +481,71 @@ def _cut_period(
     thin, thin_ha, thin_age = live[hit], due_ha[hit], due_age[hit]
     pending = np.zeros(len(parts.age))
     pending[thin] = thin_ha
-    thin_total = area_sum(thin_ha, parts.area[thin])
     elig = np.flatnonzero((age_h >= parts.min_age - 1e-9) & (parts.area > 0))
+    cap = np.inf if rules.max_area_ha is None else float(rules.max_area_ha)
+    pick = (parts, curves, reg, rules, spatial, t, age_h, planned_first, pending, queue_size)
+    if unit_of_part is None:
+        goal = float(target) - area_sum(thin_ha, parts.area[thin])
+        picked = _pick_queue(cut, *pick, elig, goal, cap, None)
+    else:
+        thin_u = np.bincount(unit_of_part[thin], thin_ha * parts.area[thin], len(target))
+        picked = _pick_units(cut, pick, elig, np.asarray(target) - thin_u, cap, unit_of_part)
+    cand, v_cand, full_pos, part_pos = picked
+    _tally(cut, parts, age_h, cand, v_cand, full_pos, part_pos)
+    _take_thinnings(cut, parts, thin, thin_ha)
+    if unit_of_part is not None:
+        cut.unit_m3 = _unit_volumes(cut, parts, unit_of_part, v_cand, full_pos, part_pos, thin)
+    if record:
+        cut.events = _events(
+            cut, parts, age_h, cand, v_cand, full_pos, part_pos, thin, thin_ha, thin_age
+        )
+    return cut
+
+
+def _pick_queue(
+    cut: _Cut,
+    parts: _Parts,
+    curves: CurveSet,
+    reg: Regimes | None,
+    rules: HarvestRules,
+    spatial: SpatialRules | None,
+    t: float,
+    age_h: NDArray,
+    planned_first: NDArray | None,
+    pending: NDArray,
+    queue_size: int,
+    elig: NDArray,
+    goal: float,
+    cap: float,
+    budget: NDArray | None,
+) -> tuple[NDArray, NDArray, NDArray, NDArray]:
+    """The pick among the eligible parts ``elig`` toward ``goal`` (clearcut volume) within the
+    area ``cap``, ranking more of the queue until the pick is decided within it; with
+    ``budget``, the cover budgets left by an earlier pick of the period. Returns the ranked
+    candidates, their volumes [m3/ha] and the positions cut whole and partly."""
     cand, v_cand = elig[:0], np.zeros(0)
     full_pos = part_pos = np.zeros(0, dtype=np.intp)
-    if target > thin_total and len(elig):
+    if goal > 0 and len(elig):
         first = None if planned_first is None else planned_first[parts.stand[elig]]
-        goal = target - thin_total
         while True:  # rank more of the queue until the pick is decided within it
             cand, v_cand, whole = _queue(
                 parts, curves, reg, rules.priority, age_h, elig, first, queue_size
             )
             if len(cand):
                 full_pos, part_pos, decided = _pick(
-                    cut, parts, rules, spatial, t, age_h, cand, v_cand, pending, goal, whole
+                    cut,
+                    parts,
+                    rules,
+                    spatial,
+                    t,
+                    age_h,
+                    cand,
+                    v_cand,
+                    pending,
+                    goal,
+                    whole,
+                    cap,
+                    budget,
                 )
                 if whole or decided:
                     break
@@ -472,13 +554,64 @@ def _cut_period(
             queue_size *= 4
     else:
         cut.all_taken = not (parts.volume(curves, elig, age_h[elig], reg) > 0).any()
-    _tally(cut, parts, age_h, cand, v_cand, full_pos, part_pos)
-    _take_thinnings(cut, parts, thin, thin_ha)
-    if record:
-        cut.events = _events(
-            cut, parts, age_h, cand, v_cand, full_pos, part_pos, thin, thin_ha, thin_age
-        )
-    return cut
+    return cand, v_cand, full_pos, part_pos
+
+
+def _pick_units(
+    cut: _Cut,
+    pick: tuple,
+    elig: NDArray,
+    goals: NDArray,
+    cap: float,
+    unit_of_part: NDArray,
+) -> tuple[NDArray, NDArray, NDArray, NDArray]:
+    """Each management unit's pick in turn (in unit order), toward its own goal, sharing the
+    period's area cap, cover budgets and spatial state (a unit's cuts constrain the next
+    unit's as they constrain its own later candidates). The picks merged as one: the
+    candidates one unit after the other, positions into them."""
+    parts = pick[0]
+    pieces, cover_left = [], None
+    offset = 0
+    for u, goal in enumerate(goals):
+        sub = _Cut()
+        mine = elig[unit_of_part[elig] == u]
+        cand, v, full, part = _pick_queue(sub, *pick, mine, float(goal), cap, cover_left)
+        cap -= parts.area[sub.full].sum() + (sub.frac * parts.area[sub.part]).sum()
+        cover_left = sub.cover_left if sub.cover_left is not None else cover_left
+        pieces.append((sub, cand, v, full + offset, part + offset))
+        offset += len(cand)
+    subs = [p[0] for p in pieces]
+    cut.full = np.concatenate([c.full for c in subs]).astype(np.intp)
+    cut.part = np.concatenate([c.part for c in subs]).astype(np.intp)
+    cut.frac = np.concatenate([c.frac for c in subs])
+    cut.tested = sum(c.tested for c in subs)
+    cut.blocked = " and ".join(dict.fromkeys(c.blocked for c in subs if c.blocked))
+    cut.all_taken = all(c.all_taken for c in subs)
+    cut.unit_reasons = [_fail_reason(c) for c in subs]
+    return tuple(  # type: ignore[return-value]
+        np.concatenate([p[k] for p in pieces]) for k in range(1, 5)
+    )
+
+
+def _unit_volumes(
+    cut: _Cut,
+    parts: _Parts,
+    unit_of_part: NDArray,
+    v_cand: NDArray,
+    full_pos: NDArray,
+    part_pos: NDArray,
+    thin: NDArray,
+) -> NDArray:
+    """Each unit's harvest of the period [m3]: its clearcuts and the thinnings taken on its
+    parts not clearcut (the uncut rest of a partly cut part)."""
+    U = len(cut.unit_reasons)
+    area = parts.area
+    out = np.zeros(U)
+    out += np.bincount(unit_of_part[cut.full], v_cand[full_pos] * area[cut.full], U)
+    out += np.bincount(unit_of_part[cut.part], cut.frac * v_cand[part_pos] * area[cut.part], U)
+    if len(thin):
+        out += np.bincount(unit_of_part[thin], cut.thin_m3_by_part, U)
+    return out
 
 
 def _queue(
@@ -550,16 +683,22 @@ def _pick(
     pending: NDArray,
     target: float,
     whole: bool,
+    cap: float,
+    budget: NDArray | None = None,
 ) -> tuple[NDArray, NDArray, bool]:
     """The candidates cut whole and the one cut partly (positions in ``cand``), by volume net
-    of the thinnings a clearcut forgoes, and whether the pick is decided within ``cand``
-    (the first of the period's queue unless ``whole``)."""
+    of the thinnings a clearcut forgoes, within the area ``cap``, and whether the pick is
+    decided within ``cand`` (the first of the period's queue unless ``whole``). ``budget``:
+    the cover budgets an earlier pick of the period left (None: the period's own)."""
     area = parts.area
     vol = (v_ha - pending[cand]) * area[cand]
-    cap = np.inf if rules.max_area_ha is None else float(rules.max_area_ha)
     pick: list = [spatial] if spatial is not None else []
     if rules.cover is not None:
-        pick.append(rules.cover.budgets(parts.zone[cand], age_h[cand], parts.zone, age_h, area))
+        if budget is None:
+            budgets = rules.cover.budgets(parts.zone[cand], age_h[cand], parts.zone, age_h, area)
+        else:
+            budgets = PeriodBudgets(rules.cover, budget.copy(), parts.zone[cand], age_h[cand])
+        pick.append(budgets)
     decided = True
     if not pick:
         full_pos, part_pos, frac, decided = _pick_prefix(vol, area[cand], target, cap)
@@ -570,6 +709,8 @@ def _pick(
             return none, none, False
         full_pos, part_pos, frac, refused = picked
         cut.tested = len(full_pos) + (part_pos >= 0) + sum(refused)
+        if rules.cover is not None:
+            cut.cover_left = pick[-1].budget
         names = [r.name for r, n in zip(pick, refused, strict=True) if n]
         cut.blocked = " and ".join(dict.fromkeys(names))
     cut.full = cand[full_pos]
@@ -618,6 +759,7 @@ def _take_thinnings(cut: _Cut, parts: _Parts, thin: NDArray, thin_ha: NDArray) -
     for part, frac in zip(cut.part, cut.frac, strict=True):
         share[thin == part] = 1.0 - frac
     area = share * parts.area[thin]
+    cut.thin_m3_by_part = thin_ha * area
     cut.thinning_m3 = area_sum(thin_ha, area)
     cut.thinning_ha = float(area.sum())
     cut.volume_m3 += cut.thinning_m3
@@ -851,35 +993,37 @@ def simulate(
     kept_at = set(rules.snapshots) if record else set()
     queue_size = max(len(parts.age) // 4, _QUEUE_MIN)
     hlb_stock = start.hlb_stock_m3  # at the start of the period (the end of the last)
+    book = None
+    if rules.units is not None:
+        stocks = parts.unit_stocks(curves, reg)
+        book = _UnitBook.of(rules.units, rule, ending_stock, parts, stocks)
     for p in range(P):
         if p in kept_at:
             sim.snapshots[p] = parts.snapshot()
         if record:
             out.gs_start[p] = sim.initial_stock_m3 if p == 0 else out.gs_end[p - 1]
-        target, floor = rule.bounds(p, out.h[p - 1] if p else 0.0)
-        out.target[p], out.floor[p] = target, floor
+        if book is None:
+            target, floor = rule.bounds(p, out.h[p - 1] if p else 0.0)
+        else:
+            target, floor = book.bounds(p)
+        out.target[p], out.floor[p] = np.sum(target), floor
         if record or p == P - stable_periods:
             out.hlb_start[p] = hlb_stock
         age_h = parts.age + off
         # a plan's rank of each stand this period: 0 planned by now, k planned k periods later
         first = None if planned is None else np.maximum(planned - (p + 1), 0)
         t = p * L + off
+        upart = None if book is None else book.of_stand[parts.stand]
         cut = _cut_period(
-            parts, curves, reg, rules, spatial, t, age_h, target, first, record, queue_size
+            parts, curves, reg, rules, spatial, t, age_h, target, first, record, queue_size, upart
         )
         # this period's cut (and the candidates the rules refused), twice
         queue_size = max(2 * (len(cut.full) + 1), 2 * cut.tested, _QUEUE_MIN)
-        out.h[p], out.ha[p], out.age_area[p] = cut.volume_m3, cut.area_ha, cut.age_area
-        out.thin_m3[p], out.thin_ha[p] = cut.thinning_m3, cut.thinning_ha
-        if cut.events is not None:
-            period = np.full(len(cut.events[0]), p + 1)
-            out.events.append(cut.events[:1] + (period,) + cut.events[1:])
+        out.add(p, cut)
         if record and rules.cover is not None:
             out.cover.append(_cover_after(parts, rules.cover, age_h, cut))
-        if out.h[p] < floor * (1 - _REL) and sim.feasible:
-            sim.feasible, sim.fail_period, sim.fail_reason = False, p + 1, _fail_reason(cut)
-            if not record:
-                break
+        if _missed(sim, book, p, cut, floor) and not record:
+            break
         _thinned(parts, cut, age_h)  # the thinnings due are taken (a cut part restarts)
         shares = None if regen_shares is None else regen_shares[p]
         n_before, regen = _regrow(parts, cut, L, off, stands, curves, shares)
@@ -895,11 +1039,105 @@ def simulate(
                 out.gs_end[p] = total
             if p == P - 1:
                 sim.ending_stock_m3, sim.ending_hlb_stock_m3 = total, hlb_stock
-    _judge_end(sim, ending_stock, stable_periods, out.hlb_start, P)
+    if book is None:
+        _judge_end(sim, ending_stock, stable_periods, out.hlb_start, P)
+    else:
+        book.judge_end(sim, parts, parts.unit_stocks(curves, reg))
     if P in kept_at:
         sim.snapshots[P] = parts.snapshot()
     out.fill(sim, parts if record else None)
     return sim
+
+
+@dataclass
+class _UnitBook:
+    """The management units of a horizon: each unit's stands, target rule and ending-stock
+    share, and, as the horizon runs, its harvests, targets and floors and its verdict."""
+
+    of_stand: NDArray
+    rule: PerUnit
+    ending_stock: NDArray
+    harvest: NDArray  # periods x units
+    target: NDArray
+    floor: NDArray
+    fail_period: NDArray
+    reasons: list[str]
+    initial: NDArray
+
+    @classmethod
+    def of(
+        cls,
+        units: NDArray,
+        rule: TargetRule,
+        ending_stock: float | NDArray,
+        start: _Parts,
+        stocks: NDArray,
+    ) -> _UnitBook:
+        """The book of a horizon from its starting parts and their growing stock [m3]."""
+        if not isinstance(rule, PerUnit):
+            raise TypeError("a run with management units needs a PerUnit target rule")
+        U = len(rule.rules)
+        P = 0  # grown as periods are booked
+        share = np.broadcast_to(np.asarray(ending_stock, dtype=np.float64), U).copy()
+        of_stand = np.asarray(units, dtype=np.int64)
+        initial = np.bincount(of_stand[start.stand], stocks, U)
+        empty = np.zeros((P, U))
+        return cls(
+            of_stand, rule, share, empty, empty, empty, np.zeros(U, np.int64), [""] * U, initial
+        )
+
+    @property
+    def n(self) -> int:
+        return len(self.rule.rules)
+
+    def bounds(self, p: int) -> tuple[NDArray, float]:
+        """The units' targets of period p and the region's floor (their sum)."""
+        prev = self.harvest[p - 1] if p else np.zeros(self.n)
+        target, floor = self.rule.bounds_units(p, prev)
+        self.target = np.vstack([self.target, target])
+        self.floor = np.vstack([self.floor, floor])
+        return target, float(floor.sum())
+
+    def book(self, p: int, cut: _Cut, sim: Simulation) -> bool:
+        """Record the units' harvests of period p; a unit below its floor fails (the first
+        time). Whether every unit has failed by now."""
+        assert cut.unit_m3 is not None
+        self.harvest = np.vstack([self.harvest, cut.unit_m3])
+        short = cut.unit_m3 < self.floor[p] * (1 - _REL)
+        for u in np.flatnonzero(short):
+            if not self.reasons[u]:
+                self.fail_period[u] = p + 1
+                self.reasons[u] = cut.unit_reasons[u]
+                if sim.feasible:
+                    sim.feasible, sim.fail_period, sim.fail_reason = False, p + 1, self.reasons[u]
+        return all(self.reasons)
+
+    def judge_end(self, sim: Simulation, parts: _Parts, stocks: NDArray) -> None:
+        """A unit that met every floor fails if its ending stock is below its share of its
+        initial stock (``stocks``: of the parts at the end); the horizon's figures per unit
+        into ``sim``."""
+        ending = np.bincount(self.of_stand[parts.stand], stocks, self.n)
+        low = ending < self.ending_stock * self.initial * (1 - _REL)
+        for u in np.flatnonzero(low):
+            if not self.reasons[u]:
+                self.reasons[u] = "ending growing stock below the requirement"
+                if sim.feasible:
+                    sim.feasible, sim.fail_reason = False, self.reasons[u]
+        sim.unit_harvest_m3, sim.unit_target_m3 = self.harvest, self.target
+        sim.unit_floor_m3, sim.unit_fail_period = self.floor, self.fail_period
+        sim.unit_fail_reason = list(self.reasons)
+        sim.unit_initial_stock_m3, sim.unit_ending_stock_m3 = self.initial, ending
+
+
+def _missed(sim: Simulation, book: _UnitBook | None, p: int, cut: _Cut, floor: float) -> bool:
+    """Whether period p's harvest missed its floor (with units: whether every unit has missed
+    one by now), failing the horizon at the first miss."""
+    if book is not None:
+        return book.book(p, cut, sim)
+    if cut.volume_m3 < floor * (1 - _REL) and sim.feasible:
+        sim.feasible, sim.fail_period, sim.fail_reason = False, p + 1, _fail_reason(cut)
+        return True
+    return False
 
 
 def _judge_end(
@@ -956,6 +1194,14 @@ class _Totals:
             np.zeros(P),
             np.zeros(P),
         )
+
+    def add(self, p: int, cut: _Cut) -> None:
+        """Period p's cut: its volume, area, age and thinnings, and its events if recorded."""
+        self.h[p], self.ha[p], self.age_area[p] = cut.volume_m3, cut.area_ha, cut.age_area
+        self.thin_m3[p], self.thin_ha[p] = cut.thinning_m3, cut.thinning_ha
+        if cut.events is not None:
+            period = np.full(len(cut.events[0]), p + 1)
+            self.events.append(cut.events[:1] + (period,) + cut.events[1:])
 
     def fill(self, sim: Simulation, parts: _Parts | None) -> None:
         """Move the figures into the simulation (with the parts at the end when recorded)."""
