@@ -8,7 +8,8 @@ import pytest
 from yieldscape.growth import ChapmanRichards
 from yieldscape.policies import EvenFlow, PerUnit
 from yieldscape.projection import CurveSet, Periods, StandArrays
-from yieldscape.schedule import HarvestRules, simulate
+from yieldscape.schedule import HarvestRules, find_even_flow, simulate
+from yieldscape.schedule.units import UnitPolicy, find_unit_flows
 
 CURVES = CurveSet(["pine"], [ChapmanRichards(450.0, 0.035, 3.0)])
 PERIODS = Periods(2030, 10, 8, "midpoint")
@@ -79,3 +80,38 @@ def test_a_shared_area_cap_holds_for_the_region_and_serves_units_in_turn():
     # unlimited targets: the first unit takes the whole cap while it has eligible stands
     first = joint.event_period == 1
     assert (UNIT[joint.event_stand[first & (joint.event_treatment == 0)]] == 0).all()
+
+
+UNITS = (UnitPolicy("a", "even", 0.1, 0.9), UnitPolicy("b", "even", 0.0, 1.0))
+
+
+def test_unit_levels_without_shared_rules_are_the_levels_found_alone():
+    # One trial judges both units; with no shared rule each unit's bracket sees what its own
+    # search sees, so it tries the same levels and ends on the same one (to the last few
+    # ulps: the unit's ending stock is summed in another order than the whole forest's).
+    found = find_unit_flows(stands_of(A, B), CURVES, PERIODS, HarvestRules(units=UNIT), UNITS)
+    for u, (part, unit) in enumerate(zip((A, B), UNITS, strict=True)):
+        alone = find_even_flow(
+            stands_of(part), CURVES, PERIODS, band=unit.band, ending_stock=unit.ending_stock
+        )
+        assert found.levels_m3[u] == pytest.approx(alone.level_m3_per_period, rel=1e-12)
+    assert found.simulation.unit_feasible.all()
+    # fewer trials than the two searches one after the other
+    assert found.levels_m3.min() > 0
+
+
+def test_unit_levels_under_a_shared_cap_hold_every_rule_together():
+    cap = 60.0
+    rules = HarvestRules(units=UNIT, max_area_ha=cap)
+    found = find_unit_flows(stands_of(A, B), CURVES, PERIODS, rules, UNITS)
+    sim = found.simulation
+    assert sim.feasible and sim.unit_feasible.all()
+    assert (sim.harvest_ha <= cap * (1 + 1e-9)).all()
+    # each unit holds its even flow (unit b: no band) and its ending stock
+    assert (sim.unit_harvest_m3[:, 1] >= found.levels_m3[1] * (1 - 1e-9)).all()
+    assert (sim.unit_harvest_m3[0, 0] >= found.levels_m3[0] * (1 - 1e-9)).all()
+    shares = np.array([u.ending_stock for u in UNITS])
+    assert (sim.unit_ending_stock_m3 >= shares * sim.unit_initial_stock_m3 * (1 - 1e-9)).all()
+    # the shared cap binds: the units' levels are below their levels alone
+    alone = find_unit_flows(stands_of(A, B), CURVES, PERIODS, HarvestRules(units=UNIT), UNITS)
+    assert found.levels_m3.sum() < alone.levels_m3.sum()
