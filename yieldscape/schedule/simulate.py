@@ -29,6 +29,7 @@ from yieldscape.projection import (
 )
 from yieldscape.regimes import Regimes
 from yieldscape.schedule.cover import CoverRules, PeriodBudgets
+from yieldscape.schedule.partitions import PartitionRules, within_maximum
 from yieldscape.schedule.picker import block_pick
 from yieldscape.schedule.spatial import SpatialRules
 
@@ -68,6 +69,7 @@ class HarvestRules:
     # the management unit of each stand (codes 0 .. U-1; None: one flow for the region),
     # whose flows a :class:`~yieldscape.policies.PerUnit` target rule sets
     units: NDArray | None = field(default=None, compare=False)
+    partitions: PartitionRules | None = field(default=None, compare=False)
 
 
 NO_RULES = HarvestRules()  # oldest first, no cap, no spatial or cover rules, no disturbance
@@ -126,6 +128,9 @@ class Simulation:
     unit_fail_reason: list[str] = field(default_factory=list)
     unit_initial_stock_m3: NDArray = field(default_factory=lambda: np.zeros(0))
     unit_ending_stock_m3: NDArray = field(default_factory=lambda: np.zeros(0))
+    # harvest partitions (HarvestRules.partitions): per period and partition the volume [m3]
+    # (record=True only)
+    partition_m3: NDArray = field(default_factory=lambda: np.zeros((0, 0)))
 
     @property
     def unit_feasible(self) -> NDArray[np.bool_]:
@@ -422,6 +427,8 @@ class _Cut:
     unit_m3: NDArray | None = None
     unit_reasons: list[str] = field(default_factory=list)
     cover_left: NDArray | None = None
+    partition_m3: NDArray | None = None  # the period's volume of each partition
+    partition_broken: str = ""  # the first partition limit the period broke
     thin_m3_by_part: NDArray = field(default_factory=lambda: np.zeros(0))
     # stand, age, area, volume, code and treatment (0 clearcut, 1 thinning) of each event
     events: tuple[NDArray, ...] | None = None
@@ -484,17 +491,23 @@ def _cut_period(
     elig = np.flatnonzero((age_h >= parts.min_age - 1e-9) & (parts.area > 0))
     cap = np.inf if rules.max_area_ha is None else float(rules.max_area_ha)
     pick = (parts, curves, reg, rules, spatial, t, age_h, planned_first, pending, queue_size)
+    if unit_of_part is None and rules.partitions is not None:  # one unit
+        unit_of_part, target = np.zeros(len(parts.age), dtype=np.int64), np.array([target])
     if unit_of_part is None:
         goal = float(target) - area_sum(thin_ha, parts.area[thin])
         picked = _pick_queue(cut, *pick, elig, goal, cap, None)
     else:
-        thin_u = np.bincount(unit_of_part[thin], thin_ha * parts.area[thin], len(target))
-        picked = _pick_units(cut, pick, elig, np.asarray(target) - thin_u, cap, unit_of_part)
+        targets = np.asarray(target, dtype=np.float64)
+        thin_u = np.bincount(unit_of_part[thin], thin_ha * parts.area[thin], len(targets))
+        thinned = (thin, thin_ha * parts.area[thin])
+        picked = _pick_units(cut, pick, elig, targets, targets - thin_u, cap, unit_of_part, thinned)
     cand, v_cand, full_pos, part_pos = picked
     _tally(cut, parts, age_h, cand, v_cand, full_pos, part_pos)
     _take_thinnings(cut, parts, thin, thin_ha)
     if unit_of_part is not None:
         cut.unit_m3 = _unit_volumes(cut, parts, unit_of_part, v_cand, full_pos, part_pos, thin)
+    if rules.partitions is not None:
+        _partition_volumes(cut, parts, rules.partitions, v_cand, full_pos, part_pos, thin)
     if record:
         cut.events = _events(
             cut, parts, age_h, cand, v_cand, full_pos, part_pos, thin, thin_ha, thin_age
@@ -518,11 +531,15 @@ def _pick_queue(
     goal: float,
     cap: float,
     budget: NDArray | None,
+    limit: tuple[NDArray, NDArray] | None = None,
 ) -> tuple[NDArray, NDArray, NDArray, NDArray]:
     """The pick among the eligible parts ``elig`` toward ``goal`` (clearcut volume) within the
     area ``cap``, ranking more of the queue until the pick is decided within it; with
-    ``budget``, the cover budgets left by an earlier pick of the period. Returns the ranked
-    candidates, their volumes [m3/ha] and the positions cut whole and partly."""
+    ``budget``, the cover budgets left by an earlier pick of the period; with ``limit`` (each
+    part's partitions and each partition's room left [m3]), without the candidates a
+    partition's maximum leaves out (:func:`~yieldscape.schedule.partitions.within_maximum`).
+    Returns the ranked candidates, their volumes [m3/ha] and the positions cut whole and
+    partly."""
     cand, v_cand = elig[:0], np.zeros(0)
     full_pos = part_pos = np.zeros(0, dtype=np.intp)
     if goal > 0 and len(elig):
@@ -531,6 +548,10 @@ def _pick_queue(
             cand, v_cand, whole = _queue(
                 parts, curves, reg, rules.priority, age_h, elig, first, queue_size
             )
+            if limit is not None:
+                net = (v_cand - pending[cand]) * parts.area[cand]
+                keep = within_maximum(net, limit[0][cand], limit[1])
+                cand, v_cand = cand[keep], v_cand[keep]
             if len(cand):
                 full_pos, part_pos, decided = _pick(
                     cut,
@@ -561,25 +582,60 @@ def _pick_units(
     cut: _Cut,
     pick: tuple,
     elig: NDArray,
+    targets: NDArray,
     goals: NDArray,
     cap: float,
     unit_of_part: NDArray,
+    thinned: tuple[NDArray, NDArray],
 ) -> tuple[NDArray, NDArray, NDArray, NDArray]:
     """Each management unit's pick in turn (in unit order), toward its own goal, sharing the
     period's area cap, cover budgets and spatial state (a unit's cuts constrain the next
-    unit's as they constrain its own later candidates). The picks merged as one: the
-    candidates one unit after the other, positions into them."""
-    parts = pick[0]
-    pieces, cover_left = [], None
-    offset = 0
+    unit's as they constrain its own later candidates). With partitions
+    (:mod:`yieldscape.schedule.partitions`) each unit first cuts toward its share of each
+    minimum (in proportion to its target) from that partition's candidates, and every pick
+    leaves out what a maximum would not allow. A part cut (wholly or partly) by one pick is
+    not a candidate of the next. The picks merged as one: the candidates one pick after the
+    other, positions into them."""
+    parts, rules, pending = pick[0], pick[3], pick[8]
+    area = parts.area
+    total = float(targets.sum())
+    mem = need = room = None
+    if rules.partitions is not None:
+        mem = rules.partitions.of_parts(parts.stand, parts.sp)
+        thin_k = thinned[1] @ mem[thinned[0]] if len(thinned[0]) else np.zeros(mem.shape[1])
+        need = rules.partitions.minimum(total) - thin_k
+        room = rules.partitions.maximum(total) - thin_k
+    # each unit's share of a minimum: its share of the targets (of the unbounded ones, alike)
+    inf = np.isinf(targets)
+    share = targets / total if np.isfinite(total) and total > 0 else inf / max(inf.sum(), 1)
+    taken = np.zeros(len(area), dtype=bool)
+    pieces, reasons, cover_left, offset = [], [], None, 0
     for u, goal in enumerate(goals):
-        sub = _Cut()
-        mine = elig[unit_of_part[elig] == u]
-        cand, v, full, part = _pick_queue(sub, *pick, mine, float(goal), cap, cover_left)
-        cap -= parts.area[sub.full].sum() + (sub.frac * parts.area[sub.part]).sum()
-        cover_left = sub.cover_left if sub.cover_left is not None else cover_left
-        pieces.append((sub, cand, v, full + offset, part + offset))
-        offset += len(cand)
+        left = float(goal)
+        phases: list[tuple[int, float]] = []
+        if need is not None and share[u] > 0:
+            phases = [(int(k), need[k] * share[u]) for k in np.flatnonzero(need > 0)]
+        for k, want in [*phases, (-1, np.inf)]:
+            mine = elig[(unit_of_part[elig] == u) & ~taken[elig]]
+            if k >= 0:
+                mine = mine[mem[mine, k]]
+            limit = None if room is None else (mem, room)
+            sub = _Cut()
+            cand, v, full, part = _pick_queue(
+                sub, *pick, mine, min(want, left), cap, cover_left, limit
+            )
+            net = (v - pending[cand]) * area[cand]
+            got = np.r_[net[full], sub.frac * net[part]]
+            at = np.r_[cand[full], cand[part]].astype(np.intp)
+            left -= float(got.sum())
+            if room is not None:
+                room = room - got @ mem[at]
+            cap -= area[sub.full].sum() + (sub.frac * area[sub.part]).sum()
+            cover_left = sub.cover_left if sub.cover_left is not None else cover_left
+            taken[at] = True
+            pieces.append((sub, cand, v, full + offset, part + offset))
+            offset += len(cand)
+        reasons.append(_fail_reason(sub))  # the unit's last pick: toward its whole target
     subs = [p[0] for p in pieces]
     cut.full = np.concatenate([c.full for c in subs]).astype(np.intp)
     cut.part = np.concatenate([c.part for c in subs]).astype(np.intp)
@@ -587,10 +643,29 @@ def _pick_units(
     cut.tested = sum(c.tested for c in subs)
     cut.blocked = " and ".join(dict.fromkeys(c.blocked for c in subs if c.blocked))
     cut.all_taken = all(c.all_taken for c in subs)
-    cut.unit_reasons = [_fail_reason(c) for c in subs]
+    cut.unit_reasons = reasons
     return tuple(  # type: ignore[return-value]
         np.concatenate([p[k] for p in pieces]) for k in range(1, 5)
     )
+
+
+def _partition_volumes(
+    cut: _Cut,
+    parts: _Parts,
+    partitions: PartitionRules,
+    v_cand: NDArray,
+    full_pos: NDArray,
+    part_pos: NDArray,
+    thin: NDArray,
+) -> None:
+    """The period's volume of each partition (its clearcuts and the thinnings taken on its
+    parts) and the first limit it breaks."""
+    mem = partitions.of_parts(parts.stand, parts.sp)
+    area = parts.area
+    vol = np.r_[v_cand[full_pos] * area[cut.full], cut.frac * v_cand[part_pos] * area[cut.part]]
+    at = np.r_[cut.full, cut.part].astype(np.intp)
+    cut.partition_m3 = vol @ mem[at] + (cut.thin_m3_by_part @ mem[thin] if len(thin) else 0.0)
+    cut.partition_broken = partitions.broken(cut.partition_m3, cut.volume_m3)
 
 
 def _unit_volumes(
@@ -1104,6 +1179,9 @@ class _UnitBook:
         assert cut.unit_m3 is not None
         self.harvest = np.vstack([self.harvest, cut.unit_m3])
         short = cut.unit_m3 < self.floor[p] * (1 - _REL)
+        if cut.partition_broken:  # a regional limit: every unit fails with it
+            short[:] = True
+            cut.unit_reasons = [cut.partition_broken] * self.n
         for u in np.flatnonzero(short):
             if not self.reasons[u]:
                 self.fail_period[u] = p + 1
@@ -1134,8 +1212,10 @@ def _missed(sim: Simulation, book: _UnitBook | None, p: int, cut: _Cut, floor: f
     one by now), failing the horizon at the first miss."""
     if book is not None:
         return book.book(p, cut, sim)
-    if cut.volume_m3 < floor * (1 - _REL) and sim.feasible:
-        sim.feasible, sim.fail_period, sim.fail_reason = False, p + 1, _fail_reason(cut)
+    short = cut.volume_m3 < floor * (1 - _REL)
+    if (short or cut.partition_broken) and sim.feasible:
+        why = _fail_reason(cut) if short else cut.partition_broken
+        sim.feasible, sim.fail_period, sim.fail_reason = False, p + 1, why
         return True
     return False
 
@@ -1176,6 +1256,7 @@ class _Totals:
     events: list[tuple[NDArray, ...]] = field(default_factory=list)
     cover: list[NDArray] = field(default_factory=list)
     regen: list[tuple[NDArray, ...]] = field(default_factory=list)
+    partitions: list[NDArray] = field(default_factory=list)
 
     @classmethod
     def empty(cls, P: int) -> _Totals:
@@ -1202,6 +1283,8 @@ class _Totals:
         if cut.events is not None:
             period = np.full(len(cut.events[0]), p + 1)
             self.events.append(cut.events[:1] + (period,) + cut.events[1:])
+        if cut.partition_m3 is not None:
+            self.partitions.append(cut.partition_m3)
 
     def fill(self, sim: Simulation, parts: _Parts | None) -> None:
         """Move the figures into the simulation (with the parts at the end when recorded)."""
@@ -1212,6 +1295,8 @@ class _Totals:
             sim.final_age_years, sim.final_area_ha = parts.age, parts.area
         if self.cover:
             sim.cover_area_ha = np.vstack(self.cover)
+        if self.partitions:
+            sim.partition_m3 = np.vstack(self.partitions)
         sim.harvest_m3, sim.harvest_ha, sim.harvest_age_area = self.h, self.ha, self.age_area
         sim.growing_stock_start_m3, sim.growing_stock_end_m3 = self.gs_start, self.gs_end
         sim.thinning_m3, sim.thinning_ha = self.thin_m3, self.thin_ha

@@ -26,7 +26,7 @@ from numpy.typing import NDArray
 
 from yieldscape.policies import EvenFlow, PerUnit, TargetRule, Targets
 from yieldscape.projection import CurveSet, Periods, StandArrays
-from yieldscape.schedule.flow import MAX_STEPS, _Bracket, search_tolerance_m3
+from yieldscape.schedule.flow import MAX_STEPS, _Bracket, least_level, search_tolerance_m3
 from yieldscape.schedule.simulate import HarvestRules, Simulation, Start, simulate
 
 MAX_ROUNDS = 3
@@ -97,7 +97,7 @@ def find_unit_flows(
     final: Simulation | None = None
     for _ in range(MAX_ROUNDS):
         open_ = searched if final is None else searched & ~_holds(final)
-        levels, found = _search(trial, levels, open_, periods, shares, final is None)
+        levels, found = _search(trial, rules, levels, open_, periods, shares, final is None)
         why = [f if o else w for f, w, o in zip(found, why, open_, strict=True)]
         final = trial(levels, True)
         if _holds(final)[searched].all():
@@ -115,6 +115,7 @@ def _holds(sim: Simulation) -> NDArray[np.bool_]:
 
 def _search(
     trial,  # noqa: ANN001 - (levels, record) -> Simulation
+    rules: HarvestRules,
     levels: NDArray,
     open_: NDArray,
     periods: Periods,
@@ -134,7 +135,8 @@ def _search(
         ask = levels.copy()
         ask[u] = np.inf
         upper[u] = float(trial(ask).unit_harvest_m3[0, u])
-    low, top = trial(np.where(open_, 0.0, levels)), trial(upper)
+    least = least_level(rules) / max(int(open_.sum()), 1)  # the open units share it alike
+    low, top = trial(np.where(open_, least, levels)), trial(upper)
     brackets: dict[int, _Bracket] = {}
     for u in np.flatnonzero(open_):
         lo_view, hi_view = _UnitView(low, u), _UnitView(top, u)
@@ -143,8 +145,8 @@ def _search(
         elif hi_view.feasible:
             levels[u], why[u] = upper[u], "every stand eligible in period 1 is cut"
         else:
-            b = _Bracket(0.0, float(upper[u]), lo_view, hi_view)
-            b.add(0.0, _margin(low, u, shares), lo_view)
+            b = _Bracket(least, float(upper[u]), lo_view, hi_view)
+            b.add(least, _margin(low, u, shares), lo_view)
             b.add(float(upper[u]), _margin(top, u, shares), hi_view)
             brackets[u] = b
 
