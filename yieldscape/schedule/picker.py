@@ -112,14 +112,13 @@ def compiled_pick(
     budgets = next((r for r in rules if not isinstance(r, SpatialRules)), None)
     slot = {id(r): i for i, r in enumerate(rules)}
     if spatial is not None:
-        adj = spatial.adjacency
-        indptr, indices = adj.indptr, adj.indices
+        indptr, indices = spatial.adjacency.csr32
         mode = 1 if spatial.max_opening_ha <= 0 else 2
         limit = spatial.max_opening_ha * (1 + _REL)
         open_now = spatial.is_open(t)
         open_area = spatial.open_area
     else:
-        indptr = indices = np.zeros(1, dtype=np.int64)
+        indptr = indices = np.zeros(1, dtype=np.int32)
         mode, limit = 0, 0.0
         open_now, open_area = np.zeros(0, dtype=np.bool_), np.zeros(0)
     if budgets is not None:
@@ -137,7 +136,7 @@ def compiled_pick(
         indptr,
         indices,
         open_now,
-        np.flatnonzero(open_now) if mode == 2 else np.zeros(0, dtype=np.int64),
+        np.flatnonzero(open_now),
         open_area,
         draws,
         budget,
@@ -227,6 +226,9 @@ def _pick_loop(
     x budgets), ``budget`` (spent in place) and ``tol``."""
     m = len(stands)
     opened = open_now.copy()
+    near = np.zeros(len(open_now), dtype=np.bool_)  # an open neighbour (the stand aside)
+    for s in open_idx:
+        _mark_near(s, near, indptr, indices)
     if mode == 2:
         label, parent, comp = _openings(indptr, indices, open_now, open_idx, open_area, m)
     else:
@@ -250,15 +252,15 @@ def _pick_loop(
         # the spatial rules (SpatialRules.allows), then the cover budgets (PeriodBudgets.allows)
         n_roots, total = 0, 0.0
         if mode == 1:
-            ok = not _open_next_to(s, opened, indptr, indices)
+            ok = not near[s]
         elif mode == 2:
             ok = not area[k] > limit
-            if ok:
+            if ok and (near[s] or opened[s]):  # else it joins no opening
                 roots, n_roots = _joined(s, opened, label, parent, indptr, indices, roots)
                 for i in range(n_roots):
                     total += comp[roots[i]]
-                total = a + total  # as a + sum(...) in Python
-                ok = not total > limit
+            total = a + total  # as a + sum(...) in Python
+            ok = ok and not total > limit
         else:
             ok = True
         if not ok:
@@ -278,6 +280,7 @@ def _pick_loop(
             nxt += 1
         if mode > 0:
             opened[s] = True
+            _mark_near(s, near, indptr, indices)
         got_v += f * vol[k]
         got_a += a
         if f < 1.0:
@@ -303,13 +306,12 @@ def _fraction(goal_left: float, vol: float, cap_left: float, area: float) -> flo
 
 
 @jit
-def _open_next_to(s: int, opened: NDArray, indptr: NDArray, indices: NDArray) -> bool:
-    """Whether a neighbour of stand s is open (the unit restriction's test)."""
+def _mark_near(s: int, near: NDArray, indptr: NDArray, indices: NDArray) -> None:
+    """Stand s is open: its neighbours (not s itself) have an open neighbour."""
     for p in range(indptr[s], indptr[s + 1]):
         j = indices[p]
-        if j != s and opened[j]:
-            return True
-    return False
+        if j != s:
+            near[j] = True
 
 
 @jit
