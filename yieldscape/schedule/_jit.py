@@ -1,9 +1,9 @@
 """Numba's compiler for the few loops that must run one element at a time (the spatial pick).
 
-Compiled code is cached on disk (``cache=True``): beside the source, else in the user's cache
-folder, else in ``NUMBA_CACHE_DIR`` when set. Where none of these can be written (a read-only
-install without a home), the loops are compiled again in each process (about 2 s) instead of
-failing at import.
+Compiled code is cached on disk (``cache=True``): in ``NUMBA_CACHE_DIR`` when set, else beside
+the source (``__pycache__``), else in the user's cache folder. Where none of these can be
+written (a read-only install without a writable home), the loops are compiled again in each
+process (about 4 s) instead of failing at import.
 """
 
 from __future__ import annotations

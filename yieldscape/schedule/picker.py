@@ -35,6 +35,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from yieldscape.schedule._jit import jit
+from yieldscape.schedule.cover import PeriodBudgets
 from yieldscape.schedule.spatial import SpatialRules
 
 _REL = 1e-9
@@ -109,7 +110,11 @@ def compiled_pick(
     area = np.asarray(area, dtype=np.float64)
     goal = min(target, float(vol.sum()))
     spatial = next((r for r in rules if isinstance(r, SpatialRules)), None)
-    budgets = next((r for r in rules if not isinstance(r, SpatialRules)), None)
+    budgets = next((r for r in rules if isinstance(r, PeriodBudgets)), None)
+    if len(rules) != (spatial is not None) + (budgets is not None):
+        raise TypeError(
+            f"compiled_pick takes one SpatialRules and one PeriodBudgets at most: {rules}"
+        )
     slot = {id(r): i for i, r in enumerate(rules)}
     if spatial is not None:
         indptr, indices = spatial.adjacency.csr32
