@@ -29,7 +29,7 @@ from yieldscape.projection import (
 )
 from yieldscape.regimes import Regimes
 from yieldscape.schedule.cover import CoverRules
-from yieldscape.schedule.picker import block_pick
+from yieldscape.schedule.picker import compiled_pick
 from yieldscape.schedule.spatial import SpatialRules
 
 _REL = 1e-9  # relative tolerance on volume targets
@@ -563,7 +563,7 @@ def _pick(
     if not pick:
         full_pos, part_pos, frac, decided = _pick_prefix(vol, area[cand], target, cap)
     else:
-        picked = block_pick(t, parts.stand[cand], vol, area[cand], target, cap, pick, whole)
+        picked = compiled_pick(t, parts.stand[cand], vol, area[cand], target, cap, pick, whole)
         if picked is None:  # more of the queue could change the pick: rank more
             none = np.zeros(0, dtype=np.intp)
             return none, none, False
