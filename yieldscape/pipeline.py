@@ -70,12 +70,6 @@ from yieldscape.schedule.flow import FlowResult
 from yieldscape.schedule.montecarlo import monte_carlo_table
 
 log = logging.getLogger("yieldscape")
-# the cutting order a run kept, by lp_plan.better's index (None: the priority order)
-ORDER_NAMES = {
-    None: "the priority order",
-    0: "the LP-guided order",
-    1: "the LP-guided order, its last periods by the ending stock a cut gives up",
-}
 
 
 def _warn(messages: list[str] | tuple[str, ...]) -> None:
@@ -291,13 +285,10 @@ def _schedule(scenario: Scenario, inventory: CheckResult, model: _Model, timer: 
         flow = schedule(s, c, p, f, f.policy, rules)
         if lp is not None and strata is not None:  # the LP's plan as the cutting order too
             with timer.stage("LP-guided search"):
-                lp_rules = lp_plan.guided(lp, strata, s, p, rules)
-                tried = [lp_rules, lp_plan.ending_ordered(lp_rules, s, p)]
-                tried = [r for r in tried if r is not None]
-                found = [schedule(s, c, p, f, f.policy, r) for r in tried]
-                flow, won = lp_plan.better(flow, found)
-            rules = tried[won] if won is not None else rules
-            log.info("schedule: %s", ORDER_NAMES[won])
+                flow, rules, order = lp_plan.guided_search(
+                    flow, lp, strata, s, c, p, f, f.policy, rules
+                )
+            log.info("schedule: %s", order)
     openings = None
     if rules.spatial is not None:
         if f.method == "rules":

@@ -15,7 +15,7 @@ from yieldscape.policies import FixedTargets, flow_policy
 from yieldscape.projection import CurveSet, Periods, StandArrays
 from yieldscape.regimes import Regimes
 from yieldscape.schedule.cover import CoverRules
-from yieldscape.schedule.flow import FlowResult
+from yieldscape.schedule.flow import FlowResult, FlowSettings, schedule
 from yieldscape.schedule.lp import Economics, LPResult, Strata, make_strata, solve_lp
 from yieldscape.schedule.simulate import HarvestRules, Plan, Simulation, simulate
 from yieldscape.versions import library_versions
@@ -178,6 +178,36 @@ def better(
         details["lp_guided_ending_order_level_m3_per_period"] = guided_flows[1].level_m3_per_period
     steps = ordered.steps + sum(f.steps for f in guided_flows)
     return replace(best, details=details, steps=steps), won
+
+
+# the cutting order a run kept, by :func:`better`'s index (None: the priority order)
+ORDER_NAMES = {
+    None: "the priority order",
+    0: "the LP-guided order",
+    1: "the LP-guided order, its last periods by the ending stock a cut gives up",
+}
+
+
+def guided_search(
+    ordered: FlowResult,
+    lp: LPResult,
+    strata: Strata,
+    arrays: StandArrays,
+    curves: CurveSet,
+    periods: Periods,
+    flow: FlowSettings,
+    policy: str,
+    rules: HarvestRules,
+) -> tuple[FlowResult, HarvestRules, str]:
+    """The flow policy's search again in the LP-guided orders (:func:`guided`, and
+    :func:`ending_ordered` where it has periods) of ``policy``: the best of them and of the
+    search in priority order (``ordered``, under ``rules``) by :func:`better`, the rules that
+    found it and the order's name."""
+    lp_rules = guided(lp, strata, arrays, periods, rules)
+    tried = [r for r in (lp_rules, ending_ordered(lp_rules, arrays, periods)) if r is not None]
+    found = [schedule(arrays, curves, periods, flow, policy, r) for r in tried]
+    best, won = better(ordered, found)
+    return best, tried[won] if won is not None else rules, ORDER_NAMES[won]
 
 
 def lp_schedule(

@@ -466,6 +466,20 @@ class EndingCost:
         return out
 
 
+def _ending_cost(
+    plan: Plan | None,
+    p: int,
+    stands: StandArrays,
+    curves: CurveSet,
+    years_left: float,
+    shares: NDArray | None,
+) -> EndingCost | None:
+    """The ending-stock order of period index ``p`` where the plan has one from then on."""
+    if plan is None or plan.ending_from is None or p < plan.ending_from:
+        return None
+    return EndingCost(stands, curves, years_left, None if shares is None else shares[p])
+
+
 def _thinnings_due(parts: _Parts, age_h: NDArray, reg: Regimes | None) -> tuple[NDArray, ...]:
     """The parts that may have a thinning due by the harvest moment (their next thinning
     age is reached): their positions, removals [m3/ha] due (0: none after all), the age of
@@ -937,24 +951,9 @@ def simulate(
         # a plan's rank of each stand this period: 0 planned by now, k planned k periods later
         first = None if planned is None else np.maximum(planned - (p + 1), 0)
         t = p * L + off
-        ending = None
-        if rules.plan is not None and rules.plan.ending_from is not None:
-            if p >= rules.plan.ending_from:
-                at = None if regen_shares is None else regen_shares[p]
-                ending = EndingCost(stands, curves, P * L - t, at)
+        ending = _ending_cost(rules.plan, p, stands, curves, P * L - t, regen_shares)
         cut = _cut_period(
-            parts,
-            curves,
-            reg,
-            rules,
-            spatial,
-            t,
-            age_h,
-            target,
-            first,
-            record,
-            queue_size,
-            ending,
+            parts, curves, reg, rules, spatial, t, age_h, target, first, record, queue_size, ending
         )
         # this period's cut (and the candidates the rules refused), twice
         queue_size = max(2 * (len(cut.full) + 1), 2 * cut.tested, _QUEUE_MIN)
