@@ -44,10 +44,15 @@ class Plan:
     stands planned for it or earlier first, then those planned for the next period, the one
     after, and so on, the stands it never cuts last (the priority rule ordering each group), and
     per period the shares in which each code's cut area regrows as each code (periods x codes
-    x codes: the LP's regeneration choices; None: the regimes' own transitions)."""
+    x codes: the LP's regeneration choices; None: the regimes' own transitions).
+
+    From period index ``ending_from`` on (None: never), each rank is ordered by the ending
+    growing stock a cut gives up per m3 it yields, least first, instead of by the priority
+    rule (see :class:`EndingCost`)."""
 
     period: NDArray[np.int64]
     regen_shares: NDArray | None = None
+    ending_from: int | None = None
 
 
 @dataclass(frozen=True)
@@ -401,6 +406,80 @@ class _Cut:
     checked: tuple[NDArray, ...] = (np.zeros(0, dtype=np.intp), *(np.zeros(0),) * 3)
 
 
+@dataclass(frozen=True)
+class EndingCost:
+    """The ending growing stock a clearcut gives up per m3 it yields, for a period whose cuts
+    regrow too little to be cut again before the horizon's end: the part's standing volume at
+    the end had it stood, less its regrowth's (in the period's regeneration shares, each code
+    after its delay, net of the thinnings taken by then), over the volume it yields now.
+    Where the ending growing stock is what holds the level down, cutting a period's volume in
+    this order, least first, leaves the most of it standing (a fractional knapsack, whose
+    greedy solution by ratio is optimal: Dantzig 1957, Oper. Res. 5:266-288). ``years_left``:
+    from the period's harvest moment to the horizon's end; ``shares``: codes x codes (None:
+    each part regrows as its own code)."""
+
+    forest: StandArrays
+    curves: CurveSet
+    years_left: float
+    shares: NDArray | None = None
+
+    def __call__(
+        self, parts: _Parts, idx: NDArray, vol: NDArray, age_h: NDArray, reg: Regimes | None
+    ) -> NDArray[np.float64]:
+        """Per part ``idx`` (its volume now ``vol`` [m3/ha]): the ending stock given up [m3]
+        per m3 cut (inf where it yields nothing)."""
+        left = self.years_left
+        standing = parts.volume(self.curves, idx, age_h[idx] + left, reg)
+        lost = standing - self._regrowth(parts, idx, reg)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(vol > 0, lost / np.where(vol > 0, vol, 1.0), np.inf)
+
+    def _regrowth(self, parts: _Parts, idx: NDArray, reg: Regimes | None) -> NDArray:
+        """Standing volume [m3/ha] at the horizon's end of the regrowth of parts ``idx``."""
+        out = np.zeros(len(idx))
+        if self.shares is None:  # as its own code, after its delay
+            age = self.years_left - parts.delay[idx]
+            grown = np.flatnonzero(age > 0)
+            if len(grown):
+                j = idx[grown]
+                v = self.curves.volume_m3_ha(parts.sp[j], age[grown], terms=parts.si.take(j))
+                if reg is not None and reg.thins:
+                    v -= reg.removed(parts.sp[j], parts.thin_r[j], age[grown])
+                out[grown] = v
+            return out
+        assert reg is not None
+        code = parts.sp[idx]
+        site = self.forest.site_index[parts.stand[idx]]
+        for to in np.flatnonzero(self.shares[np.unique(code)].sum(axis=0) > 0):
+            w = self.shares[code, to]
+            age = self.years_left - float(reg.delay[to])
+            at = np.flatnonzero(w > 0) if age > 0 else np.zeros(0, dtype=np.intp)
+            if not len(at):
+                continue
+            sp = np.full(len(at), to, dtype=parts.sp.dtype)
+            terms = self.curves.site_terms(sp, site[at])
+            ages = np.full(len(at), age)
+            v = self.curves.volume_m3_ha(sp, ages, terms=terms)
+            if reg.thins:
+                v -= reg.removed(sp, reg.removals(self.curves, sp, terms), ages)
+            out[at] += w[at] * v
+        return out
+
+
+def _ending_cost(
+    plan: Plan | None,
+    p: int,
+    stands: StandArrays,
+    curves: CurveSet,
+    years_left: float,
+    shares: NDArray | None,
+) -> EndingCost | None:
+    """The ending-stock order of period index ``p`` where the plan has one from then on."""
+    if plan is None or plan.ending_from is None or p < plan.ending_from:
+        return None
+    return EndingCost(stands, curves, years_left, None if shares is None else shares[p])
+
+
 def _thinnings_due(parts: _Parts, age_h: NDArray, reg: Regimes | None) -> tuple[NDArray, ...]:
     """The parts that may have a thinning due by the harvest moment (their next thinning
     age is reached): their positions, removals [m3/ha] due (0: none after all), the age of
@@ -435,13 +514,15 @@ def _cut_period(
     planned_first: NDArray | None,
     record: bool,
     queue_size: int,
+    ending: EndingCost | None = None,
 ) -> _Cut:
     """Rank the eligible parts (age at the harvest moment ``age_h``) and clearcut up to the
     target and the area cap, the last part partly; rules of the sequential pick skip parts
     that would break them. Thinnings due this period are taken on the parts not clearcut
     and count toward the target: a clearcut takes its part's standing volume, thinnings
     pending included, so it adds its volume less those thinnings to the period's total.
-    The pick ranks only about ``queue_size`` parts first (see :func:`_queue`)."""
+    The pick ranks only about ``queue_size`` parts first (see :func:`_queue`); ``ending``
+    orders each of the plan's ranks instead of the priority rule."""
     cut = _Cut()
     live, due_ha, due_age, upto, nxt = _thinnings_due(parts, age_h, reg)
     cut.checked = live, due_ha, upto, nxt
@@ -458,7 +539,7 @@ def _cut_period(
         goal = target - thin_total
         while True:  # rank more of the queue until the pick is decided within it
             cand, v_cand, whole = _queue(
-                parts, curves, reg, rules.priority, age_h, elig, first, queue_size
+                parts, curves, reg, rules.priority, age_h, elig, first, queue_size, ending
             )
             if len(cand):
                 full_pos, part_pos, decided = _pick(
@@ -489,23 +570,29 @@ def _queue(
     elig: NDArray,
     first: NDArray | None,
     size: int,
+    ending: EndingCost | None = None,
 ) -> tuple[NDArray, NDArray, bool]:
     """The first of the period's queue: the eligible parts ``elig`` whose priority key is at
     least the ``size``-th highest (ties all in, so they are exactly the queue's first ones;
     with ``first``, a plan's rank per part, lower ranks come before higher ones), with some
     volume standing, in priority order; their volumes [m3/ha]; whether that is the whole
     queue. Ranking a few times what a period cuts instead of every eligible part saves
-    most of the sort, and, where the key does not read the volume, most of the volume."""
+    most of the sort, and, where the key does not read the volume, most of the volume. With
+    ``ending`` the key is the ending growing stock given up per m3 cut, least first."""
     rule = PRIORITIES[priority]
     whole = size >= len(elig)
-    vol = None
-    if rule.by_volume or whole:
+    vol = key = None
+    if rule.by_volume or whole or ending is not None:
         vol = parts.volume(curves, elig, age_h[elig], reg)
+    if ending is not None:
+        key = -ending(parts, elig, vol, age_h, reg)
     if not whole:
-        top = _first_by_key(rule.key(age_h[elig], parts.min_age[elig], vol), first, size)
+        by = key if key is not None else rule.key(age_h[elig], parts.min_age[elig], vol)
+        top = _first_by_key(by, first, size)
         elig = elig[top]
         vol = vol[top] if vol is not None else parts.volume(curves, elig, age_h[elig], reg)
         first = first[top] if first is not None else None
+        key = key[top] if key is not None else None
     keep = vol > 0
     elig, vol = elig[keep], vol[keep]
     if first is not None:
@@ -517,6 +604,7 @@ def _queue(
         vol,
         parts.rank[elig],
         first,
+        key[keep] if key is not None else None,
     )
     return elig[order], vol[order], whole
 
@@ -863,8 +951,9 @@ def simulate(
         # a plan's rank of each stand this period: 0 planned by now, k planned k periods later
         first = None if planned is None else np.maximum(planned - (p + 1), 0)
         t = p * L + off
+        ending = _ending_cost(rules.plan, p, stands, curves, P * L - t, regen_shares)
         cut = _cut_period(
-            parts, curves, reg, rules, spatial, t, age_h, target, first, record, queue_size
+            parts, curves, reg, rules, spatial, t, age_h, target, first, record, queue_size, ending
         )
         # this period's cut (and the candidates the rules refused), twice
         queue_size = max(2 * (len(cut.full) + 1), 2 * cut.tested, _QUEUE_MIN)
