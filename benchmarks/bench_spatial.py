@@ -85,8 +85,8 @@ def main() -> None:
     for n in args.sizes:
         r = one_size(n, args.rounds)
         print(
-            f"| {r['stands']:,} | {r['aspatial_s']:.1f} | {r['unit_s']:.1f} | "
-            f"{r['openings_s']:.1f} | {r['unit_ratio']:.2f} | {r['openings_ratio']:.2f} |",
+            f"| {r['stands']:,} | {r['aspatial_s']:.2f} | {r['unit_s']:.2f} | "
+            f"{r['openings_s']:.2f} | {r['unit_ratio']:.2f} | {r['openings_ratio']:.2f} |",
             flush=True,
         )
 

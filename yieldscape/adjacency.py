@@ -13,6 +13,7 @@ The graph is returned as compressed sparse rows (``indptr``, ``indices``), symme
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 from pathlib import Path
 
 import geopandas as gpd
@@ -42,6 +43,14 @@ class Adjacency:
     @property
     def pairs(self) -> int:
         return len(self.indices) // 2
+
+    @cached_property
+    def csr32(self) -> tuple[NDArray[np.int32], NDArray[np.int32]]:
+        """``indptr`` and ``indices`` as 32-bit integers: half the memory traffic for the
+        compiled spatial pick, whose time goes mostly to cache misses on these arrays."""
+        if len(self.indices) >= 2**31:
+            return self.indptr, self.indices  # too many pairs for 32 bits
+        return self.indptr.astype(np.int32), self.indices.astype(np.int32)
 
     def neighbours(self, i: int) -> NDArray[np.int64]:
         return self.indices[self.indptr[i] : self.indptr[i + 1]]

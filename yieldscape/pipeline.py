@@ -285,10 +285,10 @@ def _schedule(scenario: Scenario, inventory: CheckResult, model: _Model, timer: 
         flow = schedule(s, c, p, f, f.policy, rules)
         if lp is not None and strata is not None:  # the LP's plan as the cutting order too
             with timer.stage("LP-guided search"):
-                lp_rules = lp_plan.guided(lp, strata, s, p, rules)
-                flow, won = lp_plan.better(flow, schedule(s, c, p, f, f.policy, lp_rules))
-            rules = lp_rules if won else rules
-            log.info("schedule: %s order", "the LP-guided" if won else "the priority")
+                flow, rules, order = lp_plan.guided_search(
+                    flow, lp, strata, s, c, p, f, f.policy, rules
+                )
+            log.info("schedule: %s", order)
     openings = None
     if rules.spatial is not None:
         if f.method == "rules":

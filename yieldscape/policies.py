@@ -191,13 +191,15 @@ def cut_order(
     vol: NDArray,
     id_rank: NDArray,
     first: NDArray | None = None,
+    key: NDArray | None = None,
 ) -> NDArray[np.intp]:
     """Positions sorted by the rule's key, descending, ties broken by ascending stand id.
 
     ``first`` (an integer rank per position, such as a plan's) puts lower ranks ahead of
-    higher ones, the rule ordering each rank.
+    higher ones, the rule ordering each rank; ``key`` (higher first) replaces the rule's.
     """
-    key = PRIORITIES[rule].key(age, min_age, vol)
+    if key is None:
+        key = PRIORITIES[rule].key(age, min_age, vol)
     if first is None:
         return np.lexsort((id_rank, -key))
     return np.lexsort((id_rank, -key, first))

@@ -31,7 +31,7 @@ from yieldscape.adjacency import build_adjacency
 from yieldscape.schedule import HarvestRules, find_even_flow
 from yieldscape.schedule.flow import find_nondeclining
 from yieldscape.schedule.lp import solve_lp
-from yieldscape.schedule.lp_plan import better, guided, lp_schedule
+from yieldscape.schedule.lp_plan import better, ending_from, ending_ordered, guided, lp_schedule
 from yieldscape.schedule.spatial import SpatialRules, never_cut_area_ha, without_never_cut
 
 from helpers import squares
@@ -94,25 +94,36 @@ def test_a_band_does_not_lift_the_even_flow_level():
     assert (h[1:] >= 0.9 * h[:-1] * (1 - 1e-6)).all() and (h[1:] <= 1.1 * h[:-1] * (1 + 1e-6)).all()
 
 
-def test_lp_guided_search_keeps_every_rule_and_the_better_level_wins():
-    stands = regime_forest(n=40, seed=7, choices=((PLA, MIX), None, None))
+@settings(max_examples=8, deadline=None)
+@given(seed=st.integers(0, 10_000), cap=st.sampled_from([None, 200.0]))
+def test_lp_guided_searches_keep_every_rule_and_the_best_level_wins(seed, cap):
+    # the priority order, the LP-guided order and the same with its last periods ordered by
+    # the ending stock given up: each a search's feasible result, the kept one the highest of
+    # them, and the bound (independent: the LP) at least the kept one
+    stands = regime_forest(n=40, seed=seed, choices=((PLA, MIX), None, None))
     strata = regime_strata(stands)
-    rules = HarvestRules(max_area_ha=200.0)
+    rules = HarvestRules(max_area_ha=cap)
     ordered = find_even_flow(stands, R_CURVES, LONG, rules, 0.0, 1.0)
-    lp = solve_lp(stands, R_CURVES, LONG, strata, "max-level", "even", 0.0, 1.0, 200.0)
+    lp = solve_lp(stands, R_CURVES, LONG, strata, "max-level", "even", 0.0, 1.0, cap)
     lp_rules = guided(lp, strata, stands, LONG, rules)
-    follow = find_even_flow(stands, R_CURVES, LONG, lp_rules, 0.0, 1.0)
-    best, won = better(ordered, follow)
-    assert best.level_m3_per_period == max(ordered.level_m3_per_period, follow.level_m3_per_period)
-    assert won == (follow.level_m3_per_period > ordered.level_m3_per_period * (1 + 1e-9))
-    sim = best.simulation
-    # every requirement, from the recorded run: the level in every period, the ending stock,
-    # the area cap
-    assert (sim.harvest_m3 >= best.level_m3_per_period * (1 - 1e-6)).all()
-    assert sim.ending_stock_m3 >= sim.initial_stock_m3 * (1 - 1e-6)
-    assert (sim.harvest_ha <= 200.0 * (1 + 1e-9)).all()
+    tried = [lp_rules, ending_ordered(lp_rules, stands, LONG)]
+    assert tried[1] is not None and tried[1].plan.ending_from == ending_from(stands, LONG)
+    found = [find_even_flow(stands, R_CURVES, LONG, r, 0.0, 1.0) for r in tried]
+    best, won = better(ordered, found)
+    levels = [f.level_m3_per_period for f in (ordered, *found)]
+    assert best.level_m3_per_period == max(levels)
+    assert (won is None) == (max(levels[1:]) <= ordered.level_m3_per_period * (1 + 1e-9))
+    for flow in (ordered, *found):
+        sim = flow.simulation
+        # every requirement, from the recorded run: the level in every period, the ending
+        # stock, the area cap
+        assert (sim.harvest_m3 >= flow.level_m3_per_period * (1 - 1e-6)).all()
+        assert sim.ending_stock_m3 >= sim.initial_stock_m3 * (1 - 1e-6)
+        if cap is not None:
+            assert (sim.harvest_ha <= cap * (1 + 1e-9)).all()
     assert lp.level_m3 >= best.level_m3_per_period * (1 - 1e-6)
-    assert best.details["lp_guided_level_m3_per_period"] == follow.level_m3_per_period
+    assert best.details["lp_guided_level_m3_per_period"] == max(levels[1:])
+    assert best.details["lp_guided_ending_order_level_m3_per_period"] == levels[2]
 
 
 def test_optimised_schedule_is_lowered_until_it_holds_the_ending_stock():

@@ -4,7 +4,10 @@ cuts last, the priority rule ordering each rank (an LP-guided order in the spiri
 Rose 1984, For. Sci. 30:220-238). The partial ranking of the queue is checked against a full
 sort (numpy's lexsort) as the reference."""
 
+from dataclasses import replace
+
 import numpy as np
+import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
@@ -12,7 +15,8 @@ from yieldscape.growth import ChapmanRichards
 from yieldscape.policies import Targets
 from yieldscape.projection import CurveSet, Periods, StandArrays
 from yieldscape.schedule import HarvestRules, simulate
-from yieldscape.schedule.simulate import Plan, _first_by_key
+from yieldscape.schedule.lp_plan import ending_from
+from yieldscape.schedule.simulate import EndingCost, Plan, Start, _first_by_key
 
 CURVES = CurveSet(["pine"], [ChapmanRichards(450.0, 0.035, 3.0)])
 
@@ -62,3 +66,95 @@ def test_the_queue_follows_the_plans_ranks():
     assert sorted(first.tolist()) == [1, 4, 5]
     plain = simulate(stands, CURVES, periods, target, HarvestRules(), record=True)
     assert sorted(plain.event_stand[plain.event_period == 1].tolist()) == [0, 1, 2]
+
+
+# ----------------------------------------------------------------- the ending-stock order
+# two curves that grow at different rates: oldest first is not least growth given up first
+TWO = CurveSet(
+    ["pine", "aspen"], [ChapmanRichards(450.0, 0.035, 3.0), ChapmanRichards(300.0, 0.06, 2.0)]
+)
+
+
+def _random_stands(n, seed, delay=0.0, codes=1):
+    rng = np.random.default_rng(seed)
+    return StandArrays(
+        rng.integers(0, codes, n).astype(np.int32),
+        rng.uniform(14.0, 26.0, n),
+        rng.uniform(60.0, 160.0, n),
+        rng.uniform(1.0, 20.0, n),
+        np.full(n, 60.0),
+        np.full(n, delay),
+        np.arange(n),
+    )
+
+
+def test_ending_cost_is_the_stock_given_up_per_m3_by_the_curve_itself():
+    # Chapman-Richards written out, V(t) = a (1 - exp(-k t))^c (this curve has no site
+    # terms): a stand 100 years old at its harvest moment with 15 years left gives up V(115)
+    # and regrows for 15 - 2 years (its delay): (V(115) - V(13)) / V(100) per m3 cut.
+    stands = _random_stands(1, 0, delay=2.0)
+    stands = replace(stands, age_years=np.array([100.0]))
+    parts = Start.of(stands, CURVES).parts
+    age_h = np.array([100.0])
+    vol = CURVES.volume_m3_ha(np.zeros(1, np.int32), age_h, stands.site_index)
+    got = EndingCost(stands, CURVES, 15.0)(parts, np.array([0]), vol, age_h, None)[0]
+
+    def v(t):
+        return 450.0 * (1.0 - np.exp(-0.035 * t)) ** 3.0
+
+    assert got == pytest.approx((v(115.0) - v(13.0)) / v(100.0), rel=1e-12)
+    # a stand that yields nothing now is never chosen for it
+    none = EndingCost(stands, CURVES, 15.0)(parts, np.array([0]), np.zeros(1), age_h, None)
+    assert np.isinf(none[0])
+
+
+@settings(max_examples=40, deadline=None)
+@given(seed=st.integers(0, 10_000), share=st.floats(0.05, 0.9))
+def test_the_ending_order_leaves_the_most_stock_for_the_last_periods_harvest(seed, share):
+    # One period left: a cut yields its volume now and gives up its volume at the end less
+    # its regrowth's. The ending-stock order (one rank: every stand planned now) must leave
+    # the ending stock of the best fractional cut of the same volume, which scipy's linprog
+    # (HiGHS) finds independently: min sum x_i (V_end,i - R_i) s.t. sum x_i v_i = T,
+    # 0 <= x_i <= A_i (a fractional knapsack; Dantzig 1957).
+    from scipy.optimize import linprog
+
+    n = 25
+    stands = _random_stands(n, seed, codes=2)
+    periods = Periods(2030, 10, 1, "midpoint")
+    sp = stands.species_idx
+    now = TWO.volume_m3_ha(sp, stands.age_years + 5.0, stands.site_index)
+    end = TWO.volume_m3_ha(sp, stands.age_years + 10.0, stands.site_index)
+    regrown = TWO.volume_m3_ha(sp, np.full(n, 5.0), stands.site_index)
+    target = share * float(now @ stands.area_ha)
+    lp = linprog(
+        end - regrown,
+        A_eq=now[None, :],
+        b_eq=[target],
+        bounds=list(zip(np.zeros(n), stands.area_ha, strict=True)),
+        method="highs",
+    )
+    assert lp.status == 0
+    best_end = float(end @ stands.area_ha) - lp.fun
+    plan = Plan(np.ones(n, np.int64), ending_from=0)
+    sim = simulate(stands, TWO, periods, Targets((target,)), HarvestRules(plan=plan))
+    assert sim.harvest_m3[0] == pytest.approx(target, rel=1e-9)
+    assert sim.ending_stock_m3 == pytest.approx(best_end, rel=1e-9)
+    # and the priority order (oldest first) leaves no more
+    plain = simulate(stands, TWO, periods, Targets((target,)), HarvestRules())
+    assert plain.ending_stock_m3 <= best_end * (1 + 1e-9)
+
+
+def test_the_ending_order_starts_where_regrowth_can_no_longer_be_cut():
+    # 20 periods of 10 years, the last harvest moment at 195 years: a cut in period index p
+    # regrows (19 - p) x 10 years less its delay by then. Minimum age 50 and no delay: cut
+    # again from p = 14 (50 years), not from p = 15 on.
+    stands = _random_stands(5, 1)
+    periods = Periods(2030, 10, 20, "midpoint")
+    young = replace(stands, min_harvest_age=np.array([50.0, 60.0, 70.0, 80.0, 90.0]))
+    assert ending_from(young, periods) == 15
+    # a delay of 2 years: 52 years needed, 50 not enough at p = 14, so from 14
+    late = replace(young, regen_delay_years=np.full(5, 2.0))
+    assert ending_from(late, periods) == 14
+    # a stand that is never cut does not count; none cut at all: no such period
+    never = replace(young, min_harvest_age=np.full(5, np.inf))
+    assert ending_from(never, periods) == 20

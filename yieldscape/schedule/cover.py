@@ -115,87 +115,19 @@ class PeriodBudgets:
     def end(self) -> None:
         pass
 
-    def block(self, t: float, stands: NDArray, area: NDArray) -> BudgetBlock:
-        """The state of the period's block pick (:func:`~yieldscape.schedule.picker.block_pick`)
-        over the candidates (their stands and areas [ha], in priority order)."""
-        return BudgetBlock(self, area)
+    def draws(self) -> NDArray[np.bool_]:
+        """Which budgets a cut of each candidate draws on (candidates x rules), as
+        :meth:`allows` decides it one candidate at a time."""
+        rules = self.rules.rules
+        out = np.zeros((len(self.cand_zone), len(rules)), dtype=bool)
+        for i, r in enumerate(rules):
+            inz = np.ones(len(self.cand_zone), bool) if r.zone < 0 else self.cand_zone == r.zone
+            out[:, i] = inz & (r.counts(self.cand_age) == (r.kind == "old"))
+        return out
 
-
-class BudgetBlock:
-    """The cover budgets of one period's pick, in arrays for the block picker: which budgets
-    each candidate draws on, and the budgets, spent in candidate order as the loop spends them
-    (so that they match it bit for bit)."""
-
-    def __init__(self, budgets: PeriodBudgets, area: NDArray):
-        rules = budgets.rules
-        self.budgets = budgets
-        self.budget = budgets.budget.copy()  # spent as PeriodBudgets.commit spends it
-        self.area = np.asarray(area, dtype=float)
-        self.draws = np.zeros((len(area), len(rules.rules)), dtype=bool)
-        for i, r in enumerate(rules.rules):  # as in PeriodBudgets.allows
-            inz = np.ones(len(area), bool) if r.zone < 0 else budgets.cand_zone == r.zone
-            self.draws[:, i] = inz & (r.counts(budgets.cand_age) == (r.kind == "old"))
-        self.tol = np.array([_REL * max(1.0, rules.area_of(r)) for r in rules.rules])
-        self._pending = np.zeros(0, dtype=np.intp)
-        self._drawn = np.zeros(0, dtype=np.intp)
-
-    def screen(self, lo: int, hi: int) -> NDArray[np.bool_]:
-        """Refused at the block start (final for the period: budgets only shrink)."""
-        self._lo = lo
-        over = self.area[lo:hi, None] > self.budget + self.tol
-        return (self.draws[lo:hi] & over).any(axis=1)
-
-    def unsure(self, active: NDArray[np.bool_]) -> NDArray[np.bool_]:
-        """Candidates whose budgets the earlier ``active`` ones of the block could overdraw
-        if all were cut (a margin for the order of the sums)."""
-        lo = self._lo
-        a = self.area[lo : lo + len(active), None]
-        d = self.draws[lo : lo + len(active)]
-        spent = np.where(d & active[:, None], a, 0.0)
-        before = np.cumsum(spent, axis=0) - spent
-        room = self.budget + self.tol
-        margin = 1e-10 * (np.abs(self.budget) + before[-1] + spent[-1] + self.tol)
-        sure = (a + before <= room - margin) | (a > room)
-        return (d & ~sure).any(axis=1)
-
-    def ahead(self, active: NDArray[np.bool_], held: NDArray[np.bool_]) -> NDArray[np.bool_]:
-        """None: the draws of the sure cuts are spent in order, never ahead of a settled one."""
-        return np.zeros(len(active), dtype=bool)
-
-    def accept(self, idx: NDArray) -> None:
-        """Cut these candidates of the block (decided at its start); their draws are spent in
-        order, before any later candidate is settled (see :meth:`allows`)."""
-        self._pending = self._lo + idx
-
-    def _spend(self, upto: int) -> None:
-        """Spend the accepted draws before position ``upto``, in order."""
-        at = int(np.searchsorted(self._pending, upto))
-        if not at:
-            return
-        pos, self._pending = self._pending[:at], self._pending[at:]
-        for i in range(len(self.budget)):
-            take = self.area[pos[self.draws[pos, i]]]
-            if len(take):  # b - a1 - a2 ... in sequence, as the loop subtracts
-                self.budget[i] = np.cumsum(np.concatenate(([self.budget[i]], -take)))[-1]
-
-    def allows(self, k: int, full_area: float, a: float) -> bool:
-        """The scalar test of :meth:`PeriodBudgets.allows` on the budgets at candidate k."""
-        self._spend(k)
-        drawn = np.flatnonzero(self.draws[k])
-        if (a > self.budget[drawn] + self.tol[drawn]).any():
-            return False
-        self._drawn = drawn
-        return True
-
-    def commit(self, k: int, a: float) -> None:
-        for i in self._drawn.tolist():
-            self.budget[i] -= a
-
-    def flush(self) -> None:
-        self._spend(len(self.area) + 1)
-
-    def finish(self, cut: NDArray, cut_area: NDArray) -> None:
-        self.budgets.budget[:] = self.budget
+    def tolerance(self) -> NDArray[np.float64]:
+        """How far a cut may overdraw each budget (float rounding) [ha], as in :meth:`allows`."""
+        return np.array([_REL * max(1.0, self.rules.area_of(r)) for r in self.rules.rules])
 
 
 def cover_rules(

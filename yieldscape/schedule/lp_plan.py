@@ -4,6 +4,7 @@ stands, and what run.json says of it."""
 from __future__ import annotations
 
 import logging
+from collections.abc import Sequence
 from dataclasses import replace
 
 import numpy as np
@@ -14,7 +15,7 @@ from yieldscape.policies import FixedTargets, flow_policy
 from yieldscape.projection import CurveSet, Periods, StandArrays
 from yieldscape.regimes import Regimes
 from yieldscape.schedule.cover import CoverRules
-from yieldscape.schedule.flow import FlowResult
+from yieldscape.schedule.flow import FlowResult, FlowSettings, schedule
 from yieldscape.schedule.lp import Economics, LPResult, Strata, make_strata, solve_lp
 from yieldscape.schedule.simulate import HarvestRules, Plan, Simulation, simulate
 from yieldscape.versions import library_versions
@@ -123,18 +124,90 @@ def guided(
     return replace(rules, plan=plan_of(lp, strata, arrays, periods))
 
 
-def better(ordered: FlowResult, guided_flow: FlowResult) -> tuple[FlowResult, bool]:
-    """Of the rule-based search in priority order and in the LP-guided order, the one that
-    holds the higher level (both meet every rule and the ending stock: each is a search's
-    feasible result); ties keep the priority order. Both levels go into ``details``; the
-    flag says whether the LP-guided order won."""
-    won = guided_flow.level_m3_per_period > ordered.level_m3_per_period * (1 + 1e-9)
-    best = guided_flow if won else ordered
+def ending_from(arrays: StandArrays, periods: Periods) -> int:
+    """The first period (index from 0) whose clearcuts regrow too little to be cut again by
+    the last period's harvest moment: the regrowth of a cut in period index p is (P - 1 - p)
+    periods less its delay old then, below every code's minimum harvest age on every stand
+    (the least of minimum age plus delay over codes and stands with harvestable area; ``P``:
+    none, as where no stand is ever cut)."""
+    P, L = periods.count, float(periods.period_years)
+    live = arrays.cuttable_ha > 0
+    if arrays.min_age_by_code is not None and arrays.regimes is not None:
+        by_code = arrays.min_age_by_code[:, live] + arrays.regimes.delay[:, None]
+    else:
+        by_code = (arrays.min_harvest_age + arrays.regen_delay_years)[live]
+    by_code = by_code[np.isfinite(by_code)]  # NaN: a code nothing regrows as; inf: never cut
+    if not len(by_code):
+        return P
+    youngest = float(by_code.min())
+    return int(min(max(np.floor(P - 1 - youngest / L) + 1, 0), P))
+
+
+def ending_ordered(
+    rules: HarvestRules, arrays: StandArrays, periods: Periods
+) -> HarvestRules | None:
+    """The LP-guided rules (:func:`guided`) with each rank of the last periods, those whose
+    cuts cannot be cut again (:func:`ending_from`), ordered by the ending growing stock a cut
+    gives up per m3 it yields, least first (:class:`~yieldscape.schedule.simulate.EndingCost`)
+    instead of by the priority rule: where the ending stock holds the level down, the same
+    harvest leaves more of it standing. None where there are no such periods."""
+    assert rules.plan is not None
+    first = ending_from(arrays, periods)
+    if first >= periods.count:
+        return None
+    return replace(rules, plan=replace(rules.plan, ending_from=first))
+
+
+def better(
+    ordered: FlowResult, guided_flows: Sequence[FlowResult]
+) -> tuple[FlowResult, int | None]:
+    """Of the rule-based search in priority order and in the LP-guided orders (the plan's
+    ranks ordered by the priority rule, then, where tried, by the ending stock given up:
+    :func:`ending_ordered`), the one that holds the highest level (each meets every rule and
+    the ending stock: each is a search's feasible result); ties keep the earlier. The levels
+    go into ``details`` (``lp_guided_level_m3_per_period``: the best LP-guided order's); the
+    index says which LP-guided order won (None: the priority order)."""
+    won, best = None, ordered
+    for i, flow in enumerate(guided_flows):
+        if flow.level_m3_per_period > best.level_m3_per_period * (1 + 1e-9):
+            won, best = i, flow
     details = dict(best.details)
     details["priority_order_level_m3_per_period"] = ordered.level_m3_per_period
-    details["lp_guided_level_m3_per_period"] = guided_flow.level_m3_per_period
-    steps = ordered.steps + guided_flow.steps
+    details["lp_guided_level_m3_per_period"] = max(f.level_m3_per_period for f in guided_flows)
+    if len(guided_flows) > 1:
+        details["lp_guided_ending_order_level_m3_per_period"] = guided_flows[1].level_m3_per_period
+    steps = ordered.steps + sum(f.steps for f in guided_flows)
     return replace(best, details=details, steps=steps), won
+
+
+# the cutting order a run kept, by :func:`better`'s index (None: the priority order)
+ORDER_NAMES = {
+    None: "the priority order",
+    0: "the LP-guided order",
+    1: "the LP-guided order, its last periods by the ending stock a cut gives up",
+}
+
+
+def guided_search(
+    ordered: FlowResult,
+    lp: LPResult,
+    strata: Strata,
+    arrays: StandArrays,
+    curves: CurveSet,
+    periods: Periods,
+    flow: FlowSettings,
+    policy: str,
+    rules: HarvestRules,
+) -> tuple[FlowResult, HarvestRules, str]:
+    """The flow policy's search again in the LP-guided orders (:func:`guided`, and
+    :func:`ending_ordered` where it has periods) of ``policy``: the best of them and of the
+    search in priority order (``ordered``, under ``rules``) by :func:`better`, the rules that
+    found it and the order's name."""
+    lp_rules = guided(lp, strata, arrays, periods, rules)
+    tried = [r for r in (lp_rules, ending_ordered(lp_rules, arrays, periods)) if r is not None]
+    found = [schedule(arrays, curves, periods, flow, policy, r) for r in tried]
+    best, won = better(ordered, found)
+    return best, tried[won] if won is not None else rules, ORDER_NAMES[won]
 
 
 def lp_schedule(

@@ -30,7 +30,7 @@ from yieldscape.projection import (
 from yieldscape.regimes import Regimes
 from yieldscape.schedule.cover import CoverRules, PeriodBudgets
 from yieldscape.schedule.partitions import PartitionRules, within_maximum
-from yieldscape.schedule.picker import block_pick
+from yieldscape.schedule.picker import compiled_pick
 from yieldscape.schedule.spatial import SpatialRules
 
 _REL = 1e-9  # relative tolerance on volume targets
@@ -45,10 +45,15 @@ class Plan:
     stands planned for it or earlier first, then those planned for the next period, the one
     after, and so on, the stands it never cuts last (the priority rule ordering each group), and
     per period the shares in which each code's cut area regrows as each code (periods x codes
-    x codes: the LP's regeneration choices; None: the regimes' own transitions)."""
+    x codes: the LP's regeneration choices; None: the regimes' own transitions).
+
+    From period index ``ending_from`` on (None: never), each rank is ordered by the ending
+    growing stock a cut gives up per m3 it yields, least first, instead of by the priority
+    rule (see :class:`EndingCost`)."""
 
     period: NDArray[np.int64]
     regen_shares: NDArray | None = None
+    ending_from: int | None = None
 
 
 @dataclass(frozen=True)
@@ -437,6 +442,80 @@ class _Cut:
     checked: tuple[NDArray, ...] = (np.zeros(0, dtype=np.intp), *(np.zeros(0),) * 3)
 
 
+@dataclass(frozen=True)
+class EndingCost:
+    """The ending growing stock a clearcut gives up per m3 it yields, for a period whose cuts
+    regrow too little to be cut again before the horizon's end: the part's standing volume at
+    the end had it stood, less its regrowth's (in the period's regeneration shares, each code
+    after its delay, net of the thinnings taken by then), over the volume it yields now.
+    Where the ending growing stock is what holds the level down, cutting a period's volume in
+    this order, least first, leaves the most of it standing (a fractional knapsack, whose
+    greedy solution by ratio is optimal: Dantzig 1957, Oper. Res. 5:266-288). ``years_left``:
+    from the period's harvest moment to the horizon's end; ``shares``: codes x codes (None:
+    each part regrows as its own code)."""
+
+    forest: StandArrays
+    curves: CurveSet
+    years_left: float
+    shares: NDArray | None = None
+
+    def __call__(
+        self, parts: _Parts, idx: NDArray, vol: NDArray, age_h: NDArray, reg: Regimes | None
+    ) -> NDArray[np.float64]:
+        """Per part ``idx`` (its volume now ``vol`` [m3/ha]): the ending stock given up [m3]
+        per m3 cut (inf where it yields nothing)."""
+        left = self.years_left
+        standing = parts.volume(self.curves, idx, age_h[idx] + left, reg)
+        lost = standing - self._regrowth(parts, idx, reg)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(vol > 0, lost / np.where(vol > 0, vol, 1.0), np.inf)
+
+    def _regrowth(self, parts: _Parts, idx: NDArray, reg: Regimes | None) -> NDArray:
+        """Standing volume [m3/ha] at the horizon's end of the regrowth of parts ``idx``."""
+        out = np.zeros(len(idx))
+        if self.shares is None:  # as its own code, after its delay
+            age = self.years_left - parts.delay[idx]
+            grown = np.flatnonzero(age > 0)
+            if len(grown):
+                j = idx[grown]
+                v = self.curves.volume_m3_ha(parts.sp[j], age[grown], terms=parts.si.take(j))
+                if reg is not None and reg.thins:
+                    v -= reg.removed(parts.sp[j], parts.thin_r[j], age[grown])
+                out[grown] = v
+            return out
+        assert reg is not None
+        code = parts.sp[idx]
+        site = self.forest.site_index[parts.stand[idx]]
+        for to in np.flatnonzero(self.shares[np.unique(code)].sum(axis=0) > 0):
+            w = self.shares[code, to]
+            age = self.years_left - float(reg.delay[to])
+            at = np.flatnonzero(w > 0) if age > 0 else np.zeros(0, dtype=np.intp)
+            if not len(at):
+                continue
+            sp = np.full(len(at), to, dtype=parts.sp.dtype)
+            terms = self.curves.site_terms(sp, site[at])
+            ages = np.full(len(at), age)
+            v = self.curves.volume_m3_ha(sp, ages, terms=terms)
+            if reg.thins:
+                v -= reg.removed(sp, reg.removals(self.curves, sp, terms), ages)
+            out[at] += w[at] * v
+        return out
+
+
+def _ending_cost(
+    plan: Plan | None,
+    p: int,
+    stands: StandArrays,
+    curves: CurveSet,
+    years_left: float,
+    shares: NDArray | None,
+) -> EndingCost | None:
+    """The ending-stock order of period index ``p`` where the plan has one from then on."""
+    if plan is None or plan.ending_from is None or p < plan.ending_from:
+        return None
+    return EndingCost(stands, curves, years_left, None if shares is None else shares[p])
+
+
 def _thinnings_due(parts: _Parts, age_h: NDArray, reg: Regimes | None) -> tuple[NDArray, ...]:
     """The parts that may have a thinning due by the harvest moment (their next thinning
     age is reached): their positions, removals [m3/ha] due (0: none after all), the age of
@@ -468,19 +547,21 @@ def _cut_period(
     t: float,
     age_h: NDArray,
     target: float | NDArray,
-    planned_first: NDArray | None,
+    order: tuple[NDArray | None, NDArray | None, EndingCost | None],
     record: bool,
     queue_size: int,
-    unit_of_part: NDArray | None = None,
 ) -> _Cut:
     """Rank the eligible parts (age at the harvest moment ``age_h``) and clearcut up to the
     target and the area cap, the last part partly; rules of the sequential pick skip parts
     that would break them. Thinnings due this period are taken on the parts not clearcut
     and count toward the target: a clearcut takes its part's standing volume, thinnings
     pending included, so it adds its volume less those thinnings to the period's total.
-    The pick ranks only about ``queue_size`` parts first (see :func:`_queue`). With
-    ``unit_of_part`` (management units) ``target`` holds one target per unit, and each
-    unit's parts are picked in turn toward its own target (:func:`_pick_units`)."""
+    The pick ranks only about ``queue_size`` parts first (see :func:`_queue`). ``order``:
+    the plan's rank of each stand (None: no plan), the management unit of each part (None:
+    one flow; with units ``target`` holds one target per unit, and each unit's parts are
+    picked in turn toward its own target, :func:`_pick_units`), and the ending-stock order
+    that ranks each of the plan's ranks instead of the priority rule (None: the rule)."""
+    planned_first, unit_of_part, ending = order
     cut = _Cut()
     live, due_ha, due_age, upto, nxt = _thinnings_due(parts, age_h, reg)
     cut.checked = live, due_ha, upto, nxt
@@ -490,7 +571,19 @@ def _cut_period(
     pending[thin] = thin_ha
     elig = np.flatnonzero((age_h >= parts.min_age - 1e-9) & (parts.area > 0))
     cap = np.inf if rules.max_area_ha is None else float(rules.max_area_ha)
-    pick = (parts, curves, reg, rules, spatial, t, age_h, planned_first, pending, queue_size)
+    pick = (
+        parts,
+        curves,
+        reg,
+        rules,
+        spatial,
+        t,
+        age_h,
+        planned_first,
+        pending,
+        queue_size,
+        ending,
+    )
     if unit_of_part is None and rules.partitions is not None:  # one unit
         unit_of_part, target = np.zeros(len(parts.age), dtype=np.int64), np.array([target])
     if unit_of_part is None:
@@ -527,6 +620,7 @@ def _pick_queue(
     planned_first: NDArray | None,
     pending: NDArray,
     queue_size: int,
+    ending: EndingCost | None,
     elig: NDArray,
     goal: float,
     cap: float,
@@ -546,7 +640,7 @@ def _pick_queue(
         first = None if planned_first is None else planned_first[parts.stand[elig]]
         while True:  # rank more of the queue until the pick is decided within it
             cand, v_cand, whole = _queue(
-                parts, curves, reg, rules.priority, age_h, elig, first, queue_size
+                parts, curves, reg, rules.priority, age_h, elig, first, queue_size, ending
             )
             if limit is not None:
                 net = (v_cand - pending[cand]) * parts.area[cand]
@@ -591,11 +685,11 @@ def _pick_units(
     """Each management unit's pick in turn (in unit order), toward its own goal, sharing the
     period's area cap, cover budgets and spatial state (a unit's cuts constrain the next
     unit's as they constrain its own later candidates). With partitions
-    (:mod:`yieldscape.schedule.partitions`) each unit first cuts toward its share of each
-    minimum (in proportion to its target) from that partition's candidates, and every pick
-    leaves out what a maximum would not allow. A part cut (wholly or partly) by one pick is
-    not a candidate of the next. The picks merged as one: the candidates one pick after the
-    other, positions into them."""
+    (:mod:`yieldscape.schedule.partitions`) each minimum is first cut from that partition's
+    candidates, unit after unit (each within its own target) while some is still needed,
+    and every pick leaves out what a maximum would not allow. A part cut (wholly or partly)
+    by one pick is not a candidate of the next. The picks merged as one: the candidates one
+    pick after the other, positions into them."""
     parts, rules, pending = pick[0], pick[3], pick[8]
     area = parts.area
     total = float(targets.sum())
@@ -605,37 +699,39 @@ def _pick_units(
         thin_k = thinned[1] @ mem[thinned[0]] if len(thinned[0]) else np.zeros(mem.shape[1])
         need = rules.partitions.minimum(total) - thin_k
         room = rules.partitions.maximum(total) - thin_k
-    # each unit's share of a minimum: its share of the targets (of the unbounded ones, alike)
-    inf = np.isinf(targets)
-    share = targets / total if np.isfinite(total) and total > 0 else inf / max(inf.sum(), 1)
     taken = np.zeros(len(area), dtype=bool)
-    pieces, reasons, cover_left, offset = [], [], None, 0
-    for u, goal in enumerate(goals):
-        left = float(goal)
-        phases: list[tuple[int, float]] = []
-        if need is not None and share[u] > 0:
-            phases = [(int(k), need[k] * share[u]) for k in np.flatnonzero(need > 0)]
-        for k, want in [*phases, (-1, np.inf)]:
-            mine = elig[(unit_of_part[elig] == u) & ~taken[elig]]
-            if k >= 0:
-                mine = mine[mem[mine, k]]
-            limit = None if room is None else (mem, room)
-            sub = _Cut()
-            cand, v, full, part = _pick_queue(
-                sub, *pick, mine, min(want, left), cap, cover_left, limit
-            )
-            net = (v - pending[cand]) * area[cand]
-            got = np.r_[net[full], sub.frac * net[part]]
-            at = np.r_[cand[full], cand[part]].astype(np.intp)
-            left -= float(got.sum())
-            if room is not None:
-                room = room - got @ mem[at]
-            cap -= area[sub.full].sum() + (sub.frac * area[sub.part]).sum()
-            cover_left = sub.cover_left if sub.cover_left is not None else cover_left
-            taken[at] = True
-            pieces.append((sub, cand, v, full + offset, part + offset))
-            offset += len(cand)
-        reasons.append(_fail_reason(sub))  # the unit's last pick: toward its whole target
+    left = np.asarray(goals, dtype=np.float64).copy()
+    pieces, reasons, cover_left, offset = [], [""] * len(goals), None, 0
+    # first each minimum, from its partition's candidates, unit after unit while some is
+    # still needed; then every unit toward the rest of its target
+    U = len(goals)
+    steps = (
+        [] if need is None else [(int(k), u) for k in np.flatnonzero(need > 0) for u in range(U)]
+    )
+    for k, u in [*steps, *((-1, u) for u in range(U))]:
+        want = left[u] if k < 0 else min(float(need[k]), left[u])
+        mine = elig[(unit_of_part[elig] == u) & ~taken[elig]]
+        if k >= 0:
+            if want <= 0:
+                continue
+            mine = mine[mem[mine, k]]
+        sub = _Cut()
+        limit = None if room is None else (mem, room)
+        cand, v, full, part = _pick_queue(sub, *pick, mine, want, cap, cover_left, limit)
+        net = (v - pending[cand]) * area[cand]
+        got = np.r_[net[full], sub.frac * net[part]]
+        at = np.r_[cand[full], cand[part]].astype(np.intp)
+        left[u] -= float(got.sum())
+        if mem is not None:
+            room = room - got @ mem[at]
+            need = need - got @ mem[at]
+        cap -= area[sub.full].sum() + (sub.frac * area[sub.part]).sum()
+        cover_left = sub.cover_left if sub.cover_left is not None else cover_left
+        taken[at] = True
+        pieces.append((sub, cand, v, full + offset, part + offset))
+        offset += len(cand)
+        if k < 0:
+            reasons[u] = _fail_reason(sub)  # the unit's pick toward its whole target
     subs = [p[0] for p in pieces]
     cut.full = np.concatenate([c.full for c in subs]).astype(np.intp)
     cut.part = np.concatenate([c.part for c in subs]).astype(np.intp)
@@ -698,23 +794,29 @@ def _queue(
     elig: NDArray,
     first: NDArray | None,
     size: int,
+    ending: EndingCost | None = None,
 ) -> tuple[NDArray, NDArray, bool]:
     """The first of the period's queue: the eligible parts ``elig`` whose priority key is at
     least the ``size``-th highest (ties all in, so they are exactly the queue's first ones;
     with ``first``, a plan's rank per part, lower ranks come before higher ones), with some
     volume standing, in priority order; their volumes [m3/ha]; whether that is the whole
     queue. Ranking a few times what a period cuts instead of every eligible part saves
-    most of the sort, and, where the key does not read the volume, most of the volume."""
+    most of the sort, and, where the key does not read the volume, most of the volume. With
+    ``ending`` the key is the ending growing stock given up per m3 cut, least first."""
     rule = PRIORITIES[priority]
     whole = size >= len(elig)
-    vol = None
-    if rule.by_volume or whole:
+    vol = key = None
+    if rule.by_volume or whole or ending is not None:
         vol = parts.volume(curves, elig, age_h[elig], reg)
+    if ending is not None:
+        key = -ending(parts, elig, vol, age_h, reg)
     if not whole:
-        top = _first_by_key(rule.key(age_h[elig], parts.min_age[elig], vol), first, size)
+        by = key if key is not None else rule.key(age_h[elig], parts.min_age[elig], vol)
+        top = _first_by_key(by, first, size)
         elig = elig[top]
         vol = vol[top] if vol is not None else parts.volume(curves, elig, age_h[elig], reg)
         first = first[top] if first is not None else None
+        key = key[top] if key is not None else None
     keep = vol > 0
     elig, vol = elig[keep], vol[keep]
     if first is not None:
@@ -726,6 +828,7 @@ def _queue(
         vol,
         parts.rank[elig],
         first,
+        key[keep] if key is not None else None,
     )
     return elig[order], vol[order], whole
 
@@ -778,7 +881,7 @@ def _pick(
     if not pick:
         full_pos, part_pos, frac, decided = _pick_prefix(vol, area[cand], target, cap)
     else:
-        picked = block_pick(t, parts.stand[cand], vol, area[cand], target, cap, pick, whole)
+        picked = compiled_pick(t, parts.stand[cand], vol, area[cand], target, cap, pick, whole)
         if picked is None:  # more of the queue could change the pick: rank more
             none = np.zeros(0, dtype=np.intp)
             return none, none, False
@@ -1059,28 +1162,20 @@ def simulate(
     parts = start.parts.copy()
     reg = stands.regimes
     planned = rules.plan.period if rules.plan is not None else None
-    regen_shares = rules.plan.regen_shares if rules.plan is not None else None
-    if regen_shares is None and reg is not None and reg.changes:
-        regen_shares = np.broadcast_to(reg.transitions, (P, *reg.transitions.shape))
+    regen_shares = _regen_shares(rules, reg, P)
     sim = Simulation()
     sim.initial_stock_m3 = start.stock_m3
     out = _Totals.empty(P)
     kept_at = set(rules.snapshots) if record else set()
     queue_size = max(len(parts.age) // 4, _QUEUE_MIN)
     hlb_stock = start.hlb_stock_m3  # at the start of the period (the end of the last)
-    book = None
-    if rules.units is not None:
-        stocks = parts.unit_stocks(curves, reg)
-        book = _UnitBook.of(rules.units, rule, ending_stock, parts, stocks)
+    book = _UnitBook.start(rules, rule, ending_stock, parts, curves, reg)
     for p in range(P):
         if p in kept_at:
             sim.snapshots[p] = parts.snapshot()
         if record:
             out.gs_start[p] = sim.initial_stock_m3 if p == 0 else out.gs_end[p - 1]
-        if book is None:
-            target, floor = rule.bounds(p, out.h[p - 1] if p else 0.0)
-        else:
-            target, floor = book.bounds(p)
+        target, floor = book.bounds(p) if book else rule.bounds(p, out.h[p - 1] if p else 0.0)
         out.target[p], out.floor[p] = np.sum(target), floor
         if record or p == P - stable_periods:
             out.hlb_start[p] = hlb_stock
@@ -1088,9 +1183,13 @@ def simulate(
         # a plan's rank of each stand this period: 0 planned by now, k planned k periods later
         first = None if planned is None else np.maximum(planned - (p + 1), 0)
         t = p * L + off
-        upart = None if book is None else book.of_stand[parts.stand]
+        order = (
+            first,
+            None if book is None else book.of_stand[parts.stand],
+            _ending_cost(rules.plan, p, stands, curves, P * L - t, regen_shares),
+        )
         cut = _cut_period(
-            parts, curves, reg, rules, spatial, t, age_h, target, first, record, queue_size, upart
+            parts, curves, reg, rules, spatial, t, age_h, target, order, record, queue_size
         )
         # this period's cut (and the candidates the rules refused), twice
         queue_size = max(2 * (len(cut.full) + 1), 2 * cut.tested, _QUEUE_MIN)
@@ -1138,6 +1237,21 @@ class _UnitBook:
     fail_period: NDArray
     reasons: list[str]
     initial: NDArray
+
+    @classmethod
+    def start(
+        cls,
+        rules: HarvestRules,
+        rule: TargetRule,
+        ending_stock: float | NDArray,
+        parts: _Parts,
+        curves: CurveSet,
+        reg: Regimes | None,
+    ) -> _UnitBook | None:
+        """The book of a horizon with management units (None without)."""
+        if rules.units is None:
+            return None
+        return cls.of(rules.units, rule, ending_stock, parts, parts.unit_stocks(curves, reg))
 
     @classmethod
     def of(
@@ -1218,6 +1332,15 @@ def _missed(sim: Simulation, book: _UnitBook | None, p: int, cut: _Cut, floor: f
         sim.feasible, sim.fail_period, sim.fail_reason = False, p + 1, why
         return True
     return False
+
+
+def _regen_shares(rules: HarvestRules, reg: Regimes | None, P: int) -> NDArray | None:
+    """Per period the shares in which each code's cut regrows as each: the plan's choices,
+    or the regimes' transitions (None: every cut regrows as itself)."""
+    shares = rules.plan.regen_shares if rules.plan is not None else None
+    if shares is None and reg is not None and reg.changes:
+        shares = np.broadcast_to(reg.transitions, (P, *reg.transitions.shape))
+    return shares
 
 
 def _judge_end(
