@@ -153,8 +153,8 @@ def harvests_layer(
         copy=False,  # the new arrays as they are, not consolidated into a copy
     )
     geom = stands.geometry.to_numpy()[pos]
-    return gpd.GeoDataFrame(
-        frame, geometry=gpd.GeoSeries(geom, crs=stands.crs).values, crs=stands.crs
+    return gpd.GeoDataFrame(  # copy=False: geopandas copies a DataFrame's columns by default
+        frame, geometry=gpd.GeoSeries(geom, crs=stands.crs).values, crs=stands.crs, copy=False
     )
 
 
