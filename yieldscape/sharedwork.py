@@ -23,6 +23,7 @@ import pickle
 import signal
 import sys
 import traceback
+import warnings
 from collections.abc import Callable, Iterator
 from typing import TypeVar
 
@@ -110,7 +111,14 @@ def shared_jobs(
     # written is copied (the helper copied 0.37 GB of pages of a run at 1M stands without)
     gc.freeze()
     try:
-        pid = os.fork()
+        with warnings.catch_warnings():
+            # Python 3.12+ warns of any fork of a process with threads; ours are native
+            # libraries' workers (numpy's BLAS), idle at the fork, which the helper never
+            # waits on: it draws with matplotlib and numpy's element-wise code
+            warnings.filterwarnings(
+                "ignore", "This process .* is multi-threaded", DeprecationWarning
+            )
+            pid = os.fork()
     except BaseException:  # no helper (no memory or processes left for one): none wanted
         gc.unfreeze()
         for fd in (tokens, back, out):
