@@ -100,3 +100,23 @@ def test_without_a_helper_every_job_runs_here():
         assert finish() == [[0]]
     with shared_jobs(0, work, "testing") as finish:
         assert finish() == [[]]
+
+
+class _Unpicklable(Exception):
+    def __init__(self, a, b):  # pickled with args (a,) only: unpickling it fails
+        super().__init__(a)
+
+
+def test_an_error_that_does_not_unpickle_comes_back_as_its_text():
+    here = os.getpid()
+
+    def work(claim):
+        if os.getpid() != here:
+            raise _Unpicklable("no figure", 2)
+        return []
+
+    with (
+        pytest.raises(RuntimeError, match="_Unpicklable: no figure"),
+        shared_jobs(2, work, "testing") as finish,
+    ):
+        finish()

@@ -73,8 +73,9 @@ def _in_helper(parent: int, tokens: int, out: int, work: Callable[[Claim], T]) -
         except Exception as exc:
             tb = "".join(traceback.format_exception(exc))
             try:
+                pickle.loads(pickle.dumps(exc))  # as the parent will
                 payload = ("error", pickle.dumps(exc), tb)
-            except Exception:  # an error that does not pickle: its text
+            except Exception:  # an error that does not pickle and unpickle: its text
                 payload = ("error", pickle.dumps(RuntimeError(f"{type(exc).__name__}: {exc}")), tb)
         data = pickle.dumps(payload)
         with os.fdopen(out, "wb") as pipe:
