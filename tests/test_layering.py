@@ -14,6 +14,7 @@ LAYER = {
     "geometry": 0,
     "policies": 0,
     "runlog": 0,
+    "sharedwork": 0,
     "config": 1,
     "expressions": 1,
     "growth": 1,

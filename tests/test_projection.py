@@ -1,6 +1,8 @@
 """The projection's tabulated curves against the exact curve formulas."""
 
 import numpy as np
+import pandas as pd
+import pyarrow as pa
 import pytest
 
 from yieldscape.growth import (
@@ -12,7 +14,7 @@ from yieldscape.growth import (
     StockGrowth,
     TableYield,
 )
-from yieldscape.projection import CurveSet
+from yieldscape.projection import CurveSet, zone_codes, zone_names
 
 SITE = SiteScaling(20.0, 1.1, 0.4)
 CURVES = [
@@ -49,3 +51,25 @@ def test_grid_ages_are_exact_without_time_scaling(age):
     cs = CurveSet(["pine"], [curve])
     got = cs.volume_m3_ha(np.zeros(1, np.int32), np.array([age]), np.array([23.0]))[0]
     assert got == curve.volume_m3_ha(age, 23.0)
+
+
+@pytest.mark.parametrize(
+    "zone",
+    [
+        pd.Series(["valley", "highland", "valley", "lakeshore"]).astype(pd.ArrowDtype(pa.string())),
+        pd.Series(["b", None, "a", "", "b"]).astype(pd.ArrowDtype(pa.string())),
+        pd.Series(["b", None, "Z", "", 7, "7"], dtype=object),  # 7 and "7" are one zone
+        pd.Series([3.0, 1.0, np.nan, 10.0]),
+        pd.Series([10, 2, 1, 2]),
+        pd.Series([None, None], dtype=object),
+        pd.Series([], dtype=object),
+    ],
+)
+def test_zone_codes_and_names_are_numpys_unique_of_the_zones_as_text(zone):
+    # reference: np.unique (sorted distinct values and the inverse) of the zones as text,
+    # none as ''
+    text = zone.astype(object).where(zone.notna(), "").astype(str).to_numpy()
+    names, codes = np.unique(text, return_inverse=True)
+    stands = pd.DataFrame({"zone": zone})
+    assert zone_names(stands) == names.tolist()
+    np.testing.assert_array_equal(zone_codes(stands), codes)

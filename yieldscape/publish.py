@@ -6,7 +6,10 @@ from __future__ import annotations
 
 import logging
 import time
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager, nullcontext
 from datetime import UTC, datetime
+from functools import partial
 from pathlib import Path
 
 import geopandas as gpd
@@ -34,6 +37,7 @@ from yieldscape.reporting.figures import (
 )
 from yieldscape.reporting.report import Figure, ReportData, html_report, markdown_report
 from yieldscape.results import CheckResult, RunResult
+from yieldscape.sharedwork import Claim, shared_jobs
 from yieldscape.versions import library_versions
 from yieldscape.zonal import stand_grid
 
@@ -104,26 +108,20 @@ def write_outputs(
     keys set) marks the run as one of those cases. Returns what run.json holds."""
     t0 = time.perf_counter()
     rep = scenario.report
-    with unsynced_gpkg(directory / GPKG_NAME):
-        write_tables(result, directory)
-        if rep.map_layers:
-            write_map_layers(result, scenario, directory / GPKG_NAME)
-    if rep.raster_cell_m:
-        write_rasters(result, scenario, directory / RASTERS_DIR)
-    record = run_record(result, scenario)
-    comparison = None
-    if result.cases:
-        runs = [(BASE_LABEL, record, result.wood_flow)]
-        for (name, sets, scn), sub in zip(scenario.sensitivity, result.cases.values(), strict=True):
-            (directory / name).mkdir()
-            sub_record = write_outputs(sub, scn, directory / name, (name, dict(sets)))
-            runs.append((name, sub_record, sub.wood_flow))
-        comparison = comparison_table(runs)
-        comparison.to_csv(directory / COMPARISON_CSV, index=False)
-        if rep.figures:
-            (directory / FIGURES_DIR).mkdir(exist_ok=True)
-            comparison_figure(directory / FIGURES_DIR / COMPARISON_PNG, runs)
-    figures = write_figures(result, scenario, directory / FIGURES_DIR) if rep.figures else {}
+    with (
+        shared_figures(result, scenario, directory / FIGURES_DIR)
+        if rep.figures
+        else nullcontext(dict)
+    ) as drawn:
+        with unsynced_gpkg(directory / GPKG_NAME):
+            write_tables(result, directory)
+            if rep.map_layers:
+                write_map_layers(result, scenario, directory / GPKG_NAME)
+        if rep.raster_cell_m:
+            write_rasters(result, scenario, directory / RASTERS_DIR)
+        record = run_record(result, scenario)
+        comparison = _write_cases(result, scenario, directory, record)
+        figures = drawn()
     if comparison is not None and rep.figures:
         figures["comparison"] = Figure(
             directory / FIGURES_DIR / COMPARISON_PNG,
@@ -143,6 +141,27 @@ def write_outputs(
         log.info("write outputs done in %.2f s", seconds)
     (directory / RUN_LOG).write_text("\n".join(result.log) + "\n", encoding="utf-8")
     return record
+
+
+def _write_cases(
+    result: RunResult, scenario: Scenario, directory: Path, record: dict
+) -> pd.DataFrame | None:
+    """The sensitivity cases' outputs, each in a folder of its own, and their comparison with
+    the base case (a table and a figure); None without cases."""
+    rep = scenario.report
+    comparison = None
+    if result.cases:
+        runs = [(BASE_LABEL, record, result.wood_flow)]
+        for (name, sets, scn), sub in zip(scenario.sensitivity, result.cases.values(), strict=True):
+            (directory / name).mkdir()
+            sub_record = write_outputs(sub, scn, directory / name, (name, dict(sets)))
+            runs.append((name, sub_record, sub.wood_flow))
+        comparison = comparison_table(runs)
+        comparison.to_csv(directory / COMPARISON_CSV, index=False)
+        if rep.figures:
+            (directory / FIGURES_DIR).mkdir(exist_ok=True)
+            comparison_figure(directory / FIGURES_DIR / COMPARISON_PNG, runs)
+    return comparison
 
 
 def write_tables(result: RunResult, directory: Path) -> None:
@@ -306,19 +325,74 @@ class _Figures(dict):
         return path
 
 
-def write_figures(result: RunResult, scenario: Scenario, directory: Path) -> dict[str, Figure]:
-    """The run's figures as PNG files; returns them by key with title and caption."""
+def write_figures(
+    result: RunResult, scenario: Scenario, directory: Path, claim: Claim | None = None
+) -> dict[str, Figure]:
+    """The run's figures as PNG files; returns them by key with title and caption. With
+    ``claim`` (job numbers shared with another process, :func:`shared_figures`), only the
+    figures whose numbers it hands out, else all."""
     directory.mkdir(exist_ok=True)
     figs = _Figures(directory)
-    _flow_figures(result, scenario, figs)
-    _structure_figures(result, scenario, figs)
-    _other_figures(result, scenario, figs)
-    return dict(figs)
+    jobs = figure_jobs(result, scenario)
+    for i in iter(claim, None) if claim is not None else range(len(jobs)):
+        jobs[i][1](result, scenario, figs)
+    return in_report_order(dict(figs), jobs)
 
 
-def _flow_figures(result: RunResult, scenario: Scenario, figs: _Figures) -> None:
-    """The harvest forecast and the growing stock."""
-    wf, verdict, add = result.wood_flow, result.verdict, figs.add
+FigureJob = Callable[[RunResult, Scenario, "_Figures"], None]
+
+
+def figure_jobs(result: RunResult, scenario: Scenario) -> list[tuple[str, FigureJob]]:
+    """The run's figures in the report's order: each one's key and the job drawing it (the
+    costly ones first, so that two processes sharing them end close together)."""
+    jobs: list[tuple[str, FigureJob]] = [
+        ("harvest_map", _harvest_map_figure),
+        ("age_classes", _age_class_figure),
+        ("harvest_forecast", _harvest_figure),
+        ("growing_stock", _growing_stock_figure),
+    ]
+    if result.cover is not None:
+        jobs.append(("cover_targets", _cover_figure))
+    if result.monte_carlo is not None:
+        jobs.append(("monte_carlo", _monte_carlo_figure))
+    for code, summary in dominant_sites(result.curves, result.curve_summaries).items():
+        jobs.append((f"curves_{code}", partial(_curve_figure, code=code, summary=summary)))
+    return jobs
+
+
+REPORT_ORDER = ("harvest_forecast", "growing_stock", "age_classes", "cover_targets", "harvest_map")
+
+
+def in_report_order(
+    drawn: dict[str, Figure], jobs: list[tuple[str, FigureJob]]
+) -> dict[str, Figure]:
+    """``drawn`` in the report's order: :data:`REPORT_ORDER`, then as the jobs list them."""
+    rank = {key: i for i, (key, _) in enumerate(jobs)}
+    rank |= {key: n - len(REPORT_ORDER) for n, key in enumerate(REPORT_ORDER)}
+    return {k: drawn[k] for k in sorted(drawn, key=rank.__getitem__)}
+
+
+@contextmanager
+def shared_figures(result: RunResult, scenario: Scenario, directory: Path) -> Iterator[Callable]:
+    """The figures drawn in a second process beside the block (the GeoPackage writes) and
+    here in ``finish()`` when this process is done first: ``finish()`` returns them by key
+    in the report's order (the same files as :func:`write_figures` alone)."""
+    jobs = figure_jobs(result, scenario)
+
+    def draw(claim: Claim) -> dict[str, Figure]:
+        return write_figures(result, scenario, directory, claim)
+
+    with shared_jobs(len(jobs), draw, "drawing the figures") as done:
+
+        def finish() -> dict[str, Figure]:
+            return in_report_order({k: v for part in done() for k, v in part.items()}, jobs)
+
+        yield finish
+
+
+def _harvest_figure(result: RunResult, scenario: Scenario, figs: _Figures) -> None:
+    """The harvest forecast."""
+    wf, verdict = result.wood_flow, result.verdict
     assert verdict is not None
     f = scenario.flow
     show_range = f.policy == "even" and f.band > 0 and f.method == "rules"
@@ -326,7 +400,7 @@ def _flow_figures(result: RunResult, scenario: Scenario, figs: _Figures) -> None
         (c.period for c in verdict.checks if c.name == "flow_policy_held" and not c.holds), None
     )
     harvest_figure(
-        add(
+        figs.add(
             "harvest_forecast",
             "Harvest forecast",
             "Harvest per year in each period (solid), the long-term sustained yield "
@@ -341,24 +415,25 @@ def _flow_figures(result: RunResult, scenario: Scenario, figs: _Figures) -> None
         show_range,
         failing,
     )
+
+
+def _growing_stock_figure(result: RunResult, scenario: Scenario, figs: _Figures) -> None:
     growing_stock_figure(
-        add(
+        figs.add(
             "growing_stock",
             "Growing stock",
             "Standing volume at each period boundary on the whole forest and on the "
             "harvestable land base, and the stock a regulated forest on the harvestable land "
             "base would hold if cut at the minimum harvest ages.",
         ),
-        wf,
+        result.wood_flow,
         result.regulated_hlb_stock_m3,
     )
 
 
-def _structure_figures(result: RunResult, scenario: Scenario, figs: _Figures) -> None:
-    """Age classes, cover targets and the map of when each stand is first cut."""
-    wf, add = result.wood_flow, figs.add
+def _age_class_figure(result: RunResult, scenario: Scenario, figs: _Figures) -> None:
     age_class_figure(
-        add(
+        figs.add(
             "age_classes",
             "Age classes",
             f"Area by {scenario.report.age_class_width_years:g}-year age class at each "
@@ -366,17 +441,25 @@ def _structure_figures(result: RunResult, scenario: Scenario, figs: _Figures) ->
         ),
         result.age_classes,
     )
-    if result.cover is not None:
-        cover_figure(
-            add(
-                "cover_targets",
-                "Cover targets",
-                "Each target's share of its zone after each period's harvest (line) against "
-                "the target (dashed); a cross marks a period that misses it.",
-            ),
-            result.cover,
-            wf["start_year"].to_numpy(),
-        )
+
+
+def _cover_figure(result: RunResult, scenario: Scenario, figs: _Figures) -> None:
+    assert result.cover is not None
+    cover_figure(
+        figs.add(
+            "cover_targets",
+            "Cover targets",
+            "Each target's share of its zone after each period's harvest (line) against "
+            "the target (dashed); a cross marks a period that misses it.",
+        ),
+        result.cover,
+        result.wood_flow["start_year"].to_numpy(),
+    )
+
+
+def _harvest_map_figure(result: RunResult, scenario: Scenario, figs: _Figures) -> None:
+    """The map of when each stand is first cut."""
+    wf = result.wood_flow
     labels, transform = _stand_grid_for_map(result)
     h, w = labels.shape
     extent = (
@@ -389,7 +472,7 @@ def _structure_figures(result: RunResult, scenario: Scenario, figs: _Figures) ->
         "The first period in which each stand is cut (projection.gpkg: style the stands "
         "layer by first_harvest_period, or switch on the harvests_period_* layers)."
     )
-    path = add("harvest_map", "Where and when", caption)
+    path = figs.add("harvest_map", "Where and when", caption)
     note = harvest_map_figure(
         path,
         labels,
@@ -403,38 +486,42 @@ def _structure_figures(result: RunResult, scenario: Scenario, figs: _Figures) ->
         figs["harvest_map"] = Figure(path, "Where and when", f"{caption} {note}")
 
 
-def _other_figures(result: RunResult, scenario: Scenario, figs: _Figures) -> None:
-    """The disturbance replicates and the yield curves."""
-    wf, add = result.wood_flow, figs.add
-    if result.monte_carlo is not None:
-        monte_carlo_figure(
-            add(
-                "monte_carlo",
-                "Harvest and growing stock under random disturbance",
-                "Over the replicates, each period's harvest (above) and growing stock at the "
-                "period's end (below): the band from the 10th to the 90th percentile, the "
-                "median, and the expected-value schedule's target and stock. Where every "
-                "replicate meets every target the harvest band is a line, and the risk shows "
-                "in the stock.",
-            ),
-            result.monte_carlo,
-            wf,
-        )
-    for code, summary in dominant_sites(result.curves, result.curve_summaries).items():
-        curve = scenario.species[code].yield_curve()
-        age = figure_age(summary, scenario.growth.max_age_years)
-        curve_figure(
-            add(
-                f"curves_{code}",
-                f"Yield curve of {code}",
-                f"Volume, MAI and CAI at site index {summary.site_index:g} m (the site with "
-                "the most area), with the rotation ages marked.",
-            ),
-            code,
-            curve,
-            summary,
-            age,
-        )
+def _monte_carlo_figure(result: RunResult, scenario: Scenario, figs: _Figures) -> None:
+    """The disturbance replicates."""
+    assert result.monte_carlo is not None
+    monte_carlo_figure(
+        figs.add(
+            "monte_carlo",
+            "Harvest and growing stock under random disturbance",
+            "Over the replicates, each period's harvest (above) and growing stock at the "
+            "period's end (below): the band from the 10th to the 90th percentile, the "
+            "median, and the expected-value schedule's target and stock. Where every "
+            "replicate meets every target the harvest band is a line, and the risk shows "
+            "in the stock.",
+        ),
+        result.monte_carlo,
+        result.wood_flow,
+    )
+
+
+def _curve_figure(
+    result: RunResult, scenario: Scenario, figs: _Figures, code: str, summary: SiteSummary
+) -> None:
+    """A species' yield curve at the site holding the most area."""
+    curve = scenario.species[code].yield_curve()
+    age = figure_age(summary, scenario.growth.max_age_years)
+    curve_figure(
+        figs.add(
+            f"curves_{code}",
+            f"Yield curve of {code}",
+            f"Volume, MAI and CAI at site index {summary.site_index:g} m (the site with "
+            "the most area), with the rotation ages marked.",
+        ),
+        code,
+        curve,
+        summary,
+        age,
+    )
 
 
 def _stand_grid_for_map(result: RunResult):  # noqa: ANN202

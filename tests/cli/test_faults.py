@@ -174,7 +174,7 @@ def test_out_with_a_name_too_long(small_case, capsys):
 def failing_writer(exc):
     """A stand-in for the figure writer that writes part of a file, then fails with ``exc``."""
 
-    def write(result, scenario, figures):
+    def write(result, scenario, figures, claim=None):
         figures.mkdir(exist_ok=True)
         (figures / "age.png").write_bytes(b"\x89PNG half")
         raise exc(figures)
@@ -253,6 +253,68 @@ def test_a_bug_while_writing_is_still_a_bug_and_leaves_nothing(small_case, capsy
     nothing_left(tmp_path, out)
 
 
+def in_the_helper_only(writer):
+    """``writer`` where the figures' helper process draws (forked beside the GeoPackage
+    writes, yieldscape.sharedwork); the real figure writer in this process."""
+    from yieldscape import publish
+
+    here, draw = os.getpid(), publish.write_figures
+
+    def write(result, scenario, figures, claim=None):
+        if os.getpid() != here:
+            return writer(result, scenario, figures, claim)
+        return draw(result, scenario, figures, claim)
+
+    return write
+
+
+def test_a_full_disk_in_the_figures_helper_process_says_so(small_case, capsys, monkeypatch):
+    tmp_path, _, scenario = small_case
+    helper = in_the_helper_only(failing_writer(os_error(errno.ENOSPC)))
+    monkeypatch.setattr("yieldscape.publish.write_figures", helper)
+    out = tmp_path / "out"
+    err = fails(
+        capsys,
+        ["run", str(scenario), "--out", str(out)],
+        r"no space left on device while writing .*out/figures/age.png; nothing was written",
+    )
+    assert "a bug" not in err
+    nothing_left(tmp_path, out)
+
+
+def test_a_bug_in_the_figures_helper_process_is_a_bug_with_its_traceback(
+    small_case, capsys, monkeypatch
+):
+    tmp_path, _, scenario = small_case
+    helper = in_the_helper_only(failing_writer(lambda d: TypeError("unsupported operand")))
+    monkeypatch.setattr("yieldscape.publish.write_figures", helper)
+    out = tmp_path / "out"
+    assert main(["run", str(scenario), "--out", str(out)]) == 1
+    err = capsys.readouterr().err
+    assert "unexpected error (a bug)" in err
+    assert "in the helper process drawing the figures" in err  # where it happened
+    assert "raise exc(figures)" in err  # the helper's own traceback
+    nothing_left(tmp_path, out)
+
+
+def test_the_figures_helper_process_killed_says_so_and_leaves_nothing(
+    small_case, capsys, monkeypatch
+):
+    tmp_path, _, scenario = small_case
+
+    def killed(result, scenario, figures, claim=None):
+        os.kill(os.getpid(), signal.SIGKILL)  # as the kernel's out-of-memory killer would
+
+    monkeypatch.setattr("yieldscape.publish.write_figures", in_the_helper_only(killed))
+    out = tmp_path / "out"
+    fails(
+        capsys,
+        ["run", str(scenario), "--out", str(out)],
+        r"the helper process drawing the figures ended without a result \(killed by SIGKILL\)",
+    )
+    nothing_left(tmp_path, out)
+
+
 @pytest.mark.parametrize("command", ["curves", "compare"])
 def test_a_full_disk_in_curves_and_compare(earlier, capsys, monkeypatch, command):
     tmp_path, scenario, run = earlier  # the small case and a run of it to compare
@@ -277,16 +339,17 @@ def test_a_full_disk_in_curves_and_compare(earlier, capsys, monkeypatch, command
 # -- SIGTERM and SIGINT while writing ----------------------------------------------------------
 
 # The real command in a process of its own, with the figure writer held up inside the staged
-# write until the signal comes (it marks the moment with a file), so the test does not race.
+# write until the signal comes (it marks the moment with a file named after the process: the
+# run's own, or its helper drawing the figures beside it), so the test does not race.
 # Ctrl-C raises KeyboardInterrupt as in a terminal, also where the suite itself was started in
 # the background, which starts it (and so this process) with SIGINT ignored.
 HELD_WRITE = """
-import signal, sys, time
+import os, signal, sys, time
 signal.signal(signal.SIGINT, signal.default_int_handler)
 import yieldscape.publish as publish
-def held(result, scenario, figures):
+def held(result, scenario, figures, claim=None):
     figures.mkdir(exist_ok=True)
-    (figures / "writing").write_text("")
+    (figures / f"writing.{os.getpid()}").write_text("")
     time.sleep(120)
 publish.write_figures = held
 from yieldscape.cli.main import main
@@ -301,7 +364,7 @@ def run_until_writing(tmp_path, scenario, out):
         text=True,
     )
     deadline = time.monotonic() + 60
-    while not list(tmp_path.glob(f".{out.name}.*.partial/figures/writing")):
+    while not list(tmp_path.glob(f".{out.name}.*.partial/figures/writing.*")):
         if proc.poll() is not None or time.monotonic() > deadline:
             proc.kill()
             pytest.fail(f"the run did not reach its writing: {proc.communicate()[1]}")
@@ -316,12 +379,17 @@ def test_a_signal_while_writing_leaves_nothing(small_case, sig, code, name):
     tmp_path, _, scenario = small_case
     out = tmp_path / "out"
     proc = run_until_writing(tmp_path, scenario, out)
+    marks = tmp_path.glob(f".{out.name}.*.partial/figures/writing.*")
+    helpers = {int(p.suffix[1:]) for p in marks} - {proc.pid}
     proc.send_signal(sig)
     _, err = proc.communicate(timeout=60)
     assert proc.returncode == code, err
     assert f"yieldscape: interrupted ({name}); no output was written" in err
     assert "Traceback" not in err
     nothing_left(tmp_path, out)
+    for pid in helpers:  # the figures' helper process went with the run
+        with pytest.raises(ProcessLookupError):
+            os.kill(pid, 0)
 
 
 def test_sigterm_while_replacing_an_earlier_output_keeps_it(earlier):
@@ -610,7 +678,11 @@ def test_names_that_are_not_utf8(small_case, capsys):
 def test_the_staged_folder_disappearing_while_writing(small_case, capsys, monkeypatch):
     tmp_path, _, scenario = small_case
 
-    def gone(result, scenario, figures):
+    here = os.getpid()
+
+    def gone(result, scenario, figures, claim=None):
+        if os.getpid() != here:  # the figures' helper process: the folder goes once GDAL is done
+            return {}
         shutil.rmtree(figures.parent)  # the staged folder, removed by someone else
         (figures.parent / "age.png").write_bytes(b"")
 
@@ -647,9 +719,9 @@ def test_a_file_put_into_the_earlier_output_while_writing_is_kept(earlier, capsy
     tmp_path, scenario, out = earlier
     figures = publish.write_figures
 
-    def and_a_note(result, scenario, directory):
+    def and_a_note(result, scenario, directory, claim=None):
         (out / "notes.txt").write_text("mine")  # the user, meanwhile
-        return figures(result, scenario, directory)
+        return figures(result, scenario, directory, claim)
 
     monkeypatch.setattr(publish, "write_figures", and_a_note)
     fails(capsys, ["run", str(scenario), "--out", str(out)], r"did not write \(notes.txt\)")

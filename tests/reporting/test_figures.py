@@ -12,6 +12,7 @@ import pyproj
 import pytest
 from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar
 
+from yieldscape import sharedwork
 from yieldscape.cli.main import main
 from yieldscape.reporting import figures
 
@@ -22,7 +23,9 @@ DRAW = ("--set", "report.figures=true")  # tests' scenarios draw none by default
 
 @pytest.fixture
 def drawn(monkeypatch):
-    """The figures a run draws, by file name, kept open for a look at their artists."""
+    """The figures a run draws, by file name, kept open for a look at their artists (all
+    drawn in this process: no helper process draws any beside the GeoPackage writes)."""
+    monkeypatch.setattr(sharedwork, "FORK", False)
     kept = {}
     save = figures.save
 
@@ -135,3 +138,33 @@ def test_no_identifier_in_any_title_label_or_legend(small_case, drawn):
         for text in texts:
             # snake_case names and a lone '*' are the program's, not the reader's words
             assert not re.search(r"\b[a-z]+_[a-z_]+\b|(^|\s)\*", text), (name, text)
+
+
+def test_figures_drawn_beside_the_geopackage_are_the_ones_drawn_alone(small_case, monkeypatch):
+    # the helper process and this one share the figures (yieldscape.sharedwork): the same
+    # files, pixel for pixel (read back by Pillow), and the report lists them in the same order
+    from PIL import Image
+
+    tmp, layer, _ = small_case
+    raw = scenario_dict(
+        layer,
+        cover=[{"zone": "*", "older_than_years": 80, "min_share": 0.1}],
+        disturbance={"annual_rate": 0.002, "replicates": 3},
+    )
+    scn = write_scenario(tmp / "all.toml", raw)
+    assert main(["run", str(scn), "--out", str(tmp / "shared"), "-q", *DRAW]) == 0
+    monkeypatch.setattr(sharedwork, "FORK", False)
+    assert main(["run", str(scn), "--out", str(tmp / "alone"), "-q", *DRAW]) == 0
+    names = sorted(p.name for p in (tmp / "alone" / "figures").iterdir())
+    assert len(names) >= 7
+    assert sorted(p.name for p in (tmp / "shared" / "figures").iterdir()) == names
+    for name in names:
+        alone = np.asarray(Image.open(tmp / "alone" / "figures" / name))
+        shared = np.asarray(Image.open(tmp / "shared" / "figures" / name))
+        assert alone.shape == shared.shape and (alone == shared).all(), name
+
+    def order(run: str) -> list[str]:
+        html = (tmp / run / "report.html").read_text()
+        return re.findall(r'figures/([\w.]+\.png)"', html)
+
+    assert order("shared") == order("alone") and len(order("alone")) == len(names)

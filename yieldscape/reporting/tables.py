@@ -153,8 +153,8 @@ def harvests_layer(
         copy=False,  # the new arrays as they are, not consolidated into a copy
     )
     geom = stands.geometry.to_numpy()[pos]
-    return gpd.GeoDataFrame(
-        frame, geometry=gpd.GeoSeries(geom, crs=stands.crs).values, crs=stands.crs
+    return gpd.GeoDataFrame(  # copy=False: geopandas copies a DataFrame's columns by default
+        frame, geometry=gpd.GeoSeries(geom, crs=stands.crs).values, crs=stands.crs, copy=False
     )
 
 
@@ -216,8 +216,11 @@ def stands_layer(
         np.where(cut, years[np.where(cut, first, 1) - 1], np.nan)
     )
     out["first_harvest_age_years"] = first_age
-    pairs = np.unique(np.c_[stand, period], axis=0) if len(stand) else np.zeros((0, 2), np.int64)
-    out["harvest_count"] = np.bincount(pairs[:, 0].astype(np.int64), minlength=n)
+    # periods with a clearcut per stand: the distinct (stand, period) pairs, packed into one
+    # integer (a 1-D unique; np.unique(axis=0) sorted rows as records, 3x slower at 1M)
+    span = int(period.max()) + 1 if len(period) else 1
+    pairs = np.unique(stand.astype(np.int64) * span + period)
+    out["harvest_count"] = np.bincount(pairs // span, minlength=n)
     out["harvested_area_ha"] = np.bincount(stand, area, n)
     out["harvested_volume_m3"] = np.bincount(stand, sim.event_volume_m3[clear], n)
     thin = ~clear
