@@ -101,6 +101,19 @@ class FixedTargets(Targets):
         return v, v
 
 
+@dataclass(frozen=True)
+class PerUnit:
+    """One target rule per management unit, in unit order: each unit's target and floor
+    from its own rule and its own harvest of the period before."""
+
+    rules: tuple[TargetRule, ...]
+
+    def bounds_units(self, p: int, h_prev: NDArray) -> tuple[NDArray, NDArray]:
+        """Per unit (target, floor) [m3] of period ``p`` after the units' harvests ``h_prev``."""
+        pairs = [r.bounds(p, float(h)) for r, h in zip(self.rules, h_prev, strict=True)]
+        return np.array([t for t, _ in pairs]), np.array([f for _, f in pairs])
+
+
 # ----------------------------------------------------------------------------- flow policies
 @dataclass(frozen=True)
 class FlowPolicy:

@@ -100,7 +100,9 @@ def find_even_flow(
     # (inf) missed, or before it where the fixed periods fail (then U = 0 and so does every
     # level).
     upper = float(trial(float("inf")).harvest_m3[len(fixed)])
-    base = fixed[-1] if fixed else 0.0  # the lowest level asked for, feasible or nothing is
+    # the lowest level asked for, feasible or nothing is (at least the largest amount a
+    # partition must yield)
+    base = fixed[-1] if fixed else least_level(rules)
     low = trial(base)
     steps = 2
 
@@ -117,7 +119,8 @@ def find_even_flow(
         if fixed:
             raise RuntimeError(f"flow search: the fixed periods fail ({low.fail_reason})")
         final, steps = kept(0.0, low)
-        return _result(0.0, periods, final, _why_none(low, final, ending_stock), steps)
+        why = _why_none(low, final, ending_stock, base, least_partition(rules))
+        return _result(0.0, periods, final, why, steps)
     top = trial(upper)
     steps += 1
     if top.feasible:
@@ -130,6 +133,23 @@ def find_even_flow(
     final, steps = _narrow(bracket, trial, margin, periods.period_years, steps, record)
     why = _why(bracket.hi_sim, bracket.hi, periods, ending_stock)
     return _result(bracket.lo, periods, final, why, steps)
+
+
+def least_level(rules: HarvestRules) -> float:
+    """The lowest level [m3 per period] that can keep the partitions' amounts: the largest
+    ``min_m3`` (0 without partitions)."""
+    parts = rules.partitions
+    if parts is None or np.isnan(parts.min_m3).all():
+        return 0.0
+    return float(np.nanmax(parts.min_m3))
+
+
+def least_partition(rules: HarvestRules) -> str:
+    """The partition whose amount sets :func:`least_level` ("" for none)."""
+    parts = rules.partitions
+    if parts is None or np.isnan(parts.min_m3).all():
+        return ""
+    return parts.names[int(np.nanargmax(parts.min_m3))]
 
 
 def _narrow(
@@ -250,7 +270,14 @@ class _Bracket:
             self.hi, self.hi_sim = level, sim
 
 
-def _why_none(zero: Simulation, final: Simulation, ending_stock: float) -> str:
+def _why_none(
+    zero: Simulation, final: Simulation, ending_stock: float, base: float = 0.0, by: str = ""
+) -> str:
+    """Why no level holds; ``zero``: the trial at the lowest level asked for, ``base`` (the
+    amount of partition ``by``, or 0)."""
+    if zero.fail_reason.startswith("partition") or (base > 0 and zero.fail_period):
+        ask = f"at {base:,.0f} m3 per period (partition {by!r}'s min_m3), " if base > 0 else ""
+        return f"no level is feasible: {ask}period {zero.fail_period} fails: {zero.fail_reason}"
     if not zero.feasible:
         return (
             f"no harvest at all is feasible: even without cutting, the ending growing "
@@ -276,6 +303,10 @@ def _why(sim: Simulation, level: float, periods: Periods, ending_stock: float) -
     higher = f"any level above {level:,.0f} m3 per period"
     if sim.fail_period is not None:
         year = periods.start_years[sim.fail_period - 1]
+        if sim.fail_reason.startswith("partition"):
+            return f"{higher} would fail in period {sim.fail_period} (from {year}): the " + (
+                sim.fail_reason
+            )
         if sim.fail_reason.startswith("eligible volume the"):  # a rule of the pick refused
             rules = sim.fail_reason.removeprefix("eligible volume ").removesuffix(" exhausted")
             what = f"run out of the eligible volume {rules}"

@@ -39,7 +39,7 @@ aggregation into strata costs or adds.
 from __future__ import annotations
 
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field, replace
 
 import highspy
@@ -59,6 +59,7 @@ from yieldscape.schedule.lp_regimes import (
     regeneration_groups,
     thinnings_by_period,
 )
+from yieldscape.schedule.lp_units import Cells, Partition, UnitFlow
 
 INF = highspy.kHighsInf
 # strata x periods from which interior point solves the LP (:func:`lp_solver`)
@@ -88,6 +89,11 @@ class Strata:
     group_zone: NDArray  # zone code of each regeneration group
     regrowth: Regrowth  # the groups (or choice) the area cut from each stratum and group enters
     regimes: Regimes | None = None  # the stands' transitions and thinnings
+    # the cells (management unit and partition membership) the strata and their regrowth
+    # never leave (:mod:`yieldscape.schedule.lp_units`): each stratum's and group's cell
+    cells: Cells | None = None
+    cell: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    group_cell: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
 
     @property
     def n(self) -> int:
@@ -105,12 +111,22 @@ def make_strata(
     site_step: float,
     age_step: float,
     disturbed: bool = False,
+    cells: Cells | None = None,
 ) -> Strata:
-    """Group stands with harvestable area by species, site class, age class and zone, and
-    find the regeneration groups they regrow into (with ``disturbed`` each stratum's own group
-    too: disturbed area regrows as its own code)."""
+    """Group stands with harvestable area by species, site class, age class, zone and cell
+    (unit and partition membership, :class:`~yieldscape.schedule.lp_units.Cells`; default one
+    cell), and find the regeneration groups they regrow into (with ``disturbed`` each
+    stratum's own group too: disturbed area regrows as its own code); regrowth stays in its
+    zone and cell."""
     area = stands.cuttable_ha
     live = area > 0
+    if cells is None:
+        cells = Cells.single(stands.n, int(stands.species_idx.max(initial=0)) + 1)
+    # zone and cell as one key (in zone order, then cell), which the groups carry as "zone"
+    pairs, zone_cell = np.unique(
+        np.column_stack([np.asarray(zone_codes), cells.of_stand]), axis=0, return_inverse=True
+    )
+    zone_cell = zone_cell.reshape(-1)
     site_cls = np.round(stands.site_index / site_step).astype(np.int64)
     age_cls = np.floor(stands.age_years / age_step).astype(np.int64)
     key = pd.DataFrame(
@@ -118,7 +134,7 @@ def make_strata(
             "sp": stands.species_idx,
             "si": site_cls,
             "age": age_cls,
-            "zone": zone_codes,
+            "zone": zone_cell,
             "min": stands.min_harvest_age,
         }
     )
@@ -134,12 +150,12 @@ def make_strata(
     first = np.zeros(n, dtype=np.int64)
     first[codes[::-1]] = np.flatnonzero(live)[::-1]  # a representative stand per stratum
     site = mean(stands.site_index)
-    zone = np.asarray(zone_codes)[first]
     sources = pd.DataFrame(
-        {"sp": stands.species_idx[first], "si": site_cls[first], "zone": zone}
+        {"sp": stands.species_idx[first], "si": site_cls[first], "zone": zone_cell[first]}
     ).assign(rep=first, site=site)
     groups = regeneration_groups(stands, sources, disturbed)
     g = groups.frame
+    g_key = g["zone"].to_numpy(np.int64)
     return Strata(
         species_idx=stands.species_idx[first],
         site_index=site,
@@ -153,10 +169,13 @@ def make_strata(
         group_site=g["site"].to_numpy(np.float64),
         group_min_age=g["min"].to_numpy(np.float64),
         group_delay=g["delay"].to_numpy(np.float64),
-        zone=zone,
-        group_zone=g["zone"].to_numpy(np.int64),  # regrowth stays in its zone (cover targets)
+        zone=pairs[zone_cell[first], 0],
+        group_zone=pairs[g_key, 0],  # regrowth stays in its zone (cover targets) and cell
         regrowth=groups.regrowth,
         regimes=stands.regimes,
+        cells=cells,
+        cell=pairs[zone_cell[first], 1],
+        group_cell=pairs[g_key, 1],
     )
 
 
@@ -182,6 +201,10 @@ class LPModel:
     # (p - 1) C^2 + from C + to; C codes)
     regeneration: object = None  # scipy.sparse.csr_matrix
     level_col: int = -1  # the level column M (max-even-flow, max-level), -1 otherwise
+    level_cols: list[int] = field(default_factory=list)  # each unit's level column
+    unit_h_cols: list[NDArray] = field(default_factory=list)  # each unit's harvest columns
+    units: tuple[str, ...] = ()  # the units' names
+    constraints: list[Constraint] = field(default_factory=list)  # rows whose duals are reported
 
 
 @dataclass
@@ -200,6 +223,12 @@ class LPResult:
     regen_area_ha: NDArray = field(default_factory=lambda: np.zeros((0, 0, 0)))
     codes: tuple[str, ...] = ()
     level_m3: float | None = None  # the level M [m3 per period] (max-even-flow, max-level)
+    units: tuple[str, ...] = ()  # the management units' names
+    unit_harvest_m3: NDArray = field(default_factory=lambda: np.zeros((0, 0)))  # (units, P)
+    unit_level_m3: NDArray = field(default_factory=lambda: np.zeros(0))  # each unit's level
+    # per reported row: kind, name, unit, period, rhs_unit, activity, lower, upper and dual
+    # (the objective's change per unit of the right-hand side; :func:`constraint_table`)
+    constraints: pd.DataFrame = field(default_factory=lambda: pd.DataFrame())
 
     def regeneration(self) -> pd.DataFrame:
         """The LP's regeneration as a table: ``period``, ``from_species``, ``to_species``,
@@ -249,14 +278,23 @@ def build_lp(
     cover: CoverRules | None = None,
     stand_zone: NDArray | None = None,
     disturbance: float = 0.0,
+    units: Sequence[UnitFlow] | None = None,
+    partitions: Sequence[Partition] = (),
 ) -> LPModel:
     """The Model II LP of the module docstring as a matrix model.
 
     Columns: :func:`lp_columns` (x and y), then H_1..H_P, then the choice columns z
-    (:func:`choice_columns`). Rows, in this order: the stratum areas, the regeneration
-    balances (G x P) and the choices' split rows (choices x P), the harvest definitions (P),
-    the flow rows of the policy (:data:`FLOW_ROWS`), the ending stock, the cover rows (rule x
-    period), the area cap (P).
+    (:func:`choice_columns`), then per unit its level M_u, its clearcut volumes C_(u,p) (the
+    bound) and, with more than one unit, its harvests H_(u,p); then the partitions' volumes
+    V_(k,p). Rows, in this order: the stratum areas, the regeneration balances (G x P) and the
+    choices' split rows (choices x P), the harvest definitions (P), per unit its harvest and
+    clearcut definitions and the flow rows of its policy (:data:`FLOW_ROWS`), the ending
+    stock (per unit), the partitions, the cover rows (rule x period), the area cap (P).
+
+    ``units`` (:mod:`yieldscape.schedule.lp_units`): one flow per unit of ``strata.cells``, in
+    unit order (default: one unit with ``policy``, ``band`` and ``ending_stock``); the level
+    objectives then maximise the sum of the units' levels. ``partitions``: the limits on the
+    harvest of each partition of ``strata.cells``.
     """
     P = periods.count
     cols = lp_columns(strata, curves, periods)
@@ -264,37 +302,34 @@ def build_lp(
     choices = choice_columns(strata, P)
     h_col = cols.n + np.arange(P)  # H_p variables
     z_col = cols.n + P + np.arange(choices.n)  # choice variables
-    bound = objective == "max-level"
-    # the level M every period holds (max-even-flow and the bound), then the bound's
-    # clearcut volumes C_p, after the choices
-    level_col = cols.n + P + choices.n if objective in LEVEL_OBJECTIVES else -1
-    c_col = level_col + 1 + np.arange(P) if bound else np.zeros(0, dtype=np.int64)
+    units = list(units) if units else [UnitFlow("", policy, band, ending_stock)]
+    alloc = _Columns(cols.n + P + choices.n)
     regrow = _cuts_regrow(strata, cols, surv)
     m = MatrixBuilder()
     _area_rows(m, strata, cols)
     balance0 = _regeneration_rows(m, strata, cols, regrow, choices, z_col, P)
     _disturbed_regrowth(m, strata, cols, surv, balance0, P)
-    _harvest_rows(m, cols, surv, h_col)
-    if bound:
-        if policy not in BOUND_ROWS:
-            raise ValueError(f"no bound rows for flow policy {policy!r}")
-        _clearcut_rows(m, cols, surv, c_col)
-        flow_rows = BOUND_ROWS[policy](m, h_col, c_col, level_col, band)
-    else:
-        # a name without an entry takes the even rows, as before (the pipeline itself passes
-        # the rule-based "stepdown" and "targets" as "even")
-        flow_rows = FLOW_ROWS.get(policy, even_flow_rows)(m, h_col, band)
-        if level_col >= 0:  # every period at least the level
-            flow_rows += [_pair(m, h, level_col, -1.0, 0.0, INF) for h in h_col]
-    ending_row = _ending_stock_row(m, stands, curves, periods, cols, surv, ending_stock)
+    cuts, thins = _cut_entries(cols, surv), _thin_entries(cols, surv)
+    _volume_rows(m, (cuts, thins), h_col)
+    cells = strata.cells or Cells.single(stands.n, len(curves.codes))
+    col_cell = cols.per_column(strata.cell, strata.group_cell)
+    flows = _unit_flows(m, alloc, units, objective, h_col, cuts, thins, cells.unit[col_cell])
+    constraints = [
+        _ending_stock_row(m, stands, curves, periods, cols, surv, u.ending_stock, mask, u.name)
+        for u, mask in _unit_masks(units, cells, col_cell, stands)
+    ]
+    if partitions:
+        code = cols.per_column(strata.species_idx, strata.group_species)
+        in_part = cells.member[col_cell, code]  # (columns, partitions)
+        constraints += _partition_rows(m, alloc, partitions, in_part, cuts, thins, h_col)
     if cover is not None:
-        _cover_rows(m, stands, strata, periods, cols, surv, cover, stand_zone)
+        constraints += _cover_rows(m, stands, strata, periods, cols, surv, cover, stand_zone)
     if max_area_ha is not None:
-        _area_cap_rows(m, cols, surv, max_area_ha, P)
+        constraints += _area_cap_rows(m, cols, surv, max_area_ha, P)
     cost = _lp_costs(objective, cols, strata, periods, economics, h_col, choices, surv)
-    if level_col >= 0:
-        cost = np.r_[cost, np.zeros(1 + len(c_col))]
-        cost[level_col] = -1.0
+    cost = np.r_[cost, np.zeros(alloc.n - len(cost))]
+    if flows.levels:
+        cost[flows.levels] = -1.0
         # tie-break: of the schedules at the highest level, the one with the most volume (a
         # weight far too small to trade any level for volume)
         cost[h_col] = -TIE_BREAK
@@ -309,8 +344,8 @@ def build_lp(
         row_lo,
         row_hi,
         h_col,
-        ending_row,
-        flow_rows,
+        constraints[0].row,
+        flows.rows,
         *_first_cuts(cols, len(cost) - cols.n),
         strata.n,
         periods=P,
@@ -318,8 +353,136 @@ def build_lp(
         codes=tuple(curves.codes),
         regeneration=regen,
         regimes=strata.regimes is not None and (strata.regimes.changes or strata.regimes.thins),
-        level_col=level_col,
+        level_col=flows.levels[0] if len(flows.levels) == 1 else -1,
+        level_cols=flows.levels,
+        unit_h_cols=flows.harvest,
+        units=tuple(u.name for u in units),
+        constraints=constraints,
     )
+
+
+class _Columns:
+    """Hands out the LP's columns after the first ``n``, in the order asked for."""
+
+    def __init__(self, n: int) -> None:
+        self.n = n
+
+    def take(self, count: int) -> NDArray:
+        out = self.n + np.arange(count)
+        self.n += count
+        return out
+
+
+@dataclass(frozen=True)
+class Constraint:
+    """A row whose dual the LP reports: its kind (``ending_stock``, ``partition``, ``cover``,
+    ``area_cap``), name, unit, period (0: none), row, and the unit of its right-hand side. A
+    share row (``rhs_unit`` "share") is V - s H_p >= 0 (<= 0) on the columns ``scale_col``
+    (H_p) and ``value_col`` (the partition's volume V): its dual is reported per unit of
+    share, the row's dual times H_p."""
+
+    kind: str
+    name: str
+    unit: str
+    period: int
+    row: int
+    rhs_unit: str
+    scale_col: int = -1
+    value_col: int = -1
+
+
+@dataclass(frozen=True)
+class _Flows:
+    rows: list[int]  # every unit's flow rows
+    levels: list[int]  # each unit's level column (level objectives; else empty)
+    harvest: list[NDArray]  # each unit's H_(u,p) columns (one unit: the H_p)
+
+
+def _unit_masks(
+    units: list[UnitFlow], cells: Cells, col_cell: NDArray, stands: StandArrays
+) -> list[tuple[UnitFlow, tuple[NDArray, NDArray] | None]]:
+    """Per unit, the masks of its stands and its columns (None: one unit, every one)."""
+    if len(units) == 1:
+        return [(units[0], None)]
+    stand_unit = cells.unit[cells.of_stand]
+    return [(u, (stand_unit == k, cells.unit[col_cell] == k)) for k, u in enumerate(units)]
+
+
+def _unit_flows(
+    m: MatrixBuilder,
+    alloc: _Columns,
+    units: list[UnitFlow],
+    objective: str,
+    h_col: NDArray,
+    cuts: tuple[NDArray, NDArray, NDArray],
+    thins: tuple[NDArray, NDArray, NDArray],
+    col_unit: NDArray,
+) -> _Flows:
+    """Per unit: its level column (level objectives), with the bound its clearcut volumes
+    C_(u,p) and their rows, with several units its harvests H_(u,p) and their rows, then the
+    flow rows of its policy (:data:`BOUND_ROWS` for the bound, :data:`FLOW_ROWS` otherwise)."""
+    P, bound = len(h_col), objective == "max-level"
+    rows, levels, harvest = [], [], []
+    for k, u in enumerate(units):
+        level = int(alloc.take(1)[0]) if objective in LEVEL_OBJECTIVES else -1
+        c_col = alloc.take(P) if bound else np.zeros(0, dtype=np.int64)
+        mine = None if len(units) == 1 else col_unit
+        uh = h_col
+        if mine is not None:  # the unit's harvest H_(u,p)
+            uh = alloc.take(P)
+            _volume_rows(m, (_of(cuts, mine, k), _of(thins, mine, k)), uh)
+        if bound:
+            if u.policy not in BOUND_ROWS:
+                raise ValueError(f"no bound rows for flow policy {u.policy!r}")
+            _volume_rows(m, (cuts if mine is None else _of(cuts, mine, k),), c_col)
+            rows += BOUND_ROWS[u.policy](m, uh, c_col, level, u.band)
+        else:
+            # a name without an entry takes the even rows, as before (the pipeline itself
+            # passes the rule-based "stepdown" and "targets" as "even")
+            rows += FLOW_ROWS.get(u.policy, even_flow_rows)(m, uh, u.band)
+            if level >= 0:  # every period at least the level
+                rows += [_pair(m, h, level, -1.0, 0.0, INF) for h in uh]
+        levels += [level] if level >= 0 else []
+        harvest.append(uh)
+    return _Flows(rows, levels, harvest)
+
+
+def _of(entries: tuple[NDArray, NDArray, NDArray], col_unit: NDArray, k: int) -> tuple:
+    """The (period, column, value) entries of unit k's columns."""
+    keep = col_unit[entries[1]] == k
+    return tuple(e[keep] for e in entries)
+
+
+def _partition_rows(
+    m: MatrixBuilder,
+    alloc: _Columns,
+    partitions: Sequence[Partition],
+    in_part: NDArray,
+    cuts: tuple[NDArray, NDArray, NDArray],
+    thins: tuple[NDArray, NDArray, NDArray],
+    h_col: NDArray,
+) -> list[Constraint]:
+    """Per partition k, its volume V_(k,p) in each period (the harvest entries of its columns)
+    and its limits: V - s H_p >= 0 (minimum share s), <= 0 (maximum share), V >= (<=) an
+    amount."""
+    out = []
+    for k, part in enumerate(partitions):
+        v_col = alloc.take(len(h_col))
+        entries = [tuple(e[in_part[cuts[1], k]] for e in cuts)]
+        entries.append(tuple(e[in_part[thins[1], k]] for e in thins))
+        _volume_rows(m, entries, v_col)
+        for key, value in part.limits():
+            low = key.startswith("min")
+            name = f"{part.name}.{key}"
+            for p, (v, h) in enumerate(zip(v_col, h_col, strict=True), start=1):
+                if key.endswith("share"):  # V - s H_p >= 0 (<= 0)
+                    row = _pair(m, v, h, -value, *((0.0, INF) if low else (-INF, 0.0)))
+                    out.append(Constraint("partition", name, "", p, row, "share", h, v))
+                else:
+                    bounds = (value, INF) if low else (-INF, value)
+                    row = m.add_row(np.array([v]), np.ones(1), *bounds)
+                    out.append(Constraint("partition", name, "", p, row, "m3", -1, v))
+    return out
 
 
 def _first_cuts(cols: Columns, rest: int) -> tuple[NDArray, NDArray]:
@@ -695,27 +858,31 @@ def _disturbed_regrowth(
         m.put(first + group[exposed] * P + (k - 1), col[exposed], -share)
 
 
-def _harvest_rows(m: MatrixBuilder, cols: Columns, surv: _Survival, h_col: NDArray) -> None:
-    """H_p is the volume of every cut in period p and of the thinnings taken in it on the
-    columns standing uncut: sum v keep x + sum v keep y + sum r keep c - H_p = 0."""
-    first = m.add_rows(len(h_col), 0.0, 0.0)
+def _cut_entries(cols: Columns, surv: _Survival) -> tuple[NDArray, NDArray, NDArray]:
+    """The volume of every cut as (period, column, m3 per ha of the column): v keep."""
     cut_p = cols.cut_period
     cut = np.flatnonzero((cut_p > 0) & (cols.volume_m3_ha > 0))
-    m.put(first + cut_p[cut] - 1, cut, cols.volume_m3_ha[cut] * surv.cut[cut])
-    if len(cols.thin_col):
-        keep = surv.keep ** np.maximum(cols.thin_period - surv.start[cols.thin_col] - 1, 0)
-        m.put(first + cols.thin_period - 1, cols.thin_col, cols.thin_m3_ha * keep)
-    m.put(first + np.arange(len(h_col)), h_col, -1.0)
+    return cut_p[cut], cut, cols.volume_m3_ha[cut] * surv.cut[cut]
 
 
-def _clearcut_rows(m: MatrixBuilder, cols: Columns, surv: _Survival, c_col: NDArray) -> None:
-    """C_p is the volume of every cut in period p (the harvest rows without the thinnings
-    taken on the area standing uncut): sum v keep x + sum v keep y - C_p = 0."""
-    first = m.add_rows(len(c_col), 0.0, 0.0)
-    cut_p = cols.cut_period
-    cut = np.flatnonzero((cut_p > 0) & (cols.volume_m3_ha > 0))
-    m.put(first + cut_p[cut] - 1, cut, cols.volume_m3_ha[cut] * surv.cut[cut])
-    m.put(first + np.arange(len(c_col)), c_col, -1.0)
+def _thin_entries(cols: Columns, surv: _Survival) -> tuple[NDArray, NDArray, NDArray]:
+    """The thinnings taken on the columns standing uncut as (period, column, m3 per ha of the
+    column): r keep."""
+    if not len(cols.thin_col):
+        empty = np.zeros(0, dtype=np.int64)
+        return empty, empty, np.zeros(0)
+    keep = surv.keep ** np.maximum(cols.thin_period - surv.start[cols.thin_col] - 1, 0)
+    return cols.thin_period, cols.thin_col, cols.thin_m3_ha * keep
+
+
+def _volume_rows(m: MatrixBuilder, entries: Sequence[tuple], v_col: NDArray) -> None:
+    """Per period p, the volume column v_col[p - 1] is the sum of the entries of p: sum e x -
+    V_p = 0. The harvest H_p takes the cuts and thinnings (:func:`_cut_entries`,
+    :func:`_thin_entries`), the clearcut volume C_p the cuts alone."""
+    first = m.add_rows(len(v_col), 0.0, 0.0)
+    for period, col, value in entries:
+        m.put(first + period - 1, col, value)
+    m.put(first + np.arange(len(v_col)), v_col, -1.0)
 
 
 def even_flow_rows(m: MatrixBuilder, h_col: NDArray, band: float) -> list[int]:
@@ -814,16 +981,18 @@ def _ending_stock_row(
     cols: Columns,
     surv: _Survival,
     ending_stock: float,
-) -> int:
+    masks: tuple[NDArray, NDArray] | None = None,
+    unit: str = "",
+) -> Constraint:
     """The growing stock at the horizon's end, on the never-cut columns still standing plus the
     area outside the harvestable land base (:func:`reserved_stock`), is at least
-    ``ending_stock`` x the initial stock of all stands."""
-    reserved_end = reserved_stock(stands, curves, periods, surv.dist)
+    ``ending_stock`` x the initial stock of all stands; with ``masks`` (stands, columns) of
+    those of one unit."""
+    weight = None if masks is None else masks[0].astype(np.float64)
+    reserved_end = reserved_stock(stands, curves, periods, surv.dist, weight)
+    area = stands.area_ha if weight is None else stands.area_ha * weight
     initial = float(
-        np.dot(
-            curves.volume_m3_ha(stands.species_idx, stands.age_years, stands.site_index),
-            stands.area_ha,
-        )
+        np.dot(curves.volume_m3_ha(stands.species_idx, stands.age_years, stands.site_index), area)
     )
     reg = stands.regimes
     if reg is not None and reg.thins:  # the harvestable area has had its thinnings so far
@@ -832,14 +1001,17 @@ def _ending_stock_row(
         hlb = stands.area_ha
         if stands.harvestable_ha is not None:
             hlb = np.minimum(stands.harvestable_ha, stands.area_ha)
+        hlb = hlb if weight is None else hlb * weight
         initial -= float(np.dot(reg.removed(sp, amounts, stands.age_years), hlb))
-    end = np.flatnonzero(cols.end_volume_m3_ha > 0)
-    return m.add_row(
+    on = cols.end_volume_m3_ha > 0
+    end = np.flatnonzero(on if masks is None else on & masks[1])
+    row = m.add_row(
         end,
         cols.end_volume_m3_ha[end] * surv.end[end],
         ending_stock * initial - reserved_end,
         INF,
     )
+    return Constraint("ending_stock", "flow.ending_stock", unit, 0, row, "m3")
 
 
 def _cover_rows(
@@ -851,7 +1023,7 @@ def _cover_rows(
     surv: _Survival,
     cover: CoverRules,
     stand_zone: NDArray | None,
-) -> None:
+) -> list[Constraint]:
     """Per cover rule and period, the old (or young) area of the rule's zone standing at the
     period's harvest moment after its cut: the columns not cut yet whose age the rule counts,
     plus the area outside the harvestable land base (:func:`reserved_cover`), at least (old)
@@ -864,6 +1036,7 @@ def _cover_rows(
     reserved = stands.area_ha - harvestable
     sz = stand_zone if stand_zone is not None else np.zeros(stands.n, dtype=np.int64)
     xs, ys, b_, c_ = cols.is_x, cols.is_y, cols.first, cols.again
+    out = []
     for rule in cover.rules:  # a handful of rules x periods
         inz = np.ones(cols.n, bool) if rule.zone < 0 else zone == rule.zone
         rz = np.ones(stands.n, bool) if rule.zone < 0 else sz == rule.zone
@@ -887,17 +1060,23 @@ def _cover_rows(
             )
             bound = rule.share * cover.area_of(rule) - fixed
             lo, hi = (bound, INF) if rule.kind == "old" else (-INF, bound)
-            m.add_row(hit, surv.at(p)[hit], lo, hi)
+            row = m.add_row(hit, surv.at(p)[hit], lo, hi)
+            name = f"{rule.zone_name}: {rule.label}"
+            out.append(Constraint("cover", name, "", p, row, "ha"))
+    return out
 
 
 def _area_cap_rows(
     m: MatrixBuilder, cols: Columns, surv: _Survival, max_area_ha: float, P: int
-) -> None:
+) -> list[Constraint]:
     """The area cut in each period, as it stands at the cut, is at most ``max_area_ha``."""
     cut_p = cols.cut_period
+    out = []
     for p in range(1, P + 1):
         cut = np.flatnonzero(cut_p == p)
-        m.add_row(cut, surv.cut[cut], -INF, max_area_ha)
+        row = m.add_row(cut, surv.cut[cut], -INF, max_area_ha)
+        out.append(Constraint("area_cap", "harvest.max_area_ha_per_period", "", p, row, "ha"))
+    return out
 
 
 def _lp_costs(
@@ -1047,9 +1226,12 @@ def solve_highs(model: LPModel, t0: float | None = None, solver: str | None = No
     if model.flow_rows:
         duals["flow_rows_m3_per_m3"] = float(-dual[model.flow_rows].sum())
     level = float(x[model.level_col]) if model.level_col >= 0 else None
+    objective = float(-h.getInfo().objective_function_value)
+    if model.level_cols:  # the units' levels, without the tie-break
+        objective = float(x[model.level_cols].sum())
     return LPResult(
         status,
-        level if level is not None else float(-h.getInfo().objective_function_value),
+        objective,
         x[model.h_col],
         time.perf_counter() - t0,
         ncol,
@@ -1060,6 +1242,44 @@ def solve_highs(model: LPModel, t0: float | None = None, solver: str | None = No
         np.reshape(regen, (P, C, C)),
         model.codes,
         level,
+        model.units,
+        np.array([x[c] for c in model.unit_h_cols]).reshape(len(model.unit_h_cols), P),
+        x[model.level_cols] if model.level_cols else np.zeros(0),
+        constraint_table(model, x, dual, np.asarray(sol.row_value)),
+    )
+
+
+def constraint_table(model: LPModel, x: NDArray, dual: NDArray, activity: NDArray) -> pd.DataFrame:
+    """The reported rows (:class:`Constraint`) with their activity, bounds and dual: the
+    objective's change per unit of the right-hand side (m3 per period of level, or of harvest,
+    per m3, ha or share); a share row's activity is the partition's share of the harvest."""
+    rows = model.constraints
+    r = np.array([c.row for c in rows], dtype=np.int64)
+    value = activity[r].copy()
+    d = -dual[r]  # HiGHS reports a minimisation's duals; the objective is maximised
+    lo, hi = model.row_lo[r].copy(), model.row_hi[r].copy()
+    share = np.array([c.scale_col >= 0 for c in rows], dtype=bool)
+    if share.any():
+        h = np.array([x[c.scale_col] for c in rows if c.scale_col >= 0])
+        v = np.array([x[c.value_col] for c in rows if c.scale_col >= 0])
+        d[share] *= h  # moving s by ds moves the row's right-hand side by ds H_p
+        value[share] = np.divide(v, h, out=np.zeros_like(v), where=h > 0)
+        # the share itself, from the row V - s H_p
+        s_ = np.array([-model.matrix[c.row, c.scale_col] for c in rows if c.scale_col >= 0])
+        lo[share] = np.where(np.isfinite(lo[share]), s_, -np.inf)
+        hi[share] = np.where(np.isfinite(hi[share]), s_, np.inf)
+    return pd.DataFrame(
+        {
+            "kind": [c.kind for c in rows],
+            "name": [c.name for c in rows],
+            "unit": [c.unit for c in rows],
+            "period": np.array([c.period for c in rows], dtype=np.int64),
+            "rhs_unit": [c.rhs_unit for c in rows],
+            "activity": value,
+            "lower": np.where(np.isfinite(lo), lo, np.nan),
+            "upper": np.where(np.isfinite(hi), hi, np.nan),
+            "dual": d,
+        }
     )
 
 
@@ -1087,12 +1307,18 @@ def reserved_cover(
 
 
 def reserved_stock(
-    stands: StandArrays, curves: CurveSet, periods: Periods, dist: float = 0.0
+    stands: StandArrays,
+    curves: CurveSet,
+    periods: Periods,
+    dist: float = 0.0,
+    weight: NDArray | None = None,
 ) -> float:
-    """Volume at the horizon's end on the area outside the harvestable land base."""
+    """Volume at the horizon's end on the area outside the harvestable land base (of the
+    stands with ``weight`` 1, where given)."""
     if stands.harvestable_ha is None:
         return 0.0
     area = stands.area_ha - stands.harvestable_ha
+    area = area if weight is None else area * weight
     P, L = periods.count, periods.period_years
     age = stands.age_years + P * L
     keep = 1.0 - dist

@@ -19,7 +19,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import NDArray
 
-from yieldscape.policies import PRIORITIES, TargetRule, cut_order
+from yieldscape.policies import PRIORITIES, PerUnit, TargetRule, cut_order
 from yieldscape.projection import (
     CurveSet,
     Periods,
@@ -28,7 +28,8 @@ from yieldscape.projection import (
     area_sum,
 )
 from yieldscape.regimes import Regimes
-from yieldscape.schedule.cover import CoverRules
+from yieldscape.schedule.cover import CoverRules, PeriodBudgets
+from yieldscape.schedule.partitions import PartitionRules, within_maximum
 from yieldscape.schedule.picker import compiled_pick
 from yieldscape.schedule.spatial import SpatialRules
 
@@ -70,6 +71,10 @@ class HarvestRules:
     disturbance: float = 0.0
     snapshots: tuple[int, ...] = ()
     plan: Plan | None = field(default=None, compare=False)
+    # the management unit of each stand (codes 0 .. U-1; None: one flow for the region),
+    # whose flows a :class:`~yieldscape.policies.PerUnit` target rule sets
+    units: NDArray | None = field(default=None, compare=False)
+    partitions: PartitionRules | None = field(default=None, compare=False)
 
 
 NO_RULES = HarvestRules()  # oldest first, no cap, no spatial or cover rules, no disturbance
@@ -118,6 +123,24 @@ class Simulation:
     regen_from: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
     regen_to: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
     regen_area_ha: NDArray = field(default_factory=lambda: np.zeros(0))
+    # management units (HarvestRules.units): per period and unit the harvest, target and
+    # floor [m3]; per unit the first period whose floor it missed (0: none) or the reason it
+    # failed at the end, and its initial and ending growing stock [m3]
+    unit_harvest_m3: NDArray = field(default_factory=lambda: np.zeros((0, 0)))
+    unit_target_m3: NDArray = field(default_factory=lambda: np.zeros((0, 0)))
+    unit_floor_m3: NDArray = field(default_factory=lambda: np.zeros((0, 0)))
+    unit_fail_period: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    unit_fail_reason: list[str] = field(default_factory=list)
+    unit_initial_stock_m3: NDArray = field(default_factory=lambda: np.zeros(0))
+    unit_ending_stock_m3: NDArray = field(default_factory=lambda: np.zeros(0))
+    # harvest partitions (HarvestRules.partitions): per period and partition the volume [m3]
+    # (record=True only)
+    partition_m3: NDArray = field(default_factory=lambda: np.zeros((0, 0)))
+
+    @property
+    def unit_feasible(self) -> NDArray[np.bool_]:
+        """Per management unit, whether its flow held (every floor and its ending stock)."""
+        return np.array([not r for r in self.unit_fail_reason], dtype=bool)
 
 
 @dataclass(frozen=True)
@@ -356,6 +379,10 @@ class _Parts:
             v -= taken[idx]
         return total, area_sum(v, self.area[idx])
 
+    def unit_stocks(self, curves: CurveSet, reg: Regimes | None) -> NDArray:
+        """Growing stock [m3] of each part (management units sum it by unit)."""
+        return self.volume(curves, np.arange(len(self.age)), self.age, reg) * self.area
+
     def snapshot(self) -> PartsSnapshot:
         return PartsSnapshot(
             self.stand.copy(),
@@ -384,13 +411,14 @@ class Start:
 
 @dataclass
 class _Cut:
-    """One period's cut: parts clearcut whole, the part clearcut partly (-1: none) and its
-    share, the totals (``volume_m3`` is clearcuts plus thinnings), the rules that refused
-    candidates, whether every eligible part was taken, and the events when recorded."""
+    """One period's cut: parts clearcut whole, the parts clearcut partly (at most one per
+    pick) and their shares, the totals (``volume_m3`` is clearcuts plus thinnings), the rules
+    that refused candidates, whether every eligible part was taken, and the events when
+    recorded."""
 
     full: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.intp))
-    part: int = -1
-    frac: float = 0.0
+    part: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.intp))
+    frac: NDArray = field(default_factory=lambda: np.zeros(0))
     volume_m3: float = 0.0
     thinning_m3: float = 0.0
     thinning_ha: float = 0.0
@@ -399,6 +427,14 @@ class _Cut:
     blocked: str = ""
     all_taken: bool = True
     tested: int = 0  # candidates a rule-based pick went through (cut or refused)
+    # management units: each unit's harvest [m3] and why its pick stopped; the cover budgets
+    # a pick left (for the next unit's); the thinning volume of each thinned part [m3]
+    unit_m3: NDArray | None = None
+    unit_reasons: list[str] = field(default_factory=list)
+    cover_left: NDArray | None = None
+    partition_m3: NDArray | None = None  # the period's volume of each partition
+    partition_broken: str = ""  # the first partition limit the period broke
+    thin_m3_by_part: NDArray = field(default_factory=lambda: np.zeros(0))
     # stand, age, area, volume, code and treatment (0 clearcut, 1 thinning) of each event
     events: tuple[NDArray, ...] | None = None
     # the parts checked for thinnings due and their removals [m3/ha] (0 where none is due)
@@ -510,19 +546,22 @@ def _cut_period(
     spatial: SpatialRules | None,
     t: float,
     age_h: NDArray,
-    target: float,
-    planned_first: NDArray | None,
+    target: float | NDArray,
+    order: tuple[NDArray | None, NDArray | None, EndingCost | None],
     record: bool,
     queue_size: int,
-    ending: EndingCost | None = None,
 ) -> _Cut:
     """Rank the eligible parts (age at the harvest moment ``age_h``) and clearcut up to the
     target and the area cap, the last part partly; rules of the sequential pick skip parts
     that would break them. Thinnings due this period are taken on the parts not clearcut
     and count toward the target: a clearcut takes its part's standing volume, thinnings
     pending included, so it adds its volume less those thinnings to the period's total.
-    The pick ranks only about ``queue_size`` parts first (see :func:`_queue`); ``ending``
-    orders each of the plan's ranks instead of the priority rule."""
+    The pick ranks only about ``queue_size`` parts first (see :func:`_queue`). ``order``:
+    the plan's rank of each stand (None: no plan), the management unit of each part (None:
+    one flow; with units ``target`` holds one target per unit, and each unit's parts are
+    picked in turn toward its own target, :func:`_pick_units`), and the ending-stock order
+    that ranks each of the plan's ranks instead of the priority rule (None: the rule)."""
+    planned_first, unit_of_part, ending = order
     cut = _Cut()
     live, due_ha, due_age, upto, nxt = _thinnings_due(parts, age_h, reg)
     cut.checked = live, due_ha, upto, nxt
@@ -530,20 +569,98 @@ def _cut_period(
     thin, thin_ha, thin_age = live[hit], due_ha[hit], due_age[hit]
     pending = np.zeros(len(parts.age))
     pending[thin] = thin_ha
-    thin_total = area_sum(thin_ha, parts.area[thin])
     elig = np.flatnonzero((age_h >= parts.min_age - 1e-9) & (parts.area > 0))
+    cap = np.inf if rules.max_area_ha is None else float(rules.max_area_ha)
+    pick = (
+        parts,
+        curves,
+        reg,
+        rules,
+        spatial,
+        t,
+        age_h,
+        planned_first,
+        pending,
+        queue_size,
+        ending,
+    )
+    if unit_of_part is None and rules.partitions is not None:  # one unit
+        unit_of_part, target = np.zeros(len(parts.age), dtype=np.int64), np.array([target])
+    if unit_of_part is None:
+        goal = float(target) - area_sum(thin_ha, parts.area[thin])
+        picked = _pick_queue(cut, *pick, elig, goal, cap, None)
+    else:
+        targets = np.asarray(target, dtype=np.float64)
+        thin_u = np.bincount(unit_of_part[thin], thin_ha * parts.area[thin], len(targets))
+        thinned = (thin, thin_ha * parts.area[thin])
+        picked = _pick_units(cut, pick, elig, targets, targets - thin_u, cap, unit_of_part, thinned)
+    cand, v_cand, full_pos, part_pos = picked
+    _tally(cut, parts, age_h, cand, v_cand, full_pos, part_pos)
+    _take_thinnings(cut, parts, thin, thin_ha)
+    if unit_of_part is not None:
+        cut.unit_m3 = _unit_volumes(cut, parts, unit_of_part, v_cand, full_pos, part_pos, thin)
+    if rules.partitions is not None:
+        _partition_volumes(cut, parts, rules.partitions, v_cand, full_pos, part_pos, thin)
+    if record:
+        cut.events = _events(
+            cut, parts, age_h, cand, v_cand, full_pos, part_pos, thin, thin_ha, thin_age
+        )
+    return cut
+
+
+def _pick_queue(
+    cut: _Cut,
+    parts: _Parts,
+    curves: CurveSet,
+    reg: Regimes | None,
+    rules: HarvestRules,
+    spatial: SpatialRules | None,
+    t: float,
+    age_h: NDArray,
+    planned_first: NDArray | None,
+    pending: NDArray,
+    queue_size: int,
+    ending: EndingCost | None,
+    elig: NDArray,
+    goal: float,
+    cap: float,
+    budget: NDArray | None,
+    limit: tuple[NDArray, NDArray] | None = None,
+) -> tuple[NDArray, NDArray, NDArray, NDArray]:
+    """The pick among the eligible parts ``elig`` toward ``goal`` (clearcut volume) within the
+    area ``cap``, ranking more of the queue until the pick is decided within it; with
+    ``budget``, the cover budgets left by an earlier pick of the period; with ``limit`` (each
+    part's partitions and each partition's room left [m3]), without the candidates a
+    partition's maximum leaves out (:func:`~yieldscape.schedule.partitions.within_maximum`).
+    Returns the ranked candidates, their volumes [m3/ha] and the positions cut whole and
+    partly."""
     cand, v_cand = elig[:0], np.zeros(0)
     full_pos = part_pos = np.zeros(0, dtype=np.intp)
-    if target > thin_total and len(elig):
+    if goal > 0 and len(elig):
         first = None if planned_first is None else planned_first[parts.stand[elig]]
-        goal = target - thin_total
         while True:  # rank more of the queue until the pick is decided within it
             cand, v_cand, whole = _queue(
                 parts, curves, reg, rules.priority, age_h, elig, first, queue_size, ending
             )
+            if limit is not None:
+                net = (v_cand - pending[cand]) * parts.area[cand]
+                keep = within_maximum(net, limit[0][cand], limit[1])
+                cand, v_cand = cand[keep], v_cand[keep]
             if len(cand):
                 full_pos, part_pos, decided = _pick(
-                    cut, parts, rules, spatial, t, age_h, cand, v_cand, pending, goal, whole
+                    cut,
+                    parts,
+                    rules,
+                    spatial,
+                    t,
+                    age_h,
+                    cand,
+                    v_cand,
+                    pending,
+                    goal,
+                    whole,
+                    cap,
+                    budget,
                 )
                 if whole or decided:
                     break
@@ -552,13 +669,120 @@ def _cut_period(
             queue_size *= 4
     else:
         cut.all_taken = not (parts.volume(curves, elig, age_h[elig], reg) > 0).any()
-    _tally(cut, parts, age_h, cand, v_cand, full_pos, part_pos)
-    _take_thinnings(cut, parts, thin, thin_ha)
-    if record:
-        cut.events = _events(
-            cut, parts, age_h, cand, v_cand, full_pos, part_pos, thin, thin_ha, thin_age
-        )
-    return cut
+    return cand, v_cand, full_pos, part_pos
+
+
+def _pick_units(
+    cut: _Cut,
+    pick: tuple,
+    elig: NDArray,
+    targets: NDArray,
+    goals: NDArray,
+    cap: float,
+    unit_of_part: NDArray,
+    thinned: tuple[NDArray, NDArray],
+) -> tuple[NDArray, NDArray, NDArray, NDArray]:
+    """Each management unit's pick in turn (in unit order), toward its own goal, sharing the
+    period's area cap, cover budgets and spatial state (a unit's cuts constrain the next
+    unit's as they constrain its own later candidates). With partitions
+    (:mod:`yieldscape.schedule.partitions`) each minimum is first cut from that partition's
+    candidates, unit after unit (each within its own target) while some is still needed,
+    and every pick leaves out what a maximum would not allow. A part cut (wholly or partly)
+    by one pick is not a candidate of the next. The picks merged as one: the candidates one
+    pick after the other, positions into them."""
+    parts, rules, pending = pick[0], pick[3], pick[8]
+    area = parts.area
+    total = float(targets.sum())
+    mem = need = room = None
+    if rules.partitions is not None:
+        mem = rules.partitions.of_parts(parts.stand, parts.sp)
+        thin_k = thinned[1] @ mem[thinned[0]] if len(thinned[0]) else np.zeros(mem.shape[1])
+        need = rules.partitions.minimum(total) - thin_k
+        room = rules.partitions.maximum(total) - thin_k
+    taken = np.zeros(len(area), dtype=bool)
+    left = np.asarray(goals, dtype=np.float64).copy()
+    pieces, reasons, cover_left, offset = [], [""] * len(goals), None, 0
+    # first each minimum, from its partition's candidates, unit after unit while some is
+    # still needed; then every unit toward the rest of its target
+    U = len(goals)
+    steps = (
+        [] if need is None else [(int(k), u) for k in np.flatnonzero(need > 0) for u in range(U)]
+    )
+    for k, u in [*steps, *((-1, u) for u in range(U))]:
+        want = left[u] if k < 0 else min(float(need[k]), left[u])
+        mine = elig[(unit_of_part[elig] == u) & ~taken[elig]]
+        if k >= 0:
+            if want <= 0:
+                continue
+            mine = mine[mem[mine, k]]
+        sub = _Cut()
+        limit = None if room is None else (mem, room)
+        cand, v, full, part = _pick_queue(sub, *pick, mine, want, cap, cover_left, limit)
+        net = (v - pending[cand]) * area[cand]
+        got = np.r_[net[full], sub.frac * net[part]]
+        at = np.r_[cand[full], cand[part]].astype(np.intp)
+        left[u] -= float(got.sum())
+        if mem is not None:
+            room = room - got @ mem[at]
+            need = need - got @ mem[at]
+        cap -= area[sub.full].sum() + (sub.frac * area[sub.part]).sum()
+        cover_left = sub.cover_left if sub.cover_left is not None else cover_left
+        taken[at] = True
+        pieces.append((sub, cand, v, full + offset, part + offset))
+        offset += len(cand)
+        if k < 0:
+            reasons[u] = _fail_reason(sub)  # the unit's pick toward its whole target
+    subs = [p[0] for p in pieces]
+    cut.full = np.concatenate([c.full for c in subs]).astype(np.intp)
+    cut.part = np.concatenate([c.part for c in subs]).astype(np.intp)
+    cut.frac = np.concatenate([c.frac for c in subs])
+    cut.tested = sum(c.tested for c in subs)
+    cut.blocked = " and ".join(dict.fromkeys(c.blocked for c in subs if c.blocked))
+    cut.all_taken = all(c.all_taken for c in subs)
+    cut.unit_reasons = reasons
+    return tuple(  # type: ignore[return-value]
+        np.concatenate([p[k] for p in pieces]) for k in range(1, 5)
+    )
+
+
+def _partition_volumes(
+    cut: _Cut,
+    parts: _Parts,
+    partitions: PartitionRules,
+    v_cand: NDArray,
+    full_pos: NDArray,
+    part_pos: NDArray,
+    thin: NDArray,
+) -> None:
+    """The period's volume of each partition (its clearcuts and the thinnings taken on its
+    parts) and the first limit it breaks."""
+    mem = partitions.of_parts(parts.stand, parts.sp)
+    area = parts.area
+    vol = np.r_[v_cand[full_pos] * area[cut.full], cut.frac * v_cand[part_pos] * area[cut.part]]
+    at = np.r_[cut.full, cut.part].astype(np.intp)
+    cut.partition_m3 = vol @ mem[at] + (cut.thin_m3_by_part @ mem[thin] if len(thin) else 0.0)
+    cut.partition_broken = partitions.broken(cut.partition_m3, cut.volume_m3)
+
+
+def _unit_volumes(
+    cut: _Cut,
+    parts: _Parts,
+    unit_of_part: NDArray,
+    v_cand: NDArray,
+    full_pos: NDArray,
+    part_pos: NDArray,
+    thin: NDArray,
+) -> NDArray:
+    """Each unit's harvest of the period [m3]: its clearcuts and the thinnings taken on its
+    parts not clearcut (the uncut rest of a partly cut part)."""
+    U = len(cut.unit_reasons)
+    area = parts.area
+    out = np.zeros(U)
+    out += np.bincount(unit_of_part[cut.full], v_cand[full_pos] * area[cut.full], U)
+    out += np.bincount(unit_of_part[cut.part], cut.frac * v_cand[part_pos] * area[cut.part], U)
+    if len(thin):
+        out += np.bincount(unit_of_part[thin], cut.thin_m3_by_part, U)
+    return out
 
 
 def _queue(
@@ -637,16 +861,22 @@ def _pick(
     pending: NDArray,
     target: float,
     whole: bool,
+    cap: float,
+    budget: NDArray | None = None,
 ) -> tuple[NDArray, NDArray, bool]:
     """The candidates cut whole and the one cut partly (positions in ``cand``), by volume net
-    of the thinnings a clearcut forgoes, and whether the pick is decided within ``cand``
-    (the first of the period's queue unless ``whole``)."""
+    of the thinnings a clearcut forgoes, within the area ``cap``, and whether the pick is
+    decided within ``cand`` (the first of the period's queue unless ``whole``). ``budget``:
+    the cover budgets an earlier pick of the period left (None: the period's own)."""
     area = parts.area
     vol = (v_ha - pending[cand]) * area[cand]
-    cap = np.inf if rules.max_area_ha is None else float(rules.max_area_ha)
     pick: list = [spatial] if spatial is not None else []
     if rules.cover is not None:
-        pick.append(rules.cover.budgets(parts.zone[cand], age_h[cand], parts.zone, age_h, area))
+        if budget is None:
+            budgets = rules.cover.budgets(parts.zone[cand], age_h[cand], parts.zone, age_h, area)
+        else:
+            budgets = PeriodBudgets(rules.cover, budget.copy(), parts.zone[cand], age_h[cand])
+        pick.append(budgets)
     decided = True
     if not pick:
         full_pos, part_pos, frac, decided = _pick_prefix(vol, area[cand], target, cap)
@@ -657,13 +887,15 @@ def _pick(
             return none, none, False
         full_pos, part_pos, frac, refused = picked
         cut.tested = len(full_pos) + (part_pos >= 0) + sum(refused)
+        if rules.cover is not None:
+            cut.cover_left = pick[-1].budget
         names = [r.name for r, n in zip(pick, refused, strict=True) if n]
         cut.blocked = " and ".join(dict.fromkeys(names))
     cut.full = cand[full_pos]
-    cut.part = int(cand[part_pos]) if part_pos >= 0 else -1
-    cut.frac = frac
-    cut.all_taken = len(cut.full) + (cut.part >= 0) == len(cand)
     part = np.array([part_pos]) if part_pos >= 0 else np.zeros(0, dtype=np.intp)
+    cut.part = cand[part]
+    cut.frac = np.full(len(part), frac)
+    cut.all_taken = len(cut.full) + len(cut.part) == len(cand)
     return full_pos, part, decided
 
 
@@ -682,10 +914,10 @@ def _tally(
         return
     vol = v_ha * area[cand]
     part, frac = cut.part, cut.frac
-    cut.volume_m3 = vol[full_pos].sum() + (frac * vol[part_pos[0]] if part >= 0 else 0.0)
-    cut.area_ha = area[cut.full].sum() + (frac * area[part] if part >= 0 else 0.0)
-    cut.age_area = area_sum(age_h[cut.full], area[cut.full]) + (
-        frac * area[part] * age_h[part] if part >= 0 else 0.0
+    cut.volume_m3 = vol[full_pos].sum() + (frac * vol[part_pos]).sum()
+    cut.area_ha = area[cut.full].sum() + (frac * area[part]).sum()
+    cut.age_area = (
+        area_sum(age_h[cut.full], area[cut.full]) + (frac * area[part] * age_h[part]).sum()
     )
 
 
@@ -702,9 +934,10 @@ def _take_thinnings(cut: _Cut, parts: _Parts, thin: NDArray, thin_ha: NDArray) -
     if not len(thin):
         return
     share = (~_mask(len(parts.area), cut.full)[thin]).astype(np.float64)
-    if cut.part >= 0:
-        share[thin == cut.part] = 1.0 - cut.frac
+    for part, frac in zip(cut.part, cut.frac, strict=True):
+        share[thin == part] = 1.0 - frac
     area = share * parts.area[thin]
+    cut.thin_m3_by_part = thin_ha * area
     cut.thinning_m3 = area_sum(thin_ha, area)
     cut.thinning_ha = float(area.sum())
     cut.volume_m3 += cut.thinning_m3
@@ -724,16 +957,15 @@ def _events(
 ) -> tuple[NDArray, ...]:
     """The period's events: each clearcut part and each thinned part."""
     area = parts.area
-    ev_parts = cut.full if cut.part < 0 else np.r_[cut.full, cut.part]
+    ev_parts = np.r_[cut.full, cut.part].astype(np.intp)
     ev_area = area[ev_parts].copy()
-    if cut.part >= 0:
-        ev_area[-1] *= cut.frac
+    ev_area[len(cut.full) :] *= cut.frac
     ev_pos = np.r_[full_pos, part_pos].astype(np.intp)
     ev_vol = v_ha[ev_pos] * ev_area if len(ev_pos) else np.zeros(0)
     kept = ~_mask(len(area), cut.full)[thin]
     th, th_area = thin[kept], area[thin[kept]].copy()
-    if cut.part >= 0:
-        th_area[th == cut.part] *= 1.0 - cut.frac
+    for part, frac in zip(cut.part, cut.frac, strict=True):
+        th_area[th == part] *= 1.0 - frac
     return (
         np.r_[parts.stand[ev_parts], parts.stand[th]],
         np.r_[age_h[ev_parts], thin_age[kept]],
@@ -750,8 +982,8 @@ def _cover_after(parts: _Parts, cover: CoverRules, age_h: NDArray, cut: _Cut) ->
     after_area = parts.area.copy()
     after_age[cut.full] = 0.0
     zones = parts.zone
-    if cut.part >= 0:  # the cut share of the last part restarts; the rest stays
-        after_age = np.r_[after_age, 0.0]
+    if len(cut.part):  # the cut share of a partly cut part restarts; the rest stays
+        after_age = np.r_[after_age, np.zeros(len(cut.part))]
         after_area = np.r_[after_area, cut.frac * parts.area[cut.part]]
         after_area[cut.part] -= cut.frac * parts.area[cut.part]
         zones = np.r_[zones, zones[cut.part]]
@@ -775,11 +1007,12 @@ def _regrow(
     n_before = len(parts.age)
     parts.age += L
     cut_parts = cut.full
-    if cut.part >= 0:
+    if len(cut.part):
         cut_area = cut.frac * parts.area[cut.part]
         parts.area[cut.part] -= cut_area
         parts.extend(cut.part, 0.0, cut_area)
-        cut_parts = np.r_[cut.full, len(parts.age) - 1].astype(np.intp)
+        new = np.arange(len(parts.age) - len(cut.part), len(parts.age))
+        cut_parts = np.r_[cut.full, new].astype(np.intp)
     if shares is None:
         parts.age[cut_parts] = L - off - parts.delay[cut_parts]
         parts.restart(cut_parts)
@@ -929,45 +1162,42 @@ def simulate(
     parts = start.parts.copy()
     reg = stands.regimes
     planned = rules.plan.period if rules.plan is not None else None
-    regen_shares = rules.plan.regen_shares if rules.plan is not None else None
-    if regen_shares is None and reg is not None and reg.changes:
-        regen_shares = np.broadcast_to(reg.transitions, (P, *reg.transitions.shape))
+    regen_shares = _regen_shares(rules, reg, P)
     sim = Simulation()
     sim.initial_stock_m3 = start.stock_m3
     out = _Totals.empty(P)
     kept_at = set(rules.snapshots) if record else set()
     queue_size = max(len(parts.age) // 4, _QUEUE_MIN)
     hlb_stock = start.hlb_stock_m3  # at the start of the period (the end of the last)
+    book = _UnitBook.start(rules, rule, ending_stock, parts, curves, reg)
     for p in range(P):
         if p in kept_at:
             sim.snapshots[p] = parts.snapshot()
         if record:
             out.gs_start[p] = sim.initial_stock_m3 if p == 0 else out.gs_end[p - 1]
-        target, floor = rule.bounds(p, out.h[p - 1] if p else 0.0)
-        out.target[p], out.floor[p] = target, floor
+        target, floor = book.bounds(p) if book else rule.bounds(p, out.h[p - 1] if p else 0.0)
+        out.target[p], out.floor[p] = np.sum(target), floor
         if record or p == P - stable_periods:
             out.hlb_start[p] = hlb_stock
         age_h = parts.age + off
         # a plan's rank of each stand this period: 0 planned by now, k planned k periods later
         first = None if planned is None else np.maximum(planned - (p + 1), 0)
         t = p * L + off
-        ending = _ending_cost(rules.plan, p, stands, curves, P * L - t, regen_shares)
+        order = (
+            first,
+            None if book is None else book.of_stand[parts.stand],
+            _ending_cost(rules.plan, p, stands, curves, P * L - t, regen_shares),
+        )
         cut = _cut_period(
-            parts, curves, reg, rules, spatial, t, age_h, target, first, record, queue_size, ending
+            parts, curves, reg, rules, spatial, t, age_h, target, order, record, queue_size
         )
         # this period's cut (and the candidates the rules refused), twice
         queue_size = max(2 * (len(cut.full) + 1), 2 * cut.tested, _QUEUE_MIN)
-        out.h[p], out.ha[p], out.age_area[p] = cut.volume_m3, cut.area_ha, cut.age_area
-        out.thin_m3[p], out.thin_ha[p] = cut.thinning_m3, cut.thinning_ha
-        if cut.events is not None:
-            period = np.full(len(cut.events[0]), p + 1)
-            out.events.append(cut.events[:1] + (period,) + cut.events[1:])
+        out.add(p, cut)
         if record and rules.cover is not None:
             out.cover.append(_cover_after(parts, rules.cover, age_h, cut))
-        if out.h[p] < floor * (1 - _REL) and sim.feasible:
-            sim.feasible, sim.fail_period, sim.fail_reason = False, p + 1, _fail_reason(cut)
-            if not record:
-                break
+        if _missed(sim, book, p, cut, floor) and not record:
+            break
         _thinned(parts, cut, age_h)  # the thinnings due are taken (a cut part restarts)
         shares = None if regen_shares is None else regen_shares[p]
         n_before, regen = _regrow(parts, cut, L, off, stands, curves, shares)
@@ -983,11 +1213,134 @@ def simulate(
                 out.gs_end[p] = total
             if p == P - 1:
                 sim.ending_stock_m3, sim.ending_hlb_stock_m3 = total, hlb_stock
-    _judge_end(sim, ending_stock, stable_periods, out.hlb_start, P)
+    if book is None:
+        _judge_end(sim, ending_stock, stable_periods, out.hlb_start, P)
+    else:
+        book.judge_end(sim, parts, parts.unit_stocks(curves, reg))
     if P in kept_at:
         sim.snapshots[P] = parts.snapshot()
     out.fill(sim, parts if record else None)
     return sim
+
+
+@dataclass
+class _UnitBook:
+    """The management units of a horizon: each unit's stands, target rule and ending-stock
+    share, and, as the horizon runs, its harvests, targets and floors and its verdict."""
+
+    of_stand: NDArray
+    rule: PerUnit
+    ending_stock: NDArray
+    harvest: NDArray  # periods x units
+    target: NDArray
+    floor: NDArray
+    fail_period: NDArray
+    reasons: list[str]
+    initial: NDArray
+
+    @classmethod
+    def start(
+        cls,
+        rules: HarvestRules,
+        rule: TargetRule,
+        ending_stock: float | NDArray,
+        parts: _Parts,
+        curves: CurveSet,
+        reg: Regimes | None,
+    ) -> _UnitBook | None:
+        """The book of a horizon with management units (None without)."""
+        if rules.units is None:
+            return None
+        return cls.of(rules.units, rule, ending_stock, parts, parts.unit_stocks(curves, reg))
+
+    @classmethod
+    def of(
+        cls,
+        units: NDArray,
+        rule: TargetRule,
+        ending_stock: float | NDArray,
+        start: _Parts,
+        stocks: NDArray,
+    ) -> _UnitBook:
+        """The book of a horizon from its starting parts and their growing stock [m3]."""
+        if not isinstance(rule, PerUnit):
+            raise TypeError("a run with management units needs a PerUnit target rule")
+        U = len(rule.rules)
+        P = 0  # grown as periods are booked
+        share = np.broadcast_to(np.asarray(ending_stock, dtype=np.float64), U).copy()
+        of_stand = np.asarray(units, dtype=np.int64)
+        initial = np.bincount(of_stand[start.stand], stocks, U)
+        empty = np.zeros((P, U))
+        return cls(
+            of_stand, rule, share, empty, empty, empty, np.zeros(U, np.int64), [""] * U, initial
+        )
+
+    @property
+    def n(self) -> int:
+        return len(self.rule.rules)
+
+    def bounds(self, p: int) -> tuple[NDArray, float]:
+        """The units' targets of period p and the region's floor (their sum)."""
+        prev = self.harvest[p - 1] if p else np.zeros(self.n)
+        target, floor = self.rule.bounds_units(p, prev)
+        self.target = np.vstack([self.target, target])
+        self.floor = np.vstack([self.floor, floor])
+        return target, float(floor.sum())
+
+    def book(self, p: int, cut: _Cut, sim: Simulation) -> bool:
+        """Record the units' harvests of period p; a unit below its floor fails (the first
+        time). Whether every unit has failed by now."""
+        assert cut.unit_m3 is not None
+        self.harvest = np.vstack([self.harvest, cut.unit_m3])
+        short = cut.unit_m3 < self.floor[p] * (1 - _REL)
+        if cut.partition_broken:  # a regional limit: every unit fails with it
+            short[:] = True
+            cut.unit_reasons = [cut.partition_broken] * self.n
+        for u in np.flatnonzero(short):
+            if not self.reasons[u]:
+                self.fail_period[u] = p + 1
+                self.reasons[u] = cut.unit_reasons[u]
+                if sim.feasible:
+                    sim.feasible, sim.fail_period, sim.fail_reason = False, p + 1, self.reasons[u]
+        return all(self.reasons)
+
+    def judge_end(self, sim: Simulation, parts: _Parts, stocks: NDArray) -> None:
+        """A unit that met every floor fails if its ending stock is below its share of its
+        initial stock (``stocks``: of the parts at the end); the horizon's figures per unit
+        into ``sim``."""
+        ending = np.bincount(self.of_stand[parts.stand], stocks, self.n)
+        low = ending < self.ending_stock * self.initial * (1 - _REL)
+        for u in np.flatnonzero(low):
+            if not self.reasons[u]:
+                self.reasons[u] = "ending growing stock below the requirement"
+                if sim.feasible:
+                    sim.feasible, sim.fail_reason = False, self.reasons[u]
+        sim.unit_harvest_m3, sim.unit_target_m3 = self.harvest, self.target
+        sim.unit_floor_m3, sim.unit_fail_period = self.floor, self.fail_period
+        sim.unit_fail_reason = list(self.reasons)
+        sim.unit_initial_stock_m3, sim.unit_ending_stock_m3 = self.initial, ending
+
+
+def _missed(sim: Simulation, book: _UnitBook | None, p: int, cut: _Cut, floor: float) -> bool:
+    """Whether period p's harvest missed its floor (with units: whether every unit has missed
+    one by now), failing the horizon at the first miss."""
+    if book is not None:
+        return book.book(p, cut, sim)
+    short = cut.volume_m3 < floor * (1 - _REL)
+    if (short or cut.partition_broken) and sim.feasible:
+        why = _fail_reason(cut) if short else cut.partition_broken
+        sim.feasible, sim.fail_period, sim.fail_reason = False, p + 1, why
+        return True
+    return False
+
+
+def _regen_shares(rules: HarvestRules, reg: Regimes | None, P: int) -> NDArray | None:
+    """Per period the shares in which each code's cut regrows as each: the plan's choices,
+    or the regimes' transitions (None: every cut regrows as itself)."""
+    shares = rules.plan.regen_shares if rules.plan is not None else None
+    if shares is None and reg is not None and reg.changes:
+        shares = np.broadcast_to(reg.transitions, (P, *reg.transitions.shape))
+    return shares
 
 
 def _judge_end(
@@ -1026,6 +1379,7 @@ class _Totals:
     events: list[tuple[NDArray, ...]] = field(default_factory=list)
     cover: list[NDArray] = field(default_factory=list)
     regen: list[tuple[NDArray, ...]] = field(default_factory=list)
+    partitions: list[NDArray] = field(default_factory=list)
 
     @classmethod
     def empty(cls, P: int) -> _Totals:
@@ -1045,6 +1399,16 @@ class _Totals:
             np.zeros(P),
         )
 
+    def add(self, p: int, cut: _Cut) -> None:
+        """Period p's cut: its volume, area, age and thinnings, and its events if recorded."""
+        self.h[p], self.ha[p], self.age_area[p] = cut.volume_m3, cut.area_ha, cut.age_area
+        self.thin_m3[p], self.thin_ha[p] = cut.thinning_m3, cut.thinning_ha
+        if cut.events is not None:
+            period = np.full(len(cut.events[0]), p + 1)
+            self.events.append(cut.events[:1] + (period,) + cut.events[1:])
+        if cut.partition_m3 is not None:
+            self.partitions.append(cut.partition_m3)
+
     def fill(self, sim: Simulation, parts: _Parts | None) -> None:
         """Move the figures into the simulation (with the parts at the end when recorded)."""
         sim.hlb_stock_start_m3 = self.hlb_start
@@ -1054,6 +1418,8 @@ class _Totals:
             sim.final_age_years, sim.final_area_ha = parts.age, parts.area
         if self.cover:
             sim.cover_area_ha = np.vstack(self.cover)
+        if self.partitions:
+            sim.partition_m3 = np.vstack(self.partitions)
         sim.harvest_m3, sim.harvest_ha, sim.harvest_age_area = self.h, self.ha, self.age_area
         sim.growing_stock_start_m3, sim.growing_stock_end_m3 = self.gs_start, self.gs_end
         sim.thinning_m3, sim.thinning_ha = self.thin_m3, self.thin_ha

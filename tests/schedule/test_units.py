@@ -1,0 +1,117 @@
+"""Management units in the rule-based scheduler: a joint run of units that share no rule is the
+separate runs of each, exactly; shared rules (the area cap, cover targets) hold for the region
+as the units take their cuts in turn."""
+
+import numpy as np
+import pytest
+
+from yieldscape.growth import ChapmanRichards
+from yieldscape.policies import EvenFlow, PerUnit
+from yieldscape.projection import CurveSet, Periods, StandArrays
+from yieldscape.schedule import HarvestRules, find_even_flow, simulate
+from yieldscape.schedule.units import UnitPolicy, find_unit_flows
+
+CURVES = CurveSet(["pine"], [ChapmanRichards(450.0, 0.035, 3.0)])
+PERIODS = Periods(2030, 10, 8, "midpoint")
+
+
+def forest(n, seed, old=0.6):
+    rng = np.random.default_rng(seed)
+    ages = np.where(rng.random(n) < old, rng.uniform(90, 160, n), rng.uniform(0, 30, n))
+    return [
+        np.zeros(n, np.int32),
+        rng.uniform(16, 24, n),
+        ages,
+        rng.uniform(5, 30, n),
+        np.full(n, 60.0),
+        np.zeros(n),
+    ]
+
+
+def stands_of(*parts):
+    arrays = [np.concatenate(cols) for cols in zip(*parts, strict=True)]
+    return StandArrays(*arrays, np.arange(len(arrays[0])))
+
+
+A, B = forest(40, 1), forest(30, 2, 0.3)
+UNIT = np.r_[np.zeros(40, np.int64), np.ones(30, np.int64)]
+
+
+@pytest.mark.parametrize("levels", [(3000.0, 1500.0), (6000.0, 500.0), (1e9, 1e9)])
+def test_units_that_share_no_rule_run_as_their_separate_runs(levels):
+    # Each unit's harvest, verdict and ending stock are those of its forest run alone (the
+    # joint run's stands and queue are the union, the picks per unit its own).
+    joint = simulate(
+        stands_of(A, B),
+        CURVES,
+        PERIODS,
+        PerUnit((EvenFlow(levels[0], 0.1), EvenFlow(levels[1]))),
+        HarvestRules(units=UNIT),
+        ending_stock=np.array([0.9, 1.0]),
+        record=True,
+    )
+    for u, (part, rule, share) in enumerate(
+        zip((A, B), (EvenFlow(levels[0], 0.1), EvenFlow(levels[1])), (0.9, 1.0), strict=True)
+    ):
+        alone = simulate(stands_of(part), CURVES, PERIODS, rule, ending_stock=share, record=True)
+        np.testing.assert_allclose(joint.unit_harvest_m3[:, u], alone.harvest_m3, rtol=1e-12)
+        np.testing.assert_allclose(joint.unit_target_m3[:, u], alone.target_m3, rtol=1e-12)
+        assert joint.unit_ending_stock_m3[u] == pytest.approx(alone.ending_stock_m3, rel=1e-12)
+        assert joint.unit_initial_stock_m3[u] == pytest.approx(alone.initial_stock_m3, rel=1e-12)
+        assert joint.unit_feasible[u] == alone.feasible
+        if not alone.feasible:
+            assert joint.unit_fail_reason[u] == alone.fail_reason
+    np.testing.assert_allclose(joint.unit_harvest_m3.sum(axis=1), joint.harvest_m3, rtol=1e-12)
+    assert joint.feasible == joint.unit_feasible.all()
+
+
+def test_a_shared_area_cap_holds_for_the_region_and_serves_units_in_turn():
+    cap = 120.0
+    joint = simulate(
+        stands_of(A, B),
+        CURVES,
+        PERIODS,
+        PerUnit((EvenFlow(1e9), EvenFlow(1e9))),
+        HarvestRules(units=UNIT, max_area_ha=cap),
+        record=True,
+    )
+    assert (joint.harvest_ha <= cap * (1 + 1e-9)).all()
+    assert joint.harvest_ha[0] == pytest.approx(cap)
+    # unlimited targets: the first unit takes the whole cap while it has eligible stands
+    first = joint.event_period == 1
+    assert (UNIT[joint.event_stand[first & (joint.event_treatment == 0)]] == 0).all()
+
+
+UNITS = (UnitPolicy("a", "even", 0.1, 0.9), UnitPolicy("b", "even", 0.0, 1.0))
+
+
+def test_unit_levels_without_shared_rules_are_the_levels_found_alone():
+    # One trial judges both units; with no shared rule each unit's bracket sees what its own
+    # search sees, so it tries the same levels and ends on the same one (to the last few
+    # ulps: the unit's ending stock is summed in another order than the whole forest's).
+    found = find_unit_flows(stands_of(A, B), CURVES, PERIODS, HarvestRules(units=UNIT), UNITS)
+    for u, (part, unit) in enumerate(zip((A, B), UNITS, strict=True)):
+        alone = find_even_flow(
+            stands_of(part), CURVES, PERIODS, band=unit.band, ending_stock=unit.ending_stock
+        )
+        assert found.levels_m3[u] == pytest.approx(alone.level_m3_per_period, rel=1e-12)
+    assert found.simulation.unit_feasible.all()
+    # fewer trials than the two searches one after the other
+    assert found.levels_m3.min() > 0
+
+
+def test_unit_levels_under_a_shared_cap_hold_every_rule_together():
+    cap = 60.0
+    rules = HarvestRules(units=UNIT, max_area_ha=cap)
+    found = find_unit_flows(stands_of(A, B), CURVES, PERIODS, rules, UNITS)
+    sim = found.simulation
+    assert sim.feasible and sim.unit_feasible.all()
+    assert (sim.harvest_ha <= cap * (1 + 1e-9)).all()
+    # each unit holds its even flow (unit b: no band) and its ending stock
+    assert (sim.unit_harvest_m3[:, 1] >= found.levels_m3[1] * (1 - 1e-9)).all()
+    assert (sim.unit_harvest_m3[0, 0] >= found.levels_m3[0] * (1 - 1e-9)).all()
+    shares = np.array([u.ending_stock for u in UNITS])
+    assert (sim.unit_ending_stock_m3 >= shares * sim.unit_initial_stock_m3 * (1 - 1e-9)).all()
+    # the shared cap binds: the units' levels are below their levels alone
+    alone = find_unit_flows(stands_of(A, B), CURVES, PERIODS, HarvestRules(units=UNIT), UNITS)
+    assert found.levels_m3.sum() < alone.levels_m3.sum()

@@ -1,0 +1,99 @@
+"""Harvest partitions in the rule-based scheduler: shares (or amounts) of each period's
+regional harvest volume that the stands a condition selects must yield (a minimum) or may
+yield at most (a maximum).
+
+A part counts in partition k where ``member[stand, code, k]``: the condition is read on the
+stand's attributes with the code it grows as, so a stand regenerated as another code may
+enter or leave a partition. Each period the pick first cuts toward each minimum from that
+partition's candidates (management units one after the other, each within its own target,
+while some of the minimum is still needed), then toward the targets from every candidate; a candidate of a partition
+whose maximum its cut would pass is left out of the pick (whole: the maximum is kept, perhaps
+by less than a stand's volume). The period's volumes are then checked against every limit; a
+limit missed fails the period, as a missed floor does, naming the partition.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+_REL = 1e-9
+
+
+@dataclass(frozen=True)
+class PartitionRules:
+    """The partitions' names, membership (stands x codes x partitions) and limits, one value
+    per partition each (NaN: no such limit): shares of the period's harvest volume and
+    amounts [m3 per period]."""
+
+    names: tuple[str, ...]
+    member: NDArray[np.bool_]
+    min_share: NDArray
+    max_share: NDArray
+    min_m3: NDArray
+    max_m3: NDArray
+
+    @property
+    def n(self) -> int:
+        return len(self.names)
+
+    def of_parts(self, stand: NDArray, code: NDArray) -> NDArray[np.bool_]:
+        """Which partitions each part counts in (parts x partitions)."""
+        return self.member[stand, code]
+
+    def minimum(self, harvest_m3: float) -> NDArray:
+        """Each partition's least volume [m3] of a period harvesting ``harvest_m3``."""
+        share = _times(np.nan_to_num(self.min_share, nan=0.0), harvest_m3)
+        return np.maximum(share, np.nan_to_num(self.min_m3, nan=0.0))
+
+    def maximum(self, harvest_m3: float) -> NDArray:
+        """Each partition's most volume [m3] of a period harvesting ``harvest_m3``."""
+        out = np.full(self.n, np.inf)
+        has = ~np.isnan(self.max_share)
+        out[has] = _times(self.max_share[has], harvest_m3)
+        return np.minimum(out, np.where(np.isnan(self.max_m3), np.inf, self.max_m3))
+
+    def broken(self, volume_m3: NDArray, harvest_m3: float) -> str:
+        """The first limit the period's partition volumes break, in words ("" for none)."""
+        low = self.minimum(harvest_m3)
+        high = self.maximum(harvest_m3)
+        for k, name in enumerate(self.names):
+            v = volume_m3[k]
+            share = v / harvest_m3 if harvest_m3 > 0 else 0.0
+            if v < low[k] * (1 - 1e-7) - 1e-6:
+                return (
+                    f"partition {name!r} yields {v:,.0f} m3 ({share:.1%} of the harvest), "
+                    f"below its minimum of {low[k]:,.0f} m3"
+                )
+            if v > high[k] * (1 + 1e-7) + 1e-6:
+                return (
+                    f"partition {name!r} yields {v:,.0f} m3 ({share:.1%} of the harvest), "
+                    f"above its maximum of {high[k]:,.0f} m3"
+                )
+        return ""
+
+
+def _times(share: NDArray, harvest_m3: float) -> NDArray:
+    """share x harvest, with 0 x an unbounded harvest (a trial's) taken as 0."""
+    out = np.zeros(len(share))
+    pos = share > 0
+    out[pos] = share[pos] * harvest_m3
+    return out
+
+
+def within_maximum(
+    net_m3: NDArray, member: NDArray[np.bool_], room_m3: NDArray
+) -> NDArray[np.bool_]:
+    """Which candidates (in priority order, their volumes ``net_m3`` and memberships) the pick
+    may keep: for each partition with a finite maximum (``room_m3`` left this period), its
+    candidates while the volume of its candidates up to and including each is within the
+    room. (Counting every earlier member as cut, the test is conservative where a rule of the
+    pick refuses one.)"""
+    keep = np.ones(len(net_m3), dtype=bool)
+    for k in np.flatnonzero(np.isfinite(room_m3)):
+        mk = member[:, k]
+        cum = np.cumsum(np.where(mk, net_m3, 0.0))
+        keep &= ~mk | (cum <= room_m3[k] * (1 + _REL))
+    return keep

@@ -1,0 +1,190 @@
+"""Flows of management units: each unit's even-flow level, found for that unit, while the rules
+the units share (the area cap, cover targets, spatial rules across unit borders) hold for the
+whole region.
+
+One simulated horizon judges every unit at once (:class:`~yieldscape.policies.PerUnit`,
+``HarvestRules.units``): each unit's floors and its own ending stock give it its own verdict and
+margin. So the units' levels are searched side by side: every unit keeps its own bracket (as
+the single-flow search of :mod:`yieldscape.schedule.flow` does, with the same tolerance and
+interpolation), each trial runs every unit whose bracket is still open at its next level and
+every other at the level it has found, and a unit's bracket closes at that unit's tolerance.
+Units that share no rule do not affect each other, and each finds the level of its own search
+run alone; with shared rules the units take their cuts in turn each period (in unit order: the
+first unit's cuts are made first against the shared cap and budgets), so a unit's verdict can
+depend on the others' levels. The levels found are checked together in a recorded run; a unit
+that fails there (a later unit's level took what it needed) is searched again below its level
+with the others held, at most :data:`MAX_ROUNDS` times.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+from yieldscape.policies import EvenFlow, PerUnit, TargetRule, Targets
+from yieldscape.projection import CurveSet, Periods, StandArrays
+from yieldscape.schedule.flow import MAX_STEPS, _Bracket, least_level, search_tolerance_m3
+from yieldscape.schedule.simulate import HarvestRules, Simulation, Start, simulate
+
+MAX_ROUNDS = 3
+
+
+@dataclass(frozen=True)
+class UnitPolicy:
+    """A unit's flow for the rule-based search: ``even`` (the level searched, with a band) or
+    ``targets`` (fixed targets per period, no search), and its ending-stock share."""
+
+    name: str
+    policy: str = "even"
+    band: float = 0.0
+    ending_stock: float = 1.0
+    targets_m3: tuple[float, ...] = ()
+
+    def rule(self, level: float) -> TargetRule:
+        if self.policy == "targets":
+            return Targets(self.targets_m3)
+        return EvenFlow(level, self.band)
+
+
+@dataclass(frozen=True)
+class UnitFlows:
+    """The units' levels [m3 per period] (targets units: 0), the recorded run at those
+    levels, the trial count and, per unit, what stops it going higher."""
+
+    levels_m3: NDArray
+    simulation: Simulation
+    steps: int
+    binding: list[str]
+
+
+def find_unit_flows(
+    stands: StandArrays,
+    curves: CurveSet,
+    periods: Periods,
+    rules: HarvestRules,
+    units: Sequence[UnitPolicy],
+    start: Start | None = None,
+) -> UnitFlows:
+    """The highest feasible level of each even-flow unit, to the search tolerance, under the
+    units' shared rules (see the module docstring). ``rules.units`` names each stand's unit
+    (codes in the order of ``units``)."""
+    if rules.units is None:
+        raise ValueError("find_unit_flows needs HarvestRules.units")
+    for u in units:
+        if u.policy not in ("even", "targets"):
+            raise ValueError(
+                f"unit {u.name!r}: flow policy {u.policy!r} is not searched per unit "
+                "(even or targets)"
+            )
+    start = start if start is not None else Start.of(stands, curves)
+    shares = np.array([u.ending_stock for u in units])
+    U = len(units)
+    steps = 0
+
+    def trial(levels: NDArray, record: bool = False) -> Simulation:
+        nonlocal steps
+        steps += 1
+        rule = PerUnit(tuple(u.rule(float(x)) for u, x in zip(units, levels, strict=True)))
+        return simulate(
+            stands, curves, periods, rule, rules, ending_stock=shares, record=record, start=start
+        )
+
+    searched = np.array([u.policy == "even" for u in units])
+    levels, why = np.zeros(U), [""] * U
+    final: Simulation | None = None
+    for _ in range(MAX_ROUNDS):
+        open_ = searched if final is None else searched & ~_holds(final)
+        levels, found = _search(trial, rules, levels, open_, periods, shares, final is None)
+        why = [f if o else w for f, w, o in zip(found, why, open_, strict=True)]
+        final = trial(levels, True)
+        if _holds(final)[searched].all():
+            break
+    assert final is not None
+    if not _holds(final)[searched].all():
+        bad = [units[u].name for u in np.flatnonzero(~_holds(final) & searched)]
+        raise RuntimeError(f"unit flow search: units {bad} fail at the levels found")
+    return UnitFlows(levels, final, steps, why)
+
+
+def _holds(sim: Simulation) -> NDArray[np.bool_]:
+    return sim.unit_feasible
+
+
+def _search(
+    trial,  # noqa: ANN001 - (levels, record) -> Simulation
+    rules: HarvestRules,
+    levels: NDArray,
+    open_: NDArray,
+    periods: Periods,
+    shares: NDArray,
+    first: bool,
+) -> tuple[NDArray, list[str]]:
+    """Narrow the brackets of the ``open_`` units side by side, the others held at
+    ``levels``; the levels found and per unit what binds. In the first round a unit's
+    bracket reaches up to what its first period yields with every eligible stand of it cut
+    (the others held, within the shared cap); in a later round up to the level at which it
+    failed."""
+    U = len(levels)
+    levels = levels.copy()
+    why = ["" for _ in range(U)]
+    upper = levels.copy()
+    for u in np.flatnonzero(open_ & first):
+        ask = levels.copy()
+        ask[u] = np.inf
+        upper[u] = float(trial(ask).unit_harvest_m3[0, u])
+    least = least_level(rules) / max(int(open_.sum()), 1)  # the open units share it alike
+    low, top = trial(np.where(open_, least, levels)), trial(upper)
+    brackets: dict[int, _Bracket] = {}
+    for u in np.flatnonzero(open_):
+        lo_view, hi_view = _UnitView(low, u), _UnitView(top, u)
+        if not lo_view.feasible or upper[u] <= 0:
+            levels[u], why[u] = 0.0, "no harvest is feasible for this unit"
+        elif hi_view.feasible:
+            levels[u], why[u] = upper[u], "every stand eligible in period 1 is cut"
+        else:
+            b = _Bracket(least, float(upper[u]), lo_view, hi_view)
+            b.add(least, _margin(low, u, shares), lo_view)
+            b.add(float(upper[u]), _margin(top, u, shares), hi_view)
+            brackets[u] = b
+
+    def tol(b: _Bracket) -> float:
+        return search_tolerance_m3(b.lo, periods.period_years)
+
+    for _ in range(MAX_STEPS):
+        live = {u: b for u, b in brackets.items() if b.hi - b.lo > tol(b)}
+        if not live:
+            break
+        ask = levels.copy()
+        for u, b in brackets.items():
+            ask[u] = b.next_level(tol(b))[0] if u in live else b.lo
+        sim = trial(ask)
+        for u, b in live.items():
+            b.add(float(ask[u]), _margin(sim, u, shares), _UnitView(sim, u))
+    for u, b in brackets.items():
+        levels[u], why[u] = b.lo, _why(b.hi_sim, u)
+    return levels, why
+
+
+class _UnitView:
+    """One unit's verdict of a trial, as the bracket reads a horizon's (``feasible``)."""
+
+    def __init__(self, sim: Simulation, u: int) -> None:
+        self.sim, self.u = sim, u
+        self.feasible = bool(sim.unit_feasible[u])
+
+
+def _margin(sim: Simulation, u: int, shares: NDArray) -> float | None:
+    """Unit u's ending stock above its requirement [m3]; None where it missed a floor."""
+    if sim.unit_fail_period[u]:
+        return None
+    return float(sim.unit_ending_stock_m3[u] - shares[u] * sim.unit_initial_stock_m3[u])
+
+
+def _why(sim: Simulation | _UnitView, u: int) -> str:
+    s = sim.sim if isinstance(sim, _UnitView) else sim
+    if s.unit_fail_period[u]:
+        return f"a higher level fails in period {s.unit_fail_period[u]}: {s.unit_fail_reason[u]}"
+    return "a higher level leaves the unit's ending growing stock below its requirement"
