@@ -6,10 +6,11 @@ A part counts in partition k where ``member[stand, code, k]``: the condition is 
 stand's attributes with the code it grows as, so a stand regenerated as another code may
 enter or leave a partition. Each period the pick first cuts toward each minimum from that
 partition's candidates (management units one after the other, each within its own target,
-while some of the minimum is still needed), then toward the targets from every candidate; a candidate of a partition
-whose maximum its cut would pass is left out of the pick (whole: the maximum is kept, perhaps
-by less than a stand's volume). The period's volumes are then checked against every limit; a
-limit missed fails the period, as a missed floor does, naming the partition.
+while some of the minimum is still needed), then toward the targets from every candidate; a
+candidate of a partition whose maximum its cut would pass is left out of the pick (whole: the
+maximum is kept, perhaps by less than a stand's volume). The period's volumes are then
+checked against every limit; a limit missed fails the period, as a missed floor does, naming
+the partition.
 """
 
 from __future__ import annotations
