@@ -115,3 +115,45 @@ def test_unit_levels_under_a_shared_cap_hold_every_rule_together():
     # the shared cap binds: the units' levels are below their levels alone
     alone = find_unit_flows(stands_of(A, B), CURVES, PERIODS, HarvestRules(units=UNIT), UNITS)
     assert found.levels_m3.sum() < alone.levels_m3.sum()
+
+
+def test_units_with_a_partition_keep_it_and_their_levels_scale_together():
+    # A partition is regional: a trial that breaks it fails every unit. The units' levels
+    # without it, scaled by the highest common factor that keeps it, hold every rule; and
+    # the factor is below 1 (the partition binds here: the check can fail).
+    from yieldscape.schedule.partitions import PartitionRules
+
+    st = stands_of(A, B)
+    member = (np.arange(st.n) % 3 == 0)[:, None, None]
+    nan = np.array([np.nan])
+    parts = PartitionRules(("thirds",), member, np.array([0.6]), nan, nan, nan)
+    free = find_unit_flows(st, CURVES, PERIODS, HarvestRules(units=UNIT), UNITS)
+    held = find_unit_flows(st, CURVES, PERIODS, HarvestRules(units=UNIT, partitions=parts), UNITS)
+    sim = held.simulation
+    assert sim.feasible and sim.unit_feasible.all()
+    assert (sim.partition_m3[:, 0] >= 0.6 * sim.harvest_m3 * (1 - 1e-9)).all()
+    ratio = held.levels_m3 / free.levels_m3
+    assert ratio == pytest.approx(np.full(2, ratio[0]), rel=1e-12)  # one common factor
+    assert 0 < ratio[0] < 0.999
+
+
+def test_a_maximum_is_shared_among_units_as_their_targets():
+    # Units pick in turn; the room under a partition's maximum is shared as the units' shares
+    # of the period's targets, so the first unit cannot take it all: each unit's clearcut
+    # volume in the partition is at most max_share x its own target, in every period.
+    from yieldscape.schedule.partitions import PartitionRules
+
+    st = stands_of(A, B)
+    member = (np.arange(st.n) % 3 == 0)[:, None, None]
+    nan = np.array([np.nan])
+    parts = PartitionRules(("thirds",), member, nan, np.array([0.2]), nan, nan)
+    found = find_unit_flows(st, CURVES, PERIODS, HarvestRules(units=UNIT, partitions=parts), UNITS)
+    sim = found.simulation
+    assert sim.feasible
+    clear = sim.event_treatment == 0
+    inside = member[sim.event_stand, 0, 0] & clear
+    for p in range(1, PERIODS.count + 1):
+        at = inside & (sim.event_period == p)
+        by_unit = np.bincount(UNIT[sim.event_stand[at]], sim.event_volume_m3[at], 2)
+        assert (by_unit <= 0.2 * sim.unit_target_m3[p - 1] * (1 + 1e-9) + 1e-6).all()
+    assert (sim.partition_m3[:, 0] <= 0.2 * sim.harvest_m3 * (1 + 1e-9)).all()

@@ -698,7 +698,13 @@ def _pick_units(
         mem = rules.partitions.of_parts(parts.stand, parts.sp)
         thin_k = thinned[1] @ mem[thinned[0]] if len(thinned[0]) else np.zeros(mem.shape[1])
         need = rules.partitions.minimum(total) - thin_k
-        room = rules.partitions.maximum(total) - thin_k
+        # each unit's room under a maximum: its share of the room, as its share of the
+        # targets (of the unbounded ones alike), so that the first unit cannot use it all
+        inf = np.isinf(targets)
+        share = targets / total if np.isfinite(total) and total > 0 else inf / max(inf.sum(), 1)
+        base = rules.partitions.maximum(total) - thin_k
+        room = np.zeros((len(targets), len(base)))
+        room[share > 0] = share[share > 0, None] * base[None, :]
     taken = np.zeros(len(area), dtype=bool)
     left = np.asarray(goals, dtype=np.float64).copy()
     pieces, reasons, cover_left, offset = [], [""] * len(goals), None, 0
@@ -716,14 +722,14 @@ def _pick_units(
                 continue
             mine = mine[mem[mine, k]]
         sub = _Cut()
-        limit = None if room is None else (mem, room)
+        limit = None if room is None else (mem, room[u])
         cand, v, full, part = _pick_queue(sub, *pick, mine, want, cap, cover_left, limit)
         net = (v - pending[cand]) * area[cand]
         got = np.r_[net[full], sub.frac * net[part]]
         at = np.r_[cand[full], cand[part]].astype(np.intp)
         left[u] -= float(got.sum())
         if mem is not None:
-            room = room - got @ mem[at]
+            room[u] = room[u] - got @ mem[at]
             need = need - got @ mem[at]
         cap -= area[sub.full].sum() + (sub.frac * area[sub.part]).sum()
         cover_left = sub.cover_left if sub.cover_left is not None else cover_left

@@ -19,7 +19,7 @@ with the others held, at most :data:`MAX_ROUNDS` times.
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from numpy.typing import NDArray
@@ -95,18 +95,77 @@ def find_unit_flows(
     searched = np.array([u.policy == "even" for u in units])
     levels, why = np.zeros(U), [""] * U
     final: Simulation | None = None
+    if rules.partitions is not None:  # a regional rule whose breach fails every unit
+        free = find_unit_flows(
+            stands, curves, periods, replace(rules, partitions=None), units, start
+        )
+        levels, why, final = _scaled(trial, free.levels_m3, searched, periods, shares)
+        steps += free.steps
     for _ in range(MAX_ROUNDS):
+        if final is not None and _holds(final)[searched].all():
+            break
         open_ = searched if final is None else searched & ~_holds(final)
         levels, found = _search(trial, rules, levels, open_, periods, shares, final is None)
         why = [f if o else w for f, w, o in zip(found, why, open_, strict=True)]
         final = trial(levels, True)
-        if _holds(final)[searched].all():
-            break
     assert final is not None
     if not _holds(final)[searched].all():
         bad = [units[u].name for u in np.flatnonzero(~_holds(final) & searched)]
         raise RuntimeError(f"unit flow search: units {bad} fail at the levels found")
     return UnitFlows(levels, final, steps, why)
+
+
+def _scaled(
+    trial,  # noqa: ANN001 - (levels, record) -> Simulation
+    free: NDArray,
+    searched: NDArray,
+    periods: Periods,
+    shares: NDArray,
+) -> tuple[NDArray, list[str], Simulation]:
+    """The searched units' levels without the partitions (``free``) scaled by the highest
+    common factor at which every unit holds with them (a bracket on the factor, to the
+    search tolerance on the units' total); the levels, why and the recorded run."""
+    total = float(free[searched].sum())
+
+    def levels_at(x: float) -> NDArray:
+        return np.where(searched, x * free, free)
+
+    def view(sim: Simulation) -> _AllView:
+        return _AllView(sim, bool(_holds(sim)[searched].all()))
+
+    def margin(sim: Simulation) -> float | None:
+        if sim.unit_fail_period[searched].any():
+            return None
+        got = sim.unit_ending_stock_m3 - shares * sim.unit_initial_stock_m3
+        return float(got[searched].min())
+
+    top = trial(levels_at(1.0))
+    if view(top).feasible or total <= 0:
+        return levels_at(1.0), ["" for _ in free], trial(levels_at(1.0), True)
+    low = trial(levels_at(0.0))
+    b = _Bracket(0.0, 1.0, view(low), view(top))
+    b.add(0.0, margin(low), view(low))
+    b.add(1.0, margin(top), view(top))
+    for _ in range(MAX_STEPS):
+        tol = search_tolerance_m3(b.lo * total, periods.period_years) / total
+        if b.hi - b.lo <= tol:
+            break
+        x = b.next_level(tol)[0]
+        sim = trial(levels_at(x))
+        b.add(x, margin(sim), view(sim))
+    s = b.hi_sim.sim if isinstance(b.hi_sim, _AllView) else b.hi_sim
+    why = (
+        f"the units' levels without the partitions, scaled by {b.lo:.4f}: higher, "
+        f"{s.fail_reason or 'a unit fails'}"
+    )
+    return levels_at(b.lo), [why if k else "" for k in searched], trial(levels_at(b.lo), True)
+
+
+class _AllView:
+    """Whether every searched unit held in a trial, as the bracket reads ``feasible``."""
+
+    def __init__(self, sim: Simulation, feasible: bool) -> None:
+        self.sim, self.feasible = sim, feasible
 
 
 def _holds(sim: Simulation) -> NDArray[np.bool_]:
