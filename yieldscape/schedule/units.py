@@ -84,12 +84,12 @@ def find_unit_flows(
     U = len(units)
     steps = 0
 
-    def trial(levels: NDArray, record: bool = False) -> Simulation:
+    def trial(levels: NDArray, record: bool = False, under: HarvestRules = rules) -> Simulation:
         nonlocal steps
         steps += 1
         rule = PerUnit(tuple(u.rule(float(x)) for u, x in zip(units, levels, strict=True)))
         return simulate(
-            stands, curves, periods, rule, rules, ending_stock=shares, record=record, start=start
+            stands, curves, periods, rule, under, ending_stock=shares, record=record, start=start
         )
 
     searched = np.array([u.policy == "even" for u in units])
@@ -184,16 +184,17 @@ def _search(
     """Narrow the brackets of the ``open_`` units side by side, the others held at
     ``levels``; the levels found and per unit what binds. In the first round a unit's
     bracket reaches up to what its first period yields with every eligible stand of it cut
-    (the others held, within the shared cap); in a later round up to the level at which it
-    failed."""
+    (without the shared rules); in a later round up to the level at which it failed."""
     U = len(levels)
     levels = levels.copy()
     why = ["" for _ in range(U)]
     upper = levels.copy()
-    for u in np.flatnonzero(open_ & first):
-        ask = levels.copy()
-        ask[u] = np.inf
-        upper[u] = float(trial(ask).unit_harvest_m3[0, u])
+    if first and open_.any():  # one short trial (every unit fails in period 1) without the
+        # shared rules: each open unit's whole eligible volume of period 1, which no level of
+        # it can pass
+        alone = replace(rules, max_area_ha=None, spatial=None, cover=None, partitions=None)
+        loose = trial(np.where(open_, np.inf, levels), False, alone)
+        upper = np.where(open_, loose.unit_harvest_m3[0], levels)
     least = least_level(rules) / max(int(open_.sum()), 1)  # the open units share it alike
     low, top = trial(np.where(open_, least, levels)), trial(upper)
     brackets: dict[int, _Bracket] = {}
