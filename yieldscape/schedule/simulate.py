@@ -571,24 +571,14 @@ def _cut_period(
     pending[thin] = thin_ha
     elig = np.flatnonzero((age_h >= parts.min_age - 1e-9) & (parts.area > 0))
     cap = np.inf if rules.max_area_ha is None else float(rules.max_area_ha)
-    pick = (
-        parts,
-        curves,
-        reg,
-        rules,
-        spatial,
-        t,
-        age_h,
-        planned_first,
-        pending,
-        queue_size,
-        ending,
+    pick = _Context(
+        parts, curves, reg, rules, spatial, t, age_h, planned_first, pending, queue_size, ending
     )
     if unit_of_part is None and rules.partitions is not None:  # one unit
         unit_of_part, target = np.zeros(len(parts.age), dtype=np.int64), np.array([target])
     if unit_of_part is None:
         goal = float(target) - area_sum(thin_ha, parts.area[thin])
-        picked = _pick_queue(cut, *pick, elig, goal, cap, None)
+        picked = _pick_queue(cut, pick, elig, goal, cap, None)
     else:
         targets = np.asarray(target, dtype=np.float64)
         thin_u = np.bincount(unit_of_part[thin], thin_ha * parts.area[thin], len(targets))
@@ -608,19 +598,28 @@ def _cut_period(
     return cut
 
 
+@dataclass(frozen=True)
+class _Context:
+    """What every pick of a period shares: the parts, curves, regimes and rules, the spatial
+    state, the harvest moment and the parts' ages then, the plan's ranks, the thinnings
+    pending per part [m3/ha], the queue size to rank first and the ending-stock order."""
+
+    parts: _Parts
+    curves: CurveSet
+    reg: Regimes | None
+    rules: HarvestRules
+    spatial: SpatialRules | None
+    t: float
+    age_h: NDArray
+    planned_first: NDArray | None
+    pending: NDArray
+    queue_size: int
+    ending: EndingCost | None
+
+
 def _pick_queue(
     cut: _Cut,
-    parts: _Parts,
-    curves: CurveSet,
-    reg: Regimes | None,
-    rules: HarvestRules,
-    spatial: SpatialRules | None,
-    t: float,
-    age_h: NDArray,
-    planned_first: NDArray | None,
-    pending: NDArray,
-    queue_size: int,
-    ending: EndingCost | None,
+    pick: _Context,
     elig: NDArray,
     goal: float,
     cap: float,
@@ -634,13 +633,15 @@ def _pick_queue(
     partition's maximum leaves out (:func:`~yieldscape.schedule.partitions.within_maximum`).
     Returns the ranked candidates, their volumes [m3/ha] and the positions cut whole and
     partly."""
+    parts, curves, reg, rules, age_h = pick.parts, pick.curves, pick.reg, pick.rules, pick.age_h
+    pending, queue_size, planned_first = pick.pending, pick.queue_size, pick.planned_first
     cand, v_cand = elig[:0], np.zeros(0)
     full_pos = part_pos = np.zeros(0, dtype=np.intp)
     if goal > 0 and len(elig):
         first = None if planned_first is None else planned_first[parts.stand[elig]]
         while True:  # rank more of the queue until the pick is decided within it
             cand, v_cand, whole = _queue(
-                parts, curves, reg, rules.priority, age_h, elig, first, queue_size, ending
+                parts, curves, reg, rules.priority, age_h, elig, first, queue_size, pick.ending
             )
             if limit is not None:
                 net = (v_cand - pending[cand]) * parts.area[cand]
@@ -648,19 +649,7 @@ def _pick_queue(
                 cand, v_cand = cand[keep], v_cand[keep]
             if len(cand):
                 full_pos, part_pos, decided = _pick(
-                    cut,
-                    parts,
-                    rules,
-                    spatial,
-                    t,
-                    age_h,
-                    cand,
-                    v_cand,
-                    pending,
-                    goal,
-                    whole,
-                    cap,
-                    budget,
+                    cut, pick, cand, v_cand, goal, whole, cap, budget
                 )
                 if whole or decided:
                     break
@@ -674,7 +663,7 @@ def _pick_queue(
 
 def _pick_units(
     cut: _Cut,
-    pick: tuple,
+    pick: _Context,
     elig: NDArray,
     targets: NDArray,
     goals: NDArray,
@@ -690,7 +679,7 @@ def _pick_units(
     and every pick leaves out what a maximum would not allow. A part cut (wholly or partly)
     by one pick is not a candidate of the next. The picks merged as one: the candidates one
     pick after the other, positions into them."""
-    parts, rules, pending = pick[0], pick[3], pick[8]
+    parts, rules, pending = pick.parts, pick.rules, pick.pending
     area = parts.area
     total = float(targets.sum())
     mem = need = room = None
@@ -723,7 +712,7 @@ def _pick_units(
             mine = mine[mem[mine, k]]
         sub = _Cut()
         limit = None if room is None else (mem, room[u])
-        cand, v, full, part = _pick_queue(sub, *pick, mine, want, cap, cover_left, limit)
+        cand, v, full, part = _pick_queue(sub, pick, mine, want, cap, cover_left, limit)
         net = (v - pending[cand]) * area[cand]
         got = np.r_[net[full], sub.frac * net[part]]
         at = np.r_[cand[full], cand[part]].astype(np.intp)
@@ -857,14 +846,9 @@ def _first_by_key(key: NDArray, rank: NDArray | None, size: int) -> NDArray[np.b
 
 def _pick(
     cut: _Cut,
-    parts: _Parts,
-    rules: HarvestRules,
-    spatial: SpatialRules | None,
-    t: float,
-    age_h: NDArray,
+    pick: _Context,
     cand: NDArray,
     v_ha: NDArray,
-    pending: NDArray,
     target: float,
     whole: bool,
     cap: float,
@@ -874,28 +858,29 @@ def _pick(
     of the thinnings a clearcut forgoes, within the area ``cap``, and whether the pick is
     decided within ``cand`` (the first of the period's queue unless ``whole``). ``budget``:
     the cover budgets an earlier pick of the period left (None: the period's own)."""
+    parts, rules, age_h, t = pick.parts, pick.rules, pick.age_h, pick.t
     area = parts.area
-    vol = (v_ha - pending[cand]) * area[cand]
-    pick: list = [spatial] if spatial is not None else []
+    vol = (v_ha - pick.pending[cand]) * area[cand]
+    checks: list = [pick.spatial] if pick.spatial is not None else []
     if rules.cover is not None:
         if budget is None:
             budgets = rules.cover.budgets(parts.zone[cand], age_h[cand], parts.zone, age_h, area)
         else:
             budgets = PeriodBudgets(rules.cover, budget.copy(), parts.zone[cand], age_h[cand])
-        pick.append(budgets)
+        checks.append(budgets)
     decided = True
-    if not pick:
+    if not checks:
         full_pos, part_pos, frac, decided = _pick_prefix(vol, area[cand], target, cap)
     else:
-        picked = compiled_pick(t, parts.stand[cand], vol, area[cand], target, cap, pick, whole)
+        picked = compiled_pick(t, parts.stand[cand], vol, area[cand], target, cap, checks, whole)
         if picked is None:  # more of the queue could change the pick: rank more
             none = np.zeros(0, dtype=np.intp)
             return none, none, False
         full_pos, part_pos, frac, refused = picked
         cut.tested = len(full_pos) + (part_pos >= 0) + sum(refused)
         if rules.cover is not None:
-            cut.cover_left = pick[-1].budget
-        names = [r.name for r, n in zip(pick, refused, strict=True) if n]
+            cut.cover_left = checks[-1].budget
+        names = [r.name for r, n in zip(checks, refused, strict=True) if n]
         cut.blocked = " and ".join(dict.fromkeys(names))
     cut.full = cand[full_pos]
     part = np.array([part_pos]) if part_pos >= 0 else np.zeros(0, dtype=np.intp)
