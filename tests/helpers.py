@@ -194,3 +194,58 @@ def gap_forest(n: int = 120, seed: int = 4):
         np.zeros(n),
         np.arange(n),
     )
+
+
+def unit_forest(n: int, seed: int, old: float = 0.6) -> list:
+    """The per-stand arrays (species, site, age, area, minimum age, delay) of a one-species
+    forest with a share ``old`` of old stands (90-160 years) and the rest young (0-30)."""
+    rng = np.random.default_rng(seed)
+    ages = np.where(rng.random(n) < old, rng.uniform(90, 160, n), rng.uniform(0, 30, n))
+    return [
+        np.zeros(n, np.int32),
+        rng.uniform(16, 24, n),
+        ages,
+        rng.uniform(5, 30, n),
+        np.full(n, 60.0),
+        np.zeros(n),
+    ]
+
+
+def stands_of(*parts: list):
+    """StandArrays of several :func:`unit_forest` forests, one after the other."""
+    from yieldscape.projection import StandArrays
+
+    arrays = [np.concatenate(cols) for cols in zip(*parts, strict=True)]
+    return StandArrays(*arrays, np.arange(len(arrays[0])))
+
+
+def cbc_solve(model) -> tuple[float, list]:  # noqa: ANN001 - an LPModel
+    """CBC (through PuLP, an independent solver) on the same matrix model: the optimal cost
+    of the minimisation and the solution."""
+    import warnings
+
+    import pulp
+
+    A = model.matrix.tocsr()
+    prob = pulp.LpProblem("harvest", pulp.LpMinimize)
+    x = [prob.add_variable(f"x{i}", lowBound=0) for i in range(A.shape[1])]
+    prob += pulp.lpSum(float(c) * x[i] for i, c in enumerate(model.cost) if c)
+    for r in range(A.shape[0]):
+        span = slice(A.indptr[r], A.indptr[r + 1])
+        expr = pulp.lpSum(
+            float(v) * x[c] for c, v in zip(A.indices[span], A.data[span], strict=True)
+        )
+        lo, hi = model.row_lo[r], model.row_hi[r]
+        if lo == hi:
+            prob += expr == float(lo)
+        else:
+            if np.isfinite(lo) and lo > -1e29:
+                prob += expr >= float(lo)
+            if np.isfinite(hi) and hi < 1e29:
+                prob += expr <= float(hi)
+    with warnings.catch_warnings():
+        # PuLP 3 still ships CBC but announces its move to a separate package in PuLP 4
+        warnings.simplefilter("ignore", DeprecationWarning)
+        prob.solve(pulp.PULP_CBC_CMD(msg=False))
+    assert pulp.LpStatus[prob.status] == "Optimal"
+    return pulp.value(prob.objective), x

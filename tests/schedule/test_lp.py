@@ -1,13 +1,11 @@
 """The harvest LP (Model II, HiGHS) against an independent solver and known optima."""
 
 import json
-import warnings
 from dataclasses import replace
 from types import SimpleNamespace
 
 import numpy as np
 import pandas as pd
-import pulp
 import pytest
 
 import yieldscape
@@ -33,7 +31,15 @@ from yieldscape.schedule.lp import (
 )
 from yieldscape.schedule.lp_plan import guided, lp_schedule
 
-from helpers import gap_forest, scenario_dict, squares, stand_attrs, write_layer, write_scenario
+from helpers import (
+    cbc_solve,
+    gap_forest,
+    scenario_dict,
+    squares,
+    stand_attrs,
+    write_layer,
+    write_scenario,
+)
 
 CURVE = ChapmanRichards(450.0, 0.035, 3.0)
 CURVES = CurveSet(["pine"], [CURVE])
@@ -75,30 +81,10 @@ def cbc_objective(model):
     """The optimum of the same matrix model solved by CBC through PuLP (maximised): for the
     objectives on a level column, the level at CBC's optimum (the tie-break on the volume
     aside)."""
-    A = model.matrix.tocsr()
-    prob = pulp.LpProblem("harvest", pulp.LpMinimize)
-    x = [prob.add_variable(f"x{i}", lowBound=0) for i in range(A.shape[1])]
-    prob += pulp.lpSum(float(c) * x[i] for i, c in enumerate(model.cost) if c)
-    for r in range(A.shape[0]):
-        cols = A.indices[A.indptr[r] : A.indptr[r + 1]]
-        vals = A.data[A.indptr[r] : A.indptr[r + 1]]
-        expr = pulp.lpSum(float(v) * x[c] for c, v in zip(cols, vals, strict=True))
-        lo, hi = model.row_lo[r], model.row_hi[r]
-        if lo == hi:
-            prob += expr == float(lo)
-        else:
-            if np.isfinite(lo) and lo > -1e29:
-                prob += expr >= float(lo)
-            if np.isfinite(hi) and hi < 1e29:
-                prob += expr <= float(hi)
-    with warnings.catch_warnings():
-        # PuLP 3 still ships CBC but announces its move to a separate package in PuLP 4
-        warnings.simplefilter("ignore", DeprecationWarning)
-        prob.solve(pulp.PULP_CBC_CMD(msg=False))
-    assert pulp.LpStatus[prob.status] == "Optimal"
+    cost, x = cbc_solve(model)
     if model.level_col >= 0:
         return x[model.level_col].value()
-    return -pulp.value(prob.objective)
+    return -cost
 
 
 def test_lp_optimum_bounds_the_rule_based_forecast():

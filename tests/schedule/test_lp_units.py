@@ -5,39 +5,19 @@ respect to its right-hand side where that is differentiable, and lies between th
 derivatives where it is not; Bazaraa, Jarvis & Sherali, *Linear Programming and Network Flows*,
 ch. 6, from memory)."""
 
-import warnings
-
 import numpy as np
-import pulp
 import pytest
 
 from yieldscape.growth import ChapmanRichards
-from yieldscape.projection import CurveSet, Periods, StandArrays
+from yieldscape.projection import CurveSet, Periods
 from yieldscape.schedule.lp import build_lp, make_strata, solve_highs
 from yieldscape.schedule.lp_units import Cells, Partition, UnitFlow, make_cells
 
+from helpers import cbc_solve, stands_of
+from helpers import unit_forest as forest
+
 CURVES = CurveSet(["pine"], [ChapmanRichards(450.0, 0.035, 3.0)])
 PERIODS = Periods(2030, 10, 8, "midpoint")
-
-
-def forest(n, seed, old=0.6):
-    """A one-species forest with a share ``old`` of old stands and an age gap."""
-    rng = np.random.default_rng(seed)
-    ages = np.where(rng.random(n) < old, rng.uniform(90, 160, n), rng.uniform(0, 30, n))
-    return [
-        np.zeros(n, np.int32),
-        rng.uniform(16, 24, n),
-        ages,
-        rng.uniform(5, 30, n),
-        np.full(n, 60.0),
-        np.zeros(n),
-    ]
-
-
-def stands_of(*parts):
-    """The stands of several forests, one after the other."""
-    arrays = [np.concatenate(cols) for cols in zip(*parts, strict=True)]
-    return StandArrays(*arrays, np.arange(len(arrays[0])))
 
 
 def solve(st, cells, objective="max-even-flow", units=None, partitions=(), **kw):
@@ -205,26 +185,5 @@ def test_cells_split_units_and_memberships_per_code():
 
 
 def cbc(model):
-    """CBC (through PuLP) on the same matrix model: the optimal cost and the solution."""
-    A = model.matrix.tocsr()
-    prob = pulp.LpProblem("harvest", pulp.LpMinimize)
-    x = [prob.add_variable(f"x{i}", lowBound=0) for i in range(A.shape[1])]
-    prob += pulp.lpSum(float(c) * x[i] for i, c in enumerate(model.cost) if c)
-    for r in range(A.shape[0]):
-        span = slice(A.indptr[r], A.indptr[r + 1])
-        expr = pulp.lpSum(
-            float(v) * x[c] for c, v in zip(A.indices[span], A.data[span], strict=True)
-        )
-        lo, hi = model.row_lo[r], model.row_hi[r]
-        if lo == hi:
-            prob += expr == float(lo)
-        else:
-            if np.isfinite(lo) and lo > -1e29:
-                prob += expr >= float(lo)
-            if np.isfinite(hi) and hi < 1e29:
-                prob += expr <= float(hi)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", DeprecationWarning)
-        prob.solve(pulp.PULP_CBC_CMD(msg=False))
-    assert pulp.LpStatus[prob.status] == "Optimal"
-    return pulp.value(prob.objective), [v.value() for v in x]
+    cost, x = cbc_solve(model)
+    return cost, [v.value() for v in x]

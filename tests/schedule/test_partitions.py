@@ -7,32 +7,20 @@ import numpy as np
 import pytest
 
 from yieldscape.growth import ChapmanRichards
-from yieldscape.projection import CurveSet, Periods, StandArrays
+from yieldscape.projection import CurveSet, Periods
 from yieldscape.schedule import HarvestRules, find_even_flow
 from yieldscape.schedule.lp import build_lp, make_strata, solve_highs
 from yieldscape.schedule.lp_units import Partition, make_cells
 from yieldscape.schedule.partitions import PartitionRules
+
+from helpers import stands_of, unit_forest
 
 CURVES = CurveSet(["pine"], [ChapmanRichards(450.0, 0.035, 3.0)])
 PERIODS = Periods(2030, 10, 8, "midpoint")
 NAN = np.nan
 
 
-def forest(n=60, seed=5):
-    rng = np.random.default_rng(seed)
-    ages = np.where(rng.random(n) < 0.6, rng.uniform(90, 160, n), rng.uniform(0, 30, n))
-    return StandArrays(
-        np.zeros(n, np.int32),
-        rng.uniform(16, 24, n),
-        ages,
-        rng.uniform(5, 30, n),
-        np.full(n, 60.0),
-        np.zeros(n),
-        np.arange(n),
-    )
-
-
-ST = forest()
+ST = stands_of(unit_forest(60, 5))
 MEMBER = (np.arange(ST.n) % 3 == 0)[:, None, None]  # every third stand, whatever its code
 
 

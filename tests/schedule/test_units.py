@@ -7,30 +7,15 @@ import pytest
 
 from yieldscape.growth import ChapmanRichards
 from yieldscape.policies import EvenFlow, PerUnit
-from yieldscape.projection import CurveSet, Periods, StandArrays
+from yieldscape.projection import CurveSet, Periods
 from yieldscape.schedule import HarvestRules, find_even_flow, simulate
 from yieldscape.schedule.units import UnitPolicy, find_unit_flows
 
+from helpers import stands_of
+from helpers import unit_forest as forest
+
 CURVES = CurveSet(["pine"], [ChapmanRichards(450.0, 0.035, 3.0)])
 PERIODS = Periods(2030, 10, 8, "midpoint")
-
-
-def forest(n, seed, old=0.6):
-    rng = np.random.default_rng(seed)
-    ages = np.where(rng.random(n) < old, rng.uniform(90, 160, n), rng.uniform(0, 30, n))
-    return [
-        np.zeros(n, np.int32),
-        rng.uniform(16, 24, n),
-        ages,
-        rng.uniform(5, 30, n),
-        np.full(n, 60.0),
-        np.zeros(n),
-    ]
-
-
-def stands_of(*parts):
-    arrays = [np.concatenate(cols) for cols in zip(*parts, strict=True)]
-    return StandArrays(*arrays, np.arange(len(arrays[0])))
 
 
 A, B = forest(40, 1), forest(30, 2, 0.3)
