@@ -406,9 +406,10 @@ def _harvest_figure(result: RunResult, scenario: Scenario, figs: _Figures) -> No
             "Harvest per year in each period (solid), the long-term sustained yield "
             "(harvestable area x MAI) at MAI culmination and at the minimum harvest ages, "
             "the range the flow band allows each period given the period before (shaded), "
-            "and the harvest LP's harvest where it was solved: it bounds the total over the "
-            "horizon, not each period, and it may move within the band from period to "
-            "period, which the even-flow search (one level for all periods) does not.",
+            "and the harvest LP's harvest where it was solved: beside a rule-based run the "
+            "bound of the same problem, whose lowest period bounds the level a schedule "
+            "under the same rules holds in every period (its periods may differ within the "
+            "band); in the optimised mode the LP's own schedule.",
         ),
         wf,
         result.long_term_sustained_yield,

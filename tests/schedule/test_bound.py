@@ -124,6 +124,7 @@ def test_lp_guided_searches_keep_every_rule_and_the_best_level_wins(seed, cap):
     assert lp.level_m3 >= best.level_m3_per_period * (1 - 1e-6)
     assert best.details["lp_guided_level_m3_per_period"] == max(levels[1:])
     assert best.details["lp_guided_ending_order_level_m3_per_period"] == levels[2]
+    assert best.details["lp_guided_rank_order_level_m3_per_period"] == levels[1]
 
 
 def test_optimised_schedule_is_lowered_until_it_holds_the_ending_stock():

@@ -175,6 +175,7 @@ def better(
     details["priority_order_level_m3_per_period"] = ordered.level_m3_per_period
     details["lp_guided_level_m3_per_period"] = max(f.level_m3_per_period for f in guided_flows)
     if len(guided_flows) > 1:
+        details["lp_guided_rank_order_level_m3_per_period"] = guided_flows[0].level_m3_per_period
         details["lp_guided_ending_order_level_m3_per_period"] = guided_flows[1].level_m3_per_period
     steps = ordered.steps + sum(f.steps for f in guided_flows)
     return replace(best, details=details, steps=steps), won
