@@ -80,3 +80,50 @@ def test_a_partition_that_cannot_be_kept_is_named():
     found = find_even_flow(ST, CURVES, PERIODS, many, band=0.0, ending_stock=0.0)
     assert found.level_m3_per_period == 0.0
     assert "partition 'thirds'" in found.binding and "period 1" in found.binding
+
+
+def test_partition_membership_is_read_per_code():
+    # A rule naming species reads each code in turn (a stand regenerated as spruce counts
+    # as spruce); a rule that does not is read once for all codes.
+    import pandas as pd
+
+    from yieldscape.errors import InputError
+    from yieldscape.schedule.lp_units import make_cells
+    from yieldscape.schedule.partitions import partition_rules
+
+    class Spec:
+        def __init__(self, name, where, **limits):
+            self.name, self.where = name, where
+            for key in ("min_share", "max_share", "min_m3", "max_m3"):
+                setattr(self, key, limits.get(key))
+
+    fields = {
+        "AGE": pd.Series([30, 80, 120, 60]),
+        "OWNER": pd.Series(["a", "b", "a", None]),
+        "species": pd.Series(["pine", "pine", "spruce", "spruce"]),
+    }
+    specs = [
+        Spec("old spruce", "species == 'spruce' and AGE > 50", min_share=0.2),
+        Spec("owner a", "OWNER == 'a'", max_m3=500.0),
+    ]
+    rules = partition_rules(specs, fields, ["pine", "spruce"], "s.toml")
+    assert rules.names == ("old spruce", "owner a")
+    assert rules.member[:, :, 0].tolist() == [
+        [False, False],
+        [False, True],
+        [False, True],
+        [False, True],
+    ]
+    assert rules.member[:, :, 1].tolist() == [
+        [True, True],
+        [False, False],
+        [True, True],
+        [False, False],
+    ]
+    np.testing.assert_array_equal(rules.min_share, [0.2, np.nan])
+    np.testing.assert_array_equal(rules.max_m3, [np.nan, 500.0])
+    # the cells: units x memberships per code (here one unit; stands 1 and 3 share theirs)
+    cells = make_cells(np.zeros(4, np.int64), rules.member)
+    assert cells.n == 3 and cells.of_stand[1] == cells.of_stand[3]
+    with pytest.raises(InputError, match=r"s.toml: \[\[partitions\]\] 'bad'.*NOPE"):
+        partition_rules([Spec("bad", "NOPE > 1")], fields, ["pine"], "s.toml")

@@ -15,10 +15,16 @@ the partition.
 
 from __future__ import annotations
 
+import ast
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from typing import Protocol
 
 import numpy as np
+import pandas as pd
 from numpy.typing import NDArray
+
+from yieldscape.expressions import evaluate_where
 
 _REL = 1e-9
 
@@ -74,6 +80,55 @@ class PartitionRules:
                     f"above its maximum of {high[k]:,.0f} m3"
                 )
         return ""
+
+
+class PartitionSpec(Protocol):
+    """What a partition is asked as (a ``[[partitions]]`` table): its name, its ``where`` rule
+    and its limits (None: none)."""
+
+    name: str
+    where: str
+    min_share: float | None
+    max_share: float | None
+    min_m3: float | None
+    max_m3: float | None
+
+
+def partition_rules(
+    specs: Sequence[PartitionSpec],
+    fields: Mapping[str, pd.Series],
+    codes: Sequence[str],
+    where: str,
+) -> PartitionRules:
+    """The partitions of ``specs`` over stands with these ``fields`` (the stand layer's
+    attributes and ``unit``, ``zone``): each ``where`` rule read once per code with
+    ``species`` as that code (once for all codes where the rule does not name ``species``).
+    ``where`` prefixes a rule's error (the file)."""
+    n = len(next(iter(fields.values())))
+    member = np.zeros((n, len(codes), len(specs)), dtype=bool)
+    for k, spec in enumerate(specs):
+        at = f"{where}: [[partitions]] {spec.name!r}"
+        names = _names(spec.where)
+        if "species" not in names:
+            member[:, :, k] = evaluate_where(spec.where, fields, at)[:, None]
+            continue
+        for c, code in enumerate(codes):
+            as_code = {**fields, "species": pd.Series([code] * n, dtype=object)}
+            member[:, c, k] = evaluate_where(spec.where, as_code, at)
+    limits = [
+        np.array([np.nan if getattr(s, key) is None else float(getattr(s, key)) for s in specs])
+        for key in ("min_share", "max_share", "min_m3", "max_m3")
+    ]
+    return PartitionRules(tuple(s.name for s in specs), member, *limits)
+
+
+def _names(expr: str) -> set[str]:
+    """The field names a rule reads (none where it does not parse: evaluate_where says so)."""
+    try:
+        tree = ast.parse(expr, mode="eval")
+    except SyntaxError:
+        return set()
+    return {x.id for x in ast.walk(tree) if isinstance(x, ast.Name)}
 
 
 def _times(share: NDArray, harvest_m3: float) -> NDArray:
