@@ -123,14 +123,19 @@ def test_a_cover_target_over_all_zones_is_titled_so(small_case, drawn):
     assert titles[0].startswith("all zones: ") and not any("*" in t for t in titles)
 
 
-def test_no_identifier_in_any_title_label_or_legend(small_case, drawn):
+def every_figure(small_case):
+    """The small case with a cover target and disturbance replicates: every figure drawn."""
     tmp, layer, _ = small_case
     raw = scenario_dict(
         layer,
         cover=[{"zone": "*", "older_than_years": 80, "min_share": 0.1}],
         disturbance={"annual_rate": 0.002, "replicates": 3},
     )
-    scn = write_scenario(tmp / "all.toml", raw)
+    return tmp, write_scenario(tmp / "all.toml", raw)
+
+
+def test_no_identifier_in_any_title_label_or_legend(small_case, drawn):
+    tmp, scn = every_figure(small_case)
     assert main(["run", str(scn), "--out", str(tmp / "out"), "-q", *DRAW]) == 0
     assert len(drawn) >= 7
     for name, fig in drawn.items():
@@ -145,13 +150,7 @@ def test_figures_drawn_beside_the_geopackage_are_the_ones_drawn_alone(small_case
     # files, pixel for pixel (read back by Pillow), and the report lists them in the same order
     from PIL import Image
 
-    tmp, layer, _ = small_case
-    raw = scenario_dict(
-        layer,
-        cover=[{"zone": "*", "older_than_years": 80, "min_share": 0.1}],
-        disturbance={"annual_rate": 0.002, "replicates": 3},
-    )
-    scn = write_scenario(tmp / "all.toml", raw)
+    tmp, scn = every_figure(small_case)
     assert main(["run", str(scn), "--out", str(tmp / "shared"), "-q", *DRAW]) == 0
     monkeypatch.setattr(sharedwork, "FORK", False)
     assert main(["run", str(scn), "--out", str(tmp / "alone"), "-q", *DRAW]) == 0

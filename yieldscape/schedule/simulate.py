@@ -1257,11 +1257,10 @@ class _UnitBook:
         if not isinstance(rule, PerUnit):
             raise TypeError("a run with management units needs a PerUnit target rule")
         U = len(rule.rules)
-        P = 0  # grown as periods are booked
         share = np.broadcast_to(np.asarray(ending_stock, dtype=np.float64), U).copy()
         of_stand = np.asarray(units, dtype=np.int64)
         initial = np.bincount(of_stand[start.stand], stocks, U)
-        empty = np.zeros((P, U))
+        empty = np.zeros((0, U))  # a row per period as it is booked
         return cls(
             of_stand, rule, share, empty, empty, empty, np.zeros(U, np.int64), [""] * U, initial
         )
