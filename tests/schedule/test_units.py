@@ -142,3 +142,48 @@ def test_a_maximum_is_shared_among_units_as_their_targets():
         by_unit = np.bincount(UNIT[sim.event_stand[at]], sim.event_volume_m3[at], 2)
         assert (by_unit <= 0.2 * sim.unit_target_m3[p - 1] * (1 + 1e-9) + 1e-6).all()
     assert (sim.partition_m3[:, 0] <= 0.2 * sim.harvest_m3 * (1 + 1e-9)).all()
+
+
+@pytest.mark.parametrize("cap", [None, 300.0])
+def test_the_picks_of_units_and_partitions_do_not_depend_on_the_queue_ranked_first(
+    monkeypatch, cap
+):
+    # Each pick of a unit or a partition ranks only the first of its queue (twice what it
+    # went through the period before) and more where that does not decide it; targets that
+    # jump from period to period make the picks rank more. The reference ranks every
+    # eligible stand every time (a plain sort of the whole queue): the same cuts, exactly.
+    import importlib
+
+    from yieldscape.policies import Targets
+    from yieldscape.schedule.partitions import PartitionRules
+
+    simulate_module = importlib.import_module("yieldscape.schedule.simulate")
+    st = stands_of(A, B)
+    member = np.stack([np.arange(st.n) % 3 == 0, np.arange(st.n) % 2 == 0], axis=1)[:, None]
+    nan = np.array([np.nan, np.nan])
+    limits = np.array([0.3, np.nan]), np.array([np.nan, 0.6]), nan, nan
+    rules = HarvestRules(
+        units=UNIT,
+        partitions=PartitionRules(("thirds", "halves"), member, *limits),
+        max_area_ha=cap,
+    )
+    rule = PerUnit(
+        (
+            Targets((5e3, 4e4, 1e4, 6e4, 5e3, 5e4, 1e3, 8e4)),
+            Targets((3e3, 3e4, 3e3, 3e4, 3e3, 3e4, 3e3, 3e4)),
+        )
+    )
+
+    def run(queue_min: int):
+        monkeypatch.setattr(simulate_module, "_QUEUE_MIN", queue_min)
+        return simulate(st, CURVES, PERIODS, rule, rules, record=True)
+
+    small, whole = run(1), run(10**9)
+    assert (whole.partition_m3.sum(axis=0) > 0).all() and len(whole.event_stand) > 50
+    for got, want in [
+        (small.event_stand, whole.event_stand),
+        (small.event_area_ha, whole.event_area_ha),
+        (small.unit_harvest_m3, whole.unit_harvest_m3),
+        (small.partition_m3, whole.partition_m3),
+    ]:
+        np.testing.assert_array_equal(got, want)

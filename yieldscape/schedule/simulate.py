@@ -427,6 +427,7 @@ class _Cut:
     blocked: str = ""
     all_taken: bool = True
     tested: int = 0  # candidates a rule-based pick went through (cut or refused)
+    depth: int = 0  # positions of the ranked queue a pick went through (see _pick_queue)
     # management units: each unit's harvest [m3] and why its pick stopped; the cover budgets
     # a pick left (for the next unit's); the thinning volume of each thinned part [m3]
     unit_m3: NDArray | None = None
@@ -550,6 +551,7 @@ def _cut_period(
     order: tuple[NDArray | None, NDArray | None, EndingCost | None],
     record: bool,
     queue_size: int,
+    sizes: dict[tuple[int, int], int] | None = None,
 ) -> _Cut:
     """Rank the eligible parts (age at the harvest moment ``age_h``) and clearcut up to the
     target and the area cap, the last part partly; rules of the sequential pick skip parts
@@ -560,7 +562,9 @@ def _cut_period(
     the plan's rank of each stand (None: no plan), the management unit of each part (None:
     one flow; with units ``target`` holds one target per unit, and each unit's parts are
     picked in turn toward its own target, :func:`_pick_units`), and the ending-stock order
-    that ranks each of the plan's ranks instead of the priority rule (None: the rule)."""
+    that ranks each of the plan's ranks instead of the priority rule (None: the rule).
+    ``sizes``: with units or partitions, the queue size each of their picks ranks first,
+    by (partition or -1, unit), as the pick of the period before needed it (updated here)."""
     planned_first, unit_of_part, ending = order
     cut = _Cut()
     live, due_ha, due_age, upto, nxt = _thinnings_due(parts, age_h, reg)
@@ -572,7 +576,18 @@ def _cut_period(
     elig = np.flatnonzero((age_h >= parts.min_age - 1e-9) & (parts.area > 0))
     cap = np.inf if rules.max_area_ha is None else float(rules.max_area_ha)
     pick = _Context(
-        parts, curves, reg, rules, spatial, t, age_h, planned_first, pending, queue_size, ending
+        parts,
+        curves,
+        reg,
+        rules,
+        spatial,
+        t,
+        age_h,
+        planned_first,
+        pending,
+        queue_size,
+        ending,
+        sizes if sizes is not None else {},
     )
     if unit_of_part is None and rules.partitions is not None:  # one unit
         unit_of_part, target = np.zeros(len(parts.age), dtype=np.int64), np.array([target])
@@ -602,7 +617,9 @@ def _cut_period(
 class _Context:
     """What every pick of a period shares: the parts, curves, regimes and rules, the spatial
     state, the harvest moment and the parts' ages then, the plan's ranks, the thinnings
-    pending per part [m3/ha], the queue size to rank first and the ending-stock order."""
+    pending per part [m3/ha], the queue size to rank first and the ending-stock order, and
+    the queue size of each pick of units or partitions (by partition or -1, and unit; see
+    :func:`_pick_units`)."""
 
     parts: _Parts
     curves: CurveSet
@@ -615,6 +632,7 @@ class _Context:
     pending: NDArray
     queue_size: int
     ending: EndingCost | None
+    sizes: dict[tuple[int, int], int]
 
 
 def _pick_queue(
@@ -625,16 +643,19 @@ def _pick_queue(
     cap: float,
     budget: NDArray | None,
     limit: tuple[NDArray, NDArray] | None = None,
+    size: int | None = None,
 ) -> tuple[NDArray, NDArray, NDArray, NDArray]:
     """The pick among the eligible parts ``elig`` toward ``goal`` (clearcut volume) within the
     area ``cap``, ranking more of the queue until the pick is decided within it; with
     ``budget``, the cover budgets left by an earlier pick of the period; with ``limit`` (each
     part's partitions and each partition's room left [m3]), without the candidates a
-    partition's maximum leaves out (:func:`~yieldscape.schedule.partitions.within_maximum`).
-    Returns the ranked candidates, their volumes [m3/ha] and the positions cut whole and
-    partly."""
+    partition's maximum leaves out (:func:`~yieldscape.schedule.partitions.within_maximum`);
+    ``size``: the queue size to rank first (None: the period's). Returns the ranked
+    candidates, their volumes [m3/ha] and the positions cut whole and partly; ``cut.depth``
+    says how far into the ranked queue (before the maximum's filter) the pick went."""
     parts, curves, reg, rules, age_h = pick.parts, pick.curves, pick.reg, pick.rules, pick.age_h
-    pending, queue_size, planned_first = pick.pending, pick.queue_size, pick.planned_first
+    pending, planned_first = pick.pending, pick.planned_first
+    queue_size = pick.queue_size if size is None else size
     cand, v_cand = elig[:0], np.zeros(0)
     full_pos = part_pos = np.zeros(0, dtype=np.intp)
     if goal > 0 and len(elig):
@@ -643,15 +664,19 @@ def _pick_queue(
             cand, v_cand, whole = _queue(
                 parts, curves, reg, rules.priority, age_h, elig, first, queue_size, pick.ending
             )
+            ranked = np.arange(len(cand))  # the kept candidates' positions in the queue
             if limit is not None:
                 net = (v_cand - pending[cand]) * parts.area[cand]
-                keep = within_maximum(net, limit[0][cand], limit[1])
-                cand, v_cand = cand[keep], v_cand[keep]
+                ranked = np.flatnonzero(within_maximum(net, limit[0][cand], limit[1]))
+                cand, v_cand = cand[ranked], v_cand[ranked]
             if len(cand):
                 full_pos, part_pos, decided = _pick(
                     cut, pick, cand, v_cand, goal, whole, cap, budget
                 )
                 if whole or decided:
+                    used = max(cut.tested, len(full_pos) and int(full_pos[-1]) + 1)
+                    used = max(used, len(part_pos) and int(part_pos[-1]) + 1)
+                    cut.depth = int(ranked[used - 1]) + 1 if used else 0
                     break
             elif whole:
                 break
@@ -712,7 +737,13 @@ def _pick_units(
             mine = mine[mem[mine, k]]
         sub = _Cut()
         limit = None if room is None else (mem, room[u])
-        cand, v, full, part = _pick_queue(sub, pick, mine, want, cap, cover_left, limit)
+        # a pick's queue: twice what it went through the period before (at first the
+        # period's queue size, in its share of the eligible parts)
+        size = pick.sizes.get((k, u), pick.queue_size * len(mine) // max(len(elig), 1))
+        cand, v, full, part = _pick_queue(
+            sub, pick, mine, want, cap, cover_left, limit, max(size, _QUEUE_MIN)
+        )
+        pick.sizes[(k, u)] = max(2 * (sub.depth + 1), _QUEUE_MIN)
         net = (v - pending[cand]) * area[cand]
         got = np.r_[net[full], sub.frac * net[part]]
         at = np.r_[cand[full], cand[part]].astype(np.intp)
@@ -1159,6 +1190,7 @@ def simulate(
     out = _Totals.empty(P)
     kept_at = set(rules.snapshots) if record else set()
     queue_size = max(len(parts.age) // 4, _QUEUE_MIN)
+    sizes: dict[tuple[int, int], int] = {}  # the picks' of units and partitions
     hlb_stock = start.hlb_stock_m3  # at the start of the period (the end of the last)
     book = _UnitBook.start(rules, rule, ending_stock, parts, curves, reg)
     for p in range(P):
@@ -1180,7 +1212,7 @@ def simulate(
             _ending_cost(rules.plan, p, stands, curves, P * L - t, regen_shares),
         )
         cut = _cut_period(
-            parts, curves, reg, rules, spatial, t, age_h, target, order, record, queue_size
+            parts, curves, reg, rules, spatial, t, age_h, target, order, record, queue_size, sizes
         )
         # this period's cut (and the candidates the rules refused), twice
         queue_size = max(2 * (len(cut.full) + 1), 2 * cut.tested, _QUEUE_MIN)
