@@ -127,3 +127,64 @@ def test_partition_membership_is_read_per_code():
     assert cells.n == 3 and cells.of_stand[1] == cells.of_stand[3]
     with pytest.raises(InputError, match=r"s.toml: \[\[partitions\]\] 'bad'.*NOPE"):
         partition_rules([Spec("bad", "NOPE > 1")], fields, ["pine"], "s.toml")
+
+
+def test_from_a_trial_beyond_a_limit_the_search_estimates_where_it_is_met():
+    # By hand (the bracket's documented estimate): a trial at 100 whose partition yields 120
+    # m3 over a maximum of 90 puts the next level at 100 x 90/120 = 75; under a minimum
+    # (45 of 60), at 100 x 45/60; from two trials well beyond the same limit, on the line
+    # through them (volume - limit: 30 at 100, 10 at 80, so 0 at 70). Within half the
+    # tolerance of the top at least, from above (not expected to hold).
+    from types import SimpleNamespace
+
+    from yieldscape.schedule.flow import _Bracket
+
+    def broke(v, limit):
+        return SimpleNamespace(feasible=False, partition_break=(2, 0, v, limit))
+
+    ok = SimpleNamespace(feasible=True, partition_break=None)
+    b = _Bracket(0.0, 100.0, ok, broke(120.0, 90.0))
+    b.add(100.0, None, broke(120.0, 90.0))
+    assert b.next_level(1.0) == (75.0, False)
+    b = _Bracket(0.0, 100.0, ok, broke(45.0, 60.0))
+    b.add(100.0, None, broke(45.0, 60.0))
+    assert b.next_level(1.0) == (pytest.approx(75.0), False)
+    b = _Bracket(0.0, 100.0, ok, broke(130.0, 100.0))
+    b.add(100.0, None, broke(130.0, 100.0))
+    b.add(80.0, None, broke(105.0, 95.0))
+    assert b.next_level(1.0) == (pytest.approx(70.0), False)
+    b = _Bracket(0.0, 100.0, ok, broke(100.1, 100.0))  # the estimate 99.9: too near the top
+    b.add(100.0, None, broke(100.1, 100.0))
+    assert b.next_level(1.0) == (99.5, False)
+
+
+@pytest.mark.parametrize("seed, max_share", [(5, 0.5), (5, 0.4), (7, 0.5), (8, 0.3)])
+def test_the_search_on_a_broken_partition_ends_at_the_first_level_that_breaks_it(seed, max_share):
+    # A maximum that the trials above the level break in an early period (the benchmark's
+    # 'old' stands). Reference: an exhaustive scan of 201 levels from 0.9 to 1.1 x the level
+    # found, run by the simulation itself; the search's level holds and is no lower than the
+    # scan's last level that holds before its first that fails (less the scan's step and the
+    # search tolerance): interpolating on the partition never stops below the first break.
+    from yieldscape.policies import EvenFlow
+    from yieldscape.schedule import simulate
+    from yieldscape.schedule.flow import search_tolerance_m3
+
+    st = stands_of(unit_forest(400, seed))
+    old = (st.age_years > 100)[:, None, None]
+    rules = HarvestRules(
+        partitions=PartitionRules(
+            ("old",), old, *[np.array([v]) for v in (NAN, max_share, NAN, NAN)]
+        )
+    )
+    found = find_even_flow(st, CURVES, PERIODS, rules, band=0.1, ending_stock=0.8)
+    level = found.level_m3_per_period
+    assert found.simulation.feasible and level > 0
+    grid = np.linspace(0.9 * level, 1.1 * level, 201)
+    ok = [
+        simulate(st, CURVES, PERIODS, EvenFlow(x, 0.1), rules, ending_stock=0.8).feasible
+        for x in grid
+    ]
+    assert ok[0] and not all(ok)
+    first_fail = grid[ok.index(False)]
+    tol = search_tolerance_m3(level, PERIODS.period_years)
+    assert level >= first_fail - (grid[1] - grid[0]) - tol

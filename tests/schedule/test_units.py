@@ -187,3 +187,35 @@ def test_the_picks_of_units_and_partitions_do_not_depend_on_the_queue_ranked_fir
         (small.partition_m3, whole.partition_m3),
     ]:
         np.testing.assert_array_equal(got, want)
+
+
+def test_the_common_factor_ends_at_the_first_factor_that_breaks_the_partition():
+    # Reference: an exhaustive scan of the common factor (200 steps of the units' levels
+    # without the partition), each run by the simulation itself; the factor found holds and
+    # is no lower than the scan's last factor that holds before its first that fails (less
+    # the scan's step and the search tolerance on the units' total).
+    from yieldscape.schedule.flow import search_tolerance_m3
+    from yieldscape.schedule.partitions import PartitionRules
+
+    st = stands_of(forest(200, 3), forest(150, 4, 0.4))
+    unit = np.r_[np.zeros(200, np.int64), np.ones(150, np.int64)]
+    old = (st.age_years > 100)[:, None, None]
+    nan = np.array([np.nan])
+    parts = PartitionRules(("old",), old, nan, np.array([0.5]), nan, nan)
+    free = find_unit_flows(st, CURVES, PERIODS, HarvestRules(units=unit), UNITS)
+    held = find_unit_flows(st, CURVES, PERIODS, HarvestRules(units=unit, partitions=parts), UNITS)
+    assert held.simulation.unit_feasible.all()
+    factor = held.levels_m3.sum() / free.levels_m3.sum()
+    assert factor < 0.999  # the partition binds
+
+    def holds(x):
+        rule = PerUnit(tuple(u.rule(x * f) for u, f in zip(UNITS, free.levels_m3, strict=True)))
+        shares = np.array([u.ending_stock for u in UNITS])
+        rules = HarvestRules(units=unit, partitions=parts)
+        return simulate(st, CURVES, PERIODS, rule, rules, ending_stock=shares).feasible
+
+    grid = np.linspace(0.0, 1.0, 201)
+    ok = [holds(x) for x in grid]
+    first_fail = grid[ok.index(False)]
+    tol = search_tolerance_m3(held.levels_m3.sum(), PERIODS.period_years)
+    assert factor >= first_fail - grid[1] - tol / free.levels_m3.sum()

@@ -38,6 +38,7 @@ from yieldscape.schedule.simulate import NO_RULES, HarvestRules, Simulation, Sta
 REL_TOL = 1e-4  # 0.01% of the level
 ABS_TOL_M3_PER_YEAR = 1.0
 MAX_STEPS = 80
+PARTITION_TRIES = 10  # levels estimated in a row from a broken partition (see _Bracket)
 
 
 def search_tolerance_m3(level_m3_per_period: float, period_years: float) -> float:
@@ -221,6 +222,16 @@ class _Bracket:
     steps (as in Brent's method). Once the estimate is near, the level tried is put a quarter
     of the tolerance past it, toward the farther end, so that one or two trials close the
     bracket.
+
+    Where the bracket's top broke a partition limit (``Simulation.partition_break``), the
+    estimate is where the partition's volume meets its limit instead: linearly through the
+    two latest levels that broke the same limit in the same period, or, from one, the level
+    scaled by limit / volume (a maximum) or volume / limit (a minimum), as a share limit
+    scales with the level. (A horizon that keeps its partitions keeps them by about a stand's
+    volume whatever its level, so only the trials beyond a limit say how far it is.) Those
+    trials close in from above while the low end may not move, so the halving rule does not
+    apply to them; after ``PARTITION_TRIES`` of them in a row without a level that holds,
+    the rules above take over again.
     """
 
     lo: float
@@ -229,13 +240,23 @@ class _Bracket:
     hi_sim: Simulation
     margins: dict[float, float] = field(default_factory=dict)  # level -> margin, in order
     widths: list[float] = field(default_factory=list)
+    # level -> (period, partition, volume, limit) of the trials that broke a partition limit
+    beyond: dict[float, tuple[int, int, float, float]] = field(default_factory=dict)
+    tries: int = 0  # levels estimated from the partition broken since the low end last moved
 
     def next_level(self, tol: float) -> tuple[float, bool]:
         """The next level to try, and whether it lies below the estimate (likely to hold)."""
         lo, hi = self.lo, self.hi
         self.widths.append(hi - lo)
         stalled = len(self.widths) > 2 and hi - lo > 0.5 * self.widths[-3]
-        guess = float("nan") if stalled else self._estimate()
+        if hi in self.beyond and self.tries < PARTITION_TRIES:
+            self.tries += 1
+            guess = self._partition_estimate()
+            if lo < guess < hi:  # from above, at least half the tolerance below the top
+                step = min(0.5 * tol, 0.25 * (hi - lo))
+                return max(min(guess, hi - step), lo + step), False
+        else:
+            guess = float("nan") if stalled else self._estimate()
         if not lo < guess < hi:
             return 0.5 * (lo + hi), False
         nearer_lo = guess - lo < hi - guess
@@ -261,11 +282,28 @@ class _Bracket:
             return x0 - f0 * (x1 - x0) / (f1 - f0)
         return float("nan")
 
+    def _partition_estimate(self) -> float:
+        """Where the volume of the partition the top broke meets its limit (see the class)."""
+        period, k, v1, lim1 = self.beyond[self.hi]
+        same = [x for x, b in reversed(self.beyond.items()) if b[:2] == (period, k)]
+        if len(same) > 1:  # linearly, while both are well beyond the limit (not within a
+            # stand or two of it, where which stand fits decides and the line says nothing)
+            x0, (v0, lim0) = same[1], self.beyond[same[1]][2:]
+            d0, d1 = v0 - lim0, v1 - lim1
+            if min(abs(d0), abs(d1)) > 1e-3 * lim1 and d0 != d1:
+                return x0 - d0 * (self.hi - x0) / (d1 - d0)
+        if v1 <= 0 or lim1 <= 0:
+            return float("nan")
+        return self.hi * (lim1 / v1 if v1 > lim1 else v1 / lim1)
+
     def add(self, level: float, margin: float | None, sim: Simulation) -> None:
         if margin is not None:
             self.margins[level] = margin
+        broke = getattr(sim, "partition_break", None)
+        if not sim.feasible and broke is not None:
+            self.beyond[level] = broke
         if sim.feasible:
-            self.lo, self.lo_sim = level, sim
+            self.lo, self.lo_sim, self.tries = level, sim, 0
         else:
             self.hi, self.hi_sim = level, sim
 

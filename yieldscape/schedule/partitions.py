@@ -62,24 +62,30 @@ class PartitionRules:
         out[has] = _times(self.max_share[has], harvest_m3)
         return np.minimum(out, np.where(np.isnan(self.max_m3), np.inf, self.max_m3))
 
-    def broken(self, volume_m3: NDArray, harvest_m3: float) -> str:
-        """The first limit the period's partition volumes break, in words ("" for none)."""
+    def first_broken(self, volume_m3: NDArray, harvest_m3: float) -> tuple[int, float, float]:
+        """The first limit the period's partition volumes break: the partition, its volume
+        and the limit [m3] (partition -1: none)."""
         low = self.minimum(harvest_m3)
         high = self.maximum(harvest_m3)
-        for k, name in enumerate(self.names):
-            v = volume_m3[k]
-            share = v / harvest_m3 if harvest_m3 > 0 else 0.0
+        for k in range(self.n):
+            v = float(volume_m3[k])
             if v < low[k] * (1 - 1e-7) - 1e-6:
-                return (
-                    f"partition {name!r} yields {v:,.0f} m3 ({share:.1%} of the harvest), "
-                    f"below its minimum of {low[k]:,.0f} m3"
-                )
+                return k, v, float(low[k])
             if v > high[k] * (1 + 1e-7) + 1e-6:
-                return (
-                    f"partition {name!r} yields {v:,.0f} m3 ({share:.1%} of the harvest), "
-                    f"above its maximum of {high[k]:,.0f} m3"
-                )
-        return ""
+                return k, v, float(high[k])
+        return -1, 0.0, 0.0
+
+    def broken(self, volume_m3: NDArray, harvest_m3: float) -> str:
+        """The first limit the period's partition volumes break, in words ("" for none)."""
+        k, v, limit = self.first_broken(volume_m3, harvest_m3)
+        if k < 0:
+            return ""
+        share = v / harvest_m3 if harvest_m3 > 0 else 0.0
+        side = "below its minimum" if v < limit else "above its maximum"
+        return (
+            f"partition {self.names[k]!r} yields {v:,.0f} m3 ({share:.1%} of the harvest), "
+            f"{side} of {limit:,.0f} m3"
+        )
 
 
 class PartitionSpec(Protocol):

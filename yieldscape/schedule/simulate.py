@@ -136,6 +136,10 @@ class Simulation:
     # harvest partitions (HarvestRules.partitions): per period and partition the volume [m3]
     # (record=True only)
     partition_m3: NDArray = field(default_factory=lambda: np.zeros((0, 0)))
+    # where the horizon failed first on a partition limit (record=False too): the period
+    # (1-based), the partition, its volume and the limit [m3] (None: it did not); the
+    # searches interpolate on how far beyond the limit a trial went (flow._Bracket)
+    partition_break: tuple[int, int, float, float] | None = None
 
     @property
     def unit_feasible(self) -> NDArray[np.bool_]:
@@ -435,6 +439,7 @@ class _Cut:
     cover_left: NDArray | None = None
     partition_m3: NDArray | None = None  # the period's volume of each partition
     partition_broken: str = ""  # the first partition limit the period broke
+    partition_break: tuple[int, float, float] | None = None  # its partition, volume, limit
     thin_m3_by_part: NDArray = field(default_factory=lambda: np.zeros(0))
     # stand, age, area, volume, code and treatment (0 clearcut, 1 thinning) of each event
     events: tuple[NDArray, ...] | None = None
@@ -788,6 +793,8 @@ def _partition_volumes(
     at = np.r_[cut.full, cut.part].astype(np.intp)
     cut.partition_m3 = vol @ mem[at] + (cut.thin_m3_by_part @ mem[thin] if len(thin) else 0.0)
     cut.partition_broken = partitions.broken(cut.partition_m3, cut.volume_m3)
+    if cut.partition_broken:
+        cut.partition_break = partitions.first_broken(cut.partition_m3, cut.volume_m3)
 
 
 def _unit_volumes(
@@ -1324,6 +1331,7 @@ class _UnitBook:
                 self.reasons[u] = cut.unit_reasons[u]
                 if sim.feasible:
                     sim.feasible, sim.fail_period, sim.fail_reason = False, p + 1, self.reasons[u]
+                    _broke(sim, p, cut)
         return all(self.reasons)
 
     def judge_end(self, sim: Simulation, parts: _Parts, stocks: NDArray) -> None:
@@ -1352,8 +1360,15 @@ def _missed(sim: Simulation, book: _UnitBook | None, p: int, cut: _Cut, floor: f
     if (short or cut.partition_broken) and sim.feasible:
         why = _fail_reason(cut) if short else cut.partition_broken
         sim.feasible, sim.fail_period, sim.fail_reason = False, p + 1, why
+        _broke(sim, p, cut)
         return True
     return False
+
+
+def _broke(sim: Simulation, p: int, cut: _Cut) -> None:
+    """Where a horizon failing in period index p fails on a partition: its limit, in ``sim``."""
+    if cut.partition_break is not None and sim.fail_reason == cut.partition_broken:
+        sim.partition_break = (p + 1, *cut.partition_break)
 
 
 def _regen_shares(rules: HarvestRules, reg: Regimes | None, P: int) -> NDArray | None:

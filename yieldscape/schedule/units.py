@@ -67,10 +67,13 @@ def find_unit_flows(
     rules: HarvestRules,
     units: Sequence[UnitPolicy],
     start: Start | None = None,
+    *,
+    record: bool = True,
 ) -> UnitFlows:
     """The highest feasible level of each even-flow unit, to the search tolerance, under the
     units' shared rules (see the module docstring). ``rules.units`` names each stand's unit
-    (codes in the order of ``units``)."""
+    (codes in the order of ``units``). With ``record=False`` (a search inside another) the
+    result's simulation is the check of the levels found, its verdict and totals only."""
     if rules.units is None:
         raise ValueError("find_unit_flows needs HarvestRules.units")
     for u in units:
@@ -97,7 +100,7 @@ def find_unit_flows(
     final: Simulation | None = None
     if rules.partitions is not None:  # a regional rule whose breach fails every unit
         free = find_unit_flows(
-            stands, curves, periods, replace(rules, partitions=None), units, start
+            stands, curves, periods, replace(rules, partitions=None), units, start, record=False
         )
         levels, why, final = _scaled(trial, free.levels_m3, searched, periods, shares)
         steps += free.steps
@@ -107,7 +110,7 @@ def find_unit_flows(
         open_ = searched if final is None else searched & ~_holds(final)
         levels, found = _search(trial, rules, levels, open_, periods, shares, final is None)
         why = [f if o else w for f, w, o in zip(found, why, open_, strict=True)]
-        final = trial(levels, True)
+        final = trial(levels, record)
     assert final is not None
     if not _holds(final)[searched].all():
         bad = [units[u].name for u in np.flatnonzero(~_holds(final) & searched)]
@@ -124,7 +127,9 @@ def _scaled(
 ) -> tuple[NDArray, list[str], Simulation]:
     """The searched units' levels without the partitions (``free``) scaled by the highest
     common factor at which every unit holds with them (a bracket on the factor, to the
-    search tolerance on the units' total); the levels, why and the recorded run."""
+    search tolerance on the units' total, which interpolates on the partition broken as the
+    single flow's does); the levels, why and the recorded run. The factor 0 (no harvest of
+    the searched units) is tried only if no factor above it holds."""
     total = float(free[searched].sum())
 
     def levels_at(x: float) -> NDArray:
@@ -142,23 +147,26 @@ def _scaled(
     top = trial(levels_at(1.0))
     if view(top).feasible or total <= 0:
         return levels_at(1.0), ["" for _ in free], trial(levels_at(1.0), True)
-    low = trial(levels_at(0.0))
-    b = _Bracket(0.0, 1.0, view(low), view(top))
-    b.add(0.0, margin(low), view(low))
+    b = _Bracket(0.0, 1.0, top, view(top))  # type: ignore[arg-type] - lo 0 not tried yet
     b.add(1.0, margin(top), view(top))
+    final = None
     for _ in range(MAX_STEPS):
         tol = search_tolerance_m3(b.lo * total, periods.period_years) / total
         if b.hi - b.lo <= tol:
             break
-        x = b.next_level(tol)[0]
-        sim = trial(levels_at(x))
+        x, below = b.next_level(tol)
+        last = below and b.hi - x <= tol  # expected to hold and close: the run to keep
+        sim = trial(levels_at(x), last)
         b.add(x, margin(sim), view(sim))
+        final = sim if last and view(sim).feasible else None
+    if final is None or b.hi - b.lo > tol:
+        final = trial(levels_at(b.lo), True)
     s = b.hi_sim.sim if isinstance(b.hi_sim, _AllView) else b.hi_sim
     why = (
         f"the units' levels without the partitions, scaled by {b.lo:.4f}: higher, "
         f"{s.fail_reason or 'a unit fails'}"
     )
-    return levels_at(b.lo), [why if k else "" for k in searched], trial(levels_at(b.lo), True)
+    return levels_at(b.lo), [why if k else "" for k in searched], final
 
 
 class _AllView:
@@ -166,6 +174,7 @@ class _AllView:
 
     def __init__(self, sim: Simulation, feasible: bool) -> None:
         self.sim, self.feasible = sim, feasible
+        self.partition_break = sim.partition_break
 
 
 def _holds(sim: Simulation) -> NDArray[np.bool_]:
@@ -234,6 +243,7 @@ class _UnitView:
     def __init__(self, sim: Simulation, u: int) -> None:
         self.sim, self.u = sim, u
         self.feasible = bool(sim.unit_feasible[u])
+        self.partition_break = sim.partition_break
 
 
 def _margin(sim: Simulation, u: int, shares: NDArray) -> float | None:
