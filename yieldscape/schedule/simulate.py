@@ -654,34 +654,31 @@ def _pick_queue(
     area ``cap``, ranking more of the queue until the pick is decided within it; with
     ``budget``, the cover budgets left by an earlier pick of the period; with ``limit`` (each
     part's partitions and each partition's room left [m3]), without the candidates a
-    partition's maximum leaves out (:func:`~yieldscape.schedule.partitions.within_maximum`);
-    ``size``: the queue size to rank first (None: the period's). Returns the ranked
-    candidates, their volumes [m3/ha] and the positions cut whole and partly; ``cut.depth``
-    says how far into the ranked queue (before the maximum's filter) the pick went."""
+    partition's maximum leaves out (:func:`_within_rooms`); ``size``: the queue size to rank
+    first (None: the period's). Returns the ranked candidates, their volumes [m3/ha] and the
+    positions cut whole and partly; ``cut.depth`` says how far into the ranked queue the pick
+    went."""
     parts, curves, reg, rules, age_h = pick.parts, pick.curves, pick.reg, pick.rules, pick.age_h
-    pending, planned_first = pick.pending, pick.planned_first
+    planned_first = pick.planned_first
     queue_size = pick.queue_size if size is None else size
     cand, v_cand = elig[:0], np.zeros(0)
     full_pos = part_pos = np.zeros(0, dtype=np.intp)
     if goal > 0 and len(elig):
         first = None if planned_first is None else planned_first[parts.stand[elig]]
-        while True:  # rank more of the queue until the pick is decided within it
+        if limit is not None:
+            keep = _within_rooms(pick, elig, first, *limit, queue_size)
+            elig, first = elig[keep], None if first is None else first[keep]
+        while len(elig):  # rank more of the queue until the pick is decided within it
             cand, v_cand, whole = _queue(
                 parts, curves, reg, rules.priority, age_h, elig, first, queue_size, pick.ending
             )
-            ranked = np.arange(len(cand))  # the kept candidates' positions in the queue
-            if limit is not None:
-                net = (v_cand - pending[cand]) * parts.area[cand]
-                ranked = np.flatnonzero(within_maximum(net, limit[0][cand], limit[1]))
-                cand, v_cand = cand[ranked], v_cand[ranked]
             if len(cand):
                 full_pos, part_pos, decided = _pick(
                     cut, pick, cand, v_cand, goal, whole, cap, budget
                 )
                 if whole or decided:
                     used = max(cut.tested, len(full_pos) and int(full_pos[-1]) + 1)
-                    used = max(used, len(part_pos) and int(part_pos[-1]) + 1)
-                    cut.depth = int(ranked[used - 1]) + 1 if used else 0
+                    cut.depth = max(used, len(part_pos) and int(part_pos[-1]) + 1)
                     break
             elif whole:
                 break
@@ -689,6 +686,48 @@ def _pick_queue(
     else:
         cut.all_taken = not (parts.volume(curves, elig, age_h[elig], reg) > 0).any()
     return cand, v_cand, full_pos, part_pos
+
+
+def _within_rooms(
+    pick: _Context,
+    elig: NDArray,
+    first: NDArray | None,
+    member: NDArray[np.bool_],
+    room: NDArray,
+    size: int,
+) -> NDArray[np.bool_]:
+    """Which of the eligible parts ``elig`` (a plan's ranks ``first``) the partitions' maxima
+    leave in a pick: of each partition with a finite ``room`` [m3], its members in the
+    queue's order while their net volume up to and including each is within the room, as
+    :func:`~yieldscape.schedule.partitions.within_maximum` over the whole ranked queue; found
+    by ranking only the first of the members (``size`` of them first, more while the room is
+    not passed), so that the pick's own queue need not rank the members left out. (A net
+    volume is never negative, a thinning taking part of what stands: once past the room, the
+    rest of the members are out.)"""
+    parts = pick.parts
+    keep = np.ones(len(elig), dtype=bool)
+    for k in np.flatnonzero(np.isfinite(room)):
+        pos = np.flatnonzero(member[elig, k])
+        n = max(size, _QUEUE_MIN)
+        while len(pos):
+            cand, vol, whole = _queue(
+                parts,
+                pick.curves,
+                pick.reg,
+                pick.rules.priority,
+                pick.age_h,
+                elig[pos],
+                None if first is None else first[pos],
+                n,
+                pick.ending,
+            )
+            net = (vol - pick.pending[cand]) * parts.area[cand]
+            inside = within_maximum(net, np.ones((len(cand), 1), dtype=bool), room[k : k + 1])
+            if whole or not inside.all():
+                keep[pos] &= _mask(len(parts.area), cand[inside])[elig[pos]]
+                break
+            n *= 4
+    return keep
 
 
 def _pick_units(
@@ -714,7 +753,10 @@ def _pick_units(
     total = float(targets.sum())
     mem = need = room = None
     if rules.partitions is not None:
-        mem = rules.partitions.of_parts(parts.stand, parts.sp)
+        # the memberships of the parts a pick may cut or thin (only those are read)
+        mem = np.zeros((len(area), rules.partitions.n), dtype=bool)
+        read = np.r_[elig, thinned[0]].astype(np.intp)
+        mem[read] = rules.partitions.of_parts(parts.stand[read], parts.sp[read])
         thin_k = thinned[1] @ mem[thinned[0]] if len(thinned[0]) else np.zeros(mem.shape[1])
         need = rules.partitions.minimum(total) - thin_k
         # each unit's room under a maximum: its share of the room, as its share of the
@@ -787,11 +829,14 @@ def _partition_volumes(
 ) -> None:
     """The period's volume of each partition (its clearcuts and the thinnings taken on its
     parts) and the first limit it breaks."""
-    mem = partitions.of_parts(parts.stand, parts.sp)
     area = parts.area
     vol = np.r_[v_cand[full_pos] * area[cut.full], cut.frac * v_cand[part_pos] * area[cut.part]]
     at = np.r_[cut.full, cut.part].astype(np.intp)
-    cut.partition_m3 = vol @ mem[at] + (cut.thin_m3_by_part @ mem[thin] if len(thin) else 0.0)
+    cut.partition_m3 = vol @ partitions.of_parts(parts.stand[at], parts.sp[at])
+    if len(thin):
+        cut.partition_m3 += cut.thin_m3_by_part @ partitions.of_parts(
+            parts.stand[thin], parts.sp[thin]
+        )
     cut.partition_broken = partitions.broken(cut.partition_m3, cut.volume_m3)
     if cut.partition_broken:
         cut.partition_break = partitions.first_broken(cut.partition_m3, cut.volume_m3)
