@@ -652,8 +652,9 @@ def _pick_queue(
 ) -> tuple[NDArray, NDArray, NDArray, NDArray]:
     """The pick among the eligible parts ``elig`` toward ``goal`` (clearcut volume) within the
     area ``cap``, ranking more of the queue until the pick is decided within it; with
-    ``budget``, the cover budgets left by an earlier pick of the period; with ``limit`` (each
-    part's partitions and each partition's room left [m3]), without the candidates a
+    ``budget``, the cover budgets left by an earlier pick of the period; with ``limit`` (the
+    partitions each part counts in, partitions x parts, and each partition's room left
+    [m3]), without the candidates a
     partition's maximum leaves out (:func:`_within_rooms`); ``size``: the queue size to rank
     first (None: the period's). Returns the ranked candidates, their volumes [m3/ha] and the
     positions cut whole and partly; ``cut.depth`` says how far into the ranked queue the pick
@@ -697,7 +698,8 @@ def _within_rooms(
     size: int,
 ) -> NDArray[np.bool_]:
     """Which of the eligible parts ``elig`` (a plan's ranks ``first``) the partitions' maxima
-    leave in a pick: of each partition with a finite ``room`` [m3], its members in the
+    leave in a pick (``member``: partitions x parts): of each partition with a finite
+    ``room`` [m3], its members in the
     queue's order while their net volume up to and including each is within the room, as
     :func:`~yieldscape.schedule.partitions.within_maximum` over the whole ranked queue; found
     by ranking only the first of the members (``size`` of them first, more while the room is
@@ -707,7 +709,7 @@ def _within_rooms(
     parts = pick.parts
     keep = np.ones(len(elig), dtype=bool)
     for k in np.flatnonzero(np.isfinite(room)):
-        pos = np.flatnonzero(member[elig, k])
+        pos = np.flatnonzero(member[k, elig])
         n = max(size, _QUEUE_MIN)
         while len(pos):
             cand, vol, whole = _queue(
@@ -752,12 +754,16 @@ def _pick_units(
     area = parts.area
     total = float(targets.sum())
     mem = need = room = None
+    U = len(goals)
+    by_unit = [elig[unit_of_part[elig] == u] for u in range(U)]
     if rules.partitions is not None:
-        # the memberships of the parts a pick may cut or thin (only those are read)
-        mem = np.zeros((len(area), rules.partitions.n), dtype=bool)
+        # the partitions of the parts a pick may cut or thin (partitions x parts; only those
+        # are read)
         read = np.r_[elig, thinned[0]].astype(np.intp)
-        mem[read] = rules.partitions.of_parts(parts.stand[read], parts.sp[read])
-        thin_k = thinned[1] @ mem[thinned[0]] if len(thinned[0]) else np.zeros(mem.shape[1])
+        mem = np.zeros((rules.partitions.n, len(area)), dtype=bool)
+        for k, col in enumerate(rules.partitions.of_parts(parts.stand[read], parts.sp[read]).T):
+            mem[k, read] = col
+        thin_k = thinned[1] @ _rows(mem, thinned[0]) if len(thinned[0]) else np.zeros(len(mem))
         need = rules.partitions.minimum(total) - thin_k
         # each unit's room under a maximum: its share of the room, as its share of the
         # targets (of the unbounded ones alike), so that the first unit cannot use it all
@@ -771,17 +777,16 @@ def _pick_units(
     pieces, reasons, cover_left, offset = [], [""] * len(goals), None, 0
     # first each minimum, from its partition's candidates, unit after unit while some is
     # still needed; then every unit toward the rest of its target
-    U = len(goals)
     steps = (
         [] if need is None else [(int(k), u) for k in np.flatnonzero(need > 0) for u in range(U)]
     )
     for k, u in [*steps, *((-1, u) for u in range(U))]:
         want = left[u] if k < 0 else min(float(need[k]), left[u])
-        mine = elig[(unit_of_part[elig] == u) & ~taken[elig]]
+        mine = by_unit[u][~taken[by_unit[u]]]
         if k >= 0:
             if want <= 0:
                 continue
-            mine = mine[mem[mine, k]]
+            mine = mine[mem[k, mine]]
         sub = _Cut()
         limit = None if room is None else (mem, room[u])
         # a pick's queue: twice what it went through the period before (at first the
@@ -796,8 +801,8 @@ def _pick_units(
         at = np.r_[cand[full], cand[part]].astype(np.intp)
         left[u] -= float(got.sum())
         if mem is not None:
-            room[u] = room[u] - got @ mem[at]
-            need = need - got @ mem[at]
+            used = got @ _rows(mem, at)
+            room[u], need = room[u] - used, need - used
         cap -= area[sub.full].sum() + (sub.frac * area[sub.part]).sum()
         cover_left = sub.cover_left if sub.cover_left is not None else cover_left
         taken[at] = True
@@ -816,6 +821,12 @@ def _pick_units(
     return tuple(  # type: ignore[return-value]
         np.concatenate([p[k] for p in pieces]) for k in range(1, 5)
     )
+
+
+def _rows(mem: NDArray[np.bool_], at: NDArray) -> NDArray[np.bool_]:
+    """The partitions of parts ``at`` as rows (parts x partitions, C order: a volume times it
+    sums in the same order whichever way the table is kept)."""
+    return np.ascontiguousarray(mem[:, at].T)
 
 
 def _partition_volumes(

@@ -108,9 +108,11 @@ def find_unit_flows(
         if final is not None and _holds(final)[searched].all():
             break
         open_ = searched if final is None else searched & ~_holds(final)
-        levels, found = _search(trial, rules, levels, open_, periods, shares, final is None)
+        levels, found, last = _search(
+            trial, rules, levels, open_, periods, shares, final is None, record
+        )
         why = [f if o else w for f, w, o in zip(found, why, open_, strict=True)]
-        final = trial(levels, record)
+        final = last if last is not None else trial(levels, record)
     assert final is not None
     if not _holds(final)[searched].all():
         bad = [units[u].name for u in np.flatnonzero(~_holds(final) & searched)]
@@ -189,9 +191,12 @@ def _search(
     periods: Periods,
     shares: NDArray,
     first: bool,
-) -> tuple[NDArray, list[str]]:
+    record: bool = True,
+) -> tuple[NDArray, list[str], Simulation | None]:
     """Narrow the brackets of the ``open_`` units side by side, the others held at
-    ``levels``; the levels found and per unit what binds. In the first round a unit's
+    ``levels``; the levels found, per unit what binds, and the last trial where it ran at
+    exactly those levels (recorded with ``record``: a trial expected to close every open
+    bracket at the level it holds is recorded), else None. In the first round a unit's
     bracket reaches up to what its first period yields with every eligible stand of it cut
     (without the shared rules); in a later round up to the level at which it failed."""
     U = len(levels)
@@ -222,19 +227,26 @@ def _search(
     def tol(b: _Bracket) -> float:
         return search_tolerance_m3(b.lo, periods.period_years)
 
+    last, closing = None, False
     for _ in range(MAX_STEPS):
         live = {u: b for u, b in brackets.items() if b.hi - b.lo > tol(b)}
         if not live:
             break
-        ask = levels.copy()
+        ask, closing = levels.copy(), True
         for u, b in brackets.items():
-            ask[u] = b.next_level(tol(b))[0] if u in live else b.lo
-        sim = trial(ask)
+            if u in live:
+                ask[u], below = b.next_level(tol(b))
+                closing &= below and b.hi - ask[u] <= tol(b)
+            else:
+                ask[u] = b.lo
+        last = sim = trial(ask, record and closing)
         for u, b in live.items():
             b.add(float(ask[u]), _margin(sim, u, shares), _UnitView(sim, u))
     for u, b in brackets.items():
         levels[u], why[u] = b.lo, _why(b.hi_sim, u)
-    return levels, why
+    if last is None or not np.array_equal(ask, levels) or (record and not closing):
+        last = None
+    return levels, why, last
 
 
 class _UnitView:
