@@ -219,3 +219,25 @@ def test_the_common_factor_ends_at_the_first_factor_that_breaks_the_partition():
     first_fail = grid[ok.index(False)]
     tol = search_tolerance_m3(held.levels_m3.sum(), PERIODS.period_years)
     assert factor >= first_fail - grid[1] - tol / free.levels_m3.sum()
+
+
+def test_a_recorded_trial_that_stops_early_stops_where_an_unrecorded_one_does():
+    # A search records a trial that closes its bracket if it holds (stop_early): where it
+    # fails it stops at the same period as the unrecorded trial (the reference: record=False)
+    # instead of running on to the end; where it holds it is the recorded run, exactly.
+    st = stands_of(A, B)
+    rules = HarvestRules(units=UNIT, max_area_ha=60.0)
+    for levels, holds in [((30000.0, 20000.0), False), ((2000.0, 1000.0), True)]:
+        rule = PerUnit((EvenFlow(levels[0], 0.1), EvenFlow(levels[1])))
+        plain = simulate(st, CURVES, PERIODS, rule, rules)
+        kept = simulate(st, CURVES, PERIODS, rule, rules, record=True)
+        early = simulate(st, CURVES, PERIODS, rule, rules, record=True, stop_early=True)
+        assert plain.feasible == early.feasible == holds
+        assert early.fail_period == plain.fail_period
+        if holds:
+            np.testing.assert_array_equal(early.event_stand, kept.event_stand)
+            np.testing.assert_array_equal(early.growing_stock_end_m3, kept.growing_stock_end_m3)
+        else:
+            last = plain.fail_period
+            assert (early.harvest_m3[last:] == 0).all() and (kept.harvest_m3[last:] > 0).any()
+            assert early.event_period.max() == last

@@ -252,8 +252,11 @@ class _Bracket:
         if hi in self.beyond and self.tries < PARTITION_TRIES:
             self.tries += 1
             guess = self._partition_estimate()
-            if lo < guess < hi:  # from above, at least half the tolerance below the top
+            if lo < guess < hi:  # from above, at least half the tolerance below the top;
+                # within two of it, nine tenths below (closing the bracket if it holds)
                 step = min(0.5 * tol, 0.25 * (hi - lo))
+                if hi - guess < 2 * tol:
+                    guess = hi - 0.9 * tol
                 return max(min(guess, hi - step), lo + step), False
         else:
             guess = float("nan") if stalled else self._estimate()

@@ -1223,6 +1223,7 @@ def simulate(
     record: bool = False,
     rng: np.random.Generator | None = None,
     start: Start | None = None,
+    stop_early: bool | None = None,
 ) -> Simulation:
     """Run the horizon under a target ``rule`` (a :mod:`yieldscape.policies` rule: each
     period's target and floor) and the harvest ``rules``.
@@ -1239,7 +1240,9 @@ def simulate(
     stand parts are kept; cover targets need ``stands.zone_idx``. Cut parts regrow as
     ``stands.regimes`` says, or in the shares of the plan's choices; thinnings due are taken
     each period (see :func:`_cut_period`). ``start`` (:meth:`Start.of` the same stands and
-    curves) saves working out the starting parts again.
+    curves) saves working out the starting parts again. ``stop_early``: whether the run stops
+    at the first missed floor (None: unless recorded; True: a search's trial recorded in case
+    it holds, of no use if it does not).
     """
     spatial = rules.spatial.fresh() if rules.spatial is not None else None
     P, L, off = periods.count, float(periods.period_years), periods.offset_years
@@ -1282,7 +1285,7 @@ def simulate(
         out.add(p, cut)
         if record and rules.cover is not None:
             out.cover.append(_cover_after(parts, rules.cover, age_h, cut))
-        if _missed(sim, book, p, cut, floor) and not record:
+        if _missed(sim, book, p, cut, floor) and (not record if stop_early is None else stop_early):
             break
         _thinned(parts, cut, age_h)  # the thinnings due are taken (a cut part restarts)
         shares = None if regen_shares is None else regen_shares[p]

@@ -87,12 +87,22 @@ def find_unit_flows(
     U = len(units)
     steps = 0
 
-    def trial(levels: NDArray, record: bool = False, under: HarvestRules = rules) -> Simulation:
+    def trial(
+        levels: NDArray, record: bool = False, under: HarvestRules = rules, stop: bool = False
+    ) -> Simulation:
         nonlocal steps
         steps += 1
         rule = PerUnit(tuple(u.rule(float(x)) for u, x in zip(units, levels, strict=True)))
         return simulate(
-            stands, curves, periods, rule, under, ending_stock=shares, record=record, start=start
+            stands,
+            curves,
+            periods,
+            rule,
+            under,
+            ending_stock=shares,
+            record=record,
+            start=start,
+            stop_early=stop or None,
         )
 
     searched = np.array([u.policy == "even" for u in units])
@@ -152,16 +162,23 @@ def _scaled(
     b = _Bracket(0.0, 1.0, top, view(top))  # type: ignore[arg-type] - lo 0 not tried yet
     b.add(1.0, margin(top), view(top))
     final = None
+
+    def tol(x: float) -> float:  # the search tolerance at factor x, as a factor
+        return search_tolerance_m3(x * total, periods.period_years) / total
+
     for _ in range(MAX_STEPS):
-        tol = search_tolerance_m3(b.lo * total, periods.period_years) / total
-        if b.hi - b.lo <= tol:
+        if b.hi - b.lo <= tol(b.lo):
             break
-        x, below = b.next_level(tol)
-        last = below and b.hi - x <= tol  # expected to hold and close: the run to keep
-        sim = trial(levels_at(x), last)
+        # placed with the tolerance at the top while nothing below it has held yet (at the
+        # low end's, 0, it would be the absolute one, too fine to close the bracket in one)
+        x, below = b.next_level(tol(b.lo if b.lo > 0 else b.hi))
+        # a trial that closes the bracket if it holds is recorded, to keep (stopping at a
+        # miss: below a broken partition as likely to fail as to hold)
+        last = (below or b.hi in b.beyond) and b.hi - x <= tol(x)
+        sim = trial(levels_at(x), last, stop=True)
         b.add(x, margin(sim), view(sim))
         final = sim if last and view(sim).feasible else None
-    if final is None or b.hi - b.lo > tol:
+    if final is None or b.hi - b.lo > tol(b.lo):
         final = trial(levels_at(b.lo), True)
     s = b.hi_sim.sim if isinstance(b.hi_sim, _AllView) else b.hi_sim
     why = (
