@@ -556,7 +556,7 @@ def _cut_period(
     order: tuple[NDArray | None, NDArray | None, EndingCost | None],
     record: bool,
     queue_size: int,
-    sizes: dict[tuple[int, int], int] | None = None,
+    sizes: dict[tuple[int, ...], int] | None = None,
 ) -> _Cut:
     """Rank the eligible parts (age at the harvest moment ``age_h``) and clearcut up to the
     target and the area cap, the last part partly; rules of the sequential pick skip parts
@@ -637,7 +637,7 @@ class _Context:
     pending: NDArray
     queue_size: int
     ending: EndingCost | None
-    sizes: dict[tuple[int, int], int]
+    sizes: dict[tuple[int, ...], int]
 
 
 def _pick_queue(
@@ -649,6 +649,7 @@ def _pick_queue(
     budget: NDArray | None,
     limit: tuple[NDArray, NDArray] | None = None,
     size: int | None = None,
+    key: tuple[int, ...] = (),
 ) -> tuple[NDArray, NDArray, NDArray, NDArray]:
     """The pick among the eligible parts ``elig`` toward ``goal`` (clearcut volume) within the
     area ``cap``, ranking more of the queue until the pick is decided within it; with
@@ -656,7 +657,8 @@ def _pick_queue(
     partitions each part counts in, partitions x parts, and each partition's room left
     [m3]), without the candidates a
     partition's maximum leaves out (:func:`_within_rooms`); ``size``: the queue size to rank
-    first (None: the period's). Returns the ranked candidates, their volumes [m3/ha] and the
+    first (None: the period's); ``key``: the pick's in ``pick.sizes``. Returns the ranked
+    candidates, their volumes [m3/ha] and the
     positions cut whole and partly; ``cut.depth`` says how far into the ranked queue the pick
     went."""
     parts, curves, reg, rules, age_h = pick.parts, pick.curves, pick.reg, pick.rules, pick.age_h
@@ -667,7 +669,7 @@ def _pick_queue(
     if goal > 0 and len(elig):
         first = None if planned_first is None else planned_first[parts.stand[elig]]
         if limit is not None:
-            keep = _within_rooms(pick, elig, first, *limit, queue_size)
+            keep = _within_rooms(pick, elig, first, *limit, key)
             elig, first = elig[keep], None if first is None else first[keep]
         while len(elig):  # rank more of the queue until the pick is decided within it
             cand, v_cand, whole = _queue(
@@ -695,22 +697,23 @@ def _within_rooms(
     first: NDArray | None,
     member: NDArray[np.bool_],
     room: NDArray,
-    size: int,
+    key: tuple[int, ...],
 ) -> NDArray[np.bool_]:
     """Which of the eligible parts ``elig`` (a plan's ranks ``first``) the partitions' maxima
     leave in a pick (``member``: partitions x parts): of each partition with a finite
     ``room`` [m3], its members in the
     queue's order while their net volume up to and including each is within the room, as
     :func:`~yieldscape.schedule.partitions.within_maximum` over the whole ranked queue; found
-    by ranking only the first of the members (``size`` of them first, more while the room is
-    not passed), so that the pick's own queue need not rank the members left out. (A net
+    by ranking only the first of the members (twice as many as the pick ``key`` kept the
+    period before, more while the room is not passed), so that the pick's own queue need not
+    rank the members left out. (A net
     volume is never negative, a thinning taking part of what stands: once past the room, the
     rest of the members are out.)"""
     parts = pick.parts
     keep = np.ones(len(elig), dtype=bool)
     for k in np.flatnonzero(np.isfinite(room)):
         pos = np.flatnonzero(member[k, elig])
-        n = max(size, _QUEUE_MIN)
+        n = max(pick.sizes.get((*key, int(k)), len(pos) // 4), _QUEUE_MIN)
         while len(pos):
             cand, vol, whole = _queue(
                 parts,
@@ -727,6 +730,7 @@ def _within_rooms(
             inside = within_maximum(net, np.ones((len(cand), 1), dtype=bool), room[k : k + 1])
             if whole or not inside.all():
                 keep[pos] &= _mask(len(parts.area), cand[inside])[elig[pos]]
+                pick.sizes[(*key, int(k))] = 2 * (int(inside.sum()) + 1)
                 break
             n *= 4
     return keep
@@ -793,7 +797,7 @@ def _pick_units(
         # period's queue size, in its share of the eligible parts)
         size = pick.sizes.get((k, u), pick.queue_size * len(mine) // max(len(elig), 1))
         cand, v, full, part = _pick_queue(
-            sub, pick, mine, want, cap, cover_left, limit, max(size, _QUEUE_MIN)
+            sub, pick, mine, want, cap, cover_left, limit, max(size, _QUEUE_MIN), (k, u)
         )
         pick.sizes[(k, u)] = max(2 * (sub.depth + 1), _QUEUE_MIN)
         net = (v - pending[cand]) * area[cand]
@@ -1256,7 +1260,7 @@ def simulate(
     out = _Totals.empty(P)
     kept_at = set(rules.snapshots) if record else set()
     queue_size = max(len(parts.age) // 4, _QUEUE_MIN)
-    sizes: dict[tuple[int, int], int] = {}  # the picks' of units and partitions
+    sizes: dict[tuple[int, ...], int] = {}  # the picks' of units and partitions
     hlb_stock = start.hlb_stock_m3  # at the start of the period (the end of the last)
     book = _UnitBook.start(rules, rule, ending_stock, parts, curves, reg)
     for p in range(P):
