@@ -406,11 +406,19 @@ class Start:
     parts: _Parts
     stock_m3: float
     hlb_stock_m3: float  # on the harvestable land base
+    # each part's growing stock [m3] (management units sum it), worked out at first need
+    _part_stocks: list[NDArray] = field(default_factory=list, compare=False, repr=False)
 
     @classmethod
     def of(cls, stands: StandArrays, curves: CurveSet) -> Start:
         parts = _Parts.of(stands, curves)
         return cls(parts, *parts.stocks(curves, stands.regimes))
+
+    def part_stocks(self, curves: CurveSet, reg: Regimes | None) -> NDArray:
+        """Each starting part's growing stock [m3] (the same curves every call)."""
+        if not self._part_stocks:
+            self._part_stocks.append(self.parts.unit_stocks(curves, reg))
+        return self._part_stocks[0]
 
 
 @dataclass
@@ -1262,7 +1270,7 @@ def simulate(
     queue_size = max(len(parts.age) // 4, _QUEUE_MIN)
     sizes: dict[tuple[int, ...], int] = {}  # the picks' of units and partitions
     hlb_stock = start.hlb_stock_m3  # at the start of the period (the end of the last)
-    book = _UnitBook.start(rules, rule, ending_stock, parts, curves, reg)
+    book = _UnitBook.start(rules, rule, ending_stock, start, curves, reg)
     for p in range(P):
         if p in kept_at:
             sim.snapshots[p] = parts.snapshot()
@@ -1337,14 +1345,15 @@ class _UnitBook:
         rules: HarvestRules,
         rule: TargetRule,
         ending_stock: float | NDArray,
-        parts: _Parts,
+        start: Start,
         curves: CurveSet,
         reg: Regimes | None,
     ) -> _UnitBook | None:
-        """The book of a horizon with management units (None without)."""
+        """The book of a horizon with management units (None without), from its start."""
         if rules.units is None:
             return None
-        return cls.of(rules.units, rule, ending_stock, parts, parts.unit_stocks(curves, reg))
+        stocks = start.part_stocks(curves, reg)
+        return cls.of(rules.units, rule, ending_stock, start.parts, stocks)
 
     @classmethod
     def of(
