@@ -794,7 +794,8 @@ def _pick_units(
     )
     for k, u in [*steps, *((-1, u) for u in range(U))]:
         want = left[u] if k < 0 else min(float(need[k]), left[u])
-        mine = by_unit[u][~taken[by_unit[u]]]
+        # a part cut by an earlier pick of its unit is out (the units' parts are apart)
+        mine = by_unit[u] if mem is None else by_unit[u][~taken[by_unit[u]]]
         if k >= 0:
             if want <= 0:
                 continue
@@ -808,16 +809,17 @@ def _pick_units(
             sub, pick, mine, want, cap, cover_left, limit, max(size, _QUEUE_MIN), (k, u)
         )
         pick.sizes[(k, u)] = max(2 * (sub.depth + 1), _QUEUE_MIN)
-        net = (v - pending[cand]) * area[cand]
-        got = np.r_[net[full], sub.frac * net[part]]
-        at = np.r_[cand[full], cand[part]].astype(np.intp)
+        at = np.concatenate((cand[full], cand[part])).astype(np.intp, copy=False)
+        net = (v[np.concatenate((full, part))] - pending[at]) * area[at]
+        got = np.concatenate((net[: len(full)], sub.frac * net[len(full) :]))
         left[u] -= float(got.sum())
         if mem is not None:
             used = got @ _rows(mem, at)
             room[u], need = room[u] - used, need - used
         cap -= area[sub.full].sum() + (sub.frac * area[sub.part]).sum()
         cover_left = sub.cover_left if sub.cover_left is not None else cover_left
-        taken[at] = True
+        if mem is not None:
+            taken[at] = True
         pieces.append((sub, cand, v, full + offset, part + offset))
         offset += len(cand)
         if k < 0:
