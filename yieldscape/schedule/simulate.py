@@ -1288,7 +1288,7 @@ def simulate(
         t = p * L + off
         order = (
             first,
-            None if book is None else book.of_stand[parts.stand],
+            None if book is None else book.of_parts(parts.stand),
             _ending_cost(rules.plan, p, stands, curves, P * L - t, regen_shares),
         )
         cut = _cut_period(
@@ -1340,6 +1340,15 @@ class _UnitBook:
     fail_period: NDArray
     reasons: list[str]
     initial: NDArray
+    # the unit of each part so far (parts are only appended and keep their stand)
+    _of_parts: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+
+    def of_parts(self, stand: NDArray) -> NDArray:
+        """The unit of each part (``stand``: the parts' stands), the new parts' looked up."""
+        n = len(self._of_parts)
+        if len(stand) > n:
+            self._of_parts = np.concatenate((self._of_parts, self.of_stand[stand[n:]]))
+        return self._of_parts
 
     @classmethod
     def start(
@@ -1412,7 +1421,7 @@ class _UnitBook:
         """A unit that met every floor fails if its ending stock is below its share of its
         initial stock (``stocks``: of the parts at the end); the horizon's figures per unit
         into ``sim``."""
-        ending = np.bincount(self.of_stand[parts.stand], stocks, self.n)
+        ending = np.bincount(self.of_parts(parts.stand), stocks, self.n)
         low = ending < self.ending_stock * self.initial * (1 - _REL)
         for u in np.flatnonzero(low):
             if not self.reasons[u]:
