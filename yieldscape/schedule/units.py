@@ -51,8 +51,9 @@ class UnitPolicy:
 
 @dataclass(frozen=True)
 class UnitFlows:
-    """The units' levels [m3 per period] (targets units: 0), the recorded run at those
-    levels, the trial count and, per unit, what stops it going higher."""
+    """The units' levels [m3 per period] (targets units: 0), the run at those levels
+    (recorded unless the search was asked not to), the trial count and, per unit, what stops
+    it going higher."""
 
     levels_m3: NDArray
     simulation: Simulation
@@ -159,7 +160,7 @@ def _scaled(
     top = trial(levels_at(1.0))
     if view(top).feasible or total <= 0:
         return levels_at(1.0), ["" for _ in free], trial(levels_at(1.0), True)
-    b = _Bracket(0.0, 1.0, top, view(top))  # type: ignore[arg-type] - lo 0 not tried yet
+    b = _Bracket(0.0, 1.0, top, view(top))  # (top: a placeholder at 0, not tried yet)
     b.add(1.0, margin(top), view(top))
     final = None
 
@@ -256,7 +257,7 @@ def _search(
                 closing &= below and b.hi - ask[u] <= tol(b)
             else:
                 ask[u] = b.lo
-        last = sim = trial(ask, record and closing)
+        last = sim = trial(ask, record and closing, stop=True)
         for u, b in live.items():
             b.add(float(ask[u]), _margin(sim, u, shares), _UnitView(sim, u))
     for u, b in brackets.items():
