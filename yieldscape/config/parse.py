@@ -39,6 +39,7 @@ from yieldscape.config.model import (
     InventoryConfig,
     LandbaseConfig,
     NetdownStep,
+    PartitionConfig,
     RasterFill,
     Regeneration,
     ReportConfig,
@@ -46,6 +47,7 @@ from yieldscape.config.model import (
     ScenarioInfo,
     SpeciesConfig,
     Thinning,
+    UnitConfig,
 )
 from yieldscape.errors import ScenarioError
 from yieldscape.growth.products import ProductSplit
@@ -130,7 +132,7 @@ def apply_override(raw: dict[str, Any], item: str) -> None:
     except tomllib.TOMLDecodeError:
         value = text.strip()
     parts = key.split(".")
-    if parts in (["cover"], ["sensitivity"]) and isinstance(value, list):
+    if parts in (["cover"], ["units"], ["partitions"], ["sensitivity"]) and isinstance(value, list):
         raw[parts[0]] = value  # an array of tables as a whole (sensitivity=[]: no cases)
         return
     if len(parts) < 2 or parts[0] not in SECTIONS:
@@ -210,6 +212,8 @@ def _parse(
         growth,
         _landbase(raw.get("landbase", {}), base_dir, where),
         _cover(raw.get("cover", []), where),
+        _units(raw.get("units", []), flow, inventory, where),
+        _partitions(raw.get("partitions", []), where),
         disturbance,
         _report(raw.get("report", {}), info, where),
         source,
@@ -441,6 +445,64 @@ def _cover(raw: Any, where: str) -> tuple[CoverTarget, ...]:
                     f"{where}: [[cover]] #{n} needs both younger_than_years and max_share"
                 )
             out.append(CoverTarget(**v))
+    return tuple(out)
+
+
+def _array_of_tables(raw: Any, name: str, where: str) -> list[Any]:
+    if not isinstance(raw, list):
+        raise ScenarioError(f"{where}: {name} is an array of tables: [[{name}]]")
+    return raw
+
+
+def _units(
+    raw: Any, flow: FlowConfig, inventory: InventoryConfig, where: str
+) -> tuple[UnitConfig, ...]:
+    """``[[units]]``: each a unit's own flow keys; names unique; a unit field to read."""
+    out = []
+    for n, tbl in enumerate(_array_of_tables(raw, "units", where), start=1):
+        label = tbl.get("name", f"#{n}") if isinstance(tbl, dict) else f"#{n}"
+        unit = UnitConfig(**_take(tbl, "units", where, shown=f"units #{n} {label!r}"))
+        policy = unit.policy or flow.policy
+        if policy == "targets" and (unit.targets_m3 or flow.targets_m3) is None:
+            raise ScenarioError(
+                f"{where}: [[units]] #{n} {unit.name!r}: policy = 'targets' needs targets_m3"
+            )
+        out.append(unit)
+    names = [u.name for u in out]
+    for name in names:
+        if names.count(name) > 1:
+            raise ScenarioError(f"{where}: [[units]] name = {name!r} is given twice")
+    if out and inventory.fields.unit is None:
+        raise ScenarioError(
+            f'{where}: [[units]] needs [inventory.fields] unit = "FIELD", the stand layer\'s '
+            "field naming each stand's unit"
+        )
+    return tuple(out)
+
+
+def _partitions(raw: Any, where: str) -> tuple[PartitionConfig, ...]:
+    """``[[partitions]]``: a name, a where rule and at least one limit, minimum <= maximum."""
+    out = []
+    for n, tbl in enumerate(_array_of_tables(raw, "partitions", where), start=1):
+        label = tbl.get("name", f"#{n}") if isinstance(tbl, dict) else f"#{n}"
+        sect = f"partitions #{n} {label!r}"
+        part = PartitionConfig(**_take(tbl, "partitions", where, shown=sect))
+        limits = (part.min_share, part.max_share, part.min_m3, part.max_m3)
+        if all(v is None for v in limits):
+            raise ScenarioError(
+                f"{where}: [{sect}] needs a limit: min_share, max_share, min_m3 or max_m3"
+            )
+        for lo, hi, what in ((0, 1, "share"), (2, 3, "m3")):
+            if limits[lo] is not None and limits[hi] is not None and limits[lo] > limits[hi]:
+                raise ScenarioError(
+                    f"{where}: [{sect}] min_{what} = {limits[lo]:g} is above "
+                    f"max_{what} = {limits[hi]:g}"
+                )
+        out.append(part)
+    names = [p.name for p in out]
+    for name in names:
+        if names.count(name) > 1:
+            raise ScenarioError(f"{where}: [[partitions]] name = {name!r} is given twice")
     return tuple(out)
 
 
