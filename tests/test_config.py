@@ -312,14 +312,17 @@ def test_units_and_partitions_load_with_their_keys(tmp_path):
     scn = load_scenario(
         _units_scenario(
             tmp_path,
-            [{"name": "north", "ending_stock": 0.9}, {"name": "south", "policy": "nondeclining"}],
+            [
+                {"name": "north", "ending_stock": 0.9},
+                {"name": "south", "policy": "targets", "targets_m3": [10.0, 20.0]},
+            ],
             [{"name": "old", "where": "AGE > 100", "min_share": 0.2, "max_m3": 5000}],
         )
     )
     assert scn.inventory.fields.unit == "OWNER"
     assert [(u.name, u.policy, u.ending_stock) for u in scn.units] == [
         ("north", None, 0.9),
-        ("south", "nondeclining", None),
+        ("south", "targets", None),
     ]
     (part,) = scn.partitions
     assert (part.min_share, part.max_share, part.max_m3) == (0.2, None, 5000.0)
@@ -333,6 +336,13 @@ def test_units_and_partitions_load_with_their_keys(tmp_path):
         ([{"name": "a", "band": 1.2}], None, "OWNER", r"\[units #1 'a'\] band = 1.2: must be"),
         ([{"name": "a", "policy": "most"}], None, "OWNER", r"policy = 'most': choose one of"),
         ([{"ending_stock": 1.0}], None, "OWNER", r"missing required key 'name'"),
+        (
+            [{"name": "a", "policy": "nondeclining"}],
+            None,
+            "OWNER",
+            r"'a': policy = 'nondeclining' is not searched per unit",
+        ),
+        ([{"name": "a", "policy": "targets"}], None, "OWNER", r"'targets' needs targets_m3"),
         (None, [{"name": "p", "where": "AGE > 1"}], None, r"'p'\] needs a limit"),
         (
             None,

@@ -78,6 +78,7 @@ def test_the_sample_runs_and_says_what_it_found(sample_run):
     assert sorted(p.name for p in out.iterdir()) == [
         "age_classes.csv",
         "area_by_analysis_unit.csv",
+        "constraints.csv",
         "cover.csv",
         "figures",
         "harvest_by_zone_species.csv",
@@ -281,6 +282,7 @@ def test_a_run_writes_the_outputs_its_options_ask_for(forest_run):
     assert sorted(p.name for p in out.iterdir()) == [
         "age_classes.csv",
         "area_by_analysis_unit.csv",
+        "constraints.csv",
         "cover.csv",
         "figures",
         "harvest_by_zone_species.csv",

@@ -454,6 +454,9 @@ def _array_of_tables(raw: Any, name: str, where: str) -> list[Any]:
     return raw
 
 
+UNIT_POLICIES = ("even", "targets")  # the flows searched per management unit
+
+
 def _units(
     raw: Any, flow: FlowConfig, inventory: InventoryConfig, where: str
 ) -> tuple[UnitConfig, ...]:
@@ -463,6 +466,11 @@ def _units(
         label = tbl.get("name", f"#{n}") if isinstance(tbl, dict) else f"#{n}"
         unit = UnitConfig(**_take(tbl, "units", where, shown=f"units #{n} {label!r}"))
         policy = unit.policy or flow.policy
+        if policy not in UNIT_POLICIES:
+            raise ScenarioError(
+                f"{where}: [[units]] #{n} {unit.name!r}: policy = {policy!r} is not searched "
+                f"per unit; a unit follows one of {', '.join(UNIT_POLICIES)}"
+            )
         if policy == "targets" and (unit.targets_m3 or flow.targets_m3) is None:
             raise ScenarioError(
                 f"{where}: [[units]] #{n} {unit.name!r}: policy = 'targets' needs targets_m3"
@@ -472,6 +480,12 @@ def _units(
     for name in names:
         if names.count(name) > 1:
             raise ScenarioError(f"{where}: [[units]] name = {name!r} is given twice")
+    if inventory.fields.unit is not None and flow.policy not in UNIT_POLICIES:
+        raise ScenarioError(
+            f"{where}: [flow] policy = {flow.policy!r} with [inventory.fields] unit: the units "
+            f"without a [[units]] table follow [flow], and a unit follows one of "
+            f"{', '.join(UNIT_POLICIES)}"
+        )
     if out and inventory.fields.unit is None:
         raise ScenarioError(
             f'{where}: [[units]] needs [inventory.fields] unit = "FIELD", the stand layer\'s '

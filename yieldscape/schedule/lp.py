@@ -222,7 +222,8 @@ class LPResult:
     # codes: the transitions' shares and the LP's choices), and the codes
     regen_area_ha: NDArray = field(default_factory=lambda: np.zeros((0, 0, 0)))
     codes: tuple[str, ...] = ()
-    level_m3: float | None = None  # the level M [m3 per period] (max-even-flow, max-level)
+    # the level M [m3 per period] (max-even-flow, max-level; with units the sum of theirs)
+    level_m3: float | None = None
     units: tuple[str, ...] = ()  # the management units' names
     unit_harvest_m3: NDArray = field(default_factory=lambda: np.zeros((0, 0)))  # (units, P)
     unit_level_m3: NDArray = field(default_factory=lambda: np.zeros(0))  # each unit's level
@@ -1229,6 +1230,7 @@ def solve_highs(model: LPModel, t0: float | None = None, solver: str | None = No
     objective = float(-h.getInfo().objective_function_value)
     if model.level_cols:  # the units' levels, without the tie-break
         objective = float(x[model.level_cols].sum())
+        level = objective  # the region's level: the sum of its units' levels
     return LPResult(
         status,
         objective,
