@@ -60,6 +60,42 @@ def test_bad_keys_are_named(tmp_path, section, table, match):
             {"curve": "stock-logistic", "r": -0.1, "capacity_m3_ha": 300.0, "initial_m3_ha": 5.0},
             r"r = -0.1: must be > 0",
         ),
+        (
+            {
+                "curve": "stock-minimum",
+                "r": 0.1,
+                "capacity_m3_ha": 300.0,
+                "initial_m3_ha": 50.0,
+                "min_viable_m3_ha": 400.0,
+            },
+            r"min_viable_m3_ha = 400 must be below capacity_m3_ha = 300",
+        ),
+        (
+            {"curve": "stock-minimum", "r": 0.1, "capacity_m3_ha": 300.0, "initial_m3_ha": 50.0},
+            r"curve 'stock-minimum' needs key 'min_viable_m3_ha'",
+        ),
+        (
+            {"curve": "stock-depensation", "r": 0.0, "capacity_m3_ha": 300.0, "initial_m3_ha": 5.0},
+            r"r = 0.0: must be > 0",
+        ),
+        (
+            {"curve": "stock-depensation", "r": 0.1, "capacity_m3_ha": 300.0, "initial_m3_ha": 0},
+            r"initial_m3_ha = 0: must be > 0",
+        ),
+        (
+            {"curve": "stock-depensation", "r": 0.1, "capacity_m3_ha": 300.0, "initial_m3_ha": 350},
+            r"initial_m3_ha = 350 must be in \(0, capacity_m3_ha = 300\]",
+        ),
+        (
+            {
+                "curve": "stock-depensation",
+                "r": 0.1,
+                "capacity_m3_ha": 300.0,
+                "initial_m3_ha": 5.0,
+                "min_viable_m3_ha": 2.0,
+            },
+            r"key 'min_viable_m3_ha' does not apply to curve 'stock-depensation'",
+        ),
         ({"curve": "schumacher", "a": 500.0}, r"curve 'schumacher' needs key 'b'"),
         (
             {"min_harvest_age": None, "min_harvest_economic": True},

@@ -20,6 +20,7 @@ import shapely
 
 from yieldscape.config import Scenario
 from yieldscape.geometry import metres_per_unit, metric_geometries
+from yieldscape.growth import StockGrowth
 from yieldscape.growth.rules import SiteSummary
 from yieldscape.io.outputs import replace_file, sha256_file, write_json
 from yieldscape.io.rasters import write_geotiff
@@ -34,6 +35,7 @@ from yieldscape.reporting.figures import (
     harvest_figure,
     harvest_map_figure,
     monte_carlo_figure,
+    stock_shapes_figure,
 )
 from yieldscape.reporting.report import Figure, ReportData, html_report, markdown_report
 from yieldscape.reporting.units import units_record
@@ -69,6 +71,7 @@ REPORT_MD = "report.md"
 RUN_JSON = "run.json"
 RUN_LOG = "run.log"
 CURVES_CSV = "curves.csv"
+STOCK_SHAPES_PNG = "stock_shapes.png"  # in FIGURES_DIR, with stock-growth species
 FIGURES_DIR = "figures"
 RASTERS_DIR = "rasters"
 # every entry yieldscape writes into an output directory (run, curves)
@@ -682,6 +685,12 @@ def write_curves(
         replace_file(
             path, lambda p, c=code, cv=curve, m=main, a=age: curve_figure(p, c, cv, m, a), out
         )
+        files.append(path)
+    stocks = {c: s.yield_curve() for c, s in scenario.species.items()}
+    stocks = {c: cv for c, cv in stocks.items() if isinstance(cv, StockGrowth)}
+    if stocks:  # the four shapes side by side, the species on theirs
+        path = out / FIGURES_DIR / STOCK_SHAPES_PNG
+        replace_file(path, lambda p: stock_shapes_figure(p, stocks), out)
         files.append(path)
     return files
 

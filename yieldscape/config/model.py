@@ -525,7 +525,7 @@ class SpeciesConfig:
         "float",
         None,
         "m3/ha",
-        "Minimum viable stock of stock-threshold (0 < m < K).",
+        "Minimum viable stock m of stock-minimum and stock-threshold (0 < m < K).",
         check=_positive,
     )
     site_index_ref_m: float | None = key(

@@ -611,10 +611,21 @@ def _species(
     for key in CURVE_PARAMETERS[curve]:
         if vals[key] is None:
             raise ScenarioError(f"{where}: [{sect}] curve {curve!r} needs key {key!r}")
-    if curve == "stock-threshold" and not vals["min_viable_m3_ha"] < vals["capacity_m3_ha"]:
+    if "min_viable_m3_ha" in CURVE_PARAMETERS[curve] and not (
+        vals["min_viable_m3_ha"] < vals["capacity_m3_ha"]
+    ):
         raise ScenarioError(
             f"{where}: [{sect}] min_viable_m3_ha = {vals['min_viable_m3_ha']:g} must be below "
             f"capacity_m3_ha = {vals['capacity_m3_ha']:g}"
+        )
+    if (
+        "initial_m3_ha" in CURVE_PARAMETERS[curve]
+        and vals["initial_m3_ha"] > vals["capacity_m3_ha"]
+    ):
+        raise ScenarioError(
+            f"{where}: [{sect}] initial_m3_ha = {vals['initial_m3_ha']:g} must be in "
+            f"(0, capacity_m3_ha = {vals['capacity_m3_ha']:g}]: a stock starts at most at its "
+            "carrying capacity"
         )
     if curve == "table":
         _table_curve(vals, sect, base_dir, where)
