@@ -192,6 +192,28 @@ def test_units_sharing_no_rule_run_as_their_separate_runs(tmp_path):
             None,
             r"\[\[partitions\]\] 'p'",
         ),
+        (  # a minimum no stand can yield: the LP says which partitions can bind
+            {"partitions": [{"name": "big", "where": f"AGE > {OLD}", "min_m3": 1e9}]},
+            None,
+            r"harvest LP is infeasible.*the \[\[partitions\]\] 'big'",
+        ),
+        (  # ... and the rule-based search names the partition and the period
+            {
+                "partitions": [{"name": "big", "where": f"AGE > {OLD}", "min_m3": 1e9}],
+                "flow": {"lp_bound": False},
+            },
+            None,
+            r"no schedule keeps every partition: in period 1, partition 'big' yields 0 m3",
+        ),
+        (  # one regional flow the same
+            {
+                "partitions": [{"name": "big", "where": f"AGE > {OLD}", "min_m3": 1e9}],
+                "flow": {"lp_bound": False},
+                "unit_field": False,
+            },
+            None,
+            r"no schedule keeps every partition: in period 1, partition 'big' yields 0 m3",
+        ),
     ],
 )
 def test_bad_units_input_is_named(tmp_path, capsys, edit, attrs_edit, message):

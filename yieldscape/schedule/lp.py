@@ -339,6 +339,7 @@ def build_lp(
     regen = _regeneration_map(strata, cols, regrow, choices, z_col, P, C, len(cost))
     context = {"ending_stock": ending_stock, "max_area_ha": max_area_ha, "policy": policy}
     context["cover"] = cover is not None
+    context["partitions"] = tuple(p.name for p in partitions)
     return LPModel(
         cost,
         matrix,
@@ -1339,9 +1340,13 @@ def explain_infeasible(
     max_area_ha: float | None,
     policy: str,
     cover: bool = False,
+    partitions: tuple[str, ...] = (),
 ) -> str:
     """Which constraint families can make the harvest LP infeasible, and what to relax."""
     hints = [f"flow.ending_stock = {ending_stock:g} (try a lower share)"]
+    if partitions:
+        named = ", ".join(repr(p) for p in partitions)
+        hints.insert(0, f"the [[partitions]] {named} (a limit the stands cannot keep)")
     if cover:
         hints.append("the [[cover]] targets (the forest may not hold them even uncut)")
     if max_area_ha is not None:

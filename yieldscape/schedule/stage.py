@@ -25,8 +25,8 @@ from yieldscape.schedule.flow import FlowResult, schedule
 from yieldscape.schedule.lp import LPResult, Strata
 from yieldscape.schedule.lp_units import Cells, Partition, UnitFlow, make_cells
 from yieldscape.schedule.partitions import PartitionRules, partition_rules
-from yieldscape.schedule.simulate import HarvestRules
-from yieldscape.schedule.units import UnitFlows, UnitPolicy, find_unit_flows
+from yieldscape.schedule.simulate import HarvestRules, Simulation
+from yieldscape.schedule.units import NoUnitFlows, UnitFlows, UnitPolicy, find_unit_flows
 
 log = logging.getLogger("yieldscape")
 
@@ -129,8 +129,15 @@ def schedule_run(
 
     def search(r: HarvestRules) -> FlowResult:
         if units is None:
-            return schedule(s, c, p, f, f.policy, r)
-        return unit_flow_result(find_unit_flows(s, c, p, r, units.policies), units, p)
+            found_one = schedule(s, c, p, f, f.policy, r)
+            _kept(found_one.simulation, r)
+            return found_one
+        try:
+            found = find_unit_flows(s, c, p, r, units.policies)
+        except NoUnitFlows as exc:
+            _kept(exc.simulation, r)
+            raise
+        return unit_flow_result(found, units, p)
 
     known = arm.without_never_cut(s, rules.spatial)  # for the LP and the comparison
     lp = strata = None
@@ -168,6 +175,16 @@ def schedule_run(
             flow.details["never_cut_harvestable_ha"] = arm.never_cut_area_ha(s, rules.spatial)
         openings = _openings(flow, p, rules, scenario.harvest.max_opening_ha)
     return Schedule(flow, rules, lp, openings, units)
+
+
+def _kept(sim: Simulation, rules: HarvestRules) -> None:
+    """An input error where the search's run breaks a partition: no level keeps it."""
+    if rules.partitions is None or sim.feasible or not sim.fail_reason.startswith("partition"):
+        return
+    raise InputError(
+        f"[[partitions]]: no schedule keeps every partition: in period {sim.fail_period}, "
+        f"{sim.fail_reason}"
+    )
 
 
 def _harvest_lp(
