@@ -8,8 +8,12 @@ Printed per case: our build + solve and the bare solve for each solver (interior
 fastest of --repeat alternating runs), the ratios ours/bare, the ratio simplex/ipm (above 1:
 interior point faster) and the solver lp_solver picks.
 
+With ``--units``: three management units (the stands in three groups by index, each its own
+even flow) and two partitions (the spruce code at least 30% of each period's harvest, the
+stands older than 100 years at the start at most 60%), as ``bench_units.py`` has them.
+
 python benchmarks/bench_lp.py [--strata 300 1000 3000 10000] [--regimes] [--disturbance 0.005]
-    [--objectives max-even-flow max-level] [--simplex-max 3000] [--repeat 3]
+    [--objectives max-even-flow max-level] [--simplex-max 3000] [--repeat 3] [--units]
 """
 
 from __future__ import annotations
@@ -33,6 +37,7 @@ from yieldscape.schedule.lp import (
     make_strata,
     solve_highs,
 )
+from yieldscape.schedule.lp_units import Partition, UnitFlow, make_cells
 
 SOLVERS = ("simplex", "ipm")
 
@@ -98,9 +103,18 @@ def stands(n: int, regimes: bool) -> tuple[StandArrays, NDArray]:
 def one_case(curves: CurveSet, n: int, objective: str, args: argparse.Namespace) -> None:
     """Time ours (build_lp + solve_highs) and the bare solve, per solver; print one line."""
     st, groups = stands(n, args.regimes)
-    strata = make_strata(st, groups, 1.0, 1e-9, args.disturbance > 0)
     build = dict(objective=objective, policy="even", band=0.1, ending_stock=1.0)
     build["disturbance"] = args.disturbance
+    cells = None
+    if args.units:
+        C = 3  # the codes of with_regimes (two without: member of a code never grown is moot)
+        member = np.zeros((n, C, 2), dtype=bool)
+        member[:, [0, 2], 0] = True  # spruce and planted spruce
+        member[:, :, 1] = (st.age_years > 100)[:, None]
+        cells = make_cells(np.arange(n) * 3 // n, member)
+        build["units"] = [UnitFlow(f"u{u}", "even", 0.1, 1.0) for u in range(3)]
+        build["partitions"] = [Partition("spruce", min_share=0.3), Partition("old", max_share=0.6)]
+    strata = make_strata(st, groups, 1.0, 1e-9, args.disturbance > 0, cells=cells)
     model = build_lp(st, curves, Periods(2027, 10, 20), strata, **build)
     ours: dict[str, float] = {}
     bare: dict[str, float] = {}
@@ -119,7 +133,7 @@ def one_case(curves: CurveSet, n: int, objective: str, args: argparse.Namespace)
     versus = f"simplex/ipm {bare['simplex'] / bare['ipm']:.1f}x, " if "simplex" in bare else ""
     agree = max(abs(v - level["ipm"]) / abs(level["ipm"]) for v in level.values())
     print(
-        f"{n:,} strata{' regimes' if args.regimes else ''}"
+        f"{n:,} strata{' regimes' if args.regimes else ''}{' units' if args.units else ''}"
         f"{f' disturbance {args.disturbance}' if args.disturbance else ''} {objective}: "
         f"{model.matrix.shape[1]:,} cols {model.matrix.shape[0]:,} rows; ours/bare {ratios}; "
         f"{versus}picks {lp_solver(model)}; level {level['ipm'] / 10:,.0f} m3/year "
@@ -136,6 +150,7 @@ def main() -> None:
     ap.add_argument("--objectives", nargs="+", default=["max-even-flow", "max-level"])
     ap.add_argument("--repeat", type=int, default=3, help="interior-point runs, fastest kept")
     ap.add_argument("--simplex-max", type=int, default=3000, help="no simplex above this size")
+    ap.add_argument("--units", action="store_true", help="three units and two partitions")
     args = ap.parse_args()
     curves = CurveSet(
         ["spruce", "pine", "spruce_planted"],

@@ -72,8 +72,9 @@ def synthetic_scenario(gpkg: Path, n: int):
     raw = tomllib.loads(SCENARIO.read_text())
     raw["inventory"]["path"] = str(gpkg)
     raw["inventory"].pop("from_raster", None)  # the sample's rasters cover the sample only
-    for section in ("landbase", "cover", "sensitivity"):
+    for section in ("landbase", "cover", "sensitivity", "units", "partitions"):
         raw.pop(section, None)
+    raw["inventory"]["fields"].pop("unit", None)  # one regional flow (bench_units: units)
     raw["harvest"] = {"priority": "oldest", "max_area_ha_per_period": n * 6.25 * 0.18}
     raw["flow"]["lp_bound"] = False
     raw["report"] = {"age_class_width_years": 20}  # figures, report, map layers; no rasters

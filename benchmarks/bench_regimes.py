@@ -49,8 +49,9 @@ def scenario(gpkg: Path, n: int, variant: str | bool):
     raw = tomllib.loads(SCENARIO.read_text())
     raw["inventory"]["path"] = str(gpkg)
     raw["inventory"].pop("from_raster", None)
-    for section in ("landbase", "cover", "sensitivity"):
+    for section in ("landbase", "cover", "sensitivity", "units", "partitions"):
         raw.pop(section, None)
+    raw["inventory"]["fields"].pop("unit", None)  # one regional flow
     raw["harvest"] = {"priority": "oldest", "max_area_ha_per_period": n * 6.25 * 0.18}
     raw["flow"]["lp_bound"] = False
     raw["report"] = {"age_class_width_years": 20}

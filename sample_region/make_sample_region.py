@@ -29,6 +29,8 @@ smoothed random blob):
                age-class gap and a surplus of old forest); aspen at most 140;
   ``ZONE``     highland / valley / lakeshore, by position (a smooth "elevation"
                field), each at least 15 % of the area;
+  ``HOLDING``  the management unit: "west" (the stands whose centroid lies in
+               the western 55 % of the area) or "east" (the rest);
   ``COVER``    land cover: "forest", or the non-productive "wetland" (about 3 %
                of the area, on the flattest low ground of the terrain) and
                "rock" (about 2 %, on the steepest high ground), in patches.
@@ -138,6 +140,7 @@ ASPEN_MAX_AGE = 140
 # from low to high ground, with area shares
 ZONE_SHARES = (("lakeshore", 0.25), ("valley", 0.40), ("highland", 0.35))
 MIN_ZONE_SHARE = 0.15
+HOLDING_SHARES = {"west": 0.55, "east": 0.45}  # management units, west to east by area
 
 # --- land cover and site-index gaps (stand layer)
 COVER_SHARES = {"wetland": 0.03, "rock": 0.02}  # area shares; the rest is "forest"
@@ -470,6 +473,10 @@ def assign_attributes(rng: np.random.Generator, stands: gpd.GeoDataFrame) -> gpd
     stands.insert(2, "SI_M", si)
     stands.insert(3, "AGE", age.astype(np.int32))
     stands.insert(4, "ZONE", pd.array(zone, dtype=object))
+    # Two management units, west and east, split by centroid x (no random draw, so the other
+    # attributes do not depend on it).
+    holding = classes_by_area(x, area, list(HOLDING_SHARES), list(HOLDING_SHARES.values()))
+    stands.insert(5, "HOLDING", pd.array(holding, dtype=object))
     return stands
 
 

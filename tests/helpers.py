@@ -249,3 +249,45 @@ def cbc_solve(model) -> tuple[float, list]:  # noqa: ANN001 - an LPModel
         prob.solve(pulp.PULP_CBC_CMD(msg=False))
     assert pulp.LpStatus[prob.status] == "Optimal"
     return pulp.value(prob.objective), x
+
+
+def assert_outputs_documented(out: Path, stand_layer: Path) -> None:
+    """Every layer, column, CSV, run.json key, figure and raster a run wrote into ``out`` is
+    described in docs/outputs.md (the stand layer's own attributes, carried, aside)."""
+    import json
+    import re
+
+    import pandas as pd
+
+    text = (ROOT / "docs" / "outputs.md").read_text(encoding="utf-8")
+    inputs = set(pyogrio.read_info(stand_layer, layer="stands")["fields"])
+    gpkg = out / "projection.gpkg"
+    for layer, _ in pyogrio.list_layers(gpkg):
+        name = re.sub(r"_\d+$", "_<NN>", re.sub(r"_age_\d{4}$", "_age_<YEAR>", layer))
+        assert re.search(rf"`{re.escape(name)}`", text), f"layer {layer}"
+        cols = pyogrio.read_info(gpkg, layer=layer)["fields"]
+        cols = [c for c in cols if c not in inputs]  # the layer's own attributes, carried
+        for col in cols:
+            col = re.sub(r"^removed_step\d+_ha$", "removed_step<N>_ha", col)
+            assert re.search(rf"^\| `{re.escape(col)}` \|", text, re.M), f"{layer}.{col}"
+    for csv in out.glob("*.csv"):
+        assert f"`{csv.name}`" in text, csv.name
+        for col in pd.read_csv(csv).columns:
+            assert re.search(rf"^\| `{col}` \|", text, re.M), f"{csv.name} {col}"
+    for key in json.loads((out / "run.json").read_text()):
+        assert re.search(rf"^\| `{key}` \|", text, re.M), f"run.json {key}"
+    for png in (out / "figures").glob("*.png"):
+        name = re.sub(r"^curves_\w+\.png$", "curves_<species>.png", png.name)
+        assert f"| `{name}` |" in text, png.name
+    for tif in (out / "rasters").glob("*.tif"):
+        name = re.sub(r"^age_\d{4}\.tif$", "age_<YEAR>.tif", tif.name)
+        assert f"| `{name}` |" in text, tif.name
+
+
+def regional_wood_flow(path: Path):
+    """The region's rows of a written wood_flow.csv (a run with management units adds each
+    unit's rows after them)."""
+    import pandas as pd
+
+    wf = pd.read_csv(path)
+    return wf[wf["unit"] == "region"].reset_index(drop=True)

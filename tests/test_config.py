@@ -60,6 +60,42 @@ def test_bad_keys_are_named(tmp_path, section, table, match):
             {"curve": "stock-logistic", "r": -0.1, "capacity_m3_ha": 300.0, "initial_m3_ha": 5.0},
             r"r = -0.1: must be > 0",
         ),
+        (
+            {
+                "curve": "stock-minimum",
+                "r": 0.1,
+                "capacity_m3_ha": 300.0,
+                "initial_m3_ha": 50.0,
+                "min_viable_m3_ha": 400.0,
+            },
+            r"min_viable_m3_ha = 400 must be below capacity_m3_ha = 300",
+        ),
+        (
+            {"curve": "stock-minimum", "r": 0.1, "capacity_m3_ha": 300.0, "initial_m3_ha": 50.0},
+            r"curve 'stock-minimum' needs key 'min_viable_m3_ha'",
+        ),
+        (
+            {"curve": "stock-depensation", "r": 0.0, "capacity_m3_ha": 300.0, "initial_m3_ha": 5.0},
+            r"r = 0.0: must be > 0",
+        ),
+        (
+            {"curve": "stock-depensation", "r": 0.1, "capacity_m3_ha": 300.0, "initial_m3_ha": 0},
+            r"initial_m3_ha = 0: must be > 0",
+        ),
+        (
+            {"curve": "stock-depensation", "r": 0.1, "capacity_m3_ha": 300.0, "initial_m3_ha": 350},
+            r"initial_m3_ha = 350 must be in \(0, capacity_m3_ha = 300\]",
+        ),
+        (
+            {
+                "curve": "stock-depensation",
+                "r": 0.1,
+                "capacity_m3_ha": 300.0,
+                "initial_m3_ha": 5.0,
+                "min_viable_m3_ha": 2.0,
+            },
+            r"key 'min_viable_m3_ha' does not apply to curve 'stock-depensation'",
+        ),
         ({"curve": "schumacher", "a": 500.0}, r"curve 'schumacher' needs key 'b'"),
         (
             {"min_harvest_age": None, "min_harvest_economic": True},
@@ -295,3 +331,65 @@ def test_choices_come_from_the_registries_that_own_them():
     assert KEYS["species.*"]["curve"].choices == tuple(FAMILIES)
     assert KEYS["flow"]["policy"].choices == tuple(FLOW_POLICIES)
     assert KEYS["harvest"]["priority"].choices == tuple(PRIORITIES)
+
+
+def _units_scenario(tmp_path, units=None, partitions=None, unit_field="OWNER"):
+    raw = scenario_dict(tmp_path / "x.gpkg")
+    if unit_field:
+        raw["inventory"]["fields"]["unit"] = unit_field
+    if units is not None:
+        raw["units"] = units
+    if partitions is not None:
+        raw["partitions"] = partitions
+    return write_scenario(tmp_path / "s.toml", raw)
+
+
+def test_units_and_partitions_load_with_their_keys(tmp_path):
+    scn = load_scenario(
+        _units_scenario(
+            tmp_path,
+            [
+                {"name": "north", "ending_stock": 0.9},
+                {"name": "south", "policy": "targets", "targets_m3": [10.0, 20.0]},
+            ],
+            [{"name": "old", "where": "AGE > 100", "min_share": 0.2, "max_m3": 5000}],
+        )
+    )
+    assert scn.inventory.fields.unit == "OWNER"
+    assert [(u.name, u.policy, u.ending_stock) for u in scn.units] == [
+        ("north", None, 0.9),
+        ("south", "targets", None),
+    ]
+    (part,) = scn.partitions
+    assert (part.min_share, part.max_share, part.max_m3) == (0.2, None, 5000.0)
+
+
+@pytest.mark.parametrize(
+    ("units", "partitions", "unit_field", "match"),
+    [
+        ([{"name": "a"}], None, None, r"\[\[units\]\] needs \[inventory.fields\] unit"),
+        ([{"name": "a"}, {"name": "a"}], None, "OWNER", r"name = 'a' is given twice"),
+        ([{"name": "a", "band": 1.2}], None, "OWNER", r"\[units #1 'a'\] band = 1.2: must be"),
+        ([{"name": "a", "policy": "most"}], None, "OWNER", r"policy = 'most': choose one of"),
+        ([{"ending_stock": 1.0}], None, "OWNER", r"missing required key 'name'"),
+        (
+            [{"name": "a", "policy": "nondeclining"}],
+            None,
+            "OWNER",
+            r"'a': policy = 'nondeclining' is not searched per unit",
+        ),
+        ([{"name": "a", "policy": "targets"}], None, "OWNER", r"'targets' needs targets_m3"),
+        (None, [{"name": "p", "where": "AGE > 1"}], None, r"'p'\] needs a limit"),
+        (
+            None,
+            [{"name": "p", "where": "AGE > 1", "min_share": 0.6, "max_share": 0.4}],
+            None,
+            r"min_share = 0.6 is above max_share = 0.4",
+        ),
+        (None, [{"name": "p", "where": "x", "min_m3": -5}], None, r"min_m3 = -5: must be >= 0"),
+        (None, {"name": "p"}, None, r"partitions is an array of tables"),
+    ],
+)
+def test_bad_units_and_partitions_are_named(tmp_path, units, partitions, unit_field, match):
+    with pytest.raises(ScenarioError, match=match):
+        load_scenario(_units_scenario(tmp_path, units, partitions, unit_field))

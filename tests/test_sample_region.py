@@ -23,7 +23,7 @@ SLOPE_TIF = SAMPLE_DIR / "slope_pct.tif"
 SITE_TIF = SAMPLE_DIR / "site_index.tif"
 GENERATOR = SAMPLE_DIR / "make_sample_region.py"
 LAYER = "stands"
-FIELDS = ["STAND_NO", "SPP", "SI_M", "AGE", "ZONE", "COVER"]
+FIELDS = ["STAND_NO", "SPP", "SI_M", "AGE", "ZONE", "HOLDING", "COVER"]
 SPECIES = {"spruce", "pine", "fir", "aspen"}
 ZONES = {"highland", "valley", "lakeshore"}
 COVERS = {"forest", "wetland", "rock"}
@@ -123,6 +123,12 @@ def test_attribute_domains(stands):
     assert set(stands["SPP"]) == SPECIES
     assert set(stands["ZONE"]) == ZONES
     assert set(stands["COVER"]) == COVERS
+    # the two management units: west 55% of the area, every west centroid west of the east's
+    west = stands["HOLDING"] == "west"
+    assert set(stands["HOLDING"]) == {"west", "east"}
+    assert area_share(stands, west) == pytest.approx(0.55, abs=0.01)
+    x = shapely.get_coordinates(shapely.centroid(stands.geometry.array))[:, 0]
+    assert x[west].max() <= x[~west].min()
     assert (stands["AGE"] >= 1).all()
     assert (stands.loc[stands["SPP"] == "aspen", "AGE"] <= 140).all()
     si = stands["SI_M"].dropna()

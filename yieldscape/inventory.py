@@ -2,7 +2,8 @@
 
 :func:`prepare_inventory` takes the layer as read (its own field names) and the scenario, runs
 every check, and returns an :class:`Inventory` whose frame has the columns ``stand_id``,
-``species``, ``site_index`` [m], ``age_years``, ``zone``, ``area_ha`` and the geometry, followed
+``species``, ``site_index`` [m], ``age_years``, ``zone``, ``unit`` (the management unit),
+``area_ha`` and the geometry, followed
 by the layer's other attributes. Nothing here opens a file.
 """
 
@@ -29,6 +30,7 @@ STANDARD_COLUMNS = (
     "site_index",
     "age_years",
     "zone",
+    "unit",
     "area_ha",
 )
 AGE_CLASS_YEARS = 20
@@ -130,6 +132,8 @@ def prepare_inventory(
     age = _ages(frame[fields.age], fields.age, rows, scenario.growth.max_age_years)
     rows.fail(frame[fields.species].isna().to_numpy(), f"field {fields.species!r}: null species")
     species = frame[fields.species].astype(str)
+    if fields.unit is not None:
+        rows.fail(frame[fields.unit].isna().to_numpy(), f"field {fields.unit!r}: null unit")
     unit = _analysis_units(frame, mapping, species, age, scenario, where)
     _known_codes(unit, fields.species, rows, scenario)
     notes: list[str] = []
@@ -150,6 +154,7 @@ def prepare_inventory(
             "site_index": si,
             "age_years": age,
             "zone": _zones(frame, fields.zone),
+            "unit": _zones(frame, fields.unit),
             "area_ha": area_ha,
             "site_index_source": source,
         }
@@ -172,6 +177,8 @@ def _mapped_fields(frame: gpd.GeoDataFrame, fields, where: str) -> dict[str, str
     }
     if fields.zone is not None:
         mapping["zone"] = fields.zone
+    if fields.unit is not None:
+        mapping["unit"] = fields.unit
     have = [c for c in frame.columns if c != frame.geometry.name]
     for ours, theirs in mapping.items():
         if theirs not in frame.columns:
@@ -340,7 +347,7 @@ def _site_ranges(
 
 
 def _zones(frame: gpd.GeoDataFrame, field_name: str | None) -> np.ndarray:
-    """Zone names as text (None where missing, or without a zone field)."""
+    """Zone (or unit) names as text (None where missing, or without the field)."""
     if field_name is None:
         return np.array([None] * len(frame), dtype=object)
     col = frame[field_name]

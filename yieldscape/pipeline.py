@@ -60,14 +60,20 @@ from yieldscape.reporting.indicators import (
     stand_ages_table,
 )
 from yieldscape.reporting.tables import regeneration_table
+from yieldscape.reporting.units import unit_outputs, with_unit
 from yieldscape.results import CheckResult, CurvesResult, RunResult
 from yieldscape.runlog import Timer, captured_log, named_lines, released
-from yieldscape.schedule import HarvestRules, SpatialRules, lp_plan, schedule, stable_periods_for
-from yieldscape.schedule import spatial as arm
+from yieldscape.schedule import HarvestRules, SpatialRules, lp_plan, stable_periods_for
 from yieldscape.schedule.cover import CoverRules, cover_report, cover_rules
 from yieldscape.schedule.eligibility import never_cut_warnings, too_large_for_openings
-from yieldscape.schedule.flow import FlowResult
 from yieldscape.schedule.montecarlo import monte_carlo_table
+from yieldscape.schedule.stage import (
+    REGION,
+    Schedule,
+    harvest_partitions,
+    management_units,
+    schedule_run,
+)
 
 log = logging.getLogger("yieldscape")
 
@@ -104,13 +110,10 @@ def check(scenario: Scenario, strict: bool = False) -> CheckResult:
     inventory = prepare_inventory(
         frame, scenario, where=f"{cfg.path}, layer {layer!r}", strict=strict, site_fill=fill
     )
-    f = cfg.fields
-    names = {"stand_id": f.stand_id, "species": f.species, "site_index": f.site_index}
-    names |= {"age_years": f.age, "zone": f.zone}
     netdown = apply_netdown(
         inventory.stands,
         scenario.landbase.steps,
-        where_fields(inventory.stands, names),
+        where_fields(inventory.stands, _layer_names(scenario)),
         read_overlay,
         read_step_raster,
         strict=strict,
@@ -122,6 +125,14 @@ def check(scenario: Scenario, strict: bool = False) -> CheckResult:
     if scenario.harvest.spatial and scenario.harvest.max_opening_ha:
         _warn(too_large_for_openings(netdown.harvestable_ha, scenario.harvest.max_opening_ha))
     return CheckResult(stands, inventory.report, netdown)
+
+
+def _layer_names(scenario: Scenario) -> dict[str, str | None]:
+    """The stand table's standard columns -> the layer's names for them (where rules may
+    name either)."""
+    f = scenario.inventory.fields
+    names = {"stand_id": f.stand_id, "species": f.species, "site_index": f.site_index}
+    return names | {"age_years": f.age, "zone": f.zone, "unit": f.unit}
 
 
 def _where(scenario: Scenario) -> str:
@@ -182,16 +193,6 @@ class _Model:
     periods: Periods
     curves: CurveSet
     arrays: StandArrays
-
-
-@dataclass(frozen=True)
-class _Schedule:
-    """What the scheduling stage produced."""
-
-    flow: FlowResult
-    rules: HarvestRules
-    lp: lp_plan.LPResult | None
-    openings: pd.DataFrame | None
 
 
 def _project(scenario: Scenario, strict: bool) -> RunResult:
@@ -266,55 +267,25 @@ def _harvest_rules(scenario: Scenario, inventory: CheckResult, periods: Periods)
     )
 
 
-def _schedule(scenario: Scenario, inventory: CheckResult, model: _Model, timer: Timer) -> _Schedule:
-    """The flow policy's schedule (or the LP's plan mapped onto stands), the LP beside it,
-    what the spatial rules cost and the openings they leave."""
-    rules = _harvest_rules(scenario, inventory, model.periods)
-    s, c, p = model.arrays, model.curves, model.periods
-    known = arm.without_never_cut(s, rules.spatial)  # for the LP and the comparison
-    lp = strata = None
-    if lp_plan.wanted(scenario):
-        with timer.stage("harvest LP"):
-            lp, strata = lp_plan.harvest_lp(scenario, known, c, p, rules.cover)
-    f = scenario.flow
-    if f.method == "optimize":
-        assert lp is not None and strata is not None
-        rules = lp_plan.guided(lp, strata, s, p, rules)
-        flow = lp_plan.lp_schedule(lp, s, c, p, scenario, rules)
-    else:
-        flow = schedule(s, c, p, f, f.policy, rules)
-        if lp is not None and strata is not None:  # the LP's plan as the cutting order too
-            with timer.stage("LP-guided search"):
-                flow, rules, order = lp_plan.guided_search(
-                    flow, lp, strata, s, c, p, f, f.policy, rules
-                )
-            log.info("schedule: %s", order)
-    openings = None
-    if rules.spatial is not None:
-        if f.method == "rules":
-            plain = replace(rules, spatial=None, snapshots=())
-            aspatial = schedule(known, c, p, f, f.policy, plain).level_m3_per_period
-            flow.details["aspatial_level_m3_per_period"] = aspatial
-            flow.details["spatial_cost_m3_per_period"] = aspatial - flow.level_m3_per_period
-            flow.details["never_cut_harvestable_ha"] = arm.never_cut_area_ha(s, rules.spatial)
-        sim = flow.simulation
-        times = p.harvest_years - p.start_year
-        clear = sim.event_treatment == 0  # thinnings open nothing
-        ev_t = times[sim.event_period[clear] - 1] if clear.any() else np.zeros(0)
-        openings = arm.openings_table(
-            sim.event_stand[clear],
-            ev_t,
-            sim.event_area_ha[clear],
-            times,
-            rules.spatial.adjacency,
-            rules.spatial.greenup_years,
-        )
-        arm.check_openings(openings, scenario.harvest.max_opening_ha)
-    return _Schedule(flow, rules, lp, openings)
+def _schedule(scenario: Scenario, inventory: CheckResult, model: _Model, timer: Timer) -> Schedule:
+    """The scheduling stage (:func:`yieldscape.schedule.stage.schedule_run`) over the harvest
+    rules with the scenario's management units and partitions."""
+    stands, where = inventory.stands, f"{scenario.inventory.path}"
+    units = management_units(scenario, stands["unit"], where)
+    fields = where_fields(stands, _layer_names(scenario))
+    parts = harvest_partitions(
+        scenario, fields, model.curves.codes, str(scenario.source or "scenario")
+    )
+    rules = replace(
+        _harvest_rules(scenario, inventory, model.periods),
+        units=units.of_stand if units is not None else None,
+        partitions=parts,
+    )
+    return schedule_run(scenario, model.arrays, model.curves, model.periods, rules, units, timer)
 
 
 def _tables(
-    scenario: Scenario, inventory: CheckResult, model: _Model, sched: _Schedule
+    scenario: Scenario, inventory: CheckResult, model: _Model, sched: Schedule
 ) -> RunResult:
     """The run's tables (wood flow, stands, harvests, products) in a result to complete."""
     flow, s, c, p = sched.flow, model.arrays, model.curves, model.periods
@@ -324,7 +295,7 @@ def _tables(
         out_dir=None,
         inventory=inventory,
         flow=flow,
-        wood_flow=wood_flow_table(flow, p, lp_bound, revenue),
+        wood_flow=with_unit(wood_flow_table(flow, p, lp_bound, revenue), REGION),
         stands=released(stands_layer(flow, inventory.stands, s, c, p)),
         harvests=released(harvests_layer(flow, inventory.stands, p, c.codes)),
         regeneration=regeneration_table(flow, c.codes),
@@ -335,7 +306,7 @@ def _tables(
     )
 
 
-def _indicators(scenario: Scenario, model: _Model, sched: _Schedule, result: RunResult) -> None:
+def _indicators(scenario: Scenario, model: _Model, sched: Schedule, result: RunResult) -> None:
     """The verdict, the concerns worth a warning, the indicators and the structure tables."""
     flow, s, p, stands = sched.flow, model.arrays, model.periods, result.inventory.stands
     area = s.cuttable_ha
@@ -348,6 +319,19 @@ def _indicators(scenario: Scenario, model: _Model, sched: _Schedule, result: Run
     if result.monte_carlo is not None:
         concerns.append(monte_carlo_spread(result.monte_carlo))
     _warn([c for c in concerns if c])
+    result.by_unit = unit_outputs(
+        flow,
+        sched.units,
+        sched.rules.partitions,
+        sched.lp,
+        scenario,
+        (s, model.curves, p),
+        long_term,
+        wf,
+    )
+    if sched.units is not None:
+        for name, v in zip(sched.units.names, result.by_unit.verdicts, strict=True):
+            (log.info if v.sustainable else log.warning)("unit %r: %s", name, v.headline)
     result.lp = lp_plan.lp_record(sched.lp, flow, scenario)
     gross = result.inventory.report.area_ha
     hlb = float(result.inventory.netdown.harvestable_ha.sum())

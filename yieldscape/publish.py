@@ -20,6 +20,7 @@ import shapely
 
 from yieldscape.config import Scenario
 from yieldscape.geometry import metres_per_unit, metric_geometries
+from yieldscape.growth import StockGrowth
 from yieldscape.growth.rules import SiteSummary
 from yieldscape.io.outputs import replace_file, sha256_file, write_json
 from yieldscape.io.rasters import write_geotiff
@@ -34,8 +35,10 @@ from yieldscape.reporting.figures import (
     harvest_figure,
     harvest_map_figure,
     monte_carlo_figure,
+    stock_shapes_figure,
 )
 from yieldscape.reporting.report import Figure, ReportData, html_report, markdown_report
+from yieldscape.reporting.units import units_record
 from yieldscape.results import CheckResult, RunResult
 from yieldscape.sharedwork import Claim, shared_jobs
 from yieldscape.versions import library_versions
@@ -58,6 +61,9 @@ AGE_CLASSES_CSV = "age_classes.csv"
 BREAKDOWN_CSV = "harvest_by_zone_species.csv"
 REGENERATION_CSV = "regeneration.csv"
 UNITS_CSV = "area_by_analysis_unit.csv"
+MANAGEMENT_UNITS_CSV = "management_units.csv"
+PARTITIONS_CSV = "partitions.csv"
+CONSTRAINTS_CSV = "constraints.csv"
 COMPARISON_CSV = "comparison.csv"
 COMPARISON_PNG = "comparison.png"
 REPORT_HTML = "report.html"
@@ -65,6 +71,7 @@ REPORT_MD = "report.md"
 RUN_JSON = "run.json"
 RUN_LOG = "run.log"
 CURVES_CSV = "curves.csv"
+STOCK_SHAPES_PNG = "stock_shapes.png"  # in FIGURES_DIR, with stock-growth species
 FIGURES_DIR = "figures"
 RASTERS_DIR = "rasters"
 # every entry yieldscape writes into an output directory (run, curves)
@@ -83,6 +90,9 @@ MANAGED = frozenset(
         BREAKDOWN_CSV,
         REGENERATION_CSV,
         UNITS_CSV,
+        MANAGEMENT_UNITS_CSV,
+        PARTITIONS_CSV,
+        CONSTRAINTS_CSV,
         COMPARISON_CSV,
         REPORT_HTML,
         REPORT_MD,
@@ -172,8 +182,15 @@ def write_tables(result: RunResult, directory: Path) -> None:
     if result.write_harvestable_layer:
         write_gpkg_layer(gpkg, harvestable_layer(result.inventory), "harvestable")
     assert result.verdict is not None
+    units = result.by_unit
+    wood_flow = result.wood_flow
+    if units.wood_flow is not None:  # the region's rows, then each unit's
+        wood_flow = pd.concat([wood_flow, units.wood_flow], ignore_index=True)
     tables = [
-        (result.wood_flow, "wood_flow", WOOD_FLOW_CSV),
+        (wood_flow, "wood_flow", WOOD_FLOW_CSV),
+        (units.units, "management_units", MANAGEMENT_UNITS_CSV),
+        (units.partitions, "partitions", PARTITIONS_CSV),
+        (units.constraints, "constraints", CONSTRAINTS_CSV),
         (result.products, "wood_flow_by_product", PRODUCTS_CSV),
         (result.inventory.netdown.table, "netdown", NETDOWN_CSV),
         (result.monte_carlo, "monte_carlo", MONTE_CARLO_CSV),
@@ -583,6 +600,7 @@ def report_data(
         flow_details=dict(result.flow.details),
         case=case,
         warnings=result.warnings,
+        by_unit=result.by_unit,
     )
 
 
@@ -628,6 +646,7 @@ def run_record(result: RunResult, scenario: Scenario) -> dict:
             "ending_growing_stock_m3": flow.simulation.ending_stock_m3,
         },
         "verdict": result.verdict.to_dict() if result.verdict is not None else None,
+        **units_record(result.by_unit),
         "warnings": list(result.warnings),
         "lp": result.lp,
         "timings_s": result.timings_s,
@@ -666,6 +685,12 @@ def write_curves(
         replace_file(
             path, lambda p, c=code, cv=curve, m=main, a=age: curve_figure(p, c, cv, m, a), out
         )
+        files.append(path)
+    stocks = {c: s.yield_curve() for c, s in scenario.species.items()}
+    stocks = {c: cv for c, cv in stocks.items() if isinstance(cv, StockGrowth)}
+    if stocks:  # the four shapes side by side, the species on theirs
+        path = out / FIGURES_DIR / STOCK_SHAPES_PNG
+        replace_file(path, lambda p: stock_shapes_figure(p, stocks), out)
         files.append(path)
     return files
 

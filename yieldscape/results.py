@@ -15,6 +15,7 @@ from yieldscape.growth.rules import SiteSummary
 from yieldscape.inventory import CheckReport
 from yieldscape.landbase import Netdown
 from yieldscape.reporting.indicators import Verdict
+from yieldscape.reporting.units import UnitOutputs
 from yieldscape.schedule.flow import FlowResult
 
 
@@ -70,6 +71,8 @@ class RunResult:
     curve_summaries: dict[str, list[SiteSummary]] = field(default_factory=dict)  # by species
     log: list[str] = field(default_factory=list)  # the run's log lines (run.log)
     warnings: tuple[str, ...] = ()  # what the run warned of (also in run.log and the report)
+    # management units, harvest partitions and the LP's rows with their duals
+    by_unit: UnitOutputs = field(default_factory=UnitOutputs)
 
     @property
     def level_m3_per_year(self) -> float:

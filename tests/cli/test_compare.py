@@ -12,7 +12,14 @@ from PIL import Image
 from yieldscape.cli.main import main
 from yieldscape.errors import ScenarioError
 
-from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
+from helpers import (
+    regional_wood_flow,
+    scenario_dict,
+    squares,
+    stand_attrs,
+    write_layer,
+    write_scenario,
+)
 
 # as the sample's cases: a looser ending stock, smaller openings; and a species key
 CASES = [
@@ -92,7 +99,7 @@ def test_a_run_with_cases_logs_no_line_twice_and_names_each_cases_lines(cases_ru
         assert f"sensitivity case {name!r}: " in stdout
         # a case whose harvest dips below its level (a flow band) says how low, from its table
         (line,) = [x for x in stdout.splitlines() if x.startswith(f"sensitivity case {name!r}: ")]
-        wf = pd.read_csv(out / name / "wood_flow.csv")
+        wf = regional_wood_flow(out / name / "wood_flow.csv")
         level = json.loads((out / name / "run.json").read_text())["flow"]["level_m3_per_year"]
         low = wf["harvest_m3_per_year"].min()
         said = f"its lowest period {low:,.0f} m3/year (the flow band)"

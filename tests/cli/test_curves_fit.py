@@ -1,5 +1,7 @@
 """`yieldscape curves` and `yieldscape fit` on real files."""
 
+import re
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -112,3 +114,70 @@ def test_fit_bad_input(tmp_path, capsys, content, pattern):
         path.write_text(content)
     assert main(["fit", str(path)]) == 2
     assert pattern in capsys.readouterr().err
+
+
+def test_curves_draw_the_four_stock_shapes(tmp_path, capsys):
+    # Issue 16: a scenario with a species on each stock shape; the curves report gives each
+    # MSY in closed form and draws the four side by side (figures/stock_shapes.png).
+    n = 4
+    codes = ["logi", "mini", "thre", "depe"]
+    attrs = stand_attrs(n, ages=60, species=codes, site=18.0)
+    layer = write_layer(tmp_path / "s.gpkg", squares(n), attrs)
+    raw = scenario_dict(layer)
+    raw["species"] = {
+        code: {
+            "curve": f"stock-{shape}",
+            "r": 0.1,
+            "capacity_m3_ha": 300.0,
+            "initial_m3_ha": 10.0,
+            "min_harvest_age": 40,
+            **({"min_viable_m3_ha": m} if m is not None else {}),
+        }
+        for code, shape, m in zip(
+            codes,
+            ["logistic", "minimum", "threshold", "depensation"],
+            [None, 30.0, 5.0, None],
+            strict=True,
+        )
+    }
+    out = tmp_path / "rep"
+    assert main(["curves", str(write_scenario(tmp_path / "scn.toml", raw)), "--out", str(out)]) == 0
+    err = capsys.readouterr().err
+    assert "mini: the starting stock is below the minimum viable stock" in err  # 10 < m = 30
+    assert "thre:" not in err  # 10 > m = 5: grows
+    table = pd.read_csv(out / "curves.csv").set_index("species")
+    k, r = 300.0, 0.1
+    # closed forms (Clark 1990 ch. 1; the issue's): minimum (K + m)/2 and r (K - m)^2 / (4K);
+    # depensation 2K/3 and 4rK/27; logistic K/2 and rK/4
+    assert table.loc["mini", "msy_stock_m3_ha"] == pytest.approx((k + 30.0) / 2)
+    assert table.loc["mini", "msy_growth_m3_ha_yr"] == pytest.approx(r * (k - 30.0) ** 2 / (4 * k))
+    assert table.loc["depe", "msy_stock_m3_ha"] == pytest.approx(2 * k / 3)
+    assert table.loc["depe", "msy_growth_m3_ha_yr"] == pytest.approx(4 * r * k / 27)
+    assert table.loc["logi", "msy_growth_m3_ha_yr"] == pytest.approx(r * k / 4)
+    with Image.open(out / "figures" / "stock_shapes.png") as img:
+        assert img.format == "PNG" and img.size == (1400, 1000)
+
+
+@pytest.mark.parametrize(("shape", "m"), [("minimum", 40.0), ("depensation", None)])
+def test_fit_recovers_a_stock_shape_from_integrated_points(tmp_path, capsys, shape, m):
+    # Points from scipy's RK45 integration of dS/dt = g(S), independent of yieldscape's
+    # closed forms and tables; the fit gives back r, K, S0 (and m).
+    from scipy.integrate import solve_ivp
+
+    from yieldscape.growth.stock import growth
+
+    r, k, s0 = 0.07, 450.0, 60.0
+    t = np.arange(5.0, 200.0, 5.0)
+    sol = solve_ivp(
+        lambda _, s: growth(s, r, k, m, shape), (0, 200), [s0], t_eval=t, rtol=1e-11, atol=1e-11
+    )
+    path = tmp_path / "p.csv"
+    pd.DataFrame({"age_years": t, "volume_m3_ha": sol.y[0]}).to_csv(path, index=False)
+    assert main(["fit", str(path), "--model", f"stock-{shape}", "--species", "moss"]) == 0
+    out = capsys.readouterr().out
+    got = dict(re.findall(r"^(\w+) = ([-+.\deE]+)$", out, re.M))
+    assert float(got["r"]) == pytest.approx(r, rel=1e-3)
+    assert float(got["capacity_m3_ha"]) == pytest.approx(k, rel=1e-3)
+    assert float(got["initial_m3_ha"]) == pytest.approx(s0, rel=1e-2)
+    if m is not None:
+        assert float(got["min_viable_m3_ha"]) == pytest.approx(m, rel=1e-2)

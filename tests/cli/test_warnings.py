@@ -73,6 +73,17 @@ def _case(name, tmp_path):
             "min_harvest_age": 60,
         }
         return raw
+    if name == "stock below its minimum viable stock":
+        raw = _forest(tmp_path)
+        raw["species"]["pine"] = {
+            "curve": "stock-minimum",
+            "r": 0.05,
+            "capacity_m3_ha": 400.0,
+            "initial_m3_ha": 10.0,
+            "min_viable_m3_ha": 30.0,
+            "min_harvest_age": 60,
+        }
+        return raw
     if name == "minimum harvest age of 5000 years":
         return _forest(tmp_path, species={"pine": {**_pine(), "min_harvest_age": 5000}})
     if name == "opening without green-up":
@@ -97,6 +108,8 @@ WARNED = {
     "site index in feet": r"row 5 \(stand 5\): 70: 1 stands have a site index above 60 m",
     "yield table that collapses": r"\[species.pine\]: the volume falls from 290 m3/ha at age 80 "
     r"to 8 at age 120",
+    "stock below its minimum viable stock": r"species pine: initial_m3_ha is below "
+    r"min_viable_m3_ha, so its stands collapse after harvest",
     "minimum harvest age of 5000 years": r"20 stands \(20.0 ha, 100.0% of the harvestable land "
     r"base\) can never be cut: .*pine: 20 stands, 20.0 ha \(minimum harvest age 5,000 years\)",
     "opening without green-up": r"\[harvest\] max_opening_ha = 40 has no effect: "

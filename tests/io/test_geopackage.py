@@ -100,7 +100,7 @@ def test_layers_read_back_with_pyogrio(run_dir):
     layers = dict(pyogrio.list_layers(gpkg))
     tables = {"wood_flow", "wood_flow_by_product", "netdown", "indicators", "verdict"}
     tables |= {"age_classes", "harvest_by_zone_species", "stand_ages", "regeneration"}
-    tables |= {"area_by_analysis_unit", "harvest_events"}
+    tables |= {"area_by_analysis_unit", "harvest_events", "constraints"}
     assert {name for name, kind in layers.items() if kind is None} == tables
     assert {"stands", "harvests", "harvests_period_01", "stands_age_2130"} <= set(layers)
     stands = pyogrio.read_dataframe(gpkg, layer="stands")

@@ -68,6 +68,8 @@ def handle(args: argparse.Namespace) -> int:
             f"land base {hlb0:,.0f} m3 at start, {hlb1:,.0f} m3 at the end ({_change(hlb0, hlb1)})"
         )
         print(f"verdict: {result.verdict.headline} (report.html has the checks)")
+        for line in _unit_lines(result):
+            print(line)
         for name, case in result.cases.items():
             diff = case.level_m3_per_year - result.level_m3_per_year
             judged = "sustainable" if case.verdict.sustainable else "NOT sustainable"
@@ -95,3 +97,25 @@ def handle(args: argparse.Namespace) -> int:
 def _change(start: float, end: float) -> str:
     """The change from start to end in words, e.g. "-28%"."""
     return f"{100 * (end / start - 1):+.0f}%" if start > 0 else "none at start"
+
+
+def _unit_lines(result: yieldscape.RunResult) -> list[str]:
+    """Each management unit's level and verdict, each partition's shares, the costliest rules."""
+    out, by = [], result.by_unit
+    if by.units is not None:
+        for row in by.units.itertuples(index=False):
+            judged = "sustainable" if row.sustainable else "NOT sustainable"
+            out.append(f"unit {row.unit!r}: {row.level_m3_per_year:,.0f} m3/year, {judged}")
+    if by.partitions is not None:
+        for name, g in by.partitions.groupby("partition", sort=False):
+            out.append(
+                f"partition {name!r}: {g['share_of_harvest'].min():.1%} to "
+                f"{g['share_of_harvest'].max():.1%} of each period's harvest"
+                + ("" if g["holds"].all() else " (a limit is broken)")
+            )
+    if by.costliest:
+        costs = "; ".join(
+            f"{r['rule']} {r['cost_m3_per_year_per_percent']:,.0f}" for r in by.costliest
+        )
+        out.append(f"costliest rules (LP duals, m3/year per 1% looser): {costs}")
+    return out

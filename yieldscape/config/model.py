@@ -57,6 +57,8 @@ SECTIONS = (
     "growth",
     "landbase",
     "cover",
+    "units",
+    "partitions",
     "disturbance",
     "report",
     "sensitivity",
@@ -113,6 +115,11 @@ class FieldMap:
     site_index: str = key("str", doc="Layer field holding the site index [m].")
     age: str = key("str", doc="Layer field holding the stand age [years] at start_year.")
     zone: str | None = key("str", None, doc="Layer field holding a zone name (optional).")
+    unit: str | None = key(
+        "str",
+        None,
+        doc="Layer field holding the management unit of each stand (optional; see [[units]]).",
+    )
 
 
 @dataclass(frozen=True)
@@ -207,6 +214,66 @@ class LandbaseConfig:
     steps: tuple[NetdownStep, ...] = key("steps", (), "", "Netdown steps, applied in order.")
     write_harvestable_layer: bool = key(
         "bool", False, "", "Also write the netted geometry as a layer."
+    )
+
+
+@dataclass(frozen=True)
+class UnitConfig:
+    """``[[units]]``: a management unit's own flow; units without a table follow [flow]."""
+
+    name: str = key("str", doc="The unit: a value of the stand layer's unit field.")
+    policy: str | None = key(
+        "choice",
+        None,
+        "",
+        "The unit's flow policy (default: flow.policy).",
+        choices=tuple(FLOW_POLICIES),
+    )
+    band: float | None = key(
+        "float",
+        None,
+        "fraction",
+        "The unit's band (default: flow.band).",
+        check=Range(0, 1, hi_open=True),
+    )
+    ending_stock: float | None = key(
+        "float",
+        None,
+        "fraction",
+        "The unit's ending growing stock as a share of its initial (default: flow.ending_stock).",
+        check=_non_negative,
+    )
+    targets_m3: tuple[float, ...] | None = key(
+        "floats",
+        None,
+        "m3/period",
+        "targets: the unit's harvest target of each period (default: flow.targets_m3).",
+        check=_non_negative,
+    )
+
+
+@dataclass(frozen=True)
+class PartitionConfig:
+    """``[[partitions]]``: a share (or an amount) of each period's regional harvest volume
+    that the stands a condition selects must (or may at most) yield."""
+
+    name: str = key("str", doc="The partition's name (in messages and the constraints table).")
+    where: str = key(
+        "str",
+        doc="Rule over the stand layer's fields and species, unit and zone (as a land base "
+        "where rule).",
+    )
+    min_share: float | None = key(
+        "float", None, "fraction", "At least this share of each period's harvest.", check=_share
+    )
+    max_share: float | None = key(
+        "float", None, "fraction", "At most this share of each period's harvest.", check=_share
+    )
+    min_m3: float | None = key(
+        "float", None, "m3/period", "At least this volume in each period.", check=_non_negative
+    )
+    max_m3: float | None = key(
+        "float", None, "m3/period", "At most this volume in each period.", check=_non_negative
     )
 
 
@@ -458,7 +525,7 @@ class SpeciesConfig:
         "float",
         None,
         "m3/ha",
-        "Minimum viable stock of stock-threshold (0 < m < K).",
+        "Minimum viable stock m of stock-minimum and stock-threshold (0 < m < K).",
         check=_positive,
     )
     site_index_ref_m: float | None = key(
@@ -762,6 +829,8 @@ KEYS: dict[str, dict[str, KeySpec]] = {
     "landbase": keys_of(LandbaseConfig),
     "landbase.steps": keys_of(NetdownStep),
     "cover": keys_of(CoverTarget),
+    "units": keys_of(UnitConfig),
+    "partitions": keys_of(PartitionConfig),
     "disturbance": keys_of(DisturbanceConfig),
     "report": keys_of(ReportConfig),
     "species.*": keys_of(SpeciesConfig),
@@ -786,6 +855,8 @@ class Scenario:
     growth: GrowthConfig = field(default_factory=GrowthConfig)
     landbase: LandbaseConfig = field(default_factory=LandbaseConfig)
     cover: tuple[CoverTarget, ...] = ()
+    units: tuple[UnitConfig, ...] = ()
+    partitions: tuple[PartitionConfig, ...] = ()
     disturbance: DisturbanceConfig = field(default_factory=DisturbanceConfig)
     report: ReportConfig = field(default_factory=ReportConfig)
     source: Path | None = None

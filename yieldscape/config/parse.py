@@ -39,6 +39,7 @@ from yieldscape.config.model import (
     InventoryConfig,
     LandbaseConfig,
     NetdownStep,
+    PartitionConfig,
     RasterFill,
     Regeneration,
     ReportConfig,
@@ -46,6 +47,7 @@ from yieldscape.config.model import (
     ScenarioInfo,
     SpeciesConfig,
     Thinning,
+    UnitConfig,
 )
 from yieldscape.errors import ScenarioError
 from yieldscape.growth.products import ProductSplit
@@ -130,7 +132,7 @@ def apply_override(raw: dict[str, Any], item: str) -> None:
     except tomllib.TOMLDecodeError:
         value = text.strip()
     parts = key.split(".")
-    if parts in (["cover"], ["sensitivity"]) and isinstance(value, list):
+    if parts in (["cover"], ["units"], ["partitions"], ["sensitivity"]) and isinstance(value, list):
         raw[parts[0]] = value  # an array of tables as a whole (sensitivity=[]: no cases)
         return
     if len(parts) < 2 or parts[0] not in SECTIONS:
@@ -210,6 +212,8 @@ def _parse(
         growth,
         _landbase(raw.get("landbase", {}), base_dir, where),
         _cover(raw.get("cover", []), where),
+        _units(raw.get("units", []), flow, inventory, where),
+        _partitions(raw.get("partitions", []), where),
         disturbance,
         _report(raw.get("report", {}), info, where),
         source,
@@ -444,6 +448,78 @@ def _cover(raw: Any, where: str) -> tuple[CoverTarget, ...]:
     return tuple(out)
 
 
+def _array_of_tables(raw: Any, name: str, where: str) -> list[Any]:
+    if not isinstance(raw, list):
+        raise ScenarioError(f"{where}: {name} is an array of tables: [[{name}]]")
+    return raw
+
+
+UNIT_POLICIES = ("even", "targets")  # the flows searched per management unit
+
+
+def _units(
+    raw: Any, flow: FlowConfig, inventory: InventoryConfig, where: str
+) -> tuple[UnitConfig, ...]:
+    """``[[units]]``: each a unit's own flow keys; names unique; a unit field to read."""
+    out = []
+    for n, tbl in enumerate(_array_of_tables(raw, "units", where), start=1):
+        label = tbl.get("name", f"#{n}") if isinstance(tbl, dict) else f"#{n}"
+        unit = UnitConfig(**_take(tbl, "units", where, shown=f"units #{n} {label!r}"))
+        policy = unit.policy or flow.policy
+        if policy not in UNIT_POLICIES:
+            raise ScenarioError(
+                f"{where}: [[units]] #{n} {unit.name!r}: policy = {policy!r} is not searched "
+                f"per unit; a unit follows one of {', '.join(UNIT_POLICIES)}"
+            )
+        if policy == "targets" and (unit.targets_m3 or flow.targets_m3) is None:
+            raise ScenarioError(
+                f"{where}: [[units]] #{n} {unit.name!r}: policy = 'targets' needs targets_m3"
+            )
+        out.append(unit)
+    names = [u.name for u in out]
+    for name in names:
+        if names.count(name) > 1:
+            raise ScenarioError(f"{where}: [[units]] name = {name!r} is given twice")
+    if inventory.fields.unit is not None and flow.policy not in UNIT_POLICIES:
+        raise ScenarioError(
+            f"{where}: [flow] policy = {flow.policy!r} with [inventory.fields] unit: the units "
+            f"without a [[units]] table follow [flow], and a unit follows one of "
+            f"{', '.join(UNIT_POLICIES)}"
+        )
+    if out and inventory.fields.unit is None:
+        raise ScenarioError(
+            f'{where}: [[units]] needs [inventory.fields] unit = "FIELD", the stand layer\'s '
+            "field naming each stand's unit"
+        )
+    return tuple(out)
+
+
+def _partitions(raw: Any, where: str) -> tuple[PartitionConfig, ...]:
+    """``[[partitions]]``: a name, a where rule and at least one limit, minimum <= maximum."""
+    out = []
+    for n, tbl in enumerate(_array_of_tables(raw, "partitions", where), start=1):
+        label = tbl.get("name", f"#{n}") if isinstance(tbl, dict) else f"#{n}"
+        sect = f"partitions #{n} {label!r}"
+        part = PartitionConfig(**_take(tbl, "partitions", where, shown=sect))
+        limits = (part.min_share, part.max_share, part.min_m3, part.max_m3)
+        if all(v is None for v in limits):
+            raise ScenarioError(
+                f"{where}: [{sect}] needs a limit: min_share, max_share, min_m3 or max_m3"
+            )
+        for lo, hi, what in ((0, 1, "share"), (2, 3, "m3")):
+            if limits[lo] is not None and limits[hi] is not None and limits[lo] > limits[hi]:
+                raise ScenarioError(
+                    f"{where}: [{sect}] min_{what} = {limits[lo]:g} is above "
+                    f"max_{what} = {limits[hi]:g}"
+                )
+        out.append(part)
+    names = [p.name for p in out]
+    for name in names:
+        if names.count(name) > 1:
+            raise ScenarioError(f"{where}: [[partitions]] name = {name!r} is given twice")
+    return tuple(out)
+
+
 def _landbase(raw: Any, base_dir: Path, where: str) -> LandbaseConfig:
     vals = _take(raw, "landbase", where)
     steps = []
@@ -535,10 +611,21 @@ def _species(
     for key in CURVE_PARAMETERS[curve]:
         if vals[key] is None:
             raise ScenarioError(f"{where}: [{sect}] curve {curve!r} needs key {key!r}")
-    if curve == "stock-threshold" and not vals["min_viable_m3_ha"] < vals["capacity_m3_ha"]:
+    if "min_viable_m3_ha" in CURVE_PARAMETERS[curve] and not (
+        vals["min_viable_m3_ha"] < vals["capacity_m3_ha"]
+    ):
         raise ScenarioError(
             f"{where}: [{sect}] min_viable_m3_ha = {vals['min_viable_m3_ha']:g} must be below "
             f"capacity_m3_ha = {vals['capacity_m3_ha']:g}"
+        )
+    if (
+        "initial_m3_ha" in CURVE_PARAMETERS[curve]
+        and vals["initial_m3_ha"] > vals["capacity_m3_ha"]
+    ):
+        raise ScenarioError(
+            f"{where}: [{sect}] initial_m3_ha = {vals['initial_m3_ha']:g} must be in "
+            f"(0, capacity_m3_ha = {vals['capacity_m3_ha']:g}]: a stock starts at most at its "
+            "carrying capacity"
         )
     if curve == "table":
         _table_curve(vals, sect, base_dir, where)

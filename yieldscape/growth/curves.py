@@ -187,11 +187,14 @@ class GompertzYield(_Parametric):
 class StockGrowth(_Parametric):
     """Standing volume as a stock S(t) growing by g(S) from S(0) = initial_m3_ha.
 
-    ``min_viable_m3_ha`` None: logistic g(S) = r S (1 - S/K). Given (m): the minimum-viable-
-    stock form g(S) = r S (S/m - 1)(1 - S/K), in which a stock starting below m collapses
+    ``shape`` (:data:`yieldscape.growth.stock.SHAPES`; default: ``logistic``, or ``threshold``
+    where ``min_viable_m3_ha`` is given): logistic g(S) = r S (1 - S/K); ``minimum`` g(S) =
+    r (S - m)(1 - S/K); ``threshold`` g(S) = r S (S/m - 1)(1 - S/K); ``depensation`` g(S) =
+    r (S/K) S (1 - S/K). With a minimum viable stock m a stock starting below it collapses
     towards 0 (:attr:`collapses`). Integrated exactly (see :mod:`yieldscape.growth.stock`).
-    Under the site scheme K, m and S(0) all scale with rho_a and time with rho_k, which maps
-    the model onto itself, so one reference trajectory serves every site.
+    Under the site scheme K, m and S(0) all scale with rho_a and time with rho_k: rho_a rho_k
+    g(S/rho_a) is the same shape with K and m times rho_a, so one reference trajectory serves
+    every site.
     """
 
     r: float
@@ -199,20 +202,31 @@ class StockGrowth(_Parametric):
     initial_m3_ha: float
     min_viable_m3_ha: float | None = None
     site: SiteScaling = field(default_factory=SiteScaling)
+    shape: str | None = None
 
     def __post_init__(self) -> None:
+        object.__setattr__(self, "shape", stock.shape_of(self.min_viable_m3_ha, self.shape))
         traj = stock.Trajectory(
-            self.r, self.capacity_m3_ha, self.initial_m3_ha, self.min_viable_m3_ha
+            self.r,
+            self.capacity_m3_ha,
+            self.initial_m3_ha,
+            self.min_viable_m3_ha,
+            shape=self.shape,
         )
         object.__setattr__(self, "_trajectory", traj)
 
     @property
     def collapses(self) -> bool:
-        m = self.min_viable_m3_ha
-        return m is not None and self.initial_m3_ha < m
+        return stock.collapses(self.initial_m3_ha, self.min_viable_m3_ha, self.shape)
 
     def growth(self, s: NDArray) -> NDArray:
-        return stock.growth(s, self.r, self.capacity_m3_ha, self.min_viable_m3_ha)
+        return stock.growth(s, self.r, self.capacity_m3_ha, self.min_viable_m3_ha, self.shape)
+
+    def equilibria(self) -> tuple[stock.Equilibrium, ...]:
+        """The equilibria at the reference site, with their stability."""
+        return stock.equilibria_with_stability(
+            self.capacity_m3_ha, self.min_viable_m3_ha, self.shape
+        )
 
     def reference(self, t: NDArray) -> NDArray:
         return self._trajectory(t)  # type: ignore[attr-defined]
@@ -222,7 +236,7 @@ class StockGrowth(_Parametric):
 
     def msy(self, site_index_m: ArrayLike = 0.0) -> tuple[NDArray, NDArray]:
         """(MSY stock [m3/ha], MSY growth [m3/ha/yr]) at each site."""
-        s, g = stock.msy(self.r, self.capacity_m3_ha, self.min_viable_m3_ha)
+        s, g = stock.msy(self.r, self.capacity_m3_ha, self.min_viable_m3_ha, self.shape)
         ra, rk = self.site.factors(site_index_m)
         return ra * s, ra * rk * g
 
@@ -302,9 +316,15 @@ class Family:
     build: Callable[[Mapping[str, Any], SiteScaling], YieldCurve]
 
 
-def _stock(p: Mapping[str, Any], site: SiteScaling) -> StockGrowth:
-    m = p.get("min_viable_m3_ha")
-    return StockGrowth(p["r"], p["capacity_m3_ha"], p["initial_m3_ha"], m, site)
+def _stock(shape: str) -> Callable[[Mapping[str, Any], SiteScaling], StockGrowth]:
+    def build(p: Mapping[str, Any], site: SiteScaling) -> StockGrowth:
+        m = p.get("min_viable_m3_ha") if shape in stock.WITH_MINIMUM else None
+        return StockGrowth(p["r"], p["capacity_m3_ha"], p["initial_m3_ha"], m, site, shape)
+
+    return build
+
+
+_STOCK = ("r", "capacity_m3_ha", "initial_m3_ha")
 
 
 # The one registry of curve families: the scenario's choices (species.<CODE>.curve), the keys
@@ -320,8 +340,10 @@ FAMILIES: dict[str, Family] = {
     "gompertz": Family(
         ("a", "b", "k"), lambda p, site: GompertzYield(p["a"], p["b"], p["k"], site)
     ),
-    "stock-logistic": Family(("r", "capacity_m3_ha", "initial_m3_ha"), _stock),
-    "stock-threshold": Family(("r", "capacity_m3_ha", "initial_m3_ha", "min_viable_m3_ha"), _stock),
+    "stock-logistic": Family(_STOCK, _stock("logistic")),
+    "stock-minimum": Family((*_STOCK, "min_viable_m3_ha"), _stock("minimum")),
+    "stock-threshold": Family((*_STOCK, "min_viable_m3_ha"), _stock("threshold")),
+    "stock-depensation": Family(_STOCK, _stock("depensation")),
     "table": Family(
         (),
         lambda p, site: TableYield(p["ages"], p["volumes_m3_ha"], p["site_classes_m"] or (0.0,)),

@@ -16,6 +16,7 @@ from numpy.typing import NDArray
 from scipy.optimize import OptimizeWarning, curve_fit
 
 from yieldscape.errors import InputError
+from yieldscape.growth import stock
 from yieldscape.growth.curves import chapman_richards, gompertz_yield, logistic_yield, schumacher
 
 POOR_R2 = 0.9
@@ -27,11 +28,21 @@ class FitError(InputError):
 
 @dataclass(frozen=True)
 class Family:
+    """A family to fit: the scenario keys of its parameters, the model volume(t, *fitted), a
+    starting guess, the fitted parameters' bounds, and (where they differ from the keys) the
+    fitted parameters' names and their conversion to the keys' values."""
+
     names: tuple[str, ...]
     fn: Callable[..., NDArray]
     guess: Callable[[NDArray, NDArray], list[float]]
     lower: tuple[float, ...]
     upper: tuple[float, ...]
+    fitted: tuple[str, ...] = ()
+    to_keys: Callable[[NDArray], NDArray] | None = None
+
+    @property
+    def fitted_names(self) -> tuple[str, ...]:
+        return self.fitted or self.names
 
 
 def _cr_guess(t: NDArray, v: NDArray) -> list[float]:
@@ -46,6 +57,33 @@ def _sigmoid_guess(t: NDArray, v: NDArray) -> list[float]:
     return [1.2 * v.max(), 20.0, 4.0 / t.mean()]
 
 
+def _stock_guess(t: NDArray, v: NDArray) -> list[float]:
+    """r, K, S0: the stock's growth rate from the time it takes, K above the largest volume,
+    S0 the smallest volume (at least 1% of K)."""
+    k = 1.2 * v.max()
+    return [4.0 / t.mean(), k, max(float(v[np.argmin(t)]), 0.01 * k)]
+
+
+def _stock_model(shape: str) -> Callable[..., NDArray]:
+    """volume(t, r, K, S0[, q]) of a stock shape, q = m / K for the shapes with a minimum viable
+    stock (so that the box bounds 0 < q < 1 keep m below K)."""
+
+    def fn(t: NDArray, r: float, k: float, s0: float, q: float | None = None) -> NDArray:
+        m = None if q is None else q * k
+        return stock.Trajectory(r, k, min(s0, k), m, points=2001, shape=shape)(t)
+
+    return fn
+
+
+def _with_m(p: NDArray) -> NDArray:
+    """(r, K, S0, q) -> (r, K, S0, m = q K)."""
+    return np.r_[p[:3], p[3] * p[1]]
+
+
+_STOCK_LOWER = (1e-6, 1e-6, 1e-9)
+_STOCK_UPPER = (5.0, np.inf, np.inf)
+_STOCK_KEYS = ("r", "capacity_m3_ha", "initial_m3_ha")
+
 FAMILIES: dict[str, Family] = {
     "chapman-richards": Family(
         ("a", "k", "c"), chapman_richards, _cr_guess, (1e-9, 1e-6, 0.05), (np.inf, 5.0, 50.0)
@@ -57,6 +95,24 @@ FAMILIES: dict[str, Family] = {
     "gompertz": Family(
         ("a", "b", "k"), gompertz_yield, _sigmoid_guess, (1e-9, 1e-9, 1e-6), (np.inf, 1e6, 5.0)
     ),
+    "stock-logistic": Family(
+        _STOCK_KEYS, _stock_model("logistic"), _stock_guess, _STOCK_LOWER, _STOCK_UPPER
+    ),
+    "stock-depensation": Family(
+        _STOCK_KEYS, _stock_model("depensation"), _stock_guess, _STOCK_LOWER, _STOCK_UPPER
+    ),
+    **{
+        f"stock-{shape}": Family(
+            (*_STOCK_KEYS, "min_viable_m3_ha"),
+            _stock_model(shape),
+            lambda t, v: [*_stock_guess(t, v), 0.02],
+            (*_STOCK_LOWER, 1e-9),
+            (*_STOCK_UPPER, 1.0 - 1e-9),
+            (*_STOCK_KEYS, "min_viable_share_of_capacity"),
+            _with_m,
+        )
+        for shape in ("minimum", "threshold")
+    },
 }
 
 
@@ -105,12 +161,13 @@ def fit_curve(ages: NDArray, volumes: NDArray, model: str) -> Fit:
     notes = []
     if not np.isfinite(r2) or r2 < POOR_R2:
         notes.append(f"poor fit: R2 = {r2:.3f} is below {POOR_R2}")
-    for name, val, lo, hi in zip(fam.names, p, fam.lower, fam.upper, strict=True):
+    for name, val, lo, hi in zip(fam.fitted_names, p, fam.lower, fam.upper, strict=True):
         if np.isclose(val, lo, rtol=1e-6) or (np.isfinite(hi) and np.isclose(val, hi, rtol=1e-6)):
             notes.append(f"parameter {name} = {val:.6g} sits at its bound; the fit is doubtful")
+    keys = fam.to_keys(p) if fam.to_keys is not None else p
     return Fit(
         model,
-        {k: float(x) for k, x in zip(fam.names, p, strict=True)},
+        {k: float(x) for k, x in zip(fam.names, keys, strict=True)},
         rmse,
         r2,
         len(t),

@@ -383,6 +383,7 @@ RUN_NEEDS: dict[str, type | tuple[type, ...]] = {
 }
 OPTIONAL = {"flow.long_term_sustained_yield_m3_per_year", "lp", "verdict"}
 WOOD_FLOW_NEEDS = ("start_year", "end_year", "harvest_m3", "harvest_m3_per_year")
+REGION = "region"  # wood_flow's ``unit`` of the region's rows (the units' rows follow them)
 _ABSENT = object()
 
 
@@ -411,6 +412,8 @@ def read_run(directory: Path) -> tuple[dict, pd.DataFrame]:
             raise OutputError(
                 f"{rec_path}: {key} is {found}; the file is not as a yieldscape run wrote it"
             )
+    if "unit" in wf:  # a run with management units: its regional rows
+        wf = wf[wf["unit"] == REGION].reset_index(drop=True)
     if wf.empty:
         raise OutputError(f"{wf_path}: holds no periods")
     for col in WOOD_FLOW_NEEDS:

@@ -27,7 +27,7 @@ from matplotlib.patches import Polygon  # noqa: E402
 from matplotlib.text import Text  # noqa: E402
 from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar  # noqa: E402
 
-from yieldscape.growth import YieldCurve  # noqa: E402
+from yieldscape.growth import StockGrowth, YieldCurve, stock  # noqa: E402
 from yieldscape.growth.rules import SiteSummary  # noqa: E402
 
 DPI = 200
@@ -487,4 +487,60 @@ def curve_figure(
     )
     ax.set_title(f"{code}, site index {summary.site_index:g} m", fontsize=10, loc="left")
     ax.set_xlim(0, max_age)
+    save(fig, path)
+
+
+STOCK_TITLES = {
+    "logistic": "logistic: g = r S (1 - S/K)",
+    "minimum": "minimum viable stock: g = r (S - m)(1 - S/K)",
+    "threshold": "critical depensation: g = r S (S/m - 1)(1 - S/K)",
+    "depensation": "depensation: g = r (S/K) S (1 - S/K)",
+}
+_STYLES = ("-", "--", "-.", ":")
+
+
+def stock_shapes_figure(path: Path, curves: dict[str, StockGrowth]) -> None:
+    """Growth g(S) against stock S of each stock-growth species, one panel per shape of
+    :data:`yieldscape.growth.stock.SHAPES` (all four, side by side), at the reference site,
+    with the MSY (a cross) and the equilibria (filled: stable; open: unstable) marked. A shape
+    no species follows is drawn faintly with K = 1, r = 1, m = 0.25 (no unit), so the four
+    can be told apart."""
+    fig, axes = plt.subplots(2, 2, figsize=SIZES["panels"], layout="constrained")
+    for ax, shape in zip(axes.ravel(), stock.SHAPES, strict=True):
+        mine = {c: cv for c, cv in curves.items() if cv.shape == shape}
+        if not mine:
+            m = 0.25 if shape in stock.WITH_MINIMUM else None
+            s = np.linspace(0.0, 1.05, 400)
+            ax.plot(s, stock.growth(s, 1.0, 1.0, m, shape), color="0.7", lw=1.2, ls="--")
+            ax.set_xlabel("stock S / K")
+            ax.set_ylabel("g(S) / (r K)")
+            ax.text(0.02, 0.04, "no species follows it", transform=ax.transAxes, fontsize=7)
+        for n, (code, cv) in enumerate(mine.items()):
+            k = cv.capacity_m3_ha
+            s = np.linspace(0.0, 1.05 * k, 600)
+            style = _STYLES[n % len(_STYLES)]
+            ax.plot(s, cv.growth(s), color="black", lw=1.4, ls=style, label=code)
+            s_msy, g_msy = cv.msy()
+            ax.plot([float(s_msy)], [float(g_msy)], "x", color="black", ms=6)
+            ax.annotate(
+                f"MSY {float(g_msy):,.1f} at {float(s_msy):,.0f}",
+                (float(s_msy), float(g_msy)),
+                fontsize=6,
+                xytext=(3, 3),
+                textcoords="offset points",
+            )
+            for e in cv.equilibria():
+                face = "black" if e.stable else "white"
+                ax.plot([e.stock], [0.0], "o", ms=5, mfc=face, mec="black")
+            ax.set_xlabel("stock S (m3/ha)")
+            ax.set_ylabel("growth g(S) (m3/ha/yr)")
+        if mine:
+            ax.legend(frameon=False, fontsize=7, loc="lower left")
+        ax.axhline(0.0, color="0.5", lw=0.6)
+        ax.margins(y=0.15)  # room for the MSY label above the peak
+        ax.set_title(STOCK_TITLES[shape], fontsize=8, loc="left")
+    fig.suptitle(
+        "Stock growth by shape: MSY (x), stable (filled) and unstable (open) equilibria",
+        fontsize=9,
+    )
     save(fig, path)

@@ -22,6 +22,7 @@ from yieldscape.config import Scenario
 from yieldscape.policies import flow_policy
 from yieldscape.reporting.bound import lp_sentences
 from yieldscape.reporting.indicators import Verdict
+from yieldscape.reporting.units import UnitOutputs
 
 CAUTION = (
     "These are planning estimates from models, not prescriptions. Yield curves, netdowns and "
@@ -98,6 +99,7 @@ class ReportData:
     flow_details: dict[str, float] = field(default_factory=dict)  # the flow result's details
     case: tuple[str, dict] | None = None  # a sensitivity case: its name and the keys it sets
     warnings: tuple[str, ...] = ()  # what the run warned of, one sentence each
+    by_unit: UnitOutputs | None = None  # management units, partitions, the LP rows' duals
 
 
 def _decimals(values: pd.Series) -> int:
@@ -440,6 +442,9 @@ def sections(data: ReportData) -> list[Section]:
             ],
         )
     )
+    rules = _units_section(data)
+    if rules is not None:
+        out.append(rules)
     flow = _figures("Harvest and growing stock", data, ("harvest_forecast", "growing_stock"))
     if not data.scenario.report.figures:
         flow = Section(flow.title, ["No figures were drawn (report.figures = false)."])
@@ -565,6 +570,64 @@ def _structure(data: ReportData) -> Section:
             )
         )
     return forest
+
+
+UNITS_SHOWN = {
+    "unit": "unit",
+    "policy": "policy",
+    "level_m3_per_year": "level m3/yr",
+    "lp_level_m3_per_year": "LP level m3/yr",
+    "ending_stock_ratio": "ending / initial stock",
+    "sustainable": "sustainable",
+    "limited_by": "limited by",
+}
+
+
+def _units_section(data: ReportData) -> Section | None:
+    """Each management unit's flow and verdict, each partition's shares, and the three rules
+    that cost the most level (None where the run has no units, partitions or LP rows)."""
+    u = data.by_unit
+    if u is None or (u.units is None and u.partitions is None and not u.costliest):
+        return None
+    blocks: list[Block] = []
+    if u.units is not None:
+        blocks.append(
+            Table(
+                _shown(u.units, UNITS_SHOWN),
+                "Each management unit's own flow and verdict (the region's checks on the "
+                "unit's wood flow; management_units.csv, wood_flow.csv by unit).",
+            )
+        )
+        blocks += [
+            f"Unit {n}: {v.statement}" for n, v in zip(u.units["unit"], u.verdicts, strict=True)
+        ]
+    if u.partitions is not None:
+        by = u.partitions.groupby("partition", sort=False)
+        table = pd.DataFrame(
+            {
+                "partition": list(by.groups),
+                "least share": by["share_of_harvest"].min().to_numpy(),
+                "largest share": by["share_of_harvest"].max().to_numpy(),
+                "volume m3": by["volume_m3"].sum().to_numpy(),
+                "holds in every period": by["holds"].all().to_numpy(),
+            }
+        )
+        blocks.append(
+            Table(
+                table, "Each partition's share of the period's harvest (partitions.csv by period)."
+            )
+        )
+    if u.costliest:
+        rows = pd.DataFrame(u.costliest)[["rule", "cost_m3_per_year_per_percent"]]
+        blocks.append(
+            Table(
+                rows.rename(columns={"cost_m3_per_year_per_percent": "m3/yr per 1% looser"}),
+                f"The {len(rows)} rules that cost the most level, from the harvest LP's dual "
+                "values: the level (m3/year) one more percent of each rule's limit in every "
+                "period would give, to first order (constraints.csv lists every row).",
+            )
+        )
+    return Section("Management units and partitions", blocks)
 
 
 def _cases(data: ReportData) -> Section:

@@ -57,6 +57,11 @@ class FlowResult:
     steps: int
     policy: str = "even"
     details: dict[str, float] = field(default_factory=dict)  # policy-specific figures
+    # management units (:mod:`yieldscape.schedule.stage`): their names, each one's level [m3
+    # per period] (a unit on targets: its mean harvest) and what stops it going higher
+    units: tuple[str, ...] = ()
+    unit_levels_m3_per_period: tuple[float, ...] = ()
+    unit_binding: tuple[str, ...] = ()
 
 
 def find_even_flow(

@@ -222,7 +222,8 @@ class LPResult:
     # codes: the transitions' shares and the LP's choices), and the codes
     regen_area_ha: NDArray = field(default_factory=lambda: np.zeros((0, 0, 0)))
     codes: tuple[str, ...] = ()
-    level_m3: float | None = None  # the level M [m3 per period] (max-even-flow, max-level)
+    # the level M [m3 per period] (max-even-flow, max-level; with units the sum of theirs)
+    level_m3: float | None = None
     units: tuple[str, ...] = ()  # the management units' names
     unit_harvest_m3: NDArray = field(default_factory=lambda: np.zeros((0, 0)))  # (units, P)
     unit_level_m3: NDArray = field(default_factory=lambda: np.zeros(0))  # each unit's level
@@ -338,6 +339,7 @@ def build_lp(
     regen = _regeneration_map(strata, cols, regrow, choices, z_col, P, C, len(cost))
     context = {"ending_stock": ending_stock, "max_area_ha": max_area_ha, "policy": policy}
     context["cover"] = cover is not None
+    context["partitions"] = tuple(p.name for p in partitions)
     return LPModel(
         cost,
         matrix,
@@ -1229,6 +1231,7 @@ def solve_highs(model: LPModel, t0: float | None = None, solver: str | None = No
     objective = float(-h.getInfo().objective_function_value)
     if model.level_cols:  # the units' levels, without the tie-break
         objective = float(x[model.level_cols].sum())
+        level = objective  # the region's level: the sum of its units' levels
     return LPResult(
         status,
         objective,
@@ -1337,9 +1340,13 @@ def explain_infeasible(
     max_area_ha: float | None,
     policy: str,
     cover: bool = False,
+    partitions: tuple[str, ...] = (),
 ) -> str:
     """Which constraint families can make the harvest LP infeasible, and what to relax."""
     hints = [f"flow.ending_stock = {ending_stock:g} (try a lower share)"]
+    if partitions:
+        named = ", ".join(repr(p) for p in partitions)
+        hints.insert(0, f"the [[partitions]] {named} (a limit the stands cannot keep)")
     if cover:
         hints.append("the [[cover]] targets (the forest may not hold them even uncut)")
     if max_area_ha is not None:

@@ -4,19 +4,20 @@ stands, and what run.json says of it."""
 from __future__ import annotations
 
 import logging
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import replace
 
 import numpy as np
 from numpy.typing import NDArray
 
 from yieldscape.config import Scenario
-from yieldscape.policies import FixedTargets, flow_policy
+from yieldscape.policies import FixedTargets, PerUnit, flow_policy
 from yieldscape.projection import CurveSet, Periods, StandArrays
 from yieldscape.regimes import Regimes
 from yieldscape.schedule.cover import CoverRules
 from yieldscape.schedule.flow import FlowResult, FlowSettings, schedule
 from yieldscape.schedule.lp import Economics, LPResult, Strata, make_strata, solve_lp
+from yieldscape.schedule.lp_units import Cells, Partition, UnitFlow
 from yieldscape.schedule.simulate import HarvestRules, Plan, Simulation, simulate
 from yieldscape.versions import library_versions
 
@@ -36,13 +37,20 @@ def harvest_lp(
     curves: CurveSet,
     periods: Periods,
     cover: CoverRules | None,
+    cells: Cells | None = None,
+    units: Sequence[UnitFlow] | None = None,
+    partitions: Sequence[Partition] = (),
 ) -> tuple[LPResult, Strata]:
     """The Model II harvest LP of the scenario (aspatial), solved with HiGHS; ``cover`` are the
-    cover targets over the stands' zones (``arrays.zone_idx``)."""
+    cover targets over the stands' zones (``arrays.zone_idx``); ``cells``, ``units`` and
+    ``partitions``: the management units' flows and the harvest partitions
+    (:mod:`yieldscape.schedule.lp_units`; default one flow, no partition)."""
     f = scenario.flow
     zones = arrays.zone_idx if arrays.zone_idx is not None else np.zeros(arrays.n, np.int64)
     disturbed = scenario.disturbance.annual_rate > 0
-    strata = make_strata(arrays, zones, f.lp_site_class_m, f.lp_age_class_years, disturbed)
+    strata = make_strata(
+        arrays, zones, f.lp_site_class_m, f.lp_age_class_years, disturbed, cells=cells
+    )
     policy = f.policy  # wanted(): a policy of the registry the LP models (lp.BOUND_ROWS)
     objective = objective_of(scenario)
     econ = None
@@ -69,6 +77,8 @@ def harvest_lp(
         cover,
         zones,
         scenario.disturbance.annual_rate,
+        units=units,
+        partitions=partitions,
     )
     log.info(
         "harvest LP: %s, %d strata, %d columns, %d rows, %.1f s",
@@ -199,14 +209,22 @@ def guided_search(
     flow: FlowSettings,
     policy: str,
     rules: HarvestRules,
+    search: Callable[[HarvestRules], FlowResult] | None = None,
 ) -> tuple[FlowResult, HarvestRules, str]:
     """The flow policy's search again in the LP-guided orders (:func:`guided`, and
     :func:`ending_ordered` where it has periods) of ``policy``: the best of them and of the
     search in priority order (``ordered``, under ``rules``) by :func:`better`, the rules that
-    found it and the order's name."""
+    found it and the order's name. ``search(rules)``: the search to run (default the policy's,
+    :func:`~yieldscape.schedule.flow.schedule`; the management units' flows where they have
+    their own)."""
+    if search is None:
+
+        def search(r: HarvestRules) -> FlowResult:
+            return schedule(arrays, curves, periods, flow, policy, r)
+
     lp_rules = guided(lp, strata, arrays, periods, rules)
     tried = [r for r in (lp_rules, ending_ordered(lp_rules, arrays, periods)) if r is not None]
-    found = [schedule(arrays, curves, periods, flow, policy, r) for r in tried]
+    found = [search(r) for r in tried]
     best, won = better(ordered, found)
     return best, tried[won] if won is not None else rules, ORDER_NAMES[won]
 
@@ -218,17 +236,25 @@ def lp_schedule(
     periods: Periods,
     scenario: Scenario,
     rules: HarvestRules,
+    unit_ending_stock: NDArray | None = None,
 ) -> FlowResult:
     """The LP's schedule on the stands: with the LP's plan (``rules.plan``, :func:`guided`),
     each period takes the LP's harvest as its target and floor, under every rule the LP leaves out
     (spatial rules, whole stands). Where the mapped plan misses a target or the ending
     growing stock, every target is lowered by one factor, found by bisection, until the
     schedule holds them all and the ending stock; the schedule then meets every requirement
-    and the factor says what the mapping cost."""
-    need = scenario.flow.ending_stock
+    and the factor says what the mapping cost. With management units (``rules.units``) each
+    unit takes its own LP harvest and keeps its own ending stock (``unit_ending_stock``)."""
+    need: float | NDArray = scenario.flow.ending_stock
+    if rules.units is not None:
+        assert unit_ending_stock is not None
+        need = unit_ending_stock
 
     def trial(scale: float, record: bool = False) -> Simulation:
-        targets = FixedTargets(tuple(scale * lp.harvest_m3))
+        targets: FixedTargets | PerUnit = FixedTargets(tuple(scale * lp.harvest_m3))
+        if rules.units is not None:
+            per_unit = lp.unit_harvest_m3 if len(lp.unit_harvest_m3) else lp.harvest_m3[None]
+            targets = PerUnit(tuple(FixedTargets(tuple(scale * h)) for h in per_unit))
         return simulate(arrays, curves, periods, targets, rules, ending_stock=need, record=record)
 
     scale, steps = 1.0, 1

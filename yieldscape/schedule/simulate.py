@@ -133,6 +133,11 @@ class Simulation:
     unit_fail_reason: list[str] = field(default_factory=list)
     unit_initial_stock_m3: NDArray = field(default_factory=lambda: np.zeros(0))
     unit_ending_stock_m3: NDArray = field(default_factory=lambda: np.zeros(0))
+    unit_initial_hlb_stock_m3: NDArray = field(default_factory=lambda: np.zeros(0))
+    # recorded: per period and unit the growing stock at the period's end [m3], all of it and
+    # on the harvestable land base
+    unit_stock_end_m3: NDArray = field(default_factory=lambda: np.zeros((0, 0)))
+    unit_hlb_stock_end_m3: NDArray = field(default_factory=lambda: np.zeros((0, 0)))
     # harvest partitions (HarvestRules.partitions): per period and partition the volume [m3]
     # (record=True only)
     partition_m3: NDArray = field(default_factory=lambda: np.zeros((0, 0)))
@@ -1254,9 +1259,8 @@ def simulate(
     stand parts are kept; cover targets need ``stands.zone_idx``. Cut parts regrow as
     ``stands.regimes`` says, or in the shares of the plan's choices; thinnings due are taken
     each period (see :func:`_cut_period`). ``start`` (:meth:`Start.of` the same stands and
-    curves) saves working out the starting parts again. ``stop_early``: whether the run stops
-    at the first missed floor (None: unless recorded; True: a search's trial recorded in case
-    it holds, of no use if it does not).
+    curves) saves working out the starting parts again. ``stop_early``: stop at the first
+    missed floor (None: unless recorded; True: recorded too, a trial kept only if it holds).
     """
     spatial = rules.spatial.fresh() if rules.spatial is not None else None
     P, L, off = periods.count, float(periods.period_years), periods.offset_years
@@ -1310,6 +1314,8 @@ def simulate(
             out.dist_ha[p], out.dist_m3[p] = _disturb(
                 parts, curves, reg, rules.disturbance, L, n_before, cut.full, rng, stands.n
             )
+        if record and book is not None:
+            book.stock(parts, curves, reg)
         if record or p == P - 1 or p + 1 == P - stable_periods:
             total, hlb_stock = parts.stocks(curves, reg)
             if record or p == P - 1:
@@ -1340,6 +1346,11 @@ class _UnitBook:
     fail_period: NDArray
     reasons: list[str]
     initial: NDArray
+    initial_hlb: NDArray
+    # a recorded horizon's growing stock per unit at the end of each period, all of it and on
+    # the harvestable land base (periods x units)
+    stock_end: list[NDArray] = field(default_factory=list)
+    hlb_end: list[NDArray] = field(default_factory=list)
     # the unit of each part so far (parts are only appended and keep their stand)
     _of_parts: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
 
@@ -1382,10 +1393,27 @@ class _UnitBook:
         share = np.broadcast_to(np.asarray(ending_stock, dtype=np.float64), U).copy()
         of_stand = np.asarray(units, dtype=np.int64)
         initial = np.bincount(of_stand[start.stand], stocks, U)
+        hlb = np.bincount(of_stand[start.stand], np.where(start.in_hlb, stocks, 0.0), U)
         empty = np.zeros((0, U))  # a row per period as it is booked
         return cls(
-            of_stand, rule, share, empty, empty, empty, np.zeros(U, np.int64), [""] * U, initial
+            of_stand,
+            rule,
+            share,
+            empty,
+            empty,
+            empty,
+            np.zeros(U, np.int64),
+            [""] * U,
+            initial,
+            hlb,
         )
+
+    def stock(self, parts: _Parts, curves: CurveSet, reg: Regimes | None) -> None:
+        """Book each unit's growing stock at the end of a recorded period."""
+        v = parts.unit_stocks(curves, reg)
+        u = self.of_parts(parts.stand)
+        self.stock_end.append(np.bincount(u, v, self.n))
+        self.hlb_end.append(np.bincount(u, np.where(parts.in_hlb, v, 0.0), self.n))
 
     @property
     def n(self) -> int:
@@ -1432,6 +1460,10 @@ class _UnitBook:
         sim.unit_floor_m3, sim.unit_fail_period = self.floor, self.fail_period
         sim.unit_fail_reason = list(self.reasons)
         sim.unit_initial_stock_m3, sim.unit_ending_stock_m3 = self.initial, ending
+        sim.unit_initial_hlb_stock_m3 = self.initial_hlb
+        if self.stock_end:
+            sim.unit_stock_end_m3 = np.vstack(self.stock_end)
+            sim.unit_hlb_stock_end_m3 = np.vstack(self.hlb_end)
 
 
 def _missed(sim: Simulation, book: _UnitBook | None, p: int, cut: _Cut, floor: float) -> bool:

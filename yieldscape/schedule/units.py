@@ -32,6 +32,14 @@ from yieldscape.schedule.simulate import HarvestRules, Simulation, Start, simula
 MAX_ROUNDS = 3
 
 
+class NoUnitFlows(RuntimeError):
+    """The units' levels found fail together; ``simulation`` is the recorded run at them."""
+
+    def __init__(self, message: str, simulation: Simulation) -> None:
+        super().__init__(message)
+        self.simulation = simulation
+
+
 @dataclass(frozen=True)
 class UnitPolicy:
     """A unit's flow for the rule-based search: ``even`` (the level searched, with a band) or
@@ -127,7 +135,9 @@ def find_unit_flows(
     assert final is not None
     if not _holds(final)[searched].all():
         bad = [units[u].name for u in np.flatnonzero(~_holds(final) & searched)]
-        raise RuntimeError(f"unit flow search: units {bad} fail at the levels found")
+        # the whole recorded run (a search's trial may be unrecorded or stopped early)
+        final = trial(levels, True)
+        raise NoUnitFlows(f"unit flow search: units {bad} fail at the levels found", final)
     return UnitFlows(levels, final, steps, why)
 
 
