@@ -26,7 +26,13 @@ from numpy.typing import NDArray
 
 from yieldscape.policies import EvenFlow, PerUnit, TargetRule, Targets
 from yieldscape.projection import CurveSet, Periods, StandArrays
-from yieldscape.schedule.flow import MAX_STEPS, _Bracket, least_level, search_tolerance_m3
+from yieldscape.schedule.flow import (
+    MAX_STEPS,
+    PARTITION_TRIES,
+    _Bracket,
+    least_level,
+    search_tolerance_m3,
+)
 from yieldscape.schedule.simulate import HarvestRules, Simulation, Start, simulate
 
 MAX_ROUNDS = 3
@@ -177,9 +183,15 @@ def _scaled(
     def tol(x: float) -> float:  # the search tolerance at factor x, as a factor
         return search_tolerance_m3(x * total, periods.period_years) / total
 
+    zero = False  # whether the factor 0 was tried
     for _ in range(MAX_STEPS):
         if b.hi - b.lo <= tol(b.lo):
             break
+        if not zero and b.lo == 0 and b.tries >= PARTITION_TRIES:  # nothing holds so far:
+            zero = True  # does anything? (if not, the bracket closes at 0 at once)
+            sim = trial(levels_at(0.0))
+            b.add(0.0, margin(sim), view(sim))
+            continue
         # placed with the tolerance at the top while nothing below it has held yet (at the
         # low end's, 0, it would be the absolute one, too fine to close the bracket in one)
         x, below = b.next_level(tol(b.lo if b.lo > 0 else b.hi))
