@@ -241,3 +241,21 @@ def test_a_recorded_trial_that_stops_early_stops_where_an_unrecorded_one_does():
             last = plain.fail_period
             assert (early.harvest_m3[last:] == 0).all() and (kept.harvest_m3[last:] > 0).any()
             assert early.event_period.max() == last
+
+
+def test_an_amount_no_stand_can_yield_fails_the_units_with_the_whole_run():
+    # A partition's min_m3 that no stand can yield: no factor holds (the factor comes down
+    # from 1 on the broken partition, then tries 0 once, which fails too). The error carries
+    # the whole recorded run at the levels found, every period of it (the search's own last
+    # trial may be unrecorded or stopped at its first miss).
+    from yieldscape.schedule.partitions import PartitionRules
+    from yieldscape.schedule.units import NoUnitFlows
+
+    st = stands_of(A, B)
+    nan = np.array([np.nan])
+    nobody = PartitionRules(("nobody",), np.zeros((st.n, 1, 1), bool), nan, nan, [1e9], nan)
+    with pytest.raises(NoUnitFlows, match="fail at the levels found") as err:
+        find_unit_flows(st, CURVES, PERIODS, HarvestRules(units=UNIT, partitions=nobody), UNITS)
+    sim = err.value.simulation
+    assert "partition 'nobody'" in sim.fail_reason and len(sim.harvest_m3) == PERIODS.count
+    assert sim.unit_target_m3.shape == (PERIODS.count, 2)  # recorded to the end
