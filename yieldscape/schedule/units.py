@@ -158,7 +158,8 @@ def _scaled(
     common factor at which every unit holds with them (a bracket on the factor, to the
     search tolerance on the units' total, which interpolates on the partition broken as the
     single flow's does); the levels, why and the recorded run. The factor 0 (no harvest of
-    the searched units) is tried only if no factor above it holds."""
+    the searched units) is tried only after ``PARTITION_TRIES`` trials in a row beyond a
+    partition with none held."""
     total = float(free[searched].sum())
 
     def levels_at(x: float) -> NDArray:
