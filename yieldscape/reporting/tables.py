@@ -296,13 +296,22 @@ def start_volume_m3_ha(arrays: StandArrays, curves: CurveSet) -> np.ndarray:
 def regeneration_table(flow: FlowResult, codes: tuple[str, ...]) -> pd.DataFrame:
     """Per period, the area clearcut from each code and regrowing as each code."""
     sim = flow.simulation
+    # grouped by each code's place in name order, not by its name (the same groups in the
+    # same order, without two strings per regenerating part: 0.17 GB held at 1M stands)
+    names = sorted(codes)
+    rank = np.array([names.index(c) for c in codes], dtype=np.int64)
     frame = pd.DataFrame(
         {
             "period": sim.regen_period.astype(np.int64),
-            "from_species": np.array(codes, dtype=object)[sim.regen_from.astype(np.int64)],
-            "to_species": np.array(codes, dtype=object)[sim.regen_to.astype(np.int64)],
+            "from_species": rank[sim.regen_from.astype(np.int64)],
+            "to_species": rank[sim.regen_to.astype(np.int64)],
             "area_ha": sim.regen_area_ha,
-        }
+        },
+        copy=False,
     )
     keys = ["period", "from_species", "to_species"]
-    return frame.groupby(keys, as_index=False, sort=True)["area_ha"].sum()
+    g = frame.groupby(keys, as_index=False, sort=True)["area_ha"].sum()
+    by_name = np.array(names, dtype=object)
+    for key in keys[1:]:
+        g[key] = by_name[g[key].to_numpy()]
+    return g
