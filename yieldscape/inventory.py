@@ -350,9 +350,10 @@ def _zones(frame: gpd.GeoDataFrame, field_name: str | None) -> np.ndarray:
     """Zone (or unit) names as text (None where missing, or without the field)."""
     if field_name is None:
         return np.array([None] * len(frame), dtype=object)
-    col = frame[field_name]
-    zone = col.astype(object).where(col.notna(), None)
-    return zone.map(lambda z: None if z is None else str(z)).to_numpy(dtype=object)
+    # each distinct value made text once (a str() per stand took 0.6 s at 1M), missing: None
+    codes, uniques = pd.factorize(frame[field_name], use_na_sentinel=True)
+    texts = [str(z) for z in pd.Series(uniques, dtype=object)] + [None]
+    return np.array(texts, dtype=object)[codes]
 
 
 def _report(

@@ -298,7 +298,7 @@ def _tables(
         wood_flow=with_unit(wood_flow_table(flow, p, lp_bound, revenue), REGION),
         stands=released(stands_layer(flow, inventory.stands, s, c, p)),
         harvests=released(harvests_layer(flow, inventory.stands, p, c.codes)),
-        regeneration=regeneration_table(flow, c.codes),
+        regeneration=released(regeneration_table(flow, c.codes)),
         products=released(wood_flow_by_product(flow, s, c, scenario)),
         write_harvestable_layer=scenario.landbase.write_harvestable_layer,
         long_term_sustained_yield=long_term_sustained_yield(c, s, scenario.growth.search()),

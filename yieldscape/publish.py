@@ -18,13 +18,19 @@ import pandas as pd
 import pyproj
 import shapely
 
+from yieldscape import sharedwork
 from yieldscape.config import Scenario
 from yieldscape.geometry import metres_per_unit, metric_geometries
 from yieldscape.growth import StockGrowth
 from yieldscape.growth.rules import SiteSummary
 from yieldscape.io.outputs import replace_file, sha256_file, write_json
 from yieldscape.io.rasters import write_geotiff
-from yieldscape.io.vector import add_feature_views, unsynced_gpkg, write_gpkg_layer
+from yieldscape.io.vector import (
+    add_feature_views,
+    move_attribute_table,
+    unsynced_gpkg,
+    write_gpkg_layer,
+)
 from yieldscape.reporting.compare import comparison_figure, comparison_table
 from yieldscape.reporting.curves import rotation_summary
 from yieldscape.reporting.figures import (
@@ -103,6 +109,8 @@ MANAGED = frozenset(
         RASTERS_DIR,
     }
 )
+LONG_TABLE = "stand_ages"  # the longest table (stands x report years)
+SIDE_GPKG = ".stand_ages.gpkg"  # where a helper process writes it (moved into GPKG_NAME)
 MAP_PIXELS = 1200  # cells along the longer side of the harvest map figure
 BASE_LABEL = "base"  # the base case's name in the comparison with its sensitivity cases
 
@@ -118,20 +126,29 @@ def write_outputs(
     keys set) marks the run as one of those cases. Returns what run.json holds."""
     t0 = time.perf_counter()
     rep = scenario.report
+    gpkg = directory / GPKG_NAME
+    # the longest table goes to the helper drawing the figures, where there is one
+    helper = rep.figures and sharedwork.FORK and result.stand_ages is not None
+    side = directory / SIDE_GPKG if helper else None
     with (
-        shared_figures(result, scenario, directory / FIGURES_DIR)
+        shared_figures(result, scenario, directory / FIGURES_DIR, side)
         if rep.figures
         else nullcontext(dict)
     ) as drawn:
-        with unsynced_gpkg(directory / GPKG_NAME):
-            write_tables(result, directory)
-            if rep.map_layers:
-                write_map_layers(result, scenario, directory / GPKG_NAME)
+        with unsynced_gpkg(gpkg):
+            write_tables(result, directory, skip=LONG_TABLE if side else None)
+            if rep.map_layers and side is None:
+                write_map_layers(result, scenario, gpkg)
         if rep.raster_cell_m:
             write_rasters(result, scenario, directory / RASTERS_DIR)
         record = run_record(result, scenario)
         comparison = _write_cases(result, scenario, directory, record)
         figures = drawn()
+    if side is not None:  # the table in its place (last of the tables), then the map layers
+        with unsynced_gpkg(gpkg):
+            move_attribute_table(side, gpkg, LONG_TABLE)
+            if rep.map_layers:
+                write_map_layers(result, scenario, gpkg)
     if comparison is not None and rep.figures:
         figures["comparison"] = Figure(
             directory / FIGURES_DIR / COMPARISON_PNG,
@@ -174,8 +191,9 @@ def _write_cases(
     return comparison
 
 
-def write_tables(result: RunResult, directory: Path) -> None:
-    """The GeoPackage layers and tables, and the same tables as CSV."""
+def write_tables(result: RunResult, directory: Path, skip: str | None = None) -> None:
+    """The GeoPackage layers and tables, and the same tables as CSV; ``skip``: a table left
+    to another writer (:func:`shared_figures`)."""
     gpkg = directory / GPKG_NAME
     write_gpkg_layer(gpkg, result.stands, "stands")
     write_harvests(result, gpkg)
@@ -205,7 +223,7 @@ def write_tables(result: RunResult, directory: Path) -> None:
         (result.stand_ages, "stand_ages", None),
     ]
     for table, layer, csv in tables:
-        if table is None:
+        if table is None or layer == skip:
             continue
         write_gpkg_layer(gpkg, table, layer, spatial=False)
         if csv is not None:
@@ -390,16 +408,31 @@ def in_report_order(
 
 
 @contextmanager
-def shared_figures(result: RunResult, scenario: Scenario, directory: Path) -> Iterator[Callable]:
+def shared_figures(
+    result: RunResult, scenario: Scenario, directory: Path, side: Path | None = None
+) -> Iterator[Callable]:
     """The figures drawn in a second process beside the block (the GeoPackage writes) and
     here in ``finish()`` when this process is done first: ``finish()`` returns them by key
-    in the report's order (the same files as :func:`write_figures` alone)."""
+    in the report's order (the same files as :func:`write_figures` alone). With ``side``,
+    the first job writes the :data:`LONG_TABLE` to that GeoPackage of its own (the second
+    process takes it at once; :func:`~yieldscape.io.vector.move_attribute_table` then puts
+    it in place): GDAL's row inserts of 5M rows at 1M stands, beside this process's."""
     jobs = figure_jobs(result, scenario)
+    first = 0 if side is None else 1  # job numbers before the figures'
 
     def draw(claim: Claim) -> dict[str, Figure]:
-        return write_figures(result, scenario, directory, claim)
+        def figure() -> int | None:
+            i = claim()
+            if i is not None and i < first:
+                assert side is not None and result.stand_ages is not None
+                with unsynced_gpkg(side, sync=False):  # a file to be moved and deleted
+                    write_gpkg_layer(side, result.stand_ages, LONG_TABLE, spatial=False)
+                i = claim()
+            return None if i is None else i - first
 
-    with shared_jobs(len(jobs), draw, "drawing the figures") as done:
+        return write_figures(result, scenario, directory, figure)
+
+    with shared_jobs(first + len(jobs), draw, "drawing the figures") as done:
 
         def finish() -> dict[str, Figure]:
             return in_report_order({k: v for part in done() for k, v in part.items()}, jobs)

@@ -3,7 +3,7 @@
 import numpy as np
 import pandas as pd
 
-from yieldscape.reporting.tables import group_sums
+from yieldscape.reporting.tables import group_sums, periods_cut
 
 
 def kahan(values):
@@ -39,3 +39,15 @@ def test_group_sums_are_kahan_sums_in_order():
     # and pandas' own group sums on these values
     frame = pd.DataFrame({"g": ids, "v": values, "o": other}).groupby("g").sum()
     np.testing.assert_array_equal(got[0], frame["v"].to_numpy())
+
+
+def test_periods_cut_counts_distinct_periods_per_stand():
+    # a stand cut twice in one period counts once; events in no particular order; stands
+    # never cut count 0; the reference is a set of (stand, period) pairs per stand
+    stand = np.array([2, 0, 2, 2, 4, 0, 2])
+    period = np.array([3, 1, 1, 3, 2, 1, 2])
+    got = periods_cut(stand, period, 6, 3)
+    pairs = set(zip(stand.tolist(), period.tolist(), strict=True))
+    want = [sum(1 for s, _ in pairs if s == i) for i in range(6)]
+    assert want == [1, 0, 3, 0, 1, 0]
+    np.testing.assert_array_equal(got, want)

@@ -293,7 +293,8 @@ def harvest_breakdown(
             "harvest_ha": np.where(clear, sim.event_area_ha, 0.0),
             "harvest_m3": sim.event_volume_m3,
             "age_area": np.where(clear, sim.event_age_years * sim.event_area_ha, 0.0),
-        }
+        },
+        copy=False,  # the new arrays as they are, not consolidated into a copy
     )
     g = ev.groupby(["period", "zone_code", "species"], as_index=False, sort=True).sum()
     L = periods.period_years

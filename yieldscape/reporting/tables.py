@@ -216,11 +216,7 @@ def stands_layer(
         np.where(cut, years[np.where(cut, first, 1) - 1], np.nan)
     )
     out["first_harvest_age_years"] = first_age
-    # periods with a clearcut per stand: the distinct (stand, period) pairs, packed into one
-    # integer (a 1-D unique; np.unique(axis=0) sorted rows as records, 3x slower at 1M)
-    span = int(period.max()) + 1 if len(period) else 1
-    pairs = np.unique(stand.astype(np.int64) * span + period)
-    out["harvest_count"] = np.bincount(pairs // span, minlength=n)
+    out["harvest_count"] = periods_cut(stand, period, n, periods.count)
     out["harvested_area_ha"] = np.bincount(stand, area, n)
     out["harvested_volume_m3"] = np.bincount(stand, sim.event_volume_m3[clear], n)
     thin = ~clear
@@ -228,6 +224,19 @@ def stands_layer(
     geom_col = out.geometry.name
     cols = [c for c in out.columns if c != geom_col] + [geom_col]
     return out[cols]
+
+
+def periods_cut(stand: np.ndarray, period: np.ndarray, n: int, periods: int) -> np.ndarray:
+    """Per stand (0 .. n-1), the number of distinct periods (1 .. ``periods``) among its
+    events: one pass per period marking the stands cut in it (a sort of the 2.3M (stand,
+    period) pairs of a 1M-stand run took 0.8 s)."""
+    count = np.zeros(n, dtype=np.int64)
+    cut = np.zeros(n, dtype=bool)
+    for p in range(1, periods + 1):
+        cut[:] = False
+        cut[stand[period == p]] = True
+        count += cut
+    return count
 
 
 def wood_flow_by_product(
@@ -287,13 +296,22 @@ def start_volume_m3_ha(arrays: StandArrays, curves: CurveSet) -> np.ndarray:
 def regeneration_table(flow: FlowResult, codes: tuple[str, ...]) -> pd.DataFrame:
     """Per period, the area clearcut from each code and regrowing as each code."""
     sim = flow.simulation
+    # grouped by each code's place in name order, not by its name (the same groups in the
+    # same order, without two strings per regenerating part: 0.17 GB held at 1M stands)
+    names = sorted(codes)
+    rank = np.array([names.index(c) for c in codes], dtype=np.int64)
     frame = pd.DataFrame(
         {
             "period": sim.regen_period.astype(np.int64),
-            "from_species": np.array(codes, dtype=object)[sim.regen_from.astype(np.int64)],
-            "to_species": np.array(codes, dtype=object)[sim.regen_to.astype(np.int64)],
+            "from_species": rank[sim.regen_from.astype(np.int64)],
+            "to_species": rank[sim.regen_to.astype(np.int64)],
             "area_ha": sim.regen_area_ha,
-        }
+        },
+        copy=False,
     )
     keys = ["period", "from_species", "to_species"]
-    return frame.groupby(keys, as_index=False, sort=True)["area_ha"].sum()
+    g = frame.groupby(keys, as_index=False, sort=True)["area_ha"].sum()
+    by_name = np.array(names, dtype=object)
+    for key in keys[1:]:
+        g[key] = by_name[g[key].to_numpy()]
+    return g
