@@ -11,6 +11,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pyogrio
 import pytest
+import shapely
 from test_run import run_command, small_forest
 
 from yieldscape.cli.main import main
@@ -197,3 +198,25 @@ def test_a_geoparquet_file_holds_one_layer(tmp_path, capsys):
     scenario = write_scenario(tmp_path / "scenario.toml", raw)
     assert main(["check", str(scenario)]) == 2
     assert "a GeoParquet stand layer holds one layer, 'stands'" in capsys.readouterr().err
+
+
+def test_a_layer_written_in_batches_reads_back_whole(tmp_path, monkeypatch):
+    # five row groups of 7 rows; a text column null in the whole first batch; a multipolygon
+    # among polygons; the geometry column not last. Read back by geopandas' reader.
+    import yieldscape.io.geoparquet as geoparquet
+
+    monkeypatch.setattr(geoparquet, "BATCH_ROWS", 7)
+    frame = _stands(tmp_path, 30)
+    frame["NOTE"] = pd.Series([None] * 8 + ["thinned"] * 22, dtype=object)
+    frame.loc[3, "geometry"] = shapely.MultiPolygon([frame.geometry[3]])
+    frame = frame[["ID", "geometry", "NOTE", "AGE"]]
+    geoparquet.write_geoparquet(tmp_path / "out.parquet", frame)
+    assert pq.ParquetFile(tmp_path / "out.parquet").metadata.num_row_groups == 5
+    back = gpd.read_parquet(tmp_path / "out.parquet")
+    assert list(back.columns) == list(frame.columns) and back.crs == frame.crs
+    assert back["NOTE"].isna().sum() == 8 and (back["NOTE"][8:] == "thinned").all()
+    assert (back["ID"] == frame["ID"]).all() and (back["AGE"] == frame["AGE"]).all()
+    assert back.geometry.geom_equals_exact(frame.geometry, 0.0).all()
+    geo = json.loads(pq.read_schema(tmp_path / "out.parquet").metadata[b"geo"])["columns"]
+    assert geo["geometry"]["geometry_types"] == ["MultiPolygon", "Polygon"]
+    assert geo["geometry"]["bbox"] == list(frame.total_bounds)

@@ -12,10 +12,14 @@ from collections.abc import Iterator
 from pathlib import Path
 
 import geopandas as gpd
+import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
+import pyproj
+import shapely
 
+from yieldscape._version import __version__
 from yieldscape.errors import InventoryError
 
 SUFFIXES = (".parquet", ".geoparquet")
@@ -121,6 +125,50 @@ def partition_rows(path: Path) -> list[int]:
     return [pq.ParquetFile(file).metadata.num_rows for file in parquet_files(path)]
 
 
+BATCH_ROWS = 250_000  # rows converted to Arrow and WKB at a time when writing
+
+# GeoParquet 1.1 geometry type names by shapely type id (a linear ring is written as WKB's
+# LineString, as GEOS does)
+_TYPE_NAMES = {0: "Point", 1: "LineString", 2: "LineString", 3: "Polygon", 4: "MultiPoint"}
+_TYPE_NAMES |= {5: "MultiLineString", 6: "MultiPolygon", 7: "GeometryCollection"}
+
+
 def write_geoparquet(path: Path, frame: gpd.GeoDataFrame) -> None:
-    """Write a layer as one GeoParquet file (WKB geometry, zstd, no pandas index)."""
-    frame.to_parquet(path, index=False, compression="zstd", write_covering_bbox=False)
+    """Write a layer as one GeoParquet 1.1 file (WKB geometry, zstd, no pandas index), in
+    row groups of :data:`BATCH_ROWS` rows converted one at a time, so that only a batch is
+    held as Arrow and WKB (geopandas' ``to_parquet`` converts the whole frame at once: about
+    0.4 GB more at the peak of a 1M-stand run)."""
+    geom = frame.geometry.name
+    geoms = frame.geometry.to_numpy()
+    attrs = pd.DataFrame({c: frame[c] for c in frame.columns if c != geom}, copy=False)
+    at = list(frame.columns).index(geom)
+
+    # the attributes' types from the whole frame (an object column null in a first batch)
+    attr_schema = pa.Schema.from_pandas(attrs, preserve_index=False)
+    geo = json.dumps(_geo(geom, geoms, frame.crs))
+    schema = attr_schema.insert(at, pa.field(geom, pa.binary()))
+    schema = schema.with_metadata({**(attr_schema.metadata or {}), b"geo": geo})
+    with pq.ParquetWriter(path, schema, compression="zstd") as writer:
+        for lo in range(0, max(len(frame), 1), BATCH_ROWS):
+            rows = attrs.iloc[lo : lo + BATCH_ROWS]
+            table = pa.Table.from_pandas(rows, schema=attr_schema, preserve_index=False)
+            wkb = pa.array(shapely.to_wkb(geoms[lo : lo + BATCH_ROWS]), type=pa.binary())
+            writer.write_table(table.add_column(at, schema.field(at), wkb).cast(schema))
+
+
+def _geo(column: str, geoms: np.ndarray, crs: pyproj.CRS | None) -> dict:
+    """The file's ``geo`` metadata (GeoParquet 1.1.0: encoding, geometry types, CRS as
+    PROJJSON, null for an unknown one, and the bounding box)."""
+    live = geoms[~(shapely.is_missing(geoms) | shapely.is_empty(geoms))]
+    both = np.unique(shapely.get_type_id(live) * 2 + shapely.has_z(live))
+    types = sorted({_TYPE_NAMES[int(k) // 2] + (" Z" if k % 2 else "") for k in both})
+    meta: dict = {"encoding": "WKB", "geometry_types": types}
+    meta["crs"] = crs.to_json_dict() if crs is not None else None
+    if len(live):
+        meta["bbox"] = [float(v) for v in shapely.total_bounds(live)]
+    return {
+        "version": "1.1.0",
+        "primary_column": column,
+        "columns": {column: meta},
+        "creator": {"library": "yieldscape", "version": __version__},
+    }
