@@ -258,14 +258,26 @@ def assert_outputs_documented(out: Path, stand_layer: Path) -> None:
     import re
 
     import pandas as pd
+    import pyarrow.parquet as pq
+
+    from yieldscape.io.geoparquet import is_geoparquet, parquet_files
 
     text = (ROOT / "docs" / "outputs.md").read_text(encoding="utf-8")
-    inputs = set(pyogrio.read_info(stand_layer, layer="stands")["fields"])
+    if is_geoparquet(stand_layer):
+        inputs = set(pq.read_schema(parquet_files(stand_layer)[0]).names)
+    else:
+        inputs = set(pyogrio.read_info(stand_layer, layer="stands")["fields"])
     gpkg = out / "projection.gpkg"
-    for layer, _ in pyogrio.list_layers(gpkg):
-        name = re.sub(r"_\d+$", "_<NN>", re.sub(r"_age_\d{4}$", "_age_<YEAR>", layer))
-        assert re.search(rf"`{re.escape(name)}`", text), f"layer {layer}"
-        cols = pyogrio.read_info(gpkg, layer=layer)["fields"]
+    layers = []  # (name as documented, its columns)
+    if gpkg.exists():
+        for layer, _ in pyogrio.list_layers(gpkg):
+            name = re.sub(r"_\d+$", "_<NN>", re.sub(r"_age_\d{4}$", "_age_<YEAR>", layer))
+            layers.append((name, pyogrio.read_info(gpkg, layer=layer)["fields"]))
+    for path in out.glob("*.parquet"):  # output.format = "geoparquet"
+        layers.append((path.name, [c for c in pq.read_schema(path).names if c != "geometry"]))
+    assert layers, "no layer written"
+    for layer, cols in layers:
+        assert re.search(rf"`{re.escape(layer)}`", text), f"layer {layer}"
         cols = [c for c in cols if c not in inputs]  # the layer's own attributes, carried
         for col in cols:
             col = re.sub(r"^removed_step\d+_ha$", "removed_step<N>_ha", col)

@@ -62,3 +62,18 @@ def test_spatial_benchmark_times_three_variants_side_by_side(bench):
     # the rules only take cuts away: a spatial level is never above the aspatial one
     assert row["unit_level"] <= row["aspatial_level"] * (1 + 1e-6)
     assert row["openings_level"] <= row["aspatial_level"] * (1 + 1e-6)
+
+
+def test_parquet_benchmark_reads_every_format_and_nets_down_both_ways():
+    sys.path.insert(0, str(BENCH))
+    try:
+        import bench_parquet
+    finally:
+        sys.path.remove(str(BENCH))
+    row = bench_parquet.read_bench(300, rounds=1, parts=2)
+    assert all(row[f"{k}_s"] > 0 and row[f"{k}_mb"] > 0 for k in bench_parquet.FORMATS)
+    assert row["speedup_file"] == pytest.approx(row["gpkg_s"] / row["parquet_s"])
+    # the two netdowns agree (the benchmark asserts it) and remove area
+    row = bench_parquet.netdown_bench(300, parts=2)
+    assert 0 < row["harvestable_ha"] < 300 * 6.25
+    assert row["memory_s"] > 0 and row["partitions_s"] > 0

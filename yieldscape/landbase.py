@@ -23,7 +23,7 @@ The excluded area still grows and counts in growing stock; it is only never cut.
 
 from __future__ import annotations
 
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass, field
 
 import geopandas as gpd
@@ -35,7 +35,7 @@ import shapely
 from yieldscape.config import NetdownStep
 from yieldscape.errors import InputError
 from yieldscape.expressions import evaluate_where
-from yieldscape.geometry import invalid_mask, metres_per_unit, metric_geometries, repair
+from yieldscape.geometry import invalid_mask, metres_per_unit, repair, work_crs
 from yieldscape.io.rasters import RasterData
 from yieldscape.zonal import zonal
 
@@ -164,81 +164,241 @@ def apply_netdown(
     pipeline, so this module opens no file. Invalid overlay geometries are repaired as stand
     geometries are (:mod:`yieldscape.geometry`), or rejected with ``strict``.
     """
+    return netdown_by_partition(
+        [stands], steps, lambda _: fields, read_overlay, read_raster, strict, eager=True
+    )
+
+
+def netdown_by_partition(
+    partitions: Iterable[gpd.GeoDataFrame],
+    steps: tuple[NetdownStep, ...],
+    fields_of: Callable[[gpd.GeoDataFrame], Mapping[str, pd.Series]],
+    read_overlay: OverlayReader,
+    read_raster: RasterReader,
+    strict: bool = False,
+    work: pyproj.CRS | None = None,
+    keep_geometry: bool = True,
+    eager: bool = False,
+) -> Netdown:
+    """:func:`apply_netdown` over a stand layer given as partitions (frames with ``area_ha``
+    in one CRS, taken one at a time: the files of a partitioned GeoParquet dataset, or slices
+    of one frame), each netted alone. A stand's netdown depends on its own geometry and
+    fields only, so the result is the in-memory one, stand for stand; each overlay is read
+    and buffered once, a raster read over each partition's extent.
+
+    ``fields_of(partition)`` gives the fields a ``where`` rule may name. ``work`` is the
+    metric work CRS (default: that of the first partition, which is the layer's own CRS when
+    projected; for a layer in degrees give the whole layer's, as the local equal-area
+    projection depends on the extent). Without ``keep_geometry`` the remaining geometry is
+    dropped after each partition (``remaining_geometry`` is then empty): for a stand layer
+    larger than memory. ``eager`` raises a raster step's errors from the first partition that
+    has them (:func:`apply_netdown`: one partition); otherwise they are raised only when no
+    partition overlaps the raster, or none has data."""
+    overlays = _Overlays(read_overlay, strict)
+    parts: list[_Part] = []
+    crs = None
+    for frame in partitions:
+        if crs is None:
+            crs = pyproj.CRS.from_user_input(frame.crs)
+            work = work if work is not None else work_crs(crs, frame.geometry.to_numpy())
+        assert work is not None
+        parts.append(
+            _netdown_part(frame, steps, fields_of(frame), overlays, read_raster, work, eager)
+        )
+        if keep_geometry:
+            parts[-1].geom = _to_crs(parts[-1].geom, work, crs)
+        else:
+            parts[-1].geom = np.empty(0, dtype=object)
+    if not parts:
+        raise NetdownError("the stand layer has no partitions")
+    gross = np.concatenate([p.gross for p in parts])
+    removed = np.concatenate([p.removed for p in parts], axis=1)
+    area = np.concatenate([p.area_ha for p in parts])
+    notes = _step_notes(steps, np.sum([p.tally for p in parts], axis=0))
+    warnings = list(overlays.warnings)
+    crumbs = (area > 0) & (area < CRUMB_HA) & (gross >= CRUMB_HA)
+    if crumbs.any():
+        warnings.append(
+            f"{int(crumbs.sum())} stands keep less than 1 m2 of harvestable area after the "
+            f"netdown (the smallest {float(area[crumbs].min()):.3g} ha): crumbs an "
+            "overlay's edge left (is it drawn along the stand boundaries?); they are cut, if "
+            "at all, as whole parts"
+        )
+    return Netdown(
+        gross,
+        removed,
+        area,
+        np.concatenate([p.geom for p in parts]),
+        netdown_table(gross, removed, steps),
+        tuple(notes),
+        tuple(warnings),
+    )
+
+
+def netdown_in_parts(
+    stands: gpd.GeoDataFrame,
+    rows: list[int],
+    steps: tuple[NetdownStep, ...],
+    fields_of: Callable[[gpd.GeoDataFrame], Mapping[str, pd.Series]],
+    read_overlay: OverlayReader,
+    read_raster: RasterReader,
+    strict: bool = False,
+) -> Netdown:
+    """The netdown of ``stands`` in consecutive parts of ``rows`` stands each (the partitions
+    of the layer they were read from), with the working memory of one part; the same result
+    as :func:`apply_netdown`, to which one part (or rows not adding up) goes."""
+    if len(rows) <= 1 or sum(rows) != len(stands):
+        return apply_netdown(stands, steps, fields_of(stands), read_overlay, read_raster, strict)
+    ends = np.cumsum(rows)
+    return netdown_by_partition(
+        (stands.iloc[end - n : end] for n, end in zip(rows, ends, strict=True)),
+        steps,
+        fields_of,
+        read_overlay,
+        read_raster,
+        strict,
+        work=work_crs(pyproj.CRS.from_user_input(stands.crs), stands.geometry.to_numpy()),
+    )
+
+
+def _where(step: NetdownStep) -> str:
+    return f"[[landbase.steps]] #{step.number} {step.label!r}"
+
+
+def _to_crs(geoms: np.ndarray, src: pyproj.CRS, dst: pyproj.CRS) -> np.ndarray:
+    return geoms if src == dst else gpd.GeoSeries(geoms, crs=src).to_crs(dst).to_numpy()
+
+
+class _Overlays:
+    """Each layer step's overlay, read, repaired and buffered once (at first use)."""
+
+    def __init__(self, read: OverlayReader, strict: bool) -> None:
+        self.read, self.strict = read, strict
+        self.prepared: dict[int, np.ndarray] = {}
+        self.warnings: list[str] = []
+
+    def get(self, step: NetdownStep, wcrs: pyproj.CRS) -> np.ndarray:
+        if step.number not in self.prepared:
+            where = _where(step)
+            frame = _valid_overlay(self.read(step, wcrs), self.strict, where, self.warnings)
+            self.prepared[step.number] = buffer_overlay(frame, step, metres_per_unit(wcrs), where)
+        return self.prepared[step.number]
+
+
+# per step of a partition: stands hit by the layer; over the raster (0/1); any live stand
+# covered by the raster's data (0/1); live stands not covered
+_HIT, _OVER, _COVERED, _MISSING = range(4)
+
+
+@dataclass
+class _Part:
+    gross: np.ndarray
+    removed: np.ndarray  # (steps, stands)
+    area_ha: np.ndarray
+    geom: np.ndarray  # remaining geometry, work CRS
+    tally: np.ndarray  # (steps, 4), see _HIT
+
+
+def _netdown_part(
+    stands: gpd.GeoDataFrame,
+    steps: tuple[NetdownStep, ...],
+    fields: Mapping[str, pd.Series],
+    overlays: _Overlays,
+    read_raster: RasterReader,
+    wcrs: pyproj.CRS,
+    eager: bool,
+) -> _Part:
+    """The steps over one partition's stands (in the work CRS ``wcrs``)."""
     gross = stands["area_ha"].to_numpy(dtype=np.float64)
-    crs = pyproj.CRS.from_user_input(stands.crs)
-    geoms, wcrs = metric_geometries(stands)
+    geoms = _to_crs(stands.geometry.to_numpy(), pyproj.CRS.from_user_input(stands.crs), wcrs)
     state = _State(geoms.copy(), shapely.area(geoms), gross.copy())
     removed = np.zeros((len(steps), len(gross)))
-    notes: list[str] = []
-    warnings: list[str] = []
+    tally = np.zeros((len(steps), 4), dtype=np.int64)
     for k, step in enumerate(steps):
-        where = f"[[landbase.steps]] #{step.number} {step.label!r}"
         before = state.area_ha.copy()
         if step.kind == "where":
             assert step.where is not None
-            hit = evaluate_where(step.where, fields, where)
+            hit = evaluate_where(step.where, fields, _where(step))
             state.area_ha[hit] = 0.0
             state.geom[hit] = shapely.Polygon()
             state.geom_area[hit] = 0.0
         elif step.kind == "percent":
             state.area_ha *= 1.0 - (step.percent or 0.0) / 100.0
         elif step.kind == "layer":
-            frame = _valid_overlay(read_overlay(step, wcrs), strict, where, warnings)
-            overlay = buffer_overlay(frame, step, metres_per_unit(wcrs), where)
-            cut, left = overlay_cut(state.geom, overlay)
-            hit = np.flatnonzero(cut != None)  # noqa: E711
-            cut_area = shapely.area(cut[hit])
-            with np.errstate(invalid="ignore", divide="ignore"):
-                share = np.where(
-                    state.geom_area[hit] > 0, np.minimum(cut_area / state.geom_area[hit], 1.0), 0.0
-                )
-            state.area_ha[hit] *= 1.0 - share
-            state.geom = left
-            state.geom_area = shapely.area(left)
-            gone = hit[state.geom_area[hit] <= 1e-12 * np.maximum(cut_area, 1e-300)]
-            state.area_ha[gone] = 0.0  # wholly inside the overlay: no rounding residue
-            if not len(hit):
-                notes.append(f"{where}: the layer touches no stand; nothing removed")
+            tally[k, _HIT] = _cut_layer(state, overlays.get(step, wcrs))
         elif step.kind == "raster":
-            raster, in_raster_crs = read_raster(step, state.geom, wcrs)
-            if raster is None:
-                raise NetdownError(
-                    f"{where}: {step.raster}: the raster does not overlap the stands"
-                )
-            z = zonal(in_raster_crs, raster, threshold=step.above)
-            live = state.area_ha > 0
-            if not z.covered[live].any():
-                raise NetdownError(
-                    f"{where}: {step.raster}: the raster holds no data over the stands"
-                )
-            missing = int((live & ~z.covered).sum())
-            if missing:
-                notes.append(
-                    f"{where}: {missing} stands are not covered by {step.raster.name}"
-                    " (outside it or nodata); nothing removed from them"
-                )
-            state.area_ha *= 1.0 - z.fraction_above()
+            tally[k] = _mask_raster(state, step, read_raster, wcrs, eager)
         removed[k] = before - state.area_ha
-    crumbs = (state.area_ha > 0) & (state.area_ha < CRUMB_HA) & (gross >= CRUMB_HA)
-    if crumbs.any():
-        warnings.append(
-            f"{int(crumbs.sum())} stands keep less than 1 m2 of harvestable area after the "
-            f"netdown (the smallest {float(state.area_ha[crumbs].min()):.3g} ha): crumbs an "
-            "overlay's edge left (is it drawn along the stand boundaries?); they are cut, if "
-            "at all, as whole parts"
+    return _Part(gross, removed, state.area_ha, state.geom, tally)
+
+
+def _cut_layer(state: _State, overlay: np.ndarray) -> int:
+    """Cut the overlay out of the remaining geometry; the number of stands it hits."""
+    cut, left = overlay_cut(state.geom, overlay)
+    hit = np.flatnonzero(cut != None)  # noqa: E711
+    cut_area = shapely.area(cut[hit])
+    with np.errstate(invalid="ignore", divide="ignore"):
+        share = np.where(
+            state.geom_area[hit] > 0, np.minimum(cut_area / state.geom_area[hit], 1.0), 0.0
         )
-    remaining_geom = (
-        state.geom if wcrs == crs else gpd.GeoSeries(state.geom, crs=wcrs).to_crs(crs).to_numpy()
-    )
-    return Netdown(
-        gross,
-        removed,
-        state.area_ha.copy(),
-        remaining_geom,
-        netdown_table(gross, removed, steps),
-        tuple(notes),
-        tuple(warnings),
-    )
+    state.area_ha[hit] *= 1.0 - share
+    state.geom = left
+    state.geom_area = shapely.area(left)
+    gone = hit[state.geom_area[hit] <= 1e-12 * np.maximum(cut_area, 1e-300)]
+    state.area_ha[gone] = 0.0  # wholly inside the overlay: no rounding residue
+    return len(hit)
+
+
+def _mask_raster(
+    state: _State, step: NetdownStep, read_raster: RasterReader, wcrs: pyproj.CRS, eager: bool
+) -> np.ndarray:
+    """Remove the share of each stand's cells above the threshold; the step's tally."""
+    tally = np.zeros(4, dtype=np.int64)
+    live = state.area_ha > 0
+    raster, in_raster_crs = read_raster(step, state.geom, wcrs)
+    if raster is None:
+        if eager:
+            raise NetdownError(_no_overlap(step))
+        tally[_MISSING] = live.sum()
+        return tally
+    z = zonal(in_raster_crs, raster, threshold=step.above)
+    covered = bool(z.covered[live].any())
+    if eager and not covered:
+        raise NetdownError(_no_data(step))
+    tally[_OVER], tally[_COVERED] = 1, covered
+    tally[_MISSING] = (live & ~z.covered).sum()
+    state.area_ha *= 1.0 - z.fraction_above()
+    return tally
+
+
+def _no_overlap(step: NetdownStep) -> str:
+    return f"{_where(step)}: {step.raster}: the raster does not overlap the stands"
+
+
+def _no_data(step: NetdownStep) -> str:
+    return f"{_where(step)}: {step.raster}: the raster holds no data over the stands"
+
+
+def _step_notes(steps: tuple[NetdownStep, ...], tally: np.ndarray) -> list[str]:
+    """The notes of the steps over all partitions, in step order (and the raster errors no
+    partition could tell alone)."""
+    notes = []
+    for k, step in enumerate(steps):
+        where = _where(step)
+        if step.kind == "layer" and not tally[k, _HIT]:
+            notes.append(f"{where}: the layer touches no stand; nothing removed")
+        elif step.kind == "raster":
+            if not tally[k, _OVER]:
+                raise NetdownError(_no_overlap(step))
+            if not tally[k, _COVERED]:
+                raise NetdownError(_no_data(step))
+            if tally[k, _MISSING]:
+                assert step.raster is not None
+                notes.append(
+                    f"{where}: {int(tally[k, _MISSING])} stands are not covered by "
+                    f"{step.raster.name} (outside it or nodata); nothing removed from them"
+                )
+    return notes
 
 
 def _valid_overlay(

@@ -24,10 +24,11 @@ from yieldscape.adjacency import stand_adjacency
 from yieldscape.config import Scenario
 from yieldscape.errors import InputError, OutputError
 from yieldscape.inventory import prepare_inventory
+from yieldscape.io.geoparquet import partition_rows
 from yieldscape.io.outputs import check_files_dir, check_output_dir, read_run, staged_output
 from yieldscape.io.readers import raster_site_index, read_overlay, read_step_raster
 from yieldscape.io.vector import read_layer
-from yieldscape.landbase import apply_netdown, where_fields, with_netdown_columns
+from yieldscape.landbase import netdown_in_parts, where_fields, with_netdown_columns
 from yieldscape.limits import check_run_size, stand_extent_m
 from yieldscape.projection import (
     CurveSet,
@@ -110,10 +111,12 @@ def check(scenario: Scenario, strict: bool = False) -> CheckResult:
     inventory = prepare_inventory(
         frame, scenario, where=f"{cfg.path}, layer {layer!r}", strict=strict, site_fill=fill
     )
-    netdown = apply_netdown(
+    names = _layer_names(scenario)
+    netdown = netdown_in_parts(  # a partitioned GeoParquet inventory one partition at a time
         inventory.stands,
+        partition_rows(cfg.path),
         scenario.landbase.steps,
-        where_fields(inventory.stands, _layer_names(scenario)),
+        lambda stands: where_fields(stands, names),
         read_overlay,
         read_step_raster,
         strict=strict,

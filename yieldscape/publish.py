@@ -23,6 +23,7 @@ from yieldscape.config import Scenario
 from yieldscape.geometry import metres_per_unit, metric_geometries
 from yieldscape.growth import StockGrowth
 from yieldscape.growth.rules import SiteSummary
+from yieldscape.io.geoparquet import write_geoparquet
 from yieldscape.io.outputs import replace_file, sha256_file, write_json
 from yieldscape.io.rasters import write_geotiff
 from yieldscape.io.vector import (
@@ -54,6 +55,11 @@ log = logging.getLogger("yieldscape")
 
 
 GPKG_NAME = "projection.gpkg"
+# output.format = "geoparquet": the layers as GeoParquet files instead of the GeoPackage
+STANDS_PARQUET = "stands.parquet"
+HARVESTS_PARQUET = "harvests.parquet"
+HARVESTABLE_PARQUET = "harvestable.parquet"
+STAND_AGES_PARQUET = "stand_ages.parquet"  # a plain Parquet table (no geometry)
 HARVEST_EVENTS = "harvest_events"  # the table under the harvests view
 WOOD_FLOW_CSV = "wood_flow.csv"
 PRODUCTS_CSV = "wood_flow_by_product.csv"
@@ -84,6 +90,10 @@ RASTERS_DIR = "rasters"
 MANAGED = frozenset(
     {
         GPKG_NAME,
+        STANDS_PARQUET,
+        HARVESTS_PARQUET,
+        HARVESTABLE_PARQUET,
+        STAND_AGES_PARQUET,
         WOOD_FLOW_CSV,
         PRODUCTS_CSV,
         NETDOWN_CSV,
@@ -129,16 +139,20 @@ def write_outputs(
     gpkg = directory / GPKG_NAME
     # the longest table goes to the helper drawing the figures, where there is one
     helper = rep.figures and sharedwork.FORK and result.stand_ages is not None
+    helper = helper and scenario.output.format != "geoparquet"  # stand_ages: Parquet then
     side = directory / SIDE_GPKG if helper else None
     with (
         shared_figures(result, scenario, directory / FIGURES_DIR, side)
         if rep.figures
         else nullcontext(dict)
     ) as drawn:
-        with unsynced_gpkg(gpkg):
-            write_tables(result, directory, skip=LONG_TABLE if side else None)
-            if rep.map_layers and side is None:
-                write_map_layers(result, scenario, gpkg)
+        if scenario.output.format == "geoparquet":
+            write_tables(result, directory, parquet=True)
+        else:
+            with unsynced_gpkg(gpkg):
+                write_tables(result, directory, skip=LONG_TABLE if side else None)
+                if rep.map_layers and side is None:
+                    write_map_layers(result, scenario, gpkg)
         if rep.raster_cell_m:
             write_rasters(result, scenario, directory / RASTERS_DIR)
         record = run_record(result, scenario)
@@ -191,14 +205,24 @@ def _write_cases(
     return comparison
 
 
-def write_tables(result: RunResult, directory: Path, skip: str | None = None) -> None:
+def write_tables(
+    result: RunResult, directory: Path, skip: str | None = None, parquet: bool = False
+) -> None:
     """The GeoPackage layers and tables, and the same tables as CSV; ``skip``: a table left
-    to another writer (:func:`shared_figures`)."""
+    to another writer (:func:`shared_figures`); with ``parquet``, the layers as GeoParquet
+    files (the harvests a layer of their own, each event with its stand's polygon) and the
+    tables as CSV only (``stand_ages``, which has none, as Parquet)."""
     gpkg = directory / GPKG_NAME
-    write_gpkg_layer(gpkg, result.stands, "stands")
-    write_harvests(result, gpkg)
-    if result.write_harvestable_layer:
-        write_gpkg_layer(gpkg, harvestable_layer(result.inventory), "harvestable")
+    if parquet:
+        write_geoparquet(directory / STANDS_PARQUET, result.stands)
+        write_geoparquet(directory / HARVESTS_PARQUET, result.harvests)
+        if result.write_harvestable_layer:
+            write_geoparquet(directory / HARVESTABLE_PARQUET, harvestable_layer(result.inventory))
+    else:
+        write_gpkg_layer(gpkg, result.stands, "stands")
+        write_harvests(result, gpkg)
+        if result.write_harvestable_layer:
+            write_gpkg_layer(gpkg, harvestable_layer(result.inventory), "harvestable")
     assert result.verdict is not None
     units = result.by_unit
     wood_flow = result.wood_flow
@@ -225,7 +249,10 @@ def write_tables(result: RunResult, directory: Path, skip: str | None = None) ->
     for table, layer, csv in tables:
         if table is None or layer == skip:
             continue
-        write_gpkg_layer(gpkg, table, layer, spatial=False)
+        if not parquet:
+            write_gpkg_layer(gpkg, table, layer, spatial=False)
+        elif layer == "stand_ages":
+            table.to_parquet(directory / STAND_AGES_PARQUET, index=False, compression="zstd")
         if csv is not None:
             table.to_csv(directory / csv, index=False)
 
@@ -522,6 +549,9 @@ def _harvest_map_figure(result: RunResult, scenario: Scenario, figs: _Figures) -
     caption = (
         "The first period in which each stand is cut (projection.gpkg: style the stands "
         "layer by first_harvest_period, or switch on the harvests_period_* layers)."
+        if scenario.output.format == "gpkg"
+        else "The first period in which each stand is cut (stands.parquet: style it by "
+        "first_harvest_period, or filter harvests.parquet by period)."
     )
     path = figs.add("harvest_map", "Where and when", caption)
     note = harvest_map_figure(

@@ -39,6 +39,7 @@ ADJACENCY_MODES = ("edge", "edge-or-corner")
 METHODS = ("rules", "optimize")
 OBJECTIVES = ("max-even-flow", "max-volume", "max-npv")
 TERMINAL_VALUES = ("none", "standing")
+OUTPUT_FORMATS = ("gpkg", "geoparquet")
 
 # Hard limits: beyond them a value is not a forest-planning input but a slip.
 # older than any tree known (bristlecone pines, about 4,800 years; from memory)
@@ -61,6 +62,7 @@ SECTIONS = (
     "partitions",
     "disturbance",
     "report",
+    "output",
     "sensitivity",
 )
 STEP_KINDS = ("where", "layer", "raster", "percent")
@@ -385,6 +387,20 @@ class ReportConfig:
         True,
         "",
         "Draw the figures (figures/, embedded in the report); false for quick batch runs.",
+    )
+
+
+@dataclass(frozen=True)
+class OutputConfig:
+    """``[output]``: the format of the stand and harvest layers."""
+
+    format: str = key(
+        "choice",
+        "gpkg",
+        "",
+        "Format of the stand and harvest layers: one GeoPackage (projection.gpkg) or "
+        "GeoParquet files (stands.parquet, harvests.parquet).",
+        choices=OUTPUT_FORMATS,
     )
 
 
@@ -833,6 +849,7 @@ KEYS: dict[str, dict[str, KeySpec]] = {
     "partitions": keys_of(PartitionConfig),
     "disturbance": keys_of(DisturbanceConfig),
     "report": keys_of(ReportConfig),
+    "output": keys_of(OutputConfig),
     "species.*": keys_of(SpeciesConfig),
     "species.*.thinnings": keys_of(Thinning),
     "economics": keys_of(EconomicsConfig),
@@ -859,6 +876,7 @@ class Scenario:
     partitions: tuple[PartitionConfig, ...] = ()
     disturbance: DisturbanceConfig = field(default_factory=DisturbanceConfig)
     report: ReportConfig = field(default_factory=ReportConfig)
+    output: OutputConfig = field(default_factory=OutputConfig)
     source: Path | None = None
     overrides: tuple[str, ...] = ()
     # [[sensitivity]] cases: (name, the dotted keys it sets, the scenario it makes)

@@ -341,10 +341,17 @@ def write_json(path: Path, data: Any) -> None:
 
 
 def sha256_file(path: Path) -> str:
+    """SHA-256 of a file's bytes; of a directory (a partitioned dataset), of each file's
+    path inside it and bytes, in path order."""
     digest = hashlib.sha256()
-    with Path(path).open("rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            digest.update(block)
+    path = Path(path)
+    files = sorted(p for p in path.rglob("*") if p.is_file()) if path.is_dir() else [path]
+    for file in files:
+        if file != path:
+            digest.update(file.relative_to(path).as_posix().encode() + b"\0")
+        with file.open("rb") as fh:
+            for block in iter(lambda fh=fh: fh.read(1 << 20), b""):
+                digest.update(block)
     return digest.hexdigest()
 
 

@@ -3,6 +3,7 @@ write a one-band GeoTIFF."""
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -62,8 +63,14 @@ def read_window(
         win = rasterio.windows.from_bounds(
             max(x0, full[0]), max(y0, full[1]), min(x1, full[2]), min(y1, full[3]), src.transform
         )
-        win = win.round_offsets(op="floor").round_lengths(op="ceil")
-        win = win.intersection(rasterio.windows.Window(0, 0, src.width, src.height))
+        # every cell the bounds touch: rasterio 1.4's round_lengths rounds to the nearest
+        # (whatever its op) and after round_offsets forgets the shifted start, so a bounds
+        # edge in the middle of a cell lost that last row or column
+        r0, c0 = math.floor(win.row_off), math.floor(win.col_off)
+        r1, c1 = math.ceil(win.row_off + win.height), math.ceil(win.col_off + win.width)
+        win = rasterio.windows.Window(c0, r0, c1 - c0, r1 - r0).intersection(
+            rasterio.windows.Window(0, 0, src.width, src.height)
+        )
         data = src.read(band, window=win, masked=True)
         values = np.ma.filled(data.astype(np.float64), np.nan)
         return RasterData(path, values, src.window_transform(win), crs, full)  # type: ignore

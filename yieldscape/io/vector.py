@@ -19,13 +19,15 @@ import shapely
 from pyogrio.errors import DataLayerError, DataSourceError
 
 from yieldscape.errors import InventoryError
+from yieldscape.io.geoparquet import is_geoparquet, read_geoparquet
 from yieldscape.runlog import release_freed_memory
 
 
 def read_layer(
     path: Path, layer: str | None, key: str = "inventory.layer", what: str = "stand layer"
 ) -> tuple[gpd.GeoDataFrame, str]:
-    """Read one vector layer of any format GDAL reads; return it with the layer name used.
+    """Read one vector layer of any format GDAL reads, or a GeoParquet file or partitioned
+    dataset (:mod:`yieldscape.io.geoparquet`); return it with the layer name used.
 
     ``key`` and ``what`` name the scenario key and the kind of file in messages.
     """
@@ -38,6 +40,8 @@ def read_layer(
             f"{str(path)!r}: the {what}'s path is not UTF-8, and GDAL reads UTF-8 paths only; "
             "rename the file or its folder"
         ) from None
+    if is_geoparquet(path):
+        return read_geoparquet(path, layer, key, what)
     try:
         layers = [str(name) for name in pyogrio.list_layers(path)[:, 0]]
     except (DataSourceError, OSError) as exc:
