@@ -29,6 +29,7 @@ from yieldscape.io.readers import raster_site_index, read_overlay, read_step_ras
 from yieldscape.io.vector import read_layer
 from yieldscape.landbase import apply_netdown, where_fields, with_netdown_columns
 from yieldscape.limits import check_run_size, stand_extent_m
+from yieldscape.parallel import Parallel, Pool, pool
 from yieldscape.projection import (
     CurveSet,
     Periods,
@@ -146,11 +147,17 @@ def _cover(scenario: Scenario, stands: pd.DataFrame) -> CoverRules | None:
 
 
 # ----------------------------------------------------------------------------- run
-def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) -> RunResult:
+def run(
+    scenario: Scenario,
+    out_dir: str | Path | None,
+    strict: bool = False,
+    parallel: Parallel | None = None,
+) -> RunResult:
     """Check, project, schedule and (if ``out_dir`` is given) write every output.
 
     The run's log (progress, warnings, the verdict) is kept in ``RunResult.log`` and written
-    to ``run.log`` beside the other outputs.
+    to ``run.log`` beside the other outputs. With ``parallel`` (:class:`Parallel`) the
+    sensitivity cases and Monte Carlo replicates run as Dask tasks, with the same results.
     """
     out = Path(out_dir) if out_dir is not None else None
     for name, _, _ in scenario.sensitivity:
@@ -158,11 +165,15 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
             raise InputError(f"[[sensitivity]] name {name!r} is the name of an output file")
     if out is not None:
         check_output_dir(out, MANAGED)  # before the long stages, not after
-    with captured_log() as capture:
-        result = _project(scenario, strict)
+    with captured_log() as capture, pool(parallel or Parallel(), __name__) as tasks:
+        cases = tasks and {  # started before the base case, to go on beside it
+            name: tasks.submit(run, case, None, strict, prefix=f"case {name!r}: ")
+            for name, _, case in scenario.sensitivity
+        }
+        result = _project(scenario, strict, tasks)
         result.out_dir, result.log = out, capture.lines
         result.warnings = tuple(capture.warnings)  # this run's own, not its cases'
-        _run_cases(scenario, result, strict)
+        _run_cases(scenario, result, strict, cases)
         if out is not None:
             with staged_output(out, MANAGED) as tmp:
                 log.info("write outputs ...")
@@ -170,8 +181,9 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
     return result
 
 
-def _run_cases(scenario: Scenario, result: RunResult, strict: bool) -> None:
-    """Each [[sensitivity]] case as a run of its own, its log lines named after it."""
+def _run_cases(scenario: Scenario, result: RunResult, strict: bool, tasks: dict | None) -> None:
+    """Each [[sensitivity]] case as a run of its own, its log lines named after it (or its
+    task's result, with its lines, where ``tasks`` has them)."""
     base = flatten(scenario.to_dict())
     for n, (name, sets, case) in enumerate(scenario.sensitivity, start=1):
         if flatten(case.to_dict()) == base:
@@ -182,6 +194,9 @@ def _run_cases(scenario: Scenario, result: RunResult, strict: bool) -> None:
                 ", ".join(f"{k} = {v!r}" for k, v in sets.items()),
             )
         log.info("sensitivity case %r (%d of %d) ...", name, n, len(scenario.sensitivity))
+        if tasks:
+            result.cases[name] = tasks[name].result()
+            continue
         with named_lines(f"case {name!r}: "):
             result.cases[name] = run(case, None, strict=strict)
 
@@ -195,7 +210,7 @@ class _Model:
     arrays: StandArrays
 
 
-def _project(scenario: Scenario, strict: bool) -> RunResult:
+def _project(scenario: Scenario, strict: bool, tasks: Pool | None = None) -> RunResult:
     """Everything of a run but writing: check, project, schedule, tables, indicators."""
     timer = Timer()
     with timer.stage("read and check inventory"):
@@ -219,6 +234,7 @@ def _project(scenario: Scenario, strict: bool) -> RunResult:
                 sched.rules,
                 d.replicates,
                 d.seed,
+                tasks,
             )
     if sched.rules.cover is not None:
         sim = flow.simulation
