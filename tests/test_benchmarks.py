@@ -62,3 +62,17 @@ def test_spatial_benchmark_times_three_variants_side_by_side(bench):
     # the rules only take cuts away: a spatial level is never above the aspatial one
     assert row["unit_level"] <= row["aspatial_level"] * (1 + 1e-6)
     assert row["openings_level"] <= row["aspatial_level"] * (1 + 1e-6)
+
+
+def test_parallel_benchmark_builds_eight_cases_and_times_the_replicates(bench, tmp_path):
+    sys.path.insert(0, str(BENCH))
+    try:
+        import bench_parallel
+    finally:
+        sys.path.remove(str(BENCH))
+    gpkg = tmp_path / "region.gpkg"
+    bench[0].build_region(300, gpkg)
+    scn = bench_parallel.scenario(gpkg, 300, True)
+    assert len(scn.sensitivity) == 8 and scn.disturbance.replicates == 0
+    row = bench_parallel.one_run(gpkg, 300, "replicates", None, 4)  # serial: no cluster here
+    assert row["mc_s"] > 0 and row["wall_s"] > row["mc_s"] and set(row["tables"]) == {"monte_carlo"}
