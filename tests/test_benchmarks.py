@@ -77,3 +77,17 @@ def test_parquet_benchmark_reads_every_format_and_nets_down_both_ways():
     row = bench_parquet.netdown_bench(300, parts=2)
     assert 0 < row["harvestable_ha"] < 300 * 6.25
     assert row["memory_s"] > 0 and row["partitions_s"] > 0
+
+
+def test_parallel_benchmark_builds_eight_cases_and_times_the_replicates(bench, tmp_path):
+    sys.path.insert(0, str(BENCH))
+    try:
+        import bench_parallel
+    finally:
+        sys.path.remove(str(BENCH))
+    gpkg = tmp_path / "region.gpkg"
+    bench[0].build_region(300, gpkg)
+    scn = bench_parallel.scenario(gpkg, 300, True)
+    assert len(scn.sensitivity) == 8 and scn.disturbance.replicates == 0
+    row = bench_parallel.one_run(gpkg, 300, "replicates", None, 4)  # serial: no cluster here
+    assert row["mc_s"] > 0 and row["wall_s"] > row["mc_s"] and set(row["tables"]) == {"monte_carlo"}

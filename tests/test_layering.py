@@ -15,6 +15,7 @@ LAYER = {
     "policies": 0,
     "runlog": 0,
     "sharedwork": 0,
+    "parallel": 0,
     "config": 1,
     "expressions": 1,
     "growth": 1,

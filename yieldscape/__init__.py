@@ -6,12 +6,14 @@ The library API a notebook calls; the ``yieldscape`` command is a thin shell ove
 from yieldscape._version import __version__
 from yieldscape.config import Scenario, load_scenario
 from yieldscape.errors import InputError, YieldscapeError
+from yieldscape.parallel import Parallel
 from yieldscape.pipeline import CurvesResult, RunResult, check, compare, curves, run
 
 __all__ = [
     "CurvesResult",
     "YieldscapeError",
     "InputError",
+    "Parallel",
     "RunResult",
     "Scenario",
     "__version__",

@@ -30,6 +30,7 @@ from yieldscape.io.readers import raster_site_index, read_overlay, read_step_ras
 from yieldscape.io.vector import read_layer
 from yieldscape.landbase import netdown_in_parts, where_fields, with_netdown_columns
 from yieldscape.limits import check_run_size, stand_extent_m
+from yieldscape.parallel import Parallel, Pool, pool
 from yieldscape.projection import (
     CurveSet,
     Periods,
@@ -66,7 +67,11 @@ from yieldscape.results import CheckResult, CurvesResult, RunResult
 from yieldscape.runlog import Timer, captured_log, named_lines, released
 from yieldscape.schedule import HarvestRules, SpatialRules, lp_plan, stable_periods_for
 from yieldscape.schedule.cover import CoverRules, cover_report, cover_rules
-from yieldscape.schedule.eligibility import never_cut_warnings, too_large_for_openings
+from yieldscape.schedule.eligibility import (
+    collapse_warnings,
+    never_cut_warnings,
+    too_large_for_openings,
+)
 from yieldscape.schedule.montecarlo import monte_carlo_table
 from yieldscape.schedule.stage import (
     REGION,
@@ -131,8 +136,7 @@ def check(scenario: Scenario, strict: bool = False) -> CheckResult:
 
 
 def _layer_names(scenario: Scenario) -> dict[str, str | None]:
-    """The stand table's standard columns -> the layer's names for them (where rules may
-    name either)."""
+    """The stand table's standard columns -> the layer's names (where rules name either)."""
     f = scenario.inventory.fields
     names = {"stand_id": f.stand_id, "species": f.species, "site_index": f.site_index}
     return names | {"age_years": f.age, "zone": f.zone, "unit": f.unit}
@@ -149,11 +153,17 @@ def _cover(scenario: Scenario, stands: pd.DataFrame) -> CoverRules | None:
 
 
 # ----------------------------------------------------------------------------- run
-def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) -> RunResult:
+def run(
+    scenario: Scenario,
+    out_dir: str | Path | None,
+    strict: bool = False,
+    parallel: Parallel | None = None,
+) -> RunResult:
     """Check, project, schedule and (if ``out_dir`` is given) write every output.
 
     The run's log (progress, warnings, the verdict) is kept in ``RunResult.log`` and written
-    to ``run.log`` beside the other outputs.
+    to ``run.log`` beside the other outputs. With ``parallel`` (:class:`Parallel`) the
+    sensitivity cases and Monte Carlo replicates run as Dask tasks, with the same results.
     """
     out = Path(out_dir) if out_dir is not None else None
     for name, _, _ in scenario.sensitivity:
@@ -161,11 +171,15 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
             raise InputError(f"[[sensitivity]] name {name!r} is the name of an output file")
     if out is not None:
         check_output_dir(out, MANAGED)  # before the long stages, not after
-    with captured_log() as capture:
-        result = _project(scenario, strict)
+    with captured_log() as capture, pool(parallel or Parallel(), __name__) as tasks:
+        cases = tasks and {  # started before the base case, to go on beside it
+            name: tasks.submit(run, case, None, strict, prefix=f"case {name!r}: ")
+            for name, _, case in scenario.sensitivity
+        }
+        result = _project(scenario, strict, tasks)
         result.out_dir, result.log = out, capture.lines
         result.warnings = tuple(capture.warnings)  # this run's own, not its cases'
-        _run_cases(scenario, result, strict)
+        _run_cases(scenario, result, strict, cases)
         if out is not None:
             with staged_output(out, MANAGED) as tmp:
                 log.info("write outputs ...")
@@ -173,8 +187,9 @@ def run(scenario: Scenario, out_dir: str | Path | None, strict: bool = False) ->
     return result
 
 
-def _run_cases(scenario: Scenario, result: RunResult, strict: bool) -> None:
-    """Each [[sensitivity]] case as a run of its own, its log lines named after it."""
+def _run_cases(scenario: Scenario, result: RunResult, strict: bool, tasks: dict | None) -> None:
+    """Each [[sensitivity]] case as a run of its own, its log lines named after it (or its
+    task's result, with its lines, where ``tasks`` has them)."""
     base = flatten(scenario.to_dict())
     for n, (name, sets, case) in enumerate(scenario.sensitivity, start=1):
         if flatten(case.to_dict()) == base:
@@ -185,6 +200,9 @@ def _run_cases(scenario: Scenario, result: RunResult, strict: bool) -> None:
                 ", ".join(f"{k} = {v!r}" for k, v in sets.items()),
             )
         log.info("sensitivity case %r (%d of %d) ...", name, n, len(scenario.sensitivity))
+        if tasks:
+            result.cases[name] = tasks[name].result()
+            continue
         with named_lines(f"case {name!r}: "):
             result.cases[name] = run(case, None, strict=strict)
 
@@ -198,7 +216,7 @@ class _Model:
     arrays: StandArrays
 
 
-def _project(scenario: Scenario, strict: bool) -> RunResult:
+def _project(scenario: Scenario, strict: bool, tasks: Pool | None = None) -> RunResult:
     """Everything of a run but writing: check, project, schedule, tables, indicators."""
     timer = Timer()
     with timer.stage("read and check inventory"):
@@ -222,6 +240,7 @@ def _project(scenario: Scenario, strict: bool) -> RunResult:
                 sched.rules,
                 d.replicates,
                 d.seed,
+                tasks,
             )
     if sched.rules.cover is not None:
         sim = flow.simulation
@@ -236,13 +255,7 @@ def _project(scenario: Scenario, strict: bool) -> RunResult:
 
 def _model(scenario: Scenario, inventory: CheckResult) -> _Model:
     curves = CurveSet.from_scenario(scenario)
-    for code, curve in zip(curves.codes, curves.curves, strict=True):
-        if getattr(curve, "collapses", False):
-            log.warning(
-                "species %s: initial_m3_ha is below min_viable_m3_ha, so its stands "
-                "collapse after harvest instead of regrowing",
-                code,
-            )
+    _warn(collapse_warnings(curves))
     arrays = StandArrays.from_table(inventory.stands, scenario, curves)
     _warn(never_cut_warnings(arrays, curves, scenario.growth.max_age_years))
     return _Model(Periods.from_scenario(scenario), curves, arrays)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 
 import yieldscape
+from yieldscape.parallel import INSTALL, SCHEDULER_ENV, Parallel
 from yieldscape.policies import flow_policy
 from yieldscape.reporting.bound import lp_sentences
 
@@ -21,12 +22,26 @@ def add_parser(sub, common: argparse.ArgumentParser) -> None:  # noqa: ANN001
     )
     p.add_argument("scenario", help="scenario TOML file")
     p.add_argument("--out", required=True, metavar="DIR", help="output directory")
+    p.add_argument(
+        "--workers",
+        type=_whole,
+        metavar="N",
+        help="run the sensitivity cases and Monte Carlo replicates on a local Dask cluster "
+        f"of N processes (needs {INSTALL})",
+    )
+    p.add_argument(
+        "--scheduler",
+        metavar="ADDRESS",
+        help="send them to an existing Dask cluster, e.g. tcp://10.0.0.5:8786 (default: "
+        f"${SCHEDULER_ENV}; neither: all in this process)",
+    )
     p.set_defaults(handler=handle)
 
 
 def handle(args: argparse.Namespace) -> int:
     scenario = yieldscape.load_scenario(args.scenario, overrides=args.overrides)
-    result = yieldscape.run(scenario, args.out, strict=args.strict)
+    parallel = Parallel.from_options(args.workers, args.scheduler)
+    result = yieldscape.run(scenario, args.out, strict=args.strict, parallel=parallel)
     if not args.quiet:
         wf = result.wood_flow
         print(
@@ -92,6 +107,14 @@ def handle(args: argparse.Namespace) -> int:
             "licensed professionals."
         )
     return 0
+
+
+def _whole(text: str) -> int:
+    """--workers N as a number; its range is checked with the other settings (Parallel)."""
+    try:
+        return int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
 
 
 def _change(start: float, end: float) -> str:

@@ -68,3 +68,14 @@ def too_large_for_openings(harvestable_ha: np.ndarray, max_opening_ha: float) ->
         f"({float(harvestable_ha[big].sum()):.0f} ha harvestable) are larger and will never be "
         "cut; raise it or split those stands"
     ]
+
+
+def collapse_warnings(curves: CurveSet) -> list[str]:
+    """A warning per stock-growth code that starts below its minimum viable stock: its stands
+    collapse after a harvest instead of regrowing."""
+    return [
+        f"species {code}: initial_m3_ha is below min_viable_m3_ha, so its stands collapse "
+        "after harvest instead of regrowing"
+        for code, curve in zip(curves.codes, curves.curves, strict=True)
+        if getattr(curve, "collapses", False)
+    ]
