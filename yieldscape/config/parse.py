@@ -478,10 +478,7 @@ def _units(
                 f"{where}: [[units]] #{n} {unit.name!r}: policy = 'targets' needs targets_m3"
             )
         out.append(unit)
-    names = [u.name for u in out]
-    for name in names:
-        if names.count(name) > 1:
-            raise ScenarioError(f"{where}: [[units]] name = {name!r} is given twice")
+    _names_once([u.name for u in out], "units", where)
     if inventory.fields.unit is not None and flow.policy not in UNIT_POLICIES:
         raise ScenarioError(
             f"{where}: [flow] policy = {flow.policy!r} with [inventory.fields] unit: the units "
@@ -515,11 +512,15 @@ def _partitions(raw: Any, where: str) -> tuple[PartitionConfig, ...]:
                     f"max_{what} = {limits[hi]:g}"
                 )
         out.append(part)
-    names = [p.name for p in out]
+    _names_once([p.name for p in out], "partitions", where)
+    return tuple(out)
+
+
+def _names_once(names: list[str], section: str, where: str) -> None:
+    """Each table of an array of tables names itself once."""
     for name in names:
         if names.count(name) > 1:
-            raise ScenarioError(f"{where}: [[partitions]] name = {name!r} is given twice")
-    return tuple(out)
+            raise ScenarioError(f"{where}: [[{section}]] name = {name!r} is given twice")
 
 
 def _landbase(raw: Any, base_dir: Path, where: str) -> LandbaseConfig:
