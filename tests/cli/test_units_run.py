@@ -143,6 +143,21 @@ def test_constraints_hold_the_lp_rows_and_the_costliest_rules(units_run):
     )
 
 
+def test_optimised_mode_gives_each_unit_its_lp_harvest(tmp_path):
+    # flow.method = "optimize" with units: each unit takes its own LP harvest as its targets,
+    # all lowered by one factor where the mapped plan misses one (the same share everywhere).
+    scn = _scenario(tmp_path, flow={"method": "optimize"})
+    wf, rec = _run(scn, tmp_path / "out")
+    units = wf[wf["unit"] != "region"]
+    assert set(units["unit"]) == {"north", "south"}
+    share = units["harvest_m3"] / units["lp_bound_m3"]
+    np.testing.assert_allclose(share, 1.0 - rec["flow"]["disaggregation_gap"], rtol=1e-9)
+    assert units["meets_policy"].all()
+    mu = pd.read_csv(tmp_path / "out" / "management_units.csv").set_index("unit")
+    first = units[units["period"] == 1].set_index("unit")["harvest_m3"] / 10
+    np.testing.assert_allclose(mu.loc[first.index, "level_m3_per_year"], first, rtol=1e-12)
+
+
 def test_units_outputs_are_documented(units_run):
     d, out, _, _ = units_run
     assert_outputs_documented(out, d / "stands.gpkg")

@@ -138,7 +138,12 @@ def _unit_lines(result: yieldscape.RunResult) -> list[str]:
             )
     if by.costliest:
         costs = "; ".join(
-            f"{r['rule']} {r['cost_m3_per_year_per_percent']:,.0f}" for r in by.costliest
+            f"{r['rule']} {_figure(r['cost_m3_per_year_per_percent'])}" for r in by.costliest
         )
         out.append(f"costliest rules (LP duals, m3/year per 1% looser): {costs}")
     return out
+
+
+def _figure(value: float) -> str:
+    """A figure with thousands separated, two significant digits when small."""
+    return f"{value:,.0f}" if abs(value) >= 10 else f"{value:.2g}"

@@ -81,7 +81,7 @@ def unit_flows(flow: FlowResult, units: Units, periods: Periods, lp: LPResult | 
             level_m3_per_year=level / periods.period_years,
             simulation=own,
             binding=flow.unit_binding[u],
-            policy=pol.policy,
+            policy="optimize" if flow.policy == "optimize" else pol.policy,
             details={},
         )
         table = wood_flow_table(unit_flow, periods, None if lp_h is None else lp_h[u])

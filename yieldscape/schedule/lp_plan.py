@@ -280,7 +280,13 @@ def lp_schedule(
         )
     level = float(sim.harvest_m3[0])
     details = {"disaggregation_gap": 1.0 - scale}
-    return FlowResult(level, level / periods.period_years, sim, why, steps, "optimize", details)
+    flow = FlowResult(level, level / periods.period_years, sim, why, steps, "optimize", details)
+    if rules.units is None:
+        return flow
+    first = tuple(float(x) for x in sim.unit_harvest_m3[0])  # each unit's period 1, its level
+    return replace(
+        flow, units=lp.units, unit_levels_m3_per_period=first, unit_binding=(why,) * len(first)
+    )
 
 
 def lp_regen_shares(lp: LPResult, reg: Regimes | None) -> NDArray | None:
