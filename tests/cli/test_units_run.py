@@ -244,3 +244,20 @@ def test_bad_units_input_is_named(tmp_path, capsys, edit, attrs_edit, message):
     err = capsys.readouterr().err
     assert re.search(message, err), err
     assert "Traceback" not in err and not out.exists()
+
+
+def test_an_ending_stock_cost_agrees_with_a_finite_difference(tmp_path):
+    # constraints.csv's cost of one percentage point of a unit's ending stock against the LP
+    # bound re-solved with that unit's flow.ending_stock lowered by 0.01 (0.8 -> 0.79): the
+    # first-order figure and the difference agree where the basis holds (LP sensitivity).
+    base = _run(_scenario(tmp_path, "a.toml"), tmp_path / "a")[1]
+    c = pd.read_csv(tmp_path / "a" / "constraints.csv")
+    (cost,) = c.loc[
+        (c["kind"] == "ending_stock") & (c["unit"] == "south"), "cost_m3_per_year_per_percent"
+    ]
+    looser = _run(
+        _scenario(tmp_path, "b.toml", units=[{"name": "south", "ending_stock": 0.79}]),
+        tmp_path / "b",
+    )[1]
+    gain = (looser["lp"]["level_m3_per_period"] - base["lp"]["level_m3_per_period"]) / 10
+    assert cost > 0 and gain == pytest.approx(cost, rel=0.05)

@@ -575,8 +575,10 @@ def _structure(data: ReportData) -> Section:
 UNITS_SHOWN = {
     "unit": "unit",
     "policy": "policy",
+    "band": "band",
+    "ending_stock_share": "ending stock share",
     "level_m3_per_year": "level m3/yr",
-    "lp_level_m3_per_year": "LP level m3/yr",
+    "lp_level_m3_per_year": "its LP bound m3/yr",
     "ending_stock_ratio": "ending / initial stock",
     "sustainable": "sustainable",
     "limited_by": "limited by",
@@ -606,8 +608,9 @@ def _units_section(data: ReportData) -> Section | None:
         table = pd.DataFrame(
             {
                 "partition": list(by.groups),
-                "least share": by["share_of_harvest"].min().to_numpy(),
-                "largest share": by["share_of_harvest"].max().to_numpy(),
+                "least share %": 100 * by["share_of_harvest"].min().to_numpy(),
+                "largest share %": 100 * by["share_of_harvest"].max().to_numpy(),
+                "limits": [_limits(g) for _, g in by],
                 "volume m3": by["volume_m3"].sum().to_numpy(),
                 "holds in every period": by["holds"].all().to_numpy(),
             }
@@ -622,12 +625,25 @@ def _units_section(data: ReportData) -> Section | None:
         blocks.append(
             Table(
                 rows.rename(columns={"cost_m3_per_year_per_percent": "m3/yr per 1% looser"}),
-                f"The {len(rows)} rules that cost the most level, from the harvest LP's dual "
-                "values: the level (m3/year) one more percent of each rule's limit in every "
-                "period would give, to first order (constraints.csv lists every row).",
+                f"The {len(rows)} rules that cost the LP bound the most level, from its dual "
+                "values: the level (m3/year) the bound gains, to first order, from loosening "
+                "each rule by one percentage point (a share: flow.ending_stock, min_share, "
+                "max_share) or by 1% (an amount), summed over the rule's periods; what a rule "
+                "costs the schedule can differ (constraints.csv lists every row).",
             )
         )
     return Section("Management units and partitions", blocks)
+
+
+def _limits(rows: pd.DataFrame) -> str:
+    """A partition's limits in words, from its partitions.csv rows."""
+    first = rows.iloc[0]
+    words = [
+        f"{what} {100 * first[key]:g}%"
+        for key, what in (("min_share", "at least"), ("max_share", "at most"))
+        if pd.notna(first[key])
+    ]
+    return ", ".join(words) or "amounts (partitions.csv)"
 
 
 def _cases(data: ReportData) -> Section:

@@ -172,6 +172,8 @@ def partition_table(
                     "harvest_m3": h,
                     "volume_m3": v,
                     "share_of_harvest": share,
+                    "min_share": rules.min_share[k],
+                    "max_share": rules.max_share[k],
                     "min_m3": low,
                     "max_m3": np.where(np.isfinite(high), high, np.nan),
                     "holds": (v >= low * (1 - 1e-6) - 1e-6) & (v <= high * (1 + 1e-6) + 1e-6),
@@ -181,11 +183,16 @@ def partition_table(
     return pd.concat(rows, ignore_index=True)
 
 
-def constraint_table(lp: LPResult, period_years: float) -> pd.DataFrame:
+def constraint_table(
+    lp: LPResult, period_years: float, initial_stock_m3: dict[str, float]
+) -> pd.DataFrame:
     """The LP's reported rows (partitions, ending stocks, cover targets, the area cap) with
-    ``rule`` (the row's rule in words) and ``cost_m3_per_year_per_percent``: what moving the
-    row's right-hand side by 1% of its value (looser) gives in level, m3 per year, to first
-    order (|dual| x |rhs| / 100 / period length)."""
+    ``rule`` (the row's rule in words) and ``cost_m3_per_year_per_percent``: the level, m3 per
+    year, that loosening the rule by one percent gives to first order, from the row's dual:
+    one percentage point of a share the scenario sets (``flow.ending_stock``: |dual| x 1% of
+    the initial growing stock, ``initial_stock_m3`` by unit, "" for the region; a partition's
+    ``min_share`` / ``max_share``: |dual| / 100), 1% of an amount otherwise (|dual x limit| /
+    100: ``min_m3`` / ``max_m3``, the cover rows' and the area cap's hectares)."""
     c = lp.constraints.copy()
     if c.empty:
         return c
@@ -200,7 +207,12 @@ def constraint_table(lp: LPResult, period_years: float) -> pd.DataFrame:
             for k, n, u, s in zip(c["kind"], c["name"], c["unit"], side, strict=True)
         ],
     )
-    c["cost_m3_per_year_per_percent"] = np.abs(c["dual"] * rhs) / 100.0 / period_years
+    step = np.abs(rhs)  # what one percent of the rule moves the row's limit by, x 100
+    share = (c["rhs_unit"] == "share").to_numpy()
+    step[share] = 1.0
+    ending = (c["kind"] == "ending_stock").to_numpy()
+    step[ending] = [initial_stock_m3.get(u, np.nan) for u in c["unit"][ending]]
+    c["cost_m3_per_year_per_percent"] = np.abs(c["dual"]) * step / 100.0 / period_years
     return c
 
 
@@ -208,9 +220,10 @@ def _rule(kind: str, name: str, unit: str, side: str) -> str:
     where = f" of unit {unit!r}" if unit else ""
     if kind == "partition":  # the LP names a partition's row "NAME.KEY" (min_share, ...)
         base, _, key = name.rpartition(".")
-        return f"partition {base or name!r} {key or side}"
+        per = " (per point)" if key.endswith("share") else ""
+        return f"partition {base or name!r} {key or side}{per}"
     if kind == "ending_stock":
-        return f"ending growing stock{where} ({name})"
+        return f"ending growing stock{where} ({name}, per point)"
     if kind == "cover":
         return f"cover target {name}"
     return f"{name}{where}"
@@ -272,7 +285,11 @@ def unit_outputs(
     if partitions is not None:
         out.partitions = partition_table(flow, partitions, periods, wood_flow)
     if lp is not None and not lp.constraints.empty:
-        out.constraints = constraint_table(lp, periods.period_years)
+        sim = flow.simulation
+        stocks = {"": sim.initial_stock_m3}
+        if units is not None:
+            stocks |= dict(zip(units.names, sim.unit_initial_stock_m3, strict=True))
+        out.constraints = constraint_table(lp, periods.period_years, stocks)
         out.costliest = costliest(out.constraints)
     return out
 

@@ -206,8 +206,8 @@ def _scaled(
         final = trial(levels_at(b.lo), True)
     s = b.hi_sim.sim if isinstance(b.hi_sim, _AllView) else b.hi_sim
     why = (
-        f"the units' levels without the partitions, scaled by {b.lo:.4f}: higher, "
-        f"{s.fail_reason or 'a unit fails'}"
+        f"the partitions: every unit's level is {100 * (1 - b.lo):.2f}% below its level "
+        f"without them (any higher, {s.fail_reason or 'a unit fails'})"
     )
     return levels_at(b.lo), [why if k else "" for k in searched], final
 
