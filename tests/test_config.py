@@ -75,6 +75,10 @@ def test_bad_keys_are_named(tmp_path, section, table, match):
             r"curve 'stock-minimum' needs key 'min_viable_m3_ha'",
         ),
         (
+            {"curve": "stock-logistic", "r": 0.1, "capacity_m3_ha": 1e300, "initial_m3_ha": 5.0},
+            r"capacity_m3_ha = 1e\+300: must be > 0 and <= 100000",
+        ),
+        (
             {"curve": "stock-depensation", "r": 0.0, "capacity_m3_ha": 300.0, "initial_m3_ha": 5.0},
             r"r = 0.0: must be > 0",
         ),
@@ -350,7 +354,7 @@ def test_units_and_partitions_load_with_their_keys(tmp_path):
             tmp_path,
             [
                 {"name": "north", "ending_stock": 0.9},
-                {"name": "south", "policy": "targets", "targets_m3": [10.0, 20.0]},
+                {"name": "south", "policy": "targets", "targets_m3": [10.0] * 10},
             ],
             [{"name": "old", "where": "AGE > 100", "min_share": 0.2, "max_m3": 5000}],
         )

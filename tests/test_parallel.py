@@ -166,6 +166,7 @@ def test_workers_starts_a_local_cluster(forest, tmp_path):
     [
         (["--workers", "0"], "--workers 0: must be a whole number of processes >= 1"),
         (["--workers", "-3"], "--workers -3: must be a whole number of processes >= 1"),
+        (["--workers", "100000"], "--workers 100000: at most 256 local processes"),
         (["--workers", "2", "--scheduler", "tcp://127.0.0.1:9"], "give one of them"),
         (["--scheduler", "nonsense"], "--scheduler 'nonsense': no Dask scheduler reached"),
         (["--scheduler", "tcp://127.0.0.1:9"], "--scheduler 'tcp://127.0.0.1:9': no Dask"),

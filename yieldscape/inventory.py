@@ -159,9 +159,12 @@ def prepare_inventory(
             "site_index_source": source,
         }
     )
+    ours = {c.lower() for c in table.columns} | {"geometry"}
     for col in [c for c in frame.columns if c != frame.geometry.name]:
         if col not in mapping.values():  # the layer's other attributes follow ours
-            table[col if col not in table.columns else f"input_{col}"] = frame[col].to_numpy()
+            # a GeoPackage's field names ignore case: UNIT would clash with our unit
+            name = col if col.lower() not in ours else f"input_{col}"
+            table[name] = frame[col].to_numpy()
     stands = gpd.GeoDataFrame(table, geometry=gpd.GeoSeries(geoms, crs=crs).values, crs=crs)
     report = _report(stands, crs, method, repaired, notes, rows.warnings)
     return Inventory(stands, report)

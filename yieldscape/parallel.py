@@ -34,6 +34,9 @@ CONNECT_TIMEOUT_S = 10.0  # to reach an existing scheduler
 INSTALL = 'pip install "yieldscape[parallel]"'
 
 
+MAX_WORKERS = 256  # local worker processes, each a copy of the inputs
+
+
 @dataclass(frozen=True)
 class Parallel:
     """Where a run's independent tasks go: ``workers`` local processes, the cluster whose
@@ -48,6 +51,11 @@ class Parallel:
         w = self.workers
         if w is not None and (isinstance(w, bool) or not isinstance(w, int) or w < 1):
             raise InputError(f"--workers {w!r}: must be a whole number of processes >= 1")
+        if w is not None and w > MAX_WORKERS:
+            raise InputError(
+                f"--workers {w}: at most {MAX_WORKERS} local processes (a local cluster's "
+                "workers each hold the run's inputs; for more, use --scheduler)"
+            )
         if self.scheduler is not None and not self.scheduler.strip():
             raise InputError(f"{self.source}: the scheduler address is empty")
         if w is not None and self.scheduler is not None:

@@ -181,3 +181,16 @@ def test_fit_recovers_a_stock_shape_from_integrated_points(tmp_path, capsys, sha
     assert float(got["initial_m3_ha"]) == pytest.approx(s0, rel=1e-2)
     if m is not None:
         assert float(got["min_viable_m3_ha"]) == pytest.approx(m, rel=1e-2)
+
+
+def test_fit_of_a_stock_shape_stays_in_the_scenarios_bounds(tmp_path, capsys):
+    # Falling points: the best stock curve would start above its capacity, which a scenario
+    # rejects; the fit keeps S0 <= K (and m < K), so its snippet always loads.
+    path = tmp_path / "p.csv"
+    pd.DataFrame(
+        {"age_years": [10, 20, 30, 40, 50], "volume_m3_ha": [400, 300, 200, 100, 50]}
+    ).to_csv(path, index=False)
+    for model in ("stock-depensation", "stock-minimum"):
+        assert main(["fit", str(path), "--model", model]) == 0
+        got = dict(re.findall(r"^(\w+) = ([-+.\deE]+)$", capsys.readouterr().out, re.M))
+        assert float(got["initial_m3_ha"]) <= float(got["capacity_m3_ha"]) * (1 + 1e-12)

@@ -220,6 +220,20 @@ def test_units_sharing_no_rule_run_as_their_separate_runs(tmp_path):
             None,
             r"no schedule keeps every partition: in period 1, partition 'big' yields 0 m3",
         ),
+        (  # a minimum no stand can give but by cutting nothing
+            {
+                "partitions": [{"name": "none", "where": "AGE > 9999", "min_share": 0.1}],
+                "flow": {"lp_bound": False},
+                "unit_field": False,
+            },
+            None,
+            r"\[\[partitions\]\] 'none': no schedule with a harvest keeps them",
+        ),
+        (
+            {"units": [{"name": "south", "policy": "targets", "targets_m3": [100.0, 200.0]}]},
+            None,
+            r"\[\[units\]\] #1 'south': targets_m3 has 2 values for scenario.periods = 8",
+        ),
         (  # one regional flow the same
             {
                 "partitions": [{"name": "big", "where": f"AGE > {OLD}", "min_m3": 1e9}],
@@ -261,3 +275,22 @@ def test_an_ending_stock_cost_agrees_with_a_finite_difference(tmp_path):
     )[1]
     gain = (looser["lp"]["level_m3_per_period"] - base["lp"]["level_m3_per_period"]) / 10
     assert cost > 0 and gain == pytest.approx(cost, rel=0.05)
+
+
+def test_units_with_disturbance_replicates_and_a_layer_field_named_unit(tmp_path):
+    # The replicates replay the region's harvest with units too; a layer field whose name is
+    # an output column's in another case (GeoPackage names ignore case) is carried renamed.
+    attrs = _attrs()
+    attrs["Unit"] = np.arange(N)
+    layer = write_layer(tmp_path / "stands.gpkg", squares(N, side_m=50.0), attrs)
+    scn = _scenario(tmp_path, layer=layer, disturbance={"annual_rate": 0.005, "replicates": 3})
+    wf, rec = _run(scn, tmp_path / "out")
+    mc = pd.read_csv(tmp_path / "out" / "monte_carlo.csv")
+    assert len(mc) == 8 and set(wf["unit"]) == {"region", "north", "south"}
+    stands = pyogrio.read_dataframe(
+        tmp_path / "out" / "projection.gpkg", layer="stands", read_geometry=False
+    )
+    assert (stands["input_Unit"] == np.arange(N)).all() and set(stands["unit"]) == {
+        "north",
+        "south",
+    }

@@ -531,7 +531,7 @@ class SpeciesConfig:
         None,
         "m3/ha",
         "Carrying capacity K of a stock model.",
-        check=_positive,
+        check=Range(0, 100_000, lo_open=True),
         usual=_VOLUME_USUAL,
     )
     initial_m3_ha: float | None = key(

@@ -213,7 +213,7 @@ def _parse(
         growth,
         _landbase(raw.get("landbase", {}), base_dir, where),
         _cover(raw.get("cover", []), where),
-        _units(raw.get("units", []), flow, inventory, where),
+        _units(raw.get("units", []), flow, inventory, info.periods, where),
         _partitions(raw.get("partitions", []), where),
         disturbance,
         _report(raw.get("report", {}), info, where),
@@ -460,7 +460,7 @@ UNIT_POLICIES = ("even", "targets")  # the flows searched per management unit
 
 
 def _units(
-    raw: Any, flow: FlowConfig, inventory: InventoryConfig, where: str
+    raw: Any, flow: FlowConfig, inventory: InventoryConfig, periods: int, where: str
 ) -> tuple[UnitConfig, ...]:
     """``[[units]]``: each a unit's own flow keys; names unique; a unit field to read."""
     out = []
@@ -476,6 +476,11 @@ def _units(
         if policy == "targets" and (unit.targets_m3 or flow.targets_m3) is None:
             raise ScenarioError(
                 f"{where}: [[units]] #{n} {unit.name!r}: policy = 'targets' needs targets_m3"
+            )
+        if unit.targets_m3 is not None and len(unit.targets_m3) != periods:
+            raise ScenarioError(
+                f"{where}: [[units]] #{n} {unit.name!r}: targets_m3 has "
+                f"{len(unit.targets_m3)} values for scenario.periods = {periods}"
             )
         out.append(unit)
     _names_once([u.name for u in out], "units", where)

@@ -58,31 +58,32 @@ def _sigmoid_guess(t: NDArray, v: NDArray) -> list[float]:
 
 
 def _stock_guess(t: NDArray, v: NDArray) -> list[float]:
-    """r, K, S0: the stock's growth rate from the time it takes, K above the largest volume,
-    S0 the smallest volume (at least 1% of K)."""
+    """r, K, S0 / K: the stock's growth rate from the time it takes, K above the largest
+    volume, S0 the smallest volume (at least 1% of K)."""
     k = 1.2 * v.max()
-    return [4.0 / t.mean(), k, max(float(v[np.argmin(t)]), 0.01 * k)]
+    return [4.0 / t.mean(), k, max(float(v[np.argmin(t)]) / k, 0.01)]
 
 
 def _stock_model(shape: str) -> Callable[..., NDArray]:
-    """volume(t, r, K, S0[, q]) of a stock shape, q = m / K for the shapes with a minimum viable
-    stock (so that the box bounds 0 < q < 1 keep m below K)."""
+    """volume(t, r, K, u[, q]) of a stock shape, with S0 = u K and m = q K, so that the box
+    bounds 0 < u <= 1 and 0 < q < 1 keep S0 and m where the scenario allows them."""
 
-    def fn(t: NDArray, r: float, k: float, s0: float, q: float | None = None) -> NDArray:
+    def fn(t: NDArray, r: float, k: float, u: float, q: float | None = None) -> NDArray:
         m = None if q is None else q * k
-        return stock.Trajectory(r, k, min(s0, k), m, points=2001, shape=shape)(t)
+        return stock.Trajectory(r, k, u * k, m, points=2001, shape=shape)(t)
 
     return fn
 
 
-def _with_m(p: NDArray) -> NDArray:
-    """(r, K, S0, q) -> (r, K, S0, m = q K)."""
-    return np.r_[p[:3], p[3] * p[1]]
+def _stock_keys(p: NDArray) -> NDArray:
+    """(r, K, u[, q]) -> (r, K, S0 = u K[, m = q K])."""
+    return np.r_[p[:2], p[2:] * p[1]]
 
 
 _STOCK_LOWER = (1e-6, 1e-6, 1e-9)
-_STOCK_UPPER = (5.0, np.inf, np.inf)
+_STOCK_UPPER = (5.0, np.inf, 1.0)
 _STOCK_KEYS = ("r", "capacity_m3_ha", "initial_m3_ha")
+_STOCK_FITTED = ("r", "capacity_m3_ha", "initial_share_of_capacity")
 
 FAMILIES: dict[str, Family] = {
     "chapman-richards": Family(
@@ -95,12 +96,18 @@ FAMILIES: dict[str, Family] = {
     "gompertz": Family(
         ("a", "b", "k"), gompertz_yield, _sigmoid_guess, (1e-9, 1e-9, 1e-6), (np.inf, 1e6, 5.0)
     ),
-    "stock-logistic": Family(
-        _STOCK_KEYS, _stock_model("logistic"), _stock_guess, _STOCK_LOWER, _STOCK_UPPER
-    ),
-    "stock-depensation": Family(
-        _STOCK_KEYS, _stock_model("depensation"), _stock_guess, _STOCK_LOWER, _STOCK_UPPER
-    ),
+    **{
+        f"stock-{shape}": Family(
+            _STOCK_KEYS,
+            _stock_model(shape),
+            _stock_guess,
+            _STOCK_LOWER,
+            _STOCK_UPPER,
+            _STOCK_FITTED,
+            _stock_keys,
+        )
+        for shape in ("logistic", "depensation")
+    },
     **{
         f"stock-{shape}": Family(
             (*_STOCK_KEYS, "min_viable_m3_ha"),
@@ -108,8 +115,8 @@ FAMILIES: dict[str, Family] = {
             lambda t, v: [*_stock_guess(t, v), 0.02],
             (*_STOCK_LOWER, 1e-9),
             (*_STOCK_UPPER, 1.0 - 1e-9),
-            (*_STOCK_KEYS, "min_viable_share_of_capacity"),
-            _with_m,
+            (*_STOCK_FITTED, "min_viable_share_of_capacity"),
+            _stock_keys,
         )
         for shape in ("minimum", "threshold")
     },

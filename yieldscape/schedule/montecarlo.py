@@ -38,7 +38,8 @@ def monte_carlo_table(
     chunks, each chunk's generator moved on to where its first replicate starts in that one
     sequence (:func:`_replicate_chunk`), so the table is the same.
     """
-    plain = replace(rules, snapshots=())
+    # the region's harvest replayed: with management units too (one regional target)
+    plain = replace(rules, snapshots=(), units=None)
     inputs = (targets, arrays, curves, periods, plain)
     if pool is None:
         h_arr, gs_arr = _replicates(np.random.default_rng(seed), replicates, *inputs)

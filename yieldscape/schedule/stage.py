@@ -99,7 +99,17 @@ def harvest_partitions(
     """The ``[[partitions]]`` over the stands' ``fields`` (None without any)."""
     if not scenario.partitions:
         return None
-    return partition_rules(scenario.partitions, fields, codes, where)
+    rules = partition_rules(scenario.partitions, fields, codes, where)
+    for k, spec in enumerate(scenario.partitions):
+        if not rules.member[:, :, k].any():
+            log.warning(
+                "%s: [[partitions]] %r selects no stand (where = %r; the unit field's values "
+                "are compared as text: unit == '1')",
+                where,
+                spec.name,
+                spec.where,
+            )
+    return rules
 
 
 @dataclass(frozen=True)
@@ -163,6 +173,8 @@ def schedule_run(
                     flow, lp, strata, s, c, p, f, f.policy, rules, search
                 )
             log.info("schedule: %s", order)
+    if rules.partitions is not None and flow.level_m3_per_period <= 0:
+        _no_harvest(flow, lp, search, rules, units is not None, p)
     openings = None
     if rules.spatial is not None:
         if f.method == "rules":
@@ -175,6 +187,24 @@ def schedule_run(
             flow.details["never_cut_harvestable_ha"] = arm.never_cut_area_ha(s, rules.spatial)
         openings = _openings(flow, p, rules, scenario.harvest.max_opening_ha)
     return Schedule(flow, rules, lp, openings, units)
+
+
+def _no_harvest(flow, lp, search, rules, with_units, periods) -> None:  # noqa: ANN001
+    """An input error where the partitions leave no harvest but one is found without them."""
+    if search(replace(rules, partitions=None, plan=None)).level_m3_per_period <= 0:
+        return
+    names = ", ".join(repr(n) for n in rules.partitions.names)
+    hint = (
+        " (with management units the rule-based search scales the units' levels found "
+        "without the partitions by one common factor, which cannot change the share one "
+        "unit takes; flow.method = 'optimize' lets the LP set them)"
+        if with_units and (lp is None or (lp.level_m3 or 0.0) > 0)
+        else ""
+    )
+    raise InputError(
+        f"[[partitions]] {names}: no schedule with a harvest keeps them; the level found is 0 "
+        f"m3/year ({flow.binding}){hint}"
+    )
 
 
 def _kept(sim: Simulation, rules: HarvestRules) -> None:
