@@ -28,6 +28,28 @@ SCENARIO = HERE.parent / "sample_region" / "scenario.toml"
 SEED = 11
 
 
+def write_slope(path: Path, x0: float, y0: float, extent: float, cells: int) -> None:
+    """A square slope raster [%] over (x0, y0) .. (x0 + extent, y0 + extent), EPSG:32633:
+    25 +- 20 in smooth waves, ``cells`` a side."""
+
+    yy = np.linspace(0, 6 * np.pi, cells, dtype=np.float32)
+    slope = (25 + 20 * np.sin(yy)[:, None] * np.cos(yy)[None, :]).astype(np.float32)
+    cell = extent / cells
+    with rasterio.open(
+        path,
+        "w",
+        driver="GTiff",
+        width=cells,
+        height=cells,
+        count=1,
+        dtype="float32",
+        crs="EPSG:32633",
+        tiled=True,
+        transform=from_origin(x0, y0 + extent, cell, cell),
+    ) as dst:
+        dst.write(slope, 1)
+
+
 def build(tmp: Path, n: int, segments: int, cells: int) -> tuple[Path, Path, Path]:
     rng = np.random.default_rng(SEED)
     side = 250.0
@@ -63,23 +85,8 @@ def build(tmp: Path, n: int, segments: int, cells: int) -> tuple[Path, Path, Pat
         crs="EPSG:32633",
     )
     pyogrio.write_dataframe(streams, gpkg, layer="streams", append=True, use_arrow=True)
-    cell = extent / cells
-    yy = np.linspace(0, 6 * np.pi, cells, dtype=np.float32)
-    slope = (25 + 20 * np.sin(yy)[:, None] * np.cos(yy)[None, :]).astype(np.float32)
     tif = tmp / "slope.tif"
-    with rasterio.open(
-        tif,
-        "w",
-        driver="GTiff",
-        width=cells,
-        height=cells,
-        count=1,
-        dtype="float32",
-        crs="EPSG:32633",
-        tiled=True,
-        transform=from_origin(x0, y0 + extent, cell, cell),
-    ) as dst:
-        dst.write(slope, 1)
+    write_slope(tif, x0, y0, extent, cells)
     return gpkg, tif, tmp
 
 
@@ -129,6 +136,9 @@ def main() -> None:
         )
         raw = tomllib.loads(SCENARIO.read_text())
         raw["inventory"].pop("from_raster", None)  # the sample's rasters cover the sample only
+        raw["inventory"]["fields"].pop("unit", None)  # the synthetic layer has no units
+        raw.pop("units", None)
+        raw.pop("partitions", None)
         raw["landbase"] = {"steps": []}
         for item in base:
             apply_override(raw, item)

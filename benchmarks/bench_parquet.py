@@ -122,9 +122,7 @@ def netdown_inputs(n: int, tmp: Path, parts: int) -> Path:
     """The region with area_ha as a dataset of ``parts`` files, the reserves and the slope
     raster beside it."""
     import geopandas as gpd
-    import rasterio
     import shapely
-    from rasterio.transform import from_origin
 
     paths = build(n, tmp, parts)
     for file in sorted(paths["dataset"].iterdir()):
@@ -144,20 +142,9 @@ def netdown_inputs(n: int, tmp: Path, parts: int) -> Path:
     )
     reserves.to_parquet(tmp / "reserves.parquet")
     cells = min(10_000, int(extent / 25))
-    yy = np.linspace(0, 6 * np.pi, cells, dtype=np.float32)
-    with rasterio.open(
-        tmp / "slope.tif",
-        "w",
-        driver="GTiff",
-        width=cells,
-        height=cells,
-        count=1,
-        dtype="float32",
-        crs="EPSG:32633",
-        tiled=True,
-        transform=from_origin(x0, y0 + extent, extent / cells, extent / cells),
-    ) as dst:
-        dst.write((25 + 20 * np.sin(yy)[:, None] * np.cos(yy)[None, :]).astype(np.float32), 1)
+    from bench_landbase import write_slope  # the same raster, beside this script
+
+    write_slope(tmp / "slope.tif", x0, y0, extent, cells)
     return paths["dataset"]
 
 

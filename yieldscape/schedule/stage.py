@@ -6,7 +6,7 @@ the LP-guided orders, and what the spatial rules cost and the openings they leav
 from __future__ import annotations
 
 import logging
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -174,7 +174,7 @@ def schedule_run(
                 )
             log.info("schedule: %s", order)
     if rules.partitions is not None and flow.level_m3_per_period <= 0:
-        _no_harvest(flow, lp, search, rules, units is not None, p)
+        _no_harvest(flow, lp, search, rules, units is not None)
     openings = None
     if rules.spatial is not None:
         if f.method == "rules":
@@ -189,8 +189,15 @@ def schedule_run(
     return Schedule(flow, rules, lp, openings, units)
 
 
-def _no_harvest(flow, lp, search, rules, with_units, periods) -> None:  # noqa: ANN001
+def _no_harvest(
+    flow: FlowResult,
+    lp: LPResult | None,
+    search: Callable[[HarvestRules], FlowResult],
+    rules: HarvestRules,
+    with_units: bool,
+) -> None:
     """An input error where the partitions leave no harvest but one is found without them."""
+    assert rules.partitions is not None
     if search(replace(rules, partitions=None, plan=None)).level_m3_per_period <= 0:
         return
     names = ", ".join(repr(n) for n in rules.partitions.names)
