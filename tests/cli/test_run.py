@@ -4,6 +4,7 @@ forest that shows it, and the committed sample region once, for what is about th
 import contextlib
 import io
 import json
+import re
 from pathlib import Path
 
 import numpy as np
@@ -108,6 +109,10 @@ def test_the_sample_runs_and_says_what_it_found(sample_run):
     log = (out / "run.log").read_text(encoding="utf-8")
     for line in ("read and check inventory done in", "project and schedule done in", "verdict:"):
         assert line in log
+    # no CSV field is a negative zero (a solver's -0.0 for an idle row or column)
+    for csv in sorted(out.glob("*.csv")):
+        text = csv.read_text(encoding="utf-8")
+        assert not re.search(r"(^|,)-0(\.0*)?(e[+-]?\d+)?(,|$)", text, re.M), csv.name
 
 
 def test_sample_keeps_its_spatial_rules_and_cover_targets(sample_run):

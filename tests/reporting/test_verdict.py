@@ -88,3 +88,17 @@ def test_a_forest_liquidated_by_a_too_high_target_is_not_and_the_period_is_named
     assert wf["meets_policy"].tolist() == [p < expected for p in range(1, 11)]
     html = (out / "report.html").read_text(encoding="utf-8")
     assert "Not sustainable" in html and f"first in period {expected}" in html
+
+
+def test_the_yield_check_without_a_long_term_sustained_yield_gives_no_share():
+    # no harvestable growth (LTSY 0): the check compares amounts, a share of 0 would be "inf%"
+    from yieldscape.reporting.indicators import _ltsy_check
+
+    wf = pd.DataFrame({"harvest_m3_per_year": [5.0, 0.0, 0.0]})
+    none = _ltsy_check(wf, 2, 0.0)
+    assert none.holds and "inf" not in none.detail and "against" in none.detail
+    some = _ltsy_check(pd.DataFrame({"harvest_m3_per_year": [0.0, 3.0, 1.0]}), 2, 0.0)
+    assert not some.holds and "2 m3/year" in some.detail and "inf" not in some.detail
+    assert some.period == 2  # the first of the last two periods over it
+    half = _ltsy_check(wf, 3, 10.0 / 3)  # mean 5/3 of 10/3: 50%
+    assert half.holds and "50% of" in half.detail

@@ -511,13 +511,15 @@ def _ltsy_check(wf: pd.DataFrame, k: int, ltsy_m3_per_year: float) -> Check:
     lt_mean = float(lt.mean())
     ok = lt_mean <= ltsy_m3_per_year * (1 + 1e-6)
     over = np.flatnonzero(lt > ltsy_m3_per_year * (1 + 1e-6))
-    share = lt_mean / ltsy_m3_per_year if ltsy_m3_per_year > 0 else float("inf")
+    if ltsy_m3_per_year > 0:
+        share = f"{100 * lt_mean / ltsy_m3_per_year:.0f}% of"
+    else:  # no harvestable land or growth: a share of nothing has no meaning
+        share = "against"
     return Check(
         "within_long_term_sustained_yield",
         bool(ok),
         f"the harvest of the last {k} periods, {lt_mean:,.0f} m3/year, is "
-        f"{100 * share:.0f}% of the long-term sustained yield of "
-        f"{ltsy_m3_per_year:,.0f} m3/year"
+        f"{share} the long-term sustained yield of {ltsy_m3_per_year:,.0f} m3/year"
         + ("" if ok else ", so it cannot be held beyond the horizon"),
         None if ok or not len(over) else int(P - k + over[0] + 1),
     )

@@ -1278,10 +1278,11 @@ def constraint_table(model: LPModel, x: NDArray, dual: NDArray, activity: NDArra
             "unit": [c.unit for c in rows],
             "period": np.array([c.period for c in rows], dtype=np.int64),
             "rhs_unit": [c.rhs_unit for c in rows],
-            "activity": value,
+            # + 0.0: a solver's -0.0 (an empty row, a zero dual) written as 0
+            "activity": value + 0.0,
             "lower": np.where(np.isfinite(lo), lo, np.nan),
             "upper": np.where(np.isfinite(hi), hi, np.nan),
-            "dual": d,
+            "dual": d + 0.0,
         }
     )
 
