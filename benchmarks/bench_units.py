@@ -185,7 +185,15 @@ def run_once(gpkg: Path, n: int, variant: str, out: Path) -> dict:
 
 def run_rounds(n: int, rounds: int, progress=print) -> dict:
     """``rounds`` rounds of the two variants, each run in a fresh process, alternating."""
+    import os
+
+    import yieldscape
+
     runs: dict[str, list[dict]] = {v: [] for v in RUN_VARIANTS}
+    # the children import the yieldscape this process imported (a worktree's, not an
+    # installed copy's)
+    root = str(Path(yieldscape.__file__).resolve().parents[1])
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join([root, os.environ.get("PYTHONPATH", "")])}
     with tempfile.TemporaryDirectory(dir=HERE) as tmp:
         gpkg = Path(tmp) / "region.gpkg"
         build_region(n, gpkg, units=3)
@@ -193,7 +201,7 @@ def run_rounds(n: int, rounds: int, progress=print) -> dict:
             for v in RUN_VARIANTS if r % 2 == 0 else RUN_VARIANTS[::-1]:
                 out = Path(tmp) / f"out-{v}-{r}"
                 cmd = [sys.executable, __file__, "--run-one", v, str(gpkg), str(n), str(out)]
-                proc = subprocess.run(cmd, capture_output=True, text=True, check=True)
+                proc = subprocess.run(cmd, capture_output=True, text=True, check=True, env=env)
                 row = json.loads(proc.stdout.strip().splitlines()[-1])
                 runs[v].append(row)
                 progress(
