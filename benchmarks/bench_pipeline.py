@@ -34,7 +34,9 @@ SEED = 7
 FLOOR_ROUNDS = 3
 
 
-def build_region(n: int, path: Path) -> None:
+def build_region(n: int, path: Path, units: int = 0) -> None:
+    """Write the synthetic region of ``n`` stands to ``path``; ``units`` > 0 adds a field
+    UNIT naming ``units`` management units, strips of stands by id (``u0``, ``u1``, ...)."""
     import geopandas as gpd
     import pyogrio
     import shapely
@@ -60,14 +62,21 @@ def build_region(n: int, path: Path) -> None:
         geometry=shapely.box(x, y, x + side, y + side),
         crs="EPSG:32633",
     )
+    if units:
+        frame["UNIT"] = np.char.add("u", (i * units // n).astype(str))
     pyogrio.write_dataframe(frame, path, layer="stands", driver="GPKG", use_arrow=True)
 
 
 def synthetic_scenario(gpkg: Path, n: int):
     """The sample scenario's species, curves and rules over a synthetic layer, no netdown."""
-    import tomllib
-
     from yieldscape.config import parse_scenario
+
+    return parse_scenario(synthetic_raw(gpkg, n), base_dir=SCENARIO.parent, where=str(SCENARIO))
+
+
+def synthetic_raw(gpkg: Path, n: int) -> dict:
+    """The TOML tables of :func:`synthetic_scenario`, to change before parsing."""
+    import tomllib
 
     raw = tomllib.loads(SCENARIO.read_text())
     raw["inventory"]["path"] = str(gpkg)
@@ -78,7 +87,7 @@ def synthetic_scenario(gpkg: Path, n: int):
     raw["harvest"] = {"priority": "oldest", "max_area_ha_per_period": n * 6.25 * 0.18}
     raw["flow"]["lp_bound"] = False
     raw["report"] = {"age_class_width_years": 20}  # figures, report, map layers; no rasters
-    return parse_scenario(raw, base_dir=SCENARIO.parent, where=str(SCENARIO))
+    return raw
 
 
 def floor_once(gpkg: Path) -> float:

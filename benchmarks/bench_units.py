@@ -17,12 +17,24 @@ and, on the stand arrays a run makes of it, times side by side in one process (m
 
 ``--clock cpu`` times the process's CPU seconds instead of the wall clock: on a machine other
 jobs share, what the search itself costs (it runs on one thread).
+
+``--run`` times the whole run instead, as a user makes it: the same region written once with a
+field UNIT (the three strips), and ``yieldscape.run`` with every output written on *single*
+(the scenario of ``bench_pipeline.py``) and on *both* (the same with ``unit = "UNIT"``, three
+``[[units]]`` and the two partitions as ``where`` rules), each run in a fresh process, the two
+alternating; the wall and CPU seconds of ``yieldscape.run`` (CPU: the process's and its
+children's, the figures' helper included), the stages of run.json, medians of the rounds:
+
+    python benchmarks/bench_units.py --run --sizes 100000 --rounds 5 --markdown
 """
 
 from __future__ import annotations
 
 import argparse
+import json
+import resource
 import statistics
+import subprocess
 import sys
 import tempfile
 import time
@@ -34,7 +46,7 @@ import numpy as np
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 
-from bench_pipeline import build_region, synthetic_scenario  # noqa: E402
+from bench_pipeline import SCENARIO, build_region, synthetic_raw, synthetic_scenario  # noqa: E402
 from bench_search import model  # noqa: E402
 
 VARIANTS = ("single", "units", "partitions", "both")
@@ -105,13 +117,161 @@ def one_size(n: int, rounds: int, clock=time.perf_counter) -> dict:
     return row
 
 
+# --run: the whole run, single flow against three units and two partitions
+RUN_VARIANTS = ("single", "both")
+UNIT_NAMES = ("u0", "u1", "u2")  # bench_pipeline.build_region(units=3): strips by stand id
+PARTITIONS = (  # bench_units' two, as the scenario's where rules
+    {"name": "spruce", "where": "species in ['spruce', 'spruce_planted']", "min_share": 0.3},
+    {"name": "old", "where": "AGE > 100", "max_share": 0.6},
+)
+STAGES = (
+    "read and check inventory",
+    "project and schedule",
+    "build output tables",
+    "indicators",
+    "write outputs",
+)
+
+
+def run_scenario(gpkg: Path, n: int, variant: str):
+    """The scenario of ``bench_pipeline.py`` (*single*) or with the units and partitions."""
+    from yieldscape.config import parse_scenario
+
+    raw = synthetic_raw(gpkg, n)
+    if variant == "both":
+        raw["inventory"]["fields"]["unit"] = "UNIT"
+        raw["units"] = [
+            {"name": u, "policy": "even", "band": 0.1, "ending_stock": 1.0} for u in UNIT_NAMES
+        ]
+        raw["partitions"] = [dict(p) for p in PARTITIONS]
+    return parse_scenario(raw, base_dir=SCENARIO.parent, where=str(SCENARIO))
+
+
+def _cpu_s() -> float:
+    """CPU seconds of this process and of its children that have been waited for."""
+    return sum(
+        u.ru_utime + u.ru_stime
+        for u in (
+            resource.getrusage(resource.RUSAGE_SELF),
+            resource.getrusage(resource.RUSAGE_CHILDREN),
+        )
+    )
+
+
+def run_once(gpkg: Path, n: int, variant: str, out: Path) -> dict:
+    """One ``yieldscape.run`` of ``variant`` writing into ``out``: seconds, stages, level."""
+    import pandas as pd
+
+    import yieldscape
+
+    scn = run_scenario(gpkg, n, variant)
+    wall0, cpu0 = time.perf_counter(), _cpu_s()
+    result = yieldscape.run(scn, out)
+    wall, cpu = time.perf_counter() - wall0, _cpu_s() - cpu0
+    stages = json.loads((out / "run.json").read_text())["timings_s"]
+    row = {"wall_s": wall, "cpu_s": cpu, "steps": result.flow.steps}
+    row.update({s: stages[s] for s in STAGES})
+    if variant == "both":  # what the run wrote: three units, two partitions kept every period
+        units = pd.read_csv(out / "management_units.csv")
+        parts = pd.read_csv(out / "partitions.csv")
+        row["units"] = sorted(units["unit"].astype(str))
+        row["partitions"] = sorted(parts["partition"].unique())
+        row["partitions_hold"] = bool(parts["holds"].all())
+        row["level_m3_per_year"] = float(units["level_m3_per_year"].sum())
+    else:
+        row["level_m3_per_year"] = result.level_m3_per_year
+    return row
+
+
+def run_rounds(n: int, rounds: int, progress=print) -> dict:
+    """``rounds`` rounds of the two variants, each run in a fresh process, alternating."""
+    import os
+
+    import yieldscape
+
+    runs: dict[str, list[dict]] = {v: [] for v in RUN_VARIANTS}
+    # the children import the yieldscape this process imported (a worktree's, not an
+    # installed copy's)
+    root = str(Path(yieldscape.__file__).resolve().parents[1])
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join([root, os.environ.get("PYTHONPATH", "")])}
+    with tempfile.TemporaryDirectory(dir=HERE) as tmp:
+        gpkg = Path(tmp) / "region.gpkg"
+        build_region(n, gpkg, units=3)
+        for r in range(rounds):
+            for v in RUN_VARIANTS if r % 2 == 0 else RUN_VARIANTS[::-1]:
+                out = Path(tmp) / f"out-{v}-{r}"
+                cmd = [sys.executable, __file__, "--run-one", v, str(gpkg), str(n), str(out)]
+                proc = subprocess.run(cmd, capture_output=True, text=True, check=True, env=env)
+                row = json.loads(proc.stdout.strip().splitlines()[-1])
+                runs[v].append(row)
+                progress(
+                    f"round {r + 1} {v:>6}: wall {row['wall_s']:.2f} s, CPU {row['cpu_s']:.2f} s, "
+                    f"project+schedule {row['project and schedule']:.2f} s "
+                    f"({row['steps']} trials), level {row['level_m3_per_year']:,.0f} m3/year"
+                )
+    got = runs["both"][-1]
+    if got["units"] != list(UNIT_NAMES) or got["partitions"] != sorted(
+        p["name"] for p in PARTITIONS
+    ):
+        raise SystemExit(f"the both run wrote units {got['units']}, partitions {got['partitions']}")
+    summary: dict = {"stands": n, "rounds": rounds, "partitions_hold": got["partitions_hold"]}
+    for v, rows in runs.items():
+        summary[v] = {
+            k: statistics.median(row[k] for row in rows)
+            for k in ("wall_s", "cpu_s", "steps", "level_m3_per_year", *STAGES)
+        }
+    for k in ("wall_s", "cpu_s", *STAGES):  # each round's both / single, median over rounds
+        summary[f"ratio_{k}"] = statistics.median(
+            b[k] / s[k] for b, s in zip(runs["both"], runs["single"], strict=True)
+        )
+    return summary
+
+
+def print_run_markdown(s: dict) -> None:
+    print(
+        "\n| variant | wall s | CPU s | read + check s | project + schedule s | tables s | "
+        "indicators s | write s | trials | level m3/year |"
+    )
+    print("|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|")
+    for v in RUN_VARIANTS:
+        r = s[v]
+        print(
+            f"| {v} | {r['wall_s']:.2f} | {r['cpu_s']:.2f} | "
+            + " | ".join(f"{r[k]:.2f}" for k in STAGES)
+            + f" | {r['steps']:.0f} | {r['level_m3_per_year']:,.0f} |"
+        )
+    print(
+        "| both / single | "
+        + " | ".join(f"{s[f'ratio_{k}']:.2f}x" for k in ("wall_s", "cpu_s", *STAGES))
+        + " | | |"
+    )
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--sizes", type=int, nargs="+", default=[100_000])
     ap.add_argument("--rounds", type=int, default=3)
     ap.add_argument("--markdown", action="store_true")
     ap.add_argument("--clock", choices=sorted(CLOCKS), default="wall")
+    ap.add_argument("--run", action="store_true", help="time the whole run (single vs both)")
+    ap.add_argument("--run-one", nargs=4, help=argparse.SUPPRESS)  # child: variant gpkg n out
     args = ap.parse_args()
+    if args.run_one:
+        v, gpkg, n, out = args.run_one
+        print(json.dumps(run_once(Path(gpkg), int(n), v, Path(out))))
+        return
+    if args.run:
+        for n in args.sizes:
+            s = run_rounds(n, args.rounds, progress=lambda m: print(m, flush=True))
+            print(
+                f"{n:,} stands, medians of {args.rounds} rounds: both / single wall "
+                f"{s['ratio_wall_s']:.2f}x, CPU {s['ratio_cpu_s']:.2f}x; partitions hold "
+                f"in every period: {s['partitions_hold']}",
+                flush=True,
+            )
+            if args.markdown:
+                print_run_markdown(s)
+        return
     rows = [one_size(n, args.rounds, CLOCKS[args.clock]) for n in args.sizes]
     for r in rows:
         print(

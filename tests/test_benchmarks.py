@@ -91,3 +91,22 @@ def test_parallel_benchmark_builds_eight_cases_and_times_the_replicates(bench, t
     assert len(scn.sensitivity) == 8 and scn.disturbance.replicates == 0
     row = bench_parallel.one_run(gpkg, 300, "replicates", None, 4)  # serial: no cluster here
     assert row["mc_s"] > 0 and row["wall_s"] > row["mc_s"] and set(row["tables"]) == {"monte_carlo"}
+
+
+def test_units_benchmark_runs_both_variants_with_three_units_and_two_partitions(bench):
+    sys.path.insert(0, str(BENCH))
+    try:
+        import bench_units
+    finally:
+        sys.path.remove(str(BENCH))
+    # the run mode reads management_units.csv and partitions.csv back (it stops unless they
+    # name the three units and the two partitions)
+    s = bench_units.run_rounds(300, 1, progress=lambda line: None)
+    assert s["partitions_hold"]
+    for v in bench_units.RUN_VARIANTS:
+        assert s[v]["wall_s"] > s[v]["project and schedule"] > 0 and s[v]["cpu_s"] > 0
+    assert s["ratio_cpu_s"] == pytest.approx(s["both"]["cpu_s"] / s["single"]["cpu_s"])
+    # the 'old' partition's cap (at most 60% of each period's harvest from the stands older than
+    # 100 years, about half the region's stands, which the oldest-first order cuts first)
+    # holds the regional level down
+    assert s["both"]["level_m3_per_year"] < s["single"]["level_m3_per_year"]

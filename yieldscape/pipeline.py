@@ -35,7 +35,7 @@ from yieldscape.projection import (
     CurveSet,
     Periods,
     StandArrays,
-    long_term_sustained_yield,
+    SustainedYield,
     regulated_growing_stock_m3,
     zone_codes,
     zone_names,
@@ -317,7 +317,6 @@ def _tables(
         regeneration=released(regeneration_table(flow, c.codes)),
         products=released(wood_flow_by_product(flow, s, c, scenario)),
         write_harvestable_layer=scenario.landbase.write_harvestable_layer,
-        long_term_sustained_yield=long_term_sustained_yield(c, s, scenario.growth.search()),
         openings=sched.openings,
     )
 
@@ -327,7 +326,8 @@ def _indicators(scenario: Scenario, model: _Model, sched: Schedule, result: RunR
     flow, s, p, stands = sched.flow, model.arrays, model.periods, result.inventory.stands
     area = s.cuttable_ha
     regulated = regulated_growing_stock_m3(model.curves, s, area)
-    ltsy = result.long_term_sustained_yield
+    sustained = SustainedYield.of(model.curves, s, scenario.growth.search())  # units: its sums
+    ltsy = result.long_term_sustained_yield = sustained.over(area)
     long_term = stable_periods_for(p, scenario.flow.long_term_periods)
     wf = result.wood_flow
     verdict = judge(wf, flow, scenario, ltsy["at_culmination"], regulated, long_term, result.cover)
@@ -341,7 +341,7 @@ def _indicators(scenario: Scenario, model: _Model, sched: Schedule, result: RunR
         sched.rules.partitions,
         sched.lp,
         scenario,
-        (s, model.curves, p),
+        (s, model.curves, p, sustained),
         long_term,
         wf,
     )

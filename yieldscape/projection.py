@@ -387,24 +387,34 @@ def _zones(stands: pd.DataFrame) -> tuple[NDArray[np.int64], list[str]]:
     return lookup[factor], names
 
 
-def long_term_sustained_yield(
-    curves: CurveSet, arrays: StandArrays, search: Search
-) -> dict[str, float]:
-    """Harvestable area times MAI of total yield (final felling plus thinnings), summed over
-    stands [m3/year], on the curves the land regrows into in the long run
-    (:func:`long_run_codes`): at each code's MAI culmination, and at its minimum harvest age
-    (the rotation the rules use)."""
-    area = arrays.cuttable_ha
-    at_cul = np.zeros(arrays.n)
-    at_rot = np.zeros(arrays.n)
-    for j, share, r in long_run_codes(arrays):  # per code; per distinct site inside
-        mine = share > 0
-        at_cul[mine] += share[mine] * max_mai(curves.curves[j], arrays.site_index[mine], search)
-        ok = mine & np.isfinite(r) & (r > 0)
-        code = np.full(int(ok.sum()), j)
-        gross = curves.volume_m3_ha(code, r[ok], arrays.site_index[ok])
-        at_rot[ok] += share[ok] * gross / r[ok]
-    return {
-        "at_culmination": float(np.dot(area, at_cul)),
-        "at_min_harvest_age": float(np.dot(area, at_rot)),
-    }
+@dataclass(frozen=True)
+class SustainedYield:
+    """Each stand's long-term sustained yield per hectare [m3/ha/year]: the MAI of total yield
+    (final felling plus thinnings) on the curves the land regrows into in the long run
+    (:func:`long_run_codes`), at each code's MAI culmination and at its minimum harvest age
+    (the rotation the rules use). Worked out once for the region (a root search per code and
+    distinct site) and summed over the harvestable areas of the region or of any part of it
+    (:meth:`over`, a management unit's)."""
+
+    at_culmination_m3_ha: NDArray[np.float64]
+    at_min_harvest_age_m3_ha: NDArray[np.float64]
+
+    @classmethod
+    def of(cls, curves: CurveSet, arrays: StandArrays, search: Search) -> SustainedYield:
+        at_cul = np.zeros(arrays.n)
+        at_rot = np.zeros(arrays.n)
+        for j, share, r in long_run_codes(arrays):  # per code; per distinct site inside
+            mine = share > 0
+            at_cul[mine] += share[mine] * max_mai(curves.curves[j], arrays.site_index[mine], search)
+            ok = mine & np.isfinite(r) & (r > 0)
+            code = np.full(int(ok.sum()), j)
+            gross = curves.volume_m3_ha(code, r[ok], arrays.site_index[ok])
+            at_rot[ok] += share[ok] * gross / r[ok]
+        return cls(at_cul, at_rot)
+
+    def over(self, area_ha: NDArray) -> dict[str, float]:
+        """The sustained yields [m3/year] of stands with these harvestable areas [ha]."""
+        return {
+            "at_culmination": float(np.dot(area_ha, self.at_culmination_m3_ha)),
+            "at_min_harvest_age": float(np.dot(area_ha, self.at_min_harvest_age_m3_ha)),
+        }

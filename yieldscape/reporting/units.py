@@ -16,7 +16,7 @@ from yieldscape.projection import (
     CurveSet,
     Periods,
     StandArrays,
-    long_term_sustained_yield,
+    SustainedYield,
     regulated_growing_stock_m3,
 )
 from yieldscape.reporting.indicators import Verdict, judge
@@ -97,17 +97,18 @@ def unit_table(
     curves: CurveSet,
     long_term: int,
     lp: LPResult | None,
+    sustained: SustainedYield,
 ) -> tuple[pd.DataFrame, list[Verdict]]:
     """One row per management unit: its flow, its growing stock, its long-term sustained
-    yield and its verdict (the region's checks on the unit's own wood flow,
+    yield (``sustained``: the region's per hectare, summed over the unit's harvestable area)
+    and its verdict (the region's checks on the unit's own wood flow,
     :func:`~yieldscape.reporting.indicators.judge`), and the verdicts."""
     rows, verdicts = [], []
     L = scenario.scenario.period_years
-    search = scenario.growth.search()
     for u, ((flow, wf), pol) in enumerate(zip(per_unit, units.policies, strict=True)):
         mine = units.of_stand == u
         area = np.where(mine, arrays.cuttable_ha, 0.0)
-        ltsy = long_term_sustained_yield(curves, replace(arrays, harvestable_ha=area), search)
+        ltsy = sustained.over(area)
         regulated = regulated_growing_stock_m3(curves, arrays, area)
         flow_keys = replace(scenario.flow, policy=pol.policy, ending_stock=pol.ending_stock)
         v = judge(
@@ -269,18 +270,19 @@ def unit_outputs(
     partitions: PartitionRules | None,
     lp: LPResult | None,
     scenario: Scenario,
-    model: tuple[StandArrays, CurveSet, Periods],
+    model: tuple[StandArrays, CurveSet, Periods, SustainedYield],
     long_term: int,
     wood_flow: pd.DataFrame,
 ) -> UnitOutputs:
-    """Every table of :class:`UnitOutputs` the run has."""
-    arrays, curves, periods = model
+    """Every table of :class:`UnitOutputs` the run has (``model``: the stand arrays, curves,
+    periods and the stands' long-term sustained yields per hectare, the units' sums of them)."""
+    arrays, curves, periods, sustained = model
     out = UnitOutputs()
     if units is not None:
         per_unit = unit_flows(flow, units, periods, lp)
         out.wood_flow = pd.concat([wf for _, wf in per_unit], ignore_index=True)
         out.units, out.verdicts = unit_table(
-            per_unit, units, scenario, arrays, curves, long_term, lp
+            per_unit, units, scenario, arrays, curves, long_term, lp, sustained
         )
     if partitions is not None:
         out.partitions = partition_table(flow, partitions, periods, wood_flow)

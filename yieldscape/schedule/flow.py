@@ -87,7 +87,7 @@ def find_even_flow(
     """
     start = start if start is not None else Start.of(stands, curves)  # the same for every trial
 
-    def trial(level: float, record: bool = False) -> Simulation:
+    def trial(level: float, record: bool = False, stop: bool = False) -> Simulation:
         rule = Sequence(fixed, level) if fixed else EvenFlow(level, band)
         return simulate(
             stands,
@@ -99,6 +99,7 @@ def find_even_flow(
             stable_periods=stable_periods,
             record=record,
             start=start,
+            stop_early=stop or None,
         )
 
     # U: what the first free period could yield if every eligible stand were cut, within the
@@ -160,7 +161,7 @@ def least_partition(rules: HarvestRules) -> str:
 
 def _narrow(
     bracket: _Bracket,
-    trial: Callable[[float, bool], Simulation],
+    trial: Callable[[float, bool, bool], Simulation],
     margin: _Margin,
     period_years: float,
     steps: int,
@@ -175,9 +176,12 @@ def _narrow(
     final = None
     while bracket.hi - bracket.lo > tol(bracket.lo) and steps < MAX_STEPS:
         level, below = bracket.next_level(tol(bracket.lo))
-        # a level expected to hold and to close the bracket is recorded: the run to keep
-        last = record and below and bracket.hi - level <= tol(level)
-        sim = trial(level, last)
+        # a level expected to hold and to close the bracket is recorded: the run to keep;
+        # so is one that closes it from above a broken partition if it holds (as likely to
+        # fail as to hold so near the limit: it stops at a miss, as an unrecorded trial does)
+        beyond = bracket.hi in bracket.beyond
+        last = record and (below or beyond) and bracket.hi - level <= tol(level)
+        sim = trial(level, last, last and beyond)
         steps += 1
         bracket.add(level, margin(sim), sim)
         final = sim if last and sim.feasible else None

@@ -375,10 +375,19 @@ class _Parts:
     def stocks(self, curves: CurveSet, reg: Regimes | None) -> tuple[float, float]:
         """Growing stock [m3] of all parts and of those on the harvestable land base, from
         one reading of the curves."""
+        total, hlb, _ = self.stocks_and_parts(curves, reg, False)
+        return total, hlb
+
+    def stocks_and_parts(
+        self, curves: CurveSet, reg: Regimes | None, per_part: bool = True
+    ) -> tuple[float, float, NDArray | None]:
+        """:meth:`stocks` and, with ``per_part``, each part's growing stock [m3] (the values
+        of :meth:`unit_stocks`), from the same reading of the curves."""
         gross_ha = curves.volume_m3_ha(self.sp, self.age, terms=self.si)
         total = area_sum(gross_ha, self.area)
         idx = np.flatnonzero(self.in_hlb)
         v = gross_ha[idx]
+        standing = gross_ha
         if reg is not None and reg.thins:
             if (self.age < self.thinned_to).any():
                 taken = self.removed(np.arange(len(self.age)), self.age)
@@ -386,7 +395,9 @@ class _Parts:
                 taken = self.thin_taken
             total -= area_sum(taken, self.area)
             v -= taken[idx]
-        return total, area_sum(v, self.area[idx])
+            standing = gross_ha - taken if per_part else gross_ha
+        parts_m3 = standing * self.area if per_part else None
+        return total, area_sum(v, self.area[idx]), parts_m3
 
     def unit_stocks(self, curves: CurveSet, reg: Regimes | None) -> NDArray:
         """Growing stock [m3] of each part (management units sum it by unit)."""
@@ -1314,22 +1325,42 @@ def simulate(
             out.dist_ha[p], out.dist_m3[p] = _disturb(
                 parts, curves, reg, rules.disturbance, L, n_before, cut.full, rng, stands.n
             )
-        if record and book is not None:
-            book.stock(parts, curves, reg)
         if record or p == P - 1 or p + 1 == P - stable_periods:
-            total, hlb_stock = parts.stocks(curves, reg)
-            if record or p == P - 1:
-                out.gs_end[p] = total
-            if p == P - 1:
-                sim.ending_stock_m3, sim.ending_hlb_stock_m3 = total, hlb_stock
+            hlb_stock = _period_stocks(sim, out, book, parts, curves, reg, p, record, p == P - 1)
     if book is None:
         _judge_end(sim, ending_stock, stable_periods, out.hlb_start, P)
     else:
-        book.judge_end(sim, parts, parts.unit_stocks(curves, reg))
+        book.judge_end(sim, parts, curves, reg)
     if P in kept_at:
         sim.snapshots[P] = parts.snapshot()
     out.fill(sim, parts if record else None)
     return sim
+
+
+def _period_stocks(
+    sim: Simulation,
+    out: _Totals,
+    book: _UnitBook | None,
+    parts: _Parts,
+    curves: CurveSet,
+    reg: Regimes | None,
+    p: int,
+    record: bool,
+    last: bool,
+) -> float:
+    """The growing stock at the end of period p, kept where the run is recorded or the
+    period is the ``last``; with units each part's from the same reading of the curves, for
+    the book (a recorded period's stocks per unit, the last period's to judge the units'
+    ending stocks). Returns the stock on the harvestable land base [m3]."""
+    per_part = book is not None and (record or last)
+    total, hlb, part_m3 = parts.stocks_and_parts(curves, reg, per_part)
+    if book is not None and part_m3 is not None:
+        book.stock(parts, part_m3, record, last)
+    if record or last:
+        out.gs_end[p] = total
+    if last:
+        sim.ending_stock_m3, sim.ending_hlb_stock_m3 = total, hlb
+    return hlb
 
 
 @dataclass
@@ -1353,6 +1384,8 @@ class _UnitBook:
     hlb_end: list[NDArray] = field(default_factory=list)
     # the unit of each part so far (parts are only appended and keep their stand)
     _of_parts: NDArray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    # each part's growing stock at the end of the horizon [m3], booked by the last period
+    _end_m3: NDArray | None = None
 
     def of_parts(self, stand: NDArray) -> NDArray:
         """The unit of each part (``stand``: the parts' stands), the new parts' looked up."""
@@ -1408,9 +1441,14 @@ class _UnitBook:
             hlb,
         )
 
-    def stock(self, parts: _Parts, curves: CurveSet, reg: Regimes | None) -> None:
-        """Book each unit's growing stock at the end of a recorded period."""
-        v = parts.unit_stocks(curves, reg)
+    def stock(self, parts: _Parts, v: NDArray, record: bool, last: bool) -> None:
+        """Book each unit's growing stock at the end of a ``record``-ed period, and keep
+        each part's at the end of the ``last`` (``v``: each part's [m3],
+        :meth:`_Parts.unit_stocks`)."""
+        if last:
+            self._end_m3 = v
+        if not record:
+            return
         u = self.of_parts(parts.stand)
         self.stock_end.append(np.bincount(u, v, self.n))
         self.hlb_end.append(np.bincount(u, np.where(parts.in_hlb, v, 0.0), self.n))
@@ -1445,10 +1483,13 @@ class _UnitBook:
                     _broke(sim, p, cut)
         return all(self.reasons)
 
-    def judge_end(self, sim: Simulation, parts: _Parts, stocks: NDArray) -> None:
+    def judge_end(
+        self, sim: Simulation, parts: _Parts, curves: CurveSet, reg: Regimes | None
+    ) -> None:
         """A unit that met every floor fails if its ending stock is below its share of its
-        initial stock (``stocks``: of the parts at the end); the horizon's figures per unit
-        into ``sim``."""
+        initial stock (the parts' at the end: booked by the last period, else read, the run
+        having stopped before it); the horizon's figures per unit into ``sim``."""
+        stocks = self._end_m3 if self._end_m3 is not None else parts.unit_stocks(curves, reg)
         ending = np.bincount(self.of_parts(parts.stand), stocks, self.n)
         low = ending < self.ending_stock * self.initial * (1 - _REL)
         for u in np.flatnonzero(low):
