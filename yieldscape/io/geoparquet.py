@@ -117,10 +117,15 @@ def iter_partitions(path: Path, what: str = "stand layer") -> Iterator[gpd.GeoDa
                 first_crs = frame.crs
             elif frame.crs != first_crs:
                 raise InventoryError(
-                    f"{file}: its CRS ({frame.crs}) is not that of {files[0].name} "
-                    f"({first_crs}); the partitions of a dataset share one CRS"
+                    f"{file}: its CRS ({_crs_name(frame.crs)}) is not that of {files[0].name} "
+                    f"({_crs_name(first_crs)}); the partitions of a dataset share one CRS"
                 )
             yield frame
+
+
+def _crs_name(crs: pyproj.CRS | None) -> str | None:
+    """A CRS as its authority code where it has one (its PROJJSON is pages long)."""
+    return crs if crs is None else crs.to_string()
 
 
 # GeoParquet 1.1 native (GeoArrow) encodings: shapely's type and the depth of list nesting
