@@ -7,11 +7,11 @@ partition); hive-style folder names (``region=north/``) are not read as columns.
 
 from __future__ import annotations
 
+import functools
 import json
 import os
 from collections.abc import Iterator
 from concurrent.futures import ThreadPoolExecutor
-from functools import partial
 from pathlib import Path
 
 import geopandas as gpd
@@ -185,9 +185,8 @@ def _to_frame(file: Path, table: pa.Table | None, geo: dict, what: str) -> gpd.G
         at = list(table.slice(0, 0).to_pandas().columns).index(column)
         frame = table.drop_columns([column]).to_pandas()
         geometry = _geometry(table.column(column), meta["encoding"])
-        crs = meta.get("crs", "OGC:CRS84")  # GeoParquet: no key is OGC:CRS84, null unknown
-        if isinstance(crs, dict):
-            crs = _without_member_ids(crs)
+        # GeoParquet: no "crs" key is OGC:CRS84, null an unknown CRS
+        crs = _crs(json.dumps(meta.get("crs", "OGC:CRS84"), sort_keys=True))
         frame.insert(at, column, from_shapely(geometry, crs=crs))
         attrs = (table.schema.metadata or {}).get(b"PANDAS_ATTRS")  # geopandas' to_parquet
         if attrs:
@@ -210,7 +209,7 @@ def _geometry(column: pa.ChunkedArray, encoding: str) -> np.ndarray:
         parts = [shapely.from_wkb(c.to_numpy(zero_copy_only=False)) for c in chunks]
     elif THREADS > 1 and len(chunks) > 1:
         with ThreadPoolExecutor(THREADS) as pool:
-            parts = list(pool.map(partial(_from_geoarrow, encoding=encoding), chunks))
+            parts = list(pool.map(functools.partial(_from_geoarrow, encoding=encoding), chunks))
     else:
         parts = [_from_geoarrow(c, encoding) for c in chunks]
     return np.concatenate(parts)
@@ -252,10 +251,19 @@ def _has_nulls(column: pa.ChunkedArray, encoding: str) -> bool:
     return False
 
 
+@functools.lru_cache(maxsize=8)
+def _crs(text: str) -> pyproj.CRS | None:
+    """The CRS of a file's metadata (JSON text), parsed once for all the partitions of a
+    dataset: pyproj takes about 40 ms to parse a PROJJSON CRS."""
+    crs = json.loads(text)
+    if isinstance(crs, dict):
+        crs = _without_member_ids(crs)
+    return None if crs is None else pyproj.CRS.from_user_input(crs)
+
+
 def _without_member_ids(crs: dict) -> dict:
     """A PROJJSON CRS without the ids of datum ensemble members, which older PROJ databases
     do not know (as geopandas and GDAL read it: GDAL pull request 5872)."""
-    crs = json.loads(json.dumps(crs))
 
     def drop(node: object) -> None:
         if isinstance(node, dict):
