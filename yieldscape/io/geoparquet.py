@@ -226,8 +226,9 @@ def _from_geoarrow(array: pa.Array, encoding: str) -> np.ndarray:
         offsets.insert(0, (off - off[0]).astype(np.int64))
         level = level.flatten()  # takes the slice, where .values would give the whole child
     if pa.types.is_struct(level.type):  # separated coordinates (GeoParquet 1.1)
-        fields = [np.asarray(level.field(k)) for k in range(level.type.num_fields)]
-        coords = np.column_stack(fields)
+        # by name, as geopandas takes them: x and y, and z where there are more fields
+        names = "xy" if level.type.num_fields == 2 else "xyz"
+        coords = np.column_stack([np.asarray(level.field(k)) for k in names])
     else:  # interleaved: fixed-size lists of 2 or 3 doubles
         coords = np.asarray(level.flatten()).reshape(len(level), level.type.list_size)
     return shapely.from_ragged_array(kind, coords, tuple(offsets) or None)
