@@ -40,6 +40,10 @@ from pathlib import Path
 import numpy as np
 
 HERE = Path(__file__).resolve().parent
+# the yieldscape of this checkout, whichever one is installed (the files written here by our
+# writer must come from the reader's own checkout)
+if str(HERE.parent) not in sys.path:
+    sys.path.insert(0, str(HERE.parent))
 FORMATS = ("gpkg", "parquet", "dataset", "parquet_native", "dataset_native")
 FORMATS += ("parquet_native_1thread", "gpkg_overlap", "gpkg_no_arrow")  # not used by a run
 
