@@ -3,9 +3,11 @@ partition (national scale).
 
 *read*: the synthetic region of bench_pipeline.py (square 6.25 ha stands with five attributes)
 written once as a GeoPackage (pyogrio, Arrow), one GeoParquet file and a partitioned dataset
-of eight files (geopandas); then each is read through ``yieldscape.io.vector.read_layer`` (the
-run's reader) in a fresh process, the three alternating for ``--rounds`` rounds; medians of
-the read times (imports excluded) and of the processes' peak RSS.
+of eight files (geopandas, WKB), and that file and dataset again through our writer (the
+native polygon encoding of GeoParquet 1.1); then each is read through
+``yieldscape.io.vector.read_layer`` (the run's reader) in a fresh process, the formats
+alternating for ``--rounds`` rounds; medians of the read times (imports excluded) and of
+the processes' peak RSS.
 
 *netdown*: the same region with ``area_ha`` as a partitioned dataset, netted down by a rock
 rule, buffered reserve discs, a slope raster and a percent step: once in memory
@@ -38,7 +40,12 @@ from pathlib import Path
 import numpy as np
 
 HERE = Path(__file__).resolve().parent
-FORMATS = ("gpkg", "parquet", "dataset", "gpkg_no_arrow")
+# the yieldscape of this checkout, whichever one is installed (the files written here by our
+# writer must come from the reader's own checkout)
+if str(HERE.parent) not in sys.path:
+    sys.path.insert(0, str(HERE.parent))
+FORMATS = ("gpkg", "parquet", "dataset", "parquet_native", "dataset_native")
+FORMATS += ("parquet_native_1thread", "gpkg_overlap", "gpkg_no_arrow")  # not used by a run
 
 
 def _rss_gb() -> float:
@@ -51,39 +58,89 @@ def _rss_gb() -> float:
 
 
 def build(n: int, tmp: Path, parts: int) -> dict[str, Path]:
-    """The region as a GeoPackage, one GeoParquet file and a dataset of ``parts`` files."""
+    """The region as a GeoPackage, one GeoParquet file and a dataset of ``parts`` files
+    written by geopandas (WKB geometry, what most writers write), and the same file and
+    dataset written by our writer (``write_geoparquet``: the native polygon encoding)."""
     import pyogrio
+
+    from yieldscape.io.geoparquet import write_geoparquet
 
     sys.path.insert(0, str(HERE))
     from bench_pipeline import build_region
 
     paths = {"gpkg": tmp / "region.gpkg", "parquet": tmp / "region.parquet"}
-    paths["gpkg_no_arrow"] = paths["gpkg"]
+    paths["gpkg_no_arrow"] = paths["gpkg_overlap"] = paths["gpkg"]
     paths["dataset"] = tmp / "region"
+    paths["parquet_native"] = paths["parquet_native_1thread"] = tmp / "native.parquet"
+    paths["dataset_native"] = tmp / "native"
     build_region(n, paths["gpkg"])
     frame = pyogrio.read_dataframe(paths["gpkg"], layer="stands", use_arrow=True)
     frame.to_parquet(paths["parquet"])
+    write_geoparquet(paths["parquet_native"], frame)
     paths["dataset"].mkdir()
+    paths["dataset_native"].mkdir()
     ends = np.linspace(0, n, parts + 1).astype(int)
     for k in range(parts):
-        frame.iloc[ends[k] : ends[k + 1]].to_parquet(paths["dataset"] / f"part-{k:03d}.parquet")
+        part = frame.iloc[ends[k] : ends[k + 1]]
+        part.to_parquet(paths["dataset"] / f"part-{k:03d}.parquet")
+        write_geoparquet(paths["dataset_native"] / f"part-{k:03d}.parquet", part)
     return paths
 
 
 def read_once(path: Path, how: str) -> dict:
-    """Child process: read the layer as a run does (``gpkg_no_arrow``: the GeoPackage through
-    pyogrio without Arrow, for scale); seconds and peak RSS."""
+    """Child process: read the layer as a run does, or one of the variants for scale that the
+    run does not use (``gpkg_no_arrow``: pyogrio without Arrow; ``gpkg_overlap``: the
+    GeoPackage's Arrow batches read by GDAL on a thread while ``shapely.from_wkb`` builds the
+    previous one; ``parquet_native_1thread``: our reader with its geometry built on one
+    thread); seconds, CPU seconds (all threads) and peak RSS."""
     import pyogrio
 
+    import yieldscape.io.geoparquet as geoparquet
     from yieldscape.io.vector import read_layer
 
-    t0 = time.perf_counter()
+    if how == "parquet_native_1thread":
+        geoparquet.THREADS = 1
+    t0, cpu0 = time.perf_counter(), time.process_time()
     if how == "gpkg_no_arrow":
         frame = pyogrio.read_dataframe(path, layer="stands", use_arrow=False)
+    elif how == "gpkg_overlap":
+        frame = _gpkg_overlapped(path)
     else:
         frame, _ = read_layer(path, "stands" if path.suffix == ".gpkg" else None)
-    seconds = time.perf_counter() - t0
-    return {"s": seconds, "rows": len(frame), "rss_gb": _rss_gb()}
+    seconds, cpu = time.perf_counter() - t0, time.process_time() - cpu0
+    return {"s": seconds, "cpu_s": cpu, "rows": len(frame), "rss_gb": _rss_gb()}
+
+
+def _gpkg_overlapped(path: Path, batch: int = 65_536):  # noqa: ANN202
+    """The GeoPackage through ``pyogrio.open_arrow``: GDAL reads batch k+1 on a thread (it
+    releases the GIL) while ``shapely.from_wkb`` (which holds it) builds batch k."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    import geopandas as gpd
+    import pyarrow as pa
+    import pyogrio
+    import shapely
+
+    geoms, tables = [], []
+    with pyogrio.open_arrow(path, layer="stands", batch_size=batch, use_pyarrow=True) as (
+        meta,
+        reader,
+    ):
+        column = meta["geometry_name"] or "wkb_geometry"
+        with ThreadPoolExecutor(1) as ahead:
+            coming = ahead.submit(reader.read_next_batch)
+            while True:
+                try:
+                    got = coming.result()
+                except StopIteration:
+                    break
+                coming = ahead.submit(reader.read_next_batch)
+                wkb = got.column(column).to_numpy(zero_copy_only=False)
+                geoms.append(shapely.from_wkb(wkb))
+                tables.append(got.drop_columns([column]))
+    frame = pa.Table.from_batches(tables).to_pandas()
+    geometry = gpd.GeoSeries(np.concatenate(geoms), crs=meta["crs"])
+    return gpd.GeoDataFrame(frame, geometry=geometry.values)
 
 
 def _child(*args: str) -> dict:
@@ -110,10 +167,13 @@ def read_bench(n: int, rounds: int, parts: int = 8) -> dict:
     row = {"stands": n, "rounds": rounds}
     for k in FORMATS:
         row[f"{k}_s"] = statistics.median(r["s"] for r in got[k])
+        row[f"{k}_cpu_s"] = statistics.median(r["cpu_s"] for r in got[k])
         row[f"{k}_rss_gb"] = statistics.median(r["rss_gb"] for r in got[k])
         row[f"{k}_mb"] = size[k] / 1e6
     row["speedup_file"] = row["gpkg_s"] / row["parquet_s"]
     row["speedup_dataset"] = row["gpkg_s"] / row["dataset_s"]
+    row["speedup_native"] = row["gpkg_s"] / row["parquet_native_s"]
+    row["speedup_native_dataset"] = row["gpkg_s"] / row["dataset_native_s"]
     return row
 
 
@@ -286,18 +346,26 @@ def main() -> None:
     if args.what == "read":
         r = read_bench(args.stands, args.rounds, args.parts)
         print(json.dumps(r))
-        print("\n| stands | layer | size MB | read s (median) | peak RSS GB | GeoPackage / this |")
-        print("|---:|---|---:|---:|---:|---:|")
+        print(
+            "\n| stands | layer | size MB | read s (median) | CPU s | peak RSS GB |"
+            " GeoPackage / this |"
+        )
+        print("|---:|---|---:|---:|---:|---:|---:|")
         names = {
             "gpkg": "GeoPackage (pyogrio, Arrow)",
             "parquet": "GeoParquet, one file",
             "dataset": f"GeoParquet, {args.parts} files",
+            "parquet_native": "GeoParquet native polygons (our writer), one file",
+            "dataset_native": f"GeoParquet native polygons (our writer), {args.parts} files",
+            "parquet_native_1thread": "the same, one file, geometry on one thread (not used)",
+            "gpkg_overlap": "GeoPackage, GDAL reading ahead on a thread (not used)",
             "gpkg_no_arrow": "GeoPackage (pyogrio without Arrow, not used)",
         }
         for k in FORMATS:
             print(
                 f"| {r['stands']:,} | {names[k]} | {r[k + '_mb']:.0f} | {r[k + '_s']:.2f} |"
-                f" {r[k + '_rss_gb']:.2f} | {r['gpkg_s'] / r[k + '_s']:.1f}x |"
+                f" {r[k + '_cpu_s']:.2f} | {r[k + '_rss_gb']:.2f} |"
+                f" {r['gpkg_s'] / r[k + '_s']:.1f}x |"
             )
     else:
         r = netdown_bench(args.stands, args.parts)

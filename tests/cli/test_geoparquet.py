@@ -77,14 +77,19 @@ def test_geoparquet_output_holds_the_geopackage_layers(both_runs):
     gp_out, pq_out, _ = both_runs
     assert not (pq_out / "projection.gpkg").exists()
     gpkg = gp_out / "projection.gpkg"
+    encodings = {}
     for name, layer in (("stands", "stands"), ("harvests", "harvests"), ("harvestable", None)):
-        # read back by pyarrow alone (another reader than the writer's geopandas)
+        # read back by pyarrow and geopandas (other readers than ours)
         table = pq.read_table(pq_out / f"{name}.parquet")
         geo = json.loads(table.schema.metadata[b"geo"])
         assert geo["primary_column"] == "geometry"
-        assert geo["columns"]["geometry"]["encoding"] == "WKB"
         assert geo["columns"]["geometry"]["crs"]["id"] == {"authority": "EPSG", "code": 32633}
         ours = gpd.read_parquet(pq_out / f"{name}.parquet")
+        # GeoParquet 1.1: a native encoding holds one geometry type; WKB any mix
+        types = sorted(set(ours.geom_type))
+        encodings[name] = geo["columns"]["geometry"]["encoding"]
+        assert encodings[name] == (types[0].lower() if len(types) == 1 else "WKB"), types
+        assert geo["columns"]["geometry"]["geometry_types"] == types
         theirs = pyogrio.read_dataframe(gpkg, layer=layer or name)
         assert list(ours.columns) == list(theirs.columns)
         pd.testing.assert_frame_equal(
@@ -95,6 +100,7 @@ def test_geoparquet_output_holds_the_geopackage_layers(both_runs):
         # the same shapes; the GeoPackage promotes a layer of polygons and multipolygons to
         # multipolygons (one type per layer), GeoParquet keeps each as it is
         assert ours.geometry.geom_equals(theirs.geometry).all()
+    assert set(encodings.values()) == {"WKB", "polygon"}, encodings  # both kinds written
     ages = pd.read_parquet(pq_out / "stand_ages.parquet")
     pd.testing.assert_frame_equal(
         ages, pyogrio.read_dataframe(gpkg, layer="stand_ages"), check_dtype=False
