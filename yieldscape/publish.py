@@ -147,7 +147,8 @@ def write_outputs(
         else nullcontext(dict)
     ) as drawn:
         if scenario.output.format == "geoparquet":
-            write_tables(result, directory, parquet=True)
+            native = scenario.output.geoparquet_geometry == "native"
+            write_tables(result, directory, parquet=True, native=native)
         else:
             with unsynced_gpkg(gpkg):
                 write_tables(result, directory, skip=LONG_TABLE if side else None)
@@ -206,18 +207,25 @@ def _write_cases(
 
 
 def write_tables(
-    result: RunResult, directory: Path, skip: str | None = None, parquet: bool = False
+    result: RunResult,
+    directory: Path,
+    skip: str | None = None,
+    parquet: bool = False,
+    native: bool = False,
 ) -> None:
     """The GeoPackage layers and tables, and the same tables as CSV; ``skip``: a table left
     to another writer (:func:`shared_figures`); with ``parquet``, the layers as GeoParquet
-    files (the harvests a layer of their own, each event with its stand's polygon) and the
-    tables as CSV only (``stand_ages``, which has none, as Parquet)."""
+    files (the harvests a layer of their own, each event with its stand's polygon; with
+    ``native`` the geometry in GeoParquet 1.1's native encoding) and the tables as CSV only
+    (``stand_ages``, which has none, as Parquet)."""
     gpkg = directory / GPKG_NAME
     if parquet:
-        write_geoparquet(directory / STANDS_PARQUET, result.stands)
-        write_geoparquet(directory / HARVESTS_PARQUET, result.harvests)
+        write_geoparquet(directory / STANDS_PARQUET, result.stands, native)
+        write_geoparquet(directory / HARVESTS_PARQUET, result.harvests, native)
         if result.write_harvestable_layer:
-            write_geoparquet(directory / HARVESTABLE_PARQUET, harvestable_layer(result.inventory))
+            write_geoparquet(
+                directory / HARVESTABLE_PARQUET, harvestable_layer(result.inventory), native
+            )
     else:
         write_gpkg_layer(gpkg, result.stands, "stands")
         write_harvests(result, gpkg)

@@ -57,7 +57,7 @@ def both_runs(tmp_path_factory):
     for name, path in (("reserves", "reserves.parquet"), ("streams", "streams.geoparquet")):
         text = text.replace(f'layer = "forest.gpkg"\nlayer_name = "{name}"', f'layer = "{path}"')
     assert "forest.gpkg" not in text
-    text += '\n[output]\nformat = "geoparquet"\n'
+    text += '\n[output]\nformat = "geoparquet"\ngeoparquet_geometry = "native"\n'
     scenario.write_text(text, encoding="utf-8")
     gpkg.unlink()  # nothing is read from it
     pq_out = pq_dir / "results"
@@ -111,8 +111,27 @@ def test_docs_describe_the_geoparquet_outputs(both_runs):
     _, pq_out, pq_dir = both_runs
     assert_outputs_documented(pq_out, pq_dir / "stands")
     rec = json.loads((pq_out / "run.json").read_text())
-    assert rec["scenario"]["output"] == {"format": "geoparquet"}
+    assert rec["scenario"]["output"] == {"format": "geoparquet", "geoparquet_geometry": "native"}
     assert "stands.parquet" in rec["outputs"] and "harvests.parquet" in rec["outputs"]
+
+
+def test_the_default_geoparquet_geometry_is_wkb(tmp_path):
+    # WKB by default: GeoParquet 1.0 readers (GDAL 3.5-3.8, geopandas < 1.0) read it
+    layer = write_layer(tmp_path / "s.gpkg", squares(20), stand_attrs(20, np.arange(20) * 9.0))
+    raw = scenario_dict(layer)
+    raw["output"] = {"format": "geoparquet"}
+    out = tmp_path / "out"
+    assert (
+        main(["run", str(write_scenario(tmp_path / "s.toml", raw)), "--out", str(out), "-q"]) == 0
+    )
+    stands = pyogrio.read_dataframe(layer)
+    for name in ("stands", "harvests"):
+        geo = json.loads(pq.read_schema(out / f"{name}.parquet").metadata[b"geo"])
+        assert geo["columns"]["geometry"]["encoding"] == "WKB"
+        back = gpd.read_parquet(out / f"{name}.parquet")
+        assert len(back) and back.geometry.is_valid.all()
+    back = gpd.read_parquet(out / "stands.parquet")
+    assert back.geometry.normalize().geom_equals_exact(stands.geometry.normalize(), 1e-6).all()
 
 
 # -- reading ---------------------------------------------------------------------------------

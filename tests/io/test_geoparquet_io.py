@@ -76,7 +76,7 @@ def test_our_native_files_read_as_the_frame_written(tmp_path, monkeypatch):
     frame = _frame(26, shapely.difference(squares(26), shapely.buffer(squares(26)[0], -40)))
     frame.loc[4, "geometry"] = shapely.difference(frame.geometry[4], shapely.box(0, 0, 1, 1))
     path = tmp_path / "stands.parquet"
-    write_geoparquet(path, frame)
+    write_geoparquet(path, frame, native=True)
     assert pq.ParquetFile(path).metadata.num_row_groups == 4
     geo = json.loads(pq.read_schema(path).metadata[b"geo"])
     assert geo["version"] == "1.1.0" and geo["columns"]["geometry"]["encoding"] == "polygon"
@@ -102,9 +102,13 @@ def test_the_writer_picks_the_native_encoding_of_one_type(tmp_path, geoms, encod
     # GeoParquet 1.1 native encodings hold one geometry type, without nulls or empties here
     frame = _frame(5, geoms)
     path = tmp_path / "layer.parquet"
-    write_geoparquet(path, frame)
+    write_geoparquet(path, frame, native=True)
     geo = json.loads(pq.read_schema(path).metadata[b"geo"])["columns"]["geometry"]
     assert geo["encoding"] == encoding
+    write_geoparquet(tmp_path / "wkb.parquet", frame)  # the default: WKB, any reader's
+    wkb = json.loads(pq.read_schema(tmp_path / "wkb.parquet").metadata[b"geo"])
+    assert wkb["columns"]["geometry"]["encoding"] == "WKB"
+    pd.testing.assert_frame_equal(gpd.read_parquet(tmp_path / "wkb.parquet"), frame)
     back = gpd.read_parquet(path)  # geopandas' reader, the reference
     pd.testing.assert_frame_equal(back, frame, check_exact=True)
     ours, _ = read_geoparquet(path, None, "k", "layer")
@@ -115,7 +119,7 @@ def test_a_dataset_of_wkb_and_native_files(tmp_path, monkeypatch):
     frame = _frame(30)
     (tmp_path / "ds").mkdir()
     frame.iloc[:12].to_parquet(tmp_path / "ds" / "a.parquet")
-    write_geoparquet(tmp_path / "ds" / "b.parquet", frame.iloc[12:].reset_index(drop=True))
+    write_geoparquet(tmp_path / "ds" / "b.parquet", frame.iloc[12:].reset_index(drop=True), True)
     encodings = [
         json.loads(pq.read_schema(f).metadata[b"geo"])["columns"]["geometry"]["encoding"]
         for f in sorted((tmp_path / "ds").glob("*.parquet"))
@@ -131,7 +135,7 @@ def test_an_empty_file(tmp_path, monkeypatch):
     _frame(3).iloc[:0].to_parquet(path)
     ours = _same_as_geopandas(path, monkeypatch=monkeypatch)
     assert len(ours) == 0 and ours.crs == "EPSG:32633"
-    write_geoparquet(tmp_path / "ours.parquet", _frame(3).iloc[:0])
+    write_geoparquet(tmp_path / "ours.parquet", _frame(3).iloc[:0], native=True)
     assert len(_same_as_geopandas(tmp_path / "ours.parquet", chunked=False)) == 0
 
 

@@ -40,6 +40,7 @@ METHODS = ("rules", "optimize")
 OBJECTIVES = ("max-even-flow", "max-volume", "max-npv")
 TERMINAL_VALUES = ("none", "standing")
 OUTPUT_FORMATS = ("gpkg", "geoparquet")
+GEOPARQUET_GEOMETRY = ("wkb", "native")
 
 # Hard limits: beyond them a value is not a forest-planning input but a slip.
 # older than any tree known (bristlecone pines, about 4,800 years; from memory)
@@ -401,6 +402,16 @@ class OutputConfig:
         "Format of the stand and harvest layers: one GeoPackage (projection.gpkg) or "
         "GeoParquet files (stands.parquet, harvests.parquet).",
         choices=OUTPUT_FORMATS,
+    )
+    geoparquet_geometry: str = key(
+        "choice",
+        "wkb",
+        "",
+        "Geometry encoding of the GeoParquet layers: WKB, which every GeoParquet reader reads "
+        "(GDAL >= 3.5), or 'native', GeoParquet 1.1's GeoArrow encoding of a layer of one "
+        "geometry type (smaller, faster to read; GDAL >= 3.9, geopandas >= 1.0), WKB where "
+        "the layer mixes types.",
+        choices=GEOPARQUET_GEOMETRY,
     )
 
 

@@ -298,18 +298,19 @@ _TYPE_NAMES = {0: "Point", 1: "LineString", 2: "LineString", 3: "Polygon", 4: "M
 _TYPE_NAMES |= {5: "MultiLineString", 6: "MultiPolygon", 7: "GeometryCollection"}
 
 
-def write_geoparquet(path: Path, frame: gpd.GeoDataFrame) -> None:
+def write_geoparquet(path: Path, frame: gpd.GeoDataFrame, native: bool = False) -> None:
     """Write a layer as one GeoParquet 1.1 file (zstd, no pandas index), in row groups of
     :data:`BATCH_ROWS` rows converted one at a time, so that only a batch is held as Arrow
     (geopandas' ``to_parquet`` converts the whole frame at once: about 0.4 GB more at the
-    peak of a 1M-stand run). The geometry is in the native (GeoArrow) encoding of its type
-    where :func:`native_encoding` finds one (GDAL >= 3.9 and geopandas >= 1.0 read it; it
-    is built without parsing WKB, on two threads by our reader), else in WKB."""
+    peak of a 1M-stand run). The geometry is in WKB or, with ``native``, in the native
+    (GeoArrow) encoding of its type where :func:`native_encoding` finds one (GDAL >= 3.9 and
+    geopandas >= 1.0 read it; it is built without parsing WKB, on two threads by our
+    reader), else in WKB."""
     geom = frame.geometry.name
     geoms = frame.geometry.to_numpy()
     attrs = pd.DataFrame({c: frame[c] for c in frame.columns if c != geom}, copy=False)
     at = list(frame.columns).index(geom)
-    native = native_encoding(geoms)
+    native = native_encoding(geoms) if native else None
 
     # the attributes' types from the whole frame (an object column null in a first batch)
     attr_schema = pa.Schema.from_pandas(attrs, preserve_index=False)
