@@ -174,3 +174,16 @@ def test_a_covering_column_is_left_out_as_geopandas_does(tmp_path, monkeypatch):
     _frame(5).to_parquet(tmp_path / "c.parquet", write_covering_bbox=True)
     assert "bbox" in pq.read_schema(tmp_path / "c.parquet").names
     assert "bbox" not in _same_as_geopandas(tmp_path / "c.parquet", monkeypatch=monkeypatch)
+
+
+def test_partitions_of_two_schemas(tmp_path):
+    # a column missing from one file would come out as nulls from the concatenation
+    (tmp_path / "ds").mkdir()
+    _frame(4).to_parquet(tmp_path / "ds" / "a.parquet")
+    _frame(4).drop(columns="AGE").to_parquet(tmp_path / "ds" / "b.parquet")
+    with pytest.raises(
+        InventoryError,
+        match=r"b\.parquet: its columns are not those of "
+        r"a\.parquet \(missing: AGE; not in a\.parquet: none\)",
+    ):
+        read_geoparquet(tmp_path / "ds", None, "k", "stand layer")

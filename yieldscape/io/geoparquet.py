@@ -114,7 +114,16 @@ def iter_partitions(path: Path, what: str = "stand layer") -> Iterator[gpd.GeoDa
             frame = _to_frame(file, table, geo, what).reset_index(drop=True)
             del table
             if n == 0:
-                first_crs = frame.crs
+                first_crs, first_columns = frame.crs, list(frame.columns)
+            elif set(frame.columns) != set(first_columns):  # concat would fill in nulls
+                missing = [c for c in first_columns if c not in frame.columns]
+                extra = [c for c in frame.columns if c not in first_columns]
+                raise InventoryError(
+                    f"{file}: its columns are not those of {files[0].name} (missing: "
+                    f"{', '.join(missing) or 'none'}; not in {files[0].name}: "
+                    f"{', '.join(extra) or 'none'}); the partitions of a dataset share one "
+                    "schema"
+                )
             elif frame.crs != first_crs:
                 raise InventoryError(
                     f"{file}: its CRS ({_crs_name(frame.crs)}) is not that of {files[0].name} "
