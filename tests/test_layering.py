@@ -32,6 +32,7 @@ LAYER = {
     "results": 5,
     "publish": 6,
     "pipeline": 7,
+    "commands": 7,
     "__init__": 8,
     "cli": 9,
 }

@@ -221,3 +221,21 @@ def test_a_run_in_one_process_does_not_load_dask(small_case):
     env.pop(SCHEDULER_ENV, None)
     done = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True)
     assert done.returncode == 0, done.stderr
+
+
+def test_each_case_is_written_by_its_task_and_comes_back_small(forest, cluster, tmp_path):
+    # pipeline.run_case: a case's folder is written where it ran; the base keeps its record
+    # and tables by period, not its stand layers (results.without_stands)
+    scenario = yieldscape.load_scenario(forest[0])
+    serial = yieldscape.run(scenario, None)
+    out = tmp_path / "out"
+    tasks = yieldscape.run(scenario, out, parallel=Parallel(scheduler=cluster.scheduler_address))
+    for name, case in tasks.cases.items():
+        assert case.written is not None
+        assert set(case.written["outputs"]) == {p.name for p in (out / name).iterdir()}
+        assert len(case.stands) == len(case.harvests) == len(case.inventory.stands) == 0
+        assert case.stand_ages is None and not case.flow.simulation.snapshots
+        assert len(serial.cases[name].stands) == 30  # the serial run keeps them whole
+        pd.testing.assert_frame_equal(case.wood_flow, serial.cases[name].wood_flow)
+        assert case.verdict == serial.cases[name].verdict
+    assert serial.cases["band"].written is None

@@ -15,13 +15,16 @@ retried (the inputs would raise again) and its error is raised here.
 
 from __future__ import annotations
 
+import contextlib
 import importlib
 import logging
 import os
 import threading
 from collections.abc import Callable, Iterator, Mapping, Sequence
+from concurrent.futures import Future, ThreadPoolExecutor
 from contextlib import contextmanager
 from dataclasses import dataclass
+from functools import partial
 from typing import Any
 
 from yieldscape.errors import InputError
@@ -117,11 +120,67 @@ def _nothing() -> Iterator[None]:
 
 
 class Pool:
-    """A connected ``distributed.Client``: submit tasks, share large inputs, collect results."""
+    """A ``distributed.Client`` connected in a thread of its own (a local cluster takes
+    seconds to start, which the run spends on its base case): tasks submitted meanwhile are
+    sent once it is up, in order; large inputs shared and results collected through it.
+    ``connect`` gives the client and the local cluster started for the run (or None)."""
 
-    def __init__(self, client: Any) -> None:
-        self.client = client
-        self.warming: list[Any] = []
+    def __init__(self, connect: Callable[[], tuple[Any, Any]], warm: str | None = None) -> None:
+        self.warming: list[Any] = []  # kept: a future let go may be cancelled
+        self._sender = ThreadPoolExecutor(1, thread_name_prefix="dask-connect")
+        self._started = self._sender.submit(self._start, connect, warm)
+        self._closing: threading.Thread | None = None
+
+    def _start(self, connect: Callable[[], tuple[Any, Any]], warm: str | None) -> tuple:
+        client, cluster = connect()
+        try:
+            workers = list(client.scheduler_info(n_workers=-1)["workers"])
+            log.info("Dask: %d workers; dashboard %s", len(workers), client.dashboard_link)
+            if warm is not None:  # each worker imports it at once (seconds for a fresh one)
+                self.warming = [
+                    client.submit(importlib.import_module, warm, workers=[w], pure=False)
+                    for w in workers
+                ]
+        except BaseException:
+            client.close()
+            if cluster is not None:
+                cluster.close()
+            raise
+        return client, cluster
+
+    @property
+    def client(self) -> Any:
+        """The connected client, once connected (the connection's error raised here)."""
+        return self._started.result()[0]
+
+    def connected(self) -> None:
+        """Once connected; the connection's error (a scheduler not reached) raised here."""
+        self._started.result()
+
+    def close(self) -> None:
+        """Disconnect and shut a local cluster down in a thread of its own (seconds of
+        waiting on the workers' exit), beside what this process does next; the block of
+        :func:`pool` waits for it at its end."""
+        if self._closing is None:
+            self._closing = threading.Thread(target=self._close, name="dask-close")
+            self._closing.start()
+
+    def _close(self) -> None:
+        self._sender.shutdown(wait=True)  # the tasks still to send, sent
+        if self._started.exception() is not None:
+            return  # never connected: nothing to close
+        client, cluster = self._started.result()
+        client.close()
+        if cluster is not None:
+            cluster.close()
+
+    def closed(self) -> None:
+        """Closed and done closing; a connection that failed raises its error here, where
+        the run never needed the pool (no case or replicate)."""
+        self.close()
+        assert self._closing is not None
+        self._closing.join()
+        self.connected()
 
     @property
     def threads(self) -> int:
@@ -134,8 +193,12 @@ class Pool:
         return self.client.scatter([value], broadcast=True, hash=False)[0]
 
     def submit(self, fn: Callable[..., Any], *args: Any, prefix: str = "") -> Task:
-        """``fn(*args)`` as a task (its log lines named with ``prefix``)."""
-        return Task(self.client.submit(_logged, fn, prefix, *args, pure=False))
+        """``fn(*args)`` as a task (its log lines named with ``prefix``), sent as soon as
+        the cluster is up."""
+        return Task(self._sender.submit(self._send, fn, prefix, args))
+
+    def _send(self, fn: Callable[..., Any], prefix: str, args: tuple) -> Any:
+        return self.client.submit(_logged, fn, prefix, *args, pure=False)
 
     def map(self, fn: Callable[..., Any], items: Sequence[tuple], *shared: Any) -> list:
         """``[fn(*item, *shared) for item in items]`` as tasks, in the items' order."""
@@ -144,14 +207,14 @@ class Pool:
 
 
 class Task:
-    """A submitted task (a ``distributed.Future``)."""
+    """A submitted task: the ``distributed.Future`` it becomes once sent."""
 
-    def __init__(self, future: Any) -> None:
-        self.future = future
+    def __init__(self, sent: Future) -> None:
+        self.sent = sent
 
     def result(self) -> Any:
         """The task's value, once its log lines are logged here."""
-        value, records = self.future.result()
+        value, records = self.sent.result().result()
         for level, message in records:
             log.log(level, "%s", message)
         return value
@@ -160,26 +223,21 @@ class Task:
 @contextmanager
 def pool(settings: Parallel, warm: str | None = None) -> Iterator[Pool | None]:
     """A :class:`Pool` on the chosen cluster for the block (closed after it, a local cluster
-    shut down), or ``None`` for this process alone. Each worker starts importing the module
-    ``warm`` at once, while this process goes on (a fresh worker's imports take seconds)."""
+    shut down), or ``None`` for this process alone. The cluster starts (or the scheduler is
+    reached) beside the block; each worker then imports the module ``warm`` at once. An
+    unreachable scheduler or a missing Dask is raised where the block first needs the pool,
+    else at its end."""
     if settings.serial:
         yield None
         return
-    client, cluster = _connect(settings)
+    tasks = Pool(partial(_connect, settings), warm)
     try:
-        workers = list(client.scheduler_info(n_workers=-1)["workers"])
-        log.info("Dask: %d workers; dashboard %s", len(workers), client.dashboard_link)
-        tasks = Pool(client)
-        if warm is not None:  # kept in the pool: a future let go may be cancelled
-            tasks.warming = [
-                client.submit(importlib.import_module, warm, workers=[w], pure=False)
-                for w in workers
-            ]
         yield tasks
-    finally:
-        client.close()
-        if cluster is not None:
-            cluster.close()
+    except BaseException:
+        with contextlib.suppress(Exception):  # the block's own error is the one to raise
+            tasks.closed()
+        raise
+    tasks.closed()
 
 
 def _connect(settings: Parallel) -> tuple[Any, Any]:

@@ -1,4 +1,5 @@
-"""The whole chain as library calls: :func:`check`, :func:`run`, :func:`curves`, :func:`compare`.
+"""The whole chain as library calls: :func:`check` and :func:`run` (the other commands' calls
+are in :mod:`yieldscape.commands`).
 
 This module only orchestrates: it reads through ``io/``, hands the tables to the layers that
 own the domain (inventory, landbase, projection, schedule, reporting), times the stages, keeps
@@ -13,6 +14,7 @@ the run's log, and gives the results to the writer (:mod:`yieldscape.publish`).
 from __future__ import annotations
 
 import logging
+from contextlib import nullcontext
 from dataclasses import dataclass, replace
 from pathlib import Path
 
@@ -22,10 +24,10 @@ import pyproj
 
 from yieldscape.adjacency import stand_adjacency
 from yieldscape.config import Scenario
-from yieldscape.errors import InputError, OutputError
+from yieldscape.errors import InputError
 from yieldscape.inventory import prepare_inventory
 from yieldscape.io.geoparquet import partition_rows
-from yieldscape.io.outputs import check_files_dir, check_output_dir, read_run, staged_output
+from yieldscape.io.outputs import check_output_dir, staged_output
 from yieldscape.io.readers import raster_site_index, read_overlay, read_step_raster
 from yieldscape.io.vector import read_layer
 from yieldscape.landbase import netdown_in_parts, where_fields, with_netdown_columns
@@ -40,17 +42,20 @@ from yieldscape.projection import (
     zone_codes,
     zone_names,
 )
-from yieldscape.publish import MANAGED, RUN_JSON, write_comparison, write_curves, write_outputs
+from yieldscape.publish import (
+    MANAGED,
+    write_case,
+    write_outputs,
+)
 from yieldscape.reporting import (
     harvests_layer,
     stands_layer,
     wood_flow_by_product,
     wood_flow_table,
 )
-from yieldscape.reporting.compare import comparison_table, flatten
+from yieldscape.reporting.compare import flatten
 from yieldscape.reporting.concerns import level_held_down, monte_carlo_spread
 from yieldscape.reporting.curves import curves_table
-from yieldscape.reporting.curves import notes as curve_notes
 from yieldscape.reporting.indicators import (
     age_class_table,
     analysis_unit_table,
@@ -63,7 +68,7 @@ from yieldscape.reporting.indicators import (
 )
 from yieldscape.reporting.tables import regeneration_table
 from yieldscape.reporting.units import unit_outputs, with_unit
-from yieldscape.results import CheckResult, CurvesResult, RunResult
+from yieldscape.results import CheckResult, RunResult
 from yieldscape.runlog import Timer, captured_log, named_lines, released
 from yieldscape.schedule import HarvestRules, SpatialRules, lp_plan, stable_periods_for
 from yieldscape.schedule.cover import CoverRules, cover_report, cover_rules
@@ -171,20 +176,50 @@ def run(
             raise InputError(f"[[sensitivity]] name {name!r} is the name of an output file")
     if out is not None:
         check_output_dir(out, MANAGED)  # before the long stages, not after
-    with captured_log() as capture, pool(parallel or Parallel(), __name__) as tasks:
+    settings = parallel or Parallel()
+    # cases on workers write their folders as they finish: the staged output is made first
+    early = out is not None and bool(scenario.sensitivity) and not settings.serial
+    # the pool entered last, left first: no worker writes into the staged folder after it
+    with (
+        captured_log() as capture,
+        staged_output(out, MANAGED) if early and out else nullcontext(None) as staged,
+        pool(settings, __name__) as tasks,
+    ):
         cases = tasks and {  # started before the base case, to go on beside it
-            name: tasks.submit(run, case, None, strict, prefix=f"case {name!r}: ")
-            for name, _, case in scenario.sensitivity
+            name: tasks.submit(
+                run_case,
+                case,
+                strict,
+                staged and (str(staged), name, dict(sets)),
+                prefix=f"case {name!r}: ",
+            )
+            for name, sets, case in scenario.sensitivity
         }
         result = _project(scenario, strict, tasks)
         result.out_dir, result.log = out, capture.lines
         result.warnings = tuple(capture.warnings)  # this run's own, not its cases'
-        _run_cases(scenario, result, strict, cases)
+
+        def collect() -> None:
+            _run_cases(scenario, result, strict, cases)
+            if tasks is not None:
+                tasks.connected()  # a scheduler not reached: an error before anything is out
+                tasks.close()  # the cluster shuts down beside what is left to write
+
+        if out is None or tasks is None:  # in one process: the cases, then all the writing
+            collect()
         if out is not None:
-            with staged_output(out, MANAGED) as tmp:
+            with nullcontext(staged) if early else staged_output(out, MANAGED) as tmp:
                 log.info("write outputs ...")
-                write_outputs(result, scenario, tmp)
+                # with tasks, the base case's layers and figures are written while they end
+                write_outputs(result, scenario, tmp, cases=None if tasks is None else collect)
     return result
+
+
+def run_case(case: Scenario, strict: bool, where: tuple[str, str, dict] | None) -> RunResult:
+    """A sensitivity case as a task: :func:`run` with no output; with ``where`` (the staged
+    output folder, the case's name and keys set), written there (:func:`publish.write_case`)."""
+    result = run(case, None, strict)
+    return result if where is None else write_case(result, case, *where)
 
 
 def _run_cases(scenario: Scenario, result: RunResult, strict: bool, tasks: dict | None) -> None:
@@ -363,38 +398,3 @@ def _indicators(scenario: Scenario, model: _Model, sched: Schedule, result: RunR
     result.analysis_units = analysis_unit_table(snaps, p, rep.age_class_years, model.curves.codes)
     result.harvest_breakdown = released(harvest_breakdown(flow, stands, p, model.curves.codes))
     result.curves, result.curve_summaries = curves_table(scenario, stands)
-
-
-# ----------------------------------------------------------------------------- curves, compare
-def curves(
-    scenario: Scenario, out_dir: str | Path | None = None, site_step_m: float = 1.0
-) -> CurvesResult:
-    """Per species and site value in use: culmination, rules, rotations; CSV and figures
-    (written beside whatever ``out_dir`` holds, see :func:`yieldscape.publish.write_curves`)."""
-    out = Path(out_dir) if out_dir is not None else None
-    if out is not None:
-        check_files_dir(out)
-    inventory = check(scenario)
-    with Timer().stage("curves report"):
-        table, summaries = curves_table(scenario, inventory.stands, site_step_m)
-    files = write_curves(out, scenario, table, summaries) if out is not None else []
-    return CurvesResult(table, curve_notes(table), files)
-
-
-def compare(run_dirs: list[str | Path], out_dir: str | Path) -> pd.DataFrame:
-    """Compare yieldscape runs: ``OUT/comparison.csv`` (one row per run) and the overlay
-    figure ``OUT/comparison.png``."""
-    out = Path(out_dir)
-    check_files_dir(out)
-    if (out / RUN_JSON).exists():
-        raise OutputError(
-            f"--out {out}: holds a yieldscape run ({RUN_JSON}), whose own comparison.csv the "
-            "comparison would replace; choose another directory"
-        )
-    runs = []
-    for d in map(Path, run_dirs):
-        rec, wf = read_run(d)
-        runs.append((str(d), rec, wf))
-    table = comparison_table(runs)
-    write_comparison(out, table, runs)
-    return table

@@ -5,6 +5,7 @@ GeoTIFFs, ``run.json`` and ``run.log``. Names of every file are here, in one pla
 from __future__ import annotations
 
 import logging
+import shutil
 import time
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager, nullcontext
@@ -46,7 +47,7 @@ from yieldscape.reporting.figures import (
 )
 from yieldscape.reporting.report import Figure, ReportData, html_report, markdown_report
 from yieldscape.reporting.units import units_record
-from yieldscape.results import CheckResult, RunResult
+from yieldscape.results import CheckResult, RunResult, without_stands
 from yieldscape.sharedwork import Claim, shared_jobs
 from yieldscape.versions import library_versions
 from yieldscape.zonal import stand_grid
@@ -130,10 +131,14 @@ def write_outputs(
     scenario: Scenario,
     directory: Path,
     case: tuple[str, dict] | None = None,
+    cases: Callable[[], object] | None = None,
 ) -> dict:
     """Write every output of a run into the existing ``directory``, and the sensitivity
     cases' outputs into ``directory/<name>/`` with a comparison of them; ``case`` (name and
-    keys set) marks the run as one of those cases. Returns what run.json holds."""
+    keys set) marks the run as one of those cases. ``cases``, if given, is called once the
+    run's own layers and tables are written, before the cases are needed (it fills
+    ``result.cases``: their tasks finish beside this run's writes). Returns what run.json
+    holds."""
     t0 = time.perf_counter()
     rep = scenario.report
     gpkg = directory / GPKG_NAME
@@ -157,6 +162,8 @@ def write_outputs(
         if rep.raster_cell_m:
             write_rasters(result, scenario, directory / RASTERS_DIR)
         record = run_record(result, scenario)
+        if cases is not None:
+            cases()
         comparison = _write_cases(result, scenario, directory, record)
         figures = drawn()
     if side is not None:  # the table in its place (last of the tables), then the map layers
@@ -185,6 +192,22 @@ def write_outputs(
     return record
 
 
+def write_case(
+    result: RunResult, scenario: Scenario, staged: str, name: str, sets: dict
+) -> RunResult:
+    """A sensitivity case's outputs written by its own task into ``<staged>/<name>/``, as
+    the base case would write them (:func:`_write_cases`), and the case without its
+    stand-sized members (:func:`~yieldscape.results.without_stands`), with what its run.json
+    holds in ``written``. On a machine that does not see ``staged`` (a cluster without a
+    shared file system; its name is random) nothing is written: the whole case comes back."""
+    if not Path(staged).is_dir():
+        return result
+    folder = Path(staged) / name
+    shutil.rmtree(folder, ignore_errors=True)  # a task run again after its worker died
+    folder.mkdir()
+    return without_stands(result, write_outputs(result, scenario, folder, (name, sets)))
+
+
 def _write_cases(
     result: RunResult, scenario: Scenario, directory: Path, record: dict
 ) -> pd.DataFrame | None:
@@ -195,8 +218,10 @@ def _write_cases(
     if result.cases:
         runs = [(BASE_LABEL, record, result.wood_flow)]
         for (name, sets, scn), sub in zip(scenario.sensitivity, result.cases.values(), strict=True):
-            (directory / name).mkdir()
-            sub_record = write_outputs(sub, scn, directory / name, (name, dict(sets)))
+            sub_record = sub.written  # by the case's own task (pipeline.run_case)
+            if sub_record is None:
+                (directory / name).mkdir()
+                sub_record = write_outputs(sub, scn, directory / name, (name, dict(sets)))
             runs.append((name, sub_record, sub.wood_flow))
         comparison = comparison_table(runs)
         comparison.to_csv(directory / COMPARISON_CSV, index=False)

@@ -5,7 +5,7 @@ other."""
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields, replace
 from pathlib import Path
 
 import geopandas as gpd
@@ -73,10 +73,44 @@ class RunResult:
     warnings: tuple[str, ...] = ()  # what the run warned of (also in run.log and the report)
     # management units, harvest partitions and the LP's rows with their duals
     by_unit: UnitOutputs = field(default_factory=UnitOutputs)
+    # what run.json holds, where the outputs were written where the run was (a sensitivity
+    # case written by its own Dask task); None: not written yet
+    written: dict | None = None
 
     @property
     def level_m3_per_year(self) -> float:
         return self.flow.level_m3_per_year
+
+
+def without_stands(result: RunResult, written: dict) -> RunResult:
+    """``result`` without its members of a row per stand or per harvest event (the stand and
+    harvest layers, the stand ages, the inventory's stands and geometries, the recorded
+    simulation's parts and events), once its outputs (``written``: what its run.json holds)
+    are written: what a base run keeps of a sensitivity case written by its own task (its
+    tables by period, verdict, indicators and record), a small fraction of its size."""
+    inv, sim = result.inventory, result.flow.simulation
+    netdown = inv.netdown
+    netdown = replace(
+        netdown,
+        gross_ha=netdown.gross_ha[:0],
+        removed_ha=netdown.removed_ha[:, :0],
+        harvestable_ha=netdown.harvestable_ha[:0],
+        remaining_geometry=netdown.remaining_geometry[:0],
+    )
+    per_part = {
+        f.name: getattr(sim, f.name)[:0]
+        for f in fields(sim)
+        if f.name.startswith(("event_", "regen_", "final_"))
+    }
+    return replace(
+        result,
+        inventory=CheckResult(inv.stands.iloc[:0], inv.report, netdown),
+        flow=replace(result.flow, simulation=replace(sim, snapshots={}, **per_part)),
+        stands=result.stands.iloc[:0],
+        harvests=result.harvests.iloc[:0],
+        stand_ages=None,
+        written=written,
+    )
 
 
 @dataclass
