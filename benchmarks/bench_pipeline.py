@@ -8,7 +8,9 @@ checking, the projection and even-flow scheduling, building the output tables, t
 and writing every output (GeoPackage with its map layers, CSV, figures, report). Beside it, the
 floor: pyogrio reading the same stand layer (``use_arrow=True``) and writing it to a new
 GeoPackage, each time in a fresh process (median of three), and the ratio of the run's total
-to that floor. Prints one line per size and, with --markdown, a table for docs/performance.md.
+to that floor; and the run's CPU seconds (user + system) in its own process and in the helper
+that draws the figures, which move less than wall time with other jobs on the machine. Prints
+one line per size and, with --markdown, a table for docs/performance.md.
 
     python benchmarks/bench_pipeline.py                 # 10k, 100k, 1M
     python benchmarks/bench_pipeline.py --sizes 10000 100000
@@ -18,6 +20,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import resource
 import statistics
 import subprocess
@@ -119,6 +122,12 @@ def floor(gpkg: Path, rounds: int = FLOOR_ROUNDS) -> float:
     return statistics.median(times)
 
 
+def _cpu(who: int) -> float:
+    """User plus system CPU seconds of this process or of its ended children so far."""
+    usage = resource.getrusage(who)
+    return usage.ru_utime + usage.ru_stime
+
+
 def one_size(n: int) -> dict:
     import yieldscape
 
@@ -128,7 +137,9 @@ def one_size(n: int) -> dict:
         build_region(n, gpkg)
         floor_s = floor(gpkg)
         scn = synthetic_scenario(gpkg, n)
+        own0, kids0 = _cpu(resource.RUSAGE_SELF), _cpu(resource.RUSAGE_CHILDREN)
         result = yieldscape.run(scn, tmp / "out")
+        own, kids = _cpu(resource.RUSAGE_SELF) - own0, _cpu(resource.RUSAGE_CHILDREN) - kids0
         # the stage timings with the writing, as run.json records them
         st = json.loads((tmp / "out" / "run.json").read_text())["timings_s"]
         t = {
@@ -140,6 +151,7 @@ def one_size(n: int) -> dict:
         }
         t["total_s"] = sum(t.values())
         t["floor_s"] = floor_s
+        t["cpu_s"], t["helper_cpu_s"] = own, kids  # user + system; the helper draws figures
         t["ratio"] = t["total_s"] / floor_s
         t["search_steps"] = result.flow.steps
         t["harvest_rows"] = len(result.harvests)
@@ -176,21 +188,23 @@ def main() -> None:
             f"{row['indicators_s']:.2f} s, write {row['write_s']:.2f} s "
             f"({row['harvest_rows']:,} harvest rows), total {row['total_s']:.1f} s, "
             f"peak RSS {row['peak_rss_gb']:.2f} GB; pyogrio read + write {row['floor_s']:.2f} s, "
-            f"ratio {row['ratio']:.1f}x",
+            f"ratio {row['ratio']:.1f}x; CPU {row['cpu_s']:.1f} s (helper "
+            f"{row['helper_cpu_s']:.1f} s), load {os.getloadavg()[0]:.1f}",
             flush=True,
         )
     if args.markdown:
         print(
             "\n| stands | read + check s | project + schedule s | tables s | indicators s | "
-            "write s | total s | peak RSS GB | pyogrio read + write s | total / floor |"
+            "write s | total s | peak RSS GB | pyogrio read + write s | total / floor | "
+            "CPU s (helper) |"
         )
-        print("|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|")
+        print("|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|")
         for r in rows:
             print(
                 f"| {r['stands']:,} | {r['read_check_s']:.2f} | {r['project_schedule_s']:.2f} |"
                 f" {r['tables_s']:.2f} | {r['indicators_s']:.2f} | {r['write_s']:.2f} |"
                 f" {r['total_s']:.1f} | {r['peak_rss_gb']:.2f} | {r['floor_s']:.2f} |"
-                f" {r['ratio']:.1f}x |"
+                f" {r['ratio']:.1f}x | {r['cpu_s']:.1f} ({r['helper_cpu_s']:.1f}) |"
             )
 
 

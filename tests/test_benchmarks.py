@@ -34,6 +34,8 @@ def test_pipeline_benchmark_reports_every_stage(bench):
     # the floor beside it: pyogrio's read plus write of the same layer, and the ratio to it
     assert row["floor_s"] > 0
     assert row["ratio"] == pytest.approx(row["total_s"] / row["floor_s"])
+    # the run's CPU seconds, its own and its helper's
+    assert row["cpu_s"] > 0 and row["helper_cpu_s"] >= 0
 
 
 def test_regimes_benchmark_variants_differ_as_described(bench, tmp_path):

@@ -1,6 +1,7 @@
 """Giving freed memory back to the system between stages (glibc's malloc_trim), checked
 against the kernel's own count of the process's resident pages (/proc/self/statm)."""
 
+import gc
 import sys
 
 import numpy as np
@@ -29,3 +30,29 @@ def test_freed_heap_blocks_go_back_to_the_system():
     runlog.release_freed_memory()
     assert before - resident_bytes() > 100e6
     assert top.sum() == 250_000
+
+
+def test_without_collector_makes_objects_without_a_collection_and_restores_the_collector():
+    # gc.callbacks report every collection (Python docs, gc module); a thousand lists that
+    # live on would trigger one (the youngest generation's threshold is 700 by default)
+    seen = []
+
+    def count(phase: str, info: dict) -> None:
+        if phase == "start":
+            seen.append(info["generation"])
+
+    gc.callbacks.append(count)
+    try:
+        with runlog.without_collector():
+            seen.clear()  # (one may have run just before the block)
+            kept = [[i] for i in range(20_000)]
+            inside = list(seen)  # (the collector runs once on leaving, as it is enabled again)
+        assert not inside and len(kept) == 20_000
+        assert gc.isenabled()
+        gc.disable()  # off before: left off
+        with runlog.without_collector():
+            pass
+        assert not gc.isenabled()
+    finally:
+        gc.enable()
+        gc.callbacks.remove(count)

@@ -5,6 +5,7 @@ GeoTIFFs, ``run.json`` and ``run.log``. Names of every file are here, in one pla
 from __future__ import annotations
 
 import logging
+import os
 import shutil
 import time
 from collections.abc import Callable, Iterator
@@ -122,6 +123,7 @@ MANAGED = frozenset(
 )
 LONG_TABLE = "stand_ages"  # the longest table (stands x report years)
 SIDE_GPKG = ".stand_ages.gpkg"  # where a helper process writes it (moved into GPKG_NAME)
+WRITING = ".writing"  # SIDE_GPKG's name while the helper writes it
 MAP_PIXELS = 1200  # cells along the longer side of the harvest map figure
 BASE_LABEL = "base"  # the base case's name in the comparison with its sensitivity cases
 
@@ -165,12 +167,14 @@ def write_outputs(
         if cases is not None:
             cases()
         comparison = _write_cases(result, scenario, directory, record)
+        # the helper's table, once written (renamed into place), goes in its place (the last
+        # of the tables) with the map layers while the helper draws; else after the figures
+        early = side is not None and side.exists()
+        if early:
+            _long_table_and_maps(result, scenario, gpkg, side)
         figures = drawn()
-    if side is not None:  # the table in its place (last of the tables), then the map layers
-        with unsynced_gpkg(gpkg):
-            move_attribute_table(side, gpkg, LONG_TABLE)
-            if rep.map_layers:
-                write_map_layers(result, scenario, gpkg)
+    if side is not None and not early:
+        _long_table_and_maps(result, scenario, gpkg, side)
     if comparison is not None and rep.figures:
         figures["comparison"] = Figure(
             directory / FIGURES_DIR / COMPARISON_PNG,
@@ -206,6 +210,15 @@ def write_case(
     shutil.rmtree(folder, ignore_errors=True)  # a task run again after its worker died
     folder.mkdir()
     return without_stands(result, write_outputs(result, scenario, folder, (name, sets)))
+
+
+def _long_table_and_maps(result: RunResult, scenario: Scenario, gpkg: Path, side: Path) -> None:
+    """The :data:`LONG_TABLE` moved from the helper's GeoPackage ``side`` into ``gpkg``,
+    then the map layers."""
+    with unsynced_gpkg(gpkg):
+        move_attribute_table(side, gpkg, LONG_TABLE)
+        if scenario.report.map_layers:
+            write_map_layers(result, scenario, gpkg)
 
 
 def _write_cases(
@@ -485,8 +498,10 @@ def shared_figures(
             i = claim()
             if i is not None and i < first:
                 assert side is not None and result.stand_ages is not None
-                with unsynced_gpkg(side, sync=False):  # a file to be moved and deleted
-                    write_gpkg_layer(side, result.stand_ages, LONG_TABLE, spatial=False)
+                part = side.with_name(WRITING + side.name)
+                with unsynced_gpkg(part, sync=False):  # a file to be moved and deleted
+                    write_gpkg_layer(part, result.stand_ages, LONG_TABLE, spatial=False)
+                os.replace(part, side)  # at its name once whole (see write_outputs)
                 i = claim()
             return None if i is None else i - first
 

@@ -5,6 +5,7 @@ decides what reaches the terminal."""
 from __future__ import annotations
 
 import ctypes
+import gc
 import logging
 import sys
 import time
@@ -51,6 +52,22 @@ def release_freed_memory() -> None:
 
 
 T = TypeVar("T")
+
+
+@contextmanager
+def without_collector() -> Iterator[None]:
+    """Python's cyclic collector off while the block runs (as it was after). Made for
+    blocks that make a million objects that all live on (a layer's geometries): each
+    tracked object counts toward the next collection, so the collector walked every object
+    made so far again and again (7 full collections, 0.7-1.7 s, reading 1M polygons) and
+    freed nothing."""
+    enabled = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if enabled:
+            gc.enable()
 
 
 def released(value: T) -> T:

@@ -81,6 +81,30 @@ def test_level_holds_and_one_tolerance_above_does_not(case):
     assert not holds(stands, CURVES, periods, rules, above, band, ending, stable)
 
 
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(forests())
+def test_the_run_kept_is_a_recorded_run_at_the_level_whichever_trials_were_recorded(case):
+    # which trials the search records changes no level it tries, and the run it keeps (a
+    # trial recorded on the way, or a run after it) is the recorded run at that level
+    stands, periods, rules, band, ending, stable = case
+    flow = find_even_flow(stands, CURVES, periods, rules, band, ending, stable)
+    bare = find_even_flow(stands, CURVES, periods, rules, band, ending, stable, record=False)
+    assert flow.level_m3_per_period == bare.level_m3_per_period
+    again = simulate(
+        stands,
+        CURVES,
+        periods,
+        EvenFlow(flow.level_m3_per_period, band),
+        rules,
+        ending_stock=ending,
+        stable_periods=stable,
+        record=True,
+    )
+    np.testing.assert_array_equal(flow.simulation.harvest_m3, again.harvest_m3)
+    np.testing.assert_array_equal(flow.simulation.event_stand, again.event_stand)
+    assert flow.simulation.ending_stock_m3 == again.ending_stock_m3
+
+
 def test_tolerance_is_the_looser_of_the_two():
     # 0.01% of 10 Mm3 is 1,000 m3; 1 m3/year over a 10-year period is 10 m3
     assert search_tolerance_m3(1e7, 10) == pytest.approx(REL_TOL * 1e7) == pytest.approx(1e3)

@@ -20,7 +20,7 @@ from pyogrio.errors import DataLayerError, DataSourceError
 
 from yieldscape.errors import InventoryError
 from yieldscape.io.geoparquet import is_geoparquet, read_geoparquet
-from yieldscape.runlog import release_freed_memory
+from yieldscape.runlog import release_freed_memory, without_collector
 
 
 def read_layer(
@@ -41,7 +41,8 @@ def read_layer(
             "rename the file or its folder"
         ) from None
     if is_geoparquet(path):
-        return read_geoparquet(path, layer, key, what)
+        with without_collector():  # a geometry object per row (see without_collector)
+            return read_geoparquet(path, layer, key, what)
     try:
         layers = [str(name) for name in pyogrio.list_layers(path)[:, 0]]
     except (DataSourceError, OSError) as exc:
@@ -60,7 +61,8 @@ def read_layer(
             f"{path}: no layer {layer!r} ({key}); the file holds: {', '.join(layers)}"
         )
     try:
-        frame = pyogrio.read_dataframe(path, layer=layer, use_arrow=True)
+        with without_collector():  # a geometry object per row (see without_collector)
+            frame = pyogrio.read_dataframe(path, layer=layer, use_arrow=True)
     except (DataSourceError, DataLayerError, OSError) as exc:
         raise InventoryError(f"{path}, layer {layer!r}: cannot be read ({exc})") from None
     if not isinstance(frame, gpd.GeoDataFrame) or frame.geometry.name not in frame:

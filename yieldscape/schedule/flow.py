@@ -38,6 +38,9 @@ from yieldscape.schedule.simulate import NO_RULES, HarvestRules, Simulation, Sta
 REL_TOL = 1e-4  # 0.01% of the level
 ABS_TOL_M3_PER_YEAR = 1.0
 MAX_STEPS = 80
+# a trial expected to hold within this many tolerances of the lowest level known to fail is
+# recorded (the run to keep should the search end on it; see _narrow)
+RECORD_WITHIN = 2.0
 PARTITION_TRIES = 10  # levels estimated in a row from a broken partition (see _Bracket)
 
 
@@ -87,7 +90,7 @@ def find_even_flow(
     """
     start = start if start is not None else Start.of(stands, curves)  # the same for every trial
 
-    def trial(level: float, record: bool = False, stop: bool = False) -> Simulation:
+    def trial(level: float, record: bool = False, stop: bool | None = None) -> Simulation:
         rule = Sequence(fixed, level) if fixed else EvenFlow(level, band)
         return simulate(
             stands,
@@ -99,7 +102,7 @@ def find_even_flow(
             stable_periods=stable_periods,
             record=record,
             start=start,
-            stop_early=stop or None,
+            stop_early=stop,
         )
 
     # U: what the first free period could yield if every eligible stand were cut, within the
@@ -161,33 +164,42 @@ def least_partition(rules: HarvestRules) -> str:
 
 def _narrow(
     bracket: _Bracket,
-    trial: Callable[[float, bool, bool], Simulation],
+    trial: Callable[[float, bool, bool | None], Simulation],
     margin: _Margin,
     period_years: float,
     steps: int,
     record: bool,
 ) -> tuple[Simulation, int]:
     """Narrow the bracket to the search tolerance; the run at its low end, checked feasible
-    (recorded with ``record``), and the trial count."""
+    (recorded with ``record``), and the trial count.
+
+    A level expected to hold near the top (within :data:`RECORD_WITHIN` tolerances of the
+    lowest level known to fail) is tried recorded, stopping at a missed floor as the other
+    trials do: should the search end on it, it is the run to keep. Recording a trial costs
+    about what one more unrecorded trial does, and a recorded run of the level found after
+    the search (where the trial at the level was not recorded) about two of them. Which
+    trials are recorded changes no level tried."""
 
     def tol(level: float) -> float:
         return search_tolerance_m3(level, period_years)
 
-    final = None
+    kept = None  # the recorded trial at the low end, if it was recorded
     while bracket.hi - bracket.lo > tol(bracket.lo) and steps < MAX_STEPS:
         level, below = bracket.next_level(tol(bracket.lo))
-        # a level expected to hold and to close the bracket is recorded: the run to keep;
-        # so is one that closes it from above a broken partition if it holds (as likely to
-        # fail as to hold so near the limit: it stops at a miss, as an unrecorded trial does)
-        beyond = bracket.hi in bracket.beyond
-        last = record and (below or beyond) and bracket.hi - level <= tol(level)
-        sim = trial(level, last, last and beyond)
+        # so is one that closes the bracket from above a broken partition (as likely to fail
+        # as to hold so near the limit)
+        beyond = bracket.hi in bracket.beyond and bracket.hi - level <= tol(level)
+        near = record and (beyond or below and bracket.hi - level <= RECORD_WITHIN * tol(level))
+        sim = trial(level, near, True if near else None)
         steps += 1
         bracket.add(level, margin(sim), sim)
-        final = sim if last and sim.feasible else None
+        if near and sim.feasible:
+            kept = sim
     if not record:
         final = bracket.lo_sim
-    elif final is None or bracket.hi - bracket.lo > tol(bracket.lo):
+    elif kept is not None and bracket.lo_sim is kept and bracket.hi - bracket.lo <= tol(bracket.lo):
+        final = kept
+    else:
         final = trial(bracket.lo, True)
         steps += 1
     if not final.feasible:  # a non-monotone case: never report an infeasible level
