@@ -44,7 +44,7 @@ HERE = Path(__file__).resolve().parent
 # writer must come from the reader's own checkout)
 if str(HERE.parent) not in sys.path:
     sys.path.insert(0, str(HERE.parent))
-FORMATS = ("gpkg", "parquet", "dataset", "parquet_native", "dataset_native")
+FORMATS = ("gpkg", "parquet", "dataset", "parquet_ours", "parquet_native", "dataset_native")
 FORMATS += ("parquet_native_1thread", "gpkg_overlap", "gpkg_no_arrow")  # not used by a run
 
 
@@ -59,8 +59,9 @@ def _rss_gb() -> float:
 
 def build(n: int, tmp: Path, parts: int) -> dict[str, Path]:
     """The region as a GeoPackage, one GeoParquet file and a dataset of ``parts`` files
-    written by geopandas (WKB geometry, what most writers write), and the same file and
-    dataset written by our writer (``write_geoparquet``: the native polygon encoding)."""
+    written by geopandas (WKB geometry, what most writers write), the file written by our
+    writer (``write_geoparquet``: WKB, zstd, row groups), and the same file and dataset in
+    the native polygon encoding (``output.geoparquet_geometry = "native"``)."""
     import pyogrio
 
     from yieldscape.io.geoparquet import write_geoparquet
@@ -71,19 +72,21 @@ def build(n: int, tmp: Path, parts: int) -> dict[str, Path]:
     paths = {"gpkg": tmp / "region.gpkg", "parquet": tmp / "region.parquet"}
     paths["gpkg_no_arrow"] = paths["gpkg_overlap"] = paths["gpkg"]
     paths["dataset"] = tmp / "region"
+    paths["parquet_ours"] = tmp / "ours.parquet"
     paths["parquet_native"] = paths["parquet_native_1thread"] = tmp / "native.parquet"
     paths["dataset_native"] = tmp / "native"
     build_region(n, paths["gpkg"])
     frame = pyogrio.read_dataframe(paths["gpkg"], layer="stands", use_arrow=True)
     frame.to_parquet(paths["parquet"])
-    write_geoparquet(paths["parquet_native"], frame)
+    write_geoparquet(paths["parquet_ours"], frame)
+    write_geoparquet(paths["parquet_native"], frame, native=True)
     paths["dataset"].mkdir()
     paths["dataset_native"].mkdir()
     ends = np.linspace(0, n, parts + 1).astype(int)
     for k in range(parts):
         part = frame.iloc[ends[k] : ends[k + 1]]
         part.to_parquet(paths["dataset"] / f"part-{k:03d}.parquet")
-        write_geoparquet(paths["dataset_native"] / f"part-{k:03d}.parquet", part)
+        write_geoparquet(paths["dataset_native"] / f"part-{k:03d}.parquet", part, native=True)
     return paths
 
 
@@ -355,6 +358,7 @@ def main() -> None:
             "gpkg": "GeoPackage (pyogrio, Arrow)",
             "parquet": "GeoParquet, one file",
             "dataset": f"GeoParquet, {args.parts} files",
+            "parquet_ours": "GeoParquet WKB (our writer: zstd, row groups), one file",
             "parquet_native": "GeoParquet native polygons (our writer), one file",
             "dataset_native": f"GeoParquet native polygons (our writer), {args.parts} files",
             "parquet_native_1thread": "the same, one file, geometry on one thread (not used)",
