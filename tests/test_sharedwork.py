@@ -120,3 +120,44 @@ def test_an_error_that_does_not_unpickle_comes_back_as_its_text():
         shared_jobs(2, work, "testing") as finish,
     ):
         finish()
+
+
+_SIGNAL_AT_FORK = []  # set: the next fork raises SIGTERM in the parent's after-fork hooks
+
+
+def _signal_at_fork():
+    if _SIGNAL_AT_FORK:
+        _SIGNAL_AT_FORK.clear()
+        signal.raise_signal(signal.SIGTERM)
+
+
+os.register_at_fork(after_in_parent=_signal_at_fork)  # a hook for good: inert unless set
+
+
+def test_a_signal_during_the_fork_ends_the_block_and_the_helper(tmp_path):
+    # a handler's exception inside the fork's after-fork hooks (where logging's run) is
+    # printed and dropped by Python; held over the fork, the signal arrives after it and
+    # leaves the block as any signal does, the helper killed and reaped
+    class Stop(Exception):
+        pass
+
+    def on_term(signum, frame):
+        raise Stop
+
+    started = tmp_path / "started"
+
+    def work(claim):
+        if not started.exists():
+            started.write_text(str(os.getpid()))
+        return [i for i in iter(claim, None)]
+
+    previous = signal.signal(signal.SIGTERM, on_term)
+    try:
+        _SIGNAL_AT_FORK.append(True)
+        with pytest.raises(Stop), shared_jobs(2, work, "testing") as finish:
+            finish()  # not reached: the signal ends the block first
+            pytest.fail("the signal was lost")
+    finally:
+        _SIGNAL_AT_FORK.clear()
+        signal.signal(signal.SIGTERM, previous)
+    assert signal.pthread_sigmask(signal.SIG_BLOCK, []) & {signal.SIGTERM, signal.SIGINT} == set()

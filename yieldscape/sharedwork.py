@@ -33,6 +33,7 @@ T = TypeVar("T")
 Claim = Callable[[], "int | None"]  # the next job's number, None when none is left
 
 FORK = sys.platform.startswith("linux") and hasattr(os, "fork")
+_ENDING = {signal.SIGINT, signal.SIGTERM}  # the signals that end a run
 MAX_JOBS = 255  # one byte per job number
 _PR_SET_PDEATHSIG = 1
 
@@ -64,6 +65,7 @@ def _in_helper(parent: int, tokens: int, out: int, work: Callable[[Claim], T]) -
         # dies, so does the helper (Linux), and it never outlives a parent already gone.
         signal.signal(signal.SIGINT, signal.SIG_DFL)
         signal.signal(signal.SIGTERM, signal.SIG_DFL)
+        signal.pthread_sigmask(signal.SIG_UNBLOCK, _ENDING)  # blocked over the fork
         with contextlib.suppress(OSError, AttributeError):
             ctypes.CDLL(None, use_errno=True).prctl(_PR_SET_PDEATHSIG, signal.SIGKILL)
         if os.getppid() != parent:
@@ -111,6 +113,11 @@ def shared_jobs(
     # gone: a collection walks every tracked object, writing to its header, and each page so
     # written is copied (the helper copied 0.37 GB of pages of a run at 1M stands without)
     gc.freeze()
+    # SIGINT and SIGTERM held over the fork: one arriving inside it ran its handler in the
+    # fork's after-fork hooks (logging's), where its exception is printed and dropped, and
+    # the run went on; held, it arrives where the helper is killed after it (below), and in
+    # the helper once its handlers are the default ones
+    mask = signal.pthread_sigmask(signal.SIG_BLOCK, _ENDING)
     try:
         with warnings.catch_warnings():
             # Python 3.12+ warns of any fork of a process with threads; ours are native
@@ -121,6 +128,7 @@ def shared_jobs(
             )
             pid = os.fork()
     except BaseException:  # no helper (no memory or processes left for one): none wanted
+        signal.pthread_sigmask(signal.SIG_SETMASK, mask)
         gc.unfreeze()
         for fd in (tokens, back, out):
             os.close(fd)
@@ -152,6 +160,7 @@ def shared_jobs(
         return [mine, payload[1]]
 
     try:
+        signal.pthread_sigmask(signal.SIG_SETMASK, mask)  # a signal held: raised here
         yield finish
     finally:
         if not waited:
