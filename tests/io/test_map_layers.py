@@ -1,6 +1,9 @@
 """The per-period and per-year map layers of projection.gpkg and the GeoTIFF export, read back
 through GDAL (pyogrio, rasterio) as a GIS would read them."""
 
+import sqlite3
+from contextlib import closing
+
 import numpy as np
 import pandas as pd
 import pyogrio
@@ -10,6 +13,7 @@ import shapely
 from pyproj import CRS
 
 from yieldscape.cli.main import main
+from yieldscape.io.vector import fid_runs, fids_in_order
 
 from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
 
@@ -91,3 +95,42 @@ def test_geotiffs_carry_each_stands_value_at_its_cells(out):
         want = ages[ages["year"] == 2080].set_index("stand_id").loc[stands["stand_id"], "age_years"]
         np.testing.assert_allclose(got, want.to_numpy(), rtol=1e-6)
         assert "2080" in src.descriptions[0]
+
+
+def query_plan(gpkg, layer) -> str:
+    """SQLite's plan for reading the whole view ``layer`` (EXPLAIN QUERY PLAN)."""
+    with closing(sqlite3.connect(gpkg)) as con:
+        return " | ".join(r[-1] for r in con.execute(f'EXPLAIN QUERY PLAN SELECT * FROM "{layer}"'))
+
+
+def test_each_view_reads_its_rows_as_a_range_of_the_primary_key_without_an_index(out):
+    # the tables are written in period (year) order: a view reads one fid range (SQLite's
+    # documented plan text for a rowid range: "USING INTEGER PRIMARY KEY (rowid>? AND rowid<?)")
+    gpkg = out / "projection.gpkg"
+    with closing(sqlite3.connect(gpkg)) as con:
+        indexed = {
+            r[0] for r in con.execute("SELECT tbl_name FROM sqlite_master WHERE type='index'")
+        }
+    assert "stand_ages" not in indexed and "harvest_events" not in indexed
+    assert "stands" in indexed  # the join's lookup of each row's stand
+    for layer in ("harvests_period_03", "stands_age_2080"):
+        plan = query_plan(gpkg, layer)
+        assert "USING INTEGER PRIMARY KEY (rowid>? AND rowid<?)" in plan, plan
+
+
+def test_fid_runs_are_the_rows_of_each_value_numbered_from_one():
+    runs = fid_runs(np.array([1, 1, 1, 2, 4, 4]))
+    assert runs == {1: (1, 3), 2: (4, 4), 4: (5, 6)}
+    assert fid_runs(np.array([], dtype=np.int64)) == {}
+    assert fid_runs(np.array([1, 2, 1])) is None  # 1 in two runs: a range would take the 2
+
+
+def test_fids_in_order_sees_a_missing_row(tmp_path):
+    gpkg = tmp_path / "t.gpkg"
+    pyogrio.write_dataframe(pd.DataFrame({"period": [1, 1, 2, 3]}), gpkg, layer="t")
+    assert fids_in_order(gpkg, "t", 4)
+    assert not fids_in_order(gpkg, "t", 5)
+    with closing(sqlite3.connect(gpkg)) as con, con:
+        con.execute('DELETE FROM "t" WHERE "fid" = 2')  # GDAL's trigger lowers its count
+    assert not fids_in_order(gpkg, "t", 4)
+    assert not fids_in_order(gpkg, "t", 3)  # 3 rows, fids 1, 3, 4

@@ -230,6 +230,44 @@ def move_attribute_table(src: Path, dst: Path, table: str) -> None:
     src.unlink()
 
 
+def fid_runs(values: np.ndarray) -> dict[object, tuple[int, int]] | None:
+    """The range of fids (first, last) each value holds in a table written in the order of
+    ``values`` (a fresh GeoPackage table numbers its rows 1, 2, ... as they come), or None if
+    some value's rows are not one run; a view can then select a value's rows as a range of
+    SQLite's primary key, with no index (see :func:`fids_in_order`)."""
+    if not len(values):
+        return {}
+    starts = np.flatnonzero(np.r_[True, values[1:] != values[:-1]])
+    firsts = values[starts]
+    if len(pd.unique(firsts)) != len(firsts):
+        return None
+    lasts = np.r_[starts[1:], len(values)]
+    return {v: (int(a) + 1, int(b)) for v, a, b in zip(firsts.tolist(), starts, lasts, strict=True)}
+
+
+def fids_in_order(path: Path, table: str, rows: int) -> bool:
+    """Whether ``table`` of the GeoPackage ``path`` numbers its ``rows`` rows 1 to ``rows``
+    (fids unique, as SQLite's primary key): the premise of :func:`fid_runs`. The least and
+    greatest fid are read from the primary key, the row count from GDAL's feature count
+    (``gpkg_ogr_contents``) where it keeps one (counting the rows would read the table)."""
+    with closing(sqlite3.connect(path)) as con:
+        least, most = con.execute(
+            f'SELECT (SELECT min("fid") FROM "{table}"), (SELECT max("fid") FROM "{table}")'
+        ).fetchone()
+        if not rows:
+            return least is None
+        try:
+            kept = con.execute(
+                "SELECT feature_count FROM gpkg_ogr_contents WHERE table_name = ?", (table,)
+            ).fetchone()
+        except sqlite3.OperationalError:  # no such table: GDAL was told to keep none
+            kept = None
+        count = kept[0] if kept and kept[0] is not None else None
+        if count is None:
+            (count,) = con.execute(f'SELECT count(*) FROM "{table}"').fetchone()
+    return (count, least, most) == (rows, 1, rows)
+
+
 @contextmanager
 def unsynced_gpkg(path: Path, sync: bool = True) -> Iterator[None]:
     """Write a GeoPackage without SQLite's sync after each transaction
