@@ -33,6 +33,7 @@ from yieldscape.io.vector import (
     fid_runs,
     fids_in_order,
     move_attribute_table,
+    sync_in_background,
     unsynced_gpkg,
     write_gpkg_layer,
 )
@@ -150,6 +151,7 @@ def write_outputs(
     helper = rep.figures and sharedwork.FORK and result.stand_ages is not None
     helper = helper and scenario.output.format != "geoparquet"  # stand_ages: Parquet then
     side = directory / SIDE_GPKG if helper else None
+    synced = _nothing  # waits for the GeoPackage's sync, started after the long table
     with (
         shared_figures(result, scenario, directory / FIGURES_DIR, side)
         if rep.figures
@@ -159,7 +161,7 @@ def write_outputs(
             native = scenario.output.geoparquet_geometry == "native"
             write_tables(result, directory, parquet=True, native=native)
         else:
-            with unsynced_gpkg(gpkg):
+            with unsynced_gpkg(gpkg, sync=side is None):  # else synced after the long table
                 write_tables(result, directory, skip=LONG_TABLE if side else None)
                 if rep.map_layers and side is None:
                     write_map_layers(result, scenario, gpkg)
@@ -173,10 +175,11 @@ def write_outputs(
         # of the tables) with the map layers while the helper draws; else after the figures
         early = side is not None and side.exists()
         if early:
-            _long_table_and_maps(result, scenario, gpkg, side)
+            synced = _long_table_and_maps(result, scenario, gpkg, side)
         figures = drawn()
     if side is not None and not early:
-        _long_table_and_maps(result, scenario, gpkg, side)
+        synced = _long_table_and_maps(result, scenario, gpkg, side)
+    synced()  # (after an error the thread ends on its own, on a file about to be removed)
     if comparison is not None and rep.figures:
         figures["comparison"] = Figure(
             directory / FIGURES_DIR / COMPARISON_PNG,
@@ -214,13 +217,20 @@ def write_case(
     return without_stands(result, write_outputs(result, scenario, folder, (name, sets)))
 
 
-def _long_table_and_maps(result: RunResult, scenario: Scenario, gpkg: Path, side: Path) -> None:
+def _long_table_and_maps(
+    result: RunResult, scenario: Scenario, gpkg: Path, side: Path
+) -> Callable[[], None]:
     """The :data:`LONG_TABLE` moved from the helper's GeoPackage ``side`` into ``gpkg``,
-    then the map layers."""
-    with unsynced_gpkg(gpkg):
+    then the map layers; the file's sync started, and the function that waits for it."""
+    with unsynced_gpkg(gpkg, sync=False):
         move_attribute_table(side, gpkg, LONG_TABLE)
         if scenario.report.map_layers:
             write_map_layers(result, scenario, gpkg)
+    return sync_in_background(gpkg)
+
+
+def _nothing() -> None:
+    """Nothing to wait for."""
 
 
 def _write_cases(

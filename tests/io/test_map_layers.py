@@ -1,8 +1,10 @@
 """The per-period and per-year map layers of projection.gpkg and the GeoTIFF export, read back
 through GDAL (pyogrio, rasterio) as a GIS would read them."""
 
+import os
 import sqlite3
 from contextlib import closing
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -13,7 +15,7 @@ import shapely
 from pyproj import CRS
 
 from yieldscape.cli.main import main
-from yieldscape.io.vector import fid_runs, fids_in_order
+from yieldscape.io.vector import fid_runs, fids_in_order, sync_in_background
 
 from helpers import scenario_dict, squares, stand_attrs, write_layer, write_scenario
 
@@ -134,3 +136,41 @@ def test_fids_in_order_sees_a_missing_row(tmp_path):
         con.execute('DELETE FROM "t" WHERE "fid" = 2')  # GDAL's trigger lowers its count
     assert not fids_in_order(gpkg, "t", 4)
     assert not fids_in_order(gpkg, "t", 3)  # 3 rows, fids 1, 3, 4
+
+
+def test_a_run_syncs_its_geopackage_once_after_its_last_write(tmp_path, monkeypatch):
+    # the staged output is moved into place only after the GeoPackage is on disk whole
+    # (io.vector.unsynced_gpkg); the sync runs in a thread beside the figures
+    synced = []
+    real = os.fsync
+
+    def fsync(fd):
+        path = Path(os.readlink(f"/proc/self/fd/{fd}"))
+        synced.append((path.name, path.stat().st_size))
+        real(fd)
+
+    monkeypatch.setattr("yieldscape.io.vector.os.fsync", fsync)
+    n = 12
+    layer = write_layer(tmp_path / "s.gpkg", squares(n), stand_attrs(n, ages=np.arange(n) * 15.0))
+    scn = write_scenario(tmp_path / "scn.toml", scenario_dict(layer))
+    out = tmp_path / "out"
+    assert main(["run", str(scn), "--out", str(out), "-q"]) == 0
+    gpkg = out / "projection.gpkg"
+    assert [name for name, _ in synced] == ["projection.gpkg"]
+    assert synced[0][1] == gpkg.stat().st_size
+    with closing(sqlite3.connect(gpkg)) as con:  # the long table and the views are in it
+        names = {r[0] for r in con.execute("SELECT table_name FROM gpkg_contents")}
+    assert {"stand_ages", "harvests_period_01", "stands_age_2030"} <= names
+
+
+def test_the_background_sync_raises_its_error_when_waited_for(tmp_path, monkeypatch):
+    path = tmp_path / "x.gpkg"
+    path.write_bytes(b"x")
+
+    def fails(fd):
+        raise OSError(5, "Input/output error")
+
+    monkeypatch.setattr("yieldscape.io.vector.os.fsync", fails)
+    wait = sync_in_background(path)
+    with pytest.raises(OSError, match="Input/output"):
+        wait()

@@ -5,7 +5,8 @@ from __future__ import annotations
 
 import os
 import sqlite3
-from collections.abc import Iterator
+import threading
+from collections.abc import Callable, Iterator
 from contextlib import closing, contextmanager
 from dataclasses import dataclass
 from pathlib import Path
@@ -278,19 +279,49 @@ def unsynced_gpkg(path: Path, sync: bool = True) -> Iterator[None]:
     every output is whole (:func:`yieldscape.io.outputs.staged_output`): SQLite without sync
     still survives the process failing, and only a crash of the machine itself could leave a
     broken file, in a staged directory nobody reads; the one sync at the end makes the file
-    durable before it is moved into place (``sync=False``: none, for a file to be deleted)."""
+    durable before it is moved into place (``sync=False``: none, for a file to be deleted or
+    one synced by :func:`sync_in_background` after its last block)."""
     old = pyogrio.get_gdal_config_option("OGR_SQLITE_SYNCHRONOUS")
     pyogrio.set_gdal_config_options({"OGR_SQLITE_SYNCHRONOUS": "OFF"})
     try:
         yield
     finally:
         pyogrio.set_gdal_config_options({"OGR_SQLITE_SYNCHRONOUS": old})
-    if sync and path.exists():
+    if sync:
+        _fsync(path)
+
+
+def _fsync(path: Path) -> None:
+    if path.exists():
         fd = os.open(path, os.O_RDONLY)
         try:
             os.fsync(fd)
         finally:
             os.close(fd)
+
+
+def sync_in_background(path: Path) -> Callable[[], None]:
+    """Start the one sync of a GeoPackage written in :func:`unsynced_gpkg` blocks with
+    ``sync=False`` in a thread (the call waits on the disk and releases the GIL; at 1M stands
+    1.5 s), so that the run goes on while it runs; the function returned waits for it and
+    raises its error, and must be called before the file is moved into place."""
+    errors: list[OSError] = []
+
+    def work() -> None:
+        try:
+            _fsync(path)
+        except OSError as exc:
+            errors.append(exc)
+
+    thread = threading.Thread(target=work, name=f"sync {path.name}", daemon=True)
+    thread.start()
+
+    def wait() -> None:
+        thread.join()
+        if errors:
+            raise errors[0]
+
+    return wait
 
 
 def add_feature_views(
