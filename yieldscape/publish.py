@@ -151,7 +151,7 @@ def write_outputs(
     helper = rep.figures and sharedwork.FORK and result.stand_ages is not None
     helper = helper and scenario.output.format != "geoparquet"  # stand_ages: Parquet then
     side = directory / SIDE_GPKG if helper else None
-    synced = _nothing  # waits for the GeoPackage's sync, started after the long table
+    synced = _nothing  # waits for the GeoPackage's last sync, after the long table
     with (
         shared_figures(result, scenario, directory / FIGURES_DIR, side)
         if rep.figures
@@ -171,6 +171,9 @@ def write_outputs(
         if cases is not None:
             cases()
         comparison = _write_cases(result, scenario, directory, record)
+        # the layers written so far go to disk while the long table is moved in (the sync
+        # after it then has less left to write)
+        first = sync_in_background(gpkg) if side is not None else _nothing
         # the helper's table, once written (renamed into place), goes in its place (the last
         # of the tables) with the map layers while the helper draws; else after the figures
         early = side is not None and side.exists()
@@ -179,7 +182,8 @@ def write_outputs(
         figures = drawn()
     if side is not None and not early:
         synced = _long_table_and_maps(result, scenario, gpkg, side)
-    synced()  # (after an error the thread ends on its own, on a file about to be removed)
+    first()  # (after an error the threads end on their own, on a file about to be removed)
+    synced()
     if comparison is not None and rep.figures:
         figures["comparison"] = Figure(
             directory / FIGURES_DIR / COMPARISON_PNG,

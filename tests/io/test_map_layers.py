@@ -140,7 +140,8 @@ def test_fids_in_order_sees_a_missing_row(tmp_path):
 
 def test_a_run_syncs_its_geopackage_once_after_its_last_write(tmp_path, monkeypatch):
     # the staged output is moved into place only after the GeoPackage is on disk whole
-    # (io.vector.unsynced_gpkg); the sync runs in a thread beside the figures
+    # (io.vector.unsynced_gpkg): synced in threads, the layers while the long table is moved
+    # in, then the whole file after its last write
     synced = []
     real = os.fsync
 
@@ -156,8 +157,9 @@ def test_a_run_syncs_its_geopackage_once_after_its_last_write(tmp_path, monkeypa
     out = tmp_path / "out"
     assert main(["run", str(scn), "--out", str(out), "-q"]) == 0
     gpkg = out / "projection.gpkg"
-    assert [name for name, _ in synced] == ["projection.gpkg"]
-    assert synced[0][1] == gpkg.stat().st_size
+    assert {name for name, _ in synced} == {"projection.gpkg"}
+    assert len(synced) <= 2
+    assert max(size for _, size in synced) == gpkg.stat().st_size
     with closing(sqlite3.connect(gpkg)) as con:  # the long table and the views are in it
         names = {r[0] for r in con.execute("SELECT table_name FROM gpkg_contents")}
     assert {"stand_ages", "harvests_period_01", "stands_age_2030"} <= names
