@@ -301,10 +301,11 @@ def _fsync(path: Path) -> None:
 
 
 def sync_in_background(path: Path) -> Callable[[], None]:
-    """Start the one sync of a GeoPackage written in :func:`unsynced_gpkg` blocks with
+    """Start a sync of a GeoPackage written in :func:`unsynced_gpkg` blocks with
     ``sync=False`` in a thread (the call waits on the disk and releases the GIL; at 1M stands
-    1.5 s), so that the run goes on while it runs; the function returned waits for it and
-    raises its error, and must be called before the file is moved into place."""
+    0.75 s), so that the run goes on while it runs; the function returned waits for it and
+    raises its error. The last one, started after the file's last write, must be waited for
+    before the file is moved into place."""
     errors: list[OSError] = []
 
     def work() -> None:
