@@ -4,12 +4,14 @@ helper's errors raised in the caller, and no helper left once the block is left.
 import errno
 import os
 import signal
+import threading
 import time
 
 import pytest
 
+from yieldscape import sharedwork
 from yieldscape.errors import OutputError
-from yieldscape.sharedwork import FORK, shared_jobs
+from yieldscape.sharedwork import FORK, beside, shared_jobs
 
 pytestmark = pytest.mark.skipif(not FORK, reason="the helper is forked on Linux only")
 
@@ -103,8 +105,12 @@ def test_without_a_helper_every_job_runs_here():
 
 
 class _Unpicklable(Exception):
-    def __init__(self, a, b):  # pickled with args (a,) only: unpickling it fails
+    def __init__(self, a, b):
         super().__init__(a)
+        # pickled with its attributes by the default reduction and by tblib's (which
+        # dask.distributed installs for every exception class when imported: a class that
+        # only failed to unpickle then depended on the order of the suite); a lock does not
+        self.lock = threading.Lock()
 
 
 def test_an_error_that_does_not_unpickle_comes_back_as_its_text():
@@ -161,3 +167,56 @@ def test_a_signal_during_the_fork_ends_the_block_and_the_helper(tmp_path):
         _SIGNAL_AT_FORK.clear()
         signal.signal(signal.SIGTERM, previous)
     assert signal.pthread_sigmask(signal.SIG_BLOCK, []) & {signal.SIGTERM, signal.SIGINT} == set()
+
+
+def test_a_task_beside_the_block_runs_in_the_helper_while_the_block_runs(tmp_path):
+    here, began = os.getpid(), tmp_path / "began"
+
+    def task():
+        began.write_text("")
+        return os.getpid()
+
+    with beside(task, "testing") as wait:
+        while not began.exists():  # the block goes on while the helper works
+            time.sleep(0.01)
+        pid = wait()
+    assert pid != here
+    with pytest.raises(ProcessLookupError):  # waited for and reaped
+        os.kill(pid, 0)
+
+
+def test_a_task_beside_the_block_raises_its_error_where_it_is_waited_for():
+    def task():
+        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC), "/x/projection.gpkg")
+
+    with pytest.raises(OSError) as info, beside(task, "writing stands") as wait:
+        wait()  # at once: the helper's task all the same
+    assert info.value.filename == "/x/projection.gpkg"
+    assert "in the helper process writing stands" in str(info.value.__cause__)
+
+
+def test_a_task_beside_the_block_left_unwaited_is_killed_before_it_writes(tmp_path):
+    started, late = tmp_path / "started", tmp_path / "late"
+
+    def task():
+        started.write_text(str(os.getpid()))
+        time.sleep(1.0)
+        late.write_text("written after the block was left")
+
+    with pytest.raises(KeyboardInterrupt), beside(task, "testing"):
+        while not started.exists() or not started.read_text():
+            time.sleep(0.01)
+        raise KeyboardInterrupt
+    with pytest.raises(ProcessLookupError):
+        os.kill(int(started.read_text()), 0)
+    time.sleep(1.2)
+    assert not late.exists()
+
+
+def test_without_a_fork_the_task_runs_here_when_waited_for(monkeypatch):
+    monkeypatch.setattr(sharedwork, "FORK", False)
+    done = []
+    with beside(lambda: done.append(os.getpid()) or "value", "testing") as wait:
+        assert done == []  # not before it is waited for
+        assert wait() == "value"
+    assert done == [os.getpid()]

@@ -42,11 +42,7 @@ from yieldscape.projection import (
     zone_codes,
     zone_names,
 )
-from yieldscape.publish import (
-    MANAGED,
-    write_case,
-    write_outputs,
-)
+from yieldscape.publish import MANAGED, NOT_AHEAD, Ahead, stands_ahead, write_case, write_outputs
 from yieldscape.reporting import (
     harvests_layer,
     stands_layer,
@@ -177,13 +173,13 @@ def run(
     if out is not None:
         check_output_dir(out, MANAGED)  # before the long stages, not after
     settings = parallel or Parallel()
-    # cases on workers write their folders as they finish: the staged output is made first
-    early = out is not None and bool(scenario.sensitivity) and not settings.serial
-    # the pool entered last, left first: no worker writes into the staged folder after it
+    # staged first: the stands layer goes there once built, cases on workers write there as
+    # they end; left in reverse: the stands' writer, the pool (no worker writes after it)
     with (
         captured_log() as capture,
-        staged_output(out, MANAGED) if early and out else nullcontext(None) as staged,
+        staged_output(out, MANAGED) if out else nullcontext(None) as staged,
         pool(settings, __name__) as tasks,
+        stands_ahead(staged, scenario) as ahead,
     ):
         cases = tasks and {  # started before the base case, to go on beside it
             name: tasks.submit(
@@ -195,7 +191,7 @@ def run(
             )
             for name, sets, case in scenario.sensitivity
         }
-        result = _project(scenario, strict, tasks)
+        result = _project(scenario, strict, tasks, ahead)
         result.out_dir, result.log = out, capture.lines
         result.warnings = tuple(capture.warnings)  # this run's own, not its cases'
 
@@ -205,13 +201,13 @@ def run(
                 tasks.connected()  # a scheduler not reached: an error before anything is out
                 tasks.close()  # the cluster shuts down beside what is left to write
 
-        if out is None or tasks is None:  # in one process: the cases, then all the writing
+        if staged is None or tasks is None:  # in one process: the cases, then all the writing
             collect()
-        if out is not None:
-            with nullcontext(staged) if early else staged_output(out, MANAGED) as tmp:
-                log.info("write outputs ...")
-                # with tasks, the base case's layers and figures are written while they end
-                write_outputs(result, scenario, tmp, cases=None if tasks is None else collect)
+        if staged is not None:
+            log.info("write outputs ...")
+            # with tasks, the base case's layers and figures are written while they end
+            more = None if tasks is None else collect
+            write_outputs(result, scenario, staged, cases=more, ahead=ahead)
     return result
 
 
@@ -251,8 +247,10 @@ class _Model:
     arrays: StandArrays
 
 
-def _project(scenario: Scenario, strict: bool, tasks: Pool | None = None) -> RunResult:
-    """Everything of a run but writing: check, project, schedule, tables, indicators."""
+def _project(
+    scenario: Scenario, strict: bool, tasks: Pool | None = None, ahead: Ahead = NOT_AHEAD
+) -> RunResult:
+    """All but writing (the stands layer to ``ahead``): check, project, schedule, tables..."""
     timer = Timer()
     with timer.stage("read and check inventory"):
         inventory = check(scenario, strict=strict)
@@ -262,7 +260,7 @@ def _project(scenario: Scenario, strict: bool, tasks: Pool | None = None) -> Run
     flow = sched.flow
     log.info("flow level %.0f m3/year; limited by %s", flow.level_m3_per_year, flow.binding)
     with timer.stage("build output tables"):
-        result = _tables(scenario, inventory, model, sched)
+        result = _tables(scenario, inventory, model, sched, ahead)
     if scenario.disturbance.replicates:
         with timer.stage("Monte Carlo disturbance"):
             d = scenario.disturbance
@@ -336,10 +334,12 @@ def _schedule(scenario: Scenario, inventory: CheckResult, model: _Model, timer: 
 
 
 def _tables(
-    scenario: Scenario, inventory: CheckResult, model: _Model, sched: Schedule
+    scenario: Scenario, inventory: CheckResult, model: _Model, sched: Schedule, ahead: Ahead
 ) -> RunResult:
     """The run's tables (wood flow, stands, harvests, products) in a result to complete."""
     flow, s, c, p = sched.flow, model.arrays, model.curves, model.periods
+    stands = released(stands_layer(flow, inventory.stands, s, c, p))
+    ahead.start(stands)  # written beside the rest
     revenue = revenue_by_period(flow, s, c, scenario, p)
     lp_bound = None if sched.lp is None else sched.lp.harvest_m3
     return RunResult(  # released: each big table's temporaries freed before the next one's
@@ -347,7 +347,7 @@ def _tables(
         inventory=inventory,
         flow=flow,
         wood_flow=with_unit(wood_flow_table(flow, p, lp_bound, revenue), REGION),
-        stands=released(stands_layer(flow, inventory.stands, s, c, p)),
+        stands=stands,
         harvests=released(harvests_layer(flow, inventory.stands, p, c.codes)),
         regeneration=released(regeneration_table(flow, c.codes)),
         products=released(wood_flow_by_product(flow, s, c, scenario)),

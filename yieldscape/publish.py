@@ -9,7 +9,8 @@ import os
 import shutil
 import time
 from collections.abc import Callable, Iterator
-from contextlib import contextmanager, nullcontext
+from contextlib import ExitStack, contextmanager, nullcontext
+from dataclasses import dataclass
 from datetime import UTC, datetime
 from functools import partial
 from pathlib import Path
@@ -131,19 +132,81 @@ MAP_PIXELS = 1200  # cells along the longer side of the harvest map figure
 BASE_LABEL = "base"  # the base case's name in the comparison with its sensitivity cases
 
 
+@dataclass(frozen=True)
+class Ahead:
+    """The ``stands`` layer written ahead of the other outputs (:func:`stands_ahead`):
+    ``start(stands)`` once the layer is built, ``written()`` where the writer needs it
+    (waits for it; True once the layer is in the output, False where nothing was started)."""
+
+    start: Callable[[gpd.GeoDataFrame], None]
+    written: Callable[[], bool]
+
+
+NOT_AHEAD = Ahead(lambda stands: None, lambda: False)
+
+
+@contextmanager
+def stands_ahead(directory: Path | None, scenario: Scenario) -> Iterator[Ahead]:
+    """The run's ``stands`` layer written into ``directory`` by a helper process forked once
+    it is built (:func:`~yieldscape.sharedwork.beside`), while this process builds the other
+    tables and indicators on one core: GDAL's inserts of its rows (4.5-8.6 s at 1M stands)
+    leave the write stage. Nothing where ``directory`` is None or nothing is forked (not
+    Linux: the writer writes the layer itself); leaving the block before the layer is
+    waited for kills the helper (the caller removes the staged output)."""
+    if directory is None or not sharedwork.FORK:
+        yield NOT_AHEAD
+        return
+    with ExitStack() as stack:
+        waits: list[Callable[[], None]] = []  # the helper's, once started
+        done: list[bool] = []
+
+        def start(stands: gpd.GeoDataFrame) -> None:
+            if not waits:
+                task = partial(_stands_unsynced, stands, directory, scenario)
+                waits.append(stack.enter_context(sharedwork.beside(task, "writing stands")))
+
+        def written() -> bool:
+            if waits and not done:
+                waits[0]()
+                done.append(True)
+            return bool(done)
+
+        yield Ahead(start, written)
+
+
+def _stands_unsynced(stands: gpd.GeoDataFrame, directory: Path, scenario: Scenario) -> None:
+    """:func:`write_stands_layer` as the run writes it (the GeoPackage synced once, later)."""
+    out = scenario.output
+    with unsynced_gpkg(directory / GPKG_NAME, sync=False):
+        parquet, native = out.format == "geoparquet", out.geoparquet_geometry == "native"
+        write_stands_layer(stands, directory, parquet, native)
+
+
+def write_stands_layer(
+    stands: gpd.GeoDataFrame, directory: Path, parquet: bool = False, native: bool = False
+) -> None:
+    """The ``stands`` layer: into the GeoPackage or, with ``parquet``, as
+    :data:`STANDS_PARQUET` (``native``: GeoParquet 1.1's native encoding)."""
+    if parquet:
+        write_geoparquet(directory / STANDS_PARQUET, stands, native)
+    else:
+        write_gpkg_layer(directory / GPKG_NAME, stands, "stands")
+
+
 def write_outputs(
     result: RunResult,
     scenario: Scenario,
     directory: Path,
     case: tuple[str, dict] | None = None,
     cases: Callable[[], object] | None = None,
+    ahead: Ahead = NOT_AHEAD,
 ) -> dict:
     """Write every output of a run into the existing ``directory``, and the sensitivity
     cases' outputs into ``directory/<name>/`` with a comparison of them; ``case`` (name and
     keys set) marks the run as one of those cases. ``cases``, if given, is called once the
     run's own layers and tables are written, before the cases are needed (it fills
-    ``result.cases``: their tasks finish beside this run's writes). Returns what run.json
-    holds."""
+    ``result.cases``: their tasks finish beside this run's writes). ``ahead``: the stands
+    layer, if started ahead (:func:`stands_ahead`). Returns what run.json holds."""
     t0 = time.perf_counter()
     rep = scenario.report
     gpkg = directory / GPKG_NAME
@@ -157,12 +220,14 @@ def write_outputs(
         if rep.figures
         else nullcontext(dict)
     ) as drawn:
+        # the stands layer first: written ahead (waited for here), else by write_tables
+        skip = {"stands"} if ahead.written() else set()
         if scenario.output.format == "geoparquet":
             native = scenario.output.geoparquet_geometry == "native"
-            write_tables(result, directory, parquet=True, native=native)
+            write_tables(result, directory, skip, parquet=True, native=native)
         else:
             with unsynced_gpkg(gpkg, sync=side is None):  # else synced after the long table
-                write_tables(result, directory, skip=LONG_TABLE if side else None)
+                write_tables(result, directory, skip | ({LONG_TABLE} if side else set()))
                 if rep.map_layers and side is None:
                     write_map_layers(result, scenario, gpkg)
         if rep.raster_cell_m:
@@ -263,25 +328,26 @@ def _write_cases(
 def write_tables(
     result: RunResult,
     directory: Path,
-    skip: str | None = None,
+    skip: set[str] | frozenset[str] = frozenset(),
     parquet: bool = False,
     native: bool = False,
 ) -> None:
-    """The GeoPackage layers and tables, and the same tables as CSV; ``skip``: a table left
-    to another writer (:func:`shared_figures`); with ``parquet``, the layers as GeoParquet
+    """The GeoPackage layers and tables, and the same tables as CSV; ``skip``: the layers
+    and tables left to another writer (the stands layer to :func:`stands_ahead`, the
+    :data:`LONG_TABLE` to :func:`shared_figures`); with ``parquet``, the layers as GeoParquet
     files (the harvests a layer of their own, each event with its stand's polygon; with
     ``native`` the geometry in GeoParquet 1.1's native encoding) and the tables as CSV only
     (``stand_ages``, which has none, as Parquet)."""
     gpkg = directory / GPKG_NAME
+    if "stands" not in skip:
+        write_stands_layer(result.stands, directory, parquet, native)
     if parquet:
-        write_geoparquet(directory / STANDS_PARQUET, result.stands, native)
         write_geoparquet(directory / HARVESTS_PARQUET, result.harvests, native)
         if result.write_harvestable_layer:
             write_geoparquet(
                 directory / HARVESTABLE_PARQUET, harvestable_layer(result.inventory), native
             )
     else:
-        write_gpkg_layer(gpkg, result.stands, "stands")
         write_harvests(result, gpkg)
         if result.write_harvestable_layer:
             write_gpkg_layer(gpkg, harvestable_layer(result.inventory), "harvestable")
@@ -309,7 +375,7 @@ def write_tables(
         (result.stand_ages, "stand_ages", None),
     ]
     for table, layer, csv in tables:
-        if table is None or layer == skip:
+        if table is None or layer in skip:
             continue
         if not parquet:
             write_gpkg_layer(gpkg, table, layer, spatial=False)

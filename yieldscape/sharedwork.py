@@ -90,15 +90,16 @@ def _in_helper(parent: int, tokens: int, out: int, work: Callable[[Claim], T]) -
 
 @contextlib.contextmanager
 def shared_jobs(
-    jobs: int, work: Callable[[Claim], T], what: str
+    jobs: int, work: Callable[[Claim], T], what: str, fork_one: bool = False
 ) -> Iterator[Callable[[], list[T]]]:
     """Jobs ``0 .. jobs-1`` done by ``work(claim)`` (which calls ``claim()`` until it returns
     None) in a helper process beside the block and, in ``finish()``, in this one. ``finish``
     returns the results of ``work`` in both processes (this one's first); ``what`` names the
-    work in the message should the helper die without a word (killed from outside)."""
+    work in the message should the helper die without a word (killed from outside). A single
+    job is done here in ``finish()`` unless ``fork_one`` (the block has work of its own)."""
     if jobs > MAX_JOBS:
         raise ValueError(f"at most {MAX_JOBS} jobs")
-    if not FORK or jobs < 2:
+    if not FORK or jobs < (1 if fork_one else 2):
         yield lambda: [work(_serial(jobs))]
         return
     tokens, fill = os.pipe()
@@ -170,6 +171,27 @@ def shared_jobs(
         os.close(tokens)
         os.close(back)
         gc.unfreeze()
+
+
+@contextlib.contextmanager
+def beside(task: Callable[[], T], what: str) -> Iterator[Callable[[], T]]:
+    """``task()`` done in a helper process forked on entry, beside the block; ``wait()``
+    returns its result (its error raised here, as :func:`shared_jobs` does). Where no helper
+    is forked (not Linux) it runs here in ``wait()``. Leaving the block without ``wait()``
+    kills the helper."""
+    here = os.getpid()
+
+    def work(claim: Claim) -> tuple[bool, T | None]:
+        if FORK and os.getpid() == here:  # the helper's alone
+            return False, None
+        return (True, task()) if claim() is not None else (False, None)
+
+    with shared_jobs(1, work, what, fork_one=True) as finish:
+
+        def wait() -> T:
+            return next(value for done, value in finish() if done)  # type: ignore[return-value]
+
+        yield wait
 
 
 def _serial(jobs: int) -> Claim:

@@ -315,6 +315,56 @@ def test_the_figures_helper_process_killed_says_so_and_leaves_nothing(
     nothing_left(tmp_path, out)
 
 
+def test_a_full_disk_in_the_stands_writer_says_so(small_case, capsys, monkeypatch):
+    # the stands layer is written by a helper process forked while the run builds its tables
+    tmp_path, _, scenario = small_case
+
+    def full(stands, directory, *args):
+        gpkg = directory / "projection.gpkg"
+        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC), str(gpkg))
+
+    monkeypatch.setattr("yieldscape.publish.write_stands_layer", full)
+    out = tmp_path / "out"
+    fails(
+        capsys,
+        ["run", str(scenario), "--out", str(out)],
+        r"no space left on device while writing .*out/projection.gpkg; nothing was written",
+    )
+    nothing_left(tmp_path, out)
+
+
+def test_a_run_failing_while_the_stands_are_written_kills_the_writer(
+    small_case, capsys, monkeypatch
+):
+    from yieldscape import pipeline, publish
+
+    tmp_path, _, scenario = small_case
+    started, late = tmp_path / "started", tmp_path / "late"
+    real = publish.write_stands_layer
+
+    def slow(stands, directory, *args):
+        started.write_text(str(os.getpid()))
+        time.sleep(1.5)
+        late.write_text("written after the run had failed")
+        return real(stands, directory, *args)
+
+    def failing(*args):
+        while not started.exists() or not started.read_text():
+            time.sleep(0.01)  # the writer is at work
+        raise KeyError("a bug in the indicators")
+
+    monkeypatch.setattr(publish, "write_stands_layer", slow)
+    monkeypatch.setattr(pipeline, "_indicators", failing)
+    out = tmp_path / "out"
+    assert main(["run", str(scenario), "--out", str(out)]) == 1
+    assert "unexpected error (a bug)" in capsys.readouterr().err
+    nothing_left(tmp_path, out)
+    with pytest.raises(ProcessLookupError):  # killed and reaped
+        os.kill(int(started.read_text()), 0)
+    time.sleep(1.7)
+    assert not late.exists()
+
+
 @pytest.mark.parametrize("command", ["curves", "compare"])
 def test_a_full_disk_in_curves_and_compare(earlier, capsys, monkeypatch, command):
     tmp_path, scenario, run = earlier  # the small case and a run of it to compare
@@ -691,26 +741,33 @@ def test_the_staged_folder_disappearing_while_writing(small_case, capsys, monkey
     fails(
         capsys,
         ["run", str(scenario), "--out", str(out)],
-        rf"cannot write {re.escape(str(out))}/age.png \(No such file or directory\); nothing",
+        r"\.out\.\w+\.partial \(where the run writes before moving its output into place\) "
+        "was removed while the run wrote into it; nothing was written",
     )
     nothing_left(tmp_path, out)
 
 
-def test_the_parent_of_out_disappearing_during_the_run(small_case, monkeypatch):
-    # checked at the start, removed while the run projects: it is made again for the output
+def test_the_parent_of_out_disappearing_during_the_run(small_case, capsys, monkeypatch):
+    # made at the start with the staged folder in it (the stands layer goes there while the
+    # run projects), removed with it by someone else: an error that names the file
     from yieldscape import pipeline
 
     tmp_path, _, scenario = small_case
-    (tmp_path / "runs").mkdir()
     project = pipeline._project
 
-    def project_then_remove(*args):
-        (tmp_path / "runs").rmdir()
+    def remove_then_project(*args):
+        shutil.rmtree(tmp_path / "runs")
         return project(*args)
 
-    monkeypatch.setattr(pipeline, "_project", project_then_remove)
-    assert main(["run", str(scenario), "--out", str(tmp_path / "runs" / "out"), "-q"]) == 0
-    assert (tmp_path / "runs" / "out" / "run.json").is_file()
+    monkeypatch.setattr(pipeline, "_project", remove_then_project)
+    out = tmp_path / "runs" / "out"
+    fails(
+        capsys,
+        ["run", str(scenario), "--out", str(out)],
+        r"\.out\.\w+\.partial \(where the run writes before moving its output into place\) "
+        "was removed while the run wrote into it; nothing was written",
+    )
+    nothing_left(tmp_path, out, tmp_path / "runs")
 
 
 def test_a_file_put_into_the_earlier_output_while_writing_is_kept(earlier, capsys, monkeypatch):

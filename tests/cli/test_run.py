@@ -4,6 +4,7 @@ forest that shows it, and the committed sample region once, for what is about th
 import contextlib
 import io
 import json
+import os
 import re
 from pathlib import Path
 
@@ -524,3 +525,52 @@ def test_optimised_mode_maps_the_lp_onto_stands(small_case):
     assert -1e-9 <= gap < 0.05
     assert wf["harvest_m3"].sum() == pytest.approx(wf["lp_bound_m3"].sum() * (1 - gap))
     assert (wf["harvest_m3"] <= wf["lp_bound_m3"] * (1 + 1e-9)).all()
+
+
+def gpkg_catalogue(path):
+    """What a GeoPackage holds, without its timestamps: gpkg_contents (in order), the
+    geometry columns and every table, view, index and trigger with its SQL."""
+    import sqlite3
+
+    with contextlib.closing(sqlite3.connect(path)) as con:
+        contents = con.execute(
+            "SELECT table_name, data_type, identifier, srs_id, min_x, min_y, max_x, max_y "
+            "FROM gpkg_contents ORDER BY rowid"
+        ).fetchall()
+        columns = con.execute("SELECT * FROM gpkg_geometry_columns ORDER BY rowid").fetchall()
+        schema = con.execute("SELECT type, name, sql FROM sqlite_master ORDER BY name").fetchall()
+    return contents, columns, schema
+
+
+def test_the_stands_layer_is_written_by_a_helper_beside_the_tables(tmp_path, monkeypatch):
+    # a helper process forked once the stands layer is built writes it while the run builds
+    # its other tables; the file is the one the run writes itself where nothing is forked
+    from yieldscape import publish, sharedwork
+
+    if not sharedwork.FORK:
+        pytest.skip("the helper is forked on Linux only")
+    layer = write_layer(tmp_path / "stands.gpkg", squares(20), stand_attrs(20, np.arange(20) * 5))
+    scenario = write_scenario(tmp_path / "scenario.toml", scenario_dict(layer))
+    writers = tmp_path / "writers"
+    writers.mkdir()
+    real = publish.write_stands_layer
+
+    def recorded(stands, directory, *args):
+        (writers / str(os.getpid())).write_text(str(directory))
+        return real(stands, directory, *args)
+
+    monkeypatch.setattr(publish, "write_stands_layer", recorded)
+    assert main(["run", str(scenario), "--out", str(tmp_path / "ahead"), "-q"]) == 0
+    (pid,) = (int(p.name) for p in writers.iterdir())
+    assert pid != os.getpid()
+    assert ".partial" in (writers / str(pid)).read_text()  # into the staged output
+    monkeypatch.setattr(sharedwork, "FORK", False)
+    assert main(["run", str(scenario), "--out", str(tmp_path / "here"), "-q"]) == 0
+    assert {p.name for p in writers.iterdir()} == {str(pid), str(os.getpid())}  # by the run
+    ahead, here = tmp_path / "ahead" / "projection.gpkg", tmp_path / "here" / "projection.gpkg"
+    assert gpkg_catalogue(ahead) == gpkg_catalogue(here)
+    for name in pyogrio.list_layers(here)[:, 0]:
+        pd.testing.assert_frame_equal(
+            pyogrio.read_dataframe(ahead, layer=name), pyogrio.read_dataframe(here, layer=name)
+        )
+    assert pyogrio.read_info(ahead, layer="stands")["features"] == 20

@@ -225,7 +225,7 @@ def staged_output(out: Path, managed: frozenset[str]) -> Iterator[Path]:
             _clean_up(tmp, made)
         raise
     except BaseException as exc:
-        fault = write_fault(exc, out, tmp) if isinstance(exc, Exception) else None
+        fault = write_fault(exc, out, tmp) if isinstance(exc, Exception) and not placed else None
         _clean_up(tmp, made)
         if fault is not None:
             raise fault from exc
@@ -284,7 +284,8 @@ def write_fault(
     exc: Exception, out: Path, staged: Path | None = None, left: str = "nothing was written"
 ) -> OutputError | None:
     """The input error for a fault of the file system while writing under ``--out out``
-    (into ``staged``, which stands in for it), or None for anything else (a bug).
+    (into ``staged``, which stands in for it), or None for anything else (a bug). Any
+    error once ``staged`` is gone (removed by someone else) is that.
 
     A full disk or quota is named as such even when a library reports it in its own words
     (SQLite's "database or disk is full") or as a failure it cannot explain, which is what
@@ -292,6 +293,11 @@ def write_fault(
     ``left`` says what became of the outputs."""
     if isinstance(exc, OutputError):
         return None  # already says what is wrong
+    if staged is not None and not staged.exists():  # whatever failed, this is why
+        return OutputError(
+            f"--out {out}: {staged} (where the run writes before moving its output into "
+            f"place) was removed while the run wrote into it; {left}"
+        )
     filename = getattr(exc, "filename", None)
     where = _shown(filename, out, staged) if filename else f"into {out}"
     reason = NO_SPACE.get(getattr(exc, "errno", None) or 0)
