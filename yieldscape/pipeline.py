@@ -42,7 +42,7 @@ from yieldscape.projection import (
     zone_codes,
     zone_names,
 )
-from yieldscape.publish import MANAGED, NOT_AHEAD, Ahead, stands_ahead, write_case, write_outputs
+from yieldscape.publish import MANAGED, Ahead, outputs_ahead, write_case, write_outputs
 from yieldscape.reporting import (
     harvests_layer,
     stands_layer,
@@ -173,13 +173,13 @@ def run(
     if out is not None:
         check_output_dir(out, MANAGED)  # before the long stages, not after
     settings = parallel or Parallel()
-    # staged first: the stands layer goes there once built, cases on workers write there as
-    # they end; left in reverse: the stands' writer, the pool (no worker writes after it)
+    # staged first: outputs go there ahead of the write stage, cases on workers write there
+    # as they end; left in reverse: the helpers writing ahead, the pool (no worker after it)
     with (
         captured_log() as capture,
         staged_output(out, MANAGED) if out else nullcontext(None) as staged,
         pool(settings, __name__) as tasks,
-        stands_ahead(staged, scenario) as ahead,
+        outputs_ahead(staged, scenario) as ahead,
     ):
         cases = tasks and {  # started before the base case, to go on beside it
             name: tasks.submit(
@@ -247,13 +247,12 @@ class _Model:
     arrays: StandArrays
 
 
-def _project(
-    scenario: Scenario, strict: bool, tasks: Pool | None = None, ahead: Ahead = NOT_AHEAD
-) -> RunResult:
+def _project(scenario: Scenario, strict: bool, tasks: Pool | None, ahead: Ahead) -> RunResult:
     """All but writing (the stands layer to ``ahead``): check, project, schedule, tables..."""
     timer = Timer()
     with timer.stage("read and check inventory"):
         inventory = check(scenario, strict=strict)
+    ahead.curve_figures(inventory.stands)  # drawn beside the search
     model = _model(scenario, inventory)
     with timer.stage("project and schedule"):
         sched = _schedule(scenario, inventory, model, timer)
@@ -339,7 +338,7 @@ def _tables(
     """The run's tables (wood flow, stands, harvests, products) in a result to complete."""
     flow, s, c, p = sched.flow, model.arrays, model.curves, model.periods
     stands = released(stands_layer(flow, inventory.stands, s, c, p))
-    ahead.start(stands)  # written beside the rest
+    ahead.stands_layer(stands)  # written beside the rest
     revenue = revenue_by_period(flow, s, c, scenario, p)
     lp_bound = None if sched.lp is None else sched.lp.harvest_m3
     return RunResult(  # released: each big table's temporaries freed before the next one's

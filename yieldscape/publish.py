@@ -10,7 +10,6 @@ import shutil
 import time
 from collections.abc import Callable, Iterator
 from contextlib import ExitStack, contextmanager, nullcontext
-from dataclasses import dataclass
 from datetime import UTC, datetime
 from functools import partial
 from pathlib import Path
@@ -39,7 +38,7 @@ from yieldscape.io.vector import (
     write_gpkg_layer,
 )
 from yieldscape.reporting.compare import comparison_figure, comparison_table
-from yieldscape.reporting.curves import rotation_summary
+from yieldscape.reporting.curves import curves_table, rotation_summary
 from yieldscape.reporting.figures import (
     age_class_figure,
     cover_figure,
@@ -132,46 +131,85 @@ MAP_PIXELS = 1200  # cells along the longer side of the harvest map figure
 BASE_LABEL = "base"  # the base case's name in the comparison with its sensitivity cases
 
 
-@dataclass(frozen=True)
 class Ahead:
-    """The ``stands`` layer written ahead of the other outputs (:func:`stands_ahead`):
-    ``start(stands)`` once the layer is built, ``written()`` where the writer needs it
-    (waits for it; True once the layer is in the output, False where nothing was started)."""
+    """Outputs written ahead of the write stage, each by a helper process forked
+    (:func:`~yieldscape.sharedwork.beside`) once what it needs is built, beside the run's
+    stages that keep one core busy: the yield-curve figures once the stands are read
+    (beside the flow search), the ``stands`` layer once built (beside the other tables and
+    the indicators; GDAL's inserts of its rows took 4.5-8.6 s at 1M stands). The writer
+    waits for each where it needs it. A run that writes nothing, or does not fork (not
+    Linux), writes everything in its write stage (:data:`NOT_AHEAD`, :func:`outputs_ahead`).
+    """
 
-    start: Callable[[gpd.GeoDataFrame], None]
-    written: Callable[[], bool]
+    def __init__(self, directory: Path | None, scenario: Scenario, stack: ExitStack) -> None:
+        self.directory, self.scenario, self.stack = directory, scenario, stack
+        self._waits: dict[str, Callable[[], object]] = {}
+        self._done: dict[str, object] = {}
+
+    def _start(self, name: str, task: Callable[[], object]) -> None:
+        if self.directory is not None and name not in self._waits:
+            helper = ExitStack()  # closed once waited for, else with the run's
+            self.stack.callback(helper.close)
+            wait = helper.enter_context(sharedwork.beside(task, name))
+
+            def waited() -> object:
+                value = wait()
+                helper.close()  # the helper's pipes closed, its objects no longer frozen
+                return value
+
+            self._waits[name] = waited
+
+    def _wait(self, name: str) -> object:
+        if name in self._waits and name not in self._done:
+            self._done[name] = self._waits[name]()
+        return self._done.get(name)
+
+    def curve_figures(self, stands: pd.DataFrame) -> None:
+        """Draw the yield-curve figures of ``stands`` (the netted-down inventory)."""
+        if self.directory is not None and self.scenario.report.figures:
+            figures = self.directory / FIGURES_DIR
+            self._start("drawing curves", partial(curve_figures, self.scenario, stands, figures))
+
+    def stands_layer(self, layer: gpd.GeoDataFrame) -> None:
+        """Write the ``stands`` layer."""
+        if self.directory is not None:
+            write = partial(_stands_unsynced, layer, self.directory, self.scenario)
+            self._start("writing stands", write)
+
+    def figures(self) -> dict[str, Figure]:
+        """The figures drawn ahead, by key (waits for them; none if none were started)."""
+        return self._wait("drawing curves") or {}  # type: ignore[return-value]
+
+    def stands_written(self) -> bool:
+        """Whether the stands layer is in the output (waits for it; False if not started)."""
+        self._wait("writing stands")
+        return "writing stands" in self._done
 
 
-NOT_AHEAD = Ahead(lambda stands: None, lambda: False)
+NOT_AHEAD = Ahead(None, None, ExitStack())  # type: ignore[arg-type]
 
 
 @contextmanager
-def stands_ahead(directory: Path | None, scenario: Scenario) -> Iterator[Ahead]:
-    """The run's ``stands`` layer written into ``directory`` by a helper process forked once
-    it is built (:func:`~yieldscape.sharedwork.beside`), while this process builds the other
-    tables and indicators on one core: GDAL's inserts of its rows (4.5-8.6 s at 1M stands)
-    leave the write stage. Nothing where ``directory`` is None or nothing is forked (not
-    Linux: the writer writes the layer itself); leaving the block before the layer is
-    waited for kills the helper (the caller removes the staged output)."""
+def outputs_ahead(directory: Path | None, scenario: Scenario) -> Iterator[Ahead]:
+    """An :class:`Ahead` writing into ``directory`` (the staged output); leaving the block
+    kills the helpers not waited for (the caller removes the staged output)."""
     if directory is None or not sharedwork.FORK:
         yield NOT_AHEAD
         return
     with ExitStack() as stack:
-        waits: list[Callable[[], None]] = []  # the helper's, once started
-        done: list[bool] = []
+        yield Ahead(directory, scenario, stack)
 
-        def start(stands: gpd.GeoDataFrame) -> None:
-            if not waits:
-                task = partial(_stands_unsynced, stands, directory, scenario)
-                waits.append(stack.enter_context(sharedwork.beside(task, "writing stands")))
 
-        def written() -> bool:
-            if waits and not done:
-                waits[0]()
-                done.append(True)
-            return bool(done)
-
-        yield Ahead(start, written)
+def curve_figures(scenario: Scenario, stands: pd.DataFrame, directory: Path) -> dict[str, Figure]:
+    """The figure of each species' yield curve at the site holding the most of its area
+    (``stands``: the inventory after the netdown, as :func:`curves_table` reads it) into
+    ``directory``, by key: the figures :func:`write_figures` draws as ``curves_<code>``."""
+    directory.mkdir(exist_ok=True)
+    figs = _Figures(directory)
+    table, summaries = curves_table(scenario, stands)
+    for code, summary in dominant_sites(table, summaries).items():
+        _curve_figure(None, scenario, figs, code=code, summary=summary)
+    return dict(figs)
 
 
 def _stands_unsynced(stands: gpd.GeoDataFrame, directory: Path, scenario: Scenario) -> None:
@@ -205,8 +243,8 @@ def write_outputs(
     cases' outputs into ``directory/<name>/`` with a comparison of them; ``case`` (name and
     keys set) marks the run as one of those cases. ``cases``, if given, is called once the
     run's own layers and tables are written, before the cases are needed (it fills
-    ``result.cases``: their tasks finish beside this run's writes). ``ahead``: the stands
-    layer, if started ahead (:func:`stands_ahead`). Returns what run.json holds."""
+    ``result.cases``: their tasks finish beside this run's writes). ``ahead``: what was
+    started ahead of this (:class:`Ahead`). Returns what run.json holds."""
     t0 = time.perf_counter()
     rep = scenario.report
     gpkg = directory / GPKG_NAME
@@ -215,13 +253,14 @@ def write_outputs(
     helper = helper and scenario.output.format != "geoparquet"  # stand_ages: Parquet then
     side = directory / SIDE_GPKG if helper else None
     synced = _nothing  # waits for the GeoPackage's last sync, after the long table
+    result.figures_ahead = ahead.figures()  # before the figures' jobs are listed
     with (
         shared_figures(result, scenario, directory / FIGURES_DIR, side)
         if rep.figures
         else nullcontext(dict)
     ) as drawn:
         # the stands layer first: written ahead (waited for here), else by write_tables
-        skip = {"stands"} if ahead.written() else set()
+        skip = {"stands"} if ahead.stands_written() else set()
         if scenario.output.format == "geoparquet":
             native = scenario.output.geoparquet_geometry == "native"
             write_tables(result, directory, skip, parquet=True, native=native)
@@ -244,7 +283,7 @@ def write_outputs(
         early = side is not None and side.exists()
         if early:
             synced = _long_table_and_maps(result, scenario, gpkg, side)
-        figures = drawn()
+        figures = in_report_order({**drawn(), **result.figures_ahead}, [])
     if side is not None and not early:
         synced = _long_table_and_maps(result, scenario, gpkg, side)
     first()  # (after an error the threads end on their own, on a file about to be removed)
@@ -333,7 +372,7 @@ def write_tables(
     native: bool = False,
 ) -> None:
     """The GeoPackage layers and tables, and the same tables as CSV; ``skip``: the layers
-    and tables left to another writer (the stands layer to :func:`stands_ahead`, the
+    and tables left to another writer (the stands layer to :class:`Ahead`, the
     :data:`LONG_TABLE` to :func:`shared_figures`); with ``parquet``, the layers as GeoParquet
     files (the harvests a layer of their own, each event with its stand's polygon; with
     ``native`` the geometry in GeoParquet 1.1's native encoding) and the tables as CSV only
@@ -561,7 +600,8 @@ FigureJob = Callable[[RunResult, Scenario, "_Figures"], None]
 
 def figure_jobs(result: RunResult, scenario: Scenario) -> list[tuple[str, FigureJob]]:
     """The run's figures in the report's order: each one's key and the job drawing it (the
-    costly ones first, so that two processes sharing them end close together)."""
+    costly ones first, so that two processes sharing them end close together); not those
+    drawn ahead (``result.figures_ahead``)."""
     jobs: list[tuple[str, FigureJob]] = [
         ("harvest_map", _harvest_map_figure),
         ("age_classes", _age_class_figure),
@@ -574,7 +614,7 @@ def figure_jobs(result: RunResult, scenario: Scenario) -> list[tuple[str, Figure
         jobs.append(("monte_carlo", _monte_carlo_figure))
     for code, summary in dominant_sites(result.curves, result.curve_summaries).items():
         jobs.append((f"curves_{code}", partial(_curve_figure, code=code, summary=summary)))
-    return jobs
+    return [job for job in jobs if job[0] not in result.figures_ahead]
 
 
 REPORT_ORDER = ("harvest_forecast", "growing_stock", "age_classes", "cover_targets", "harvest_map")
@@ -583,9 +623,11 @@ REPORT_ORDER = ("harvest_forecast", "growing_stock", "age_classes", "cover_targe
 def in_report_order(
     drawn: dict[str, Figure], jobs: list[tuple[str, FigureJob]]
 ) -> dict[str, Figure]:
-    """``drawn`` in the report's order: :data:`REPORT_ORDER`, then as the jobs list them."""
+    """``drawn`` in the report's order: :data:`REPORT_ORDER`, then as the jobs list them,
+    then those drawn ahead (the curves, last in the jobs' list too) in their order."""
     rank = {key: i for i, (key, _) in enumerate(jobs)}
     rank |= {key: n - len(REPORT_ORDER) for n, key in enumerate(REPORT_ORDER)}
+    rank |= {key: len(jobs) + n for n, key in enumerate(k for k in drawn if k not in rank)}
     return {k: drawn[k] for k in sorted(drawn, key=rank.__getitem__)}
 
 

@@ -15,6 +15,7 @@ from yieldscape.growth.rules import SiteSummary
 from yieldscape.inventory import CheckReport
 from yieldscape.landbase import Netdown
 from yieldscape.reporting.indicators import Verdict
+from yieldscape.reporting.report import Figure
 from yieldscape.reporting.units import UnitOutputs
 from yieldscape.schedule.flow import FlowResult
 
@@ -69,6 +70,8 @@ class RunResult:
     regulated_hlb_stock_m3: float = float("nan")  # a regulated forest's, harvestable land
     curves: pd.DataFrame | None = None  # the curves report table (per species and site)
     curve_summaries: dict[str, list[SiteSummary]] = field(default_factory=dict)  # by species
+    # figures drawn into the output before its write stage (publish.Ahead), by key
+    figures_ahead: dict[str, Figure] = field(default_factory=dict)
     log: list[str] = field(default_factory=list)  # the run's log lines (run.log)
     warnings: tuple[str, ...] = ()  # what the run warned of (also in run.log and the report)
     # management units, harvest partitions and the LP's rows with their duals

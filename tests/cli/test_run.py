@@ -574,3 +574,47 @@ def test_the_stands_layer_is_written_by_a_helper_beside_the_tables(tmp_path, mon
             pyogrio.read_dataframe(ahead, layer=name), pyogrio.read_dataframe(here, layer=name)
         )
     assert pyogrio.read_info(ahead, layer="stands")["features"] == 20
+
+
+def test_the_curve_figures_are_drawn_by_a_helper_beside_the_search(tmp_path, monkeypatch):
+    # forked once the stands are read and netted down; the same figures, in the same place
+    # of the report, as where the run draws them all in its write stage (nothing forked)
+    from yieldscape import publish, sharedwork
+
+    if not sharedwork.FORK:
+        pytest.skip("the helper is forked on Linux only")
+    layer = write_layer(tmp_path / "stands.gpkg", squares(20), stand_attrs(20, np.arange(20) * 5))
+    raw = scenario_dict(layer, report={"figures": True})
+    raw["disturbance"] = {"annual_rate": 0.005, "replicates": 3, "seed": 1}  # one more figure
+    scenario = write_scenario(tmp_path / "scenario.toml", raw)
+    drawers = tmp_path / "drawers"
+    drawers.mkdir()
+    real = publish.curve_figures
+
+    def recorded(scenario, stands, directory):
+        (drawers / str(os.getpid())).write_text(str(directory))
+        return real(scenario, stands, directory)
+
+    monkeypatch.setattr(publish, "curve_figures", recorded)
+    assert main(["run", str(scenario), "--out", str(tmp_path / "ahead"), "-q"]) == 0
+    (pid,) = (int(p.name) for p in drawers.iterdir())
+    assert pid != os.getpid()
+    assert ".partial" in (drawers / str(pid)).read_text()  # into the staged output
+    monkeypatch.setattr(sharedwork, "FORK", False)
+    assert main(["run", str(scenario), "--out", str(tmp_path / "here"), "-q"]) == 0
+    assert [p.name for p in drawers.iterdir()] == [str(pid)]  # the run drew them itself
+    ahead, here = tmp_path / "ahead" / "figures", tmp_path / "here" / "figures"
+    names = sorted(p.name for p in here.iterdir())
+    assert "curves_pine.png" in names
+    assert sorted(p.name for p in ahead.iterdir()) == names
+    assert (ahead / "curves_pine.png").read_bytes() == (here / "curves_pine.png").read_bytes()
+
+    def captions(out):
+        text = (out / "report.html").read_text(encoding="utf-8")
+        return re.findall(r"<figcaption><strong>([^<]*)</strong>", text)
+
+    assert captions(tmp_path / "here")[-2:] == [
+        "Harvest and growing stock under random disturbance.",
+        "Yield curve of pine.",
+    ]
+    assert captions(tmp_path / "ahead") == captions(tmp_path / "here")
