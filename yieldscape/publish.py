@@ -283,7 +283,7 @@ def write_outputs(
         early = side is not None and side.exists()
         if early:
             synced = _long_table_and_maps(result, scenario, gpkg, side)
-        figures = in_report_order({**drawn(), **result.figures_ahead}, [])
+        figures = {**drawn(), **result.figures_ahead}  # the curves last, as they were
     if side is not None and not early:
         synced = _long_table_and_maps(result, scenario, gpkg, side)
     first()  # (after an error the threads end on their own, on a file about to be removed)
@@ -623,11 +623,9 @@ REPORT_ORDER = ("harvest_forecast", "growing_stock", "age_classes", "cover_targe
 def in_report_order(
     drawn: dict[str, Figure], jobs: list[tuple[str, FigureJob]]
 ) -> dict[str, Figure]:
-    """``drawn`` in the report's order: :data:`REPORT_ORDER`, then as the jobs list them,
-    then those drawn ahead (the curves, last in the jobs' list too) in their order."""
+    """``drawn`` in the report's order: :data:`REPORT_ORDER`, then as the jobs list them."""
     rank = {key: i for i, (key, _) in enumerate(jobs)}
     rank |= {key: n - len(REPORT_ORDER) for n, key in enumerate(REPORT_ORDER)}
-    rank |= {key: len(jobs) + n for n, key in enumerate(k for k in drawn if k not in rank)}
     return {k: drawn[k] for k in sorted(drawn, key=rank.__getitem__)}
 
 

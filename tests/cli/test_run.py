@@ -542,24 +542,33 @@ def gpkg_catalogue(path):
     return contents, columns, schema
 
 
+def record_callers(monkeypatch, folder, name):
+    """``yieldscape.publish.<name>`` leaving a file named after each process that calls it
+    in ``folder`` (made here), holding the paths it was given; the folder."""
+    from yieldscape import publish
+
+    folder.mkdir()
+    real = getattr(publish, name)
+
+    def recorded(*args):
+        paths = " ".join(str(a) for a in args if isinstance(a, Path))
+        (folder / str(os.getpid())).write_text(paths)
+        return real(*args)
+
+    monkeypatch.setattr(publish, name, recorded)
+    return folder
+
+
 def test_the_stands_layer_is_written_by_a_helper_beside_the_tables(tmp_path, monkeypatch):
     # a helper process forked once the stands layer is built writes it while the run builds
     # its other tables; the file is the one the run writes itself where nothing is forked
-    from yieldscape import publish, sharedwork
+    from yieldscape import sharedwork
 
     if not sharedwork.FORK:
         pytest.skip("the helper is forked on Linux only")
     layer = write_layer(tmp_path / "stands.gpkg", squares(20), stand_attrs(20, np.arange(20) * 5))
     scenario = write_scenario(tmp_path / "scenario.toml", scenario_dict(layer))
-    writers = tmp_path / "writers"
-    writers.mkdir()
-    real = publish.write_stands_layer
-
-    def recorded(stands, directory, *args):
-        (writers / str(os.getpid())).write_text(str(directory))
-        return real(stands, directory, *args)
-
-    monkeypatch.setattr(publish, "write_stands_layer", recorded)
+    writers = record_callers(monkeypatch, tmp_path / "writers", "write_stands_layer")
     assert main(["run", str(scenario), "--out", str(tmp_path / "ahead"), "-q"]) == 0
     (pid,) = (int(p.name) for p in writers.iterdir())
     assert pid != os.getpid()
@@ -579,7 +588,7 @@ def test_the_stands_layer_is_written_by_a_helper_beside_the_tables(tmp_path, mon
 def test_the_curve_figures_are_drawn_by_a_helper_beside_the_search(tmp_path, monkeypatch):
     # forked once the stands are read and netted down; the same figures, in the same place
     # of the report, as where the run draws them all in its write stage (nothing forked)
-    from yieldscape import publish, sharedwork
+    from yieldscape import sharedwork
 
     if not sharedwork.FORK:
         pytest.skip("the helper is forked on Linux only")
@@ -587,15 +596,7 @@ def test_the_curve_figures_are_drawn_by_a_helper_beside_the_search(tmp_path, mon
     raw = scenario_dict(layer, report={"figures": True})
     raw["disturbance"] = {"annual_rate": 0.005, "replicates": 3, "seed": 1}  # one more figure
     scenario = write_scenario(tmp_path / "scenario.toml", raw)
-    drawers = tmp_path / "drawers"
-    drawers.mkdir()
-    real = publish.curve_figures
-
-    def recorded(scenario, stands, directory):
-        (drawers / str(os.getpid())).write_text(str(directory))
-        return real(scenario, stands, directory)
-
-    monkeypatch.setattr(publish, "curve_figures", recorded)
+    drawers = record_callers(monkeypatch, tmp_path / "drawers", "curve_figures")
     assert main(["run", str(scenario), "--out", str(tmp_path / "ahead"), "-q"]) == 0
     (pid,) = (int(p.name) for p in drawers.iterdir())
     assert pid != os.getpid()
